@@ -1,0 +1,285 @@
+//! Command-line front end. Parses options, calls the library, prints the
+//! summary and maps errors to exit codes (see [`morbus::error`]).
+
+use std::io::Write;
+use std::path::PathBuf;
+
+use clap::{Args, Parser, Subcommand, ValueEnum};
+
+use morbus::lists::{self, Catalogue};
+use morbus::pipeline::{self, Layout, ScoreConfig};
+use morbus::score::{Engine, IndexSpec, ScoreOptions, DEFAULT_INDICES};
+use morbus::Error;
+
+#[derive(Parser)]
+#[command(
+    name = "morbus",
+    version,
+    about = "Comorbidity and frailty covariates from the ICD-10 diagnosis fields of episode extracts",
+    long_about = "Comorbidity and frailty covariates (Charlson, Elixhauser, Hospital Frailty Risk Score) \
+from the ICD-10 diagnosis fields of hospital episode and claims extracts.\n\n\
+These indices support population-level risk adjustment and research, not decisions about an \
+individual patient. Review the code lists against local coding standards before use.\n\n\
+Exit codes: 0 success, 1 unreadable input data, 2 usage (options, columns, lists), 3 stopped by --strict."
+)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Add comorbidity and frailty scores to an extract.
+    Score(Box<ScoreArgs>),
+    /// Show the available code lists.
+    Lists(ListsArgs),
+}
+
+#[derive(Clone, Copy, ValueEnum, PartialEq, Eq)]
+enum LayoutArg {
+    /// One row per episode, several diagnosis columns.
+    Wide,
+    /// One code per row, grouped by --id.
+    Long,
+}
+
+/// Options shared by every command that reads an extract.
+#[derive(Args, Clone)]
+struct InputArgs {
+    /// Input CSV (plain or gzip); `-` or nothing reads standard input.
+    input: Option<PathBuf>,
+    /// Diagnosis columns: names and/or globs, comma-separated (e.g. 'dx*').
+    #[arg(long, value_name = "COLS", required = true)]
+    dx: Vec<String>,
+    /// Split a diagnosis field holding several codes at this character.
+    #[arg(long, value_name = "CHAR")]
+    dx_sep: Option<String>,
+    /// Field delimiter of the input (and output): a character, or `tab`.
+    #[arg(long, value_name = "CHAR", default_value = ",")]
+    delimiter: String,
+    /// Layout of the extract.
+    #[arg(long, value_enum, default_value = "wide")]
+    layout: LayoutArg,
+    /// Id column: the unit of a long extract (e.g. an episode or patient id).
+    #[arg(long, value_name = "COL")]
+    id: Option<String>,
+    /// Index specifications LIST[:WEIGHTING], comma-separated or repeated.
+    #[arg(long = "index", value_name = "SPEC")]
+    index: Vec<String>,
+    /// Age column (whole years): adds `<list>_<weighting>_age` for lists with age points.
+    #[arg(long, value_name = "COL")]
+    age: Option<String>,
+    /// Switch the lists' hierarchies off.
+    #[arg(long)]
+    no_hierarchy: bool,
+    /// Directory of code lists (*.tsv) that add to or replace the built-ins.
+    #[arg(long, value_name = "DIR")]
+    lists: Option<PathBuf>,
+    /// Treat every warning (invalid code, unreadable age) as an error.
+    #[arg(long)]
+    strict: bool,
+    /// Do not print the summary on standard error.
+    #[arg(long, short)]
+    quiet: bool,
+}
+
+#[derive(Args)]
+struct ScoreArgs {
+    #[command(flatten)]
+    input: InputArgs,
+    /// Add a 0/1 column `<list>_<condition>` per condition.
+    #[arg(long)]
+    flags: bool,
+    /// Output path (`.gz` compresses); standard output by default.
+    #[arg(long, short, value_name = "PATH")]
+    output: Option<PathBuf>,
+}
+
+#[derive(Args)]
+struct ListsArgs {
+    /// Also load the lists found in this directory.
+    #[arg(long, value_name = "DIR")]
+    lists: Option<PathBuf>,
+}
+
+/// Runs the command line and returns the exit code.
+pub fn run() -> i32 {
+    let cli = match Cli::try_parse() {
+        Ok(c) => c,
+        Err(e) => {
+            let code = if e.use_stderr() { 2 } else { 0 };
+            let _ = e.print();
+            return code;
+        }
+    };
+    let result = match cli.command {
+        Command::Score(a) => score(*a),
+        Command::Lists(a) => list_table(a),
+    };
+    match result {
+        Ok(()) => 0,
+        Err(e) => {
+            eprintln!("morbus: error: {e}");
+            e.exit_code()
+        }
+    }
+}
+
+fn one_char(text: &str, what: &str) -> Result<u8, Error> {
+    match text {
+        "tab" | "\\t" => return Ok(b'\t'),
+        _ => {}
+    }
+    let b = text.as_bytes();
+    if b.len() == 1 && b[0].is_ascii() && b[0] != b'"' && b[0] != b'\n' && b[0] != b'\r' {
+        Ok(b[0])
+    } else {
+        Err(Error::Usage(format!(
+            "{what} must be one ASCII character (or 'tab'), not '{text}'"
+        )))
+    }
+}
+
+/// The built-in lists plus those of `--lists DIR` (which replace built-ins of
+/// the same name, saying so on stderr).
+fn catalogue(dir: Option<&PathBuf>, quiet: bool) -> Result<Catalogue, Error> {
+    let mut cat = Catalogue::builtin();
+    if let Some(dir) = dir {
+        let loaded = lists::load_dir(dir)?;
+        if loaded.is_empty() {
+            return Err(Error::Usage(format!(
+                "no code lists (*.tsv) found in {}",
+                dir.display()
+            )));
+        }
+        for l in loaded {
+            for w in &l.warnings {
+                eprintln!("morbus: {w}");
+            }
+            let name = l.list.name.clone();
+            let origin = l.list.origin.clone();
+            if let Some(old) = cat.insert(l.list) {
+                if !quiet {
+                    eprintln!("morbus: list '{name}' from {origin} replaces the {old} list");
+                }
+            }
+        }
+    }
+    Ok(cat)
+}
+
+fn engine_for(a: &InputArgs, flags: bool) -> Result<(Catalogue, Engine), Error> {
+    let cat = catalogue(a.lists.as_ref(), a.quiet)?;
+    let spec_text = if a.index.is_empty() {
+        DEFAULT_INDICES.to_string()
+    } else {
+        a.index.join(",")
+    };
+    let specs = IndexSpec::parse_many(&spec_text)?;
+    let options = ScoreOptions {
+        hierarchy: !a.no_hierarchy,
+        flags,
+        age: a.age.is_some(),
+    };
+    let engine = Engine::new(&cat, &specs, options)?;
+    Ok((cat, engine))
+}
+
+fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
+    let layout = match a.layout {
+        LayoutArg::Wide => Layout::Wide,
+        LayoutArg::Long => Layout::Long,
+    };
+    if layout == Layout::Long && a.id.is_none() {
+        return Err(Error::Usage("--layout long needs --id COL".into()));
+    }
+    Ok(ScoreConfig {
+        dx: a.dx.clone(),
+        dx_sep: a
+            .dx_sep
+            .as_deref()
+            .map(|s| one_char(s, "--dx-sep"))
+            .transpose()?,
+        layout,
+        id: a.id.clone(),
+        age: a.age.clone(),
+        delimiter: one_char(&a.delimiter, "--delimiter")?,
+        strict: a.strict,
+        ..ScoreConfig::default()
+    })
+}
+
+fn score(a: ScoreArgs) -> Result<(), Error> {
+    let (_cat, engine) = engine_for(&a.input, a.flags)?;
+    let cfg = config_for(&a.input)?;
+    let input = morbus::io::open_input(a.input.input.as_deref())?;
+    let mut output = morbus::io::open_output(a.output.as_deref())?;
+    let summary = pipeline::score_stream(&engine, &cfg, input.reader, &mut output.writer)?;
+    drop(output);
+    if !a.input.quiet {
+        eprintln!("{}", summary.report());
+    }
+    Ok(())
+}
+
+fn list_table(a: ListsArgs) -> Result<(), Error> {
+    let cat = catalogue(a.lists.as_ref(), false)?;
+    let mut out = std::io::stdout().lock();
+    let rows: Vec<[String; 7]> = cat
+        .lists()
+        .iter()
+        .map(|l| {
+            [
+                l.name.clone(),
+                l.version.clone(),
+                l.conditions.len().to_string(),
+                l.code_entries().to_string(),
+                l.weightings
+                    .iter()
+                    .map(|w| {
+                        if w.name == l.default_weighting {
+                            format!("{} (default)", w.name)
+                        } else {
+                            w.name.clone()
+                        }
+                    })
+                    .collect::<Vec<_>>()
+                    .join(", "),
+                l.checksum[..12].to_string(),
+                l.source.clone(),
+            ]
+        })
+        .collect();
+    let head = [
+        "name",
+        "version",
+        "conditions",
+        "code entries",
+        "weightings",
+        "checksum",
+        "source",
+    ];
+    let mut widths: Vec<usize> = head.iter().map(|h| h.len()).collect();
+    for r in &rows {
+        for (w, c) in widths.iter_mut().zip(r.iter()).take(6) {
+            *w = (*w).max(c.chars().count());
+        }
+    }
+    let line = |cells: Vec<&str>| -> String {
+        let mut s = String::new();
+        for (i, c) in cells.iter().enumerate() {
+            if i < 6 {
+                s.push_str(&format!("{:<w$}  ", c, w = widths[i]));
+            } else {
+                s.push_str(c);
+            }
+        }
+        s.trim_end().to_string()
+    };
+    let w = |e| Error::io("cannot write output", e);
+    writeln!(out, "{}", line(head.to_vec())).map_err(w)?;
+    for r in &rows {
+        writeln!(out, "{}", line(r.iter().map(String::as_str).collect())).map_err(w)?;
+    }
+    Ok(())
+}

@@ -1,0 +1,317 @@
+//! Reading ICD-10 codes as they appear in extracts.
+//!
+//! A diagnosis field is trimmed, upper-cased and stripped of dots, inner
+//! spaces, dagger/asterisk marks (`†`, `+`, `*`), trailing `-` and a trailing
+//! `X` filler after a three-character category (`I10X` is `I10`). What remains
+//! must be ICD-10-shaped: 3 to 7 ASCII letters or digits, the first a letter,
+//! the second a digit and the third a digit or a letter. Anything else is an
+//! *invalid code*: it scores nothing and is counted by the caller.
+//!
+//! The reader works on bytes, never allocates, and packs a code into a `u64`
+//! key so that the matcher can look up prefixes without building strings.
+
+/// Longest code kept (ICD-10-CM codes have 7 characters).
+pub const MAX_CODE_LEN: usize = 7;
+/// Shortest valid code (an ICD-10 category).
+pub const MIN_CODE_LEN: usize = 3;
+/// Longest raw field the reader looks at; longer fields are invalid codes.
+const MAX_RAW_LEN: usize = 64;
+
+/// A normalised ICD-10 code: up to seven upper-case ASCII characters.
+#[derive(Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub struct Code {
+    bytes: [u8; MAX_CODE_LEN],
+    len: u8,
+}
+
+impl Code {
+    /// The normalised characters, e.g. `b"I509"`.
+    pub fn as_bytes(&self) -> &[u8] {
+        &self.bytes[..self.len as usize]
+    }
+
+    /// The normalised code as text.
+    pub fn as_str(&self) -> &str {
+        // Only ASCII letters and digits are ever stored.
+        std::str::from_utf8(self.as_bytes()).unwrap_or("")
+    }
+
+    /// Number of characters (3 to 7).
+    pub fn len(&self) -> usize {
+        self.len as usize
+    }
+
+    /// Always false: a code has at least three characters.
+    pub fn is_empty(&self) -> bool {
+        self.len == 0
+    }
+
+    /// Packed key of the first `n` characters (`n <= len`), as used by the
+    /// matcher. Distinct prefixes of any length give distinct keys.
+    #[inline]
+    pub fn prefix_key(&self, n: usize) -> u64 {
+        pack(&self.bytes[..n])
+    }
+}
+
+impl std::fmt::Debug for Code {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "Code({})", self.as_str())
+    }
+}
+
+impl std::fmt::Display for Code {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
+/// Packs up to seven ASCII bytes and their count into one `u64`.
+#[inline]
+pub fn pack(chars: &[u8]) -> u64 {
+    let mut key = chars.len() as u64;
+    for (i, &c) in chars.iter().enumerate() {
+        key |= (c as u64) << (8 * (i + 1));
+    }
+    key
+}
+
+/// What a diagnosis field holds once read.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Reading {
+    /// Nothing but spaces and marks: not a code, not an error.
+    Empty,
+    /// An ICD-10-shaped code.
+    Valid(Code),
+    /// Something that is not ICD-10-shaped.
+    Invalid,
+}
+
+/// Reads one diagnosis value.
+///
+/// ```
+/// use morbus::code::{read_code, Reading};
+/// let Reading::Valid(c) = read_code(b" i50.9 ") else { panic!() };
+/// assert_eq!(c.as_str(), "I509");
+/// assert_eq!(read_code(b"I10X"), read_code(b"I10"));
+/// assert_eq!(read_code(b"N/A"), Reading::Invalid);
+/// assert_eq!(read_code(b"  "), Reading::Empty);
+/// ```
+#[inline]
+pub fn read_code(raw: &[u8]) -> Reading {
+    let mut bytes = [0u8; MAX_CODE_LEN];
+    let mut len = 0usize;
+    if raw.len() > MAX_RAW_LEN {
+        return Reading::Invalid;
+    }
+    let mut i = 0;
+    let mut seen_other = false;
+    while i < raw.len() {
+        let b = raw[i];
+        match b {
+            b'0'..=b'9' | b'A'..=b'Z' | b'a'..=b'z' => {
+                if len == MAX_CODE_LEN {
+                    return Reading::Invalid;
+                }
+                bytes[len] = b.to_ascii_uppercase();
+                len += 1;
+            }
+            b'.' | b' ' | b'\t' | b'*' | b'+' => {}
+            b'-' => {
+                // Only trailing dashes (`I10-`, `I10--`) are marks.
+                if raw[i..].iter().any(|&c| !matches!(c, b'-' | b' ' | b'\t')) {
+                    return Reading::Invalid;
+                }
+                break;
+            }
+            // The dagger sign U+2020 in UTF-8 (E2 80 A0).
+            0xE2 if raw.get(i + 1) == Some(&0x80) && raw.get(i + 2) == Some(&0xA0) => {
+                i += 2;
+            }
+            _ => seen_other = true,
+        }
+        i += 1;
+    }
+    if seen_other {
+        return Reading::Invalid;
+    }
+    if len == 0 {
+        return Reading::Empty;
+    }
+    // `X` filler after a three-character category.
+    if len > MIN_CODE_LEN && bytes[MIN_CODE_LEN..len].iter().all(|&c| c == b'X') {
+        len = MIN_CODE_LEN;
+    }
+    if len < MIN_CODE_LEN
+        || !bytes[0].is_ascii_uppercase()
+        || !bytes[1].is_ascii_digit()
+        || !(bytes[2].is_ascii_digit() || bytes[2].is_ascii_uppercase())
+    {
+        return Reading::Invalid;
+    }
+    for b in bytes.iter_mut().skip(len) {
+        *b = 0;
+    }
+    Reading::Valid(Code {
+        bytes,
+        len: len as u8,
+    })
+}
+
+/// Reads a code written in a code list (same rules as an extract, plus a
+/// trailing `.x` or `x` meaning "whole category", as published tables write).
+pub fn read_list_code(text: &str) -> Option<Code> {
+    let t = text.trim();
+    let t = t
+        .strip_suffix(".x")
+        .or_else(|| t.strip_suffix(".X"))
+        .unwrap_or(t);
+    match read_code(t.as_bytes()) {
+        Reading::Valid(c) => Some(c),
+        _ => None,
+    }
+}
+
+/// Position alphabet for range expansion, as the code shape allows: the
+/// first character runs over `A-Z`, the second over `0-9`, every later one
+/// over `0-9` then `A-Z`.
+fn successor(code: &mut [u8]) -> bool {
+    for i in (0..code.len()).rev() {
+        let (lo, hi) = match i {
+            0 => (b'A', b'Z'),
+            1 => (b'0', b'9'),
+            _ => (b'0', b'Z'),
+        };
+        let c = code[i];
+        if c < hi {
+            code[i] = if c == b'9' { b'A' } else { c + 1 };
+            return true;
+        }
+        code[i] = lo;
+    }
+    false
+}
+
+/// Expands an inclusive range of equal-length codes into every code between
+/// them, calling `f` for each. Stops (returning false) after `limit` codes.
+pub fn expand_range(first: &Code, last: &Code, limit: usize, mut f: impl FnMut(Code)) -> bool {
+    debug_assert_eq!(first.len(), last.len());
+    let mut cur = *first;
+    let n = cur.len();
+    let mut count = 0;
+    loop {
+        if count == limit {
+            return false;
+        }
+        f(cur);
+        count += 1;
+        if cur.as_bytes() >= last.as_bytes() || !successor(&mut cur.bytes[..n]) {
+            return true;
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn s(raw: &str) -> String {
+        match read_code(raw.as_bytes()) {
+            Reading::Valid(c) => c.as_str().to_string(),
+            Reading::Empty => "<empty>".into(),
+            Reading::Invalid => "<invalid>".into(),
+        }
+    }
+
+    // Code shapes: WHO ICD-10 categories are a letter, two digits; subcategories
+    // add a digit after a dot; ICD-10-CM codes have up to 7 characters with
+    // letters allowed from the third (common practice; WHO ICD-10 2019 and
+    // ICD-10-CM conventions).
+    #[test]
+    fn normalises_case_dots_spaces_marks() {
+        assert_eq!(s("I50.9"), "I509");
+        assert_eq!(s(" i50.9 "), "I509");
+        assert_eq!(s("I 50 9"), "I509");
+        assert_eq!(s("E11.4†"), "E114");
+        assert_eq!(s("G63.2*"), "G632");
+        assert_eq!(s("A17.0+"), "A170");
+        assert_eq!(s("I10-"), "I10");
+        assert_eq!(s("I10X"), "I10");
+        assert_eq!(s("I10XX"), "I10");
+        assert_eq!(s("S72.001A"), "S72001A");
+        assert_eq!(s("C4A.9"), "C4A9");
+        assert_eq!(s("T36.0X1A"), "T360X1A");
+        assert_eq!(s("N18.5"), "N185");
+    }
+
+    #[test]
+    fn empty_and_invalid() {
+        assert_eq!(s(""), "<empty>");
+        assert_eq!(s("   "), "<empty>");
+        assert_eq!(s("."), "<empty>");
+        for bad in [
+            "I2",
+            "12345",
+            "N/A",
+            "UNKNOWN",
+            "I-10",
+            "II0",
+            "I50.91234",
+            "é50",
+            "1I50",
+        ] {
+            assert_eq!(s(bad), "<invalid>", "{bad}");
+        }
+        let long = "I".repeat(100);
+        assert_eq!(s(&long), "<invalid>");
+    }
+
+    #[test]
+    fn prefix_keys_are_distinct_per_length() {
+        let Reading::Valid(c) = read_code(b"I500") else {
+            panic!()
+        };
+        let Reading::Valid(d) = read_code(b"I50") else {
+            panic!()
+        };
+        assert_eq!(c.prefix_key(3), d.prefix_key(3));
+        assert_ne!(c.prefix_key(4), d.prefix_key(3));
+    }
+
+    #[test]
+    fn list_codes_accept_x_suffix() {
+        assert_eq!(read_list_code("I50.x").unwrap().as_str(), "I50");
+        assert_eq!(read_list_code("I42.5").unwrap().as_str(), "I425");
+        assert!(read_list_code("I4").is_none());
+    }
+
+    #[test]
+    fn range_expansion() {
+        let a = read_list_code("C00").unwrap();
+        let b = read_list_code("C26").unwrap();
+        let mut v = vec![];
+        assert!(expand_range(&a, &b, 1000, |c| v.push(c.as_str().to_string())));
+        // Character order puts digits before letters, so C00-C26 also claims
+        // letter-third-character categories such as C0A (none exist in WHO
+        // ICD-10; ICD-10-CM has a few, e.g. C4A).
+        assert_eq!(v.len(), 2 * 36 + 7);
+        assert_eq!(v[0], "C00");
+        assert!(v.contains(&"C0A".to_string()));
+        assert_eq!(v.last().unwrap(), "C26");
+        let a = read_list_code("I42.5").unwrap();
+        let b = read_list_code("I42.9").unwrap();
+        let mut v = vec![];
+        expand_range(&a, &b, 1000, |c| v.push(c.as_str().to_string()));
+        assert_eq!(v, ["I425", "I426", "I427", "I428", "I429"]);
+        // Letters in later positions (ICD-10-CM style) are part of the alphabet.
+        let a = read_list_code("V01").unwrap();
+        let b = read_list_code("X59").unwrap();
+        let mut n = 0;
+        expand_range(&a, &b, 100_000, |_| n += 1);
+        // V01..V9Z, W00..W9Z, X00..X59 over a 36-character third position.
+        assert_eq!(n, (360 - 1) + 360 + (5 * 36 + 10));
+        let mut n = 0;
+        assert!(!expand_range(&a, &b, 10, |_| n += 1));
+        assert_eq!(n, 10);
+    }
+}

@@ -1,0 +1,350 @@
+//! Code lists: conditions, codes, hierarchies, weightings, age points and
+//! bands, all as data. The format is described in `code-lists/FORMAT.md`.
+//!
+//! Built-in lists are embedded in the binary at build time ([`builtin`]);
+//! user lists are read from files ([`load_file`], [`load_dir`]). Both go
+//! through the same parser ([`parse`]) and the same matcher.
+
+pub mod builtin;
+mod canonical;
+mod decimal;
+pub mod parse;
+
+use std::collections::BTreeMap;
+use std::fmt;
+use std::path::{Path, PathBuf};
+
+use crate::code::Code;
+pub use canonical::{canonical_text, checksum};
+pub use decimal::{format_scaled, parse_scaled, SCALE, SCALE_DECIMALS};
+pub use parse::{parse, Diagnostic, Severity};
+
+/// Where a list came from.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub enum Origin {
+    /// Embedded in the binary (the file name under `code-lists/`).
+    Builtin(&'static str),
+    /// Read from a file.
+    File(PathBuf),
+}
+
+impl fmt::Display for Origin {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Origin::Builtin(name) => write!(f, "built-in ({name})"),
+            Origin::File(p) => write!(f, "{}", p.display()),
+        }
+    }
+}
+
+/// A condition of a list (a comorbidity, or a frailty category).
+#[derive(Clone, Debug, PartialEq)]
+pub struct Condition {
+    pub key: String,
+    pub label: String,
+    pub source: String,
+    pub line: usize,
+}
+
+/// One `code` record: a code or an inclusive range of equal-length codes.
+#[derive(Clone, Debug, PartialEq)]
+pub struct CodeEntry {
+    /// As written in the file.
+    pub text: String,
+    pub first: Code,
+    /// `None` for a single code.
+    pub last: Option<Code>,
+    /// Index into [`CodeList::conditions`].
+    pub condition: usize,
+    pub source: String,
+    pub line: usize,
+}
+
+impl CodeEntry {
+    /// Normalised form: `I425` or `I425-I429`.
+    pub fn normalised(&self) -> String {
+        match &self.last {
+            None => self.first.to_string(),
+            Some(l) => format!("{}-{}", self.first, l),
+        }
+    }
+
+    /// Whether a code is claimed by this entry (prefix match).
+    pub fn claims(&self, code: &Code) -> bool {
+        let n = self.first.len();
+        if code.len() < n {
+            return false;
+        }
+        let p = &code.as_bytes()[..n];
+        match &self.last {
+            None => p == self.first.as_bytes(),
+            Some(l) => p >= self.first.as_bytes() && p <= l.as_bytes(),
+        }
+    }
+}
+
+/// `superior` present in a unit removes `inferior`.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Supersedes {
+    pub superior: usize,
+    pub inferior: usize,
+    pub source: String,
+    pub line: usize,
+}
+
+/// One end of a band.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Bound {
+    Open,
+    Inclusive(i64),
+    Exclusive(i64),
+}
+
+/// A named score band of a weighting, e.g. `intermediate` for 5 to 15.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Band {
+    pub name: String,
+    pub lower: Bound,
+    pub upper: Bound,
+    pub source: String,
+    pub line: usize,
+}
+
+impl Band {
+    /// Whether a scaled score lies in the band.
+    pub fn contains(&self, scaled: i64) -> bool {
+        let lo = match self.lower {
+            Bound::Open => true,
+            Bound::Inclusive(x) => scaled >= x,
+            Bound::Exclusive(x) => scaled > x,
+        };
+        let hi = match self.upper {
+            Bound::Open => true,
+            Bound::Inclusive(x) => scaled <= x,
+            Bound::Exclusive(x) => scaled < x,
+        };
+        lo && hi
+    }
+}
+
+/// A scoring scheme: points per condition.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Weighting {
+    pub name: String,
+    pub label: String,
+    pub source: String,
+    /// Points per condition (same order as [`CodeList::conditions`]), in
+    /// units of `1/SCALE`.
+    pub weights: Vec<i64>,
+    /// Source written on each weight line (empty: the weighting's source).
+    pub weight_sources: Vec<String>,
+    /// Decimals printed: the most precise weight's.
+    pub decimals: u32,
+    pub bands: Vec<Band>,
+    pub line: usize,
+}
+
+impl Weighting {
+    /// The band a scaled score falls in, if the weighting has bands.
+    pub fn band_of(&self, scaled: i64) -> Option<&str> {
+        self.bands
+            .iter()
+            .find(|b| b.contains(scaled))
+            .map(|b| b.name.as_str())
+    }
+}
+
+/// Points for an age range (whole years, inclusive).
+#[derive(Clone, Debug, PartialEq)]
+pub struct AgePoints {
+    pub from: u32,
+    /// `None`: no upper limit.
+    pub to: Option<u32>,
+    pub points: i64,
+    pub source: String,
+    pub line: usize,
+}
+
+/// A complete, validated code list.
+#[derive(Clone, Debug, PartialEq)]
+pub struct CodeList {
+    pub name: String,
+    pub version: String,
+    pub title: String,
+    pub editions: Vec<String>,
+    pub source: String,
+    pub default_weighting: String,
+    pub conditions: Vec<Condition>,
+    pub codes: Vec<CodeEntry>,
+    pub hierarchy: Vec<Supersedes>,
+    pub weightings: Vec<Weighting>,
+    pub age_points: Vec<AgePoints>,
+    pub origin: Origin,
+    /// SHA-256 of the canonical content, lower-case hex.
+    pub checksum: String,
+}
+
+impl CodeList {
+    pub fn condition_index(&self, key: &str) -> Option<usize> {
+        self.conditions.iter().position(|c| c.key == key)
+    }
+
+    pub fn weighting(&self, name: &str) -> Option<&Weighting> {
+        self.weightings.iter().find(|w| w.name == name)
+    }
+
+    /// Age points for a whole-year age (0 when no range covers it).
+    pub fn points_for_age(&self, age: u32) -> i64 {
+        self.age_points
+            .iter()
+            .find(|a| age >= a.from && a.to.is_none_or(|t| age <= t))
+            .map_or(0, |a| a.points)
+    }
+
+    /// The conditions a code is assigned to, in declaration order.
+    pub fn conditions_of(&self, code: &Code) -> Vec<usize> {
+        let mut v: Vec<usize> = self
+            .codes
+            .iter()
+            .filter(|e| e.claims(code))
+            .map(|e| e.condition)
+            .collect();
+        v.sort_unstable();
+        v.dedup();
+        v
+    }
+
+    /// Number of `code` records.
+    pub fn code_entries(&self) -> usize {
+        self.codes.len()
+    }
+}
+
+/// A failure to load a list: every error found, each with file and line.
+#[derive(Debug, Clone)]
+pub struct ListError {
+    pub diagnostics: Vec<Diagnostic>,
+}
+
+impl fmt::Display for ListError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let errors: Vec<&Diagnostic> = self
+            .diagnostics
+            .iter()
+            .filter(|d| d.severity == Severity::Error)
+            .collect();
+        write!(f, "code list has {} error(s)", errors.len())?;
+        for d in errors {
+            write!(f, "\n  {d}")?;
+        }
+        Ok(())
+    }
+}
+
+impl std::error::Error for ListError {}
+
+/// A loaded list and the warnings its loading produced.
+#[derive(Debug, Clone)]
+pub struct Loaded {
+    pub list: CodeList,
+    pub warnings: Vec<Diagnostic>,
+}
+
+/// Loads one list file.
+pub fn load_file(path: &Path) -> Result<Loaded, ListError> {
+    let text = std::fs::read(path).map_err(|e| ListError {
+        diagnostics: vec![Diagnostic::error(
+            &path.display().to_string(),
+            0,
+            format!("cannot read: {e}"),
+        )],
+    })?;
+    let text = String::from_utf8(text).map_err(|e| ListError {
+        diagnostics: vec![Diagnostic::error(
+            &path.display().to_string(),
+            0,
+            format!("not UTF-8 text ({e})"),
+        )],
+    })?;
+    parse(&text, Origin::File(path.to_path_buf()))
+}
+
+/// Loads every `*.tsv` list in a directory, sorted by file name.
+pub fn load_dir(dir: &Path) -> Result<Vec<Loaded>, ListError> {
+    let entries = std::fs::read_dir(dir).map_err(|e| ListError {
+        diagnostics: vec![Diagnostic::error(
+            &dir.display().to_string(),
+            0,
+            format!("cannot read list directory: {e}"),
+        )],
+    })?;
+    let mut paths: Vec<PathBuf> = entries
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.extension().is_some_and(|x| x == "tsv"))
+        .collect();
+    paths.sort();
+    let mut out = Vec::new();
+    let mut diagnostics = Vec::new();
+    for p in paths {
+        match load_file(&p) {
+            Ok(l) => out.push(l),
+            Err(e) => diagnostics.extend(e.diagnostics),
+        }
+    }
+    if !diagnostics.is_empty() {
+        return Err(ListError { diagnostics });
+    }
+    let mut seen = BTreeMap::new();
+    for l in &out {
+        if let Some(prev) = seen.insert(l.list.name.clone(), l.list.origin.to_string()) {
+            return Err(ListError {
+                diagnostics: vec![Diagnostic::error(
+                    &l.list.origin.to_string(),
+                    1,
+                    format!("list name '{}' is also used by {prev}", l.list.name),
+                )],
+            });
+        }
+    }
+    Ok(out)
+}
+
+/// The lists available to a run: the built-ins, replaced or extended by lists
+/// loaded from files.
+#[derive(Debug, Clone)]
+pub struct Catalogue {
+    lists: Vec<CodeList>,
+}
+
+impl Catalogue {
+    /// Only the built-in lists.
+    pub fn builtin() -> Catalogue {
+        Catalogue {
+            lists: builtin::all().to_vec(),
+        }
+    }
+
+    /// Adds a list; a list of the same name is replaced. Returns the origin
+    /// of the replaced list, if any.
+    pub fn insert(&mut self, list: CodeList) -> Option<Origin> {
+        if let Some(slot) = self.lists.iter_mut().find(|l| l.name == list.name) {
+            let old = std::mem::replace(slot, list);
+            Some(old.origin)
+        } else {
+            self.lists.push(list);
+            None
+        }
+    }
+
+    pub fn get(&self, name: &str) -> Option<&CodeList> {
+        self.lists.iter().find(|l| l.name == name)
+    }
+
+    pub fn lists(&self) -> &[CodeList] {
+        &self.lists
+    }
+
+    pub fn names(&self) -> Vec<&str> {
+        self.lists.iter().map(|l| l.name.as_str()).collect()
+    }
+}
