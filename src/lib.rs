@@ -38,6 +38,7 @@ pub mod lists;
 pub mod matcher;
 pub mod pipeline;
 pub mod score;
+pub mod stats;
 
 pub use error::Error;
 
