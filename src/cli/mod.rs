@@ -1,7 +1,7 @@
 //! Command-line front end. Parses options, calls the library, prints the
 //! summary and maps errors to exit codes (see [`morbus::error`]).
 
-use std::io::Write;
+use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
 
 use clap::{Args, Parser, Subcommand, ValueEnum};
@@ -11,6 +11,8 @@ use morbus::pipeline::explain::ExplainFormat;
 use morbus::pipeline::{self, DateFormat, Layout, ScoreConfig};
 use morbus::score::{Engine, IndexSpec, ScoreOptions, DEFAULT_INDICES};
 use morbus::Error;
+
+mod progress;
 
 #[derive(Parser)]
 #[command(
@@ -120,9 +122,12 @@ struct InputArgs {
     /// Treat every warning (invalid code, unreadable age) as an error.
     #[arg(long)]
     strict: bool,
-    /// Do not print the summary on standard error.
+    /// Do not print the summary or the progress line on standard error.
     #[arg(long, short)]
     quiet: bool,
+    /// Worker threads for wide scoring (default: one per core).
+    #[arg(long, value_name = "N", default_value_t = 0)]
+    threads: usize,
 }
 
 #[derive(Args)]
@@ -283,6 +288,7 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
         age: a.age.clone(),
         delimiter: one_char(&a.delimiter, "--delimiter")?,
         strict: a.strict,
+        threads: a.threads,
         ..ScoreConfig::default()
     })
 }
@@ -292,7 +298,23 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
     let cfg = config_for(&a.input)?;
     let input = morbus::io::open_input(a.input.input.as_deref())?;
     let mut output = morbus::io::open_output(a.output.as_deref())?;
-    let summary = pipeline::score_stream(&engine, &cfg, input.reader, &mut output.writer)?;
+    let show = !a.input.quiet && std::io::stderr().is_terminal();
+    let mut bar = progress::ProgressLine::new(if input.compressed { None } else { input.size });
+    let result = pipeline::score_stream_observed(
+        &engine,
+        &cfg,
+        input.reader,
+        &mut output.writer,
+        &mut |p| {
+            if show {
+                bar.update(p)
+            }
+        },
+    );
+    if show {
+        bar.finish();
+    }
+    let summary = result?;
     drop(output);
     if !a.input.quiet {
         eprintln!("{}", summary.report());

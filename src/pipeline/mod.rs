@@ -73,6 +73,17 @@ pub struct ScoreConfig {
     pub strict: bool,
     /// Preferred block size in bytes.
     pub block_size: usize,
+    /// Worker threads for the wide layout without lookback (0: one per core).
+    pub threads: usize,
+}
+
+/// How far a run has got, for a progress display.
+#[derive(Clone, Copy, Debug, Default)]
+pub struct Progress {
+    /// Bytes read from the (decompressed) input.
+    pub bytes_read: u64,
+    /// Data rows read.
+    pub rows: u64,
 }
 
 impl Default for ScoreConfig {
@@ -94,6 +105,7 @@ impl Default for ScoreConfig {
             delimiter: b',',
             strict: false,
             block_size: 1 << 20,
+            threads: 0,
         }
     }
 }
@@ -139,6 +151,16 @@ impl Summary {
             *n += 1;
         } else if self.invalid_values.len() < INVALID_VALUES_KEPT {
             self.invalid_values.insert(v.to_vec(), 1);
+        }
+    }
+
+    /// Adds `n` occurrences of an invalid value to the remembered ones
+    /// (not to the count, which the caller keeps).
+    fn add_invalid(&mut self, value: Vec<u8>, n: u64) {
+        if let Some(c) = self.invalid_values.get_mut(&value) {
+            *c += n;
+        } else if self.invalid_values.len() < INVALID_VALUES_KEPT {
+            self.invalid_values.insert(value, n);
         }
     }
 
@@ -577,12 +599,23 @@ pub(crate) fn check_collisions(names: &[&str], engine: &Engine) -> Result<(), Er
 pub fn score_stream(
     engine: &Engine,
     cfg: &ScoreConfig,
-    input: impl Read,
+    input: impl Read + Send,
     output: &mut dyn Write,
+) -> Result<Summary, Error> {
+    score_stream_observed(engine, cfg, input, output, &mut |_| {})
+}
+
+/// [`score_stream`], calling `progress` as blocks are written.
+pub fn score_stream_observed(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    input: impl Read + Send,
+    output: &mut dyn Write,
+    progress: &mut dyn FnMut(Progress),
 ) -> Result<Summary, Error> {
     if cfg.lookback.is_some() || cfg.episode.is_some() {
         history::score_history(engine, cfg, input, output)
     } else {
-        stream::score_plain(engine, cfg, input, output)
+        stream::score_plain(engine, cfg, input, output, progress)
     }
 }

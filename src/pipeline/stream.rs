@@ -7,13 +7,33 @@ use std::collections::HashMap;
 use std::hash::BuildHasherDefault;
 use std::io::{Read, Write};
 
-use super::{check_collisions, Header, Layout, Plan, ScoreConfig, Summary};
-use crate::io::{write_field, BlockReader, RecordScanner};
+use std::collections::BTreeMap;
+use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
+use std::sync::mpsc::{sync_channel, Receiver};
+use std::sync::Mutex;
+
+use super::{check_collisions, Exclusion, Header, Layout, Plan, Progress, ScoreConfig, Summary};
+use crate::io::{write_field, Block, BlockReader, RecordScanner};
 use crate::matcher::KeyHasher;
 use crate::score::{Engine, Value};
 use crate::Error;
 
 pub(super) fn score_plain(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    input: impl Read + Send,
+    output: &mut dyn Write,
+    progress: &mut dyn FnMut(Progress),
+) -> Result<Summary, Error> {
+    match cfg.layout {
+        Layout::Wide => score_wide_parallel(engine, cfg, input, output, progress),
+        Layout::Long => score_long(engine, cfg, input, output),
+    }
+}
+
+/// Long layout: code rows grouped by id, one output row per id in order of
+/// first appearance.
+fn score_long(
     engine: &Engine,
     cfg: &ScoreConfig,
     input: impl Read,
@@ -23,33 +43,22 @@ pub(super) fn score_plain(
     let mut scanner = RecordScanner::new(cfg.delimiter);
     let mut summary = Summary::default();
     let mut plan: Option<Plan> = None;
-    let mut out = Vec::with_capacity(cfg.block_size + cfg.block_size / 2);
-    let mut unit = engine.unit();
-    let mut values: Vec<Value> = Vec::with_capacity(engine.columns().len());
     let mut long = LongUnits::default();
+    let words = engine.words();
     let d = cfg.delimiter;
     let write_err = |e| Error::io("cannot write output", e);
+    let mut out = Vec::new();
 
     while let Some(block) = blocks
         .next_block()
         .map_err(|e| Error::io("cannot read input", e))?
     {
-        out.clear();
         scanner.scan(&block.data, block.last, |rec| -> Result<(), Error> {
             let Some(p) = plan.as_ref() else {
                 let p = Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf)?;
-                match cfg.layout {
-                    Layout::Wide => {
-                        let names: Vec<&str> = p.header.names.iter().map(String::as_str).collect();
-                        check_collisions(&names, engine)?;
-                        out.extend_from_slice(rec.raw);
-                    }
-                    Layout::Long => {
-                        let idc = p.id.unwrap_or(0);
-                        check_collisions(&[p.header.names[idc].as_str()], engine)?;
-                        write_field(rec.fields.get(idc), d, &mut out);
-                    }
-                }
+                let idc = p.id.unwrap_or(0);
+                check_collisions(&[p.header.names[idc].as_str()], engine)?;
+                write_field(rec.fields.get(idc), d, &mut out);
                 for c in engine.columns() {
                     out.push(d);
                     write_field(c.name.as_bytes(), d, &mut out);
@@ -60,49 +69,25 @@ pub(super) fn score_plain(
             };
             summary.rows_read += 1;
             p.check_width(&block, &rec)?;
-            let bits: &mut [u64] = match cfg.layout {
-                Layout::Wide => {
-                    unit.clear();
-                    &mut unit.bits
-                }
-                Layout::Long => {
-                    let u = long.unit(rec.fields.get(p.id.unwrap_or(0)), engine.words());
-                    let w = engine.words();
-                    if p.age.is_some() {
-                        let age = p
-                            .read_age(cfg, &rec.fields, &mut summary)
-                            .map_err(|i| p.issue(i, &block, &rec))?;
-                        if long.ages[u].is_none() {
-                            long.ages[u] = age;
-                        }
-                    }
-                    &mut long.bits[u * w..(u + 1) * w]
-                }
-            };
+            let u = long.unit(rec.fields.get(p.id.unwrap_or(0)), words);
+            let age = p
+                .read_age(cfg, &rec.fields, &mut summary)
+                .map_err(|i| p.issue(i, &block, &rec))?;
+            if long.ages[u].is_none() {
+                long.ages[u] = age;
+            }
+            let bits = &mut long.bits[u * words..(u + 1) * words];
             let mut excluded = (0u64, 0u64);
             p.read_codes(cfg, &rec.fields, &mut summary, |_, code, excl| match excl {
                 None => engine.add_code(bits, &code),
-                Some(super::Exclusion::Primary) => excluded.0 += 1,
-                Some(super::Exclusion::NotPresentOnAdmission) => excluded.1 += 1,
+                Some(Exclusion::Primary) => excluded.0 += 1,
+                Some(Exclusion::NotPresentOnAdmission) => excluded.1 += 1,
             })
             .map_err(|i| p.issue(i, &block, &rec))?;
             summary.excluded_primary += excluded.0;
             summary.excluded_not_on_admission += excluded.1;
-            if cfg.layout == Layout::Wide {
-                let age = p
-                    .read_age(cfg, &rec.fields, &mut summary)
-                    .map_err(|i| p.issue(i, &block, &rec))?;
-                engine.apply_hierarchy(&mut unit.bits, &mut unit.scratch);
-                engine.values(&unit.bits, age, &mut values);
-                out.extend_from_slice(rec.raw);
-                engine.write_values(&values, d, &mut out);
-                out.extend_from_slice(if p.crlf { b"\r\n" } else { b"\n" });
-                summary.rows_written += 1;
-                summary.units += 1;
-            }
             Ok(())
         })?;
-        output.write_all(&out).map_err(write_err)?;
     }
     let Some(p) = plan else {
         return Err(Error::data(
@@ -110,26 +95,23 @@ pub(super) fn score_plain(
             "the input is empty: expected a header line naming the columns",
         ));
     };
-    if cfg.layout == Layout::Long {
-        let words = engine.words();
-        let mut scratch = vec![0u64; words];
-        out.clear();
-        for (u, id) in long.ids.iter().enumerate() {
-            let bits = &mut long.bits[u * words..(u + 1) * words];
-            engine.apply_hierarchy(bits, &mut scratch);
-            engine.values(bits, long.ages[u], &mut values);
-            write_field(id, d, &mut out);
-            engine.write_values(&values, d, &mut out);
-            out.extend_from_slice(if p.crlf { b"\r\n" } else { b"\n" });
-            summary.rows_written += 1;
-            summary.units += 1;
-            if out.len() > cfg.block_size {
-                output.write_all(&out).map_err(write_err)?;
-                out.clear();
-            }
+    let mut scratch = vec![0u64; words];
+    let mut values: Vec<Value> = Vec::with_capacity(engine.columns().len());
+    for (u, id) in long.ids.iter().enumerate() {
+        let bits = &mut long.bits[u * words..(u + 1) * words];
+        engine.apply_hierarchy(bits, &mut scratch);
+        engine.values(bits, long.ages[u], &mut values);
+        write_field(id, d, &mut out);
+        engine.write_values(&values, d, &mut out);
+        out.extend_from_slice(if p.crlf { b"\r\n" } else { b"\n" });
+        summary.rows_written += 1;
+        summary.units += 1;
+        if out.len() > cfg.block_size {
+            output.write_all(&out).map_err(write_err)?;
+            out.clear();
         }
-        output.write_all(&out).map_err(write_err)?;
     }
+    output.write_all(&out).map_err(write_err)?;
     output.flush().map_err(write_err)?;
     Ok(summary)
 }
@@ -156,4 +138,234 @@ impl LongUnits {
         self.ages.push(None);
         u
     }
+}
+
+/// Scores the data records of one block (from byte `start`) into `out`.
+fn score_wide_block(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    p: &Plan,
+    block: &Block,
+    start: usize,
+    scanner: &mut RecordScanner,
+    out: &mut Vec<u8>,
+) -> (Summary, Option<Error>) {
+    let mut summary = Summary::default();
+    let mut unit = engine.unit();
+    let mut values: Vec<Value> = Vec::with_capacity(engine.columns().len());
+    let d = cfg.delimiter;
+    let eol: &[u8] = if p.crlf { b"\r\n" } else { b"\n" };
+    let r = scanner.scan_from(&block.data, start, block.last, |rec| -> Result<(), Error> {
+        summary.rows_read += 1;
+        p.check_width(block, &rec)?;
+        unit.clear();
+        let bits = &mut unit.bits;
+        let mut excluded = (0u64, 0u64);
+        p.read_codes(cfg, &rec.fields, &mut summary, |_, code, excl| match excl {
+            None => engine.add_code(bits, &code),
+            Some(Exclusion::Primary) => excluded.0 += 1,
+            Some(Exclusion::NotPresentOnAdmission) => excluded.1 += 1,
+        })
+        .map_err(|i| p.issue(i, block, &rec))?;
+        summary.excluded_primary += excluded.0;
+        summary.excluded_not_on_admission += excluded.1;
+        let age = p
+            .read_age(cfg, &rec.fields, &mut summary)
+            .map_err(|i| p.issue(i, block, &rec))?;
+        engine.apply_hierarchy(&mut unit.bits, &mut unit.scratch);
+        engine.values(&unit.bits, age, &mut values);
+        out.extend_from_slice(rec.raw);
+        engine.write_values(&values, d, out);
+        out.extend_from_slice(eol);
+        summary.rows_written += 1;
+        summary.units += 1;
+        Ok(())
+    });
+    (summary, r.err())
+}
+
+/// Adds a block's counts to the run's.
+fn merge(into: &mut Summary, s: Summary) {
+    into.rows_read += s.rows_read;
+    into.rows_written += s.rows_written;
+    into.codes_read += s.codes_read;
+    into.missing_ages += s.missing_ages;
+    into.unreadable_ages += s.unreadable_ages;
+    into.units += s.units;
+    into.excluded_primary += s.excluded_primary;
+    into.excluded_not_on_admission += s.excluded_not_on_admission;
+    into.missing_dates += s.missing_dates;
+    into.unreadable_dates += s.unreadable_dates;
+    for (k, v) in s.invalid_values {
+        into.add_invalid(k, v);
+    }
+    into.invalid_codes += s.invalid_codes;
+}
+
+/// Worker threads: the configured number, or one per core.
+pub(crate) fn threads(cfg: &ScoreConfig) -> usize {
+    if cfg.threads > 0 {
+        return cfg.threads;
+    }
+    std::thread::available_parallelism().map_or(1, |n| n.get())
+}
+
+/// Wide scoring on every core: a reader thread cuts blocks, workers score
+/// them, and the calling thread writes their output in input order.
+fn score_wide_parallel(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    input: impl Read + Send,
+    output: &mut dyn Write,
+    progress: &mut dyn FnMut(Progress),
+) -> Result<Summary, Error> {
+    let write_err = |e| Error::io("cannot write output", e);
+    let read_err = |e| Error::io("cannot read input", e);
+    let mut reader = BlockReader::new(input, cfg.delimiter, cfg.block_size);
+    let Some(first) = reader.next_block().map_err(read_err)? else {
+        return Err(Error::data(
+            None,
+            "the input is empty: expected a header line naming the columns",
+        ));
+    };
+    // The header is the first record of the first block.
+    let mut scanner = RecordScanner::new(cfg.delimiter);
+    let mut head: Option<(Plan, usize)> = None;
+    let mut header_out = Vec::new();
+    scanner
+        .scan(
+            &first.data,
+            first.last,
+            |rec| -> Result<(), Option<Error>> {
+                let p = Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf).map_err(Some)?;
+                let names: Vec<&str> = p.header.names.iter().map(String::as_str).collect();
+                check_collisions(&names, engine).map_err(Some)?;
+                header_out.extend_from_slice(rec.raw);
+                for c in engine.columns() {
+                    header_out.push(cfg.delimiter);
+                    write_field(c.name.as_bytes(), cfg.delimiter, &mut header_out);
+                }
+                header_out.extend_from_slice(if rec.crlf { b"\r\n" } else { b"\n" });
+                head = Some((p, rec.offset + rec.raw.len()));
+                Err(None)
+            },
+        )
+        .or_else(|e| e.map_or(Ok(()), Err))?;
+    let Some((plan, header_end)) = head else {
+        return Err(Error::data(
+            None,
+            "the input is empty: expected a header line naming the columns",
+        ));
+    };
+    output.write_all(&header_out).map_err(write_err)?;
+
+    let n = threads(cfg);
+    let bytes_read = AtomicU64::new(reader.bytes_read());
+    let (job_tx, job_rx) = sync_channel::<(Block, usize)>(n * 2);
+    let job_rx = Mutex::new(job_rx);
+    let (done_tx, done_rx) = sync_channel::<(u64, Scored)>(n * 2);
+    let mut summary = Summary::default();
+    let mut failure: Option<Error> = None;
+    let stop = AtomicBool::new(false);
+
+    std::thread::scope(|s| {
+        // Reader.
+        let reader_failed = s.spawn({
+            let job_tx = job_tx.clone();
+            let bytes_read = &bytes_read;
+            let stop = &stop;
+            move || -> Option<Error> {
+                if job_tx.send((first, header_end)).is_err() {
+                    return None;
+                }
+                loop {
+                    if stop.load(Ordering::Relaxed) {
+                        return None;
+                    }
+                    match reader.next_block() {
+                        Ok(Some(b)) => {
+                            bytes_read.store(reader.bytes_read(), Ordering::Relaxed);
+                            if job_tx.send((b, 0)).is_err() {
+                                return None;
+                            }
+                        }
+                        Ok(None) => return None,
+                        Err(e) => return Some(read_err(e)),
+                    }
+                }
+            }
+        });
+        drop(job_tx);
+        // Workers.
+        for _ in 0..n {
+            let done_tx = done_tx.clone();
+            let job_rx = &job_rx;
+            let plan = &plan;
+            s.spawn(move || {
+                let mut scanner = RecordScanner::new(cfg.delimiter);
+                loop {
+                    let job = { job_rx.lock().map(|r| r.recv()) };
+                    let Ok(Ok((block, start))) = job else {
+                        return;
+                    };
+                    let mut out = Vec::with_capacity(block.data.len() + block.data.len() / 2);
+                    let (summary, err) =
+                        score_wide_block(engine, cfg, plan, &block, start, &mut scanner, &mut out);
+                    if done_tx.send((block.index, (out, summary, err))).is_err() {
+                        return;
+                    }
+                }
+            });
+        }
+        drop(done_tx);
+        // Writer: in input order.
+        failure = write_in_order(&done_rx, output, &mut summary, &bytes_read, progress).err();
+        // On failure, stop the reader and let blocked sends through.
+        stop.store(true, Ordering::Relaxed);
+        drop(done_rx);
+        while let Ok(Ok(_)) = job_rx.lock().map(|r| r.recv()) {}
+        if let Ok(Some(e)) = reader_failed.join() {
+            if failure.is_none() {
+                failure = Some(e);
+            }
+        }
+    });
+    if let Some(e) = failure {
+        return Err(e);
+    }
+    output.flush().map_err(write_err)?;
+    Ok(summary)
+}
+
+/// A scored block: its output up to the first failing record, its counts,
+/// and the failure if any.
+type Scored = (Vec<u8>, Summary, Option<Error>);
+
+fn write_in_order(
+    done: &Receiver<(u64, Scored)>,
+    output: &mut dyn Write,
+    summary: &mut Summary,
+    bytes_read: &AtomicU64,
+    progress: &mut dyn FnMut(Progress),
+) -> Result<(), Error> {
+    let mut pending: BTreeMap<u64, Scored> = BTreeMap::new();
+    let mut next = 0u64;
+    for (index, r) in done.iter() {
+        pending.insert(index, r);
+        while let Some((out, s, err)) = pending.remove(&next) {
+            output
+                .write_all(&out)
+                .map_err(|e| Error::io("cannot write output", e))?;
+            merge(summary, s);
+            if let Some(e) = err {
+                return Err(e);
+            }
+            next += 1;
+            progress(Progress {
+                bytes_read: bytes_read.load(Ordering::Relaxed),
+                rows: summary.rows_read,
+            });
+        }
+    }
+    Ok(())
 }
