@@ -24,8 +24,9 @@ fn main() {
                 .file_stem()
                 .map(|s| s.to_string_lossy().into_owned())
                 .unwrap_or_default();
-            !(stem.chars().any(|c| c.is_ascii_uppercase())
-                && !stem.chars().any(|c| c.is_lowercase()))
+            let reserved = stem.chars().any(|c| c.is_ascii_uppercase())
+                && !stem.chars().any(|c| c.is_lowercase());
+            !reserved
         })
         .collect();
     files.sort();

@@ -78,6 +78,9 @@ pub struct Summary {
     pub unreadable_ages: u64,
     /// Units scored (episodes in wide, ids in long).
     pub units: u64,
+    /// The diagnosis columns read, as resolved from the names and patterns
+    /// of [`ScoreConfig::dx`].
+    pub dx_columns: Vec<String>,
 }
 
 impl Summary {
@@ -369,7 +372,8 @@ pub fn score_stream(
                     write_field(c.name.as_bytes(), d, &mut out);
                 }
                 out.extend_from_slice(if rec.crlf { b"\r\n" } else { b"\n" });
-                let dx_names = dx.iter().map(|&i| header.names[i].clone()).collect();
+                let dx_names: Vec<String> = dx.iter().map(|&i| header.names[i].clone()).collect();
+                summary.dx_columns = dx_names.clone();
                 plan = Some(Plan {
                     dx,
                     age,

@@ -4,10 +4,18 @@
 //! Built-in lists are embedded in the binary at build time ([`builtin`]);
 //! user lists are read from files ([`load_file`], [`load_dir`]). Both go
 //! through the same parser ([`parse`]) and the same matcher.
+//!
+//! The list commands live here too, as data for a front end to print:
+//! [`describe`] (`lists show`), [`export_to_dir`] (`lists export`),
+//! [`check_path`] (`lists check`) and [`diff`] (`lists diff`).
 
 pub mod builtin;
 mod canonical;
+pub mod check;
 mod decimal;
+pub mod describe;
+pub mod diff;
+pub mod export;
 pub mod parse;
 
 use std::collections::BTreeMap;
@@ -16,7 +24,11 @@ use std::path::{Path, PathBuf};
 
 use crate::code::Code;
 pub use canonical::{canonical_text, checksum};
+pub use check::{check_path, CheckReport};
 pub use decimal::{format_scaled, parse_scaled, SCALE, SCALE_DECIMALS};
+pub use describe::{describe, Description};
+pub use diff::{diff, ListDiff};
+pub use export::{export_text, export_to_dir};
 pub use parse::{parse, Diagnostic, Severity};
 
 /// Where a list came from.
@@ -364,6 +376,26 @@ pub fn load_dir(dir: &Path) -> Result<Vec<Loaded>, ListError> {
         return Err(ListError { diagnostics });
     }
     Ok(out)
+}
+
+/// A list named on a command line: a path to a list file (when such a file
+/// exists, or the text contains a `/` or ends in `.tsv`), or else the name of
+/// a list of the catalogue.
+pub fn resolve(arg: &str, catalogue: &Catalogue) -> Result<Loaded, crate::Error> {
+    let path = Path::new(arg);
+    if path.is_file() || arg.contains(['/', '\\']) || arg.ends_with(".tsv") {
+        return Ok(load_file(path)?);
+    }
+    match catalogue.get(arg) {
+        Some(l) => Ok(Loaded {
+            list: l.clone(),
+            warnings: Vec::new(),
+        }),
+        None => Err(crate::Error::Usage(format!(
+            "no list named '{arg}' and no such file; available lists: {}",
+            catalogue.names().join(", ")
+        ))),
+    }
 }
 
 /// The lists available to a run: the built-ins, replaced or extended by lists

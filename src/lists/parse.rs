@@ -484,7 +484,7 @@ pub fn parse(text: &str, origin: Origin) -> Result<Loaded, ListError> {
         let names: Vec<&str> = cycle.iter().map(|&c| conditions[c].key.as_str()).collect();
         let line = hierarchy
             .iter()
-            .find(|h| h.superior == cycle[0])
+            .find(|h| h.superior == cycle[0] && cycle.get(1) == Some(&h.inferior))
             .map_or(0, |h| h.line);
         cx.err(
             line,
