@@ -263,10 +263,8 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
 fn score(a: ScoreArgs) -> Result<(), Error> {
     let (_cat, engine) = engine_for(&a.input, a.flags)?;
     let cfg = config_for(&a.input)?;
-    let input = morbus::io::open_input(a.input.input.as_deref())?;
-    let mut output = morbus::io::open_output(a.output.as_deref())?;
-    // Create the provenance file before the run, so that an unwritable path
-    // fails before the work is done.
+    // Create the provenance file before the output and the run, so that an
+    // unwritable path fails before any work is done.
     let provenance_file = a
         .provenance
         .as_ref()
@@ -275,8 +273,21 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
                 .map_err(|e| Error::io(format!("cannot write {}", p.display()), e))
         })
         .transpose()?;
-    let summary = pipeline::score_stream(&engine, &cfg, input.reader, &mut output.writer)?;
-    drop(output);
+    let run = || -> Result<pipeline::Summary, Error> {
+        let input = morbus::io::open_input(a.input.input.as_deref())?;
+        let mut output = morbus::io::open_output(a.output.as_deref())?;
+        pipeline::score_stream(&engine, &cfg, input.reader, &mut output.writer)
+    };
+    let summary = match run() {
+        Ok(s) => s,
+        Err(e) => {
+            // No provenance for a run that did not finish.
+            if let Some(p) = &a.provenance {
+                let _ = std::fs::remove_file(p);
+            }
+            return Err(e);
+        }
+    };
     if let (Some(mut file), Some(path)) = (provenance_file, a.provenance.as_ref()) {
         let shown = |p: &Option<PathBuf>| {
             p.as_ref()
