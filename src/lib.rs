@@ -40,6 +40,7 @@ pub mod matcher;
 pub mod pipeline;
 pub mod provenance;
 pub mod score;
+pub mod stats;
 
 pub use error::Error;
 

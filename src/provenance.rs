@@ -12,11 +12,13 @@
 //! | `input`, `output` | paths as given (`null`: standard input or output) |
 //! | `lists` | every list used: `name`, `version`, `title`, `editions`, `source`, `checksum` (SHA-256 of the canonical content), `origin` (`built-in (FILE)` or a path), `builtin` (true/false), and `weightings` used (`name`, `label`, `source`) |
 //! | `indices` | every index scored: `spec` (`LIST:WEIGHTING`), `list`, `weighting`, `column` |
-//! | `options` | `layout` (`wide`/`long`), `dx` (names and patterns as given), `dx_columns` (the columns read), `dx_separator`, `delimiter`, `id_column`, `age_column`, `hierarchy`, `flags`, `strict` |
+//! | `options` | `layout` (`wide`/`long`), `dx` (names and patterns as given), `dx_columns` (the columns read), `dx_separator`, `delimiter`, `id_column`, `episode_column`, `date_column`, `date_format`, `lookback` (`null`, or `days`: a number, `null` for the whole history), `exclude_primary`, `primary_column`, `poa_column`, `poa_values`, `age_column`, `hierarchy`, `flags`, `strict` |
 //! | `columns` | the output columns added, in order |
 //! | `rows` | `read`, `written`, `units` (episodes in wide, ids in long) |
 //! | `codes` | `read` (valid codes), `invalid` (count), `top_invalid` (up to 20 most frequent invalid values with their `count`) |
+//! | `excluded` | codes left out: `primary` (primary diagnosis), `not_on_admission` |
 //! | `ages` | `missing` and `unreadable` age fields; `null` without an age column |
+//! | `dates` | `missing` and `unreadable` dates; `null` without a date column |
 //!
 //! ```
 //! use morbus::lists::Catalogue;
@@ -59,7 +61,9 @@ pub struct Provenance {
     pub columns: Vec<String>,
     pub rows: Rows,
     pub codes: Codes,
+    pub excluded: Excluded,
     pub ages: Option<Ages>,
+    pub dates: Option<Dates>,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize)]
@@ -105,10 +109,39 @@ pub struct Options {
     pub dx_separator: Option<String>,
     pub delimiter: String,
     pub id_column: Option<String>,
+    pub episode_column: Option<String>,
+    pub date_column: Option<String>,
+    pub date_format: String,
+    /// `null`: no lookback; `{"days": null}`: the whole history.
+    pub lookback: Option<Lookback>,
+    pub exclude_primary: bool,
+    pub primary_column: Option<String>,
+    pub poa_column: Option<String>,
+    pub poa_values: Vec<String>,
     pub age_column: Option<String>,
     pub hierarchy: bool,
     pub flags: bool,
     pub strict: bool,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct Lookback {
+    /// Window in days; `None` for the whole history.
+    pub days: Option<u32>,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct Dates {
+    pub missing: u64,
+    pub unreadable: u64,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct Excluded {
+    /// Codes left out as the primary diagnosis.
+    pub primary: u64,
+    /// Codes left out as not present on admission.
+    pub not_on_admission: u64,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize)]
@@ -212,6 +245,16 @@ impl Provenance {
                 dx_separator: cfg.dx_sep.map(char_name),
                 delimiter: char_name(cfg.delimiter),
                 id_column: cfg.id.clone(),
+                episode_column: cfg.episode.clone(),
+                date_column: cfg.date.clone(),
+                date_format: cfg.date_format.to_string(),
+                lookback: cfg.lookback.map(|d| Lookback {
+                    days: (d != u32::MAX).then_some(d),
+                }),
+                exclude_primary: cfg.exclude_primary,
+                primary_column: cfg.primary.clone(),
+                poa_column: cfg.poa.clone(),
+                poa_values: cfg.poa_values.clone(),
                 age_column: cfg.age.clone(),
                 hierarchy: opts.hierarchy,
                 flags: opts.flags,
@@ -232,9 +275,17 @@ impl Provenance {
                     .map(|(value, count)| InvalidValue { value, count })
                     .collect(),
             },
+            excluded: Excluded {
+                primary: summary.excluded_primary,
+                not_on_admission: summary.excluded_not_on_admission,
+            },
             ages: cfg.age.as_ref().map(|_| Ages {
                 missing: summary.missing_ages,
                 unreadable: summary.unreadable_ages,
+            }),
+            dates: cfg.date.as_ref().map(|_| Dates {
+                missing: summary.missing_dates,
+                unreadable: summary.unreadable_dates,
             }),
         }
     }

@@ -434,3 +434,51 @@ fn a_failed_run_leaves_no_provenance() {
     assert!(r.stderr.contains("line 3"), "{}", r.stderr);
     assert!(!std::path::Path::new(&prov).exists());
 }
+
+#[test]
+fn provenance_records_lookback_dates_and_exclusions() {
+    let dir = TempDir::new("provlookback");
+    let input = dir.write(
+        "episodes.csv",
+        "patient,admitted,dx1,dx2\n\
+         a,2024-01-10,I50.0,J44.9\n\
+         a,2023-06-01,I21.0,\n\
+         b,,E11.9,\n\
+         b,2024-13-40,C18.7,\n",
+    );
+    let prov = dir.join("p.json");
+    let r = morbus(&[
+        "score",
+        &input,
+        "--dx",
+        "dx1,dx2",
+        "--id",
+        "patient",
+        "--date",
+        "admitted",
+        "--lookback",
+        "all",
+        "--exclude-primary",
+        "--index",
+        "charlson:count",
+        "--provenance",
+        &prov,
+        "-o",
+        &dir.join("out.csv"),
+    ]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let v: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&prov).unwrap()).unwrap();
+    let o = &v["options"];
+    assert_eq!(o["id_column"], "patient");
+    assert_eq!(o["date_column"], "admitted");
+    assert_eq!(o["lookback"], serde_json::json!({ "days": null }));
+    assert_eq!(o["exclude_primary"], true);
+    assert_eq!(o["dx_columns"], serde_json::json!(["dx1", "dx2"]));
+    assert_eq!(v["dates"]["missing"], 1);
+    assert_eq!(v["dates"]["unreadable"], 1);
+    // The first diagnosis column of each of the 4 episodes is left out.
+    assert_eq!(v["excluded"]["primary"], 4);
+    assert_eq!(v["ages"], serde_json::Value::Null);
+    assert_eq!(v["rows"]["read"], 4);
+}

@@ -7,7 +7,8 @@ use std::path::PathBuf;
 use clap::{Args, Parser, Subcommand, ValueEnum};
 
 use morbus::lists::{self, Catalogue, Loaded};
-use morbus::pipeline::{self, Layout, ScoreConfig};
+use morbus::pipeline::explain::ExplainFormat;
+use morbus::pipeline::{self, DateFormat, Layout, ScoreConfig};
 use morbus::provenance::Provenance;
 use morbus::score::{Engine, IndexSpec, ScoreOptions, DEFAULT_INDICES};
 use morbus::Error;
@@ -34,8 +35,22 @@ struct Cli {
 enum Command {
     /// Add comorbidity and frailty scores to an extract.
     Score(Box<ScoreArgs>),
+    /// Show, code by code, how each episode's scores come about.
+    Explain(Box<ExplainArgs>),
     /// Code lists: the table of available lists, or show, export, check, diff.
     Lists(ListsArgs),
+}
+
+#[derive(Args)]
+struct ExplainArgs {
+    #[command(flatten)]
+    input: InputArgs,
+    /// Write JSON lines instead of CSV.
+    #[arg(long)]
+    json: bool,
+    /// Output path (`.gz` compresses); standard output by default.
+    #[arg(long, short, value_name = "PATH")]
+    output: Option<PathBuf>,
 }
 
 #[derive(Clone, Copy, ValueEnum, PartialEq, Eq)]
@@ -63,9 +78,36 @@ struct InputArgs {
     /// Layout of the extract.
     #[arg(long, value_enum, default_value = "wide")]
     layout: LayoutArg,
-    /// Id column: the unit of a long extract (e.g. an episode or patient id).
+    /// Id column: the patient (for --lookback) or the unit of a long extract.
     #[arg(long, value_name = "COL")]
     id: Option<String>,
+    /// Long layout: episode column grouping code rows into episodes (one output row per episode).
+    #[arg(long, value_name = "COL")]
+    episode: Option<String>,
+    /// Episode date column (for --lookback).
+    #[arg(long, value_name = "COL")]
+    date: Option<String>,
+    /// Date pattern with %Y %m %d %b, e.g. '%d/%m/%Y' (default: YYYY-MM-DD).
+    #[arg(long, value_name = "PATTERN")]
+    date_format: Option<String>,
+    /// Score each episode from the same patient's episodes dated within DAYS before it
+    /// (inclusive) and itself; `all` for the whole history.
+    #[arg(long, value_name = "DAYS")]
+    lookback: Option<String>,
+    /// Leave out the primary diagnosis of the episode being scored (wide: the first
+    /// diagnosis column; long: the rows flagged by --primary).
+    #[arg(long)]
+    exclude_primary: bool,
+    /// Long layout: column flagging the primary-diagnosis row (1, y, yes, true, p, primary).
+    #[arg(long, value_name = "COL")]
+    primary: Option<String>,
+    /// Long layout: present-on-admission indicator column; codes of the episode being
+    /// scored count only when it holds one of --poa-values.
+    #[arg(long, value_name = "COL")]
+    poa: Option<String>,
+    /// Present-on-admission values that count, comma-separated.
+    #[arg(long, value_name = "VALUES", default_value = "Y,W")]
+    poa_values: String,
     /// Index specifications LIST[:WEIGHTING], comma-separated or repeated.
     #[arg(long = "index", value_name = "SPEC")]
     index: Vec<String>,
@@ -165,6 +207,7 @@ pub fn run() -> i32 {
     };
     let result = match cli.command {
         Command::Score(a) => score(*a),
+        Command::Explain(a) => explain(*a),
         Command::Lists(a) => lists_command(a),
     };
     match result {
@@ -244,7 +287,42 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
     if layout == Layout::Long && a.id.is_none() {
         return Err(Error::Usage("--layout long needs --id COL".into()));
     }
+    let lookback = match a.lookback.as_deref() {
+        None => None,
+        Some("all") => Some(u32::MAX),
+        Some(t) => Some(t.trim().parse::<u32>().map_err(|_| {
+            Error::Usage(format!(
+                "--lookback takes a whole number of days or 'all', not '{t}'"
+            ))
+        })?),
+    };
+    let date_format = match a.date_format.as_deref() {
+        None => DateFormat::Iso,
+        Some(p) => DateFormat::from_pattern(p).ok_or_else(|| {
+            Error::Usage(format!(
+                "--date-format '{p}' must hold %Y, %m (or %b) and %d, e.g. '%d/%m/%Y'"
+            ))
+        })?,
+    };
+    if a.date.is_some() && lookback.is_none() && a.episode.is_none() {
+        return Err(Error::Usage(
+            "--date is used with --lookback DAYS (or 'all')".into(),
+        ));
+    }
     Ok(ScoreConfig {
+        episode: a.episode.clone(),
+        date: a.date.clone(),
+        date_format,
+        lookback,
+        exclude_primary: a.exclude_primary,
+        primary: a.primary.clone(),
+        poa: a.poa.clone(),
+        poa_values: a
+            .poa_values
+            .split(',')
+            .map(|v| v.trim().to_ascii_uppercase())
+            .filter(|v| !v.is_empty())
+            .collect(),
         dx: a.dx.clone(),
         dx_sep: a
             .dx_sep
@@ -299,6 +377,25 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         file.write_all(prov.to_json().as_bytes())
             .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))?;
     }
+    if !a.input.quiet {
+        eprintln!("{}", summary.report());
+    }
+    Ok(())
+}
+
+fn explain(a: ExplainArgs) -> Result<(), Error> {
+    let (_cat, engine) = engine_for(&a.input, false)?;
+    let cfg = config_for(&a.input)?;
+    let input = morbus::io::open_input(a.input.input.as_deref())?;
+    let mut output = morbus::io::open_output(a.output.as_deref())?;
+    let format = if a.json {
+        ExplainFormat::JsonLines
+    } else {
+        ExplainFormat::Csv
+    };
+    let summary =
+        pipeline::explain_stream(&engine, &cfg, format, input.reader, &mut output.writer)?;
+    drop(output);
     if !a.input.quiet {
         eprintln!("{}", summary.report());
     }
