@@ -270,3 +270,34 @@ fn the_builtin_lists_check_without_errors() {
         );
     }
 }
+
+#[test]
+fn untraceable_entries_are_warnings() {
+    // A code without a source, and a condition without codes.
+    let (code, out, path, _d) = check(&with(&[
+        "code\tK70\talpha",
+        "condition\tgamma\tGamma\tInvented",
+        "weight\tpoints\tgamma\t0",
+    ]));
+    assert_eq!(code, 0, "{out}");
+    assert!(
+        out.contains(&format!("{path}:14: warning: code 'K70' has no source")),
+        "{out}"
+    );
+    assert!(
+        out.contains(&format!(
+            "{path}:15: warning: condition 'gamma' has no codes"
+        )),
+        "{out}"
+    );
+}
+
+#[test]
+fn a_file_that_is_not_text_is_an_error() {
+    let dir = TempDir::new("binary");
+    let path = dir.path().join("tiny.tsv");
+    std::fs::write(&path, b"list\ttiny\n\xff\xfe\n").unwrap();
+    let r = morbus(&["lists", "check", &path.display().to_string()]);
+    assert_eq!(r.code, 2);
+    assert!(r.stdout.contains("error: not UTF-8 text"), "{}", r.stdout);
+}
