@@ -13,7 +13,8 @@
 //! - [`matcher`]: from a code to the conditions it claims;
 //! - [`score`]: conditions, hierarchies, weightings, output values;
 //! - [`io`]: streaming delimited text in and out;
-//! - [`pipeline`]: `score` over an extract, wide or long, with its summary.
+//! - [`pipeline`]: `score` over an extract, wide or long, with its summary;
+//! - [`provenance`]: what produced an output (tool, lists, options, counts).
 //!
 //! ```
 //! use morbus::lists::Catalogue;
@@ -37,6 +38,7 @@ pub mod io;
 pub mod lists;
 pub mod matcher;
 pub mod pipeline;
+pub mod provenance;
 pub mod score;
 pub mod stats;
 

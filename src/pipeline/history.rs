@@ -103,7 +103,9 @@ impl History {
         {
             scanner.scan(&block.data, block.last, |rec| -> Result<(), Error> {
                 let Some(p) = plan.as_ref() else {
-                    plan = Some(Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf)?);
+                    let p = Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf)?;
+                    summary.dx_columns = p.dx_names();
+                    plan = Some(p);
                     header_raw = rec.raw.to_vec();
                     return Ok(());
                 };

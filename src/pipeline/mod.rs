@@ -141,6 +141,9 @@ pub struct Summary {
     pub excluded_primary: u64,
     /// Codes of episodes being scored left out as not present on admission.
     pub excluded_not_on_admission: u64,
+    /// The diagnosis columns read, as resolved from the names and patterns
+    /// of [`ScoreConfig::dx`].
+    pub dx_columns: Vec<String>,
 }
 
 impl Summary {
@@ -391,6 +394,14 @@ impl Plan {
             poa,
             crlf,
         })
+    }
+
+    /// Names of the diagnosis columns read, in reading order.
+    pub fn dx_names(&self) -> Vec<String> {
+        self.dx
+            .iter()
+            .map(|&c| self.header.names[c].clone())
+            .collect()
     }
 
     pub fn dx_name(&self, k: usize) -> &str {

@@ -56,6 +56,7 @@ fn score_long(
         scanner.scan(&block.data, block.last, |rec| -> Result<(), Error> {
             let Some(p) = plan.as_ref() else {
                 let p = Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf)?;
+                summary.dx_columns = p.dx_names();
                 let idc = p.id.unwrap_or(0);
                 check_collisions(&[p.header.names[idc].as_str()], engine)?;
                 write_field(rec.fields.get(idc), d, &mut out);
@@ -264,7 +265,10 @@ fn score_wide_parallel(
     let (job_tx, job_rx) = sync_channel::<(Block, usize)>(n * 2);
     let job_rx = Mutex::new(job_rx);
     let (done_tx, done_rx) = sync_channel::<(u64, Scored)>(n * 2);
-    let mut summary = Summary::default();
+    let mut summary = Summary {
+        dx_columns: plan.dx_names(),
+        ..Summary::default()
+    };
     let mut failure: Option<Error> = None;
     let stop = AtomicBool::new(false);
 
