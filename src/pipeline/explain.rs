@@ -72,7 +72,7 @@ pub fn explain_stream(
     engine: &Engine,
     cfg: &ScoreConfig,
     format: ExplainFormat,
-    input: impl Read,
+    input: impl Read + Send,
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
     let (hist, mut summary) = History::read(engine, cfg, input, true)?;
@@ -162,7 +162,7 @@ pub fn explain_stream(
             prefix.push(String::from_utf8_lossy(&hist.patients[ep.patient as usize]).into_owned());
         }
         if episode_name.is_some() {
-            prefix.push(String::from_utf8_lossy(&ep.key).into_owned());
+            prefix.push(String::from_utf8_lossy(hist.key(e)).into_owned());
         }
         prefix.push(ep.row.to_string());
 

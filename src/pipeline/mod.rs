@@ -13,6 +13,7 @@
 pub mod dates;
 pub mod explain;
 pub mod history;
+mod parallel;
 mod stream;
 
 use std::collections::HashMap;

@@ -7,11 +7,7 @@ use std::collections::HashMap;
 use std::hash::BuildHasherDefault;
 use std::io::{Read, Write};
 
-use std::collections::BTreeMap;
-use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
-use std::sync::mpsc::{sync_channel, Receiver};
-use std::sync::Mutex;
-
+use super::parallel::run_blocks;
 use super::{check_collisions, Exclusion, Header, Layout, Plan, Progress, ScoreConfig, Summary};
 use crate::io::{write_field, Block, BlockReader, RecordScanner};
 use crate::matcher::KeyHasher;
@@ -186,7 +182,7 @@ fn score_wide_block(
 }
 
 /// Adds a block's counts to the run's.
-fn merge(into: &mut Summary, s: Summary) {
+pub(super) fn merge(into: &mut Summary, s: Summary) {
     into.rows_read += s.rows_read;
     into.rows_written += s.rows_written;
     into.codes_read += s.codes_read;
@@ -203,14 +199,6 @@ fn merge(into: &mut Summary, s: Summary) {
     into.invalid_codes += s.invalid_codes;
 }
 
-/// Worker threads: the configured number, or one per core.
-pub(crate) fn threads(cfg: &ScoreConfig) -> usize {
-    if cfg.threads > 0 {
-        return cfg.threads;
-    }
-    std::thread::available_parallelism().map_or(1, |n| n.get())
-}
-
 /// Wide scoring on every core: a reader thread cuts blocks, workers score
 /// them, and the calling thread writes their output in input order.
 fn score_wide_parallel(
@@ -221,122 +209,47 @@ fn score_wide_parallel(
     progress: &mut dyn FnMut(Progress),
 ) -> Result<Summary, Error> {
     let write_err = |e| Error::io("cannot write output", e);
-    let read_err = |e| Error::io("cannot read input", e);
-    let mut reader = BlockReader::new(input, cfg.delimiter, cfg.block_size);
-    let Some(first) = reader.next_block().map_err(read_err)? else {
-        return Err(Error::data(
-            None,
-            "the input is empty: expected a header line naming the columns",
-        ));
+    let mut summary = Summary::default();
+    let mut header_written = false;
+    let write_header = |h: &(Plan, Vec<u8>), out: &mut dyn Write| -> Result<(), Error> {
+        out.write_all(&h.1).map_err(write_err)
     };
-    // The header is the first record of the first block.
-    let mut scanner = RecordScanner::new(cfg.delimiter);
-    let mut head: Option<(Plan, usize)> = None;
-    let mut header_out = Vec::new();
-    scanner
-        .scan(
-            &first.data,
-            first.last,
-            |rec| -> Result<(), Option<Error>> {
-                let p = Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf).map_err(Some)?;
-                let names: Vec<&str> = p.header.names.iter().map(String::as_str).collect();
-                check_collisions(&names, engine).map_err(Some)?;
-                header_out.extend_from_slice(rec.raw);
-                for c in engine.columns() {
-                    header_out.push(cfg.delimiter);
-                    write_field(c.name.as_bytes(), cfg.delimiter, &mut header_out);
-                }
-                header_out.extend_from_slice(if rec.crlf { b"\r\n" } else { b"\n" });
-                head = Some((p, rec.offset + rec.raw.len()));
-                Err(None)
-            },
-        )
-        .or_else(|e| e.map_or(Ok(()), Err))?;
-    let Some((plan, header_end)) = head else {
-        return Err(Error::data(
-            None,
-            "the input is empty: expected a header line naming the columns",
-        ));
-    };
-    output.write_all(&header_out).map_err(write_err)?;
-
-    let n = threads(cfg);
-    let bytes_read = AtomicU64::new(reader.bytes_read());
-    let (job_tx, job_rx) = sync_channel::<(Block, usize)>(n * 2);
-    let job_rx = Mutex::new(job_rx);
-    let (done_tx, done_rx) = sync_channel::<(u64, Scored)>(n * 2);
-    let mut summary = Summary {
-        dx_columns: plan.dx_names(),
-        ..Summary::default()
-    };
-    let mut failure: Option<Error> = None;
-    let stop = AtomicBool::new(false);
-
-    std::thread::scope(|s| {
-        // Reader.
-        let reader_failed = s.spawn({
-            let job_tx = job_tx.clone();
-            let bytes_read = &bytes_read;
-            let stop = &stop;
-            move || -> Option<Error> {
-                if job_tx.send((first, header_end)).is_err() {
-                    return None;
-                }
-                loop {
-                    if stop.load(Ordering::Relaxed) {
-                        return None;
-                    }
-                    match reader.next_block() {
-                        Ok(Some(b)) => {
-                            bytes_read.store(reader.bytes_read(), Ordering::Relaxed);
-                            if job_tx.send((b, 0)).is_err() {
-                                return None;
-                            }
-                        }
-                        Ok(None) => return None,
-                        Err(e) => return Some(read_err(e)),
-                    }
-                }
+    let head = run_blocks(
+        cfg,
+        input,
+        |rec| {
+            let p = Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf)?;
+            let names: Vec<&str> = p.header.names.iter().map(String::as_str).collect();
+            check_collisions(&names, engine)?;
+            let mut header_out = rec.raw.to_vec();
+            for c in engine.columns() {
+                header_out.push(cfg.delimiter);
+                write_field(c.name.as_bytes(), cfg.delimiter, &mut header_out);
             }
-        });
-        drop(job_tx);
-        // Workers.
-        for _ in 0..n {
-            let done_tx = done_tx.clone();
-            let job_rx = &job_rx;
-            let plan = &plan;
-            s.spawn(move || {
-                let mut scanner = RecordScanner::new(cfg.delimiter);
-                loop {
-                    let job = { job_rx.lock().map(|r| r.recv()) };
-                    let Ok(Ok((block, start))) = job else {
-                        return;
-                    };
-                    let mut out = Vec::with_capacity(block.data.len() + block.data.len() / 2);
-                    let (summary, err) =
-                        score_wide_block(engine, cfg, plan, &block, start, &mut scanner, &mut out);
-                    if done_tx.send((block.index, (out, summary, err))).is_err() {
-                        return;
-                    }
-                }
-            });
-        }
-        drop(done_tx);
-        // Writer: in input order.
-        failure = write_in_order(&done_rx, output, &mut summary, &bytes_read, progress).err();
-        // On failure, stop the reader and let blocked sends through.
-        stop.store(true, Ordering::Relaxed);
-        drop(done_rx);
-        while let Ok(Ok(_)) = job_rx.lock().map(|r| r.recv()) {}
-        if let Ok(Some(e)) = reader_failed.join() {
-            if failure.is_none() {
-                failure = Some(e);
+            header_out.extend_from_slice(if rec.crlf { b"\r\n" } else { b"\n" });
+            Ok((p, header_out))
+        },
+        |h, block, start, scanner| {
+            let mut out = Vec::with_capacity(block.data.len() + block.data.len() / 2);
+            let (s, err) = score_wide_block(engine, cfg, &h.0, block, start, scanner, &mut out);
+            (out, s, err)
+        },
+        |h, (out, s, err): Scored, mut p| {
+            if !header_written {
+                write_header(h, output)?;
+                header_written = true;
             }
-        }
-    });
-    if let Some(e) = failure {
-        return Err(e);
+            output.write_all(&out).map_err(write_err)?;
+            merge(&mut summary, s);
+            p.rows = summary.rows_read;
+            progress(p);
+            err.map_or(Ok(()), Err)
+        },
+    )?;
+    if !header_written {
+        write_header(&head, output)?;
     }
+    summary.dx_columns = head.0.dx_names();
     output.flush().map_err(write_err)?;
     Ok(summary)
 }
@@ -344,32 +257,3 @@ fn score_wide_parallel(
 /// A scored block: its output up to the first failing record, its counts,
 /// and the failure if any.
 type Scored = (Vec<u8>, Summary, Option<Error>);
-
-fn write_in_order(
-    done: &Receiver<(u64, Scored)>,
-    output: &mut dyn Write,
-    summary: &mut Summary,
-    bytes_read: &AtomicU64,
-    progress: &mut dyn FnMut(Progress),
-) -> Result<(), Error> {
-    let mut pending: BTreeMap<u64, Scored> = BTreeMap::new();
-    let mut next = 0u64;
-    for (index, r) in done.iter() {
-        pending.insert(index, r);
-        while let Some((out, s, err)) = pending.remove(&next) {
-            output
-                .write_all(&out)
-                .map_err(|e| Error::io("cannot write output", e))?;
-            merge(summary, s);
-            if let Some(e) = err {
-                return Err(e);
-            }
-            next += 1;
-            progress(Progress {
-                bytes_read: bytes_read.load(Ordering::Relaxed),
-                rows: summary.rows_read,
-            });
-        }
-    }
-    Ok(())
-}
