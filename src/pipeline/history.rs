@@ -522,33 +522,60 @@ pub fn score_history(
     }
     out.extend_from_slice(eol);
     let windows = hist.windows(cfg.lookback);
-    let mut bits = vec![0u64; hist.words()];
-    let mut scratch = bits.clone();
-    let mut values: Vec<Value> = Vec::new();
     let write_err = |e| Error::io("cannot write output", e);
-    for (e, ep) in hist.episodes.iter().enumerate() {
-        hist.resolve_into(engine, &windows, e, &mut bits, &mut scratch);
-        engine.values(&bits, ep.age, &mut values);
-        match cfg.layout {
-            Layout::Wide => out.extend_from_slice(hist.row_raw(e)),
-            Layout::Long => {
-                write_field(&hist.patients[ep.patient as usize], d, &mut out);
-                if p.episode.is_some() {
-                    out.push(d);
-                    write_field(hist.key(e), d, &mut out);
+    output.write_all(&out).map_err(write_err)?;
+    // Episodes are formatted on every core, a round of chunks at a time, and
+    // written in order.
+    let format_chunk = |range: std::ops::Range<usize>| -> Vec<u8> {
+        let mut out = Vec::with_capacity(range.len() * 128);
+        let mut bits = vec![0u64; hist.words()];
+        let mut scratch = bits.clone();
+        let mut values: Vec<Value> = Vec::new();
+        for e in range {
+            let ep = &hist.episodes[e];
+            hist.resolve_into(engine, &windows, e, &mut bits, &mut scratch);
+            engine.values(&bits, ep.age, &mut values);
+            match cfg.layout {
+                Layout::Wide => out.extend_from_slice(hist.row_raw(e)),
+                Layout::Long => {
+                    write_field(&hist.patients[ep.patient as usize], d, &mut out);
+                    if p.episode.is_some() {
+                        out.push(d);
+                        write_field(hist.key(e), d, &mut out);
+                    }
                 }
             }
+            engine.write_values(&values, d, &mut out);
+            out.extend_from_slice(eol);
         }
-        engine.write_values(&values, d, &mut out);
-        out.extend_from_slice(eol);
-        summary.rows_written += 1;
-        summary.units += 1;
-        if out.len() >= cfg.block_size {
-            output.write_all(&out).map_err(write_err)?;
-            out.clear();
+        out
+    };
+    const CHUNK: usize = 16_384;
+    let threads = super::parallel::threads(cfg);
+    let n = hist.episodes.len();
+    let mut start = 0;
+    while start < n {
+        let chunks: Vec<std::ops::Range<usize>> = (0..threads)
+            .map(|t| (start + t * CHUNK).min(n)..(start + (t + 1) * CHUNK).min(n))
+            .filter(|r| !r.is_empty())
+            .collect();
+        start = (start + threads * CHUNK).min(n);
+        let parts: Option<Vec<Vec<u8>>> = std::thread::scope(|s| {
+            let handles: Vec<_> = chunks
+                .into_iter()
+                .map(|r| s.spawn(|| format_chunk(r)))
+                .collect();
+            handles.into_iter().map(|h| h.join().ok()).collect()
+        });
+        let Some(parts) = parts else {
+            return Err(Error::data(None, "internal error: an output thread failed"));
+        };
+        for part in parts {
+            output.write_all(&part).map_err(write_err)?;
         }
     }
-    output.write_all(&out).map_err(write_err)?;
+    summary.rows_written += n as u64;
+    summary.units += n as u64;
     output.flush().map_err(write_err)?;
     Ok(summary)
 }
