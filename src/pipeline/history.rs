@@ -14,7 +14,7 @@ use std::collections::HashMap;
 use std::hash::BuildHasherDefault;
 use std::io::{Read, Write};
 
-use super::{check_collisions, Exclusion, Header, Layout, Plan, RowIssue, ScoreConfig, Summary};
+use super::{check_collisions, Exclusion, Layout, Plan, RowIssue, ScoreConfig, Summary};
 use crate::code::Code;
 use crate::io::{write_field, BlockReader, RecordScanner};
 use crate::matcher::KeyHasher;
@@ -103,7 +103,7 @@ impl History {
         {
             scanner.scan(&block.data, block.last, |rec| -> Result<(), Error> {
                 let Some(p) = plan.as_ref() else {
-                    let p = Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf)?;
+                    let p = Plan::from_header(cfg, &block, &rec)?;
                     summary.dx_columns = p.dx_names();
                     plan = Some(p);
                     header_raw = rec.raw.to_vec();
@@ -114,22 +114,32 @@ impl History {
                 let issue = |i: RowIssue| p.issue(i, &block, &rec);
                 let line = super::line_of(&block, rec.offset);
 
-                // Patient.
+                // Patient. Rows without an id are nobody's history: each
+                // gets a patient of its own (counted; an error with --strict).
                 let pid = p.id.map_or(&[][..], |c| rec.fields.get(c));
-                let patient = match patient_index.get(pid) {
-                    Some(&x) => x,
-                    None => {
-                        let x = patients.len() as u32;
-                        patient_index.insert(pid.into(), x);
-                        patients.push(pid.into());
-                        x
+                let no_id = p.id.is_some() && pid.trim_ascii().is_empty();
+                if no_id {
+                    if cfg.strict {
+                        return Err(p.missing_id(line));
                     }
-                };
+                    summary.missing_ids += 1;
+                }
                 // Episode: every wide row; in the long layout one per
                 // (patient, episode value), or per patient without --episode.
                 let ekey = p.episode.map_or(&[][..], |c| rec.fields.get(c));
                 let row = summary.rows_read;
                 let mut new_episode = || {
+                    let patient = match patient_index.get(pid) {
+                        Some(&x) if !no_id => x,
+                        _ => {
+                            let x = patients.len() as u32;
+                            if !no_id {
+                                patient_index.insert(pid.into(), x);
+                            }
+                            patients.push(pid.into());
+                            x
+                        }
+                    };
                     episodes.push(Episode {
                         patient,
                         date: None,

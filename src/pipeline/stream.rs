@@ -12,7 +12,7 @@ use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use std::sync::mpsc::{sync_channel, Receiver};
 use std::sync::Mutex;
 
-use super::{check_collisions, Exclusion, Header, Layout, Plan, Progress, ScoreConfig, Summary};
+use super::{check_collisions, Exclusion, Layout, Plan, Progress, ScoreConfig, Summary};
 use crate::io::{write_field, Block, BlockReader, RecordScanner};
 use crate::matcher::KeyHasher;
 use crate::score::{Engine, Value};
@@ -55,7 +55,7 @@ fn score_long(
     {
         scanner.scan(&block.data, block.last, |rec| -> Result<(), Error> {
             let Some(p) = plan.as_ref() else {
-                let p = Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf)?;
+                let p = Plan::from_header(cfg, &block, &rec)?;
                 summary.dx_columns = p.dx_names();
                 let idc = p.id.unwrap_or(0);
                 check_collisions(&[p.header.names[idc].as_str()], engine)?;
@@ -70,7 +70,14 @@ fn score_long(
             };
             summary.rows_read += 1;
             p.check_width(&block, &rec)?;
-            let u = long.unit(rec.fields.get(p.id.unwrap_or(0)), words);
+            let id = rec.fields.get(p.id.unwrap_or(0));
+            if id.trim_ascii().is_empty() {
+                if cfg.strict {
+                    return Err(p.missing_id(super::line_of(&block, rec.offset)));
+                }
+                summary.missing_ids += 1;
+            }
+            let u = long.unit(id, words);
             let age = p
                 .read_age(cfg, &rec.fields, &mut summary)
                 .map_err(|i| p.issue(i, &block, &rec))?;
@@ -197,6 +204,7 @@ fn merge(into: &mut Summary, s: Summary) {
     into.excluded_not_on_admission += s.excluded_not_on_admission;
     into.missing_dates += s.missing_dates;
     into.unreadable_dates += s.unreadable_dates;
+    into.missing_ids += s.missing_ids;
     for (k, v) in s.invalid_values {
         into.add_invalid(k, v);
     }
@@ -238,7 +246,7 @@ fn score_wide_parallel(
             &first.data,
             first.last,
             |rec| -> Result<(), Option<Error>> {
-                let p = Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf).map_err(Some)?;
+                let p = Plan::from_header(cfg, &first, &rec).map_err(Some)?;
                 let names: Vec<&str> = p.header.names.iter().map(String::as_str).collect();
                 check_collisions(&names, engine).map_err(Some)?;
                 header_out.extend_from_slice(rec.raw);
