@@ -1221,3 +1221,48 @@ fn the_matrix_catches_a_wrong_expectation() {
         assert!(run(&case, &dir).is_err());
     }
 }
+
+/// `--strict` stops at a warning of a list loaded with `--lists`, naming
+/// the file and line; without `--strict` the warning is printed and the
+/// run goes on.
+#[test]
+fn strict_stops_at_list_warnings() {
+    let dir = TempDir::new("strict-lists");
+    let lists = dir.path().join("lists");
+    std::fs::create_dir_all(&lists).unwrap();
+    let list = "list\ttiny\nversion\t1.0\ntitle\tTiny invented list\nsource\tInvented\n\
+default_weighting\tpoints\ncondition\talpha\tAlpha\tInvented\n\
+code\tI50\talpha\n\
+weighting\tpoints\tPoints\tInvented\nweight\tpoints\talpha\t1\n";
+    let path = lists.join("tiny.tsv");
+    std::fs::write(&path, list).unwrap();
+    let input = dir.write("in.csv", "id,dx1\n1,I50.9\n");
+    let run = |strict: bool| {
+        let mut cmd = Command::new(env!("CARGO_BIN_EXE_morbus"));
+        cmd.args(["score", &input, "--dx", "dx1", "--index", "tiny", "--lists"])
+            .arg(&lists);
+        if strict {
+            cmd.arg("--strict");
+        }
+        let o = cmd.output().unwrap();
+        (
+            o.status.code().unwrap_or(-1),
+            String::from_utf8_lossy(&o.stdout).into_owned(),
+            String::from_utf8_lossy(&o.stderr).into_owned(),
+        )
+    };
+    let warning = format!("{}:7: warning: code 'I50' has no source", path.display());
+    let (code, out, err) = run(false);
+    assert_eq!(code, 0, "{err}");
+    assert!(err.contains(&warning), "{err}");
+    assert!(out.ends_with("1,I50.9,1\n"), "{out}");
+    let (code, out, err) = run(true);
+    assert_eq!(code, 3, "{err}");
+    assert!(
+        err.contains(&format!(
+            "morbus: error: code list warning: {warning} (--strict)"
+        )),
+        "{err}"
+    );
+    assert!(out.is_empty(), "{out}");
+}
