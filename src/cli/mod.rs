@@ -130,7 +130,7 @@ struct InputArgs {
     /// Do not print the summary or the progress line on standard error.
     #[arg(long, short)]
     quiet: bool,
-    /// Worker threads for wide scoring (default: one per core).
+    /// Worker threads for wide scoring (default: one per core; at most 256).
     #[arg(long, value_name = "N", default_value_t = 0)]
     threads: usize,
 }

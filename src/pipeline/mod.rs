@@ -75,7 +75,8 @@ pub struct ScoreConfig {
     pub strict: bool,
     /// Preferred block size in bytes.
     pub block_size: usize,
-    /// Worker threads for the wide layout without lookback (0: one per core).
+    /// Worker threads for the wide layout without lookback (0: one per core;
+    /// at most 256).
     pub threads: usize,
 }
 

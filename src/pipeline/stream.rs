@@ -211,10 +211,15 @@ fn merge(into: &mut Summary, s: Summary) {
     into.invalid_codes += s.invalid_codes;
 }
 
-/// Worker threads: the configured number, or one per core.
+/// Most worker threads a run starts, whatever is asked for: more only
+/// cost memory (and enough of them fail to spawn).
+pub(crate) const MAX_THREADS: usize = 256;
+
+/// Worker threads: the configured number (at most [`MAX_THREADS`]), or one
+/// per core.
 pub(crate) fn threads(cfg: &ScoreConfig) -> usize {
     if cfg.threads > 0 {
-        return cfg.threads;
+        return cfg.threads.min(MAX_THREADS);
     }
     std::thread::available_parallelism().map_or(1, |n| n.get())
 }
