@@ -18,7 +18,8 @@ mod common;
 use std::sync::OnceLock;
 
 use morbus::lists::{builtin, canonical_text, export_text, parse, Catalogue, Origin};
-use morbus::pipeline::{score_stream, Layout, ScoreConfig};
+use morbus::pipeline::dates::days_from_civil;
+use morbus::pipeline::{score_stream, DateFormat, Layout, ScoreConfig};
 use morbus::score::{Engine, IndexSpec, ScoreOptions};
 use proptest::prelude::*;
 
@@ -337,6 +338,29 @@ proptest! {
             if *d == latest {
                 prop_assert_eq!(&wide_scores[i], &patient_scores[&format!("p{p}")], "episode {}", i);
             }
+        }
+    }
+
+    #[test]
+    fn dates_never_panic_and_iso_round_trips(
+        text in prop::collection::vec(any::<u8>(), 0..24),
+        pattern in "[%YmdbY/ .-]{0,10}",
+        y in 1000i32..=9999, m in 1u32..=12, d in 1u32..=28,
+    ) {
+        let _ = DateFormat::Iso.parse(&text);
+        if let Some(f) = DateFormat::from_pattern(&pattern) {
+            let _ = f.parse(&text);
+        }
+        let iso = format!("{y:04}-{m:02}-{d:02}");
+        let days = DateFormat::Iso.parse(iso.as_bytes());
+        prop_assert_eq!(days, days_from_civil(y, m, d));
+        prop_assert!(days.is_some());
+        let dmy = DateFormat::from_pattern("%d/%m/%Y").unwrap();
+        prop_assert_eq!(dmy.parse(format!("{d}/{m}/{y}").as_bytes()), days);
+        // The next day is one more.
+        let next = if d < 28 { days_from_civil(y, m, d + 1) } else { None };
+        if let Some(n) = next {
+            prop_assert_eq!(n, days.unwrap() + 1);
         }
     }
 
