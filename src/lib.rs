@@ -13,7 +13,11 @@
 //! - [`matcher`]: from a code to the conditions it claims;
 //! - [`score`]: conditions, hierarchies, weightings, output values;
 //! - [`io`]: streaming delimited text in and out;
-//! - [`pipeline`]: `score` over an extract, wide or long, with its summary.
+//! - [`pipeline`]: `score` over an extract, wide or long, with its summary;
+//! - [`stats`]: the numerics of `compare` (c-statistics, DeLong, logistic
+//!   regression, rank correlation);
+//! - [`compare`]: several index specifications side by side on one extract,
+//!   as a table, JSON or a self-contained HTML report.
 //!
 //! ```
 //! use morbus::lists::Catalogue;
@@ -32,6 +36,7 @@
 //! ```
 
 pub mod code;
+pub mod compare;
 pub mod error;
 pub mod io;
 pub mod lists;
