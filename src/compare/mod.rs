@@ -633,6 +633,13 @@ pub fn compare(
         match &joint {
             Some(d) => {
                 let se = d.covariance[j][j].max(0.0).sqrt();
+                if d.aucs[j] == 1.0 || d.aucs[j] == 0.0 {
+                    r.notes.push(format!(
+                        "the score separates the outcomes perfectly (c-statistic {}): the DeLong \
+                         standard error is 0 and the interval degenerates to a point",
+                        d.aucs[j]
+                    ));
+                }
                 r.c_statistic = Some(CStatistic {
                     estimate: d.aucs[j],
                     std_error: Some(se),
@@ -769,8 +776,8 @@ fn model_note(e: &StatsError) -> String {
     match e {
         StatsError::Separation { .. } => format!(
             "no logistic model: {e}. The outcome is (almost) perfectly predicted by the \
-             score and adjustment terms, so the coefficients are infinite; look at the \
-             prevalence and c-statistic instead, or pool the sparse categories"
+             score and adjustment terms, so the coefficients diverge; the c-statistic and \
+             prevalence still describe the index"
         ),
         _ => format!("no logistic model: {e}"),
     }

@@ -311,10 +311,17 @@ pub fn text_table(c: &Comparison) -> String {
             continue;
         }
         done.push(&i.list);
-        o.push_str(&format!("\n {}\n", i.list));
+        let absent = i.prevalence.iter().filter(|p| p.count == 0).count();
+        o.push_str(&format!(
+            "\n {}: {} conditions, {} present\n",
+            i.list,
+            i.prevalence.len(),
+            i.prevalence.len() - absent
+        ));
         let rows: Vec<Vec<String>> = i
             .prevalence
             .iter()
+            .filter(|p| p.count > 0)
             .map(|p| {
                 let mut label = p.label.clone();
                 if label.chars().count() > 56 {
@@ -323,11 +330,18 @@ pub fn text_table(c: &Comparison) -> String {
                 vec![label, p.count.to_string(), pct(p.share), p.key.clone()]
             })
             .collect();
-        o.push_str(&grid(
-            &["condition", "units", "share", "key"],
-            &[true, false, false, true],
-            &rows,
-        ));
+        if !rows.is_empty() {
+            o.push_str(&grid(
+                &["condition", "units", "share", "key"],
+                &[true, false, false, true],
+                &rows,
+            ));
+        }
+        if absent > 0 {
+            o.push_str(&format!(
+                "  ({absent} conditions that no analysed unit has are left out here; the JSON and HTML outputs list them)\n"
+            ));
+        }
     }
 
     let mut notes: Vec<String> = c.notes.clone();
