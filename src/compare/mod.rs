@@ -37,9 +37,10 @@ use std::io::Read;
 
 use serde::Serialize;
 
+use crate::io::RecordScanner;
 use crate::lists::{Catalogue, SCALE};
-use crate::pipeline::history::{History, ReadOptions};
-use crate::pipeline::{Layout, ScoreConfig, Summary as ReadSummary};
+use crate::pipeline::history::History;
+use crate::pipeline::{Header, Layout, ScoreConfig, Summary as ReadSummary};
 use crate::score::{ColumnKind, Engine, IndexSpec, Value};
 use crate::stats::{self, StatsError};
 use crate::Error;
@@ -320,12 +321,16 @@ pub fn compare(
     let mut extra = vec![opts.outcome.clone()];
     extra.extend(opts.adjust.iter().cloned());
     extra.extend(opts.adjust_categorical.iter().cloned());
-    let read_opts = ReadOptions {
-        keep_codes: false,
-        keep_rows: false,
-        extra,
-    };
-    let (hist, mut summary) = History::read_with(engine, cfg, input, &read_opts)?;
+    // The extract is held in memory anyway (the history); keeping its bytes
+    // lets the outcome and adjustment columns be read in a second pass.
+    let mut data = Vec::new();
+    let mut input = input;
+    input
+        .read_to_end(&mut data)
+        .map_err(|e| Error::io("cannot read input", e))?;
+    let (hist, mut summary) = History::read(engine, cfg, &data[..], false)?;
+    let values_of = read_extra(cfg, &data, &extra, hist.episodes.len())?;
+    drop(data);
     summary.units = hist.episodes.len() as u64;
     let windows = hist.windows(cfg.lookback);
     let resolved = hist.resolve(engine, &windows);
@@ -367,7 +372,7 @@ pub fn compare(
     let mut row_num = vec![0.0; nnum];
     let mut row_cat: Vec<&[u8]> = vec![&[]; ncat];
     'units: for (e, ep) in hist.episodes.iter().enumerate() {
-        let outcome = match hist.extra(e, 0) {
+        let outcome = match values_of.get(e, 0) {
             Some((v, _)) if is_missing(v) => None,
             None => None,
             Some((b"0", _)) => Some(false),
@@ -389,7 +394,7 @@ pub fn compare(
         };
         let mut missing = false;
         for k in 0..nnum {
-            match hist.extra(e, 1 + k) {
+            match values_of.get(e, 1 + k) {
                 Some((v, line)) if !is_missing(v) => match parse_number(v) {
                     Some(x) => row_num[k] = x,
                     None => {
@@ -408,7 +413,7 @@ pub fn compare(
             }
         }
         for k in 0..ncat {
-            match hist.extra(e, 1 + nnum + k) {
+            match values_of.get(e, 1 + nnum + k) {
                 Some((v, _)) if !is_missing(v) => row_cat[k] = v,
                 _ => missing = true,
             }
@@ -538,33 +543,105 @@ pub fn compare(
         }
     }
 
+    // The heavy numerics, spread over the cores: one task per summary, ROC
+    // curve, model and rank correlation, one for the joint DeLong covariance.
+    let constant: Vec<bool> = scores
+        .iter()
+        .map(|s| s.iter().all(|&v| v == s[0]))
+        .collect();
+    let live: Vec<usize> = (0..k).filter(|&i| !constant[i]).collect();
+    let names: Vec<String> = slots
+        .iter()
+        .map(|slot| {
+            let spec = &engine.specs()[slot.spec];
+            if slot.with_age {
+                format!("{}_age", spec.name)
+            } else {
+                spec.name.clone()
+            }
+        })
+        .collect();
+    let mut tasks = Vec::new();
+    if !design.is_empty() {
+        tasks.push(Task::Baseline);
+    }
+    tasks.extend(live.iter().map(|&i| Task::Model(i)));
+    if !live.is_empty() {
+        tasks.push(Task::DeLong);
+    }
+    tasks.extend(live.iter().map(|&i| Task::Ranks(i)));
+    tasks.extend(live.iter().map(|&i| Task::Roc(i)));
+    tasks.extend((0..k).map(Task::Summary));
+    let refs: Vec<&[f64]> = live.iter().map(|&i| scores[i].as_slice()).collect();
+    let outputs = par_map(&tasks, |t| match *t {
+        Task::Baseline => Output::Model(stats::logistic(&y, &design, &adjust_names)),
+        Task::Model(i) => {
+            let mut x = Vec::with_capacity(1 + design.len());
+            x.push(scores[i].clone());
+            x.extend(design.iter().cloned());
+            let mut terms = vec![names[i].clone()];
+            terms.extend(adjust_names.iter().cloned());
+            Output::Model(stats::logistic(&y, &x, &terms))
+        }
+        Task::DeLong => Output::DeLong(stats::delong(&refs, &y)),
+        Task::Ranks(i) => Output::Ranks(stats::average_ranks(&scores[i])),
+        Task::Roc(i) => Output::Roc(stats::roc_curve(&scores[i], &y)),
+        Task::Summary(i) => Output::Summary(stats::Summary::of(&scores[i])),
+    });
+    let mut baseline = None;
+    let mut models: Vec<Option<Result<stats::LogisticFit, StatsError>>> = vec![None; k];
+    let mut joint_result = None;
+    let mut ranks: Vec<Option<Result<Vec<f64>, StatsError>>> = vec![None; k];
+    let mut rocs: Vec<Option<RocResult>> = vec![None; k];
+    let mut sums: Vec<Option<stats::Summary>> = vec![None; k];
+    for (t, o) in tasks.iter().zip(outputs) {
+        match (*t, o) {
+            (Task::Baseline, Output::Model(m)) => baseline = Some(m),
+            (Task::Model(i), Output::Model(m)) => models[i] = Some(m),
+            (Task::DeLong, Output::DeLong(d)) => joint_result = Some(d),
+            (Task::Ranks(i), Output::Ranks(r)) => ranks[i] = Some(r),
+            (Task::Roc(i), Output::Roc(r)) => rocs[i] = Some(r),
+            (Task::Summary(i), Output::Summary(r)) => {
+                sums[i] = Some(r.map_err(|e| Error::data(None, e.to_string()))?)
+            }
+            _ => {}
+        }
+    }
+
     let mut indices: Vec<IndexResult> = Vec::with_capacity(k);
-    let mut constant = vec![false; k];
     for (si, slot) in slots.iter().enumerate() {
         let spec = &engine.specs()[slot.spec];
         let sel = &engine.lists()[spec.list];
         let list = &sel.list;
         let weighting = &list.weightings[spec.weighting];
-        let s = &scores[si];
-        let sum = stats::Summary::of(s).map_err(|e| Error::data(None, e.to_string()))?;
-        let distinct = {
-            let mut v: Vec<i64> = s
-                .iter()
-                .map(|&x| (x * SCALE as f64).round() as i64)
-                .collect();
-            v.sort_unstable();
-            v.dedup();
-            v.len()
+        let Some(sum) = sums[si].take() else {
+            return Err(Error::data(
+                None,
+                "internal error: a summary was not computed",
+            ));
         };
         let mut inotes = Vec::new();
-        if sum.min == sum.max {
-            constant[si] = true;
+        if constant[si] {
             inotes.push(format!(
                 "every analysed unit scores {}: the index has zero variance, so it cannot \
                  discriminate; no c-statistic, ROC curve, model or comparison is given",
                 fmt_num(sum.min)
             ));
         }
+        let roc: Vec<[f64; 2]> = match rocs[si].take() {
+            Some(Ok(c)) => c.into_iter().map(|(a, b)| [a, b]).collect(),
+            Some(Err(e)) => {
+                inotes.push(format!("no ROC curve: {e}"));
+                Vec::new()
+            }
+            None => Vec::new(),
+        };
+        // The ROC curve has a point per distinct score, after (0, 0).
+        let distinct = if constant[si] {
+            1
+        } else {
+            roc.len().saturating_sub(1)
+        };
         let prevalence = list
             .conditions
             .iter()
@@ -579,19 +656,14 @@ pub fn compare(
                 }
             })
             .collect();
-        let name = if slot.with_age {
-            format!("{}_age", spec.name)
-        } else {
-            spec.name.clone()
-        };
         indices.push(IndexResult {
-            name,
+            name: names[si].clone(),
             spec: format!("{}:{}", list.name, weighting.name),
             list: list.name.clone(),
             weighting: weighting.name.clone(),
             label: weighting.label.clone(),
             with_age: slot.with_age,
-            histogram: histogram(s, sum.min, sum.max),
+            histogram: histogram(&scores[si], sum.min, sum.max),
             distribution: Distribution {
                 n: sum.n,
                 mean: sum.mean,
@@ -606,27 +678,22 @@ pub fn compare(
             },
             prevalence,
             c_statistic: None,
-            roc: Vec::new(),
+            roc,
             model: None,
             notes: inotes,
         });
     }
 
     // c-statistics with DeLong's covariance, over the non-constant indices.
-    let live: Vec<usize> = (0..k).filter(|&i| !constant[i]).collect();
-    let refs: Vec<&[f64]> = live.iter().map(|&i| scores[i].as_slice()).collect();
-    let joint = if refs.is_empty() {
-        None
-    } else {
-        match stats::delong(&refs, &y) {
-            Ok(d) => Some(d),
-            Err(e) => {
-                notes.push(format!(
-                    "no DeLong variance: {e}; c-statistics are given without confidence intervals and indices are not tested against each other"
-                ));
-                None
-            }
+    let joint = match joint_result {
+        Some(Ok(d)) => Some(d),
+        Some(Err(e)) => {
+            notes.push(format!(
+                "no DeLong variance: {e}; c-statistics are given without confidence intervals and indices are not tested against each other"
+            ));
+            None
         }
+        None => None,
     };
     for (j, &i) in live.iter().enumerate() {
         let r = &mut indices[i];
@@ -657,33 +724,22 @@ pub fn compare(
                 Err(e) => r.notes.push(format!("no c-statistic: {e}")),
             },
         }
-        match stats::roc_curve(&scores[i], &y) {
-            Ok(c) => r.roc = c.into_iter().map(|(a, b)| [a, b]).collect(),
-            Err(e) => r.notes.push(format!("no ROC curve: {e}")),
-        }
     }
 
     // Models.
-    let adjustment_notes_model = |e: &StatsError| model_note(e);
     let mut adjustment_model = None;
     let mut adjustment_notes = Vec::new();
-    if !design.is_empty() {
-        match stats::logistic(&y, &design, &adjust_names) {
-            Ok(f) => adjustment_model = Some(model_of(&f)),
-            Err(e) => adjustment_notes.push(adjustment_notes_model(&e)),
-        }
+    match baseline {
+        Some(Ok(f)) => adjustment_model = Some(model_of(&f)),
+        Some(Err(e)) => adjustment_notes.push(model_note(&e)),
+        None => {}
     }
-    for &i in &live {
-        let mut x = Vec::with_capacity(1 + design.len());
-        x.push(std::mem::take(&mut scores[i]));
-        x.extend(design.iter().cloned());
-        let mut names = vec![indices[i].name.clone()];
-        names.extend(adjust_names.iter().cloned());
-        match stats::logistic(&y, &x, &names) {
-            Ok(f) => indices[i].model = Some(model_of(&f)),
-            Err(e) => indices[i].notes.push(model_note(&e)),
+    for (i, m) in models.into_iter().enumerate() {
+        match m {
+            Some(Ok(f)) => indices[i].model = Some(model_of(&f)),
+            Some(Err(e)) => indices[i].notes.push(model_note(&e)),
+            None => {}
         }
-        scores[i] = x.swap_remove(0);
     }
 
     // Pairs.
@@ -732,9 +788,17 @@ pub fn compare(
                     Err(e) => p.notes.push(format!("no DeLong test: {e}")),
                 }
             }
-            match stats::spearman(&scores[a], &scores[b]) {
-                Ok(r) => p.spearman = Some(r),
-                Err(e) => p.notes.push(format!("no Spearman correlation: {e}")),
+            match (&ranks[a], &ranks[b]) {
+                (Some(Ok(ra)), Some(Ok(rb))) => match pearson_of_ranks(ra, rb) {
+                    Some(r) => p.spearman = Some(r),
+                    None => p
+                        .notes
+                        .push("no Spearman correlation: all values tied".into()),
+                },
+                (Some(Err(e)), _) | (_, Some(Err(e))) => {
+                    p.notes.push(format!("no Spearman correlation: {e}"))
+                }
+                _ => {}
             }
             pairs.push(p);
         }
@@ -770,6 +834,196 @@ pub fn compare(
         },
         summary,
     ))
+}
+
+type RocResult = Result<Vec<(f64, f64)>, StatsError>;
+
+/// One piece of the numerics.
+#[derive(Clone, Copy)]
+enum Task {
+    /// The model on the adjustment terms alone.
+    Baseline,
+    Model(usize),
+    DeLong,
+    /// Average ranks of a score (for Spearman's ρ).
+    Ranks(usize),
+    Roc(usize),
+    Summary(usize),
+}
+
+enum Output {
+    Model(Result<stats::LogisticFit, StatsError>),
+    DeLong(Result<stats::DeLongResult, StatsError>),
+    Ranks(Result<Vec<f64>, StatsError>),
+    Roc(RocResult),
+    Summary(Result<stats::Summary, StatsError>),
+}
+
+/// `f` over `items` on every available core (items taken in order as the
+/// threads free up); results in the order of `items`.
+fn par_map<T: Sync, R: Send>(items: &[T], f: impl Fn(&T) -> R + Sync) -> Vec<R> {
+    use std::sync::atomic::{AtomicUsize, Ordering};
+    let threads = std::thread::available_parallelism()
+        .map_or(1, |n| n.get())
+        .min(items.len());
+    if threads <= 1 {
+        return items.iter().map(f).collect();
+    }
+    let next = AtomicUsize::new(0);
+    let done: Vec<Vec<(usize, R)>> = std::thread::scope(|s| {
+        let handles: Vec<_> = (0..threads)
+            .map(|_| {
+                s.spawn(|| {
+                    let mut out = Vec::new();
+                    loop {
+                        let i = next.fetch_add(1, Ordering::Relaxed);
+                        if i >= items.len() {
+                            break;
+                        }
+                        out.push((i, f(&items[i])));
+                    }
+                    out
+                })
+            })
+            .collect();
+        handles
+            .into_iter()
+            .map(|h| h.join().unwrap_or_else(|e| std::panic::resume_unwind(e)))
+            .collect()
+    });
+    let mut slots: Vec<Option<R>> = (0..items.len()).map(|_| None).collect();
+    for (i, r) in done.into_iter().flatten() {
+        slots[i] = Some(r);
+    }
+    slots.into_iter().flatten().collect()
+}
+
+/// Spearman's ρ from the average ranks of two scores
+/// ([`stats::average_ranks`]): their Pearson correlation, computed as
+/// [`stats::spearman`] does (the mean rank is exactly (n + 1)/2), so that
+/// each score is ranked once rather than once per pair. `None` when every
+/// value of a score is tied.
+fn pearson_of_ranks(ra: &[f64], rb: &[f64]) -> Option<f64> {
+    let mid = (ra.len() + 1) as f64 / 2.0;
+    let (mut sab, mut saa, mut sbb) = (0.0, 0.0, 0.0);
+    for (&x, &y) in ra.iter().zip(rb) {
+        let (dx, dy) = (x - mid, y - mid);
+        sab += dx * dy;
+        saa += dx * dx;
+        sbb += dy * dy;
+    }
+    (saa > 0.0 && sbb > 0.0).then(|| (sab / (saa * sbb).sqrt()).clamp(-1.0, 1.0))
+}
+
+/// Per unit, the trimmed value of each extra column and the line it was
+/// read from.
+struct Extra {
+    ncol: usize,
+    /// (start, length, line) into `arena`; line 0: no value.
+    spans: Vec<(usize, usize, u64)>,
+    arena: Vec<u8>,
+}
+
+impl Extra {
+    fn get(&self, unit: usize, k: usize) -> Option<(&[u8], u64)> {
+        let &(s, l, line) = self.spans.get(unit * self.ncol + k)?;
+        (line != 0).then(|| (&self.arena[s..s + l], line))
+    }
+}
+
+/// Reads the extra columns of every record, unit by unit in the order the
+/// history numbers them: a wide row is a unit; long-layout rows are grouped
+/// by (id, episode value) in order of first appearance. A unit's value is
+/// the first non-empty one among its rows; a different non-empty value on a
+/// later row of the same unit is an error.
+fn read_extra(
+    cfg: &ScoreConfig,
+    data: &[u8],
+    names: &[String],
+    units: usize,
+) -> Result<Extra, Error> {
+    let ncol = names.len();
+    let mut out = Extra {
+        ncol,
+        spans: vec![(0, 0, 0); units * ncol],
+        arena: Vec::new(),
+    };
+    let mut scanner = RecordScanner::new(cfg.delimiter);
+    let mut cols: Option<(Vec<usize>, Option<usize>, Option<usize>)> = None;
+    let mut index: std::collections::HashMap<Box<[u8]>, usize> = Default::default();
+    let mut key: Vec<u8> = Vec::new();
+    let mut rows = 0usize;
+    let mut cursor = (0usize, 1u64);
+    scanner.scan(data, true, |rec| -> Result<(), Error> {
+        let line =
+            cursor.1 + memchr::memchr_iter(b'\n', &data[cursor.0..rec.offset]).count() as u64;
+        cursor = (rec.offset, line);
+        let Some((c, id, ep)) = cols.as_ref() else {
+            let header = Header::from_fields(&rec.fields);
+            let mut c = Vec::with_capacity(ncol);
+            for (k, n) in names.iter().enumerate() {
+                c.push(header.column(n, if k == 0 { "outcome" } else { "adjustment" })?);
+            }
+            let one = |n: &Option<String>, role: &str| -> Result<Option<usize>, Error> {
+                n.as_deref().map(|n| header.column(n, role)).transpose()
+            };
+            cols = Some((c, one(&cfg.id, "id")?, one(&cfg.episode, "episode")?));
+            return Ok(());
+        };
+        let unit = match cfg.layout {
+            Layout::Wide => rows,
+            Layout::Long => {
+                let pid = id.map_or(&[][..], |i| rec.fields.get(i));
+                let ekey = ep.map_or(&[][..], |i| rec.fields.get(i));
+                key.clear();
+                key.extend_from_slice(&(pid.len() as u32).to_le_bytes());
+                key.extend_from_slice(pid);
+                key.extend_from_slice(ekey);
+                match index.get(&key[..]) {
+                    Some(&u) => u,
+                    None => {
+                        let u = index.len();
+                        index.insert(key.as_slice().into(), u);
+                        u
+                    }
+                }
+            }
+        };
+        rows += 1;
+        if unit >= units {
+            return Err(Error::data(
+                Some(line),
+                "the extract changed while it was read (more units on the second pass)",
+            ));
+        }
+        for (k, &col) in c.iter().enumerate() {
+            let v = rec.fields.get(col).trim_ascii();
+            if v.is_empty() {
+                continue;
+            }
+            let slot = &mut out.spans[unit * ncol + k];
+            if slot.2 == 0 {
+                *slot = (out.arena.len(), v.len(), line);
+                out.arena.extend_from_slice(v);
+            } else {
+                let old = &out.arena[slot.0..slot.0 + slot.1];
+                if old != v {
+                    return Err(Error::data(
+                        Some(line),
+                        format!(
+                            "column '{}' holds '{}' here but '{}' on line {} of the same episode",
+                            names[k],
+                            lossy(v),
+                            lossy(old),
+                            slot.2
+                        ),
+                    ));
+                }
+            }
+        }
+        Ok(())
+    })?;
+    Ok(out)
 }
 
 fn model_note(e: &StatsError) -> String {
@@ -889,6 +1143,17 @@ mod tests {
         assert_eq!(parse_number(b"inf"), None);
         assert_eq!(parse_number(b"NaN"), None);
         assert_eq!(parse_number(b"seventy"), None);
+    }
+
+    #[test]
+    fn spearman_from_ranks_is_the_library_spearman() {
+        let a = [3.0, 1.0, 4.0, 1.0, 5.0, 9.0, 2.0, 6.0, 5.0, 3.0];
+        let b = [2.0, 7.0, 1.0, 8.0, 2.0, 8.0, 1.0, 8.0, 2.0, 8.0];
+        let ra = stats::average_ranks(&a).unwrap();
+        let rb = stats::average_ranks(&b).unwrap();
+        let rho = pearson_of_ranks(&ra, &rb).unwrap();
+        assert_eq!(rho, stats::spearman(&a, &b).unwrap());
+        assert_eq!(pearson_of_ranks(&ra, &[5.5; 10]), None);
     }
 
     #[test]

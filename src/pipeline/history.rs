@@ -63,33 +63,6 @@ pub struct History {
     arena: Vec<u8>,
     /// Every code, when asked for.
     pub codes: Vec<CodeRecord>,
-    /// Extra columns kept per episode ([`ReadOptions::extra`]): per episode
-    /// and column, the value's span in `extra_arena` and its line.
-    extra_names: Vec<String>,
-    extra: Vec<ExtraValue>,
-    extra_arena: Vec<u8>,
-}
-
-/// What [`History::read_with`] keeps besides the condition sets.
-#[derive(Clone, Debug, Default)]
-pub struct ReadOptions {
-    /// Every code with its episode (for `explain`).
-    pub keep_codes: bool,
-    /// Wide layout: each row's raw bytes (for writing the rows back out).
-    pub keep_rows: bool,
-    /// Further columns whose value is kept per episode (exact header names),
-    /// e.g. an outcome. In the long layout an episode's value is the first
-    /// non-empty one among its rows; a different non-empty value on a later
-    /// row of the same episode is an error.
-    pub extra: Vec<String>,
-}
-
-#[derive(Clone, Copy, Debug, Default)]
-struct ExtraValue {
-    start: usize,
-    len: usize,
-    /// 0: no non-empty value seen yet.
-    line: u64,
 }
 
 /// Per episode, the window of same-patient episodes that count for it:
@@ -107,22 +80,6 @@ impl History {
         input: impl Read,
         keep_codes: bool,
     ) -> Result<(History, Summary), Error> {
-        let opts = ReadOptions {
-            keep_codes,
-            keep_rows: true,
-            extra: Vec::new(),
-        };
-        Self::read_with(engine, cfg, input, &opts)
-    }
-
-    /// Reads the whole extract, keeping what `opts` asks for.
-    pub fn read_with(
-        engine: &Engine,
-        cfg: &ScoreConfig,
-        input: impl Read,
-        opts: &ReadOptions,
-    ) -> Result<(History, Summary), Error> {
-        let keep_codes = opts.keep_codes;
         let words = engine.words();
         let mut blocks = BlockReader::new(input, cfg.delimiter, cfg.block_size);
         let mut scanner = RecordScanner::new(cfg.delimiter);
@@ -139,29 +96,26 @@ impl History {
         let mut patient_index: ByteMap<u32> = ByteMap::default();
         let mut episode_index: ByteMap<u32> = ByteMap::default();
         let mut key = Vec::new();
-        let mut extra_cols: Vec<usize> = Vec::new();
-        let mut extra: Vec<ExtraValue> = Vec::new();
-        let mut extra_arena: Vec<u8> = Vec::new();
-        let nextra = opts.extra.len();
 
         while let Some(block) = blocks
             .next_block()
             .map_err(|e| Error::io("cannot read input", e))?
         {
+            // Line numbers counted on from the previous record: counting from
+            // the block start for every record is quadratic in the block.
+            let mut cursor = (0usize, block.first_line);
             scanner.scan(&block.data, block.last, |rec| -> Result<(), Error> {
                 let Some(p) = plan.as_ref() else {
-                    let p = Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf)?;
-                    for name in &opts.extra {
-                        extra_cols.push(p.header.column(name, "requested")?);
-                    }
-                    plan = Some(p);
+                    plan = Some(Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf)?);
                     header_raw = rec.raw.to_vec();
                     return Ok(());
                 };
                 summary.rows_read += 1;
                 p.check_width(&block, &rec)?;
                 let issue = |i: RowIssue| p.issue(i, &block, &rec);
-                let line = super::line_of(&block, rec.offset);
+                let line = cursor.1
+                    + memchr::memchr_iter(b'\n', &block.data[cursor.0..rec.offset]).count() as u64;
+                cursor = (rec.offset, line);
 
                 // Patient.
                 let pid = p.id.map_or(&[][..], |c| rec.fields.get(c));
@@ -190,7 +144,6 @@ impl History {
                     });
                     own_all.resize(own_all.len() + words, 0);
                     own_current.resize(own_current.len() + words, 0);
-                    extra.resize(extra.len() + nextra, ExtraValue::default());
                     (episodes.len() - 1) as u32
                 };
                 let e = match cfg.layout {
@@ -210,35 +163,6 @@ impl History {
                         }
                     }
                 };
-                for (k, &c) in extra_cols.iter().enumerate() {
-                    let v = rec.fields.get(c).trim_ascii();
-                    if v.is_empty() {
-                        continue;
-                    }
-                    let slot = &mut extra[e as usize * nextra + k];
-                    if slot.line == 0 {
-                        *slot = ExtraValue {
-                            start: extra_arena.len(),
-                            len: v.len(),
-                            line,
-                        };
-                        extra_arena.extend_from_slice(v);
-                    } else {
-                        let old = &extra_arena[slot.start..slot.start + slot.len];
-                        if old != v {
-                            return Err(Error::data(
-                                Some(line),
-                                format!(
-                                    "column '{}' holds '{}' here but '{}' on line {} of the same episode",
-                                    opts.extra[k],
-                                    String::from_utf8_lossy(v),
-                                    String::from_utf8_lossy(old),
-                                    slot.line
-                                ),
-                            ));
-                        }
-                    }
-                }
                 let ep = &mut episodes[e as usize];
                 if ep.date.is_none() {
                     match p.read_date(cfg, &rec.fields) {
@@ -284,7 +208,7 @@ impl History {
                 .map_err(issue)?;
                 summary.excluded_primary += excluded.0;
                 summary.excluded_not_on_admission += excluded.1;
-                if cfg.layout == Layout::Wide && opts.keep_rows {
+                if cfg.layout == Layout::Wide {
                     let start = arena.len();
                     arena.extend_from_slice(rec.raw);
                     rows.push((start, rec.raw.len()));
@@ -318,9 +242,6 @@ impl History {
             rows,
             arena,
             codes,
-            extra_names: opts.extra.clone(),
-            extra,
-            extra_arena,
         };
         Ok((hist, summary))
     }
@@ -398,21 +319,7 @@ impl History {
         self.words
     }
 
-    /// The value of extra column `k` (see [`ReadOptions::extra`]) for
-    /// episode `e`, trimmed, with the line it was read from; `None` when
-    /// every row of the episode left it empty.
-    pub fn extra(&self, e: usize, k: usize) -> Option<(&[u8], u64)> {
-        let v = self.extra.get(e * self.extra_names.len() + k)?;
-        (v.line != 0).then(|| (&self.extra_arena[v.start..v.start + v.len], v.line))
-    }
-
-    /// Names of the extra columns, in the order asked for.
-    pub fn extra_names(&self) -> &[String] {
-        &self.extra_names
-    }
-
-    /// Wide layout: each row's raw bytes, in input order (one per episode;
-    /// kept only with [`ReadOptions::keep_rows`]).
+    /// Wide layout: each row's raw bytes, in input order (one per episode).
     pub fn row_raw(&self, e: usize) -> &[u8] {
         let (s, l) = self.rows[e];
         &self.arena[s..s + l]
