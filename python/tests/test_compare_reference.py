@@ -45,7 +45,7 @@ from sklearn.metrics import roc_auc_score
 ROOT = Path(__file__).resolve().parents[2]
 DEMO = ROOT / "demo-data" / "episodes.csv"
 OUTCOME = "died_within_30_days"
-MISSING = {"", "NA", "N/A", "."}
+MISSING = {"", "NA", "N/A", "N/K", "NK", "NULL", "."}
 
 
 def morbus_bin() -> Path:

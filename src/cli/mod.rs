@@ -49,7 +49,7 @@ weighting of every list is compared. With --age, lists with age points are also 
 their age points added (units without a readable age are then left out).
 
 Units are analysed when the outcome is 0 or 1 and every adjustment column has a value; empty, \
-NA, N/A and . are missing (counted and left out). Any other outcome value, or a non-number in an \
+NA, N/A, N/K, NK, NULL and . (any case) are missing (counted and left out). Any other outcome value, or a non-number in an \
 --adjust column, stops the run with the line (exit 1). A categorical column (--adjust-cat) enters \
 the models as 0/1 indicators, one per level except the reference: the first level in byte order \
 of the values as written.

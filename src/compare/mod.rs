@@ -14,7 +14,7 @@
 //! the units left out are counted by reason.
 //!
 //! Values read as missing (outcome and adjustment columns): an empty field,
-//! `NA`, `N/A` or `.` (any case). Any other outcome value than `0` or `1` is
+//! `NA`, `N/A`, `N/K`, `NK`, `NULL` or `.` (any case). Any other outcome value than `0` or `1` is
 //! an error naming the line; so is a value of a numeric adjustment column
 //! that is not a number. A categorical adjustment column enters the models
 //! as one 0/1 indicator per level except the reference, which is the first
@@ -269,7 +269,7 @@ pub struct PairTest {
 /// Values read as missing in the outcome and adjustment columns.
 fn is_missing(v: &[u8]) -> bool {
     v.is_empty()
-        || [&b"NA"[..], b"N/A", b"."]
+        || [&b"NA"[..], b"N/A", b"N/K", b"NK", b"NULL", b"."]
             .iter()
             .any(|m| m.eq_ignore_ascii_case(v))
 }
@@ -381,7 +381,7 @@ pub fn compare(
                 return Err(Error::data(
                     Some(line),
                     format!(
-                    "outcome column '{}' holds '{}': expected 0 or 1 (empty, NA or . for missing)",
+                    "outcome column '{}' holds '{}': expected 0 or 1 (empty, NA, N/A, N/K, NK, NULL or . for missing)",
                     opts.outcome,
                     lossy(v)
                 ),
@@ -1102,6 +1102,19 @@ fn histogram(s: &[f64], min: f64, max: f64) -> Vec<Bin> {
         .collect()
 }
 
+/// A count with thousands separators: 1,000,000.
+pub(crate) fn fmt_count(v: u64) -> String {
+    let digits = v.to_string();
+    let mut out = String::with_capacity(digits.len() + digits.len() / 3);
+    for (i, ch) in digits.chars().enumerate() {
+        if i > 0 && (digits.len() - i) % 3 == 0 {
+            out.push(',');
+        }
+        out.push(ch);
+    }
+    out
+}
+
 /// A number for display: up to 4 significant decimals, no trailing zeros.
 pub(crate) fn fmt_num(v: f64) -> String {
     let s = format!("{v:.4}");
@@ -1134,7 +1147,7 @@ mod tests {
 
     #[test]
     fn missing_and_numbers() {
-        for m in ["", "NA", "na", "N/A", "."] {
+        for m in ["", "NA", "na", "N/A", "N/K", "nk", "NULL", "."] {
             assert!(is_missing(m.as_bytes()), "{m}");
         }
         assert!(!is_missing(b"0"));
@@ -1159,6 +1172,10 @@ mod tests {
     #[test]
     fn number_display() {
         assert_eq!(fmt_num(1.0), "1");
+        assert_eq!(fmt_count(0), "0");
+        assert_eq!(fmt_count(999), "999");
+        assert_eq!(fmt_count(1000), "1,000");
+        assert_eq!(fmt_count(1234567), "1,234,567");
         assert_eq!(fmt_num(0.12345), "0.1235");
         assert_eq!(fmt_num(-0.00001), "0");
         assert_eq!(nice_width(0.37), 0.5);

@@ -4,7 +4,7 @@
 use std::fmt::Write as _;
 
 use super::table::{fixed, p_value, pct};
-use super::{fmt_num, Comparison, IndexResult, Model};
+use super::{fmt_count, fmt_num, Comparison, IndexResult, Model};
 
 /// Series colours, chosen for contrast on white and against each other.
 const PALETTE: &[&str] = &[
@@ -228,7 +228,7 @@ fn histogram_svg(i: usize, ix: &IndexResult) -> String {
             colour(i),
             fmt_num(b.from),
             fmt_num(b.to),
-            b.count,
+            fmt_count(b.count),
             pct(b.count as f64 / n)
         );
     }
@@ -277,11 +277,15 @@ fn pct_short(share: f64) -> String {
     }
 }
 
+/// Most conditions drawn per list (all are in the table below the chart).
+const MAX_BARS: usize = 40;
+
 /// Horizontal prevalence bars of a list's conditions (those present, most
 /// frequent first).
 fn prevalence_svg(ix: &IndexResult, colour: &str) -> String {
     let mut rows: Vec<&super::Prevalence> = ix.prevalence.iter().filter(|p| p.count > 0).collect();
     rows.sort_by(|a, b| b.count.cmp(&a.count).then_with(|| a.key.cmp(&b.key)));
+    rows.truncate(MAX_BARS);
     let label_w = 330.0;
     let bar_w = 560.0;
     let value_w = 110.0;
@@ -340,7 +344,7 @@ fn prevalence_svg(ix: &IndexResult, colour: &str) -> String {
             label_w + bw + 6.0,
             yy + 13.0,
             pct(p.share),
-            p.count
+            fmt_count(p.count)
         );
     }
     s.push_str("</svg>");
@@ -357,7 +361,11 @@ fn model_table_rows(label: &str, m: &Model, out: &mut String) {
             esc(&t.name),
             fixed(t.estimate, 4),
             fixed(t.std_error, 4),
-            t.odds_ratio.map_or("–".into(), |o| fixed(o, 3)),
+            if j == 0 {
+                "–".into()
+            } else {
+                t.odds_ratio.map_or("–".into(), |o| fixed(o, 3))
+            },
             p_value(t.p_value),
             if j == 0 { fixed(m.c_statistic, 3) } else { String::new() },
             if j == 0 { fixed(m.aic, 1) } else { String::new() },
@@ -392,9 +400,9 @@ pub fn html_report(c: &Comparison) -> String {
     );
     h.push_str("<div class=\"cards\">");
     for (k, v) in [
-        ("units read", u.read.to_string()),
-        ("units analysed", u.analysed.to_string()),
-        ("outcome 1", u.events.to_string()),
+        ("units read", fmt_count(u.read)),
+        ("units analysed", fmt_count(u.analysed)),
+        ("outcome 1", fmt_count(u.events)),
         ("outcome share", pct(u.event_share)),
     ] {
         let _ = write!(
@@ -407,16 +415,22 @@ pub fn html_report(c: &Comparison) -> String {
     h.push_str("</div>");
     let mut left = Vec::new();
     if u.missing_outcome > 0 {
-        left.push(format!("{} without an outcome", u.missing_outcome));
+        left.push(format!(
+            "{} without an outcome",
+            fmt_count(u.missing_outcome)
+        ));
     }
     if u.missing_adjustment > 0 {
         left.push(format!(
             "{} with a missing adjustment value",
-            u.missing_adjustment
+            fmt_count(u.missing_adjustment)
         ));
     }
     if u.missing_age > 0 {
-        left.push(format!("{} without a readable age", u.missing_age));
+        left.push(format!(
+            "{} without a readable age",
+            fmt_count(u.missing_age)
+        ));
     }
     h.push_str("<p>");
     if !left.is_empty() {
@@ -580,9 +594,16 @@ pub fn html_report(c: &Comparison) -> String {
             ix.prevalence.len(),
             ix.prevalence.len() - absent
         );
-        if absent < ix.prevalence.len() {
+        let present = ix.prevalence.len() - absent;
+        if present > 0 {
             h.push_str("<figure>");
             h.push_str(&prevalence_svg(ix, colour(i)));
+            if present > MAX_BARS {
+                let _ = write!(
+                    h,
+                    "<figcaption>The {MAX_BARS} most frequent of the {present} conditions present; the full table lists every one.</figcaption>"
+                );
+            }
             h.push_str("</figure>");
         }
         h.push_str("<details><summary>Full table</summary><table><thead><tr><th>key</th><th class=\"l\">condition</th><th>units</th><th>share</th></tr></thead><tbody>");
@@ -592,7 +613,7 @@ pub fn html_report(c: &Comparison) -> String {
                 "<tr><td><code>{}</code></td><td class=\"l\">{}</td><td>{}</td><td>{}</td></tr>",
                 esc(&p.key),
                 esc(&p.label),
-                p.count,
+                fmt_count(p.count),
                 pct(p.share)
             );
         }

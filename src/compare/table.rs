@@ -1,6 +1,6 @@
 //! The plain-text layout of a comparison, as printed on standard output.
 
-use super::{fmt_num, Comparison, Model};
+use super::{fmt_count, fmt_num, Comparison, Model};
 
 /// Columns two spaces apart; `left[i]`: column i is left-aligned (others
 /// right-aligned).
@@ -95,7 +95,11 @@ fn model_rows(label: &str, m: &Model, rows: &mut Vec<Vec<String>>) {
             t.name.clone(),
             fixed(t.estimate, 4),
             fixed(t.std_error, 4),
-            t.odds_ratio.map_or("-".into(), |o| fixed(o, 3)),
+            if i == 0 {
+                "-".into()
+            } else {
+                t.odds_ratio.map_or("-".into(), |o| fixed(o, 3))
+            },
             p_value(t.p_value),
             if i == 0 {
                 fixed(m.c_statistic, 3)
@@ -132,23 +136,29 @@ pub fn text_table(c: &Comparison) -> String {
     o.push_str("\n\n");
     o.push_str(&format!(
         "Units: {} read, {} analysed, {} with outcome 1 ({})\n",
-        u.read,
-        u.analysed,
-        u.events,
+        fmt_count(u.read),
+        fmt_count(u.analysed),
+        fmt_count(u.events),
         pct(u.event_share)
     ));
     let mut left = Vec::new();
     if u.missing_outcome > 0 {
-        left.push(format!("{} without an outcome", u.missing_outcome));
+        left.push(format!(
+            "{} without an outcome",
+            fmt_count(u.missing_outcome)
+        ));
     }
     if u.missing_adjustment > 0 {
         left.push(format!(
             "{} with a missing adjustment value",
-            u.missing_adjustment
+            fmt_count(u.missing_adjustment)
         ));
     }
     if u.missing_age > 0 {
-        left.push(format!("{} without a readable age", u.missing_age));
+        left.push(format!(
+            "{} without a readable age",
+            fmt_count(u.missing_age)
+        ));
     }
     if !left.is_empty() {
         o.push_str(&format!("Left out: {}\n", left.join(", ")));
@@ -327,7 +337,7 @@ pub fn text_table(c: &Comparison) -> String {
                 if label.chars().count() > 56 {
                     label = label.chars().take(55).collect::<String>() + "~";
                 }
-                vec![label, p.count.to_string(), pct(p.share), p.key.clone()]
+                vec![label, fmt_count(p.count), pct(p.share), p.key.clone()]
             })
             .collect();
         if !rows.is_empty() {
