@@ -794,3 +794,66 @@ fn report_renders_in_headless_chromium() {
         bytes.len()
     );
 }
+
+#[test]
+fn single_event_gives_c_statistics_without_intervals() {
+    let mut data = String::from("episode,dx1,dx2,died\n");
+    for i in 0..30 {
+        let (a, b) = [
+            ("I21.9", "E11.9"),
+            ("", ""),
+            ("J44.9", ""),
+            ("C78.0", "I50.0"),
+        ][i % 4];
+        data.push_str(&format!("e{i},{a},{b},{}\n", if i == 3 { 1 } else { 0 }));
+    }
+    let out = tmp("single.json");
+    let run = morbus(
+        &[
+            "compare",
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--index",
+            "charlson:charlson1987,elixhauser",
+            "--json",
+            out.to_str().unwrap(),
+        ],
+        data.as_bytes(),
+    );
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let j = json(&out);
+    let c = &j["indices"][0]["c_statistic"];
+    // The one event scores highest (metastatic tumour + heart failure): the
+    // episodes scoring the same are the other 6 of its kind (ties count ½).
+    let negatives = 29.0;
+    let tied = 7.0 - 1.0;
+    let expected = (negatives - tied + 0.5 * tied) / negatives;
+    assert!(
+        (c["estimate"].as_f64().unwrap() - expected).abs() < 1e-12,
+        "{c}"
+    );
+    assert!(c["std_error"].is_null() && c["ci95"].is_null());
+    assert!(
+        j["notes"].to_string().contains("no DeLong variance"),
+        "{}",
+        j["notes"]
+    );
+    assert!(j["pairs"][0]["delong"].is_null());
+    assert!(j["pairs"][0]["spearman"].as_f64().is_some());
+    assert_no_nan("stdout", &run.stdout);
+}
+
+#[test]
+fn header_only_and_empty_input_are_clear_errors() {
+    let r = morbus(
+        &["compare", "--dx", "dx1", "--outcome", "died"],
+        b"episode,dx1,died\n",
+    );
+    assert_eq!(r.code, 1, "{}", r.stderr);
+    assert!(r.stderr.contains("no unit can be analysed"), "{}", r.stderr);
+    let r = morbus(&["compare", "--dx", "dx1", "--outcome", "died"], b"");
+    assert_eq!(r.code, 1, "{}", r.stderr);
+    assert!(r.stderr.contains("empty"), "{}", r.stderr);
+}
