@@ -328,9 +328,29 @@ pub fn compare(
     input
         .read_to_end(&mut data)
         .map_err(|e| Error::io("cannot read input", e))?;
-    let (hist, mut summary) = History::read(engine, cfg, &data[..], false)?;
-    let values_of = read_extra(cfg, &data, &extra, hist.episodes.len())?;
+    // Both passes only read the buffer: run them side by side.
+    let (history, values_of) = std::thread::scope(|s| {
+        let second = s.spawn(|| read_extra(cfg, &data, &extra));
+        let first = History::read(engine, cfg, &data[..], false);
+        let second = second
+            .join()
+            .unwrap_or_else(|e| std::panic::resume_unwind(e));
+        (first, second)
+    });
+    // An error of the history (malformed record, usage) comes first.
+    let (hist, mut summary) = history?;
+    let values_of = values_of?;
     drop(data);
+    if values_of.units() != hist.episodes.len() {
+        return Err(Error::data(
+            None,
+            format!(
+                "internal error: {} units in the history but {} when reading the outcome",
+                hist.episodes.len(),
+                values_of.units()
+            ),
+        ));
+    }
     summary.units = hist.episodes.len() as u64;
     let windows = hist.windows(cfg.lookback);
     let resolved = hist.resolve(engine, &windows);
@@ -925,6 +945,10 @@ struct Extra {
 }
 
 impl Extra {
+    fn units(&self) -> usize {
+        self.spans.len() / self.ncol.max(1)
+    }
+
     fn get(&self, unit: usize, k: usize) -> Option<(&[u8], u64)> {
         let &(s, l, line) = self.spans.get(unit * self.ncol + k)?;
         (line != 0).then(|| (&self.arena[s..s + l], line))
@@ -936,16 +960,11 @@ impl Extra {
 /// by (id, episode value) in order of first appearance. A unit's value is
 /// the first non-empty one among its rows; a different non-empty value on a
 /// later row of the same unit is an error.
-fn read_extra(
-    cfg: &ScoreConfig,
-    data: &[u8],
-    names: &[String],
-    units: usize,
-) -> Result<Extra, Error> {
+fn read_extra(cfg: &ScoreConfig, data: &[u8], names: &[String]) -> Result<Extra, Error> {
     let ncol = names.len();
     let mut out = Extra {
         ncol,
-        spans: vec![(0, 0, 0); units * ncol],
+        spans: Vec::new(),
         arena: Vec::new(),
     };
     let mut scanner = RecordScanner::new(cfg.delimiter);
@@ -990,11 +1009,8 @@ fn read_extra(
             }
         };
         rows += 1;
-        if unit >= units {
-            return Err(Error::data(
-                Some(line),
-                "the extract changed while it was read (more units on the second pass)",
-            ));
+        if unit * ncol >= out.spans.len() {
+            out.spans.resize((unit + 1) * ncol, (0, 0, 0));
         }
         for (k, &col) in c.iter().enumerate() {
             let v = rec.fields.get(col).trim_ascii();
