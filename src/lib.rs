@@ -14,6 +14,7 @@
 //! - [`score`]: conditions, hierarchies, weightings, output values;
 //! - [`io`]: streaming delimited text in and out;
 //! - [`pipeline`]: `score` over an extract, wide or long, with its summary;
+//! - [`provenance`]: what produced an output (tool, lists, options, counts);
 //! - [`stats`]: the numerics of `compare` (c-statistics, DeLong, logistic
 //!   regression, rank correlation);
 //! - [`compare`]: several index specifications side by side on one extract,
@@ -42,6 +43,7 @@ pub mod io;
 pub mod lists;
 pub mod matcher;
 pub mod pipeline;
+pub mod provenance;
 pub mod score;
 pub mod stats;
 

@@ -22,6 +22,15 @@ fn input() -> String {
 }
 
 fn run(layout: Layout, block_size: usize, data: &[u8]) -> (Vec<u8>, morbus::pipeline::Summary) {
+    run_threads(layout, block_size, 0, data).unwrap()
+}
+
+fn run_threads(
+    layout: Layout,
+    block_size: usize,
+    threads: usize,
+    data: &[u8],
+) -> Result<(Vec<u8>, morbus::pipeline::Summary), (Vec<u8>, morbus::Error)> {
     let engine = Engine::new(
         &Catalogue::builtin(),
         &IndexSpec::parse_many(DEFAULT_INDICES).unwrap(),
@@ -38,11 +47,14 @@ fn run(layout: Layout, block_size: usize, data: &[u8]) -> (Vec<u8>, morbus::pipe
         id: Some("dx2".into()),
         age: Some("age".into()),
         block_size,
+        threads,
         ..ScoreConfig::default()
     };
     let mut out = Vec::new();
-    let s = score_stream(&engine, &cfg, data, &mut out).unwrap();
-    (out, s)
+    match score_stream(&engine, &cfg, data, &mut out) {
+        Ok(s) => Ok((out, s)),
+        Err(e) => Err((out, e)),
+    }
 }
 
 #[test]
@@ -52,9 +64,14 @@ fn any_block_size_gives_the_same_output() {
         let (reference, summary) = run(layout, 1 << 24, data.as_bytes());
         assert_eq!(summary.rows_read, 3000);
         for bs in [1024, 1500, 4096, 10_000, 65_536] {
-            let (out, s) = run(layout, bs, data.as_bytes());
-            assert_eq!(s, summary, "block size {bs}");
-            assert!(out == reference, "block size {bs} changed the output");
+            for threads in [1, 2, 5] {
+                let (out, s) = run_threads(layout, bs, threads, data.as_bytes()).unwrap();
+                assert_eq!(s, summary, "block size {bs}, {threads} threads");
+                assert!(
+                    out == reference,
+                    "block size {bs}, {threads} threads changed the output"
+                );
+            }
         }
         if layout == Layout::Wide {
             // every input line (without its terminator) starts its output line
@@ -71,5 +88,29 @@ fn any_block_size_gives_the_same_output() {
                 .count();
             assert_eq!(n, 3000);
         }
+    }
+}
+
+#[test]
+fn an_error_in_a_late_block_stops_after_the_rows_before_it() {
+    let mut data = input();
+    // 3000 good rows (some spanning two lines), then a short record.
+    let lines_before = data.matches('\n').count();
+    data.push_str("bad,row\r\n");
+    data.push_str("3001,x,I21,I50,70\r\n");
+    for threads in [1, 2, 4] {
+        let (out, err) = run_threads(Layout::Wide, 1024, threads, data.as_bytes()).unwrap_err();
+        assert_eq!(err.exit_code(), 1);
+        assert_eq!(
+            err.to_string(),
+            format!(
+                "line {}: record has 2 fields but the header has 5",
+                lines_before + 1
+            )
+        );
+        // Everything before the bad record was written, nothing after it.
+        let text = String::from_utf8(out).unwrap();
+        let rows = csv::Reader::from_reader(text.as_bytes()).records().count();
+        assert_eq!(rows, 3000, "{threads} threads");
     }
 }

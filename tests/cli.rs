@@ -481,3 +481,166 @@ fn demo_data_every_row_out_in_order() {
         r.stderr
     );
 }
+
+/// Score columns of an output keyed by a column, as text.
+fn scores_by(out: &str, key: &str, first_score: usize) -> Vec<(String, Vec<String>)> {
+    let mut rdr = csv::Reader::from_reader(out.as_bytes());
+    let k = rdr
+        .headers()
+        .unwrap()
+        .iter()
+        .position(|h| h == key)
+        .unwrap();
+    rdr.records()
+        .map(|r| {
+            let r = r.unwrap();
+            let scores = r.iter().skip(first_score).map(String::from).collect();
+            (r.get(k).unwrap().to_string(), scores)
+        })
+        .collect()
+}
+
+#[test]
+fn demo_wide_and_long_files_give_the_same_scores() {
+    let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data");
+    let wide = dir.join("episodes.csv");
+    let long = dir.join("episodes-long.csv");
+    let specs = "charlson:charlson1987,charlson:quan2011,elixhauser,hfrs";
+    let w = morbus(
+        &[
+            "score",
+            wide.to_str().unwrap(),
+            "--dx",
+            "dx*",
+            "--index",
+            specs,
+            "--flags",
+        ],
+        b"",
+    );
+    assert_eq!(w.code, 0, "{}", w.stderr);
+    let l = morbus(
+        &[
+            "score",
+            long.to_str().unwrap(),
+            "--layout",
+            "long",
+            "--id",
+            "episode_id",
+            "--dx",
+            "code",
+            "--index",
+            specs,
+            "--flags",
+        ],
+        b"",
+    );
+    assert_eq!(l.code, 0, "{}", l.stderr);
+    let wide_header_len = String::from_utf8_lossy(&std::fs::read(&wide).unwrap())
+        .lines()
+        .next()
+        .unwrap()
+        .split(',')
+        .count();
+    let ws = scores_by(&w.out(), "episode_id", wide_header_len);
+    let ls = scores_by(&l.out(), "episode_id", 1);
+    assert_eq!(ws.len(), 4000);
+    assert_eq!(ws, ls);
+
+    // With a lookback, the wide file and the long file grouped into episodes
+    // agree too.
+    let w = morbus(
+        &[
+            "score",
+            wide.to_str().unwrap(),
+            "--dx",
+            "dx*",
+            "--index",
+            specs,
+            "--id",
+            "patient_id",
+            "--date",
+            "admission_date",
+            "--lookback",
+            "365",
+        ],
+        b"",
+    );
+    let l = morbus(
+        &[
+            "score",
+            long.to_str().unwrap(),
+            "--layout",
+            "long",
+            "--id",
+            "patient_id",
+            "--episode",
+            "episode_id",
+            "--date",
+            "admission_date",
+            "--dx",
+            "code",
+            "--index",
+            specs,
+            "--lookback",
+            "365",
+        ],
+        b"",
+    );
+    assert_eq!(w.code, 0, "{}", w.stderr);
+    assert_eq!(l.code, 0, "{}", l.stderr);
+    let ws = scores_by(&w.out(), "episode_id", wide_header_len);
+    let ls = scores_by(&l.out(), "episode_id", 2);
+    assert_eq!(ws, ls);
+    // Without hierarchies, a lookback adds conditions and removes none.
+    let plain = scores_by(
+        &morbus(
+            &[
+                "score",
+                wide.to_str().unwrap(),
+                "--dx",
+                "dx*",
+                "--index",
+                "charlson:count",
+                "--no-hierarchy",
+            ],
+            b"",
+        )
+        .out(),
+        "episode_id",
+        wide_header_len,
+    );
+    let back = scores_by(
+        &morbus(
+            &[
+                "score",
+                wide.to_str().unwrap(),
+                "--dx",
+                "dx*",
+                "--index",
+                "charlson:count",
+                "--id",
+                "patient_id",
+                "--date",
+                "admission_date",
+                "--lookback",
+                "365",
+                "--no-hierarchy",
+            ],
+            b"",
+        )
+        .out(),
+        "episode_id",
+        wide_header_len,
+    );
+    let mut raised = 0;
+    for ((_, a), (_, b)) in plain.iter().zip(&back) {
+        let (a, b): (i64, i64) = (a[0].parse().unwrap(), b[0].parse().unwrap());
+        assert!(b >= a, "lookback lowered a count from {a} to {b}");
+        raised += (b > a) as usize;
+    }
+    assert!(
+        raised > 100,
+        "only {raised} episodes gained from the lookback"
+    );
+}

@@ -1,16 +1,20 @@
 //! Command-line front end. Parses options, calls the library, prints the
 //! summary and maps errors to exit codes (see [`morbus::error`]).
 
-use std::io::Write;
+use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
 
 use clap::{Args, Parser, Subcommand, ValueEnum};
 
-use morbus::lists::{self, Catalogue};
+use morbus::lists::{self, Catalogue, Loaded};
 use morbus::pipeline::explain::ExplainFormat;
 use morbus::pipeline::{self, DateFormat, Layout, ScoreConfig};
+use morbus::provenance::Provenance;
 use morbus::score::{Engine, IndexSpec, ScoreOptions, DEFAULT_INDICES};
 use morbus::Error;
+
+mod list_cmds;
+mod progress;
 
 #[derive(Parser)]
 #[command(
@@ -37,7 +41,7 @@ enum Command {
     /// Compare index specifications on one extract: prevalence, distributions,
     /// c-statistics, logistic models, pairwise tests.
     Compare(Box<CompareArgs>),
-    /// Show the available code lists.
+    /// Code lists: the table of available lists, or show, export, check, diff.
     Lists(ListsArgs),
 }
 
@@ -157,9 +161,12 @@ struct InputArgs {
     /// Treat every warning (invalid code, unreadable age) as an error.
     #[arg(long)]
     strict: bool,
-    /// Do not print the summary on standard error.
+    /// Do not print the summary or the progress line on standard error.
     #[arg(long, short)]
     quiet: bool,
+    /// Worker threads for wide scoring and for `compare`'s numerics (default: one per core).
+    #[arg(long, value_name = "N", default_value_t = 0)]
+    threads: usize,
 }
 
 #[derive(Args)]
@@ -172,13 +179,61 @@ struct ScoreArgs {
     /// Output path (`.gz` compresses); standard output by default.
     #[arg(long, short, value_name = "PATH")]
     output: Option<PathBuf>,
+    /// Write what produced the output (tool, lists with versions and
+    /// checksums, options, counts) as JSON to this file.
+    #[arg(long, value_name = "FILE")]
+    provenance: Option<PathBuf>,
 }
 
+/// Without a subcommand: a table of the available lists.
 #[derive(Args)]
 struct ListsArgs {
-    /// Also load the lists found in this directory.
-    #[arg(long, value_name = "DIR")]
+    /// Also load the lists found in this directory (they replace built-ins
+    /// of the same name).
+    #[arg(long, value_name = "DIR", global = true)]
     lists: Option<PathBuf>,
+    #[command(subcommand)]
+    command: Option<ListsCommand>,
+}
+
+#[derive(Subcommand)]
+enum ListsCommand {
+    /// Everything a list holds: metadata, conditions with their codes,
+    /// hierarchy, weightings with their weights, age points and bands.
+    Show {
+        /// List name (or path to a list file).
+        name: String,
+        /// Print JSON instead of text.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Write an editable copy DIR/NAME.tsv that `--lists DIR` loads back.
+    Export {
+        /// List name (or path to a list file).
+        name: String,
+        /// Directory to write to (created if needed).
+        dir: PathBuf,
+        /// Replace DIR/NAME.tsv if it exists.
+        #[arg(long)]
+        force: bool,
+    },
+    /// Validate a list file, or every list of a directory: prints each error
+    /// and warning with file and line; exits 2 on errors.
+    Check {
+        /// A list file or a directory of lists.
+        path: PathBuf,
+    },
+    /// What changed from list A to list B: conditions, codes per condition,
+    /// hierarchy, weights, bands, age points, version and sources.
+    Diff {
+        /// List name or path to a list file (before).
+        a: String,
+        /// List name or path to a list file (after).
+        b: String,
+        /// Print JSON instead of text.
+        #[arg(long)]
+        json: bool,
+    },
 }
 
 /// Runs the command line and returns the exit code.
@@ -195,7 +250,7 @@ pub fn run() -> i32 {
         Command::Score(a) => score(*a),
         Command::Explain(a) => explain(*a),
         Command::Compare(a) => compare(*a),
-        Command::Lists(a) => list_table(a),
+        Command::Lists(a) => lists_command(a),
     };
     match result {
         Ok(()) => 0,
@@ -330,6 +385,7 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
         age: a.age.clone(),
         delimiter: one_char(&a.delimiter, "--delimiter")?,
         strict: a.strict,
+        threads: a.threads,
         ..ScoreConfig::default()
     })
 }
@@ -337,10 +393,58 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
 fn score(a: ScoreArgs) -> Result<(), Error> {
     let (_cat, engine) = engine_for(&a.input, a.flags)?;
     let cfg = config_for(&a.input)?;
-    let input = morbus::io::open_input(a.input.input.as_deref())?;
-    let mut output = morbus::io::open_output(a.output.as_deref())?;
-    let summary = pipeline::score_stream(&engine, &cfg, input.reader, &mut output.writer)?;
-    drop(output);
+    // Create the provenance file before the output and the run, so that an
+    // unwritable path fails before any work is done.
+    let provenance_file = a
+        .provenance
+        .as_ref()
+        .map(|p| {
+            std::fs::File::create(p)
+                .map_err(|e| Error::io(format!("cannot write {}", p.display()), e))
+        })
+        .transpose()?;
+    let run = || -> Result<pipeline::Summary, Error> {
+        let input = morbus::io::open_input(a.input.input.as_deref())?;
+        let mut output = morbus::io::open_output(a.output.as_deref())?;
+        let show = !a.input.quiet && std::io::stderr().is_terminal();
+        let mut bar = progress::ProgressLine::new(if input.compressed { None } else { input.size });
+        let result = pipeline::score_stream_observed(
+            &engine,
+            &cfg,
+            input.reader,
+            &mut output.writer,
+            &mut |p| {
+                if show {
+                    bar.update(p)
+                }
+            },
+        );
+        if show {
+            bar.finish();
+        }
+        result
+    };
+    let summary = match run() {
+        Ok(s) => s,
+        Err(e) => {
+            // No provenance for a run that did not finish.
+            if let Some(p) = &a.provenance {
+                let _ = std::fs::remove_file(p);
+            }
+            return Err(e);
+        }
+    };
+    if let (Some(mut file), Some(path)) = (provenance_file, a.provenance.as_ref()) {
+        let shown = |p: &Option<PathBuf>| {
+            p.as_ref()
+                .filter(|p| p.as_os_str() != "-")
+                .map(|p| p.display().to_string())
+        };
+        let prov = Provenance::new(&engine, &cfg, &summary)
+            .with_files(shown(&a.input.input), shown(&a.output));
+        file.write_all(prov.to_json().as_bytes())
+            .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))?;
+    }
     if !a.input.quiet {
         eprintln!("{}", summary.report());
     }
@@ -403,15 +507,15 @@ fn compare(a: CompareArgs) -> Result<(), Error> {
         .and_then(|()| out.flush())
         .map_err(|e| Error::io("cannot write output", e))?;
     if !a.input.quiet {
-        eprintln!("{}", summary.report());
+        // compare writes no rows: leave that count out of the shared summary.
+        eprintln!("{}", summary.report().replacen(", 0 rows written", "", 1));
     }
     Ok(())
 }
 
-fn list_table(a: ListsArgs) -> Result<(), Error> {
-    let cat = catalogue(a.lists.as_ref(), false)?;
+fn list_table(cat: &Catalogue) -> Result<(), Error> {
     let mut out = std::io::stdout().lock();
-    let rows: Vec<[String; 7]> = cat
+    let rows: Vec<[String; 8]> = cat
         .lists()
         .iter()
         .map(|l| {
@@ -432,6 +536,7 @@ fn list_table(a: ListsArgs) -> Result<(), Error> {
                     .collect::<Vec<_>>()
                     .join(", "),
                 l.checksum[..12].to_string(),
+                l.origin.to_string(),
                 l.source.clone(),
             ]
         })
@@ -443,18 +548,19 @@ fn list_table(a: ListsArgs) -> Result<(), Error> {
         "code entries",
         "weightings",
         "checksum",
+        "origin",
         "source",
     ];
     let mut widths: Vec<usize> = head.iter().map(|h| h.len()).collect();
     for r in &rows {
-        for (w, c) in widths.iter_mut().zip(r.iter()).take(6) {
+        for (w, c) in widths.iter_mut().zip(r.iter()).take(7) {
             *w = (*w).max(c.chars().count());
         }
     }
     let line = |cells: Vec<&str>| -> String {
         let mut s = String::new();
         for (i, c) in cells.iter().enumerate() {
-            if i < 6 {
+            if i < 7 {
                 s.push_str(&format!("{:<w$}  ", c, w = widths[i]));
             } else {
                 s.push_str(c);
@@ -468,4 +574,45 @@ fn list_table(a: ListsArgs) -> Result<(), Error> {
         writeln!(out, "{}", line(r.iter().map(String::as_str).collect())).map_err(w)?;
     }
     Ok(())
+}
+
+fn lists_command(a: ListsArgs) -> Result<(), Error> {
+    match a.command {
+        None => list_table(&catalogue(a.lists.as_ref(), false)?),
+        Some(ListsCommand::Check { path }) => list_cmds::check(&path),
+        Some(ListsCommand::Show { name, json }) => {
+            let cat = catalogue(a.lists.as_ref(), false)?;
+            let l = resolve_list(&name, &cat)?;
+            list_cmds::show(&l.list, json)
+        }
+        Some(ListsCommand::Export { name, dir, force }) => {
+            let cat = catalogue(a.lists.as_ref(), false)?;
+            let l = resolve_list(&name, &cat)?;
+            let path = lists::export_to_dir(&l.list, &dir, force)?;
+            eprintln!(
+                "morbus: wrote list '{}' version {} ({} code entries, checksum {}) to {}",
+                l.list.name,
+                l.list.version,
+                l.list.code_entries(),
+                &l.list.checksum[..12],
+                path.display()
+            );
+            Ok(())
+        }
+        Some(ListsCommand::Diff { a: la, b: lb, json }) => {
+            let cat = catalogue(a.lists.as_ref(), false)?;
+            let left = resolve_list(&la, &cat)?;
+            let right = resolve_list(&lb, &cat)?;
+            list_cmds::diff(&left.list, &right.list, json)
+        }
+    }
+}
+
+/// A list named on the command line, with its warnings printed.
+fn resolve_list(arg: &str, cat: &Catalogue) -> Result<Loaded, Error> {
+    let l = lists::resolve(arg, cat)?;
+    for w in &l.warnings {
+        eprintln!("morbus: {w}");
+    }
+    Ok(l)
 }

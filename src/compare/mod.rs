@@ -593,7 +593,7 @@ pub fn compare(
     tasks.extend(live.iter().map(|&i| Task::Roc(i)));
     tasks.extend((0..k).map(Task::Summary));
     let refs: Vec<&[f64]> = live.iter().map(|&i| scores[i].as_slice()).collect();
-    let outputs = par_map(&tasks, |t| match *t {
+    let outputs = par_map(&tasks, cfg.threads, |t| match *t {
         Task::Baseline => Output::Model(stats::logistic(&y, &design, &adjust_names)),
         Task::Model(i) => {
             let mut x = Vec::with_capacity(1 + design.len());
@@ -879,13 +879,16 @@ enum Output {
     Summary(Result<stats::Summary, StatsError>),
 }
 
-/// `f` over `items` on every available core (items taken in order as the
-/// threads free up); results in the order of `items`.
-fn par_map<T: Sync, R: Send>(items: &[T], f: impl Fn(&T) -> R + Sync) -> Vec<R> {
+/// `f` over `items` on `threads` threads (0: one per core), items taken in
+/// order as the threads free up; results in the order of `items`.
+fn par_map<T: Sync, R: Send>(items: &[T], threads: usize, f: impl Fn(&T) -> R + Sync) -> Vec<R> {
     use std::sync::atomic::{AtomicUsize, Ordering};
-    let threads = std::thread::available_parallelism()
-        .map_or(1, |n| n.get())
-        .min(items.len());
+    let threads = if threads == 0 {
+        std::thread::available_parallelism().map_or(1, |n| n.get())
+    } else {
+        threads
+    }
+    .min(items.len());
     if threads <= 1 {
         return items.iter().map(f).collect();
     }

@@ -133,11 +133,11 @@ fn roc_svg(c: &Comparison) -> String {
     );
     let _ = write!(
         s,
-        r#"<text class="tick" x="{:.1}" y="{:.1}" text-anchor="end" transform="rotate(-45 {:.1} {:.1})">chance (c = 0.5)</text>"#,
-        x(0.97),
-        y(0.97) + 24.0,
-        x(0.97),
-        y(0.97) + 24.0
+        r#"<text class="tick" x="{:.1}" y="{:.1}" text-anchor="middle" transform="rotate(-45 {:.1} {:.1})">chance (c = 0.5)</text>"#,
+        x(0.72),
+        y(0.72) + 20.0,
+        x(0.72),
+        y(0.72) + 20.0
     );
     for (i, ix) in c.indices.iter().enumerate() {
         if ix.roc.is_empty() {

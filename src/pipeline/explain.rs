@@ -72,7 +72,7 @@ pub fn explain_stream(
     engine: &Engine,
     cfg: &ScoreConfig,
     format: ExplainFormat,
-    input: impl Read,
+    input: impl Read + Send,
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
     let (hist, mut summary) = History::read(engine, cfg, input, true)?;
@@ -162,7 +162,7 @@ pub fn explain_stream(
             prefix.push(String::from_utf8_lossy(&hist.patients[ep.patient as usize]).into_owned());
         }
         if episode_name.is_some() {
-            prefix.push(String::from_utf8_lossy(&ep.key).into_owned());
+            prefix.push(String::from_utf8_lossy(hist.key(e)).into_owned());
         }
         prefix.push(ep.row.to_string());
 
@@ -224,22 +224,8 @@ pub fn explain_stream(
                 }
             }
             debug_assert_eq!(total, engine.score(final_bits, si));
-            let mut cells = prefix.clone();
-            cells.push(format!("{}:{}", list.name, weighting.name));
-            cells.extend([
-                String::new(),
-                iso(ep.date),
-                String::new(),
-                String::new(),
-                String::new(),
-            ]);
-            let mut t = Vec::new();
-            format_scaled(engine.score(final_bits, si), decimals, &mut t);
-            cells.push(String::from_utf8_lossy(&t).into_owned());
-            cells.push("total".into());
-            emit(&mut out, &cells);
-            if let (Some(age), true) = (ep.age, engine.options().age && !list.age_points.is_empty())
-            {
+            let score = engine.score(final_bits, si);
+            let mut total_row = |scaled: i64, status: String| {
                 let mut cells = prefix.clone();
                 cells.push(format!("{}:{}", list.name, weighting.name));
                 cells.extend([
@@ -250,14 +236,18 @@ pub fn explain_stream(
                     String::new(),
                 ]);
                 let mut t = Vec::new();
-                format_scaled(
-                    engine.score(final_bits, si) + list.points_for_age(age),
-                    decimals,
-                    &mut t,
-                );
+                format_scaled(scaled, decimals, &mut t);
                 cells.push(String::from_utf8_lossy(&t).into_owned());
-                cells.push(format!("total_with_age:{age}"));
+                cells.push(status);
                 emit(&mut out, &cells);
+            };
+            total_row(score, "total".into());
+            if let (Some(age), true) = (ep.age, engine.options().age && !list.age_points.is_empty())
+            {
+                total_row(
+                    score + list.points_for_age(age),
+                    format!("total_with_age:{age}"),
+                );
             }
         }
         summary.units += 1;

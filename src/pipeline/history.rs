@@ -14,9 +14,11 @@ use std::collections::HashMap;
 use std::hash::BuildHasherDefault;
 use std::io::{Read, Write};
 
+use super::parallel::run_blocks;
+use super::stream::merge;
 use super::{check_collisions, Exclusion, Header, Layout, Plan, RowIssue, ScoreConfig, Summary};
 use crate::code::Code;
-use crate::io::{write_field, BlockReader, RecordScanner};
+use crate::io::{write_field, RecordScanner};
 use crate::matcher::KeyHasher;
 use crate::score::{Engine, Value};
 use crate::Error;
@@ -30,12 +32,8 @@ pub struct Episode {
     /// Days since 1970-01-01; `None` when missing or unreadable.
     pub date: Option<i32>,
     pub age: Option<u32>,
-    /// Line of the episode's first record.
-    pub line: u64,
     /// Data row number (1-based) of the episode's first record.
     pub row: u64,
-    /// Long layout with `--episode`: the episode value.
-    pub key: Box<[u8]>,
     date_unreadable: bool,
 }
 
@@ -55,11 +53,14 @@ pub struct History {
     pub header_raw: Vec<u8>,
     pub patients: Vec<Box<[u8]>>,
     pub episodes: Vec<Episode>,
+    /// Long layout with `--episode`: each episode's value.
+    keys: Vec<Box<[u8]>>,
     words: usize,
     own_all: Vec<u64>,
+    /// Empty when no exclusion rule is on (then it equals `own_all`).
     own_current: Vec<u64>,
-    /// Wide layout: each row's raw bytes (range into `arena`) and episode.
-    rows: Vec<(usize, usize)>,
+    /// Wide layout: the end of each row's raw bytes in `arena`.
+    row_ends: Vec<usize>,
     arena: Vec<u8>,
     /// Every code, when asked for.
     pub codes: Vec<CodeRecord>,
@@ -72,156 +73,281 @@ pub struct Windows {
     pub range: Vec<(u32, u32)>,
 }
 
+/// How a row's date read.
+#[derive(Clone, Copy)]
+enum DateRead {
+    Day(i32),
+    Missing,
+    Unreadable,
+}
+
+/// One data row as a worker read it.
+struct RowRead {
+    pid: (usize, usize),
+    ekey: (usize, usize),
+    date: DateRead,
+    age: Option<u32>,
+}
+
+/// A block's rows, read on a worker thread.
+struct BlockRows {
+    summary: Summary,
+    err: Option<Error>,
+    rows: Vec<RowRead>,
+    /// Patient ids and episode values of the rows.
+    ids: Vec<u8>,
+    all: Vec<u64>,
+    cur: Vec<u64>,
+    raw: Vec<u8>,
+    raw_ends: Vec<usize>,
+    /// Codes with `episode` holding the row's index in the block.
+    codes: Vec<CodeRecord>,
+}
+
+/// Reads the data records of one block.
+fn read_block(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    p: &Plan,
+    block: &crate::io::Block,
+    start: usize,
+    scanner: &mut RecordScanner,
+    (keep_codes, exclusions): (bool, bool),
+) -> BlockRows {
+    let words = engine.words();
+    let mut b = BlockRows {
+        summary: Summary::default(),
+        err: None,
+        rows: Vec::new(),
+        ids: Vec::new(),
+        all: Vec::new(),
+        cur: Vec::new(),
+        raw: Vec::new(),
+        raw_ends: Vec::new(),
+        codes: Vec::new(),
+    };
+    let mut lines = (block.first_line, 0usize);
+    let r = scanner.scan_from(&block.data, start, block.last, |rec| -> Result<(), Error> {
+        b.summary.rows_read += 1;
+        p.check_width(block, &rec)?;
+        let issue = |i: RowIssue| p.issue(i, block, &rec);
+        let id = |c: Option<usize>, ids: &mut Vec<u8>| {
+            let s = ids.len();
+            if let Some(c) = c {
+                ids.extend_from_slice(rec.fields.get(c));
+            }
+            (s, ids.len())
+        };
+        let pid = id(p.id, &mut b.ids);
+        let ekey = id(p.episode, &mut b.ids);
+        let date = match p.read_date(cfg, &rec.fields) {
+            Ok(Some(d)) => DateRead::Day(d),
+            Ok(None) => DateRead::Missing,
+            Err(raw) => {
+                if cfg.strict {
+                    return Err(match raw {
+                        Some(v) => issue(RowIssue::UnreadableDate(v)),
+                        None => {
+                            // Lines counted incrementally: O(block) per block.
+                            lines.0 += memchr::memchr_iter(b'\n', &block.data[lines.1..rec.offset])
+                                .count() as u64;
+                            lines.1 = rec.offset;
+                            Error::Strict {
+                                line: Some(lines.0),
+                                message: "missing date".into(),
+                            }
+                        }
+                    });
+                }
+                if raw.is_some() {
+                    DateRead::Unreadable
+                } else {
+                    DateRead::Missing
+                }
+            }
+        };
+        let age = p
+            .read_age(cfg, &rec.fields, &mut b.summary)
+            .map_err(issue)?;
+        let row = b.rows.len();
+        b.all.resize(b.all.len() + words, 0);
+        if exclusions {
+            b.cur.resize(b.cur.len() + words, 0);
+        }
+        let base = row * words;
+        let (all, cur, codes) = (&mut b.all, &mut b.cur, &mut b.codes);
+        let mut excluded = (0u64, 0u64);
+        p.read_codes(cfg, &rec.fields, &mut b.summary, |written, code, excl| {
+            engine.add_code(&mut all[base..base + words], &code);
+            match excl {
+                None if exclusions => engine.add_code(&mut cur[base..base + words], &code),
+                None => {}
+                Some(Exclusion::Primary) => excluded.0 += 1,
+                Some(Exclusion::NotPresentOnAdmission) => excluded.1 += 1,
+            }
+            if keep_codes {
+                codes.push(CodeRecord {
+                    episode: row as u32,
+                    written: written.into(),
+                    code,
+                    exclusion: excl,
+                });
+            }
+        })
+        .map_err(issue)?;
+        b.summary.excluded_primary += excluded.0;
+        b.summary.excluded_not_on_admission += excluded.1;
+        if cfg.layout == Layout::Wide {
+            b.raw.extend_from_slice(rec.raw);
+            b.raw_ends.push(b.raw.len());
+        }
+        b.rows.push(RowRead {
+            pid,
+            ekey,
+            date,
+            age,
+        });
+        Ok(())
+    });
+    b.err = r.err();
+    b
+}
+
 impl History {
-    /// Reads the whole extract.
+    /// Reads the whole extract, parsing blocks on every core and merging
+    /// them in input order.
     pub fn read(
         engine: &Engine,
         cfg: &ScoreConfig,
-        input: impl Read,
+        input: impl Read + Send,
         keep_codes: bool,
     ) -> Result<(History, Summary), Error> {
         let words = engine.words();
-        let mut blocks = BlockReader::new(input, cfg.delimiter, cfg.block_size);
-        let mut scanner = RecordScanner::new(cfg.delimiter);
+        let exclusions = cfg.exclude_primary || cfg.poa.is_some();
         let mut summary = Summary::default();
-        let mut plan: Option<Plan> = None;
-        let mut header_raw = Vec::new();
         let mut patients: Vec<Box<[u8]>> = Vec::new();
         let mut episodes: Vec<Episode> = Vec::new();
+        let mut keys: Vec<Box<[u8]>> = Vec::new();
         let mut own_all: Vec<u64> = Vec::new();
         let mut own_current: Vec<u64> = Vec::new();
-        let mut rows: Vec<(usize, usize)> = Vec::new();
+        let mut row_ends: Vec<usize> = Vec::new();
         let mut arena: Vec<u8> = Vec::new();
         let mut codes: Vec<CodeRecord> = Vec::new();
         let mut patient_index: ByteMap<u32> = ByteMap::default();
         let mut episode_index: ByteMap<u32> = ByteMap::default();
         let mut key = Vec::new();
+        let mut rows_seen = 0u64;
 
-        while let Some(block) = blocks
-            .next_block()
-            .map_err(|e| Error::io("cannot read input", e))?
-        {
-            // Line numbers counted on from the previous record: counting from
-            // the block start for every record is quadratic in the block.
-            let mut cursor = (0usize, block.first_line);
-            scanner.scan(&block.data, block.last, |rec| -> Result<(), Error> {
-                let Some(p) = plan.as_ref() else {
-                    plan = Some(Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf)?);
-                    header_raw = rec.raw.to_vec();
-                    return Ok(());
-                };
-                summary.rows_read += 1;
-                p.check_width(&block, &rec)?;
-                let issue = |i: RowIssue| p.issue(i, &block, &rec);
-                let line = cursor.1
-                    + memchr::memchr_iter(b'\n', &block.data[cursor.0..rec.offset]).count() as u64;
-                cursor = (rec.offset, line);
-
-                // Patient.
-                let pid = p.id.map_or(&[][..], |c| rec.fields.get(c));
-                let patient = match patient_index.get(pid) {
-                    Some(&x) => x,
-                    None => {
-                        let x = patients.len() as u32;
-                        patient_index.insert(pid.into(), x);
-                        patients.push(pid.into());
-                        x
-                    }
-                };
-                // Episode: every wide row; in the long layout one per
-                // (patient, episode value), or per patient without --episode.
-                let ekey = p.episode.map_or(&[][..], |c| rec.fields.get(c));
-                let row = summary.rows_read;
-                let mut new_episode = || {
-                    episodes.push(Episode {
-                        patient,
-                        date: None,
-                        age: None,
-                        line,
-                        row,
-                        key: ekey.into(),
-                        date_unreadable: false,
-                    });
-                    own_all.resize(own_all.len() + words, 0);
-                    own_current.resize(own_current.len() + words, 0);
-                    (episodes.len() - 1) as u32
-                };
-                let e = match cfg.layout {
-                    Layout::Wide => new_episode(),
-                    Layout::Long => {
-                        key.clear();
-                        key.extend_from_slice(&(pid.len() as u32).to_le_bytes());
-                        key.extend_from_slice(pid);
-                        key.extend_from_slice(ekey);
-                        match episode_index.get(&key[..]) {
-                            Some(&x) => x,
-                            None => {
-                                let x = new_episode();
-                                episode_index.insert(key.as_slice().into(), x);
-                                x
-                            }
+        let (plan, header_raw) = run_blocks(
+            cfg,
+            input,
+            |rec| {
+                Ok((
+                    Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf)?,
+                    rec.raw.to_vec(),
+                ))
+            },
+            |h, block, start, scanner| {
+                read_block(
+                    engine,
+                    cfg,
+                    &h.0,
+                    block,
+                    start,
+                    scanner,
+                    (keep_codes, exclusions),
+                )
+            },
+            |h, b: BlockRows, _| {
+                let long_episodes = h.0.episode.is_some();
+                let mut block_episode = Vec::with_capacity(b.rows.len());
+                for (i, r) in b.rows.iter().enumerate() {
+                    rows_seen += 1;
+                    let pid = &b.ids[r.pid.0..r.pid.1];
+                    let patient = match patient_index.get(pid) {
+                        Some(&x) => x,
+                        None => {
+                            let x = patients.len() as u32;
+                            patient_index.insert(pid.into(), x);
+                            patients.push(pid.into());
+                            x
                         }
-                    }
-                };
-                let ep = &mut episodes[e as usize];
-                if ep.date.is_none() {
-                    match p.read_date(cfg, &rec.fields) {
-                        Ok(d) => ep.date = d,
-                        Err(raw) => {
-                            if cfg.strict {
-                                return Err(match raw {
-                                    Some(v) => issue(RowIssue::UnreadableDate(v)),
-                                    None => Error::Strict {
-                                        line: Some(line),
-                                        message: "missing date".into(),
-                                    },
-                                });
-                            }
-                            ep.date_unreadable |= raw.is_some();
-                        }
-                    }
-                }
-                // Ages are read (and counted) on every row, as without
-                // history; an episode keeps its first readable age.
-                let age = p.read_age(cfg, &rec.fields, &mut summary).map_err(issue)?;
-                if ep.age.is_none() {
-                    ep.age = age;
-                }
-                let base = e as usize * words;
-                let mut excluded = (0u64, 0u64);
-                p.read_codes(cfg, &rec.fields, &mut summary, |written, code, excl| {
-                    engine.add_code(&mut own_all[base..base + words], &code);
-                    match excl {
-                        None => engine.add_code(&mut own_current[base..base + words], &code),
-                        Some(Exclusion::Primary) => excluded.0 += 1,
-                        Some(Exclusion::NotPresentOnAdmission) => excluded.1 += 1,
-                    }
-                    if keep_codes {
-                        codes.push(CodeRecord {
-                            episode: e,
-                            written: written.into(),
-                            code,
-                            exclusion: excl,
+                    };
+                    let fresh = |episodes: &mut Vec<Episode>,
+                                 own_all: &mut Vec<u64>,
+                                 own_current: &mut Vec<u64>| {
+                        episodes.push(Episode {
+                            patient,
+                            date: None,
+                            age: None,
+                            row: rows_seen,
+                            date_unreadable: false,
                         });
+                        own_all.resize(own_all.len() + words, 0);
+                        if exclusions {
+                            own_current.resize(own_current.len() + words, 0);
+                        }
+                        (episodes.len() - 1) as u32
+                    };
+                    // Every wide row is an episode; in the long layout one
+                    // per (patient, episode value), or per patient.
+                    let e = match cfg.layout {
+                        Layout::Wide => fresh(&mut episodes, &mut own_all, &mut own_current),
+                        Layout::Long => {
+                            let ekey = &b.ids[r.ekey.0..r.ekey.1];
+                            key.clear();
+                            key.extend_from_slice(&(pid.len() as u32).to_le_bytes());
+                            key.extend_from_slice(pid);
+                            key.extend_from_slice(ekey);
+                            match episode_index.get(&key[..]) {
+                                Some(&x) => x,
+                                None => {
+                                    let x = fresh(&mut episodes, &mut own_all, &mut own_current);
+                                    episode_index.insert(key.as_slice().into(), x);
+                                    if long_episodes {
+                                        keys.push(ekey.into());
+                                    }
+                                    x
+                                }
+                            }
+                        }
+                    };
+                    block_episode.push(e);
+                    let ep = &mut episodes[e as usize];
+                    if ep.date.is_none() {
+                        match r.date {
+                            DateRead::Day(d) => ep.date = Some(d),
+                            DateRead::Unreadable => ep.date_unreadable = true,
+                            DateRead::Missing => {}
+                        }
                     }
-                })
-                .map_err(issue)?;
-                summary.excluded_primary += excluded.0;
-                summary.excluded_not_on_admission += excluded.1;
-                if cfg.layout == Layout::Wide {
-                    let start = arena.len();
-                    arena.extend_from_slice(rec.raw);
-                    rows.push((start, rec.raw.len()));
+                    if ep.age.is_none() {
+                        ep.age = r.age;
+                    }
+                    let (dst, src) = (e as usize * words, i * words);
+                    for k in 0..words {
+                        own_all[dst + k] |= b.all[src + k];
+                    }
+                    if exclusions {
+                        for k in 0..words {
+                            own_current[dst + k] |= b.cur[src + k];
+                        }
+                    }
                 }
-                Ok(())
-            })?;
-        }
-        let Some(plan) = plan else {
-            return Err(Error::data(
-                None,
-                "the input is empty: expected a header line naming the columns",
-            ));
-        };
+                if cfg.layout == Layout::Wide {
+                    let base = arena.len();
+                    arena.extend_from_slice(&b.raw);
+                    row_ends.extend(b.raw_ends.iter().map(|&x| base + x));
+                }
+                for mut c in b.codes {
+                    c.episode = block_episode[c.episode as usize];
+                    codes.push(c);
+                }
+                merge(&mut summary, b.summary);
+                b.err.map_or(Ok(()), Err)
+            },
+        )?;
+        summary.dx_columns = plan.dx_names();
         for ep in &episodes {
             if ep.date.is_none() && plan.date.is_some() {
                 if ep.date_unreadable {
@@ -236,10 +362,11 @@ impl History {
             header_raw,
             patients,
             episodes,
+            keys,
             words,
             own_all,
             own_current,
-            rows,
+            row_ends,
             arena,
             codes,
         };
@@ -294,25 +421,55 @@ impl History {
         Windows { sorted, range }
     }
 
-    /// Each episode's condition set after the window and the hierarchy.
+    /// Episode `e`'s condition set after its window and the hierarchy, into
+    /// `bits` (`scratch`: the hierarchy's work space).
+    pub fn resolve_into(
+        &self,
+        engine: &Engine,
+        windows: &Windows,
+        e: usize,
+        bits: &mut [u64],
+        scratch: &mut [u64],
+    ) {
+        let w = self.words;
+        let current = if self.own_current.is_empty() {
+            &self.own_all
+        } else {
+            &self.own_current
+        };
+        bits.copy_from_slice(&current[e * w..(e + 1) * w]);
+        let (lo, hi) = windows.range[e];
+        for &f in &windows.sorted[lo as usize..hi as usize] {
+            if f as usize != e {
+                let other = &self.own_all[f as usize * w..(f as usize + 1) * w];
+                for (b, o) in bits.iter_mut().zip(other) {
+                    *b |= o;
+                }
+            }
+        }
+        engine.apply_hierarchy(bits, scratch);
+    }
+
+    /// Every episode's condition set after its window and the hierarchy.
     pub fn resolve(&self, engine: &Engine, windows: &Windows) -> Vec<u64> {
         let w = self.words;
         let mut out = vec![0u64; self.episodes.len() * w];
         let mut scratch = vec![0u64; w];
-        for (e, &(lo, hi)) in windows.range.iter().enumerate() {
-            let bits = &mut out[e * w..(e + 1) * w];
-            bits.copy_from_slice(&self.own_current[e * w..(e + 1) * w]);
-            for &f in &windows.sorted[lo as usize..hi as usize] {
-                if f as usize != e {
-                    let other = &self.own_all[f as usize * w..(f as usize + 1) * w];
-                    for (b, o) in bits.iter_mut().zip(other) {
-                        *b |= o;
-                    }
-                }
-            }
-            engine.apply_hierarchy(bits, &mut scratch);
+        for e in 0..self.episodes.len() {
+            self.resolve_into(
+                engine,
+                windows,
+                e,
+                &mut out[e * w..(e + 1) * w],
+                &mut scratch,
+            );
         }
         out
+    }
+
+    /// Long layout with `--episode`: episode `e`'s value.
+    pub fn key(&self, e: usize) -> &[u8] {
+        self.keys.get(e).map_or(&[][..], |k| &k[..])
     }
 
     pub fn words(&self) -> usize {
@@ -321,8 +478,8 @@ impl History {
 
     /// Wide layout: each row's raw bytes, in input order (one per episode).
     pub fn row_raw(&self, e: usize) -> &[u8] {
-        let (s, l) = self.rows[e];
-        &self.arena[s..s + l]
+        let start = if e == 0 { 0 } else { self.row_ends[e - 1] };
+        &self.arena[start..self.row_ends[e]]
     }
 }
 
@@ -331,7 +488,7 @@ impl History {
 pub fn score_history(
     engine: &Engine,
     cfg: &ScoreConfig,
-    input: impl Read,
+    input: impl Read + Send,
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
     let (hist, mut summary) = History::read(engine, cfg, input, false)?;
@@ -365,32 +522,60 @@ pub fn score_history(
     }
     out.extend_from_slice(eol);
     let windows = hist.windows(cfg.lookback);
-    let resolved = hist.resolve(engine, &windows);
-    let w = hist.words();
-    let mut values: Vec<Value> = Vec::new();
     let write_err = |e| Error::io("cannot write output", e);
-    for (e, ep) in hist.episodes.iter().enumerate() {
-        engine.values(&resolved[e * w..(e + 1) * w], ep.age, &mut values);
-        match cfg.layout {
-            Layout::Wide => out.extend_from_slice(hist.row_raw(e)),
-            Layout::Long => {
-                write_field(&hist.patients[ep.patient as usize], d, &mut out);
-                if p.episode.is_some() {
-                    out.push(d);
-                    write_field(&ep.key, d, &mut out);
+    output.write_all(&out).map_err(write_err)?;
+    // Episodes are formatted on every core, a round of chunks at a time, and
+    // written in order.
+    let format_chunk = |range: std::ops::Range<usize>| -> Vec<u8> {
+        let mut out = Vec::with_capacity(range.len() * 128);
+        let mut bits = vec![0u64; hist.words()];
+        let mut scratch = bits.clone();
+        let mut values: Vec<Value> = Vec::new();
+        for e in range {
+            let ep = &hist.episodes[e];
+            hist.resolve_into(engine, &windows, e, &mut bits, &mut scratch);
+            engine.values(&bits, ep.age, &mut values);
+            match cfg.layout {
+                Layout::Wide => out.extend_from_slice(hist.row_raw(e)),
+                Layout::Long => {
+                    write_field(&hist.patients[ep.patient as usize], d, &mut out);
+                    if p.episode.is_some() {
+                        out.push(d);
+                        write_field(hist.key(e), d, &mut out);
+                    }
                 }
             }
+            engine.write_values(&values, d, &mut out);
+            out.extend_from_slice(eol);
         }
-        engine.write_values(&values, d, &mut out);
-        out.extend_from_slice(eol);
-        summary.rows_written += 1;
-        summary.units += 1;
-        if out.len() >= cfg.block_size {
-            output.write_all(&out).map_err(write_err)?;
-            out.clear();
+        out
+    };
+    const CHUNK: usize = 16_384;
+    let threads = super::parallel::threads(cfg);
+    let n = hist.episodes.len();
+    let mut start = 0;
+    while start < n {
+        let chunks: Vec<std::ops::Range<usize>> = (0..threads)
+            .map(|t| (start + t * CHUNK).min(n)..(start + (t + 1) * CHUNK).min(n))
+            .filter(|r| !r.is_empty())
+            .collect();
+        start = (start + threads * CHUNK).min(n);
+        let parts: Option<Vec<Vec<u8>>> = std::thread::scope(|s| {
+            let handles: Vec<_> = chunks
+                .into_iter()
+                .map(|r| s.spawn(|| format_chunk(r)))
+                .collect();
+            handles.into_iter().map(|h| h.join().ok()).collect()
+        });
+        let Some(parts) = parts else {
+            return Err(Error::data(None, "internal error: an output thread failed"));
+        };
+        for part in parts {
+            output.write_all(&part).map_err(write_err)?;
         }
     }
-    output.write_all(&out).map_err(write_err)?;
+    summary.rows_written += n as u64;
+    summary.units += n as u64;
     output.flush().map_err(write_err)?;
     Ok(summary)
 }

@@ -13,6 +13,7 @@
 pub mod dates;
 pub mod explain;
 pub mod history;
+mod parallel;
 mod stream;
 
 use std::collections::HashMap;
@@ -73,6 +74,17 @@ pub struct ScoreConfig {
     pub strict: bool,
     /// Preferred block size in bytes.
     pub block_size: usize,
+    /// Worker threads for the wide layout without lookback (0: one per core).
+    pub threads: usize,
+}
+
+/// How far a run has got, for a progress display.
+#[derive(Clone, Copy, Debug, Default)]
+pub struct Progress {
+    /// Bytes read from the (decompressed) input.
+    pub bytes_read: u64,
+    /// Data rows read.
+    pub rows: u64,
 }
 
 impl Default for ScoreConfig {
@@ -94,6 +106,7 @@ impl Default for ScoreConfig {
             delimiter: b',',
             strict: false,
             block_size: 1 << 20,
+            threads: 0,
         }
     }
 }
@@ -129,6 +142,9 @@ pub struct Summary {
     pub excluded_primary: u64,
     /// Codes of episodes being scored left out as not present on admission.
     pub excluded_not_on_admission: u64,
+    /// The diagnosis columns read, as resolved from the names and patterns
+    /// of [`ScoreConfig::dx`].
+    pub dx_columns: Vec<String>,
 }
 
 impl Summary {
@@ -139,6 +155,16 @@ impl Summary {
             *n += 1;
         } else if self.invalid_values.len() < INVALID_VALUES_KEPT {
             self.invalid_values.insert(v.to_vec(), 1);
+        }
+    }
+
+    /// Adds `n` occurrences of an invalid value to the remembered ones
+    /// (not to the count, which the caller keeps).
+    fn add_invalid(&mut self, value: Vec<u8>, n: u64) {
+        if let Some(c) = self.invalid_values.get_mut(&value) {
+            *c += n;
+        } else if self.invalid_values.len() < INVALID_VALUES_KEPT {
+            self.invalid_values.insert(value, n);
         }
     }
 
@@ -371,6 +397,14 @@ impl Plan {
         })
     }
 
+    /// Names of the diagnosis columns read, in reading order.
+    pub fn dx_names(&self) -> Vec<String> {
+        self.dx
+            .iter()
+            .map(|&c| self.header.names[c].clone())
+            .collect()
+    }
+
     pub fn dx_name(&self, k: usize) -> &str {
         &self.header.names[self.dx[k]]
     }
@@ -577,12 +611,23 @@ pub(crate) fn check_collisions(names: &[&str], engine: &Engine) -> Result<(), Er
 pub fn score_stream(
     engine: &Engine,
     cfg: &ScoreConfig,
-    input: impl Read,
+    input: impl Read + Send,
     output: &mut dyn Write,
+) -> Result<Summary, Error> {
+    score_stream_observed(engine, cfg, input, output, &mut |_| {})
+}
+
+/// [`score_stream`], calling `progress` as blocks are written.
+pub fn score_stream_observed(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    input: impl Read + Send,
+    output: &mut dyn Write,
+    progress: &mut dyn FnMut(Progress),
 ) -> Result<Summary, Error> {
     if cfg.lookback.is_some() || cfg.episode.is_some() {
         history::score_history(engine, cfg, input, output)
     } else {
-        stream::score_plain(engine, cfg, input, output)
+        stream::score_plain(engine, cfg, input, output, progress)
     }
 }
