@@ -14,7 +14,11 @@
 //! - [`score`]: conditions, hierarchies, weightings, output values;
 //! - [`io`]: streaming delimited text in and out;
 //! - [`pipeline`]: `score` over an extract, wide or long, with its summary;
-//! - [`provenance`]: what produced an output (tool, lists, options, counts).
+//! - [`provenance`]: what produced an output (tool, lists, options, counts);
+//! - [`stats`]: the numerics of `compare` (c-statistics, DeLong, logistic
+//!   regression, rank correlation);
+//! - [`compare`]: several index specifications side by side on one extract,
+//!   as a table, JSON or a self-contained HTML report.
 //!
 //! ```
 //! use morbus::lists::Catalogue;
@@ -33,6 +37,7 @@
 //! ```
 
 pub mod code;
+pub mod compare;
 pub mod error;
 pub mod io;
 pub mod lists;
