@@ -14,6 +14,7 @@
 //! - [`score`]: conditions, hierarchies, weightings, output values;
 //! - [`io`]: streaming delimited text in and out;
 //! - [`pipeline`]: `score` over an extract, wide or long, with its summary.
+//! - [`columnar`]: the same over in-memory columns (Arrow arrays, data frames).
 //!
 //! ```
 //! use morbus::lists::Catalogue;
@@ -32,6 +33,7 @@
 //! ```
 
 pub mod code;
+pub mod columnar;
 pub mod error;
 pub mod io;
 pub mod lists;

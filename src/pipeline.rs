@@ -81,7 +81,7 @@ pub struct Summary {
 }
 
 impl Summary {
-    fn invalid(&mut self, value: &[u8]) {
+    pub(crate) fn invalid(&mut self, value: &[u8]) {
         self.invalid_codes += 1;
         let v = value.trim_ascii();
         if let Some(n) = self.invalid_values.get_mut(v) {
@@ -298,7 +298,11 @@ fn read_age_field(
     }
 }
 
-fn check_collisions(header: &Header, engine: &Engine, keep: &[usize]) -> Result<(), Error> {
+pub(crate) fn check_collisions(
+    header: &Header,
+    engine: &Engine,
+    keep: &[usize],
+) -> Result<(), Error> {
     for c in engine.columns() {
         if keep.iter().any(|&i| header.names[i] == c.name) {
             return Err(Error::Usage(format!(
