@@ -1,0 +1,206 @@
+"""The Python package gives what the command line gives: same columns, same
+names, same order, same rows, same values, on the same extract."""
+
+from __future__ import annotations
+
+import io
+import math
+from pathlib import Path
+from typing import Any, Dict, List
+
+import pandas as pd
+import polars as pl
+import pyarrow as pa
+import pyarrow.csv as pacsv
+import pytest
+
+import morbus
+from conftest import REPO, cli_args
+
+WIDE_OPTIONS: List[Dict[str, Any]] = [
+    {},
+    {"index": "charlson:charlson1987"},
+    {"index": "charlson:quan2011"},
+    {"index": "charlson:count"},
+    {"index": "charlson"},
+    {"index": "elixhauser:vanwalraven2009"},
+    {"index": "elixhauser:count"},
+    {"index": "hfrs:gilbert2018"},
+    {"index": ["hfrs", "charlson:count"]},
+    {"flags": True},
+    {"flags": True, "hierarchy": False},
+    {"hierarchy": False},
+    {"age": "age"},
+    {"age": "age", "index": "charlson:charlson1987,elixhauser:count,hfrs", "flags": True, "hierarchy": False},
+    {"dx": "codes_list", "dx_sep": ";"},
+    {"dx": ["dx1", "dx3", "dx2"], "age": "age"},
+]
+
+LONG_OPTIONS: List[Dict[str, Any]] = [
+    {"dx": "code", "layout": "long", "id": "patient_id"},
+    {"dx": "code", "layout": "long", "id": "patient_id", "age": "age", "flags": True},
+    {"dx": "code", "layout": "long", "id": "patient_id", "hierarchy": False, "index": "elixhauser:count"},
+]
+
+
+def cli_frame(run_cli, path: Path, opts: Dict[str, Any]) -> pd.DataFrame:
+    code, out, err = run_cli(cli_args(path, opts))
+    assert code == 0, err
+    return pd.read_csv(io.StringIO(out), dtype=str, keep_default_na=False)
+
+
+def as_text_frame(path: Path) -> pd.DataFrame:
+    return pd.read_csv(path, dtype=str, keep_default_na=False)
+
+
+def norm(v: Any) -> Any:
+    """A value as comparable text-or-number: missing is None."""
+    if v is None or (isinstance(v, float) and math.isnan(v)) or v is pd.NA:
+        return None
+    if isinstance(v, str):
+        if v == "":
+            return None
+        try:
+            return float(v)
+        except ValueError:
+            return v
+    return float(v)
+
+
+def assert_same(py: pd.DataFrame, cli: pd.DataFrame, score_columns: List[str]) -> None:
+    assert list(py.columns) == list(cli.columns)
+    assert len(py) == len(cli)
+    for c in score_columns:
+        got = [norm(v) for v in py[c].tolist()]
+        want = [norm(v) for v in cli[c].tolist()]
+        bad = [i for i, (g, w) in enumerate(zip(got, want)) if g != w]
+        assert not bad, f"column {c}: first differing rows {bad[:5]}: {[got[i] for i in bad[:5]]} != {[want[i] for i in bad[:5]]}"
+
+
+def score_columns(cli: pd.DataFrame, input_columns: List[str]) -> List[str]:
+    cols = [c for c in cli.columns if c not in input_columns]
+    assert cols, "the command line added no score columns"
+    return cols
+
+
+def assert_not_trivial(cli: pd.DataFrame, cols: List[str]) -> None:
+    """The extract must give the compared columns something to disagree on."""
+    for c in cols:
+        values = {v for v in cli[c] if v != ""}
+        if not c.endswith("_band"):
+            assert len(values) > 1, f"{c} is constant: {values}"
+
+
+@pytest.mark.parametrize("opts", WIDE_OPTIONS, ids=lambda o: ",".join(f"{k}={v}" for k, v in o.items()) or "defaults")
+def test_wide_pandas_equals_cli(run_cli, episodes_csv, opts):
+    cli = cli_frame(run_cli, episodes_csv, opts)
+    df = as_text_frame(episodes_csv)
+    before = df.copy()
+    py = morbus.score(df, **{"dx": "dx*", **opts})
+    pd.testing.assert_frame_equal(df, before)  # the input is not changed
+    cols = score_columns(cli, list(df.columns))
+    assert_same(py, cli, cols)
+    pd.testing.assert_frame_equal(py[list(df.columns)], df)
+    if not opts.get("flags"):
+        assert_not_trivial(cli, cols)
+
+
+@pytest.mark.parametrize("reader", ["pandas-default", "polars", "pyarrow"])
+@pytest.mark.parametrize("opts", [{}, {"age": "age", "flags": True}], ids=["defaults", "age+flags"])
+def test_wide_frames_read_natively_equal_cli(run_cli, episodes_csv, reader, opts):
+    """Nulls for empty fields, numeric ages where the reader infers them."""
+    cli = cli_frame(run_cli, episodes_csv, opts)
+    if reader == "pandas-default":
+        frame = pd.read_csv(episodes_csv)
+        out = morbus.score(frame, dx="dx*", **opts)
+        assert isinstance(out, pd.DataFrame)
+        py = out
+    elif reader == "polars":
+        frame = pl.read_csv(episodes_csv)
+        out = morbus.score(frame, dx="dx*", **opts)
+        assert isinstance(out, pl.DataFrame)
+        assert out.columns[: frame.width] == frame.columns
+        assert out.select(frame.columns).equals(frame)
+        py = out.to_pandas()
+    else:
+        frame = pacsv.read_csv(episodes_csv)
+        out = morbus.score(frame, dx="dx*", **opts)
+        assert isinstance(out, pa.Table)
+        assert out.select(frame.column_names).equals(frame)
+        py = out.to_pandas()
+    cols = score_columns(cli, as_text_frame(episodes_csv).columns.tolist())
+    assert list(py.columns) == list(cli.columns)
+    assert_same(py, cli, cols)
+
+
+@pytest.mark.parametrize("opts", LONG_OPTIONS, ids=lambda o: ",".join(f"{k}={v}" for k, v in o.items() if k not in {"dx", "layout", "id"}) or "defaults")
+@pytest.mark.parametrize("kind", ["pandas", "polars", "pyarrow"])
+def test_long_equals_cli(run_cli, long_csv, opts, kind):
+    cli = cli_frame(run_cli, long_csv, opts)
+    text = as_text_frame(long_csv)
+    assert len(cli) < len(text), "the long extract must group rows"
+    frame = {"pandas": lambda: text, "polars": lambda: pl.from_pandas(text), "pyarrow": lambda: pa.table(text)}[kind]()
+    out = morbus.score(frame, **opts)
+    py = out if kind == "pandas" else out.to_pandas()
+    assert list(py.columns) == list(cli.columns)
+    assert py["patient_id"].tolist() == cli["patient_id"].tolist()
+    assert_same(py, cli, [c for c in cli.columns if c != "patient_id"])
+
+
+def test_long_over_a_wide_extract_equals_cli(run_cli, episodes_csv):
+    """Several diagnosis columns per row, grouped by patient."""
+    opts = {"dx": "dx*", "layout": "long", "id": "patient_id", "age": "age"}
+    cli = cli_frame(run_cli, episodes_csv, opts)
+    py = morbus.score(as_text_frame(episodes_csv), **opts)
+    assert py["patient_id"].tolist() == cli["patient_id"].tolist()
+    assert_same(py, cli, [c for c in cli.columns if c != "patient_id"])
+
+
+def test_custom_lists_equal_cli(run_cli, episodes_csv, tmp_path):
+    """A directory list replacing a built-in: same numbers both ways."""
+    text = (REPO / "code-lists" / "charlson.tsv").read_text(encoding="utf-8")
+    lines = [l for l in text.splitlines() if not (l.startswith("code\t") and "\tdementia\t" in l)]
+    (tmp_path / "charlson.tsv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    opts = {"lists": str(tmp_path), "index": "charlson", "flags": True}
+    cli = cli_frame(run_cli, episodes_csv, opts)
+    df = as_text_frame(episodes_csv)
+    py = morbus.score(df, dx="dx*", **opts)
+    assert_same(py, cli, score_columns(cli, list(df.columns)))
+    assert set(cli["charlson_dementia"]) == {"0"}
+    builtin = morbus.score(df, dx="dx*", index="charlson", flags=True)
+    assert builtin["charlson_dementia"].sum() > 0
+
+
+def test_summary_matches_cli_report(morbus_bin, episodes_csv):
+    import subprocess
+
+    args = cli_args(episodes_csv, {"age": "age"})
+    args.remove("--quiet")
+    p = subprocess.run([str(morbus_bin), *args], capture_output=True, text=True, check=True)
+    _, prov = morbus.score(as_text_frame(episodes_csv), dx="dx*", age="age", provenance=True)
+    assert prov["report"] == p.stderr.strip()
+    s = prov["summary"]
+    assert s["invalid_codes"] > 0 and s["unreadable_ages"] > 0 and s["missing_ages"] > 0
+
+
+@pytest.mark.skipif(not (REPO / "demo-data" / "episodes.csv").exists(), reason="no demo-data/episodes.csv in this checkout")
+@pytest.mark.parametrize("opts", [{}, {"flags": True}, {"age": "age", "hierarchy": False}], ids=["defaults", "flags", "age,no-hierarchy"])
+def test_demo_data_equals_cli(run_cli, opts):
+    path = REPO / "demo-data" / "episodes.csv"
+    cli = cli_frame(run_cli, path, opts)
+    df = as_text_frame(path)
+    py = morbus.score(df, dx="dx*", **opts)
+    assert_same(py, cli, score_columns(cli, list(df.columns)))
+
+
+def test_strict_fails_on_the_same_value_as_cli(run_cli, episodes_csv):
+    code, _, err = run_cli(cli_args(episodes_csv, {"strict": True}))
+    assert code == 3
+    df = as_text_frame(episodes_csv)
+    with pytest.raises(ValueError) as e:
+        morbus.score(df, dx="dx*", strict=True)
+    # the CLI names the line (header is line 1), Python the 0-based row
+    msg = str(e.value)
+    row = int(msg.split(":")[0].removeprefix("row "))
+    assert f"line {row + 2}: " in err
+    assert msg.split(": ", 1)[1].removesuffix(" (strict=True)") in err
