@@ -8,7 +8,7 @@ Score, computed by the morbus engine (the same code, lists and numbers as the
 >>> df = pd.DataFrame({"dx1": ["I21.9", "F00.1"], "dx2": ["C78.0", None]})
 >>> out = morbus.score(df, dx="dx*", index="charlson:charlson1987")
 >>> out["charlson_charlson1987"].tolist()
-[7, 0]
+[7, 1]
 
 These indices support population-level risk adjustment and research, not
 decisions about an individual patient.
@@ -232,7 +232,7 @@ def score(
     >>> df = pd.DataFrame({"id": [1, 2], "dx1": ["I50.0", "R29.6"], "dx2": ["N18.5", "F05.9"]})
     >>> out, prov = morbus.score(df, dx="dx*", provenance=True)
     >>> out[["charlson_quan2011", "hfrs_gilbert2018", "hfrs_gilbert2018_band"]].values.tolist()
-    [[4, 0.0, 'low'], [0, 6.8, 'intermediate']]
+    [[3, 1.4, 'low'], [0, 6.8, 'intermediate']]
     >>> prov["summary"]["codes_read"]
     4
     """
