@@ -299,9 +299,23 @@ impl<'e> Scorer<'e> {
         }
     }
 
+    /// Numbers the rows from `row` on instead of 0: for a scorer that
+    /// scores the part of a frame starting at that row (in parallel with
+    /// others, whose summaries are then [merged](Summary::merge) in row
+    /// order).
+    pub fn starting_at(mut self, row: u64) -> Self {
+        self.row = row;
+        self
+    }
+
     /// What has been read so far.
     pub fn summary(&self) -> &Summary {
         &self.reader.summary
+    }
+
+    /// The summary of the run.
+    pub fn into_summary(self) -> Summary {
+        self.reader.summary
     }
 
     /// Wide layout: scores every row of a batch and hands its values to
@@ -504,6 +518,64 @@ mod tests {
         assert_eq!(
             err.to_string(),
             "row 1: invalid code '??' in column 'b' (--strict)"
+        );
+    }
+
+    #[test]
+    fn parts_scored_apart_merge_into_the_whole() {
+        let e = engine("charlson", true);
+        let h = header(&["a", "b", "age"]);
+        let cfg = ScoreConfig {
+            dx: vec!["a,b".into()],
+            age: Some("age".into()),
+            ..ScoreConfig::default()
+        };
+        let p = plan(&e, &cfg, &h).unwrap();
+        let rows = |r: std::ops::Range<usize>| {
+            let dx = vec![
+                vec!["I21", "x1"],
+                vec!["", "G30"],
+                vec!["x1", "x2"],
+                vec!["E11.2", ""],
+            ];
+            let ages = vec![
+                Age::Missing,
+                Age::Text(b"?"),
+                Age::Number(70.0),
+                Age::Missing,
+            ];
+            Frame {
+                dx: dx[r.clone()].to_vec(),
+                ages: ages[r].to_vec(),
+                ids: vec![],
+            }
+        };
+        let mut whole = Scorer::new(&e, &cfg, &h, &p);
+        let mut all = Vec::new();
+        whole.wide(&rows(0..4), |v| all.push(v.to_vec())).unwrap();
+        let mut first = Scorer::new(&e, &cfg, &h, &p);
+        let mut second = Scorer::new(&e, &cfg, &h, &p).starting_at(2);
+        let mut parts = Vec::new();
+        first.wide(&rows(0..2), |v| parts.push(v.to_vec())).unwrap();
+        second
+            .wide(&rows(2..4), |v| parts.push(v.to_vec()))
+            .unwrap();
+        assert_eq!(parts, all);
+        let mut merged = first.into_summary();
+        merged.merge(second.into_summary());
+        assert_eq!(&merged, whole.summary());
+        assert_eq!(merged.invalid_values.get(&b"x1"[..]), Some(&2));
+        let strict = ScoreConfig {
+            strict: true,
+            ..cfg.clone()
+        };
+        let err = Scorer::new(&e, &strict, &h, &p)
+            .starting_at(2)
+            .wide(&rows(2..4), |_| {})
+            .unwrap_err();
+        assert!(
+            err.to_string().starts_with("row 2: invalid code 'x1'"),
+            "{err}"
         );
     }
 

@@ -81,6 +81,26 @@ pub struct Summary {
 }
 
 impl Summary {
+    /// Adds the counts of a run over later rows (e.g. another part of a
+    /// frame scored on another thread). The distinct invalid values kept are
+    /// those of `self`, then the new ones of `later`, up to the same limit.
+    pub fn merge(&mut self, later: Summary) {
+        self.rows_read += later.rows_read;
+        self.rows_written += later.rows_written;
+        self.codes_read += later.codes_read;
+        self.invalid_codes += later.invalid_codes;
+        self.missing_ages += later.missing_ages;
+        self.unreadable_ages += later.unreadable_ages;
+        self.units += later.units;
+        for (v, n) in later.invalid_values {
+            if let Some(c) = self.invalid_values.get_mut(&v) {
+                *c += n;
+            } else if self.invalid_values.len() < INVALID_VALUES_KEPT {
+                self.invalid_values.insert(v, n);
+            }
+        }
+    }
+
     pub(crate) fn invalid(&mut self, value: &[u8]) {
         self.invalid_codes += 1;
         let v = value.trim_ascii();

@@ -18,7 +18,7 @@ use arrow_array::types::*;
 use arrow_array::{
     Array, ArrayRef, Int64Array, RecordBatch, RecordBatchIterator, RecordBatchReader,
 };
-use arrow_schema::{ArrowError, DataType, Field, Schema};
+use arrow_schema::{ArrowError, DataType, Field, Schema, SchemaRef};
 use pyo3::exceptions::{PyKeyError, PyTypeError, PyValueError};
 use pyo3::prelude::*;
 use pyo3::types::{PyCapsule, PyDict, PyList};
@@ -88,7 +88,10 @@ impl PyLists {
                 self.catalogue.names().join(", "),
                 p.display()
             ),
-            None => format!("<morbus.Lists {} (built-in)>", self.catalogue.names().join(", ")),
+            None => format!(
+                "<morbus.Lists {} (built-in)>",
+                self.catalogue.names().join(", ")
+            ),
         }
     }
 }
@@ -163,7 +166,16 @@ fn list_table<'py>(py: Python<'py>, lists: &PyLists) -> PyResult<Bound<'py, PyLi
 /// The Arrow C stream of a score result, for `pyarrow.table(...)`.
 #[pyclass(module = "morbus._native", name = "ArrowStream")]
 struct ArrowStream {
-    batch: Option<RecordBatch>,
+    /// `None` once consumed.
+    batches: Option<(Vec<RecordBatch>, SchemaRef)>,
+}
+
+impl ArrowStream {
+    fn new(batches: Vec<RecordBatch>, schema: SchemaRef) -> ArrowStream {
+        ArrowStream {
+            batches: Some((batches, schema)),
+        }
+    }
 }
 
 #[pymethods]
@@ -177,13 +189,14 @@ impl ArrowStream {
         // The schema is fixed; a requested schema is a hint that may be
         // ignored (Arrow PyCapsule interface).
         let _ = requested_schema;
-        let batch = self
-            .batch
+        let (batches, schema) = self
+            .batches
             .take()
             .ok_or_else(|| PyValueError::new_err("this Arrow stream was already consumed"))?;
-        let schema = batch.schema();
-        let reader: Box<dyn RecordBatchReader + Send> =
-            Box::new(RecordBatchIterator::new(vec![Ok(batch)], schema));
+        let reader: Box<dyn RecordBatchReader + Send> = Box::new(RecordBatchIterator::new(
+            batches.into_iter().map(Ok),
+            schema,
+        ));
         PyCapsule::new_with_value(py, FFI_ArrowArrayStream::new(reader), STREAM)
     }
 }
@@ -191,9 +204,9 @@ impl ArrowStream {
 /// Imports every batch of an object exposing `__arrow_c_stream__`.
 fn import_stream(obj: &Bound<'_, PyAny>) -> PyResult<Vec<RecordBatch>> {
     let capsule = obj.call_method0("__arrow_c_stream__")?;
-    let capsule = capsule.cast::<PyCapsule>().map_err(|_| {
-        PyTypeError::new_err("__arrow_c_stream__ did not return a PyCapsule")
-    })?;
+    let capsule = capsule
+        .cast::<PyCapsule>()
+        .map_err(|_| PyTypeError::new_err("__arrow_c_stream__ did not return a PyCapsule"))?;
     let ptr = capsule.pointer_checked(Some(STREAM))?;
     // SAFETY: the capsule holds an `ArrowArrayStream` (checked by name); its
     // content is moved out and the original marked released, as the Arrow
@@ -296,7 +309,11 @@ impl<'a> Text<'a> {
 }
 
 #[inline]
-fn text_or_empty<'a, A: Array>(a: &'a A, i: usize, f: impl Fn(&'a A, usize) -> &'a [u8]) -> &'a [u8] {
+fn text_or_empty<'a, A: Array>(
+    a: &'a A,
+    i: usize,
+    f: impl Fn(&'a A, usize) -> &'a [u8],
+) -> &'a [u8] {
     if a.is_null(i) {
         b""
     } else {
@@ -402,6 +419,108 @@ impl Rows for Batch<'_> {
             IdCol::Int(v) => v[row].as_ref().map(|b| b.as_slice()),
         }
     }
+}
+
+/// Rows `start..start + len` of a batch.
+struct Part<'b, 'a> {
+    batch: &'b Batch<'a>,
+    start: usize,
+    len: usize,
+}
+
+impl Rows for Part<'_, '_> {
+    fn len(&self) -> usize {
+        self.len
+    }
+    #[inline]
+    fn dx(&self, k: usize, row: usize) -> &[u8] {
+        self.batch.dx(k, self.start + row)
+    }
+    fn age(&self, row: usize) -> Age<'_> {
+        self.batch.age(self.start + row)
+    }
+    fn id(&self, row: usize) -> Option<&[u8]> {
+        self.batch.id(self.start + row)
+    }
+}
+
+/// Threads for a wide run: `MORBUS_THREADS` when set to a positive number,
+/// else the available cores (at most 8).
+fn threads() -> usize {
+    std::env::var("MORBUS_THREADS")
+        .ok()
+        .and_then(|v| v.trim().parse::<usize>().ok())
+        .filter(|&n| n > 0)
+        .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get().min(8)))
+}
+
+/// Rows from which the wide layout is scored on several threads.
+const PARALLEL_ROWS: usize = 50_000;
+
+/// Scores a wide frame in `threads` parts of consecutive rows, each on its
+/// own thread; the parts' columns come back in row order, their summaries
+/// merged, and the error of the first failing part (the first in row
+/// order, as a single pass would meet it).
+fn score_wide_parallel(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    header: &Header,
+    plan: &columnar::Plan,
+    views: &[Batch<'_>],
+    threads: usize,
+) -> Result<(Vec<RecordBatch>, Summary), Error> {
+    let total: usize = views.iter().map(|v| v.len).sum();
+    let per = total.div_ceil(threads.max(1)).max(1);
+    // (first row, parts of batches) of each task
+    let mut tasks: Vec<(usize, Vec<Part<'_, '_>>)> = Vec::new();
+    let mut row = 0usize;
+    for v in views {
+        let mut start = 0;
+        while start < v.len {
+            if tasks.last().is_none_or(|t| row >= t.0 + per) {
+                tasks.push((row, Vec::new()));
+            }
+            let task = tasks.last_mut().expect("a task");
+            let room = task.0 + per - row;
+            let len = room.min(v.len - start);
+            task.1.push(Part {
+                batch: v,
+                start,
+                len,
+            });
+            start += len;
+            row += len;
+        }
+    }
+    let results: Vec<Result<(RecordBatch, Summary), Error>> = std::thread::scope(|s| {
+        let handles: Vec<_> = tasks
+            .iter()
+            .map(|(first, parts)| {
+                s.spawn(move || {
+                    let mut scorer =
+                        Scorer::new(engine, cfg, header, plan).starting_at(*first as u64);
+                    let rows: usize = parts.iter().map(|p| p.len).sum();
+                    let mut out = Output::new(engine, rows);
+                    for p in parts {
+                        scorer.wide(p, |vals| out.push(engine, vals))?;
+                    }
+                    Ok((out.finish(engine), scorer.into_summary()))
+                })
+            })
+            .collect();
+        handles
+            .into_iter()
+            .map(|h| h.join().expect("a scoring thread panicked"))
+            .collect()
+    });
+    let mut batches = Vec::new();
+    let mut summary = Summary::default();
+    for r in results {
+        let (b, s) = r?;
+        batches.push(b);
+        summary.merge(s);
+    }
+    Ok((batches, summary))
 }
 
 fn type_name(t: &DataType) -> String {
@@ -707,35 +826,39 @@ fn score<'py>(
         .collect::<PyResult<Vec<_>>>()?;
     let total: usize = views.iter().map(|v| v.len).sum();
 
-    let (result, first_rows, summary) = py.detach(|| {
-        let mut scorer = Scorer::new(&engine, &cfg, &header, &plan);
-        let mut out = Output::new(&engine, if layout == Layout::Wide { total } else { 0 });
-        let mut first = Vec::new();
-        for v in &views {
-            let r = match layout {
-                Layout::Wide => scorer.wide(v, |vals| out.push(&engine, vals)),
-                Layout::Long => scorer.long(v),
-            };
-            if let Err(e) = r {
-                return Err(e);
+    let threads = threads();
+    let (result, first_rows, summary) = py
+        .detach(|| {
+            if layout == Layout::Wide && threads > 1 && total >= PARALLEL_ROWS {
+                let (batches, summary) =
+                    score_wide_parallel(&engine, &cfg, &header, &plan, &views, threads)?;
+                return Ok((batches, Vec::new(), summary));
             }
-        }
-        if layout == Layout::Long {
-            scorer.finish_long(|row, vals| {
-                first.push(row as i64);
-                out.push(&engine, vals);
-            });
-        }
-        Ok((out.finish(&engine), first, scorer.summary().clone()))
-    })
-    .map_err(value_error)?;
+            let mut scorer = Scorer::new(&engine, &cfg, &header, &plan);
+            let mut out = Output::new(&engine, if layout == Layout::Wide { total } else { 0 });
+            let mut first = Vec::new();
+            for v in &views {
+                match layout {
+                    Layout::Wide => scorer.wide(v, |vals| out.push(&engine, vals))?,
+                    Layout::Long => scorer.long(v)?,
+                }
+            }
+            if layout == Layout::Long {
+                scorer.finish_long(|row, vals| {
+                    first.push(row as i64);
+                    out.push(&engine, vals);
+                });
+            }
+            Ok((vec![out.finish(&engine)], first, scorer.into_summary()))
+        })
+        .map_err(value_error)?;
+    let schema = Output::new(&engine, 0).finish(&engine).schema();
 
     let first_rows = (layout == Layout::Long).then(|| {
         let a: ArrayRef = Arc::new(Int64Array::from(first_rows));
         let schema = Arc::new(Schema::new(vec![Field::new("row", DataType::Int64, false)]));
-        ArrowStream {
-            batch: Some(RecordBatch::try_new(schema, vec![a]).expect("one column")),
-        }
+        let batch = RecordBatch::try_new(schema.clone(), vec![a]).expect("one column");
+        ArrowStream::new(vec![batch], schema)
     });
 
     let prov = PyDict::new(py);
@@ -782,13 +905,7 @@ fn score<'py>(
     prov.set_item("summary", summary_dict(py, &summary)?)?;
     prov.set_item("report", summary.report())?;
 
-    Ok((
-        ArrowStream {
-            batch: Some(result),
-        },
-        first_rows,
-        prov,
-    ))
+    Ok((ArrowStream::new(result, schema), first_rows, prov))
 }
 
 /// Version of the morbus library this extension was built with.

@@ -204,3 +204,47 @@ def test_strict_fails_on_the_same_value_as_cli(run_cli, episodes_csv):
     row = int(msg.split(":")[0].removeprefix("row "))
     assert f"line {row + 2}: " in err
     assert msg.split(": ", 1)[1].removesuffix(" (strict=True)") in err
+
+
+@pytest.fixture(scope="session")
+def big_episodes_csv(tmp_path_factory) -> Path:
+    """Large enough for the wide layout to be scored on several threads."""
+    import synth
+
+    return synth.write_episodes(tmp_path_factory.mktemp("big") / "episodes.csv", rows=70_000, dx_columns=6, seed=11)
+
+
+@pytest.mark.parametrize("threads", ["1", "2", "3"])
+def test_wide_in_parallel_parts_equals_cli(run_cli, big_episodes_csv, threads, monkeypatch):
+    """Parts scored on several threads, over Arrow chunks that straddle the
+    parts: same rows, values and summary as the command line."""
+    monkeypatch.setenv("MORBUS_THREADS", threads)
+    opts = {"age": "age", "flags": True}
+    cli = cli_frame(run_cli, big_episodes_csv, opts)
+    text = as_text_frame(big_episodes_csv)
+    table = pa.Table.from_batches(pa.table(text).to_batches(max_chunksize=9_999))
+    assert table.column(0).num_chunks > 3
+    out, prov = morbus.score(table, dx="dx*", provenance=True, **opts)
+    py = out.to_pandas()
+    assert_same(py, cli, score_columns(cli, list(text.columns)))
+    code, _, err = run_cli([a for a in cli_args(big_episodes_csv, opts) if a != "--quiet"])
+    assert code == 0 and prov["report"] == err.strip()
+
+
+@pytest.mark.parametrize("threads", ["1", "2"])
+def test_strict_in_parallel_parts_reports_the_first_row(run_cli, big_episodes_csv, threads, monkeypatch):
+    monkeypatch.setenv("MORBUS_THREADS", threads)
+    text = as_text_frame(big_episodes_csv)
+    # one bad code near the end (second part) and one early (first part)
+    text.loc[60_000, "dx1"] = "LATE?"
+    with pytest.raises(ValueError) as e:
+        morbus.score(text, dx="dx*", strict=True)
+    msg = str(e.value)
+    row = int(msg.split(":")[0].removeprefix("row "))
+    assert row < 60_000
+    late_only = text.copy()
+    for c in [c for c in text.columns if c.startswith("dx")]:
+        late_only[c] = "I10"
+    late_only.loc[60_000, "dx1"] = "LATE?"
+    with pytest.raises(ValueError, match=r"^row 60000: invalid code 'LATE\?' in column 'dx1' \(strict=True\)$"):
+        morbus.score(late_only, dx="dx*", strict=True)
