@@ -532,13 +532,13 @@ mod tests {
         };
         let p = plan(&e, &cfg, &h).unwrap();
         let rows = |r: std::ops::Range<usize>| {
-            let dx = vec![
+            let dx = [
                 vec!["I21", "x1"],
                 vec!["", "G30"],
                 vec!["x1", "x2"],
                 vec!["E11.2", ""],
             ];
-            let ages = vec![
+            let ages = [
                 Age::Missing,
                 Age::Text(b"?"),
                 Age::Number(70.0),
