@@ -138,8 +138,11 @@ def _pandas_fetch(frame: Any, names: List[str]):
 
 
 def _polars_fetch(frame: Any):
+    import polars as pl
+
     def fetch(indices: List[int]):
-        return frame.select([frame.columns[i] for i in indices])
+        # aliases: a column may be used twice (as diagnosis and id)
+        return frame.select([pl.col(frame.columns[i]).alias(f"c{k}") for k, i in enumerate(indices)])
 
     return fetch
 

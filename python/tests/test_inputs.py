@@ -203,6 +203,21 @@ def test_empty_frame():
     assert list(out.columns) == ["dx1"] + SCORES
     out = morbus.score(df, dx="dx1", layout="long", id="dx1")
     assert len(out) == 0
+    for frame in (pl.from_pandas(df), pa.table(df)):
+        out = morbus.score(frame, dx="dx1")
+        names = out.column_names if isinstance(out, pa.Table) else out.columns
+        assert list(names) == ["dx1"] + SCORES
+        assert len(out) == 0
+
+
+def test_a_column_used_twice():
+    """The same column as diagnosis and id (codes grouped by themselves)."""
+    df = pd.DataFrame({"dx1": ["I50", "I21", "I50"]})
+    for frame in (df, pl.from_pandas(df), pa.table(df)):
+        out = morbus.score(frame, dx="dx1", layout="long", id="dx1", index="charlson:count")
+        out = out if isinstance(out, pd.DataFrame) else out.to_pandas()
+        assert out["dx1"].tolist() == ["I50", "I21"]
+        assert out["charlson_count"].tolist() == [1, 1]
 
 
 def test_errors_and_messages():
