@@ -17,6 +17,17 @@ fn main() {
         .expect("code-lists/ must exist")
         .filter_map(|e| e.ok().map(|e| e.path()))
         .filter(|p| p.extension().is_some_and(|x| x == "tsv"))
+        // Upper-case names (VERSIONS.tsv) are project files, not lists; the
+        // same rule as `morbus::lists::is_list_file`.
+        .filter(|p| {
+            let stem = p
+                .file_stem()
+                .map(|s| s.to_string_lossy().into_owned())
+                .unwrap_or_default();
+            let reserved = stem.chars().any(|c| c.is_ascii_uppercase())
+                && !stem.chars().any(|c| c.is_lowercase());
+            !reserved
+        })
         .collect();
     files.sort();
     let mut map = phf_codegen::Map::new();

@@ -99,6 +99,29 @@ pub enum Reading {
 /// ```
 #[inline]
 pub fn read_code(raw: &[u8]) -> Reading {
+    // Fast path for the usual spellings: upper-case letters and digits with
+    // at most a dot after the category (`I509`, `I50.9`, `S72.001A`).
+    if (MIN_CODE_LEN..=MAX_CODE_LEN + 1).contains(&raw.len()) {
+        let mut bytes = [0u8; MAX_CODE_LEN];
+        let mut len = 0usize;
+        let mut clean = true;
+        for (i, &b) in raw.iter().enumerate() {
+            if (b.is_ascii_digit() || b.is_ascii_uppercase()) && len < MAX_CODE_LEN {
+                bytes[len] = b;
+                len += 1;
+            } else if !(b == b'.' && i == MIN_CODE_LEN) {
+                clean = false;
+                break;
+            }
+        }
+        if clean {
+            return shape(bytes, len);
+        }
+    }
+    read_code_slow(raw)
+}
+
+fn read_code_slow(raw: &[u8]) -> Reading {
     let mut bytes = [0u8; MAX_CODE_LEN];
     let mut len = 0usize;
     if raw.len() > MAX_RAW_LEN {
@@ -138,6 +161,12 @@ pub fn read_code(raw: &[u8]) -> Reading {
     if len == 0 {
         return Reading::Empty;
     }
+    shape(bytes, len)
+}
+
+/// Drops an `X` filler and checks the ICD-10 shape of normalised characters.
+#[inline]
+fn shape(mut bytes: [u8; MAX_CODE_LEN], mut len: usize) -> Reading {
     // `X` filler after a three-character category.
     if len > MIN_CODE_LEN && bytes[MIN_CODE_LEN..len].iter().all(|&c| c == b'X') {
         len = MIN_CODE_LEN;

@@ -63,6 +63,19 @@ pub struct Plan {
 /// unmatched columns, a long layout without an id, output columns that
 /// would collide with input columns.
 pub fn plan(engine: &Engine, cfg: &ScoreConfig, header: &Header) -> Result<Plan, Error> {
+    let unsupported = [
+        (cfg.lookback.is_some(), "--lookback"),
+        (cfg.episode.is_some(), "--episode"),
+        (cfg.date.is_some(), "--date"),
+        (cfg.exclude_primary, "--exclude-primary"),
+        (cfg.primary.is_some(), "--primary"),
+        (cfg.poa.is_some(), "--poa"),
+    ];
+    if let Some((_, option)) = unsupported.iter().find(|(set, _)| *set) {
+        return Err(Error::Usage(format!(
+            "{option} is not available when scoring in-memory columns yet"
+        )));
+    }
     let dx = header.columns(&cfg.dx, "diagnosis")?;
     let age = cfg
         .age
@@ -74,18 +87,16 @@ pub fn plan(engine: &Engine, cfg: &ScoreConfig, header: &Header) -> Result<Plan,
             let name = cfg
                 .id
                 .as_deref()
-                .ok_or_else(|| Error::Usage("--layout long needs --id COLUMN".into()))?;
+                .ok_or_else(|| Error::Usage("--layout long needs --id COL".into()))?;
             Some(header.column(name, "id")?)
         }
         Layout::Wide => None,
     };
-    match id {
-        None => {
-            let all: Vec<usize> = (0..header.names.len()).collect();
-            check_collisions(header, engine, &all)?;
-        }
-        Some(i) => check_collisions(header, engine, &[i])?,
-    }
+    let kept: Vec<&str> = match id {
+        None => header.names.iter().map(String::as_str).collect(),
+        Some(i) => vec![header.names[i].as_str()],
+    };
+    check_collisions(&kept, engine)?;
     Ok(Plan { dx, age, id })
 }
 
@@ -290,7 +301,10 @@ impl<'e> Scorer<'e> {
                 strict: cfg.strict,
                 has_age: plan.age.is_some(),
                 dx_names: plan.dx.iter().map(|&i| header.names[i].clone()).collect(),
-                summary: Summary::default(),
+                summary: Summary {
+                    dx_columns: plan.dx.iter().map(|&i| header.names[i].clone()).collect(),
+                    ..Summary::default()
+                },
             },
             unit: engine.unit(),
             values: Vec::with_capacity(engine.columns().len()),
@@ -456,6 +470,25 @@ mod tests {
         };
         let msg = plan(&e, &wide, &clash).unwrap_err().to_string();
         assert!(msg.contains("already exists"), "{msg}");
+    }
+
+    #[test]
+    fn options_of_dated_histories_are_refused() {
+        let e = engine("charlson", false);
+        let h = header(&["pid", "dx1", "when"]);
+        let cfg = ScoreConfig {
+            dx: vec!["dx1".into()],
+            id: Some("pid".into()),
+            date: Some("when".into()),
+            lookback: Some(365),
+            ..ScoreConfig::default()
+        };
+        let err = plan(&e, &cfg, &h).unwrap_err();
+        assert_eq!(err.exit_code(), 2);
+        assert!(
+            err.to_string().starts_with("--lookback is not available"),
+            "{err}"
+        );
     }
 
     fn long_cfg(dx: &str, id: &str) -> ScoreConfig {

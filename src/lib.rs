@@ -13,8 +13,9 @@
 //! - [`matcher`]: from a code to the conditions it claims;
 //! - [`score`]: conditions, hierarchies, weightings, output values;
 //! - [`io`]: streaming delimited text in and out;
-//! - [`pipeline`]: `score` over an extract, wide or long, with its summary.
-//! - [`columnar`]: the same over in-memory columns (Arrow arrays, data frames).
+//! - [`pipeline`]: `score` over an extract, wide or long, with its summary;
+//! - [`columnar`]: `score` over in-memory columns (Arrow arrays, data frames);
+//! - [`provenance`]: what produced an output (tool, lists, options, counts).
 //!
 //! ```
 //! use morbus::lists::Catalogue;
@@ -39,7 +40,9 @@ pub mod io;
 pub mod lists;
 pub mod matcher;
 pub mod pipeline;
+pub mod provenance;
 pub mod score;
+pub mod stats;
 
 pub use error::Error;
 

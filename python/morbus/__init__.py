@@ -16,6 +16,7 @@ decisions about an individual patient.
 
 from __future__ import annotations
 
+import json
 import os
 import sys
 from typing import Any, Dict, List, Optional, Sequence, Tuple, Union
@@ -183,6 +184,7 @@ def score(
     lists: Union[None, str, "os.PathLike[str]", Lists] = None,
     dx_sep: Optional[str] = None,
     strict: bool = False,
+    threads: Optional[int] = None,
     provenance: bool = False,
 ) -> Any:
     """Add comorbidity and frailty scores to an extract (``morbus score``).
@@ -215,11 +217,15 @@ def score(
     - ``dx_sep``: split a diagnosis field holding several codes at this
       character. ``strict``: raise on the first invalid code or unreadable
       age instead of counting it.
+    - ``threads``: threads for the wide layout (default: one per core; the
+      result does not depend on it).
     - ``provenance=True``: return ``(frame, provenance)``, where
-      ``provenance`` is a dict: morbus version, indices, lists (name,
-      version, checksum, origin, source), options, output columns and the
-      run's summary (rows, codes read, invalid codes and the most frequent
-      invalid values, missing and unreadable ages).
+      ``provenance`` is the dict that ``morbus score --provenance FILE``
+      writes as JSON (tool and version; lists used with version, checksum,
+      origin and source; indices; options; output columns; rows, codes read,
+      invalid codes with the most frequent values, missing and unreadable
+      ages), with ``input`` and ``output`` null, plus ``report``: the
+      summary line the command line prints.
 
     Diagnosis columns must hold text: string, large string, string view or
     dictionary (categorical) of those; nulls are empty fields. A numeric
@@ -236,8 +242,8 @@ def score(
     >>> out, prov = morbus.score(df, dx="dx*", provenance=True)
     >>> out[["charlson_quan2011", "hfrs_gilbert2018", "hfrs_gilbert2018_band"]].values.tolist()
     [[3, 1.4, 'low'], [0, 6.8, 'intermediate']]
-    >>> prov["summary"]["codes_read"]
-    4
+    >>> prov["codes"]["read"], prov["lists"][0]["name"]
+    (4, 'charlson')
     """
     kind = _kind(frame)
     dx_items = _as_list(dx, "dx")
@@ -250,6 +256,10 @@ def score(
         raise TypeError("layout must be 'wide' or 'long'")
     if dx_sep is not None and not isinstance(dx_sep, str):
         raise TypeError("dx_sep must be a one-character string")
+    if threads is None:
+        threads = 0
+    elif isinstance(threads, bool) or not isinstance(threads, int) or threads < 1:
+        raise ValueError(f"threads must be a positive whole number, not {threads!r}")
     cat = _catalogue(lists)
 
     if kind == "pandas":
@@ -265,7 +275,7 @@ def score(
         names = list(frame.column_names)
         fetch = _arrow_fetch(frame)
 
-    scores_stream, first_stream, prov = _native.score(
+    scores_stream, first_stream, prov_json, report = _native.score(
         names,
         fetch,
         dx=dx_items,
@@ -278,6 +288,7 @@ def score(
         lists=cat,
         dx_sep=dx_sep,
         strict=bool(strict),
+        threads=threads,
     )
     import pyarrow as pa
 
@@ -287,7 +298,11 @@ def score(
     else:
         first = pa.table(first_stream).column(0)
         out = _long(kind, frame, names.index(id), first, scores)
-    return (out, prov) if provenance else out
+    if not provenance:
+        return out
+    prov = json.loads(prov_json)
+    prov["report"] = report
+    return out, prov
 
 
 def _attach(kind: str, frame: Any, scores: Any) -> Any:

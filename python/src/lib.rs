@@ -26,6 +26,7 @@ use pyo3::types::{PyCapsule, PyDict, PyList};
 use morbus::columnar::{self, Age, Rows, Scorer};
 use morbus::lists::{Catalogue, CodeList, SCALE};
 use morbus::pipeline::{Header, Layout, ScoreConfig, Summary};
+use morbus::provenance::Provenance;
 use morbus::score::{ColumnKind, Engine, IndexSpec, ScoreOptions, Value, DEFAULT_INDICES};
 use morbus::Error;
 
@@ -444,14 +445,13 @@ impl Rows for Part<'_, '_> {
     }
 }
 
-/// Threads for a wide run: `MORBUS_THREADS` when set to a positive number,
-/// else the available cores (at most 8).
-fn threads() -> usize {
-    std::env::var("MORBUS_THREADS")
-        .ok()
-        .and_then(|v| v.trim().parse::<usize>().ok())
-        .filter(|&n| n > 0)
-        .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get().min(8)))
+/// Threads for a wide run: `threads` when positive, else one per core (as
+/// the command line's `--threads`).
+fn thread_count(threads: usize) -> usize {
+    if threads > 0 {
+        return threads;
+    }
+    std::thread::available_parallelism().map_or(1, |n| n.get())
 }
 
 /// Rows from which the wide layout is scored on several threads.
@@ -673,19 +673,6 @@ impl Output {
     }
 }
 
-fn summary_dict<'py>(py: Python<'py>, s: &Summary) -> PyResult<Bound<'py, PyDict>> {
-    let d = PyDict::new(py);
-    d.set_item("rows_read", s.rows_read)?;
-    d.set_item("rows_written", s.rows_written)?;
-    d.set_item("units", s.units)?;
-    d.set_item("codes_read", s.codes_read)?;
-    d.set_item("invalid_codes", s.invalid_codes)?;
-    d.set_item("most_frequent_invalid", s.top_invalid(10))?;
-    d.set_item("missing_ages", s.missing_ages)?;
-    d.set_item("unreadable_ages", s.unreadable_ages)?;
-    Ok(d)
-}
-
 /// Whether a column-resolution error is about a column that is not there
 /// (raised as `KeyError`) rather than a bad request (`ValueError`).
 fn missing_column(cfg: &ScoreConfig, header: &Header) -> bool {
@@ -714,11 +701,12 @@ fn missing_column(cfg: &ScoreConfig, header: &Header) -> bool {
 ///
 /// `names` are the frame's column names; `fetch(indices)` returns an object
 /// exposing `__arrow_c_stream__` with those columns, in that order. Returns
-/// `(scores, first_rows, provenance)`: the score columns as an Arrow stream,
-/// (long layout) the row where each unit first appears as an Arrow stream,
-/// and a dict describing the run.
+/// `(scores, first_rows, provenance, report)`: the score columns as an Arrow
+/// stream, (long layout) the row where each unit first appears as an Arrow
+/// stream, the run's provenance as JSON (that of `morbus score --provenance`)
+/// and its summary line.
 #[pyfunction]
-#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict))]
+#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads))]
 #[allow(clippy::too_many_arguments)]
 fn score<'py>(
     py: Python<'py>,
@@ -734,7 +722,8 @@ fn score<'py>(
     lists: Option<PyRef<'py, PyLists>>,
     dx_sep: Option<String>,
     strict: bool,
-) -> PyResult<(ArrowStream, Option<ArrowStream>, Bound<'py, PyDict>)> {
+    threads: usize,
+) -> PyResult<(ArrowStream, Option<ArrowStream>, String, String)> {
     let builtin;
     let lists: &PyLists = match &lists {
         Some(l) => l,
@@ -786,6 +775,7 @@ fn score<'py>(
         id,
         age,
         strict,
+        threads,
         ..ScoreConfig::default()
     };
     let header = Header { names };
@@ -826,7 +816,7 @@ fn score<'py>(
         .collect::<PyResult<Vec<_>>>()?;
     let total: usize = views.iter().map(|v| v.len).sum();
 
-    let threads = threads();
+    let threads = thread_count(cfg.threads);
     let (result, first_rows, summary) = py
         .detach(|| {
             if layout == Layout::Wide && threads > 1 && total >= PARALLEL_ROWS {
@@ -861,51 +851,14 @@ fn score<'py>(
         ArrowStream::new(vec![batch], schema)
     });
 
-    let prov = PyDict::new(py);
-    prov.set_item("morbus_version", morbus::VERSION)?;
-    prov.set_item(
-        "layout",
-        match layout {
-            Layout::Wide => "wide",
-            Layout::Long => "long",
-        },
-    )?;
-    let indices: Vec<String> = engine
-        .specs()
-        .iter()
-        .map(|s| {
-            let l = &engine.lists()[s.list].list;
-            format!("{}:{}", l.name, l.weightings[s.weighting].name)
-        })
-        .collect();
-    prov.set_item("indices", indices)?;
-    let used_lists = PyList::empty(py);
-    for l in engine.lists() {
-        let d = PyDict::new(py);
-        d.set_item("name", &l.list.name)?;
-        d.set_item("version", &l.list.version)?;
-        d.set_item("checksum", &l.list.checksum)?;
-        d.set_item("origin", l.list.origin.to_string())?;
-        d.set_item("source", &l.list.source)?;
-        used_lists.append(d)?;
-    }
-    prov.set_item("lists", used_lists)?;
-    prov.set_item("list_notes", &lists.notes)?;
-    let opts = PyDict::new(py);
-    opts.set_item("dx", &used_names[..plan.dx.len()])?;
-    opts.set_item("dx_sep", dx_sep.map(|b| (b as char).to_string()))?;
-    opts.set_item("id", plan.id.map(|i| header.names[i].clone()))?;
-    opts.set_item("age", plan.age.map(|i| header.names[i].clone()))?;
-    opts.set_item("flags", flags)?;
-    opts.set_item("hierarchy", hierarchy)?;
-    opts.set_item("strict", strict)?;
-    prov.set_item("options", opts)?;
-    let columns: Vec<&str> = engine.columns().iter().map(|c| c.name.as_str()).collect();
-    prov.set_item("columns", columns)?;
-    prov.set_item("summary", summary_dict(py, &summary)?)?;
-    prov.set_item("report", summary.report())?;
+    let prov = Provenance::new(&engine, &cfg, &summary).to_json();
 
-    Ok((ArrowStream::new(result, schema), first_rows, prov))
+    Ok((
+        ArrowStream::new(result, schema),
+        first_rows,
+        prov,
+        summary.report(),
+    ))
 }
 
 /// Version of the morbus library this extension was built with.

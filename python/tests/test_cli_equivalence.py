@@ -171,16 +171,30 @@ def test_custom_lists_equal_cli(run_cli, episodes_csv, tmp_path):
     assert builtin["charlson_dementia"].sum() > 0
 
 
-def test_summary_matches_cli_report(morbus_bin, episodes_csv):
-    import subprocess
+@pytest.mark.parametrize(
+    "opts",
+    [{"age": "age"}, {"flags": True, "hierarchy": False, "index": "hfrs,charlson:count"}, {"dx": "code", "layout": "long", "id": "patient_id", "age": "age"}],
+    ids=["age", "flags", "long"],
+)
+def test_provenance_and_summary_equal_cli(run_cli, episodes_csv, long_csv, tmp_path, opts):
+    """The provenance dict is the JSON of `morbus score --provenance`, and
+    the report the summary line of its standard error."""
+    import json
 
-    args = cli_args(episodes_csv, {"age": "age"})
-    args.remove("--quiet")
-    p = subprocess.run([str(morbus_bin), *args], capture_output=True, text=True, check=True)
-    _, prov = morbus.score(as_text_frame(episodes_csv), dx="dx*", age="age", provenance=True)
-    assert prov["report"] == p.stderr.strip()
-    s = prov["summary"]
-    assert s["invalid_codes"] > 0 and s["unreadable_ages"] > 0 and s["missing_ages"] > 0
+    path = long_csv if opts.get("layout") == "long" else episodes_csv
+    prov_file = tmp_path / "prov.json"
+    args = [a for a in cli_args(path, opts) if a != "--quiet"] + ["--provenance", str(prov_file)]
+    code, _, err = run_cli(args)
+    assert code == 0, err
+    cli = json.loads(prov_file.read_text())
+    _, prov = morbus.score(as_text_frame(path), provenance=True, **{"dx": "dx*", **opts})
+    assert prov.pop("report") == err.strip()
+    assert cli.pop("input") == str(path) and prov.pop("input") is None
+    assert cli.pop("output") is None and prov.pop("output") is None
+    assert prov == cli
+    assert prov["codes"]["invalid"] > 0 and prov["codes"]["read"] > 0
+    if "age" in opts:
+        assert prov["ages"]["unreadable"] > 0 and prov["ages"]["missing"] > 0
 
 
 @pytest.mark.skipif(not (REPO / "demo-data" / "episodes.csv").exists(), reason="no demo-data/episodes.csv in this checkout")
@@ -214,31 +228,29 @@ def big_episodes_csv(tmp_path_factory) -> Path:
     return synth.write_episodes(tmp_path_factory.mktemp("big") / "episodes.csv", rows=70_000, dx_columns=6, seed=11)
 
 
-@pytest.mark.parametrize("threads", ["1", "2", "3"])
-def test_wide_in_parallel_parts_equals_cli(run_cli, big_episodes_csv, threads, monkeypatch):
+@pytest.mark.parametrize("threads", [1, 2, 3, None])
+def test_wide_in_parallel_parts_equals_cli(run_cli, big_episodes_csv, threads):
     """Parts scored on several threads, over Arrow chunks that straddle the
     parts: same rows, values and summary as the command line."""
-    monkeypatch.setenv("MORBUS_THREADS", threads)
     opts = {"age": "age", "flags": True}
     cli = cli_frame(run_cli, big_episodes_csv, opts)
     text = as_text_frame(big_episodes_csv)
     table = pa.Table.from_batches(pa.table(text).to_batches(max_chunksize=9_999))
     assert table.column(0).num_chunks > 3
-    out, prov = morbus.score(table, dx="dx*", provenance=True, **opts)
+    out, prov = morbus.score(table, dx="dx*", provenance=True, threads=threads, **opts)
     py = out.to_pandas()
     assert_same(py, cli, score_columns(cli, list(text.columns)))
     code, _, err = run_cli([a for a in cli_args(big_episodes_csv, opts) if a != "--quiet"])
     assert code == 0 and prov["report"] == err.strip()
 
 
-@pytest.mark.parametrize("threads", ["1", "2"])
-def test_strict_in_parallel_parts_reports_the_first_row(run_cli, big_episodes_csv, threads, monkeypatch):
-    monkeypatch.setenv("MORBUS_THREADS", threads)
+@pytest.mark.parametrize("threads", [1, 2])
+def test_strict_in_parallel_parts_reports_the_first_row(big_episodes_csv, threads):
     text = as_text_frame(big_episodes_csv)
     # one bad code near the end (second part) and one early (first part)
     text.loc[60_000, "dx1"] = "LATE?"
     with pytest.raises(ValueError) as e:
-        morbus.score(text, dx="dx*", strict=True)
+        morbus.score(text, dx="dx*", strict=True, threads=threads)
     msg = str(e.value)
     row = int(msg.split(":")[0].removeprefix("row "))
     assert row < 60_000
@@ -247,4 +259,4 @@ def test_strict_in_parallel_parts_reports_the_first_row(run_cli, big_episodes_cs
         late_only[c] = "I10"
     late_only.loc[60_000, "dx1"] = "LATE?"
     with pytest.raises(ValueError, match=r"^row 60000: invalid code 'LATE\?' in column 'dx1' \(strict=True\)$"):
-        morbus.score(late_only, dx="dx*", strict=True)
+        morbus.score(late_only, dx="dx*", strict=True, threads=threads)

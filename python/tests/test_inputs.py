@@ -158,14 +158,13 @@ def test_age_columns_of_every_kind(ages):
     points = [4, 0, 3, None, 1, 2, 4]
     want = [None if p is None else b + p for b, p in zip(base, points)]
     assert [None if pd.isna(v) else int(v) for v in got] == want
-    assert prov["summary"]["missing_ages"] == 1
-    assert prov["summary"]["unreadable_ages"] == 0
+    assert prov["ages"] == {"missing": 1, "unreadable": 0}
 
 
 def test_unreadable_ages_are_counted_and_strict_refuses_them():
     df = pd.DataFrame({"dx1": DX1, "dx2": DX2, "age": [-1, 151, 80, 200.5, np.inf, 3, 0]})
     out, prov = morbus.score(df, dx="dx*", age="age", provenance=True)
-    assert prov["summary"]["unreadable_ages"] == 4
+    assert prov["ages"]["unreadable"] == 4
     assert out["charlson_quan2011_age"].isna().tolist() == [True, True, False, True, True, False, False]
     with pytest.raises(ValueError, match=r"^row 0: unreadable age '-1' \(strict=True\)$"):
         morbus.score(df, dx="dx*", age="age", strict=True)
@@ -296,18 +295,31 @@ def test_lists_and_load_lists(tmp_path):
 def test_provenance_describes_the_run():
     df = pd.DataFrame({"dx1": DX1, "dx2": DX2})
     _, prov = morbus.score(df, dx=["dx2", "dx1"], flags=True, provenance=True)
-    assert prov["morbus_version"] == morbus.__version__
-    assert prov["indices"] == ["charlson:quan2011", "elixhauser:vanwalraven2009", "hfrs:gilbert2018"]
+    assert prov["tool"] == {"name": "morbus", "version": morbus.__version__}
+    assert [i["spec"] for i in prov["indices"]] == ["charlson:quan2011", "elixhauser:vanwalraven2009", "hfrs:gilbert2018"]
     assert [l["name"] for l in prov["lists"]] == ["charlson", "elixhauser", "hfrs"]
     assert {l["checksum"] for l in prov["lists"]} == {l["checksum"] for l in morbus.lists()}
     assert prov["options"]["dx"] == ["dx2", "dx1"]
-    assert prov["options"]["flags"] is True
-    s = prov["summary"]
-    assert s["rows_read"] == 7 and s["units"] == 7
-    assert s["codes_read"] == 9 and s["invalid_codes"] == 1
-    assert s["most_frequent_invalid"] == [("N/A", 1)]
+    assert prov["options"]["dx_columns"] == ["dx2", "dx1"]
+    assert prov["options"]["flags"] is True and prov["options"]["hierarchy"] is True
+    assert prov["rows"] == {"read": 7, "written": 7, "units": 7}
+    assert prov["codes"]["read"] == 9 and prov["codes"]["invalid"] == 1
+    assert prov["codes"]["top_invalid"] == [{"value": "N/A", "count": 1}]
+    assert prov["ages"] is None
     assert prov["columns"][:4] == SCORES
     assert prov["report"].startswith("morbus: 7 rows read, 7 rows written")
+    out = morbus.score(df, dx="dx*")
+    assert isinstance(out, pd.DataFrame)  # no provenance unless asked
+
+
+def test_threads_option():
+    df = pd.DataFrame({"dx1": DX1 * 10_000, "dx2": DX2 * 10_000})
+    one = morbus.score(df, dx="dx*", threads=1)
+    three = morbus.score(df, dx="dx*", threads=3)
+    pd.testing.assert_frame_equal(one, three)
+    for bad in (0, -1, 1.5, True):
+        with pytest.raises(ValueError, match="threads must be a positive whole number"):
+            morbus.score(df, dx="dx*", threads=bad)
 
 
 def test_scoring_runs_without_the_gil():

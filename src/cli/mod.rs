@@ -1,15 +1,20 @@
 //! Command-line front end. Parses options, calls the library, prints the
 //! summary and maps errors to exit codes (see [`morbus::error`]).
 
-use std::io::Write;
+use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
 
 use clap::{Args, Parser, Subcommand, ValueEnum};
 
-use morbus::lists::{self, Catalogue};
-use morbus::pipeline::{self, Layout, ScoreConfig};
+use morbus::lists::{self, Catalogue, Loaded};
+use morbus::pipeline::explain::ExplainFormat;
+use morbus::pipeline::{self, DateFormat, Layout, ScoreConfig};
+use morbus::provenance::Provenance;
 use morbus::score::{Engine, IndexSpec, ScoreOptions, DEFAULT_INDICES};
 use morbus::Error;
+
+mod list_cmds;
+mod progress;
 
 #[derive(Parser)]
 #[command(
@@ -31,8 +36,22 @@ struct Cli {
 enum Command {
     /// Add comorbidity and frailty scores to an extract.
     Score(Box<ScoreArgs>),
-    /// Show the available code lists.
+    /// Show, code by code, how each episode's scores come about.
+    Explain(Box<ExplainArgs>),
+    /// Code lists: the table of available lists, or show, export, check, diff.
     Lists(ListsArgs),
+}
+
+#[derive(Args)]
+struct ExplainArgs {
+    #[command(flatten)]
+    input: InputArgs,
+    /// Write JSON lines instead of CSV.
+    #[arg(long)]
+    json: bool,
+    /// Output path (`.gz` compresses); standard output by default.
+    #[arg(long, short, value_name = "PATH")]
+    output: Option<PathBuf>,
 }
 
 #[derive(Clone, Copy, ValueEnum, PartialEq, Eq)]
@@ -60,9 +79,36 @@ struct InputArgs {
     /// Layout of the extract.
     #[arg(long, value_enum, default_value = "wide")]
     layout: LayoutArg,
-    /// Id column: the unit of a long extract (e.g. an episode or patient id).
+    /// Id column: the patient (for --lookback) or the unit of a long extract.
     #[arg(long, value_name = "COL")]
     id: Option<String>,
+    /// Long layout: episode column grouping code rows into episodes (one output row per episode).
+    #[arg(long, value_name = "COL")]
+    episode: Option<String>,
+    /// Episode date column (for --lookback).
+    #[arg(long, value_name = "COL")]
+    date: Option<String>,
+    /// Date pattern with %Y %m %d %b, e.g. '%d/%m/%Y' (default: YYYY-MM-DD).
+    #[arg(long, value_name = "PATTERN")]
+    date_format: Option<String>,
+    /// Score each episode from the same patient's episodes dated within DAYS before it
+    /// (inclusive) and itself; `all` for the whole history.
+    #[arg(long, value_name = "DAYS")]
+    lookback: Option<String>,
+    /// Leave out the primary diagnosis of the episode being scored (wide: the first
+    /// diagnosis column; long: the rows flagged by --primary).
+    #[arg(long)]
+    exclude_primary: bool,
+    /// Long layout: column flagging the primary-diagnosis row (1, y, yes, true, p, primary).
+    #[arg(long, value_name = "COL")]
+    primary: Option<String>,
+    /// Long layout: present-on-admission indicator column; codes of the episode being
+    /// scored count only when it holds one of --poa-values.
+    #[arg(long, value_name = "COL")]
+    poa: Option<String>,
+    /// Present-on-admission values that count, comma-separated.
+    #[arg(long, value_name = "VALUES", default_value = "Y,W")]
+    poa_values: String,
     /// Index specifications LIST[:WEIGHTING], comma-separated or repeated.
     #[arg(long = "index", value_name = "SPEC")]
     index: Vec<String>,
@@ -78,9 +124,12 @@ struct InputArgs {
     /// Treat every warning (invalid code, unreadable age) as an error.
     #[arg(long)]
     strict: bool,
-    /// Do not print the summary on standard error.
+    /// Do not print the summary or the progress line on standard error.
     #[arg(long, short)]
     quiet: bool,
+    /// Worker threads for wide scoring (default: one per core).
+    #[arg(long, value_name = "N", default_value_t = 0)]
+    threads: usize,
 }
 
 #[derive(Args)]
@@ -93,13 +142,61 @@ struct ScoreArgs {
     /// Output path (`.gz` compresses); standard output by default.
     #[arg(long, short, value_name = "PATH")]
     output: Option<PathBuf>,
+    /// Write what produced the output (tool, lists with versions and
+    /// checksums, options, counts) as JSON to this file.
+    #[arg(long, value_name = "FILE")]
+    provenance: Option<PathBuf>,
 }
 
+/// Without a subcommand: a table of the available lists.
 #[derive(Args)]
 struct ListsArgs {
-    /// Also load the lists found in this directory.
-    #[arg(long, value_name = "DIR")]
+    /// Also load the lists found in this directory (they replace built-ins
+    /// of the same name).
+    #[arg(long, value_name = "DIR", global = true)]
     lists: Option<PathBuf>,
+    #[command(subcommand)]
+    command: Option<ListsCommand>,
+}
+
+#[derive(Subcommand)]
+enum ListsCommand {
+    /// Everything a list holds: metadata, conditions with their codes,
+    /// hierarchy, weightings with their weights, age points and bands.
+    Show {
+        /// List name (or path to a list file).
+        name: String,
+        /// Print JSON instead of text.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Write an editable copy DIR/NAME.tsv that `--lists DIR` loads back.
+    Export {
+        /// List name (or path to a list file).
+        name: String,
+        /// Directory to write to (created if needed).
+        dir: PathBuf,
+        /// Replace DIR/NAME.tsv if it exists.
+        #[arg(long)]
+        force: bool,
+    },
+    /// Validate a list file, or every list of a directory: prints each error
+    /// and warning with file and line; exits 2 on errors.
+    Check {
+        /// A list file or a directory of lists.
+        path: PathBuf,
+    },
+    /// What changed from list A to list B: conditions, codes per condition,
+    /// hierarchy, weights, bands, age points, version and sources.
+    Diff {
+        /// List name or path to a list file (before).
+        a: String,
+        /// List name or path to a list file (after).
+        b: String,
+        /// Print JSON instead of text.
+        #[arg(long)]
+        json: bool,
+    },
 }
 
 /// Runs the command line and returns the exit code.
@@ -114,7 +211,8 @@ pub fn run() -> i32 {
     };
     let result = match cli.command {
         Command::Score(a) => score(*a),
-        Command::Lists(a) => list_table(a),
+        Command::Explain(a) => explain(*a),
+        Command::Lists(a) => lists_command(a),
     };
     match result {
         Ok(()) => 0,
@@ -193,7 +291,42 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
     if layout == Layout::Long && a.id.is_none() {
         return Err(Error::Usage("--layout long needs --id COL".into()));
     }
+    let lookback = match a.lookback.as_deref() {
+        None => None,
+        Some("all") => Some(u32::MAX),
+        Some(t) => Some(t.trim().parse::<u32>().map_err(|_| {
+            Error::Usage(format!(
+                "--lookback takes a whole number of days or 'all', not '{t}'"
+            ))
+        })?),
+    };
+    let date_format = match a.date_format.as_deref() {
+        None => DateFormat::Iso,
+        Some(p) => DateFormat::from_pattern(p).ok_or_else(|| {
+            Error::Usage(format!(
+                "--date-format '{p}' must hold %Y, %m (or %b) and %d, e.g. '%d/%m/%Y'"
+            ))
+        })?,
+    };
+    if a.date.is_some() && lookback.is_none() && a.episode.is_none() {
+        return Err(Error::Usage(
+            "--date is used with --lookback DAYS (or 'all')".into(),
+        ));
+    }
     Ok(ScoreConfig {
+        episode: a.episode.clone(),
+        date: a.date.clone(),
+        date_format,
+        lookback,
+        exclude_primary: a.exclude_primary,
+        primary: a.primary.clone(),
+        poa: a.poa.clone(),
+        poa_values: a
+            .poa_values
+            .split(',')
+            .map(|v| v.trim().to_ascii_uppercase())
+            .filter(|v| !v.is_empty())
+            .collect(),
         dx: a.dx.clone(),
         dx_sep: a
             .dx_sep
@@ -205,6 +338,7 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
         age: a.age.clone(),
         delimiter: one_char(&a.delimiter, "--delimiter")?,
         strict: a.strict,
+        threads: a.threads,
         ..ScoreConfig::default()
     })
 }
@@ -212,9 +346,76 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
 fn score(a: ScoreArgs) -> Result<(), Error> {
     let (_cat, engine) = engine_for(&a.input, a.flags)?;
     let cfg = config_for(&a.input)?;
+    // Create the provenance file before the output and the run, so that an
+    // unwritable path fails before any work is done.
+    let provenance_file = a
+        .provenance
+        .as_ref()
+        .map(|p| {
+            std::fs::File::create(p)
+                .map_err(|e| Error::io(format!("cannot write {}", p.display()), e))
+        })
+        .transpose()?;
+    let run = || -> Result<pipeline::Summary, Error> {
+        let input = morbus::io::open_input(a.input.input.as_deref())?;
+        let mut output = morbus::io::open_output(a.output.as_deref())?;
+        let show = !a.input.quiet && std::io::stderr().is_terminal();
+        let mut bar = progress::ProgressLine::new(if input.compressed { None } else { input.size });
+        let result = pipeline::score_stream_observed(
+            &engine,
+            &cfg,
+            input.reader,
+            &mut output.writer,
+            &mut |p| {
+                if show {
+                    bar.update(p)
+                }
+            },
+        );
+        if show {
+            bar.finish();
+        }
+        result
+    };
+    let summary = match run() {
+        Ok(s) => s,
+        Err(e) => {
+            // No provenance for a run that did not finish.
+            if let Some(p) = &a.provenance {
+                let _ = std::fs::remove_file(p);
+            }
+            return Err(e);
+        }
+    };
+    if let (Some(mut file), Some(path)) = (provenance_file, a.provenance.as_ref()) {
+        let shown = |p: &Option<PathBuf>| {
+            p.as_ref()
+                .filter(|p| p.as_os_str() != "-")
+                .map(|p| p.display().to_string())
+        };
+        let prov = Provenance::new(&engine, &cfg, &summary)
+            .with_files(shown(&a.input.input), shown(&a.output));
+        file.write_all(prov.to_json().as_bytes())
+            .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))?;
+    }
+    if !a.input.quiet {
+        eprintln!("{}", summary.report());
+    }
+    Ok(())
+}
+
+fn explain(a: ExplainArgs) -> Result<(), Error> {
+    let (_cat, engine) = engine_for(&a.input, false)?;
+    let cfg = config_for(&a.input)?;
     let input = morbus::io::open_input(a.input.input.as_deref())?;
     let mut output = morbus::io::open_output(a.output.as_deref())?;
-    let summary = pipeline::score_stream(&engine, &cfg, input.reader, &mut output.writer)?;
+    let format = if a.json {
+        ExplainFormat::JsonLines
+    } else {
+        ExplainFormat::Csv
+    };
+    let summary =
+        pipeline::explain_stream(&engine, &cfg, format, input.reader, &mut output.writer)?;
     drop(output);
     if !a.input.quiet {
         eprintln!("{}", summary.report());
@@ -222,10 +423,9 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
     Ok(())
 }
 
-fn list_table(a: ListsArgs) -> Result<(), Error> {
-    let cat = catalogue(a.lists.as_ref(), false)?;
+fn list_table(cat: &Catalogue) -> Result<(), Error> {
     let mut out = std::io::stdout().lock();
-    let rows: Vec<[String; 7]> = cat
+    let rows: Vec<[String; 8]> = cat
         .lists()
         .iter()
         .map(|l| {
@@ -246,6 +446,7 @@ fn list_table(a: ListsArgs) -> Result<(), Error> {
                     .collect::<Vec<_>>()
                     .join(", "),
                 l.checksum[..12].to_string(),
+                l.origin.to_string(),
                 l.source.clone(),
             ]
         })
@@ -257,18 +458,19 @@ fn list_table(a: ListsArgs) -> Result<(), Error> {
         "code entries",
         "weightings",
         "checksum",
+        "origin",
         "source",
     ];
     let mut widths: Vec<usize> = head.iter().map(|h| h.len()).collect();
     for r in &rows {
-        for (w, c) in widths.iter_mut().zip(r.iter()).take(6) {
+        for (w, c) in widths.iter_mut().zip(r.iter()).take(7) {
             *w = (*w).max(c.chars().count());
         }
     }
     let line = |cells: Vec<&str>| -> String {
         let mut s = String::new();
         for (i, c) in cells.iter().enumerate() {
-            if i < 6 {
+            if i < 7 {
                 s.push_str(&format!("{:<w$}  ", c, w = widths[i]));
             } else {
                 s.push_str(c);
@@ -282,4 +484,45 @@ fn list_table(a: ListsArgs) -> Result<(), Error> {
         writeln!(out, "{}", line(r.iter().map(String::as_str).collect())).map_err(w)?;
     }
     Ok(())
+}
+
+fn lists_command(a: ListsArgs) -> Result<(), Error> {
+    match a.command {
+        None => list_table(&catalogue(a.lists.as_ref(), false)?),
+        Some(ListsCommand::Check { path }) => list_cmds::check(&path),
+        Some(ListsCommand::Show { name, json }) => {
+            let cat = catalogue(a.lists.as_ref(), false)?;
+            let l = resolve_list(&name, &cat)?;
+            list_cmds::show(&l.list, json)
+        }
+        Some(ListsCommand::Export { name, dir, force }) => {
+            let cat = catalogue(a.lists.as_ref(), false)?;
+            let l = resolve_list(&name, &cat)?;
+            let path = lists::export_to_dir(&l.list, &dir, force)?;
+            eprintln!(
+                "morbus: wrote list '{}' version {} ({} code entries, checksum {}) to {}",
+                l.list.name,
+                l.list.version,
+                l.list.code_entries(),
+                &l.list.checksum[..12],
+                path.display()
+            );
+            Ok(())
+        }
+        Some(ListsCommand::Diff { a: la, b: lb, json }) => {
+            let cat = catalogue(a.lists.as_ref(), false)?;
+            let left = resolve_list(&la, &cat)?;
+            let right = resolve_list(&lb, &cat)?;
+            list_cmds::diff(&left.list, &right.list, json)
+        }
+    }
+}
+
+/// A list named on the command line, with its warnings printed.
+fn resolve_list(arg: &str, cat: &Catalogue) -> Result<Loaded, Error> {
+    let l = lists::resolve(arg, cat)?;
+    for w in &l.warnings {
+        eprintln!("morbus: {w}");
+    }
+    Ok(l)
 }

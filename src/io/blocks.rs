@@ -107,24 +107,16 @@ impl<R: Read> BlockReader<R> {
     }
 
     fn fill(&mut self, buf: &mut Vec<u8>, want: usize) -> io::Result<()> {
-        while !self.eof && buf.len() < want {
-            let old = buf.len();
-            buf.resize(want, 0);
-            match self.inner.read(&mut buf[old..]) {
-                Ok(0) => {
-                    buf.truncate(old);
-                    self.eof = true;
-                }
-                Ok(n) => {
-                    buf.truncate(old + n);
-                    self.bytes_read += n as u64;
-                }
-                Err(e) if e.kind() == io::ErrorKind::Interrupted => buf.truncate(old),
-                Err(e) => {
-                    buf.truncate(old);
-                    return Err(e);
-                }
-            }
+        if self.eof || buf.len() >= want {
+            return Ok(());
+        }
+        let asked = (want - buf.len()) as u64;
+        // `read_to_end` on a `Take` fills spare capacity without zeroing it
+        // first, and stops at the limit or at the end of the input.
+        let n = (&mut self.inner).take(asked).read_to_end(buf)? as u64;
+        self.bytes_read += n;
+        if n < asked {
+            self.eof = true;
         }
         Ok(())
     }

@@ -11,7 +11,11 @@ use crate::Error;
 /// An opened input: a reader and, for files, the size on disk.
 pub struct Input {
     pub reader: Box<dyn Read + Send>,
+    /// Size on disk, for files.
     pub size: Option<u64>,
+    /// Whether the input is gzip-compressed (its size then says little about
+    /// the bytes the reader will give).
+    pub compressed: bool,
     pub name: String,
 }
 
@@ -38,12 +42,18 @@ pub fn open_input(path: Option<&Path>) -> Result<Input, Error> {
     let head = buffered
         .fill_buf()
         .map_err(|e| Error::io(format!("cannot read {name}"), e))?;
-    let reader: Box<dyn Read + Send> = if head.starts_with(&[0x1f, 0x8b]) {
+    let compressed = head.starts_with(&[0x1f, 0x8b]);
+    let reader: Box<dyn Read + Send> = if compressed {
         Box::new(MultiGzDecoder::new(buffered))
     } else {
         Box::new(buffered)
     };
-    Ok(Input { reader, size, name })
+    Ok(Input {
+        reader,
+        size,
+        compressed,
+        name,
+    })
 }
 
 /// An opened output.

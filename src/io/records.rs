@@ -61,9 +61,22 @@ impl RecordScanner {
         &mut self,
         data: &[u8],
         last: bool,
+        f: impl FnMut(RecordRef<'_>) -> Result<(), E>,
+    ) -> Result<(), E> {
+        self.scan_from(data, 0, last, f)
+    }
+
+    /// Like [`RecordScanner::scan`], starting at byte `start` (a record
+    /// boundary).
+    pub fn scan_from<E>(
+        &mut self,
+        data: &[u8],
+        start: usize,
+        last: bool,
         mut f: impl FnMut(RecordRef<'_>) -> Result<(), E>,
     ) -> Result<(), E> {
-        let mut pos = 0usize;
+        self.core.reset();
+        let mut pos = start;
         loop {
             while pos < data.len() && (data[pos] == b'\n' || data[pos] == b'\r') {
                 pos += 1;

@@ -17,7 +17,8 @@ pub(crate) fn min_decimals(x: i64) -> u32 {
     (0..4).find(|&d| x % 10i64.pow(4 - d) == 0).unwrap_or(4)
 }
 
-fn bound(b: Bound, lower: bool) -> String {
+/// A band bound as written in a list (`*`, `>=5`, `<15`).
+pub(crate) fn bound(b: Bound, lower: bool) -> String {
     let mut v = Vec::new();
     match b {
         Bound::Open => return "*".into(),
@@ -33,7 +34,8 @@ fn bound(b: Bound, lower: bool) -> String {
     String::from_utf8(v).unwrap_or_default()
 }
 
-fn num(x: i64, decimals: u32) -> String {
+/// A scaled number as text with `decimals` decimals.
+pub(crate) fn num(x: i64, decimals: u32) -> String {
     let mut v = Vec::new();
     format_scaled(x, decimals, &mut v);
     String::from_utf8(v).unwrap_or_default()

@@ -4,10 +4,18 @@
 //! Built-in lists are embedded in the binary at build time ([`builtin`]);
 //! user lists are read from files ([`load_file`], [`load_dir`]). Both go
 //! through the same parser ([`parse`]) and the same matcher.
+//!
+//! The list commands live here too, as data for a front end to print:
+//! [`describe`] (`lists show`), [`export_to_dir`] (`lists export`),
+//! [`check_path`] (`lists check`) and [`diff`] (`lists diff`).
 
 pub mod builtin;
 mod canonical;
+pub mod check;
 mod decimal;
+pub mod describe;
+pub mod diff;
+pub mod export;
 pub mod parse;
 
 use std::collections::BTreeMap;
@@ -16,7 +24,11 @@ use std::path::{Path, PathBuf};
 
 use crate::code::Code;
 pub use canonical::{canonical_text, checksum};
+pub use check::{check_path, CheckReport};
 pub use decimal::{format_scaled, parse_scaled, SCALE, SCALE_DECIMALS};
+pub use describe::{describe, Description};
+pub use diff::{diff, ListDiff};
+pub use export::{export_text, export_to_dir};
 pub use parse::{parse, Diagnostic, Severity};
 
 /// Where a list came from.
@@ -182,6 +194,8 @@ pub struct CodeList {
     pub origin: Origin,
     /// SHA-256 of the canonical content, lower-case hex.
     pub checksum: String,
+    /// Line of the `list` record.
+    pub line: usize,
 }
 
 impl CodeList {
@@ -266,11 +280,43 @@ pub fn load_file(path: &Path) -> Result<Loaded, ListError> {
             format!("not UTF-8 text ({e})"),
         )],
     })?;
-    parse(&text, Origin::File(path.to_path_buf()))
+    let mut loaded = parse(&text, Origin::File(path.to_path_buf()))?;
+    if let Some(stem) = path.file_stem().and_then(|s| s.to_str()) {
+        if stem != loaded.list.name {
+            loaded.warnings.insert(
+                0,
+                Diagnostic::warning(
+                    &path.display().to_string(),
+                    loaded.list.line,
+                    format!(
+                        "the file is named '{stem}.tsv' but holds list '{}'; name it '{}.tsv' so that the file and the list agree",
+                        loaded.list.name, loaded.list.name
+                    ),
+                ),
+            );
+        }
+    }
+    Ok(loaded)
 }
 
-/// Loads every `*.tsv` list in a directory, sorted by file name.
-pub fn load_dir(dir: &Path) -> Result<Vec<Loaded>, ListError> {
+/// Whether a file in a list directory is a code list: a `*.tsv` file whose
+/// name is not all upper case. Upper-case names (`VERSIONS.tsv`) are project
+/// files kept beside the lists, never lists.
+pub fn is_list_file(path: &Path) -> bool {
+    if path.extension().is_none_or(|x| x != "tsv") {
+        return false;
+    }
+    let Some(stem) = path.file_stem().and_then(|s| s.to_str()) else {
+        return true;
+    };
+    let reserved =
+        stem.chars().any(|c| c.is_ascii_uppercase()) && !stem.chars().any(|c| c.is_lowercase());
+    !reserved
+}
+
+/// The list files of a directory (see [`is_list_file`]), sorted by name, and
+/// the `*.tsv` files skipped as project files.
+pub fn list_files(dir: &Path) -> Result<(Vec<PathBuf>, Vec<PathBuf>), ListError> {
     let entries = std::fs::read_dir(dir).map_err(|e| ListError {
         diagnostics: vec![Diagnostic::error(
             &dir.display().to_string(),
@@ -278,11 +324,43 @@ pub fn load_dir(dir: &Path) -> Result<Vec<Loaded>, ListError> {
             format!("cannot read list directory: {e}"),
         )],
     })?;
-    let mut paths: Vec<PathBuf> = entries
-        .filter_map(|e| e.ok().map(|e| e.path()))
-        .filter(|p| p.extension().is_some_and(|x| x == "tsv"))
-        .collect();
-    paths.sort();
+    let mut lists = Vec::new();
+    let mut skipped = Vec::new();
+    for p in entries.filter_map(|e| e.ok().map(|e| e.path())) {
+        if is_list_file(&p) {
+            lists.push(p);
+        } else if p.extension().is_some_and(|x| x == "tsv") {
+            skipped.push(p);
+        }
+    }
+    lists.sort();
+    skipped.sort();
+    Ok((lists, skipped))
+}
+
+/// Errors for lists of one directory that share a name.
+pub fn duplicate_names(lists: &[&CodeList]) -> Vec<Diagnostic> {
+    let mut seen: BTreeMap<&str, &CodeList> = BTreeMap::new();
+    let mut out = Vec::new();
+    for l in lists {
+        if let Some(prev) = seen.insert(&l.name, l) {
+            out.push(Diagnostic::error(
+                &l.origin.to_string(),
+                l.line,
+                format!(
+                    "list name '{}' is also used by {} (line {})",
+                    l.name, prev.origin, prev.line
+                ),
+            ));
+        }
+    }
+    out
+}
+
+/// Loads every list of a directory (see [`is_list_file`]), sorted by file
+/// name. Any error in any file fails the whole directory.
+pub fn load_dir(dir: &Path) -> Result<Vec<Loaded>, ListError> {
+    let (paths, _) = list_files(dir)?;
     let mut out = Vec::new();
     let mut diagnostics = Vec::new();
     for p in paths {
@@ -291,22 +369,33 @@ pub fn load_dir(dir: &Path) -> Result<Vec<Loaded>, ListError> {
             Err(e) => diagnostics.extend(e.diagnostics),
         }
     }
-    if !diagnostics.is_empty() {
+    diagnostics.extend(duplicate_names(
+        &out.iter().map(|l| &l.list).collect::<Vec<_>>(),
+    ));
+    if diagnostics.iter().any(|d| d.severity == Severity::Error) {
         return Err(ListError { diagnostics });
     }
-    let mut seen = BTreeMap::new();
-    for l in &out {
-        if let Some(prev) = seen.insert(l.list.name.clone(), l.list.origin.to_string()) {
-            return Err(ListError {
-                diagnostics: vec![Diagnostic::error(
-                    &l.list.origin.to_string(),
-                    1,
-                    format!("list name '{}' is also used by {prev}", l.list.name),
-                )],
-            });
-        }
-    }
     Ok(out)
+}
+
+/// A list named on a command line: a path to a list file (when such a file
+/// exists, or the text contains a `/` or ends in `.tsv`), or else the name of
+/// a list of the catalogue.
+pub fn resolve(arg: &str, catalogue: &Catalogue) -> Result<Loaded, crate::Error> {
+    let path = Path::new(arg);
+    if path.is_file() || arg.contains(['/', '\\']) || arg.ends_with(".tsv") {
+        return Ok(load_file(path)?);
+    }
+    match catalogue.get(arg) {
+        Some(l) => Ok(Loaded {
+            list: l.clone(),
+            warnings: Vec::new(),
+        }),
+        None => Err(crate::Error::Usage(format!(
+            "no list named '{arg}' and no such file; available lists: {}",
+            catalogue.names().join(", ")
+        ))),
+    }
 }
 
 /// The lists available to a run: the built-ins, replaced or extended by lists

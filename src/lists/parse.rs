@@ -182,6 +182,7 @@ pub fn parse(text: &str, origin: Origin) -> Result<Loaded, ListError> {
         diags: Vec::new(),
     };
     let mut name: Option<String> = None;
+    let mut name_line = 0;
     let mut version: Option<String> = None;
     let mut title = String::new();
     let mut editions = Vec::new();
@@ -243,6 +244,7 @@ pub fn parse(text: &str, origin: Origin) -> Result<Loaded, ListError> {
                     name = Some(String::new());
                 } else {
                     name = Some(f(1).to_string());
+                    name_line = line;
                 }
             }
             "version" => {
@@ -482,7 +484,7 @@ pub fn parse(text: &str, origin: Origin) -> Result<Loaded, ListError> {
         let names: Vec<&str> = cycle.iter().map(|&c| conditions[c].key.as_str()).collect();
         let line = hierarchy
             .iter()
-            .find(|h| h.superior == cycle[0])
+            .find(|h| h.superior == cycle[0] && cycle.get(1) == Some(&h.inferior))
             .map_or(0, |h| h.line);
         cx.err(
             line,
@@ -648,6 +650,7 @@ pub fn parse(text: &str, origin: Origin) -> Result<Loaded, ListError> {
         age_points,
         origin,
         checksum: String::new(),
+        line: name_line,
     };
     list.checksum = checksum(&list);
     cx.diags.sort_by_key(|d| d.line);

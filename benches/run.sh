@@ -1,0 +1,88 @@
+#!/usr/bin/env bash
+# Benchmarks of morbus against the practical floor (a plain read-and-rewrite
+# of the same file with the csv crate). Prints one table row per scenario:
+# best wall time of RUNS runs, rows per second, peak memory, ratio to the
+# floor. Not a test: figures go into the README's performance table.
+#
+#   bash benches/run.sh            # 1,000,000-episode scenarios
+#   SIZES="1000000 10000000" bash benches/run.sh
+#   SCENARIOS="wide long" bash benches/run.sh
+set -euo pipefail
+cd "$(dirname "$0")/.."
+RUNS=${RUNS:-3}
+SIZES=${SIZES:-1000000}
+SCENARIOS=${SCENARIOS:-"wide long lookback explain compare python"}
+DATA=${DATA:-bench-data}
+mkdir -p "$DATA"
+cargo build --release -q -p morbus -p morbus-bench
+BIN=target/release
+MORBUS=$BIN/morbus
+
+# best_of CMD...: prints "seconds peak_kb" of the fastest of RUNS runs
+best_of() {
+  local best="" mem=""
+  for _ in $(seq "$RUNS"); do
+    local out
+    out=$( { /usr/bin/time -f "%e %M" "$@" >/dev/null 2>/dev/null; } 2>&1 | tail -1)
+    local t=${out% *} m=${out#* }
+    if [ -z "$best" ] || awk "BEGIN{exit !($t < $best)}"; then best=$t; mem=$m; fi
+  done
+  echo "$best $mem"
+}
+
+row() { # scenario rows seconds kb floor_seconds
+  awk -v s="$1" -v n="$2" -v t="$3" -v m="$4" -v f="$5" 'BEGIN{
+    rate = (t > 0) ? n / t : 0;
+    ratio = (f > 0) ? sprintf("%.2f", t / f) : "-";
+    printf "| %-34s | %12d | %8.2f s | %12.0f /s | %7.0f MB | %6s |\n", s, n, t, rate, m / 1024, ratio }'
+}
+
+echo "| scenario | episodes | time | episodes/s | peak memory | ratio to read-and-rewrite |"
+echo "|---|---:|---:|---:|---:|---:|"
+for n in $SIZES; do
+  wide="$DATA/wide-$n.csv"
+  long="$DATA/long-$n.csv"
+  patients=$(( n * 3 / 10 ))
+  [ -f "$wide" ] || $BIN/synth --episodes "$n" --patients "$patients" --fields 20 --seed 11 -q -o "$wide"
+  read -r floor floor_mem < <(best_of $BIN/rewrite "$wide" "$DATA/out.csv")
+  row "read-and-rewrite (floor), wide" "$n" "$floor" "$floor_mem" "$floor"
+  for s in $SCENARIOS; do
+    case $s in
+      wide)
+        read -r t m < <(best_of $MORBUS score "$wide" --dx 'dx*' -q -o "$DATA/out.csv")
+        row "score, wide, 3 default indices" "$n" "$t" "$m" "$floor"
+        read -r t1 m1 < <(best_of $MORBUS score "$wide" --dx 'dx*' -q --threads 1 -o "$DATA/out.csv")
+        row "score, wide, one thread" "$n" "$t1" "$m1" "$floor"
+        ;;
+      long)
+        [ -f "$long" ] || $BIN/synth --episodes "$n" --patients "$patients" --fields 20 --seed 11 --layout long -q -o "$long"
+        read -r lfloor _ < <(best_of $BIN/rewrite "$long" "$DATA/out.csv")
+        read -r t m < <(best_of $MORBUS score "$long" --layout long --id episode_id --dx code -q -o "$DATA/out.csv")
+        row "score, long (one code per row)" "$n" "$t" "$m" "$lfloor"
+        ;;
+      lookback)
+        read -r t m < <(best_of $MORBUS score "$wide" --dx 'dx*' --id patient_id --date admission_date --lookback 730 -q -o "$DATA/out.csv")
+        row "score, wide, 730-day lookback" "$n" "$t" "$m" "$floor"
+        ;;
+      explain)
+        if [ "$n" -le 1000000 ]; then
+          read -r t m < <(best_of $MORBUS explain "$wide" --dx 'dx*' -q -o "$DATA/out.csv")
+          row "explain, wide" "$n" "$t" "$m" "$floor"
+        fi
+        ;;
+      compare)
+        if $MORBUS compare --help >/dev/null 2>&1; then
+          read -r t m < <(best_of $MORBUS compare "$wide" --dx 'dx*' --outcome died_within_30_days \
+            --index charlson:charlson1987,charlson:quan2011,charlson:count,elixhauser:vanwalraven2009,elixhauser:count,hfrs:gilbert2018)
+          row "compare, 6 index specifications" "$n" "$t" "$m" "$floor"
+        fi
+        ;;
+      python)
+        if [ -x python/.venv/bin/python ] && [ -f python/bench.py ]; then
+          python/.venv/bin/python python/bench.py --rows "$n" --csv "$wide" | sed 's/^/python: /' >&2 || true
+        fi
+        ;;
+    esac
+  done
+  echo "input: $(du -h "$wide" | cut -f1) wide, $(nproc) cores" >&2
+done

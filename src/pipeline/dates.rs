@@ -1,0 +1,207 @@
+//! Episode dates: ISO `YYYY-MM-DD` by default (a time after it, as in
+//! `2024-03-01T10:00` or `2024-03-01 10:00:00`, is ignored), or a pattern of
+//! `%Y` (4-digit year), `%m` (month, 1 or 2 digits), `%d` (day, 1 or 2
+//! digits), `%b` (English month abbreviation) and literal characters, such as
+//! `%d/%m/%Y`. Dates become whole days since 1970-01-01.
+
+use std::fmt;
+
+/// How dates are written in the extract.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub enum DateFormat {
+    Iso,
+    Pattern(String),
+}
+
+impl fmt::Display for DateFormat {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            DateFormat::Iso => f.write_str("%Y-%m-%d"),
+            DateFormat::Pattern(p) => f.write_str(p),
+        }
+    }
+}
+
+impl DateFormat {
+    /// Parses a `--date-format` value; `None` if it lacks `%Y`, `%m`/`%b` or
+    /// `%d`, or holds another `%` directive.
+    pub fn from_pattern(p: &str) -> Option<DateFormat> {
+        if p == "%Y-%m-%d" || p.eq_ignore_ascii_case("iso") {
+            return Some(DateFormat::Iso);
+        }
+        let mut it = p.chars();
+        let (mut y, mut m, mut d) = (false, false, false);
+        while let Some(c) = it.next() {
+            if c == '%' {
+                match it.next() {
+                    Some('Y') => y = true,
+                    Some('m') | Some('b') => m = true,
+                    Some('d') => d = true,
+                    _ => return None,
+                }
+            }
+        }
+        (y && m && d).then(|| DateFormat::Pattern(p.to_string()))
+    }
+
+    /// Days since 1970-01-01, or `None` if the text is not a valid date.
+    pub fn parse(&self, text: &[u8]) -> Option<i32> {
+        match self {
+            DateFormat::Iso => {
+                if text.len() < 10 {
+                    return None;
+                }
+                if text.len() > 10 && !matches!(text[10], b'T' | b' ') {
+                    return None;
+                }
+                let t = &text[..10];
+                if t[4] != b'-' || t[7] != b'-' {
+                    return None;
+                }
+                let y = digits(&t[0..4])?;
+                let m = digits(&t[5..7])?;
+                let d = digits(&t[8..10])?;
+                days_from_civil(y as i32, m, d)
+            }
+            DateFormat::Pattern(p) => parse_pattern(p.as_bytes(), text),
+        }
+    }
+}
+
+fn digits(t: &[u8]) -> Option<u32> {
+    if t.is_empty() || !t.iter().all(u8::is_ascii_digit) {
+        return None;
+    }
+    Some(t.iter().fold(0u32, |a, &b| a * 10 + (b - b'0') as u32))
+}
+
+const MONTHS: [&[u8; 3]; 12] = [
+    b"jan", b"feb", b"mar", b"apr", b"may", b"jun", b"jul", b"aug", b"sep", b"oct", b"nov", b"dec",
+];
+
+fn parse_pattern(p: &[u8], t: &[u8]) -> Option<i32> {
+    let (mut y, mut m, mut d) = (None, None, None);
+    let (mut i, mut j) = (0, 0);
+    while i < p.len() {
+        if p[i] == b'%' && i + 1 < p.len() {
+            let dir = p[i + 1];
+            i += 2;
+            match dir {
+                b'Y' => {
+                    y = Some(digits(t.get(j..j + 4)?)?);
+                    j += 4;
+                }
+                b'm' | b'd' => {
+                    let n = t[j..]
+                        .iter()
+                        .take(2)
+                        .take_while(|c| c.is_ascii_digit())
+                        .count();
+                    let v = digits(&t[j..j + n])?;
+                    j += n;
+                    if dir == b'm' {
+                        m = Some(v)
+                    } else {
+                        d = Some(v)
+                    }
+                }
+                b'b' => {
+                    let w = t.get(j..j + 3)?.to_ascii_lowercase();
+                    m = Some(MONTHS.iter().position(|mo| mo[..] == w[..])? as u32 + 1);
+                    j += 3;
+                }
+                _ => return None,
+            }
+        } else {
+            if t.get(j) != Some(&p[i]) {
+                return None;
+            }
+            i += 1;
+            j += 1;
+        }
+    }
+    // Anything after the pattern must be a time part.
+    if j < t.len() && !matches!(t[j], b'T' | b' ') {
+        return None;
+    }
+    days_from_civil(y? as i32, m?, d?)
+}
+
+fn is_leap(y: i32) -> bool {
+    (y % 4 == 0 && y % 100 != 0) || y % 400 == 0
+}
+
+/// Days since 1970-01-01 of a proleptic Gregorian date, validated.
+pub fn days_from_civil(y: i32, m: u32, d: u32) -> Option<i32> {
+    if !(1..=12).contains(&m) || !(1000..=9999).contains(&y) {
+        return None;
+    }
+    let dim = [
+        31,
+        if is_leap(y) { 29 } else { 28 },
+        31,
+        30,
+        31,
+        30,
+        31,
+        31,
+        30,
+        31,
+        30,
+        31,
+    ];
+    if d == 0 || d > dim[(m - 1) as usize] {
+        return None;
+    }
+    // H. Hinnant's days_from_civil.
+    let y = if m <= 2 { y - 1 } else { y };
+    let era = if y >= 0 { y } else { y - 399 } / 400;
+    let yoe = y - era * 400;
+    let mp = (m as i32 + 9) % 12;
+    let doy = (153 * mp + 2) / 5 + d as i32 - 1;
+    let doe = yoe * 365 + yoe / 4 - yoe / 100 + doy;
+    Some(era * 146_097 + doe - 719_468)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn iso_dates() {
+        let f = DateFormat::Iso;
+        assert_eq!(f.parse(b"1970-01-01"), Some(0));
+        assert_eq!(f.parse(b"1970-01-02"), Some(1));
+        assert_eq!(f.parse(b"2000-03-01"), Some(11_017));
+        assert_eq!(
+            f.parse(b"2024-02-29"),
+            f.parse(b"2024-03-01").map(|d| d - 1)
+        );
+        assert_eq!(f.parse(b"2024-03-01T10:00:00"), f.parse(b"2024-03-01"));
+        assert_eq!(f.parse(b"2023-02-29"), None);
+        assert_eq!(f.parse(b"2023-13-01"), None);
+        assert_eq!(f.parse(b"2023-1-01"), None);
+        assert_eq!(f.parse(b"01/02/2023"), None);
+        assert_eq!(f.parse(b"2023-01-01x"), None);
+        // 2 years of 365 and 366 days
+        assert_eq!(
+            f.parse(b"2025-01-01").unwrap() - f.parse(b"2023-01-01").unwrap(),
+            365 + 366
+        );
+    }
+
+    #[test]
+    fn patterns() {
+        let f = DateFormat::from_pattern("%d/%m/%Y").unwrap();
+        assert_eq!(f.parse(b"29/02/2024"), DateFormat::Iso.parse(b"2024-02-29"));
+        assert_eq!(f.parse(b"1/2/2024"), DateFormat::Iso.parse(b"2024-02-01"));
+        assert_eq!(f.parse(b"31/04/2024"), None);
+        let f = DateFormat::from_pattern("%d-%b-%Y").unwrap();
+        assert_eq!(
+            f.parse(b"05-Mar-2021"),
+            DateFormat::Iso.parse(b"2021-03-05")
+        );
+        assert!(DateFormat::from_pattern("%d/%m").is_none());
+        assert!(DateFormat::from_pattern("%Y-%j").is_none());
+    }
+}

@@ -1,0 +1,263 @@
+//! `explain`: one row per (episode, matched code, index, condition) with
+//! where the code came from and whether it counted, and a total row per
+//! episode and index.
+
+use std::io::{Read, Write};
+
+use super::history::History;
+use super::{Exclusion, ScoreConfig, Summary};
+use crate::io::write_field;
+use crate::lists::format_scaled;
+use crate::score::Engine;
+use crate::Error;
+
+/// Output format of `explain`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum ExplainFormat {
+    Csv,
+    JsonLines,
+}
+
+/// Why a matched code does or does not add its weight.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub enum Status {
+    /// Adds its weight.
+    Counted,
+    /// Another code of the unit already counted this condition.
+    Repeated,
+    /// The hierarchy removed the condition: a superior condition is present.
+    SupersededBy(String),
+    /// Left out of the episode being scored.
+    Excluded(Exclusion),
+}
+
+impl Status {
+    pub fn label(&self) -> String {
+        match self {
+            Status::Counted => "counted".into(),
+            Status::Repeated => "repeated".into(),
+            Status::SupersededBy(k) => format!("superseded_by:{k}"),
+            Status::Excluded(Exclusion::Primary) => "excluded:primary_diagnosis".into(),
+            Status::Excluded(Exclusion::NotPresentOnAdmission) => {
+                "excluded:not_present_on_admission".into()
+            }
+        }
+    }
+}
+
+fn iso(days: Option<i32>) -> String {
+    let Some(z) = days else {
+        return String::new();
+    };
+    // H. Hinnant's civil_from_days.
+    let z = z as i64 + 719_468;
+    let era = z.div_euclid(146_097);
+    let doe = z - era * 146_097;
+    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
+    let y = yoe + era * 400;
+    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    let mp = (5 * doy + 2) / 153;
+    let d = doy - (153 * mp + 2) / 5 + 1;
+    let m = if mp < 10 { mp + 3 } else { mp - 9 };
+    let y = if m <= 2 { y + 1 } else { y };
+    format!("{y:04}-{m:02}-{d:02}")
+}
+
+fn json_str(s: &str) -> String {
+    serde_json::to_string(s).unwrap_or_else(|_| "\"\"".into())
+}
+
+/// Runs `explain` over an extract.
+pub fn explain_stream(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    format: ExplainFormat,
+    input: impl Read + Send,
+    output: &mut dyn Write,
+) -> Result<Summary, Error> {
+    let (hist, mut summary) = History::read(engine, cfg, input, true)?;
+    let windows = hist.windows(cfg.lookback);
+    let resolved = hist.resolve(engine, &windows);
+    let w = hist.words();
+    let p = &hist.plan;
+    let d = cfg.delimiter;
+
+    // Codes per episode, in input order.
+    let mut by_episode: Vec<Vec<usize>> = vec![Vec::new(); hist.episodes.len()];
+    for (i, c) in hist.codes.iter().enumerate() {
+        by_episode[c.episode as usize].push(i);
+    }
+
+    let id_name = p.id.map(|c| p.header.names[c].clone());
+    let episode_name = p.episode.map(|c| p.header.names[c].clone());
+    let mut head: Vec<String> = Vec::new();
+    if let Some(n) = &id_name {
+        head.push(n.clone());
+    }
+    if let Some(n) = &episode_name {
+        head.push(n.clone());
+    }
+    head.push("row".into());
+    for h in [
+        "index",
+        "source_row",
+        "source_date",
+        "code_as_written",
+        "code",
+        "condition",
+        "weight",
+        "status",
+    ] {
+        head.push(h.into());
+    }
+
+    let mut out: Vec<u8> = Vec::new();
+    let write_err = |e| Error::io("cannot write output", e);
+    let emit = |out: &mut Vec<u8>, cells: &[String]| match format {
+        ExplainFormat::Csv => {
+            for (i, c) in cells.iter().enumerate() {
+                if i > 0 {
+                    out.push(d);
+                }
+                write_field(c.as_bytes(), d, out);
+            }
+            out.push(b'\n');
+        }
+        ExplainFormat::JsonLines => {
+            out.push(b'{');
+            for (i, (k, v)) in head.iter().zip(cells).enumerate() {
+                if i > 0 {
+                    out.push(b',');
+                }
+                out.extend_from_slice(json_str(k).as_bytes());
+                out.push(b':');
+                out.extend_from_slice(json_str(v).as_bytes());
+            }
+            out.extend_from_slice(b"}\n");
+        }
+    };
+    if format == ExplainFormat::Csv {
+        let h = head.clone();
+        emit(&mut out, &h);
+    }
+
+    let mut order: Vec<u32> = Vec::new();
+    for (e, ep) in hist.episodes.iter().enumerate() {
+        let final_bits = &resolved[e * w..(e + 1) * w];
+        // The current episode first, then the window's others, most recent
+        // first.
+        let (lo, hi) = windows.range[e];
+        order.clear();
+        order.push(e as u32);
+        let mut others: Vec<u32> = windows.sorted[lo as usize..hi as usize]
+            .iter()
+            .copied()
+            .filter(|&f| f as usize != e)
+            .collect();
+        others.reverse();
+        order.extend(others);
+
+        let mut prefix: Vec<String> = Vec::new();
+        if id_name.is_some() {
+            prefix.push(String::from_utf8_lossy(&hist.patients[ep.patient as usize]).into_owned());
+        }
+        if episode_name.is_some() {
+            prefix.push(String::from_utf8_lossy(hist.key(e)).into_owned());
+        }
+        prefix.push(ep.row.to_string());
+
+        for (si, spec) in engine.specs().iter().enumerate() {
+            let sel = &engine.lists()[spec.list];
+            let list = &sel.list;
+            let weighting = &list.weightings[spec.weighting];
+            let decimals = weighting.decimals;
+            let mut counted = vec![false; list.conditions.len()];
+            let mut total = 0i64;
+            for &src in &order {
+                let src_ep = &hist.episodes[src as usize];
+                for &ci in &by_episode[src as usize] {
+                    let rec = &hist.codes[ci];
+                    let mut hits: Vec<usize> = Vec::new();
+                    engine.matcher().for_each_hit(&rec.code, |id| {
+                        let id = id as usize;
+                        if id >= sel.offset && id < sel.offset + list.conditions.len() {
+                            hits.push(id - sel.offset);
+                        }
+                    });
+                    hits.sort_unstable();
+                    hits.dedup();
+                    for c in hits {
+                        let status = if src as usize == e && rec.exclusion.is_some() {
+                            Status::Excluded(rec.exclusion.unwrap_or(Exclusion::Primary))
+                        } else if !Engine::has(final_bits, sel.offset + c) {
+                            let sup = list
+                                .hierarchy
+                                .iter()
+                                .find(|h| {
+                                    h.inferior == c
+                                        && Engine::has(final_bits, sel.offset + h.superior)
+                                })
+                                .or_else(|| list.hierarchy.iter().find(|h| h.inferior == c))
+                                .map(|h| list.conditions[h.superior].key.clone())
+                                .unwrap_or_default();
+                            Status::SupersededBy(sup)
+                        } else if counted[c] {
+                            Status::Repeated
+                        } else {
+                            counted[c] = true;
+                            total += weighting.weights[c];
+                            Status::Counted
+                        };
+                        let mut weight = Vec::new();
+                        format_scaled(weighting.weights[c], decimals, &mut weight);
+                        let mut cells = prefix.clone();
+                        cells.push(format!("{}:{}", list.name, weighting.name));
+                        cells.push(src_ep.row.to_string());
+                        cells.push(iso(src_ep.date));
+                        cells.push(String::from_utf8_lossy(&rec.written).trim().to_string());
+                        cells.push(rec.code.to_string());
+                        cells.push(list.conditions[c].key.clone());
+                        cells.push(String::from_utf8_lossy(&weight).into_owned());
+                        cells.push(status.label());
+                        emit(&mut out, &cells);
+                    }
+                }
+            }
+            debug_assert_eq!(total, engine.score(final_bits, si));
+            let score = engine.score(final_bits, si);
+            let mut total_row = |scaled: i64, status: String| {
+                let mut cells = prefix.clone();
+                cells.push(format!("{}:{}", list.name, weighting.name));
+                cells.extend([
+                    String::new(),
+                    iso(ep.date),
+                    String::new(),
+                    String::new(),
+                    String::new(),
+                ]);
+                let mut t = Vec::new();
+                format_scaled(scaled, decimals, &mut t);
+                cells.push(String::from_utf8_lossy(&t).into_owned());
+                cells.push(status);
+                emit(&mut out, &cells);
+            };
+            total_row(score, "total".into());
+            if let (Some(age), true) = (ep.age, engine.options().age && !list.age_points.is_empty())
+            {
+                total_row(
+                    score + list.points_for_age(age),
+                    format!("total_with_age:{age}"),
+                );
+            }
+        }
+        summary.units += 1;
+        if out.len() > 1 << 20 {
+            output.write_all(&out).map_err(write_err)?;
+            out.clear();
+        }
+    }
+    summary.rows_written = summary.units;
+    output.write_all(&out).map_err(write_err)?;
+    output.flush().map_err(write_err)?;
+    Ok(summary)
+}

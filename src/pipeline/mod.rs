@@ -1,0 +1,657 @@
+//! Running an index over a delimited extract.
+//!
+//! - [`stream`]: no lookback: wide extracts stream in constant memory, every
+//!   row out in input order with its bytes untouched; long extracts group
+//!   code rows by unit.
+//! - [`history`]: lookback over a patient's dated episodes (and `explain`):
+//!   the extract is read into memory, each episode is scored from its own
+//!   codes and those of the same patient's episodes inside the window.
+//!
+//! Both read records through the same column plan ([`Plan`]) and the same
+//! code reading ([`Plan::read_codes`]), so exclusions and counting agree.
+
+pub mod dates;
+pub mod explain;
+pub mod history;
+mod parallel;
+mod stream;
+
+use std::collections::HashMap;
+use std::io::{Read, Write};
+
+use crate::code::{Code, Reading};
+use crate::io::{Block, Fields, RecordRef};
+use crate::score::{read_age, Engine};
+use crate::Error;
+pub use dates::DateFormat;
+pub use explain::explain_stream;
+
+/// How the extract is laid out.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Layout {
+    /// One row per episode with several diagnosis columns.
+    Wide,
+    /// One code per row; rows grouped by an id column (and an episode
+    /// column, when given).
+    Long,
+}
+
+/// Present-on-admission indicator values that count by default: `Y` (yes)
+/// and `W` (clinically undetermined), following the US present-on-admission
+/// reporting convention (common practice).
+pub const DEFAULT_POA_VALUES: &[&str] = &["Y", "W"];
+
+/// Options of a scoring run over delimited text.
+#[derive(Clone, Debug)]
+pub struct ScoreConfig {
+    /// Diagnosis columns: names and/or glob patterns.
+    pub dx: Vec<String>,
+    /// Splits a field holding several codes.
+    pub dx_sep: Option<u8>,
+    pub layout: Layout,
+    /// Patient (or unit) id column.
+    pub id: Option<String>,
+    /// Episode column (long layout): groups code rows into episodes.
+    pub episode: Option<String>,
+    /// Episode date column.
+    pub date: Option<String>,
+    pub date_format: DateFormat,
+    /// Lookback window in days (`u32::MAX`: the whole history).
+    pub lookback: Option<u32>,
+    /// Leave the primary diagnosis of the episode being scored out.
+    pub exclude_primary: bool,
+    /// Long layout: column flagging the primary-diagnosis row.
+    pub primary: Option<String>,
+    /// Long layout: present-on-admission indicator column.
+    pub poa: Option<String>,
+    /// Indicator values that count (upper-cased).
+    pub poa_values: Vec<String>,
+    /// Age column (whole years).
+    pub age: Option<String>,
+    /// Field delimiter (default `,`).
+    pub delimiter: u8,
+    /// Stop at the first warning (invalid code, unreadable age or date).
+    pub strict: bool,
+    /// Preferred block size in bytes.
+    pub block_size: usize,
+    /// Worker threads for the wide layout without lookback (0: one per core).
+    pub threads: usize,
+}
+
+/// How far a run has got, for a progress display.
+#[derive(Clone, Copy, Debug, Default)]
+pub struct Progress {
+    /// Bytes read from the (decompressed) input.
+    pub bytes_read: u64,
+    /// Data rows read.
+    pub rows: u64,
+}
+
+impl Default for ScoreConfig {
+    fn default() -> Self {
+        ScoreConfig {
+            dx: Vec::new(),
+            dx_sep: None,
+            layout: Layout::Wide,
+            id: None,
+            episode: None,
+            date: None,
+            date_format: DateFormat::Iso,
+            lookback: None,
+            exclude_primary: false,
+            primary: None,
+            poa: None,
+            poa_values: DEFAULT_POA_VALUES.iter().map(|s| s.to_string()).collect(),
+            age: None,
+            delimiter: b',',
+            strict: false,
+            block_size: 1 << 20,
+            threads: 0,
+        }
+    }
+}
+
+/// Distinct invalid values remembered for the summary.
+const INVALID_VALUES_KEPT: usize = 10_000;
+
+/// What a run read, wrote and could not read.
+#[derive(Clone, Debug, Default, PartialEq, Eq)]
+pub struct Summary {
+    /// Data rows read (the header is not counted).
+    pub rows_read: u64,
+    /// Data rows written.
+    pub rows_written: u64,
+    /// Non-empty diagnosis values that were valid codes.
+    pub codes_read: u64,
+    /// Non-empty diagnosis values that were not ICD-10-shaped.
+    pub invalid_codes: u64,
+    /// Invalid values and their counts (at most 10,000 distinct kept).
+    pub invalid_values: HashMap<Vec<u8>, u64>,
+    /// Age fields that were empty.
+    pub missing_ages: u64,
+    /// Age fields that held something other than an age.
+    pub unreadable_ages: u64,
+    /// Units scored (episodes, or ids in a long extract without episodes).
+    pub units: u64,
+    /// Episodes with an empty date (scored from their own codes alone).
+    pub missing_dates: u64,
+    /// Episodes whose date could not be read (scored from their own codes
+    /// alone).
+    pub unreadable_dates: u64,
+    /// Codes of episodes being scored left out as their primary diagnosis.
+    pub excluded_primary: u64,
+    /// Codes of episodes being scored left out as not present on admission.
+    pub excluded_not_on_admission: u64,
+    /// The diagnosis columns read, as resolved from the names and patterns
+    /// of [`ScoreConfig::dx`].
+    pub dx_columns: Vec<String>,
+}
+
+impl Summary {
+    /// Adds the counts of a run over later rows (e.g. another part of a
+    /// frame scored on another thread). The distinct invalid values kept are
+    /// those of `self`, then the new ones of `later`, up to the same limit.
+    /// The diagnosis columns are `self`'s (or `later`'s when `self` has none).
+    pub fn merge(&mut self, later: Summary) {
+        self.rows_read += later.rows_read;
+        self.rows_written += later.rows_written;
+        self.codes_read += later.codes_read;
+        self.invalid_codes += later.invalid_codes;
+        self.missing_ages += later.missing_ages;
+        self.unreadable_ages += later.unreadable_ages;
+        self.units += later.units;
+        self.missing_dates += later.missing_dates;
+        self.unreadable_dates += later.unreadable_dates;
+        self.excluded_primary += later.excluded_primary;
+        self.excluded_not_on_admission += later.excluded_not_on_admission;
+        if self.dx_columns.is_empty() {
+            self.dx_columns = later.dx_columns;
+        }
+        for (v, n) in later.invalid_values {
+            self.add_invalid(v, n);
+        }
+    }
+
+    pub(crate) fn invalid(&mut self, value: &[u8]) {
+        self.invalid_codes += 1;
+        let v = value.trim_ascii();
+        if let Some(n) = self.invalid_values.get_mut(v) {
+            *n += 1;
+        } else if self.invalid_values.len() < INVALID_VALUES_KEPT {
+            self.invalid_values.insert(v.to_vec(), 1);
+        }
+    }
+
+    /// Adds `n` occurrences of an invalid value to the remembered ones
+    /// (not to the count, which the caller keeps).
+    fn add_invalid(&mut self, value: Vec<u8>, n: u64) {
+        if let Some(c) = self.invalid_values.get_mut(&value) {
+            *c += n;
+        } else if self.invalid_values.len() < INVALID_VALUES_KEPT {
+            self.invalid_values.insert(value, n);
+        }
+    }
+
+    /// The most frequent invalid values, most frequent first (ties by value).
+    pub fn top_invalid(&self, n: usize) -> Vec<(String, u64)> {
+        let mut v: Vec<(String, u64)> = self
+            .invalid_values
+            .iter()
+            .map(|(k, c)| (String::from_utf8_lossy(k).into_owned(), *c))
+            .collect();
+        v.sort_by(|a, b| b.1.cmp(&a.1).then_with(|| a.0.cmp(&b.0)));
+        v.truncate(n);
+        v
+    }
+
+    /// The summary as printed on standard error.
+    pub fn report(&self) -> String {
+        let mut s = format!(
+            "morbus: {} rows read, {} rows written, {} units scored, {} codes read, {} invalid codes",
+            self.rows_read, self.rows_written, self.units, self.codes_read, self.invalid_codes
+        );
+        if self.invalid_codes > 0 {
+            let top: Vec<String> = self
+                .top_invalid(5)
+                .into_iter()
+                .map(|(v, c)| format!("'{v}' ({c})"))
+                .collect();
+            s.push_str(&format!(
+                "; most frequent invalid values: {}",
+                top.join(", ")
+            ));
+        }
+        if self.missing_ages + self.unreadable_ages > 0 {
+            s.push_str(&format!(
+                "; ages missing: {}, unreadable: {}",
+                self.missing_ages, self.unreadable_ages
+            ));
+        }
+        if self.missing_dates + self.unreadable_dates > 0 {
+            s.push_str(&format!(
+                "; dates missing: {}, unreadable: {} (those episodes scored from their own codes alone)",
+                self.missing_dates, self.unreadable_dates
+            ));
+        }
+        if self.excluded_primary > 0 {
+            s.push_str(&format!(
+                "; primary diagnoses left out: {}",
+                self.excluded_primary
+            ));
+        }
+        if self.excluded_not_on_admission > 0 {
+            s.push_str(&format!(
+                "; codes not present on admission left out: {}",
+                self.excluded_not_on_admission
+            ));
+        }
+        s
+    }
+}
+
+/// The header of an extract.
+pub struct Header {
+    pub names: Vec<String>,
+}
+
+impl Header {
+    pub fn from_fields(fields: &Fields<'_>) -> Header {
+        let mut names: Vec<String> = (0..fields.len())
+            .map(|i| String::from_utf8_lossy(fields.get(i)).trim().to_string())
+            .collect();
+        if let Some(first) = names.first_mut() {
+            if let Some(rest) = first.strip_prefix('\u{feff}') {
+                *first = rest.to_string();
+            }
+        }
+        Header { names }
+    }
+
+    fn available(&self) -> String {
+        self.names.join(", ")
+    }
+
+    /// One column by exact name.
+    pub fn column(&self, name: &str, role: &str) -> Result<usize, Error> {
+        let found: Vec<usize> = self
+            .names
+            .iter()
+            .enumerate()
+            .filter(|(_, n)| *n == name)
+            .map(|(i, _)| i)
+            .collect();
+        match found.as_slice() {
+            [i] => Ok(*i),
+            [] => Err(Error::Usage(format!(
+                "{role} column '{name}' not found; columns in the input: {}",
+                self.available()
+            ))),
+            many => Err(Error::Usage(format!(
+                "{role} column '{name}' appears {} times in the header; rename the duplicates",
+                many.len()
+            ))),
+        }
+    }
+
+    /// Columns named by a list of names and globs, in the order given
+    /// (header order within a glob), each once.
+    pub fn columns(&self, items: &[String], role: &str) -> Result<Vec<usize>, Error> {
+        let mut out = Vec::new();
+        for item in items.iter().flat_map(|s| s.split(',')) {
+            let item = item.trim();
+            if item.is_empty() {
+                continue;
+            }
+            if item.contains(['*', '?', '[']) {
+                let pat = glob::Pattern::new(item)
+                    .map_err(|e| Error::Usage(format!("bad column pattern '{item}': {e}")))?;
+                let hits: Vec<usize> = self
+                    .names
+                    .iter()
+                    .enumerate()
+                    .filter(|(_, n)| pat.matches(n))
+                    .map(|(i, _)| i)
+                    .collect();
+                if hits.is_empty() {
+                    return Err(Error::Usage(format!(
+                        "{role} pattern '{item}' matches no column; columns in the input: {}",
+                        self.available()
+                    )));
+                }
+                for h in hits {
+                    if !out.contains(&h) {
+                        out.push(h);
+                    }
+                }
+            } else {
+                let c = self.column(item, role)?;
+                if !out.contains(&c) {
+                    out.push(c);
+                }
+            }
+        }
+        if out.is_empty() {
+            return Err(Error::Usage(format!("no {role} columns given")));
+        }
+        Ok(out)
+    }
+}
+
+/// 1-based line of a record at `offset` in a block.
+pub(crate) fn line_of(block: &Block, offset: usize) -> u64 {
+    block.first_line + memchr::memchr_iter(b'\n', &block.data[..offset]).count() as u64
+}
+
+/// Why a code of the episode being scored does not count.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Exclusion {
+    Primary,
+    NotPresentOnAdmission,
+}
+
+/// The columns a run uses, resolved against the header.
+pub(crate) struct Plan {
+    pub header: Header,
+    pub dx: Vec<usize>,
+    pub age: Option<usize>,
+    pub id: Option<usize>,
+    pub episode: Option<usize>,
+    pub date: Option<usize>,
+    pub primary: Option<usize>,
+    pub poa: Option<usize>,
+    pub ncols: usize,
+    pub crlf: bool,
+}
+
+/// A record-level failure, turned into an [`Error`] with the line number by
+/// the caller.
+pub(crate) enum RowIssue {
+    InvalidCode { column: usize, value: Vec<u8> },
+    UnreadableAge(Vec<u8>),
+    UnreadableDate(Vec<u8>),
+}
+
+impl Plan {
+    pub fn new(cfg: &ScoreConfig, header: Header, crlf: bool) -> Result<Plan, Error> {
+        let dx = header.columns(&cfg.dx, "diagnosis")?;
+        let one = |name: &Option<String>, role: &str| -> Result<Option<usize>, Error> {
+            name.as_deref().map(|n| header.column(n, role)).transpose()
+        };
+        let age = one(&cfg.age, "age")?;
+        let id = one(&cfg.id, "id")?;
+        let episode = one(&cfg.episode, "episode")?;
+        let date = one(&cfg.date, "date")?;
+        let primary = one(&cfg.primary, "primary-diagnosis")?;
+        let poa = one(&cfg.poa, "present-on-admission")?;
+        if cfg.layout == Layout::Long && id.is_none() {
+            return Err(Error::Usage("--layout long needs --id COL".into()));
+        }
+        if cfg.lookback.is_some() && (id.is_none() || date.is_none()) {
+            return Err(Error::Usage(
+                "--lookback needs --id (the patient column) and --date".into(),
+            ));
+        }
+        if cfg.layout == Layout::Long && cfg.exclude_primary && primary.is_none() {
+            return Err(Error::Usage(
+                "--exclude-primary in the long layout needs --primary COL (the column flagging the primary-diagnosis row)".into(),
+            ));
+        }
+        if cfg.layout == Layout::Wide && (primary.is_some() || poa.is_some()) {
+            return Err(Error::Usage(
+                "--primary and --poa are for the long layout (one code per row); in the wide layout --exclude-primary leaves out the first diagnosis column".into(),
+            ));
+        }
+        if cfg.layout == Layout::Wide && episode.is_some() {
+            return Err(Error::Usage(
+                "--episode is for the long layout; in the wide layout every row is an episode"
+                    .into(),
+            ));
+        }
+        Ok(Plan {
+            ncols: header.names.len(),
+            header,
+            dx,
+            age,
+            id,
+            episode,
+            date,
+            primary,
+            poa,
+            crlf,
+        })
+    }
+
+    /// Names of the diagnosis columns read, in reading order.
+    pub fn dx_names(&self) -> Vec<String> {
+        self.dx
+            .iter()
+            .map(|&c| self.header.names[c].clone())
+            .collect()
+    }
+
+    pub fn dx_name(&self, k: usize) -> &str {
+        &self.header.names[self.dx[k]]
+    }
+
+    /// Checks the field count of a data record.
+    pub fn check_width(&self, block: &Block, rec: &RecordRef<'_>) -> Result<(), Error> {
+        if rec.fields.len() != self.ncols {
+            return Err(Error::data(
+                Some(line_of(block, rec.offset)),
+                format!(
+                    "record has {} fields but the header has {}",
+                    rec.fields.len(),
+                    self.ncols
+                ),
+            ));
+        }
+        Ok(())
+    }
+
+    /// The exclusion that applies to a long-layout row when its episode is
+    /// the one being scored.
+    pub fn row_exclusion(&self, cfg: &ScoreConfig, fields: &Fields<'_>) -> Option<Exclusion> {
+        if cfg.exclude_primary {
+            if let Some(c) = self.primary {
+                if is_flag_set(fields.get(c)) {
+                    return Some(Exclusion::Primary);
+                }
+            }
+        }
+        if let Some(c) = self.poa {
+            let v = fields.get(c).trim_ascii();
+            if !cfg
+                .poa_values
+                .iter()
+                .any(|p| p.as_bytes().eq_ignore_ascii_case(v))
+            {
+                return Some(Exclusion::NotPresentOnAdmission);
+            }
+        }
+        None
+    }
+
+    /// Reads every diagnosis value of a record, calling `sink` with the
+    /// value as written, its code and the exclusion that applies when the
+    /// record's episode is the one being scored. Invalid values are counted
+    /// (or, with `--strict`, returned as an issue).
+    #[inline]
+    pub fn read_codes(
+        &self,
+        cfg: &ScoreConfig,
+        fields: &Fields<'_>,
+        summary: &mut Summary,
+        mut sink: impl FnMut(&[u8], Code, Option<Exclusion>),
+    ) -> Result<(), RowIssue> {
+        let row_exclusion = match cfg.layout {
+            Layout::Long => self.row_exclusion(cfg, fields),
+            Layout::Wide => None,
+        };
+        let mut first = true;
+        for (k, &c) in self.dx.iter().enumerate() {
+            let v = fields.get(c);
+            if v.is_empty() {
+                if k == 0 {
+                    first = false;
+                }
+                continue;
+            }
+            let mut one = |part: &[u8], first: &mut bool| -> Result<(), RowIssue> {
+                let is_first = std::mem::replace(first, false) && k == 0;
+                match crate::code::read_code(part) {
+                    Reading::Valid(code) => {
+                        summary.codes_read += 1;
+                        let excl = if cfg.layout == Layout::Wide && cfg.exclude_primary && is_first
+                        {
+                            Some(Exclusion::Primary)
+                        } else {
+                            row_exclusion
+                        };
+                        sink(part, code, excl);
+                    }
+                    Reading::Empty => {}
+                    Reading::Invalid => {
+                        if cfg.strict {
+                            return Err(RowIssue::InvalidCode {
+                                column: k,
+                                value: part.to_vec(),
+                            });
+                        }
+                        summary.invalid(part);
+                    }
+                }
+                Ok(())
+            };
+            match cfg.dx_sep {
+                Some(sep) => {
+                    for part in v.split(|&b| b == sep) {
+                        one(part, &mut first)?;
+                    }
+                }
+                None => one(v, &mut first)?,
+            }
+            first = false;
+        }
+        Ok(())
+    }
+
+    /// The age of a record (`None`: missing or unreadable, counted).
+    pub fn read_age(
+        &self,
+        cfg: &ScoreConfig,
+        fields: &Fields<'_>,
+        summary: &mut Summary,
+    ) -> Result<Option<u32>, RowIssue> {
+        let Some(c) = self.age else {
+            return Ok(None);
+        };
+        let raw = fields.get(c);
+        match read_age(raw) {
+            Some(a) => Ok(Some(a)),
+            None => {
+                if raw.trim_ascii().is_empty() {
+                    summary.missing_ages += 1;
+                } else {
+                    if cfg.strict {
+                        return Err(RowIssue::UnreadableAge(raw.to_vec()));
+                    }
+                    summary.unreadable_ages += 1;
+                }
+                Ok(None)
+            }
+        }
+    }
+
+    /// The date of a record as days since 1970-01-01 (`None`: missing or
+    /// unreadable; counting is left to the caller, once per episode).
+    pub fn read_date(
+        &self,
+        cfg: &ScoreConfig,
+        fields: &Fields<'_>,
+    ) -> Result<Option<i32>, Option<Vec<u8>>> {
+        let Some(c) = self.date else {
+            return Ok(None);
+        };
+        let raw = fields.get(c).trim_ascii();
+        if raw.is_empty() {
+            return Err(None);
+        }
+        cfg.date_format
+            .parse(raw)
+            .map(Some)
+            .ok_or_else(|| Some(raw.to_vec()))
+    }
+
+    /// Turns a record issue into an error with the record's line.
+    pub fn issue(&self, issue: RowIssue, block: &Block, rec: &RecordRef<'_>) -> Error {
+        let line = Some(line_of(block, rec.offset));
+        let message = match issue {
+            RowIssue::InvalidCode { column, value } => format!(
+                "invalid code '{}' in column '{}'",
+                String::from_utf8_lossy(&value),
+                self.dx_name(column)
+            ),
+            RowIssue::UnreadableAge(v) => {
+                format!("unreadable age '{}'", String::from_utf8_lossy(&v))
+            }
+            RowIssue::UnreadableDate(v) => format!(
+                "unreadable date '{}' (expected {})",
+                String::from_utf8_lossy(&v),
+                cfg_date_hint()
+            ),
+        };
+        Error::Strict { line, message }
+    }
+}
+
+fn cfg_date_hint() -> &'static str {
+    "the --date-format, by default YYYY-MM-DD"
+}
+
+/// Whether a primary-diagnosis flag field says "this is the primary".
+/// Accepted (case-insensitive): `1`, `y`, `yes`, `true`, `p`, `primary`.
+pub fn is_flag_set(raw: &[u8]) -> bool {
+    let v = raw.trim_ascii();
+    ["1", "y", "yes", "true", "p", "primary"]
+        .iter()
+        .any(|f| f.as_bytes().eq_ignore_ascii_case(v))
+}
+
+pub(crate) fn check_collisions(names: &[&str], engine: &Engine) -> Result<(), Error> {
+    for c in engine.columns() {
+        if names.contains(&c.name.as_str()) {
+            return Err(Error::Usage(format!(
+                "output column '{}' already exists in the input; rename that input column",
+                c.name
+            )));
+        }
+    }
+    Ok(())
+}
+
+/// Scores an extract read from `input`, writing the enriched extract to
+/// `output`: streaming when no lookback is asked for, from the patient
+/// history otherwise.
+pub fn score_stream(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    input: impl Read + Send,
+    output: &mut dyn Write,
+) -> Result<Summary, Error> {
+    score_stream_observed(engine, cfg, input, output, &mut |_| {})
+}
+
+/// [`score_stream`], calling `progress` as blocks are written.
+pub fn score_stream_observed(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    input: impl Read + Send,
+    output: &mut dyn Write,
+    progress: &mut dyn FnMut(Progress),
+) -> Result<Summary, Error> {
+    if cfg.lookback.is_some() || cfg.episode.is_some() {
+        history::score_history(engine, cfg, input, output)
+    } else {
+        stream::score_plain(engine, cfg, input, output, progress)
+    }
+}
