@@ -207,6 +207,19 @@ def test_demo_data_equals_cli(run_cli, opts):
     assert_same(py, cli, score_columns(cli, list(df.columns)))
 
 
+@pytest.mark.skipif(not (REPO / "demo-data" / "episodes-long.csv").exists(), reason="no demo-data/episodes-long.csv in this checkout")
+@pytest.mark.parametrize("kind", ["pandas", "polars"])
+def test_demo_long_data_equals_cli(run_cli, kind):
+    path = REPO / "demo-data" / "episodes-long.csv"
+    opts = {"dx": "code", "layout": "long", "id": "episode_id", "age": "age", "flags": True}
+    cli = cli_frame(run_cli, path, opts)
+    frame = pd.read_csv(path) if kind == "pandas" else pl.read_csv(path, infer_schema_length=None)
+    out = morbus.score(frame, **opts)
+    py = out if kind == "pandas" else out.to_pandas()
+    assert py["episode_id"].tolist() == cli["episode_id"].tolist()
+    assert_same(py, cli, [c for c in cli.columns if c != "episode_id"])
+
+
 def test_strict_fails_on_the_same_value_as_cli(run_cli, episodes_csv):
     code, _, err = run_cli(cli_args(episodes_csv, {"strict": True}))
     assert code == 3
