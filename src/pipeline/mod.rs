@@ -202,7 +202,31 @@ fn escaped(value: &[u8]) -> String {
 }
 
 impl Summary {
-    fn invalid(&mut self, value: &[u8]) {
+    /// Adds the counts of a run over later rows (e.g. another part of a
+    /// frame scored on another thread). The distinct invalid values kept are
+    /// those of `self`, then the new ones of `later`, up to the same limit.
+    /// The diagnosis columns are `self`'s (or `later`'s when `self` has none).
+    pub fn merge(&mut self, later: Summary) {
+        self.rows_read += later.rows_read;
+        self.rows_written += later.rows_written;
+        self.codes_read += later.codes_read;
+        self.invalid_codes += later.invalid_codes;
+        self.missing_ages += later.missing_ages;
+        self.unreadable_ages += later.unreadable_ages;
+        self.units += later.units;
+        self.missing_dates += later.missing_dates;
+        self.unreadable_dates += later.unreadable_dates;
+        self.excluded_primary += later.excluded_primary;
+        self.excluded_not_on_admission += later.excluded_not_on_admission;
+        if self.dx_columns.is_empty() {
+            self.dx_columns = later.dx_columns;
+        }
+        for (v, n) in later.invalid_values {
+            self.add_invalid(v, n);
+        }
+    }
+
+    pub(crate) fn invalid(&mut self, value: &[u8]) {
         self.invalid_codes += 1;
         let v = kept_value(value);
         if let Some(n) = self.invalid_values.get_mut(&v[..]) {
