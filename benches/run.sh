@@ -22,8 +22,11 @@ MORBUS=$BIN/morbus
 best_of() {
   local best="" mem=""
   for _ in $(seq "$RUNS"); do
-    local out
-    out=$( { /usr/bin/time -f "%e %M" "$@" >/dev/null 2>/dev/null; } 2>&1 | tail -1)
+    local out tf
+    tf=$(mktemp)
+    /usr/bin/time -o "$tf" -f "%e %M" "$@" >/dev/null 2>&1 || { echo "failed: $*" >&2; rm -f "$tf"; return 1; }
+    out=$(tail -1 "$tf")
+    rm -f "$tf"
     local t=${out% *} m=${out#* }
     if [ -z "$best" ] || awk "BEGIN{exit !($t < $best)}"; then best=$t; mem=$m; fi
   done

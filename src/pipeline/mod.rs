@@ -534,12 +534,16 @@ impl Plan {
 
     /// Checks a data record: a quote left open at the end of the input,
     /// and the field count.
+    ///
+    /// The record's line is counted only when there is something to report:
+    /// counting it for every record would cost a pass over the block each.
+    #[inline]
     pub fn check_width(&self, block: &Block, rec: &RecordRef<'_>) -> Result<(), Error> {
-        let line = line_of(block, rec.offset);
         if rec.unclosed_quote {
-            return Err(unclosed_quote(line));
+            return Err(unclosed_quote(line_of(block, rec.offset)));
         }
         if rec.fields.len() != self.ncols {
+            let line = line_of(block, rec.offset);
             let lines = memchr::memchr_iter(b'\n', rec.raw).count() as u64;
             let hint = if lines > 0 {
                 format!(
