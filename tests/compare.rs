@@ -553,6 +553,21 @@ fn usage_errors_exit_2() {
     );
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(r.stderr.contains("is the outcome"), "{}", r.stderr);
+    let many = extract(80, 2, 0);
+    let r = morbus(
+        &[
+            "compare",
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--adjust-cat",
+            "episode",
+        ],
+        many.as_bytes(),
+    );
+    assert_eq!(r.code, 2, "{}", r.stderr);
+    assert!(r.stderr.contains("has 80 levels"), "{}", r.stderr);
     let r = morbus(&["compare", "--dx", "dx*"], data.as_bytes());
     assert_eq!(r.code, 2, "{}", r.stderr);
     let r = morbus(

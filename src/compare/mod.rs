@@ -59,6 +59,9 @@ individual patient. The c-statistics and models are estimated on this extract on
 they are not validated prediction tools, and differences between indices depend on \
 local coding practice, the lookback and the outcome chosen.";
 
+/// Most levels a categorical adjustment column may have.
+pub const MAX_LEVELS: usize = 50;
+
 /// What to compare against what.
 #[derive(Clone, Debug, Default)]
 pub struct CompareOptions {
@@ -508,6 +511,14 @@ pub fn compare(
         let col_name = &opts.adjust_categorical[k];
         // Levels in byte order; the first is the reference.
         let sorted: Vec<(&Vec<u8>, &u32)> = levels[k].iter().collect();
+        if sorted.len() > MAX_LEVELS {
+            return Err(Error::Usage(format!(
+                "categorical adjustment column '{col_name}' has {} levels among the analysed \
+                 units; at most {MAX_LEVELS} are supported (is it an identifier, or a number \
+                 meant for --adjust?)",
+                sorted.len()
+            )));
+        }
         if sorted.len() < 2 {
             notes.push(format!(
                 "categorical adjustment column '{col_name}' has a single level ('{}') among the analysed units; left out of the models",
