@@ -779,7 +779,7 @@ fn report_renders_in_headless_chromium() {
     let png = tmp("report.png");
     let profile = tmp("chromium-profile");
     std::fs::create_dir_all(&profile).unwrap();
-    let status = Command::new(&browser)
+    let mut child = Command::new(&browser)
         .args([
             "--headless",
             "--no-sandbox",
@@ -796,8 +796,21 @@ fn report_renders_in_headless_chromium() {
         ])
         .stdout(Stdio::null())
         .stderr(Stdio::null())
-        .status()
+        .spawn()
         .expect("run chromium");
+    // A browser that hangs must not hang the test suite.
+    let started = std::time::Instant::now();
+    let status = loop {
+        if let Some(s) = child.try_wait().expect("wait for chromium") {
+            break s;
+        }
+        if started.elapsed() > std::time::Duration::from_secs(120) {
+            let _ = child.kill();
+            let _ = child.wait();
+            panic!("chromium did not finish within 120 s");
+        }
+        std::thread::sleep(std::time::Duration::from_millis(100));
+    };
     assert!(status.success(), "chromium failed: {status}");
     let bytes = std::fs::read(&png).unwrap();
     assert_eq!(png_size(&bytes), Some((1200, 2400)));
