@@ -1104,6 +1104,11 @@ fn nice_width(raw: f64) -> f64 {
     10.0 * p
 }
 
+/// A bin edge without rounding noise (0.30000000000000004 → 0.3).
+fn tidy(v: f64) -> f64 {
+    (v * 1e9).round() / 1e9
+}
+
 /// Histogram of the scores: one bin per whole point when the scores are
 /// whole numbers spanning at most 40 points, otherwise about 30 bins of a
 /// round width.
@@ -1125,8 +1130,8 @@ fn histogram(s: &[f64], min: f64, max: f64) -> Vec<Bin> {
         .into_iter()
         .enumerate()
         .map(|(i, count)| Bin {
-            from: start + i as f64 * width,
-            to: start + (i + 1) as f64 * width,
+            from: tidy(start + i as f64 * width),
+            to: tidy(start + (i + 1) as f64 * width),
             count,
         })
         .collect()
@@ -1173,6 +1178,9 @@ mod tests {
         assert_eq!(h.iter().map(|b| b.count).sum::<u64>(), 100);
         assert!(h.len() <= 31, "{}", h.len());
         assert!(h[0].from <= 0.0 && h.last().unwrap().to > 69.3);
+        let h = histogram(&[0.0, 0.1, 0.7, 3.9], 0.0, 3.9);
+        assert!(h.iter().any(|b| b.from == 0.6), "{h:?}");
+        assert_eq!(h.iter().map(|b| b.count).sum::<u64>(), 4);
     }
 
     #[test]
