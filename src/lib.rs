@@ -14,6 +14,7 @@
 //! - [`score`]: conditions, hierarchies, weightings, output values;
 //! - [`io`]: streaming delimited text in and out;
 //! - [`pipeline`]: `score` over an extract, wide or long, with its summary;
+//! - [`columnar`]: `score` over in-memory columns (Arrow arrays, data frames);
 //! - [`provenance`]: what produced an output (tool, lists, options, counts);
 //! - [`stats`]: the numerics of `compare` (c-statistics, DeLong, logistic
 //!   regression, rank correlation);
@@ -37,6 +38,7 @@
 //! ```
 
 pub mod code;
+pub mod columnar;
 pub mod compare;
 pub mod error;
 pub mod io;

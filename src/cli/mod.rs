@@ -158,13 +158,17 @@ struct InputArgs {
     /// Directory of code lists (*.tsv) that add to or replace the built-ins.
     #[arg(long, value_name = "DIR")]
     lists: Option<PathBuf>,
-    /// Treat every warning (invalid code, unreadable age) as an error.
+    /// Stop (exit 3) at the first warning, with its line: an invalid code, a missing or
+    /// unreadable age or date, a row with an empty --id, or a warning of a list loaded
+    /// with --lists. Input that cannot be read at all (wrong field count, a quote never
+    /// closed) fails with exit 1, with or without --strict.
     #[arg(long)]
     strict: bool,
     /// Do not print the summary or the progress line on standard error.
     #[arg(long, short)]
     quiet: bool,
-    /// Worker threads for wide scoring and for `compare`'s numerics (default: one per core).
+    /// Worker threads for wide scoring and for `compare`'s numerics (default: one per core;
+    /// at most 256).
     #[arg(long, value_name = "N", default_value_t = 0)]
     threads: usize,
 }
@@ -278,7 +282,8 @@ fn one_char(text: &str, what: &str) -> Result<u8, Error> {
 
 /// The built-in lists plus those of `--lists DIR` (which replace built-ins of
 /// the same name, saying so on stderr).
-fn catalogue(dir: Option<&PathBuf>, quiet: bool) -> Result<Catalogue, Error> {
+/// With `strict`, a list loaded with warnings stops the run (exit 3).
+fn catalogue(dir: Option<&PathBuf>, quiet: bool, strict: bool) -> Result<Catalogue, Error> {
     let mut cat = Catalogue::builtin();
     if let Some(dir) = dir {
         let loaded = lists::load_dir(dir)?;
@@ -287,6 +292,18 @@ fn catalogue(dir: Option<&PathBuf>, quiet: bool) -> Result<Catalogue, Error> {
                 "no code lists (*.tsv) found in {}",
                 dir.display()
             )));
+        }
+        if strict {
+            let warnings: Vec<String> = loaded
+                .iter()
+                .flat_map(|l| l.warnings.iter().map(|w| w.to_string()))
+                .collect();
+            if !warnings.is_empty() {
+                return Err(Error::Strict {
+                    line: None,
+                    message: format!("code list warning: {}", warnings.join("; ")),
+                });
+            }
         }
         for l in loaded {
             for w in &l.warnings {
@@ -315,7 +332,7 @@ fn engine_with_default(
     flags: bool,
     default: impl FnOnce(&Catalogue) -> Result<Vec<IndexSpec>, Error>,
 ) -> Result<(Catalogue, Engine), Error> {
-    let cat = catalogue(a.lists.as_ref(), a.quiet)?;
+    let cat = catalogue(a.lists.as_ref(), a.quiet, a.strict)?;
     let specs = if a.index.is_empty() {
         default(&cat)?
     } else {
@@ -578,15 +595,15 @@ fn list_table(cat: &Catalogue) -> Result<(), Error> {
 
 fn lists_command(a: ListsArgs) -> Result<(), Error> {
     match a.command {
-        None => list_table(&catalogue(a.lists.as_ref(), false)?),
+        None => list_table(&catalogue(a.lists.as_ref(), false, false)?),
         Some(ListsCommand::Check { path }) => list_cmds::check(&path),
         Some(ListsCommand::Show { name, json }) => {
-            let cat = catalogue(a.lists.as_ref(), false)?;
+            let cat = catalogue(a.lists.as_ref(), false, false)?;
             let l = resolve_list(&name, &cat)?;
             list_cmds::show(&l.list, json)
         }
         Some(ListsCommand::Export { name, dir, force }) => {
-            let cat = catalogue(a.lists.as_ref(), false)?;
+            let cat = catalogue(a.lists.as_ref(), false, false)?;
             let l = resolve_list(&name, &cat)?;
             let path = lists::export_to_dir(&l.list, &dir, force)?;
             eprintln!(
@@ -600,7 +617,7 @@ fn lists_command(a: ListsArgs) -> Result<(), Error> {
             Ok(())
         }
         Some(ListsCommand::Diff { a: la, b: lb, json }) => {
-            let cat = catalogue(a.lists.as_ref(), false)?;
+            let cat = catalogue(a.lists.as_ref(), false, false)?;
             let left = resolve_list(&la, &cat)?;
             let right = resolve_list(&lb, &cat)?;
             list_cmds::diff(&left.list, &right.list, json)

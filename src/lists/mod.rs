@@ -436,4 +436,65 @@ impl Catalogue {
     pub fn names(&self) -> Vec<&str> {
         self.lists.iter().map(|l| l.name.as_str()).collect()
     }
+
+    /// The built-in lists plus every list of a directory (`*.tsv`); a loaded
+    /// list replaces a built-in of the same name. Also returns the notes the
+    /// command line prints for `--lists DIR`: the loaded lists' warnings and
+    /// one line per replaced list.
+    pub fn builtin_and_dir(dir: &Path) -> Result<(Catalogue, Vec<String>), crate::Error> {
+        let mut cat = Catalogue::builtin();
+        let loaded = load_dir(dir)?;
+        if loaded.is_empty() {
+            return Err(crate::Error::Usage(format!(
+                "no code lists (*.tsv) found in {}",
+                dir.display()
+            )));
+        }
+        let mut notes = Vec::new();
+        for l in loaded {
+            notes.extend(l.warnings.iter().map(ToString::to_string));
+            let name = l.list.name.clone();
+            let origin = l.list.origin.clone();
+            if let Some(old) = cat.insert(l.list) {
+                notes.push(format!(
+                    "list '{name}' from {origin} replaces the {old} list"
+                ));
+            }
+        }
+        Ok((cat, notes))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn builtin_and_dir_adds_and_replaces() {
+        let dir = std::env::temp_dir().join(format!("morbus-lists-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let empty = Catalogue::builtin_and_dir(&dir).unwrap_err();
+        assert_eq!(empty.exit_code(), 2);
+        assert!(empty
+            .to_string()
+            .starts_with("no code lists (*.tsv) found in"));
+        let hfrs = builtin::text("hfrs")
+            .unwrap()
+            .replacen("version\t", "version\tlocal-", 1);
+        std::fs::write(dir.join("hfrs.tsv"), hfrs).unwrap();
+        let tiny = "list\ttiny\nversion\t1\ntitle\tt\nedition\tICD-10 (WHO)\nsource\ts\n\
+                    default_weighting\tw\ncondition\tc\tC\ts\ncode\tI50\tc\ts\n\
+                    weighting\tw\tW\ts\nweight\tw\tc\t1\n";
+        std::fs::write(dir.join("tiny.tsv"), tiny).unwrap();
+        let (cat, notes) = Catalogue::builtin_and_dir(&dir).unwrap();
+        std::fs::remove_dir_all(&dir).unwrap();
+        assert!(cat.get("tiny").is_some());
+        assert!(cat.get("hfrs").unwrap().version.starts_with("local-"));
+        assert_eq!(cat.lists().len(), builtin::all().len() + 1);
+        assert!(
+            notes.iter().any(|n| n.starts_with("list 'hfrs' from ")
+                && n.ends_with("replaces the built-in (hfrs.tsv) list")),
+            "{notes:?}"
+        );
+    }
 }

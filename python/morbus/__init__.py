@@ -1,0 +1,340 @@
+"""morbus: comorbidity and frailty covariates from ICD-10 diagnosis columns.
+
+The Charlson index, the Elixhauser conditions and the Hospital Frailty Risk
+Score, computed by the morbus engine (the same code, lists and numbers as the
+``morbus`` command line) on a pandas or polars DataFrame or any Arrow data.
+
+>>> import pandas as pd, morbus
+>>> df = pd.DataFrame({"dx1": ["I21.9", "F00.1"], "dx2": ["C78.0", None]})
+>>> out = morbus.score(df, dx="dx*", index="charlson:charlson1987")
+>>> out["charlson_charlson1987"].tolist()
+[7, 1]
+
+These indices support population-level risk adjustment and research, not
+decisions about an individual patient.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import sys
+from typing import Any, Dict, List, Optional, Sequence, Tuple, Union
+
+from . import _native
+from ._native import Lists
+
+__all__ = ["score", "lists", "load_lists", "Lists", "__version__"]
+
+__version__: str = _native.version()
+
+# `morbus.explain(...)` (which codes gave which condition) is planned: it will
+# be added here once the library's explain feature has landed.
+
+_Names = Union[str, Sequence[str]]
+
+
+def load_lists(path: Union[str, "os.PathLike[str]"]) -> Lists:
+    """Load the code lists (``*.tsv``) of a directory on top of the built-ins.
+
+    A loaded list replaces a built-in list of the same name (``notes`` says
+    which), as ``morbus score --lists DIR`` does. Pass the result as
+    ``lists=`` to :func:`score` or :func:`lists`. Raises ``ValueError`` with
+    every problem found (file and line) when a list is broken.
+
+    >>> import morbus, tempfile
+    >>> d = tempfile.mkdtemp()
+    >>> morbus.load_lists(d)  # doctest: +IGNORE_EXCEPTION_DETAIL
+    Traceback (most recent call last):
+    ValueError: no code lists (*.tsv) found in ...
+    """
+    return _native.load_lists(os.fspath(path))
+
+
+def _catalogue(lists: Union[None, str, "os.PathLike[str]", Lists]) -> Optional[Lists]:
+    if lists is None or isinstance(lists, Lists):
+        return lists
+    if isinstance(lists, (str, os.PathLike)):
+        return load_lists(lists)
+    raise TypeError(
+        f"lists must be a morbus.Lists (from morbus.load_lists) or a directory path, "
+        f"not {type(lists).__name__}"
+    )
+
+
+def lists(lists: Union[None, str, "os.PathLike[str]", Lists] = None) -> List[Dict[str, Any]]:
+    """Describe the available code lists, one dict per list.
+
+    Keys: ``name``, ``version``, ``title``, ``checksum`` (SHA-256 of the
+    list's content), ``source``, ``origin``, ``editions``,
+    ``default_weighting``, ``weightings`` (name, label, source, decimals,
+    bands), ``conditions`` (key, label, source), ``code_entries`` and
+    ``has_age_points``. ``lists=`` adds the lists of a directory (or a
+    :class:`Lists` handle), as ``morbus lists --lists DIR`` does.
+
+    >>> import morbus
+    >>> [l["name"] for l in morbus.lists()]
+    ['charlson', 'elixhauser', 'hfrs']
+    """
+    cat = _catalogue(lists) or _native.builtin_lists()
+    return _native.list_table(cat)
+
+
+def _as_list(value: Optional[_Names], what: str) -> Optional[List[str]]:
+    if value is None:
+        return None
+    if isinstance(value, str):
+        return [value]
+    try:
+        items = list(value)
+    except TypeError:
+        raise TypeError(f"{what} must be a string or a list of strings") from None
+    if not all(isinstance(v, str) for v in items):
+        raise TypeError(f"{what} must be a string or a list of strings")
+    return items
+
+
+def _optional_name(value: Optional[str], what: str) -> Optional[str]:
+    if value is not None and not isinstance(value, str):
+        raise TypeError(f"{what} must be a column name (a string)")
+    return value
+
+
+def _kind(frame: Any) -> str:
+    """'pandas', 'polars' or 'arrow' (a pyarrow.Table after conversion)."""
+    pd = sys.modules.get("pandas")
+    if pd is not None and isinstance(frame, pd.DataFrame):
+        return "pandas"
+    pl = sys.modules.get("polars")
+    if pl is not None:
+        if isinstance(frame, pl.DataFrame):
+            return "polars"
+        if isinstance(frame, pl.LazyFrame):
+            raise TypeError("morbus.score needs a polars DataFrame: collect() the LazyFrame first")
+    if hasattr(frame, "__arrow_c_stream__"):
+        return "arrow"
+    raise TypeError(
+        "morbus.score needs a pandas or polars DataFrame or an object exposing the Arrow "
+        f"C stream interface (__arrow_c_stream__), not {type(frame).__name__}"
+    )
+
+
+def _pandas_fetch(frame: Any, names: List[str]):
+    import pyarrow as pa
+
+    def fetch(indices: List[int]):
+        arrays = []
+        for i in indices:
+            series = frame.iloc[:, i]
+            try:
+                arrays.append(pa.array(series, from_pandas=True))
+            except (pa.ArrowInvalid, pa.ArrowTypeError) as e:
+                raise ValueError(
+                    f"column '{names[i]}' (dtype {series.dtype}) cannot be read as Arrow data: {e}; "
+                    "diagnosis columns must hold text (or be empty)"
+                ) from None
+        return pa.table(arrays, names=[f"c{k}" for k in range(len(arrays))])
+
+    return fetch
+
+
+def _polars_fetch(frame: Any):
+    import polars as pl
+
+    def fetch(indices: List[int]):
+        # aliases: a column may be used twice (as diagnosis and id)
+        return frame.select([pl.col(frame.columns[i]).alias(f"c{k}") for k, i in enumerate(indices)])
+
+    return fetch
+
+
+def _arrow_fetch(table: Any):
+    def fetch(indices: List[int]):
+        return table.select(indices)
+
+    return fetch
+
+
+def _to_pandas(table: Any, index: Any = None):
+    """Score columns as pandas: numpy dtypes, nullable ``Int64`` for whole-number
+    columns that may be missing (``_age``)."""
+    import pandas as pd
+    import pyarrow as pa
+
+    out = table.to_pandas()
+    for field in table.schema:
+        if pa.types.is_integer(field.type) and field.nullable:
+            mapper = {field.type: pd.Int64Dtype()}.get
+            out[field.name] = table.select([field.name]).to_pandas(types_mapper=mapper)[field.name]
+    if index is not None:
+        out.index = index
+    return out
+
+
+def score(
+    frame: Any,
+    *,
+    dx: _Names,
+    layout: str = "wide",
+    id: Optional[str] = None,
+    age: Optional[str] = None,
+    index: Optional[_Names] = None,
+    flags: bool = False,
+    hierarchy: bool = True,
+    lists: Union[None, str, "os.PathLike[str]", Lists] = None,
+    dx_sep: Optional[str] = None,
+    strict: bool = False,
+    threads: Optional[int] = None,
+    provenance: bool = False,
+) -> Any:
+    """Add comorbidity and frailty scores to an extract (``morbus score``).
+
+    ``frame`` is a pandas DataFrame, a polars DataFrame, or anything exposing
+    the Arrow C stream interface (a ``pyarrow.Table``, ...); the result is of
+    the same kind (a ``pyarrow.Table`` for Arrow input).
+
+    Wide layout (default): every input row and column, in order, plus the
+    score columns the command line adds, with its names
+    (``charlson_quan2011``, ``elixhauser_vanwalraven2009``,
+    ``hfrs_gilbert2018``, ``hfrs_gilbert2018_band``, ...). Long layout
+    (``layout="long"``, one code per row): one row per ``id`` in order of
+    first appearance, the id column (with its dtype) then the scores.
+
+    Options, as on the command line:
+
+    - ``dx``: diagnosis columns, names and/or globs (``"dx*"``), a string
+      (comma-separated) or a list.
+    - ``id``: id column of a long extract. ``age``: age column (whole years;
+      numbers or text) adding ``<index>_age`` columns for lists with age
+      points.
+    - ``index``: ``LIST[:WEIGHTING]`` specifications, a string
+      (comma-separated) or a list; default
+      ``charlson:quan2011,elixhauser:vanwalraven2009,hfrs:gilbert2018``.
+    - ``flags``: add a 0/1 column ``<list>_<condition>`` per condition.
+    - ``hierarchy=False``: switch the lists' hierarchies off.
+    - ``lists``: a directory of code lists, or a :class:`Lists` from
+      :func:`load_lists`, adding to or replacing the built-ins.
+    - ``dx_sep``: split a diagnosis field holding several codes at this
+      character. ``strict``: raise on the first invalid code or unreadable
+      age instead of counting it.
+    - ``threads``: threads for the wide layout (default: one per core; the
+      result does not depend on it).
+    - ``provenance=True``: return ``(frame, provenance)``, where
+      ``provenance`` is the dict that ``morbus score --provenance FILE``
+      writes as JSON (tool and version; lists used with version, checksum,
+      origin and source; indices; options; output columns; rows, codes read,
+      invalid codes with the most frequent values, missing and unreadable
+      ages), with ``input`` and ``output`` null, plus ``report``: the
+      summary line the command line prints.
+
+    Diagnosis columns must hold text: string, large string, string view or
+    dictionary (categorical) of those; nulls are empty fields. A numeric
+    diagnosis column is refused with a ``ValueError`` naming it, unless it
+    holds only nulls (an empty column read from a file), which is empty.
+    Ages may be numbers (NaN and null are missing) or text.
+
+    Errors: ``KeyError`` for a column that is not in the frame; ``ValueError``
+    for everything else the command line reports as a usage error (exit 2),
+    with its message, and for ``strict`` failures.
+
+    >>> import pandas as pd, morbus
+    >>> df = pd.DataFrame({"id": [1, 2], "dx1": ["I50.0", "R29.6"], "dx2": ["N18.5", "F05.9"]})
+    >>> out, prov = morbus.score(df, dx="dx*", provenance=True)
+    >>> out[["charlson_quan2011", "hfrs_gilbert2018", "hfrs_gilbert2018_band"]].values.tolist()
+    [[3, 1.4, 'low'], [0, 6.8, 'intermediate']]
+    >>> prov["codes"]["read"], prov["lists"][0]["name"]
+    (4, 'charlson')
+    """
+    kind = _kind(frame)
+    dx_items = _as_list(dx, "dx")
+    if dx_items is None:
+        raise TypeError("dx must name the diagnosis columns")
+    index_items = _as_list(index, "index")
+    id = _optional_name(id, "id")
+    age = _optional_name(age, "age")
+    if not isinstance(layout, str):
+        raise TypeError("layout must be 'wide' or 'long'")
+    if dx_sep is not None and not isinstance(dx_sep, str):
+        raise TypeError("dx_sep must be a one-character string")
+    if threads is None:
+        threads = 0
+    elif isinstance(threads, bool) or not isinstance(threads, int) or threads < 1:
+        raise ValueError(f"threads must be a positive whole number, not {threads!r}")
+    cat = _catalogue(lists)
+
+    if kind == "pandas":
+        names = [str(c) for c in frame.columns]
+        fetch = _pandas_fetch(frame, names)
+    elif kind == "polars":
+        names = list(frame.columns)
+        fetch = _polars_fetch(frame)
+    else:
+        import pyarrow as pa
+
+        frame = frame if isinstance(frame, pa.Table) else pa.table(frame)
+        names = list(frame.column_names)
+        fetch = _arrow_fetch(frame)
+
+    scores_stream, first_stream, prov_json, report = _native.score(
+        names,
+        fetch,
+        dx=dx_items,
+        layout=layout,
+        id=id,
+        age=age,
+        index=index_items,
+        flags=bool(flags),
+        hierarchy=bool(hierarchy),
+        lists=cat,
+        dx_sep=dx_sep,
+        strict=bool(strict),
+        threads=threads,
+    )
+    import pyarrow as pa
+
+    scores = pa.table(scores_stream)
+    if first_stream is None:
+        out = _attach(kind, frame, scores)
+    else:
+        first = pa.table(first_stream).column(0)
+        out = _long(kind, frame, names.index(id), first, scores)
+    if not provenance:
+        return out
+    prov = json.loads(prov_json)
+    prov["report"] = report
+    return out, prov
+
+
+def _attach(kind: str, frame: Any, scores: Any) -> Any:
+    """The input frame with the score columns after its own."""
+    if kind == "pandas":
+        import pandas as pd
+
+        return pd.concat([frame, _to_pandas(scores, frame.index)], axis=1)
+    if kind == "polars":
+        import polars as pl
+
+        return frame.hstack(pl.from_arrow(scores).get_columns())
+    table = frame
+    for field, column in zip(scores.schema, scores.columns):
+        table = table.append_column(field, column)
+    return table
+
+
+def _long(kind: str, frame: Any, id_index: int, first: Any, scores: Any) -> Any:
+    """One row per unit: the id (taken from the row where it first appears)
+    and the scores."""
+    if kind == "pandas":
+        import pandas as pd
+
+        ids = frame.iloc[first.to_numpy(), id_index].reset_index(drop=True)
+        return pd.concat([ids.to_frame(), _to_pandas(scores)], axis=1)
+    if kind == "polars":
+        import polars as pl
+
+        ids = frame.get_column(frame.columns[id_index]).gather(first.to_numpy())
+        return pl.DataFrame([ids]).hstack(pl.from_arrow(scores).get_columns())
+    import pyarrow as pa
+
+    ids = frame.column(id_index).take(first)
+    return pa.table([ids] + scores.columns, schema=pa.schema([frame.schema.field(id_index)] + list(scores.schema)))

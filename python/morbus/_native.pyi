@@ -1,0 +1,47 @@
+"""Type stubs of the compiled extension `morbus._native` (see `morbus` for the
+public API)."""
+
+from pathlib import Path
+from typing import Any, Callable, Dict, List, Optional, Sequence, Tuple
+
+class Lists:
+    """A set of code lists: the built-ins plus the lists of a directory.
+
+    Made by `morbus.load_lists(path)`; pass it as `lists=`.
+    """
+
+    @property
+    def notes(self) -> List[str]:
+        """Warnings of the loaded lists and which built-ins they replaced."""
+    @property
+    def path(self) -> Optional[Path]:
+        """The directory the lists were loaded from (None: built-ins only)."""
+    @property
+    def names(self) -> List[str]:
+        """Names of the lists, in catalogue order."""
+
+class ArrowStream:
+    """An Arrow C stream (one use) of score columns: `pyarrow.table(stream)`."""
+
+    def __arrow_c_stream__(self, requested_schema: Optional[object] = None) -> object: ...
+
+def load_lists(path: str) -> Lists: ...
+def builtin_lists() -> Lists: ...
+def list_table(lists: Lists) -> List[Dict[str, Any]]: ...
+def score(
+    names: Sequence[str],
+    fetch: Callable[[List[int]], Any],
+    *,
+    dx: Sequence[str],
+    layout: str,
+    id: Optional[str],
+    age: Optional[str],
+    index: Optional[Sequence[str]],
+    flags: bool,
+    hierarchy: bool,
+    lists: Optional[Lists],
+    dx_sep: Optional[str],
+    strict: bool,
+    threads: int,
+) -> Tuple[ArrowStream, Optional[ArrowStream], str, str]: ...
+def version() -> str: ...
