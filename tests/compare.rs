@@ -553,6 +553,21 @@ fn usage_errors_exit_2() {
     );
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(r.stderr.contains("is the outcome"), "{}", r.stderr);
+    let many = extract(80, 2, 0);
+    let r = morbus(
+        &[
+            "compare",
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--adjust-cat",
+            "episode",
+        ],
+        many.as_bytes(),
+    );
+    assert_eq!(r.code, 2, "{}", r.stderr);
+    assert!(r.stderr.contains("has 80 levels"), "{}", r.stderr);
     let r = morbus(&["compare", "--dx", "dx*"], data.as_bytes());
     assert_eq!(r.code, 2, "{}", r.stderr);
     let r = morbus(
@@ -764,7 +779,7 @@ fn report_renders_in_headless_chromium() {
     let png = tmp("report.png");
     let profile = tmp("chromium-profile");
     std::fs::create_dir_all(&profile).unwrap();
-    let status = Command::new(&browser)
+    let mut child = Command::new(&browser)
         .args([
             "--headless",
             "--no-sandbox",
@@ -781,8 +796,21 @@ fn report_renders_in_headless_chromium() {
         ])
         .stdout(Stdio::null())
         .stderr(Stdio::null())
-        .status()
+        .spawn()
         .expect("run chromium");
+    // A browser that hangs must not hang the test suite.
+    let started = std::time::Instant::now();
+    let status = loop {
+        if let Some(s) = child.try_wait().expect("wait for chromium") {
+            break s;
+        }
+        if started.elapsed() > std::time::Duration::from_secs(120) {
+            let _ = child.kill();
+            let _ = child.wait();
+            panic!("chromium did not finish within 120 s");
+        }
+        std::thread::sleep(std::time::Duration::from_millis(100));
+    };
     assert!(status.success(), "chromium failed: {status}");
     let bytes = std::fs::read(&png).unwrap();
     assert_eq!(png_size(&bytes), Some((1200, 2400)));

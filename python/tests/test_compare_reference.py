@@ -48,7 +48,7 @@ OUTCOME = "died_within_30_days"
 MISSING = {"", "NA", "N/A", "N/K", "NK", "NULL", "."}
 
 
-def morbus_bin() -> Path:
+def _binary() -> Path:
     env = os.environ.get("MORBUS_BIN")
     if env:
         return Path(env)
@@ -65,7 +65,7 @@ def morbus_bin() -> Path:
 
 
 def run(*args: str) -> subprocess.CompletedProcess:
-    r = subprocess.run([str(morbus_bin()), *args], capture_output=True, text=True)
+    r = subprocess.run([str(_binary()), *args], capture_output=True, text=True)
     assert r.returncode == 0, f"morbus {' '.join(args)} failed ({r.returncode}):\n{r.stderr}"
     return r
 

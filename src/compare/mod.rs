@@ -59,6 +59,9 @@ individual patient. The c-statistics and models are estimated on this extract on
 they are not validated prediction tools, and differences between indices depend on \
 local coding practice, the lookback and the outcome chosen.";
 
+/// Most levels a categorical adjustment column may have.
+pub const MAX_LEVELS: usize = 50;
+
 /// What to compare against what.
 #[derive(Clone, Debug, Default)]
 pub struct CompareOptions {
@@ -508,6 +511,14 @@ pub fn compare(
         let col_name = &opts.adjust_categorical[k];
         // Levels in byte order; the first is the reference.
         let sorted: Vec<(&Vec<u8>, &u32)> = levels[k].iter().collect();
+        if sorted.len() > MAX_LEVELS {
+            return Err(Error::Usage(format!(
+                "categorical adjustment column '{col_name}' has {} levels among the analysed \
+                 units; at most {MAX_LEVELS} are supported (is it an identifier, or a number \
+                 meant for --adjust?)",
+                sorted.len()
+            )));
+        }
         if sorted.len() < 2 {
             notes.push(format!(
                 "categorical adjustment column '{col_name}' has a single level ('{}') among the analysed units; left out of the models",
@@ -1093,6 +1104,11 @@ fn nice_width(raw: f64) -> f64 {
     10.0 * p
 }
 
+/// A bin edge without rounding noise (0.30000000000000004 → 0.3).
+fn tidy(v: f64) -> f64 {
+    (v * 1e9).round() / 1e9
+}
+
 /// Histogram of the scores: one bin per whole point when the scores are
 /// whole numbers spanning at most 40 points, otherwise about 30 bins of a
 /// round width.
@@ -1114,8 +1130,8 @@ fn histogram(s: &[f64], min: f64, max: f64) -> Vec<Bin> {
         .into_iter()
         .enumerate()
         .map(|(i, count)| Bin {
-            from: start + i as f64 * width,
-            to: start + (i + 1) as f64 * width,
+            from: tidy(start + i as f64 * width),
+            to: tidy(start + (i + 1) as f64 * width),
             count,
         })
         .collect()
@@ -1162,6 +1178,9 @@ mod tests {
         assert_eq!(h.iter().map(|b| b.count).sum::<u64>(), 100);
         assert!(h.len() <= 31, "{}", h.len());
         assert!(h[0].from <= 0.0 && h.last().unwrap().to > 69.3);
+        let h = histogram(&[0.0, 0.1, 0.7, 3.9], 0.0, 3.9);
+        assert!(h.iter().any(|b| b.from == 0.6), "{h:?}");
+        assert_eq!(h.iter().map(|b| b.count).sum::<u64>(), 4);
     }
 
     #[test]

@@ -53,7 +53,7 @@ p.lede { color: var(--muted); margin: 0 0 18px; }
 .card .k { font-size:12px; color:var(--muted); text-transform: uppercase; letter-spacing: .04em; }
 .caution { border-left: 5px solid #c58f12; background:#fbf6ea; padding: 10px 16px; margin: 18px 0; border-radius: 0 6px 6px 0; }
 .caution strong { display:block; margin-bottom:2px; }
-.notes { border-left: 5px solid #7b4b94; background:#f6f2f9; padding: 8px 16px 8px 8px; border-radius: 0 6px 6px 0; }
+.notes { border-left: 5px solid #7b4b94; background:#f6f2f9; padding: 8px 16px 8px 34px; border-radius: 0 6px 6px 0; list-style: disc; }
 .notes li { margin: 3px 0; }
 table { border-collapse: collapse; font-variant-numeric: tabular-nums; margin: 6px 0 12px; font-size: 14px; }
 th, td { padding: 4px 10px; border-bottom: 1px solid var(--line); text-align: right; vertical-align: top; }
