@@ -169,6 +169,36 @@ fn cases() -> Vec<Case> {
         }),
     );
 
+    let r: &[&[u8]] = &[b"id,dx1", b"1,I21", b"2,\"I50\r9\"", b"3,C78"];
+    add(
+        "carriage returns alone as line ends (old Mac), a CR inside quotes",
+        "in.csv",
+        lines(r, b"\r"),
+        wide(),
+        Expect::Accepted(Accepted {
+            eol: b"\r\n",
+            scores: Some(vec!["1", "0", "6"]),
+            ..accepted(r, 1)
+        }),
+    );
+
+    let mut big: Vec<Vec<u8>> = vec![b"id,dx1".to_vec()];
+    for i in 0..80_000 {
+        big.push(format!("{i},{}", ["I21", "I50.9", "C78"][i % 3]).into_bytes());
+    }
+    add(
+        "1 MB with carriage returns alone, read in several blocks",
+        "in.csv",
+        lines(&big.iter().map(|x| &x[..]).collect::<Vec<_>>(), b"\r"),
+        wide(),
+        Expect::Accepted(Accepted {
+            records: big,
+            eol: b"\r\n",
+            provenance: vec![("/codes/read", 80_000.into())],
+            ..accepted(&[], 0)
+        }),
+    );
+
     let r: &[&[u8]] = &[b"\xef\xbb\xbfage,dx1", b"72,I21"];
     add(
         "byte-order mark before the header",
@@ -659,6 +689,26 @@ fn cases() -> Vec<Case> {
         refused(
             1,
             "morbus: error: line 4: record has 1 fields but the header has 3",
+        ),
+    );
+    add(
+        "a row with too few fields after lone carriage returns",
+        "in.csv",
+        b"id,dx1\r1,I21\r2,I50\r3\r4,C78\r".to_vec(),
+        wide(),
+        refused(
+            1,
+            "morbus: error: line 4: record has 1 fields but the header has 2",
+        ),
+    );
+    add(
+        "a row with too many fields after a lone CR among LF lines",
+        "in.csv",
+        b"id,dx1\n1,I21\r2,I50\n3,C78,x\n".to_vec(),
+        wide(),
+        refused(
+            1,
+            "morbus: error: line 4: record has 3 fields but the header has 2",
         ),
     );
     add(

@@ -101,6 +101,7 @@ impl History {
             .next_block()
             .map_err(|e| Error::io("cannot read input", e))?
         {
+            let mut lines = super::LineCursor::new(&block);
             scanner.scan(&block.data, block.last, |rec| -> Result<(), Error> {
                 let Some(p) = plan.as_ref() else {
                     let p = Plan::from_header(cfg, &block, &rec)?;
@@ -112,7 +113,7 @@ impl History {
                 summary.rows_read += 1;
                 p.check_width(&block, &rec)?;
                 let issue = |i: RowIssue| p.issue(i, &block, &rec);
-                let line = super::line_of(&block, rec.offset);
+                let line = lines.line_at(&block, rec.offset);
 
                 // Patient. Rows without an id are nobody's history: each
                 // gets a patient of its own (counted; an error with --strict).

@@ -391,9 +391,37 @@ impl Header {
     }
 }
 
-/// 1-based line of a record at `offset` in a block.
+/// Lines of the records of a block, counted as the records come (in
+/// order), so that asking for every record's line stays linear.
+pub(crate) struct LineCursor {
+    offset: usize,
+    line: u64,
+}
+
+impl LineCursor {
+    pub fn new(block: &Block) -> LineCursor {
+        LineCursor {
+            offset: 0,
+            line: block.first_line,
+        }
+    }
+
+    /// The line of a record at `offset` (not before the previous one asked).
+    pub fn line_at(&mut self, block: &Block, offset: usize) -> u64 {
+        if offset < self.offset {
+            return line_of(block, offset);
+        }
+        let rest = &block.data[self.offset..];
+        self.line += crate::io::line_ends(rest, offset - self.offset);
+        self.offset = offset;
+        self.line
+    }
+}
+
+/// 1-based line of a record at `offset` in a block (linear in `offset`:
+/// for messages; [`LineCursor`] for every record).
 pub(crate) fn line_of(block: &Block, offset: usize) -> u64 {
-    block.first_line + memchr::memchr_iter(b'\n', &block.data[..offset]).count() as u64
+    block.first_line + crate::io::line_ends(&block.data, offset)
 }
 
 /// Why a code of the episode being scored does not count.
@@ -510,12 +538,13 @@ impl Plan {
     /// Checks a data record: a quote left open at the end of the input,
     /// and the field count.
     pub fn check_width(&self, block: &Block, rec: &RecordRef<'_>) -> Result<(), Error> {
-        let line = line_of(block, rec.offset);
         if rec.unclosed_quote {
-            return Err(unclosed_quote(line));
+            return Err(unclosed_quote(line_of(block, rec.offset)));
         }
         if rec.fields.len() != self.ncols {
-            let lines = memchr::memchr_iter(b'\n', rec.raw).count() as u64;
+            // Only here: counting lines is linear in the block.
+            let line = line_of(block, rec.offset);
+            let lines = crate::io::line_ends(rec.raw, rec.raw.len());
             let hint = if lines > 0 {
                 format!(
                     " (the record runs over lines {line}-{}: is a quote left open?)",
