@@ -788,3 +788,34 @@ pub fn score_stream_observed(
         stream::score_plain(engine, cfg, input, output, progress)
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::io::RecordScanner;
+
+    #[test]
+    fn the_line_cursor_agrees_with_counting_from_the_start() {
+        let data = b"h,x\n1,a\r\n\n2,\"b\nc\"\r3,d\r\r\n4,e\n\r5,f".to_vec();
+        let block = Block {
+            data,
+            first_line: 7,
+            last: true,
+            index: 0,
+        };
+        let mut cursor = LineCursor::new(&block);
+        let mut scanner = RecordScanner::new(b',');
+        let mut lines = Vec::new();
+        scanner
+            .scan::<()>(&block.data, true, |rec| {
+                let l = cursor.line_at(&block, rec.offset);
+                assert_eq!(l, line_of(&block, rec.offset));
+                lines.push(l);
+                Ok(())
+            })
+            .unwrap();
+        // h (7), 1 (8), blank (9), 2 spans 10-11, 3 (12), CR CRLF (13), 4
+        // (14), a CR alone after LF (15), 5 (16).
+        assert_eq!(lines, [7, 8, 10, 12, 14, 16]);
+    }
+}
