@@ -141,9 +141,10 @@ pub struct Summary {
     /// Episodes whose date could not be read (scored from their own codes
     /// alone).
     pub unreadable_dates: u64,
-    /// Rows with an empty id field (long layout, or lookback): in the long
-    /// layout they form one unit with an empty id; with a lookback each is
-    /// scored from its own codes alone.
+    /// Rows whose id field is empty or blank (long layout, or lookback): in
+    /// the long layout they are grouped by the field as written, like any
+    /// id (so all empty ones form one unit); with a lookback each is scored
+    /// from its own codes alone.
     pub missing_ids: u64,
     /// Codes of episodes being scored left out as their primary diagnosis.
     pub excluded_primary: u64,
