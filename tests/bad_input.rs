@@ -1316,3 +1316,75 @@ weighting\tpoints\tPoints\tInvented\nweight\tpoints\talpha\t1\n";
     );
     assert!(out.is_empty(), "{out}");
 }
+
+/// Inputs and outputs that cannot be opened, read or written: exit 1 (2 for
+/// a directory given as the input), with the path and the reason.
+#[test]
+fn unreadable_and_unwritable_files() {
+    let dir = TempDir::new("io-failures");
+    let input = dir.write("in.csv", "id,dx1\n1,I21\n");
+    let missing = dir.join("no-such.csv");
+    let cases: Vec<(Vec<String>, i32, String)> = vec![
+        (
+            args(&["score", &missing, "--dx", "dx1"]),
+            1,
+            format!("morbus: error: cannot open {missing}: "),
+        ),
+        (
+            args(&["score", &dir.path().display().to_string(), "--dx", "dx1"]),
+            2,
+            format!(
+                "morbus: error: {} is a directory, not a file",
+                dir.path().display()
+            ),
+        ),
+        (
+            args(&[
+                "score",
+                &input,
+                "--dx",
+                "dx1",
+                "--provenance",
+                &dir.join("no/dir/p.json"),
+            ]),
+            1,
+            format!(
+                "morbus: error: cannot write {}: ",
+                dir.join("no/dir/p.json")
+            ),
+        ),
+        (
+            args(&[
+                "score",
+                &input,
+                "--dx",
+                "dx1",
+                "--output",
+                &dir.join("no/dir/out.csv"),
+            ]),
+            1,
+            format!(
+                "morbus: error: cannot create {}: ",
+                dir.join("no/dir/out.csv")
+            ),
+        ),
+    ];
+    let mut cases = cases;
+    if std::path::Path::new("/dev/full").exists() {
+        cases.push((
+            args(&["score", &input, "--dx", "dx1", "--output", "/dev/full"]),
+            1,
+            "morbus: error: cannot write output: ".to_string(),
+        ));
+    }
+    for (a, code, message) in cases {
+        let o = Command::new(env!("CARGO_BIN_EXE_morbus"))
+            .args(&a)
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&o.stderr);
+        assert_eq!(o.status.code(), Some(code), "{a:?}: {err}");
+        assert!(err.contains(&message), "{a:?}: {err}");
+        assert!(!err.contains("panicked"), "{a:?}: {err}");
+    }
+}
