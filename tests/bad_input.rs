@@ -1388,3 +1388,85 @@ fn unreadable_and_unwritable_files() {
         assert!(!err.contains("panicked"), "{a:?}: {err}");
     }
 }
+
+/// Inputs the fuzzer found (fuzz/fuzz_targets/score_csv.rs), scored as the
+/// fuzz target scores them.
+mod fuzz_regressions {
+    use morbus::io::RecordScanner;
+    use morbus::lists::Catalogue;
+    use morbus::pipeline::{score_stream, ScoreConfig, Summary};
+    use morbus::score::{Engine, IndexSpec, ScoreOptions, DEFAULT_INDICES};
+
+    fn score(input: &[u8], threads: usize, block_size: usize) -> (Vec<u8>, Summary) {
+        let specs = IndexSpec::parse_many(DEFAULT_INDICES).unwrap();
+        let options = ScoreOptions {
+            flags: true,
+            ..ScoreOptions::default()
+        };
+        let engine = Engine::new(&Catalogue::builtin(), &specs, options).unwrap();
+        let cfg = ScoreConfig {
+            dx: vec!["*".into()],
+            dx_sep: Some(b' '),
+            threads,
+            block_size,
+            ..ScoreConfig::default()
+        };
+        let mut out = Vec::new();
+        let s = score_stream(&engine, &cfg, input, &mut out).expect("scores");
+        (out, s)
+    }
+
+    fn records(out: &[u8]) -> u64 {
+        let mut n = 0;
+        RecordScanner::new(b',')
+            .scan::<()>(out, true, |_| {
+                n += 1;
+                Ok(())
+            })
+            .unwrap();
+        n
+    }
+
+    /// crash-55d028fd: a byte-order mark, blank lines, a header of non-UTF-8
+    /// bytes, and later a second mark before a blank line. The parser took
+    /// a mark off the first record after each reset (every block start), and
+    /// then skipped the blank lines after it inside that record: the record
+    /// passed through with a line end in it, so the output had a record more
+    /// than the rows written, and a field's value depended on where a block
+    /// started.
+    #[test]
+    fn a_mark_then_blank_lines_inside_the_input() {
+        let mut input = b"\xef\xbb\xbf".to_vec();
+        input.extend_from_slice(&[b'\n'; 8]);
+        input.extend_from_slice(&[0x94; 19]);
+        input.extend_from_slice(&[b'\n'; 14]);
+        input.extend_from_slice(b"\xef\xbb\xbf\n2C?");
+        let (out, s) = score(&input, 1, 1024);
+        assert_eq!(s.rows_read, 2, "the mark line and '2C?' are rows");
+        assert_eq!(records(&out), s.rows_written + 1);
+        assert!(out.starts_with(&[0x94; 19]), "{out:?}");
+    }
+
+    /// A mark starting a data row is data wherever blocks start: the same
+    /// output for any block size and thread count.
+    #[test]
+    fn a_mark_in_a_data_row_does_not_depend_on_blocks() {
+        let mut input = b"\xef\xbb\xbfdx1,dx2\n".to_vec();
+        for i in 0..400 {
+            if i % 3 == 0 {
+                input.extend_from_slice(b"\xef\xbb\xbf");
+            }
+            input.extend_from_slice(format!("I{:02},E11.{}\n", 20 + i % 10, i % 10).as_bytes());
+        }
+        let (one, s) = score(&input, 1, 1 << 20);
+        assert_eq!(s.rows_read, 400);
+        assert_eq!(s.invalid_codes, 134, "every marked I2x is an invalid value");
+        for block in [1024, 1500, 2048, 4096] {
+            for threads in [1, 2, 3] {
+                let (out, t) = score(&input, threads, block);
+                assert_eq!(out, one, "block {block}, threads {threads}");
+                assert_eq!(t, s);
+            }
+        }
+    }
+}
