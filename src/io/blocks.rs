@@ -194,7 +194,14 @@ impl<R: Read> BlockReader<R> {
                 }
                 return Ok(Some(self.emit(buf, true)));
             }
-            if let Some(cut) = last_boundary(&buf, self.delimiter) {
+            // A byte-order mark starting the input is not part of the first
+            // field (a quote after it opens a quoted field).
+            let skip = if self.index == 0 && buf.starts_with(b"\xef\xbb\xbf") {
+                3
+            } else {
+                0
+            };
+            if let Some(cut) = last_boundary(&buf[skip..], self.delimiter).map(|c| c + skip) {
                 self.carry = buf[cut..].to_vec();
                 buf.truncate(cut);
                 return Ok(Some(self.emit(buf, false)));
@@ -321,6 +328,18 @@ mod tests {
         assert!(!ends_inside_quotes(b"1,\"a\"\"b\"c", b','));
         assert!(!ends_inside_quotes(b"1,a\"bc", b','));
         assert!(!ends_inside_quotes(b"1,abc", b','));
+    }
+
+    #[test]
+    fn a_quote_after_a_byte_order_mark_opens_a_field() {
+        let text = b"\xef\xbb\xbf\"a\nb\",dx\n1,x\n2,y\n3,z\n";
+        for target in 1..text.len() + 2 {
+            let bs = blocks(text, target);
+            let joined: Vec<u8> = bs.iter().flat_map(|b| b.0.clone()).collect();
+            assert_eq!(joined, text.to_vec());
+            // The first block holds the whole header.
+            assert!(bs[0].0.len() >= 12, "target {target}: {:?}", bs[0].0);
+        }
     }
 
     #[test]
