@@ -169,6 +169,36 @@ fn cases() -> Vec<Case> {
         }),
     );
 
+    let r: &[&[u8]] = &[b"id,dx1", b"1,I21", b"2,\"I50\r9\"", b"3,C78"];
+    add(
+        "carriage returns alone as line ends (old Mac), a CR inside quotes",
+        "in.csv",
+        lines(r, b"\r"),
+        wide(),
+        Expect::Accepted(Accepted {
+            eol: b"\r\n",
+            scores: Some(vec!["1", "0", "6"]),
+            ..accepted(r, 1)
+        }),
+    );
+
+    let mut big: Vec<Vec<u8>> = vec![b"id,dx1".to_vec()];
+    for i in 0..80_000 {
+        big.push(format!("{i},{}", ["I21", "I50.9", "C78"][i % 3]).into_bytes());
+    }
+    add(
+        "1 MB with carriage returns alone, read in several blocks",
+        "in.csv",
+        lines(&big.iter().map(|x| &x[..]).collect::<Vec<_>>(), b"\r"),
+        wide(),
+        Expect::Accepted(Accepted {
+            records: big,
+            eol: b"\r\n",
+            provenance: vec![("/codes/read", 80_000.into())],
+            ..accepted(&[], 0)
+        }),
+    );
+
     let r: &[&[u8]] = &[b"\xef\xbb\xbfage,dx1", b"72,I21"];
     add(
         "byte-order mark before the header",
@@ -659,6 +689,26 @@ fn cases() -> Vec<Case> {
         refused(
             1,
             "morbus: error: line 4: record has 1 fields but the header has 3",
+        ),
+    );
+    add(
+        "a row with too few fields after lone carriage returns",
+        "in.csv",
+        b"id,dx1\r1,I21\r2,I50\r3\r4,C78\r".to_vec(),
+        wide(),
+        refused(
+            1,
+            "morbus: error: line 4: record has 1 fields but the header has 2",
+        ),
+    );
+    add(
+        "a row with too many fields after a lone CR among LF lines",
+        "in.csv",
+        b"id,dx1\n1,I21\r2,I50\n3,C78,x\n".to_vec(),
+        wide(),
+        refused(
+            1,
+            "morbus: error: line 4: record has 3 fields but the header has 2",
         ),
     );
     add(
@@ -1265,4 +1315,158 @@ weighting\tpoints\tPoints\tInvented\nweight\tpoints\talpha\t1\n";
         "{err}"
     );
     assert!(out.is_empty(), "{out}");
+}
+
+/// Inputs and outputs that cannot be opened, read or written: exit 1 (2 for
+/// a directory given as the input), with the path and the reason.
+#[test]
+fn unreadable_and_unwritable_files() {
+    let dir = TempDir::new("io-failures");
+    let input = dir.write("in.csv", "id,dx1\n1,I21\n");
+    let missing = dir.join("no-such.csv");
+    let cases: Vec<(Vec<String>, i32, String)> = vec![
+        (
+            args(&["score", &missing, "--dx", "dx1"]),
+            1,
+            format!("morbus: error: cannot open {missing}: "),
+        ),
+        (
+            args(&["score", &dir.path().display().to_string(), "--dx", "dx1"]),
+            2,
+            format!(
+                "morbus: error: {} is a directory, not a file",
+                dir.path().display()
+            ),
+        ),
+        (
+            args(&[
+                "score",
+                &input,
+                "--dx",
+                "dx1",
+                "--provenance",
+                &dir.join("no/dir/p.json"),
+            ]),
+            1,
+            format!(
+                "morbus: error: cannot write {}: ",
+                dir.join("no/dir/p.json")
+            ),
+        ),
+        (
+            args(&[
+                "score",
+                &input,
+                "--dx",
+                "dx1",
+                "--output",
+                &dir.join("no/dir/out.csv"),
+            ]),
+            1,
+            format!(
+                "morbus: error: cannot create {}: ",
+                dir.join("no/dir/out.csv")
+            ),
+        ),
+    ];
+    let mut cases = cases;
+    if std::path::Path::new("/dev/full").exists() {
+        cases.push((
+            args(&["score", &input, "--dx", "dx1", "--output", "/dev/full"]),
+            1,
+            "morbus: error: cannot write output: ".to_string(),
+        ));
+    }
+    for (a, code, message) in cases {
+        let o = Command::new(env!("CARGO_BIN_EXE_morbus"))
+            .args(&a)
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&o.stderr);
+        assert_eq!(o.status.code(), Some(code), "{a:?}: {err}");
+        assert!(err.contains(&message), "{a:?}: {err}");
+        assert!(!err.contains("panicked"), "{a:?}: {err}");
+    }
+}
+
+/// Inputs the fuzzer found (fuzz/fuzz_targets/score_csv.rs), scored as the
+/// fuzz target scores them.
+mod fuzz_regressions {
+    use morbus::io::RecordScanner;
+    use morbus::lists::Catalogue;
+    use morbus::pipeline::{score_stream, ScoreConfig, Summary};
+    use morbus::score::{Engine, IndexSpec, ScoreOptions, DEFAULT_INDICES};
+
+    fn score(input: &[u8], threads: usize, block_size: usize) -> (Vec<u8>, Summary) {
+        let specs = IndexSpec::parse_many(DEFAULT_INDICES).unwrap();
+        let options = ScoreOptions {
+            flags: true,
+            ..ScoreOptions::default()
+        };
+        let engine = Engine::new(&Catalogue::builtin(), &specs, options).unwrap();
+        let cfg = ScoreConfig {
+            dx: vec!["*".into()],
+            dx_sep: Some(b' '),
+            threads,
+            block_size,
+            ..ScoreConfig::default()
+        };
+        let mut out = Vec::new();
+        let s = score_stream(&engine, &cfg, input, &mut out).expect("scores");
+        (out, s)
+    }
+
+    fn records(out: &[u8]) -> u64 {
+        let mut n = 0;
+        RecordScanner::new(b',')
+            .scan::<()>(out, true, |_| {
+                n += 1;
+                Ok(())
+            })
+            .unwrap();
+        n
+    }
+
+    /// crash-55d028fd: a byte-order mark, blank lines, a header of non-UTF-8
+    /// bytes, and later a second mark before a blank line. The parser took
+    /// a mark off the first record after each reset (every block start), and
+    /// then skipped the blank lines after it inside that record: the record
+    /// passed through with a line end in it, so the output had a record more
+    /// than the rows written, and a field's value depended on where a block
+    /// started.
+    #[test]
+    fn a_mark_then_blank_lines_inside_the_input() {
+        let mut input = b"\xef\xbb\xbf".to_vec();
+        input.extend_from_slice(&[b'\n'; 8]);
+        input.extend_from_slice(&[0x94; 19]);
+        input.extend_from_slice(&[b'\n'; 14]);
+        input.extend_from_slice(b"\xef\xbb\xbf\n2C?");
+        let (out, s) = score(&input, 1, 1024);
+        assert_eq!(s.rows_read, 2, "the mark line and '2C?' are rows");
+        assert_eq!(records(&out), s.rows_written + 1);
+        assert!(out.starts_with(&[0x94; 19]), "{out:?}");
+    }
+
+    /// A mark starting a data row is data wherever blocks start: the same
+    /// output for any block size and thread count.
+    #[test]
+    fn a_mark_in_a_data_row_does_not_depend_on_blocks() {
+        let mut input = b"\xef\xbb\xbfdx1,dx2\n".to_vec();
+        for i in 0..400 {
+            if i % 3 == 0 {
+                input.extend_from_slice(b"\xef\xbb\xbf");
+            }
+            input.extend_from_slice(format!("I{:02},E11.{}\n", 20 + i % 10, i % 10).as_bytes());
+        }
+        let (one, s) = score(&input, 1, 1 << 20);
+        assert_eq!(s.rows_read, 400);
+        assert_eq!(s.invalid_codes, 134, "every marked I2x is an invalid value");
+        for block in [1024, 1500, 2048, 4096] {
+            for threads in [1, 2, 3] {
+                let (out, t) = score(&input, threads, block);
+                assert_eq!(out, one, "block {block}, threads {threads}");
+                assert_eq!(t, s);
+            }
+        }
+    }
 }

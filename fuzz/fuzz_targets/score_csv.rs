@@ -58,7 +58,11 @@ fuzz_target!(|data: &[u8]| {
     }
     input.extend_from_slice(body);
     let cfg = ScoreConfig {
-        dx: vec![if fixed_header { "dx*".into() } else { "*".into() }],
+        dx: vec![if fixed_header {
+            "dx*".into()
+        } else {
+            "*".into()
+        }],
         dx_sep: sep.then_some(b' '),
         layout: if long { Layout::Long } else { Layout::Wide },
         id: (long || lookback.is_some()).then(|| "id".into()),

@@ -81,21 +81,44 @@ fn step(state: Q, b: u8, delimiter: u8) -> (Q, bool) {
     }
 }
 
-/// Offset just after the last record boundary in `buf`, if any.
+/// Line ends in `data[..end]`: line feeds, and carriage returns not
+/// followed by a line feed (old Mac files, or a lone CR among LF lines,
+/// which the record parser also takes as a line end). The byte at `end`, if
+/// any, is looked at to tell a lone CR from half a CRLF; a CR that ends
+/// `data` is a line end.
+pub fn line_ends(data: &[u8], end: usize) -> u64 {
+    let head = &data[..end];
+    let lf = memchr::memchr_iter(b'\n', head).count() as u64;
+    let lone_cr = memchr::memchr_iter(b'\r', head)
+        .filter(|&i| data.get(i + 1) != Some(&b'\n'))
+        .count() as u64;
+    lf + lone_cr
+}
+
+/// Offset just after the last record boundary in `buf`, if any: the last
+/// line feed outside quotes or, in text without line feeds, the last lone
+/// carriage return (one with a byte after it that is not a line feed, so
+/// that a CRLF is never cut in two).
 fn last_boundary(buf: &[u8], delimiter: u8) -> Option<usize> {
     if memchr::memchr(b'"', buf).is_none() {
-        return memchr::memrchr(b'\n', buf).map(|p| p + 1);
+        return memchr::memrchr(b'\n', buf).map(|p| p + 1).or_else(|| {
+            memchr::memrchr(b'\r', &buf[..buf.len().saturating_sub(1)]).map(|p| p + 1)
+        });
     }
     let mut state = Q::FieldStart;
     let mut last = None;
+    let mut last_cr = None;
     for (i, &b) in buf.iter().enumerate() {
         let (next, ends) = step(state, b, delimiter);
         if ends {
             last = Some(i + 1);
+        } else if b == b'\r' && next == Q::FieldStart && buf.get(i + 1).is_some_and(|&c| c != b'\n')
+        {
+            last_cr = Some(i + 1);
         }
         state = next;
     }
-    last
+    last.or(last_cr)
 }
 
 /// Whether text starting at a record boundary ends inside a quoted field
@@ -171,7 +194,14 @@ impl<R: Read> BlockReader<R> {
                 }
                 return Ok(Some(self.emit(buf, true)));
             }
-            if let Some(cut) = last_boundary(&buf, self.delimiter) {
+            // A byte-order mark starting the input is not part of the first
+            // field (a quote after it opens a quoted field).
+            let skip = if self.index == 0 && buf.starts_with(b"\xef\xbb\xbf") {
+                3
+            } else {
+                0
+            };
+            if let Some(cut) = last_boundary(&buf[skip..], self.delimiter).map(|c| c + skip) {
                 self.carry = buf[cut..].to_vec();
                 buf.truncate(cut);
                 return Ok(Some(self.emit(buf, false)));
@@ -191,7 +221,7 @@ impl<R: Read> BlockReader<R> {
 
     fn emit(&mut self, data: Vec<u8>, last: bool) -> Block {
         let first_line = self.next_line;
-        self.next_line += memchr::memchr_iter(b'\n', &data).count() as u64;
+        self.next_line += line_ends(&data, data.len());
         let index = self.index;
         self.index += 1;
         Block {
@@ -263,12 +293,53 @@ mod tests {
     }
 
     #[test]
+    fn carriage_returns_alone_end_lines_and_blocks() {
+        assert_eq!(line_ends(b"a\rb\r\nc\nd\r", 9), 4);
+        assert_eq!(line_ends(b"a\rb", 2), 1);
+        // Half a CRLF at the end of what is counted is not a line end.
+        assert_eq!(line_ends(b"a\r\nb", 2), 0);
+        let mut text = b"id,dx\r".to_vec();
+        for i in 0..500 {
+            text.extend_from_slice(format!("{i},\"I{}\"\r", i % 100).as_bytes());
+        }
+        for target in [1024, 1500, 4000] {
+            let bs = blocks(&text, target);
+            assert!(bs.len() > 1, "cut at lone carriage returns");
+            let joined: Vec<u8> = bs.iter().flat_map(|b| b.0.clone()).collect();
+            assert_eq!(joined, text);
+            let mut line = 1;
+            for (data, first, _) in &bs {
+                assert_eq!(*first, line);
+                line += line_ends(data, data.len());
+            }
+            assert_eq!(line, 502);
+        }
+        // CRLF text is never cut between CR and LF.
+        let crlf: Vec<u8> = b"a,b\r\n".repeat(1000);
+        for (data, _, last) in blocks(&crlf, 1024) {
+            assert!(last || data.ends_with(b"\r\n"));
+        }
+    }
+
+    #[test]
     fn open_quote_at_the_end() {
         assert!(ends_inside_quotes(b"1,\"abc", b','));
         assert!(ends_inside_quotes(b"1,\"a\"\"bc\n", b','));
         assert!(!ends_inside_quotes(b"1,\"a\"\"b\"c", b','));
         assert!(!ends_inside_quotes(b"1,a\"bc", b','));
         assert!(!ends_inside_quotes(b"1,abc", b','));
+    }
+
+    #[test]
+    fn a_quote_after_a_byte_order_mark_opens_a_field() {
+        let text = b"\xef\xbb\xbf\"a\nb\",dx\n1,x\n2,y\n3,z\n";
+        for target in 1..text.len() + 2 {
+            let bs = blocks(text, target);
+            let joined: Vec<u8> = bs.iter().flat_map(|b| b.0.clone()).collect();
+            assert_eq!(joined, text.to_vec());
+            // The first block holds the whole header.
+            assert!(bs[0].0.len() >= 12, "target {target}: {:?}", bs[0].0);
+        }
     }
 
     #[test]

@@ -6,7 +6,7 @@ mod blocks;
 mod files;
 mod records;
 
-pub use blocks::{Block, BlockReader};
+pub use blocks::{line_ends, Block, BlockReader};
 pub use files::{open_input, open_output, Input, Output};
 pub use records::{Fields, RecordRef, RecordScanner};
 

@@ -3,6 +3,11 @@
 
 use csv_core::{ReadRecordResult, Reader, ReaderBuilder};
 
+use super::Block;
+
+/// The UTF-8 byte-order mark.
+const BOM: &[u8] = b"\xef\xbb\xbf";
+
 /// The unescaped fields of one record.
 pub struct Fields<'a> {
     out: &'a [u8],
@@ -59,30 +64,71 @@ impl RecordScanner {
         }
     }
 
-    /// Calls `f` for every record of `data`, in order. `last`: `data` ends
-    /// the input (a final record without line end is still a record).
-    /// Stops at the first error `f` returns.
+    /// Calls `f` for every record of `data`, in order. `data` starts the
+    /// input: a UTF-8 byte-order mark before its first record is not part
+    /// of the record's first field (it stays in the record's raw bytes when
+    /// the record follows it directly). `last`: `data` ends the input (a
+    /// final record without line end is still a record). Stops at the first
+    /// error `f` returns.
     pub fn scan<E>(
         &mut self,
         data: &[u8],
         last: bool,
         f: impl FnMut(RecordRef<'_>) -> Result<(), E>,
     ) -> Result<(), E> {
-        self.scan_from(data, 0, last, f)
+        self.scan_inner(data, 0, last, true, f)
+    }
+
+    /// The records of a block: [`RecordScanner::scan`] for the first block
+    /// of the input, [`RecordScanner::scan_from`] its start for the others.
+    pub fn scan_block<E>(
+        &mut self,
+        block: &Block,
+        f: impl FnMut(RecordRef<'_>) -> Result<(), E>,
+    ) -> Result<(), E> {
+        self.scan_inner(&block.data, 0, block.last, block.index == 0, f)
     }
 
     /// Like [`RecordScanner::scan`], starting at byte `start` (a record
-    /// boundary).
+    /// boundary) of data that continues the input: bytes that look like a
+    /// byte-order mark are data here, whatever record they start.
     pub fn scan_from<E>(
         &mut self,
         data: &[u8],
         start: usize,
         last: bool,
+        f: impl FnMut(RecordRef<'_>) -> Result<(), E>,
+    ) -> Result<(), E> {
+        self.scan_inner(data, start, last, false, f)
+    }
+
+    /// Resets the parser so that it never takes a byte-order mark off a
+    /// record: `csv-core` strips one from the first record it reads after a
+    /// reset, which would make a field's value depend on where a block
+    /// starts. Reading one line feed (an empty line, no record) counts as
+    /// that first read.
+    fn reset_core(&mut self) {
+        self.core.reset();
+        let _ = self.core.read_record(b"\n", &mut self.out, &mut self.ends);
+    }
+
+    fn scan_inner<E>(
+        &mut self,
+        data: &[u8],
+        start: usize,
+        last: bool,
+        input_start: bool,
         mut f: impl FnMut(RecordRef<'_>) -> Result<(), E>,
     ) -> Result<(), E> {
-        self.core.reset();
+        self.reset_core();
         let mut pos = start;
+        // A byte-order mark at the start of the input.
+        let mut bom = input_start && data[start..].starts_with(BOM);
+        if bom {
+            pos += BOM.len();
+        }
         loop {
+            let before = pos;
             while pos < data.len() && (data[pos] == b'\n' || data[pos] == b'\r') {
                 pos += 1;
             }
@@ -92,6 +138,12 @@ impl RecordScanner {
             if pos >= data.len() {
                 return Ok(());
             }
+            // The record's raw bytes keep a mark it directly follows.
+            let raw_start = if std::mem::take(&mut bom) && pos == before {
+                pos - BOM.len()
+            } else {
+                pos
+            };
             let start = pos;
             let mut outlen = 0usize;
             let mut endlen = 0usize;
@@ -151,15 +203,15 @@ impl RecordScanner {
             }
             if end == start && endlen <= 1 && outlen == 0 {
                 // Only line ends: not a record.
-                self.core.reset();
+                self.reset_core();
                 continue;
             }
             let unclosed_quote = last
                 && pos >= data.len()
                 && super::blocks::ends_inside_quotes(&data[start..], self.delimiter);
             let rec = RecordRef {
-                raw: &data[start..end],
-                offset: start,
+                raw: &data[raw_start..end],
+                offset: raw_start,
                 crlf,
                 unclosed_quote,
                 fields: Fields {
@@ -221,6 +273,43 @@ mod tests {
         })
         .unwrap();
         assert!(marks.iter().all(|m| !m));
+    }
+
+    #[test]
+    fn a_byte_order_mark_counts_only_at_the_start_of_the_input() {
+        let fields = |data: &[u8], input_start: bool| {
+            let mut s = RecordScanner::new(b',');
+            let mut v = Vec::new();
+            let mut each = |r: RecordRef<'_>| -> Result<(), ()> {
+                v.push((r.raw.to_vec(), r.fields.get(0).to_vec()));
+                Ok(())
+            };
+            if input_start {
+                s.scan(data, true, &mut each).unwrap();
+            } else {
+                s.scan_from(data, 0, true, &mut each).unwrap();
+            }
+            v
+        };
+        let bom = "\u{feff}";
+        // At the start of the input: not in the field, kept in the raw bytes.
+        let v = fields(
+            format!("{bom}\"a\",b\n{bom}c,d\n\n{bom}e,f\n").as_bytes(),
+            true,
+        );
+        assert_eq!(v[0].0, format!("{bom}\"a\",b").as_bytes());
+        assert_eq!(v[0].1, b"a");
+        // Anywhere else, even after a blank line or at a block start: data.
+        assert_eq!(v[1].1, format!("{bom}c").as_bytes());
+        assert_eq!(v[2].1, format!("{bom}e").as_bytes());
+        let v = fields(format!("{bom}c,d\n").as_bytes(), false);
+        assert_eq!(v[0].1, format!("{bom}c").as_bytes());
+        // A mark followed by blank lines: the record after them has no mark.
+        let v = fields(format!("{bom}\n\n\na,b\n").as_bytes(), true);
+        assert_eq!(v.len(), 1);
+        assert_eq!(v[0].0, b"a,b");
+        // Only a mark: no record.
+        assert!(fields(bom.as_bytes(), true).is_empty());
     }
 
     #[test]

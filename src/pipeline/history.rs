@@ -130,16 +130,12 @@ fn read_block(
         codes: Vec::new(),
     };
     // Lines counted incrementally: O(block) per block.
-    let mut lines = (block.first_line, 0usize);
+    let mut lines = super::LineCursor::new(block);
     let r = scanner.scan_from(&block.data, start, block.last, |rec| -> Result<(), Error> {
         b.summary.rows_read += 1;
         p.check_width(block, &rec)?;
         let issue = |i: RowIssue| p.issue(i, block, &rec);
-        let mut line = || {
-            lines.0 += memchr::memchr_iter(b'\n', &block.data[lines.1..rec.offset]).count() as u64;
-            lines.1 = rec.offset;
-            lines.0
-        };
+        let mut line = || lines.line_at(block, rec.offset);
         let no_id =
             p.id.is_some_and(|c| rec.fields.get(c).trim_ascii().is_empty());
         if no_id {

@@ -142,9 +142,10 @@ pub struct Summary {
     /// Episodes whose date could not be read (scored from their own codes
     /// alone).
     pub unreadable_dates: u64,
-    /// Rows with an empty id field (long layout, or lookback): in the long
-    /// layout they form one unit with an empty id; with a lookback each is
-    /// scored from its own codes alone.
+    /// Rows whose id field is empty or blank (long layout, or lookback): in
+    /// the long layout they are grouped by the field as written, like any
+    /// id (so all empty ones form one unit); with a lookback each is scored
+    /// from its own codes alone.
     pub missing_ids: u64,
     /// Codes of episodes being scored left out as their primary diagnosis.
     pub excluded_primary: u64,
@@ -416,9 +417,37 @@ impl Header {
     }
 }
 
-/// 1-based line of a record at `offset` in a block.
+/// Lines of the records of a block, counted as the records come (in
+/// order), so that asking for every record's line stays linear.
+pub(crate) struct LineCursor {
+    offset: usize,
+    line: u64,
+}
+
+impl LineCursor {
+    pub fn new(block: &Block) -> LineCursor {
+        LineCursor {
+            offset: 0,
+            line: block.first_line,
+        }
+    }
+
+    /// The line of a record at `offset` (not before the previous one asked).
+    pub fn line_at(&mut self, block: &Block, offset: usize) -> u64 {
+        if offset < self.offset {
+            return line_of(block, offset);
+        }
+        let rest = &block.data[self.offset..];
+        self.line += crate::io::line_ends(rest, offset - self.offset);
+        self.offset = offset;
+        self.line
+    }
+}
+
+/// 1-based line of a record at `offset` in a block (linear in `offset`:
+/// for messages; [`LineCursor`] for every record).
 pub(crate) fn line_of(block: &Block, offset: usize) -> u64 {
-    block.first_line + memchr::memchr_iter(b'\n', &block.data[..offset]).count() as u64
+    block.first_line + crate::io::line_ends(&block.data, offset)
 }
 
 /// Why a code of the episode being scored does not count.
@@ -543,8 +572,9 @@ impl Plan {
             return Err(unclosed_quote(line_of(block, rec.offset)));
         }
         if rec.fields.len() != self.ncols {
+            // Only here: counting lines is linear in the block.
             let line = line_of(block, rec.offset);
-            let lines = memchr::memchr_iter(b'\n', rec.raw).count() as u64;
+            let lines = crate::io::line_ends(rec.raw, rec.raw.len());
             let hint = if lines > 0 {
                 format!(
                     " (the record runs over lines {line}-{}: is a quote left open?)",
@@ -786,5 +816,36 @@ pub fn score_stream_observed(
         history::score_history(engine, cfg, input, output)
     } else {
         stream::score_plain(engine, cfg, input, output, progress)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::io::RecordScanner;
+
+    #[test]
+    fn the_line_cursor_agrees_with_counting_from_the_start() {
+        let data = b"h,x\n1,a\r\n\n2,\"b\nc\"\r3,d\r\r\n4,e\n\r5,f".to_vec();
+        let block = Block {
+            data,
+            first_line: 7,
+            last: true,
+            index: 0,
+        };
+        let mut cursor = LineCursor::new(&block);
+        let mut scanner = RecordScanner::new(b',');
+        let mut lines = Vec::new();
+        scanner
+            .scan::<()>(&block.data, true, |rec| {
+                let l = cursor.line_at(&block, rec.offset);
+                assert_eq!(l, line_of(&block, rec.offset));
+                lines.push(l);
+                Ok(())
+            })
+            .unwrap();
+        // h (7), 1 (8), blank (9), 2 spans 10-11, 3 (12), CR CRLF (13), 4
+        // (14), a CR alone after LF (15), 5 (16).
+        assert_eq!(lines, [7, 8, 10, 12, 14, 16]);
     }
 }

@@ -49,7 +49,7 @@ fn score_long(
         .next_block()
         .map_err(|e| Error::io("cannot read input", e))?
     {
-        scanner.scan(&block.data, block.last, |rec| -> Result<(), Error> {
+        scanner.scan_block(&block, |rec| -> Result<(), Error> {
             let Some(p) = plan.as_ref() else {
                 let p = Plan::from_header(cfg, &block, &rec)?;
                 summary.dx_columns = p.dx_names();
