@@ -15,7 +15,11 @@
 //! - [`io`]: streaming delimited text in and out;
 //! - [`pipeline`]: `score` over an extract, wide or long, with its summary;
 //! - [`columnar`]: `score` over in-memory columns (Arrow arrays, data frames);
-//! - [`provenance`]: what produced an output (tool, lists, options, counts).
+//! - [`provenance`]: what produced an output (tool, lists, options, counts);
+//! - [`stats`]: the numerics of `compare` (c-statistics, DeLong, logistic
+//!   regression, rank correlation);
+//! - [`compare`]: several index specifications side by side on one extract,
+//!   as a table, JSON or a self-contained HTML report.
 //!
 //! ```
 //! use morbus::lists::Catalogue;
@@ -35,6 +39,7 @@
 
 pub mod code;
 pub mod columnar;
+pub mod compare;
 pub mod error;
 pub mod io;
 pub mod lists;

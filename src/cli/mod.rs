@@ -38,8 +38,45 @@ enum Command {
     Score(Box<ScoreArgs>),
     /// Show, code by code, how each episode's scores come about.
     Explain(Box<ExplainArgs>),
+    /// Compare index specifications on one extract: prevalence, distributions,
+    /// c-statistics, logistic models, pairwise tests.
+    Compare(Box<CompareArgs>),
     /// Code lists: the table of available lists, or show, export, check, diff.
     Lists(ListsArgs),
+}
+
+#[derive(Args)]
+#[command(after_help = "\
+The unit is the episode (a wide row; a long-layout episode, or each id without --episode); \
+with --lookback the scores come from the patient history as in `score`. Without --index every \
+weighting of every list is compared. With --age, lists with age points are also compared with \
+their age points added (units without a readable age are then left out).
+
+Units are analysed when the outcome is 0 or 1 and every adjustment column has a value; empty, \
+NA, N/A, N/K, NK, NULL and . (any case) are missing (counted and left out). Any other outcome value, or a non-number in an \
+--adjust column, stops the run with the line (exit 1). A categorical column (--adjust-cat) enters \
+the models as 0/1 indicators, one per level except the reference: the first level in byte order \
+of the values as written.
+
+The results describe groups of patients for research and risk adjustment, not individuals.")]
+struct CompareArgs {
+    #[command(flatten)]
+    input: InputArgs,
+    /// The 0/1 outcome column.
+    #[arg(long, value_name = "COL", required = true)]
+    outcome: String,
+    /// Numeric adjustment columns for the models (e.g. age), comma-separated or repeated.
+    #[arg(long, value_name = "COLS")]
+    adjust: Vec<String>,
+    /// Categorical adjustment columns (e.g. sex), one indicator per level except the first.
+    #[arg(long = "adjust-cat", value_name = "COLS")]
+    adjust_cat: Vec<String>,
+    /// Also write the results as JSON to this file.
+    #[arg(long, value_name = "FILE")]
+    json: Option<PathBuf>,
+    /// Also write a self-contained HTML report with charts to this file.
+    #[arg(long, value_name = "FILE")]
+    report: Option<PathBuf>,
 }
 
 #[derive(Args)]
@@ -121,13 +158,17 @@ struct InputArgs {
     /// Directory of code lists (*.tsv) that add to or replace the built-ins.
     #[arg(long, value_name = "DIR")]
     lists: Option<PathBuf>,
-    /// Treat every warning (invalid code, unreadable age) as an error.
+    /// Stop (exit 3) at the first warning, with its line: an invalid code, a missing or
+    /// unreadable age or date, a row with an empty --id, or a warning of a list loaded
+    /// with --lists. Input that cannot be read at all (wrong field count, a quote never
+    /// closed) fails with exit 1, with or without --strict.
     #[arg(long)]
     strict: bool,
     /// Do not print the summary or the progress line on standard error.
     #[arg(long, short)]
     quiet: bool,
-    /// Worker threads for wide scoring (default: one per core).
+    /// Worker threads for wide scoring and for `compare`'s numerics (default: one per core;
+    /// at most 256).
     #[arg(long, value_name = "N", default_value_t = 0)]
     threads: usize,
 }
@@ -212,6 +253,7 @@ pub fn run() -> i32 {
     let result = match cli.command {
         Command::Score(a) => score(*a),
         Command::Explain(a) => explain(*a),
+        Command::Compare(a) => compare(*a),
         Command::Lists(a) => lists_command(a),
     };
     match result {
@@ -240,7 +282,8 @@ fn one_char(text: &str, what: &str) -> Result<u8, Error> {
 
 /// The built-in lists plus those of `--lists DIR` (which replace built-ins of
 /// the same name, saying so on stderr).
-fn catalogue(dir: Option<&PathBuf>, quiet: bool) -> Result<Catalogue, Error> {
+/// With `strict`, a list loaded with warnings stops the run (exit 3).
+fn catalogue(dir: Option<&PathBuf>, quiet: bool, strict: bool) -> Result<Catalogue, Error> {
     let mut cat = Catalogue::builtin();
     if let Some(dir) = dir {
         let loaded = lists::load_dir(dir)?;
@@ -249,6 +292,18 @@ fn catalogue(dir: Option<&PathBuf>, quiet: bool) -> Result<Catalogue, Error> {
                 "no code lists (*.tsv) found in {}",
                 dir.display()
             )));
+        }
+        if strict {
+            let warnings: Vec<String> = loaded
+                .iter()
+                .flat_map(|l| l.warnings.iter().map(|w| w.to_string()))
+                .collect();
+            if !warnings.is_empty() {
+                return Err(Error::Strict {
+                    line: None,
+                    message: format!("code list warning: {}", warnings.join("; ")),
+                });
+            }
         }
         for l in loaded {
             for w in &l.warnings {
@@ -267,13 +322,22 @@ fn catalogue(dir: Option<&PathBuf>, quiet: bool) -> Result<Catalogue, Error> {
 }
 
 fn engine_for(a: &InputArgs, flags: bool) -> Result<(Catalogue, Engine), Error> {
-    let cat = catalogue(a.lists.as_ref(), a.quiet)?;
-    let spec_text = if a.index.is_empty() {
-        DEFAULT_INDICES.to_string()
+    engine_with_default(a, flags, |_| {
+        IndexSpec::parse_many(DEFAULT_INDICES).map_err(Error::from)
+    })
+}
+
+fn engine_with_default(
+    a: &InputArgs,
+    flags: bool,
+    default: impl FnOnce(&Catalogue) -> Result<Vec<IndexSpec>, Error>,
+) -> Result<(Catalogue, Engine), Error> {
+    let cat = catalogue(a.lists.as_ref(), a.quiet, a.strict)?;
+    let specs = if a.index.is_empty() {
+        default(&cat)?
     } else {
-        a.index.join(",")
+        IndexSpec::parse_many(&a.index.join(","))?
     };
-    let specs = IndexSpec::parse_many(&spec_text)?;
     let options = ScoreOptions {
         hierarchy: !a.no_hierarchy,
         flags,
@@ -423,6 +487,49 @@ fn explain(a: ExplainArgs) -> Result<(), Error> {
     Ok(())
 }
 
+fn split_columns(items: &[String]) -> Vec<String> {
+    items
+        .iter()
+        .flat_map(|s| s.split(','))
+        .map(|s| s.trim().to_string())
+        .filter(|s| !s.is_empty())
+        .collect()
+}
+
+fn compare(a: CompareArgs) -> Result<(), Error> {
+    let (_cat, engine) =
+        engine_with_default(&a.input, false, |cat| Ok(morbus::compare::all_specs(cat)))?;
+    let cfg = config_for(&a.input)?;
+    let opts = morbus::compare::CompareOptions {
+        outcome: a.outcome.trim().to_string(),
+        adjust: split_columns(&a.adjust),
+        adjust_categorical: split_columns(&a.adjust_cat),
+    };
+    let input = morbus::io::open_input(a.input.input.as_deref())?;
+    let (result, summary) = morbus::compare::compare(&engine, &cfg, &opts, input.reader)?;
+    let write_file = |path: &PathBuf, text: &str| -> Result<(), Error> {
+        std::fs::write(path, text)
+            .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))
+    };
+    if let Some(p) = &a.json {
+        let text = serde_json::to_string_pretty(&result)
+            .map_err(|e| Error::Usage(format!("cannot encode the results as JSON: {e}")))?;
+        write_file(p, &(text + "\n"))?;
+    }
+    if let Some(p) = &a.report {
+        write_file(p, &morbus::compare::html_report(&result))?;
+    }
+    let mut out = std::io::stdout().lock();
+    out.write_all(morbus::compare::text_table(&result).as_bytes())
+        .and_then(|()| out.flush())
+        .map_err(|e| Error::io("cannot write output", e))?;
+    if !a.input.quiet {
+        // compare writes no rows: leave that count out of the shared summary.
+        eprintln!("{}", summary.report().replacen(", 0 rows written", "", 1));
+    }
+    Ok(())
+}
+
 fn list_table(cat: &Catalogue) -> Result<(), Error> {
     let mut out = std::io::stdout().lock();
     let rows: Vec<[String; 8]> = cat
@@ -488,15 +595,15 @@ fn list_table(cat: &Catalogue) -> Result<(), Error> {
 
 fn lists_command(a: ListsArgs) -> Result<(), Error> {
     match a.command {
-        None => list_table(&catalogue(a.lists.as_ref(), false)?),
+        None => list_table(&catalogue(a.lists.as_ref(), false, false)?),
         Some(ListsCommand::Check { path }) => list_cmds::check(&path),
         Some(ListsCommand::Show { name, json }) => {
-            let cat = catalogue(a.lists.as_ref(), false)?;
+            let cat = catalogue(a.lists.as_ref(), false, false)?;
             let l = resolve_list(&name, &cat)?;
             list_cmds::show(&l.list, json)
         }
         Some(ListsCommand::Export { name, dir, force }) => {
-            let cat = catalogue(a.lists.as_ref(), false)?;
+            let cat = catalogue(a.lists.as_ref(), false, false)?;
             let l = resolve_list(&name, &cat)?;
             let path = lists::export_to_dir(&l.list, &dir, force)?;
             eprintln!(
@@ -510,7 +617,7 @@ fn lists_command(a: ListsArgs) -> Result<(), Error> {
             Ok(())
         }
         Some(ListsCommand::Diff { a: la, b: lb, json }) => {
-            let cat = catalogue(a.lists.as_ref(), false)?;
+            let cat = catalogue(a.lists.as_ref(), false, false)?;
             let left = resolve_list(&la, &cat)?;
             let right = resolve_list(&lb, &cat)?;
             list_cmds::diff(&left.list, &right.list, json)

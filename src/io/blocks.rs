@@ -30,7 +30,11 @@ pub struct BlockReader<R: Read> {
     delimiter: u8,
     bytes_read: u64,
     index: u64,
+    max_record: usize,
 }
+
+/// Longest record the reader accepts ([`BlockReader::with_max_record`]).
+pub const MAX_RECORD_BYTES: usize = 256 << 20;
 
 #[derive(Clone, Copy, PartialEq)]
 enum Q {
@@ -38,6 +42,43 @@ enum Q {
     Unquoted,
     Quoted,
     QuoteInQuoted,
+}
+
+/// One step of the quoting state machine; `true` in the result: `b` ends a
+/// record.
+#[inline]
+fn step(state: Q, b: u8, delimiter: u8) -> (Q, bool) {
+    match state {
+        Q::FieldStart | Q::Unquoted => {
+            if b == b'\n' {
+                (Q::FieldStart, true)
+            } else if b == delimiter || b == b'\r' {
+                (Q::FieldStart, false)
+            } else if b == b'"' && state == Q::FieldStart {
+                (Q::Quoted, false)
+            } else {
+                (Q::Unquoted, false)
+            }
+        }
+        Q::Quoted => {
+            if b == b'"' {
+                (Q::QuoteInQuoted, false)
+            } else {
+                (Q::Quoted, false)
+            }
+        }
+        Q::QuoteInQuoted => {
+            if b == b'"' {
+                (Q::Quoted, false)
+            } else if b == b'\n' {
+                (Q::FieldStart, true)
+            } else if b == delimiter || b == b'\r' {
+                (Q::FieldStart, false)
+            } else {
+                (Q::Unquoted, false)
+            }
+        }
+    }
 }
 
 /// Offset just after the last record boundary in `buf`, if any.
@@ -48,41 +89,25 @@ fn last_boundary(buf: &[u8], delimiter: u8) -> Option<usize> {
     let mut state = Q::FieldStart;
     let mut last = None;
     for (i, &b) in buf.iter().enumerate() {
-        state = match state {
-            Q::FieldStart | Q::Unquoted => {
-                if b == b'\n' {
-                    last = Some(i + 1);
-                    Q::FieldStart
-                } else if b == delimiter || b == b'\r' {
-                    Q::FieldStart
-                } else if b == b'"' && state == Q::FieldStart {
-                    Q::Quoted
-                } else {
-                    Q::Unquoted
-                }
-            }
-            Q::Quoted => {
-                if b == b'"' {
-                    Q::QuoteInQuoted
-                } else {
-                    Q::Quoted
-                }
-            }
-            Q::QuoteInQuoted => {
-                if b == b'"' {
-                    Q::Quoted
-                } else if b == b'\n' {
-                    last = Some(i + 1);
-                    Q::FieldStart
-                } else if b == delimiter || b == b'\r' {
-                    Q::FieldStart
-                } else {
-                    Q::Unquoted
-                }
-            }
-        };
+        let (next, ends) = step(state, b, delimiter);
+        if ends {
+            last = Some(i + 1);
+        }
+        state = next;
     }
     last
+}
+
+/// Whether text starting at a record boundary ends inside a quoted field
+/// (a quote opened and never closed).
+pub(crate) fn ends_inside_quotes(buf: &[u8], delimiter: u8) -> bool {
+    if memchr::memchr(b'"', buf).is_none() {
+        return false;
+    }
+    let state = buf
+        .iter()
+        .fold(Q::FieldStart, |s, &b| step(s, b, delimiter).0);
+    state == Q::Quoted
 }
 
 impl<R: Read> BlockReader<R> {
@@ -98,7 +123,16 @@ impl<R: Read> BlockReader<R> {
             delimiter,
             bytes_read: 0,
             index: 0,
+            max_record: MAX_RECORD_BYTES,
         }
+    }
+
+    /// Sets the longest record accepted (default [`MAX_RECORD_BYTES`]): a
+    /// record that runs past it, which is nearly always a quote left open,
+    /// fails with its line number instead of filling the memory.
+    pub fn with_max_record(mut self, bytes: usize) -> Self {
+        self.max_record = bytes.max(1);
+        self
     }
 
     /// Bytes read from the underlying reader so far.
@@ -142,7 +176,16 @@ impl<R: Read> BlockReader<R> {
                 buf.truncate(cut);
                 return Ok(Some(self.emit(buf, false)));
             }
-            want = buf.len() * 2;
+            if buf.len() > self.max_record {
+                return Err(io::Error::new(
+                    io::ErrorKind::InvalidData,
+                    format!(
+                        "line {}: a record runs past {} bytes without ending; is a quote left open?",
+                        self.next_line, self.max_record
+                    ),
+                ));
+            }
+            want = (buf.len() * 2).min(self.max_record + 1).max(buf.len() + 1);
         }
     }
 
@@ -189,6 +232,43 @@ mod tests {
                 }
             }
         }
+    }
+
+    #[test]
+    fn a_record_past_the_limit_fails_with_its_line() {
+        let mut text = b"h\n1\n2,\"open\n".to_vec();
+        text.extend(std::iter::repeat_n(b'x', 10_000));
+        let mut r = BlockReader::new(&text[..], b',', 1024).with_max_record(4096);
+        let mut err = None;
+        loop {
+            match r.next_block() {
+                Ok(Some(_)) => {}
+                Ok(None) => break,
+                Err(e) => {
+                    err = Some(e);
+                    break;
+                }
+            }
+        }
+        let e = err.expect("the open quote runs past the limit");
+        assert_eq!(e.kind(), io::ErrorKind::InvalidData);
+        assert!(e.to_string().starts_with("line 3: "), "{e}");
+        // The same text under the default limit reads to the end.
+        let mut r = BlockReader::new(&text[..], b',', 1024);
+        let mut n = 0;
+        while let Some(b) = r.next_block().unwrap() {
+            n += b.data.len();
+        }
+        assert_eq!(n, text.len());
+    }
+
+    #[test]
+    fn open_quote_at_the_end() {
+        assert!(ends_inside_quotes(b"1,\"abc", b','));
+        assert!(ends_inside_quotes(b"1,\"a\"\"bc\n", b','));
+        assert!(!ends_inside_quotes(b"1,\"a\"\"b\"c", b','));
+        assert!(!ends_inside_quotes(b"1,a\"bc", b','));
+        assert!(!ends_inside_quotes(b"1,abc", b','));
     }
 
     #[test]

@@ -35,12 +35,16 @@ pub struct RecordRef<'a> {
     pub offset: usize,
     /// Whether the record ended with `\r\n` (or `\r`).
     pub crlf: bool,
+    /// The input ends inside a quoted field of this record (a quote opened
+    /// and never closed): the record and its fields are what was there.
+    pub unclosed_quote: bool,
     pub fields: Fields<'a>,
 }
 
 /// A reusable record reader.
 pub struct RecordScanner {
     core: Reader,
+    delimiter: u8,
     out: Vec<u8>,
     ends: Vec<usize>,
 }
@@ -49,6 +53,7 @@ impl RecordScanner {
     pub fn new(delimiter: u8) -> RecordScanner {
         RecordScanner {
             core: ReaderBuilder::new().delimiter(delimiter).build(),
+            delimiter,
             out: vec![0; 1 << 12],
             ends: vec![0; 64],
         }
@@ -149,10 +154,14 @@ impl RecordScanner {
                 self.core.reset();
                 continue;
             }
+            let unclosed_quote = last
+                && pos >= data.len()
+                && super::blocks::ends_inside_quotes(&data[start..], self.delimiter);
             let rec = RecordRef {
                 raw: &data[start..end],
                 offset: start,
                 crlf,
+                unclosed_quote,
                 fields: Fields {
                     out: &self.out[..outlen],
                     ends: &self.ends[..endlen],
@@ -192,6 +201,26 @@ mod tests {
         assert_eq!(v[2].1, ["last", ""]);
         assert_eq!(v[3].0, "1,2");
         assert_eq!(v[3].1, ["1", "2"]);
+    }
+
+    #[test]
+    fn an_open_quote_at_the_end_is_marked() {
+        let mut s = RecordScanner::new(b',');
+        let mut marks = Vec::new();
+        s.scan::<()>(b"a,b\n1,\"x\n\"\n2,\"open\n", true, |r| {
+            marks.push(r.unclosed_quote);
+            Ok(())
+        })
+        .unwrap();
+        assert_eq!(marks, [false, false, true]);
+        // Not at the end of the input: the record is not finished yet.
+        let mut marks = Vec::new();
+        s.scan::<()>(b"2,\"open\n", false, |r| {
+            marks.push(r.unclosed_quote);
+            Ok(())
+        })
+        .unwrap();
+        assert!(marks.iter().all(|m| !m));
     }
 
     #[test]

@@ -16,7 +16,7 @@ use std::io::{Read, Write};
 
 use super::parallel::run_blocks;
 use super::stream::merge;
-use super::{check_collisions, Exclusion, Header, Layout, Plan, RowIssue, ScoreConfig, Summary};
+use super::{check_collisions, Exclusion, Layout, Plan, RowIssue, ScoreConfig, Summary};
 use crate::code::Code;
 use crate::io::{write_field, RecordScanner};
 use crate::matcher::KeyHasher;
@@ -83,6 +83,9 @@ enum DateRead {
 
 /// One data row as a worker read it.
 struct RowRead {
+    /// An id column was given but this row's id is empty: the row is
+    /// nobody's history and gets a patient of its own.
+    no_id: bool,
     pid: (usize, usize),
     ekey: (usize, usize),
     date: DateRead,
@@ -126,11 +129,25 @@ fn read_block(
         raw_ends: Vec::new(),
         codes: Vec::new(),
     };
+    // Lines counted incrementally: O(block) per block.
     let mut lines = (block.first_line, 0usize);
     let r = scanner.scan_from(&block.data, start, block.last, |rec| -> Result<(), Error> {
         b.summary.rows_read += 1;
         p.check_width(block, &rec)?;
         let issue = |i: RowIssue| p.issue(i, block, &rec);
+        let mut line = || {
+            lines.0 += memchr::memchr_iter(b'\n', &block.data[lines.1..rec.offset]).count() as u64;
+            lines.1 = rec.offset;
+            lines.0
+        };
+        let no_id =
+            p.id.is_some_and(|c| rec.fields.get(c).trim_ascii().is_empty());
+        if no_id {
+            if cfg.strict {
+                return Err(p.missing_id(line()));
+            }
+            b.summary.missing_ids += 1;
+        }
         let id = |c: Option<usize>, ids: &mut Vec<u8>| {
             let s = ids.len();
             if let Some(c) = c {
@@ -147,16 +164,10 @@ fn read_block(
                 if cfg.strict {
                     return Err(match raw {
                         Some(v) => issue(RowIssue::UnreadableDate(v)),
-                        None => {
-                            // Lines counted incrementally: O(block) per block.
-                            lines.0 += memchr::memchr_iter(b'\n', &block.data[lines.1..rec.offset])
-                                .count() as u64;
-                            lines.1 = rec.offset;
-                            Error::Strict {
-                                line: Some(lines.0),
-                                message: "missing date".into(),
-                            }
-                        }
+                        None => Error::Strict {
+                            line: Some(line()),
+                            message: "missing date".into(),
+                        },
                     });
                 }
                 if raw.is_some() {
@@ -202,6 +213,7 @@ fn read_block(
             b.raw_ends.push(b.raw.len());
         }
         b.rows.push(RowRead {
+            no_id,
             pid,
             ekey,
             date,
@@ -241,12 +253,7 @@ impl History {
         let (plan, header_raw) = run_blocks(
             cfg,
             input,
-            |rec| {
-                Ok((
-                    Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf)?,
-                    rec.raw.to_vec(),
-                ))
-            },
+            |block, rec| Ok((Plan::from_header(cfg, block, rec)?, rec.raw.to_vec())),
             |h, block, start, scanner| {
                 read_block(
                     engine,
@@ -264,31 +271,36 @@ impl History {
                 for (i, r) in b.rows.iter().enumerate() {
                     rows_seen += 1;
                     let pid = &b.ids[r.pid.0..r.pid.1];
-                    let patient = match patient_index.get(pid) {
-                        Some(&x) => x,
-                        None => {
-                            let x = patients.len() as u32;
-                            patient_index.insert(pid.into(), x);
-                            patients.push(pid.into());
-                            x
-                        }
-                    };
-                    let fresh = |episodes: &mut Vec<Episode>,
-                                 own_all: &mut Vec<u64>,
-                                 own_current: &mut Vec<u64>| {
-                        episodes.push(Episode {
-                            patient,
-                            date: None,
-                            age: None,
-                            row: rows_seen,
-                            date_unreadable: false,
-                        });
-                        own_all.resize(own_all.len() + words, 0);
-                        if exclusions {
-                            own_current.resize(own_current.len() + words, 0);
-                        }
-                        (episodes.len() - 1) as u32
-                    };
+                    // A new episode's patient; rows without an id get a
+                    // patient of their own.
+                    let mut fresh =
+                        |episodes: &mut Vec<Episode>,
+                         own_all: &mut Vec<u64>,
+                         own_current: &mut Vec<u64>| {
+                            let patient = match patient_index.get(pid) {
+                                Some(&x) if !r.no_id => x,
+                                _ => {
+                                    let x = patients.len() as u32;
+                                    if !r.no_id {
+                                        patient_index.insert(pid.into(), x);
+                                    }
+                                    patients.push(pid.into());
+                                    x
+                                }
+                            };
+                            episodes.push(Episode {
+                                patient,
+                                date: None,
+                                age: None,
+                                row: rows_seen,
+                                date_unreadable: false,
+                            });
+                            own_all.resize(own_all.len() + words, 0);
+                            if exclusions {
+                                own_current.resize(own_current.len() + words, 0);
+                            }
+                            (episodes.len() - 1) as u32
+                        };
                     // Every wide row is an episode; in the long layout one
                     // per (patient, episode value), or per patient.
                     let e = match cfg.layout {

@@ -70,11 +70,14 @@ pub struct ScoreConfig {
     pub age: Option<String>,
     /// Field delimiter (default `,`).
     pub delimiter: u8,
-    /// Stop at the first warning (invalid code, unreadable age or date).
+    /// Stop at the first warning: an invalid code, a missing or unreadable
+    /// age or date, a row without an id (long layout, lookback), a quote
+    /// left open.
     pub strict: bool,
     /// Preferred block size in bytes.
     pub block_size: usize,
-    /// Worker threads for the wide layout without lookback (0: one per core).
+    /// Worker threads for the wide layout without lookback (0: one per core;
+    /// at most 256).
     pub threads: usize,
 }
 
@@ -125,7 +128,8 @@ pub struct Summary {
     pub codes_read: u64,
     /// Non-empty diagnosis values that were not ICD-10-shaped.
     pub invalid_codes: u64,
-    /// Invalid values and their counts (at most 10,000 distinct kept).
+    /// Invalid values and their counts (at most 10,000 distinct kept, each
+    /// cut to [`INVALID_VALUE_BYTES`]).
     pub invalid_values: HashMap<Vec<u8>, u64>,
     /// Age fields that were empty.
     pub missing_ages: u64,
@@ -138,6 +142,10 @@ pub struct Summary {
     /// Episodes whose date could not be read (scored from their own codes
     /// alone).
     pub unreadable_dates: u64,
+    /// Rows with an empty id field (long layout, or lookback): in the long
+    /// layout they form one unit with an empty id; with a lookback each is
+    /// scored from its own codes alone.
+    pub missing_ids: u64,
     /// Codes of episodes being scored left out as their primary diagnosis.
     pub excluded_primary: u64,
     /// Codes of episodes being scored left out as not present on admission.
@@ -145,6 +153,52 @@ pub struct Summary {
     /// The diagnosis columns read, as resolved from the names and patterns
     /// of [`ScoreConfig::dx`].
     pub dx_columns: Vec<String>,
+}
+
+/// Longest invalid value remembered as written: a longer one is kept cut
+/// to this many bytes (at a character boundary) followed by `…`, so that a
+/// gigantic field neither fills the memory nor the summary.
+pub const INVALID_VALUE_BYTES: usize = 64;
+
+/// An invalid value as remembered: trimmed, and cut when too long.
+fn kept_value(value: &[u8]) -> std::borrow::Cow<'_, [u8]> {
+    let v = value.trim_ascii();
+    if v.len() <= INVALID_VALUE_BYTES {
+        return std::borrow::Cow::Borrowed(v);
+    }
+    let mut cut = INVALID_VALUE_BYTES;
+    // Do not split a UTF-8 sequence (continuation bytes are 10xxxxxx).
+    while cut > INVALID_VALUE_BYTES - 3 && v[cut] & 0xC0 == 0x80 {
+        cut -= 1;
+    }
+    let mut k = v[..cut].to_vec();
+    k.extend_from_slice("…".as_bytes());
+    std::borrow::Cow::Owned(k)
+}
+
+/// A value from the input as shown in a message: lossy UTF-8, control
+/// characters escaped (`\0`, `\t`, `\u{1b}`), cut to
+/// [`INVALID_VALUE_BYTES`] bytes with its length said when longer.
+pub fn shown(value: &[u8]) -> String {
+    let mut out = escaped(&kept_value(value));
+    let n = value.trim_ascii().len();
+    if n > INVALID_VALUE_BYTES {
+        out.push_str(&format!(" ({n} bytes)"));
+    }
+    out
+}
+
+/// Lossy UTF-8 with control characters escaped.
+fn escaped(value: &[u8]) -> String {
+    let mut out = String::new();
+    for c in String::from_utf8_lossy(value).chars() {
+        if c.is_control() {
+            out.extend(c.escape_debug());
+        } else {
+            out.push(c);
+        }
+    }
+    out
 }
 
 impl Summary {
@@ -174,11 +228,11 @@ impl Summary {
 
     pub(crate) fn invalid(&mut self, value: &[u8]) {
         self.invalid_codes += 1;
-        let v = value.trim_ascii();
-        if let Some(n) = self.invalid_values.get_mut(v) {
+        let v = kept_value(value);
+        if let Some(n) = self.invalid_values.get_mut(&v[..]) {
             *n += 1;
         } else if self.invalid_values.len() < INVALID_VALUES_KEPT {
-            self.invalid_values.insert(v.to_vec(), 1);
+            self.invalid_values.insert(v.into_owned(), 1);
         }
     }
 
@@ -211,10 +265,13 @@ impl Summary {
             self.rows_read, self.rows_written, self.units, self.codes_read, self.invalid_codes
         );
         if self.invalid_codes > 0 {
-            let top: Vec<String> = self
-                .top_invalid(5)
+            let mut top: Vec<(&Vec<u8>, u64)> =
+                self.invalid_values.iter().map(|(k, c)| (k, *c)).collect();
+            top.sort_by(|a, b| b.1.cmp(&a.1).then_with(|| a.0.cmp(b.0)));
+            let top: Vec<String> = top
                 .into_iter()
-                .map(|(v, c)| format!("'{v}' ({c})"))
+                .take(5)
+                .map(|(v, c)| format!("'{}' ({c})", escaped(v)))
                 .collect();
             s.push_str(&format!(
                 "; most frequent invalid values: {}",
@@ -232,6 +289,9 @@ impl Summary {
                 "; dates missing: {}, unreadable: {} (those episodes scored from their own codes alone)",
                 self.missing_dates, self.unreadable_dates
             ));
+        }
+        if self.missing_ids > 0 {
+            s.push_str(&format!("; rows without an id: {}", self.missing_ids));
         }
         if self.excluded_primary > 0 {
             s.push_str(&format!(
@@ -267,8 +327,26 @@ impl Header {
         Header { names }
     }
 
+    /// The columns, for a message saying a column is not there; with a
+    /// hint when the header looks split by another delimiter.
     fn available(&self) -> String {
-        self.names.join(", ")
+        const SHOWN: usize = 40;
+        let mut s = self.names[..self.names.len().min(SHOWN)].join(", ");
+        if self.names.len() > SHOWN {
+            s.push_str(&format!(", and {} more", self.names.len() - SHOWN));
+        }
+        if self.names.len() == 1 {
+            for (c, name) in [('\t', "tab"), (';', ";"), ('|', "|"), (',', ",")] {
+                if self.names[0].contains(c) {
+                    s.push_str(&format!(
+                        " (a single column holding '{}': is the delimiter --delimiter '{name}'?)",
+                        c.escape_debug()
+                    ));
+                    break;
+                }
+            }
+        }
+        s
     }
 
     /// One column by exact name.
@@ -297,6 +375,7 @@ impl Header {
     /// (header order within a glob), each once.
     pub fn columns(&self, items: &[String], role: &str) -> Result<Vec<usize>, Error> {
         let mut out = Vec::new();
+        let mut taken = vec![false; self.names.len()];
         for item in items.iter().flat_map(|s| s.split(',')) {
             let item = item.trim();
             if item.is_empty() {
@@ -319,13 +398,13 @@ impl Header {
                     )));
                 }
                 for h in hits {
-                    if !out.contains(&h) {
+                    if !std::mem::replace(&mut taken[h], true) {
                         out.push(h);
                     }
                 }
             } else {
                 let c = self.column(item, role)?;
-                if !out.contains(&c) {
+                if !std::mem::replace(&mut taken[c], true) {
                     out.push(c);
                 }
             }
@@ -368,10 +447,30 @@ pub(crate) struct Plan {
 pub(crate) enum RowIssue {
     InvalidCode { column: usize, value: Vec<u8> },
     UnreadableAge(Vec<u8>),
+    MissingAge,
     UnreadableDate(Vec<u8>),
 }
 
+fn unclosed_quote(line: u64) -> Error {
+    Error::data(
+        Some(line),
+        "a quoted field opened in this record is never closed: the input ends inside it",
+    )
+}
+
 impl Plan {
+    /// The plan for a header record (the first record of the input).
+    pub fn from_header(
+        cfg: &ScoreConfig,
+        block: &Block,
+        rec: &RecordRef<'_>,
+    ) -> Result<Plan, Error> {
+        if rec.unclosed_quote {
+            return Err(unclosed_quote(line_of(block, rec.offset)));
+        }
+        Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf)
+    }
+
     pub fn new(cfg: &ScoreConfig, header: Header, crlf: bool) -> Result<Plan, Error> {
         let dx = header.columns(&cfg.dx, "diagnosis")?;
         let one = |name: &Option<String>, role: &str| -> Result<Option<usize>, Error> {
@@ -433,13 +532,27 @@ impl Plan {
         &self.header.names[self.dx[k]]
     }
 
-    /// Checks the field count of a data record.
+    /// Checks a data record: a quote left open at the end of the input,
+    /// and the field count.
     pub fn check_width(&self, block: &Block, rec: &RecordRef<'_>) -> Result<(), Error> {
+        let line = line_of(block, rec.offset);
+        if rec.unclosed_quote {
+            return Err(unclosed_quote(line));
+        }
         if rec.fields.len() != self.ncols {
-            return Err(Error::data(
-                Some(line_of(block, rec.offset)),
+            let lines = memchr::memchr_iter(b'\n', rec.raw).count() as u64;
+            let hint = if lines > 0 {
                 format!(
-                    "record has {} fields but the header has {}",
+                    " (the record runs over lines {line}-{}: is a quote left open?)",
+                    line + lines
+                )
+            } else {
+                String::new()
+            };
+            return Err(Error::data(
+                Some(line),
+                format!(
+                    "record has {} fields but the header has {}{hint}",
                     rec.fields.len(),
                     self.ncols
                 ),
@@ -550,6 +663,9 @@ impl Plan {
             Some(a) => Ok(Some(a)),
             None => {
                 if raw.trim_ascii().is_empty() {
+                    if cfg.strict {
+                        return Err(RowIssue::MissingAge);
+                    }
                     summary.missing_ages += 1;
                 } else {
                     if cfg.strict {
@@ -582,21 +698,34 @@ impl Plan {
             .ok_or_else(|| Some(raw.to_vec()))
     }
 
+    /// The `--strict` failure for a row whose id field is empty.
+    pub fn missing_id(&self, line: u64) -> Error {
+        let name = self.id.map_or("", |c| self.header.names[c].as_str());
+        Error::Strict {
+            line: Some(line),
+            message: format!("missing id (column '{name}' is empty)"),
+        }
+    }
+
     /// Turns a record issue into an error with the record's line.
     pub fn issue(&self, issue: RowIssue, block: &Block, rec: &RecordRef<'_>) -> Error {
         let line = Some(line_of(block, rec.offset));
         let message = match issue {
             RowIssue::InvalidCode { column, value } => format!(
                 "invalid code '{}' in column '{}'",
-                String::from_utf8_lossy(&value),
+                shown(&value),
                 self.dx_name(column)
             ),
             RowIssue::UnreadableAge(v) => {
-                format!("unreadable age '{}'", String::from_utf8_lossy(&v))
+                format!("unreadable age '{}'", shown(&v))
+            }
+            RowIssue::MissingAge => {
+                let name = self.age.map_or("", |c| self.header.names[c].as_str());
+                format!("missing age (column '{name}' is empty)")
             }
             RowIssue::UnreadableDate(v) => format!(
                 "unreadable date '{}' (expected {})",
-                String::from_utf8_lossy(&v),
+                shown(&v),
                 cfg_date_hint()
             ),
         };

@@ -12,10 +12,15 @@ use super::{Progress, ScoreConfig};
 use crate::io::{Block, BlockReader, RecordRef, RecordScanner};
 use crate::Error;
 
-/// Worker threads: the configured number, or one per core.
+/// Most worker threads a run starts, whatever is asked for: more only
+/// cost memory (and enough of them fail to spawn).
+pub(crate) const MAX_THREADS: usize = 256;
+
+/// Worker threads: the configured number (at most [`MAX_THREADS`]), or one
+/// per core.
 pub(crate) fn threads(cfg: &ScoreConfig) -> usize {
     if cfg.threads > 0 {
-        return cfg.threads;
+        return cfg.threads.min(MAX_THREADS);
     }
     std::thread::available_parallelism().map_or(1, |n| n.get())
 }
@@ -29,7 +34,7 @@ const EMPTY: &str = "the input is empty: expected a header line naming the colum
 pub(crate) fn run_blocks<H, T>(
     cfg: &ScoreConfig,
     input: impl Read + Send,
-    on_header: impl FnOnce(&RecordRef<'_>) -> Result<H, Error>,
+    on_header: impl FnOnce(&Block, &RecordRef<'_>) -> Result<H, Error>,
     work: impl Fn(&H, &Block, usize, &mut RecordScanner) -> T + Sync,
     mut consume: impl FnMut(&H, T, Progress) -> Result<(), Error>,
 ) -> Result<H, Error>
@@ -52,7 +57,7 @@ where
             first.last,
             |rec| -> Result<(), Option<Error>> {
                 if let Some(f) = on_header.take() {
-                    head = Some((f(&rec).map_err(Some)?, rec.offset + rec.raw.len()));
+                    head = Some((f(&first, &rec).map_err(Some)?, rec.offset + rec.raw.len()));
                 }
                 Err(None)
             },

@@ -8,7 +8,7 @@ use std::hash::BuildHasherDefault;
 use std::io::{Read, Write};
 
 use super::parallel::run_blocks;
-use super::{check_collisions, Exclusion, Header, Layout, Plan, Progress, ScoreConfig, Summary};
+use super::{check_collisions, Exclusion, Layout, Plan, Progress, ScoreConfig, Summary};
 use crate::io::{write_field, Block, BlockReader, RecordScanner};
 use crate::matcher::KeyHasher;
 use crate::score::{Engine, Value};
@@ -51,7 +51,7 @@ fn score_long(
     {
         scanner.scan(&block.data, block.last, |rec| -> Result<(), Error> {
             let Some(p) = plan.as_ref() else {
-                let p = Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf)?;
+                let p = Plan::from_header(cfg, &block, &rec)?;
                 summary.dx_columns = p.dx_names();
                 let idc = p.id.unwrap_or(0);
                 check_collisions(&[p.header.names[idc].as_str()], engine)?;
@@ -66,7 +66,14 @@ fn score_long(
             };
             summary.rows_read += 1;
             p.check_width(&block, &rec)?;
-            let u = long.unit(rec.fields.get(p.id.unwrap_or(0)), words);
+            let id = rec.fields.get(p.id.unwrap_or(0));
+            if id.trim_ascii().is_empty() {
+                if cfg.strict {
+                    return Err(p.missing_id(super::line_of(&block, rec.offset)));
+                }
+                summary.missing_ids += 1;
+            }
+            let u = long.unit(id, words);
             let age = p
                 .read_age(cfg, &rec.fields, &mut summary)
                 .map_err(|i| p.issue(i, &block, &rec))?;
@@ -197,6 +204,7 @@ pub(super) fn merge(into: &mut Summary, s: Summary) {
         into.add_invalid(k, v);
     }
     into.invalid_codes += s.invalid_codes;
+    into.missing_ids += s.missing_ids;
 }
 
 /// Wide scoring on every core: a reader thread cuts blocks, workers score
@@ -217,8 +225,8 @@ fn score_wide_parallel(
     let head = run_blocks(
         cfg,
         input,
-        |rec| {
-            let p = Plan::new(cfg, Header::from_fields(&rec.fields), rec.crlf)?;
+        |block, rec| {
+            let p = Plan::from_header(cfg, block, rec)?;
             let names: Vec<&str> = p.header.names.iter().map(String::as_str).collect();
             check_collisions(&names, engine)?;
             let mut header_out = rec.raw.to_vec();

@@ -1,0 +1,301 @@
+"""`morbus compare --json` checked against reference libraries.
+
+Runs the morbus command-line binary on the demo extract
+(``demo-data/episodes.csv``; when that file is absent, on a seeded synthetic
+extract of the same shape written by this test) and recomputes every figure
+from the per-unit scores that ``morbus score`` writes for the same data:
+
+* c-statistics: scikit-learn ``sklearn.metrics.roc_auc_score``;
+* logistic coefficients, standard errors and AIC: statsmodels
+  ``statsmodels.api.Logit`` (Newton, default options);
+* DeLong variance and covariance of the c-statistics, and the test of their
+  difference: an independent implementation below, written from the paper
+  (E. R. DeLong, D. M. DeLong, D. L. Clarke-Pearson, "Comparing the areas
+  under two or more correlated receiver operating characteristic curves: a
+  nonparametric approach", Biometrics 1988;44:837-45), by the pairwise
+  kernel psi over all (positive, negative) pairs;
+* Spearman correlation: ``scipy.stats.spearmanr`` (scipy comes with
+  statsmodels);
+* score distributions: numpy (``mean``, ``std(ddof=1)``,
+  ``percentile(method="linear")``);
+* prevalence: the 0/1 condition flags of ``morbus score --flags``.
+
+The binary is ``$MORBUS_BIN``, else ``target/debug/morbus`` or
+``target/release/morbus`` under the repository root (or under
+``$CARGO_TARGET_DIR``).
+
+Needs: pytest, numpy, pandas, scikit-learn, statsmodels.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import os
+import subprocess
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+from scipy.stats import norm, spearmanr
+from sklearn.metrics import roc_auc_score
+
+ROOT = Path(__file__).resolve().parents[2]
+DEMO = ROOT / "demo-data" / "episodes.csv"
+OUTCOME = "died_within_30_days"
+MISSING = {"", "NA", "N/A", "N/K", "NK", "NULL", "."}
+
+
+def morbus_bin() -> Path:
+    env = os.environ.get("MORBUS_BIN")
+    if env:
+        return Path(env)
+    candidates = []
+    for base in filter(None, [os.environ.get("CARGO_TARGET_DIR"), str(ROOT / "target")]):
+        candidates += [Path(base) / "debug" / "morbus", Path(base) / "release" / "morbus"]
+    for c in candidates:
+        if c.is_file():
+            return c
+    pytest.skip(
+        "no morbus binary: build it (cargo build) or set MORBUS_BIN; looked in "
+        + ", ".join(str(c) for c in candidates)
+    )
+
+
+def run(*args: str) -> subprocess.CompletedProcess:
+    r = subprocess.run([str(morbus_bin()), *args], capture_output=True, text=True)
+    assert r.returncode == 0, f"morbus {' '.join(args)} failed ({r.returncode}):\n{r.stderr}"
+    return r
+
+
+def synthetic_extract(path: Path, n: int = 4000, seed: int = 20261201) -> None:
+    """A seeded extract with the demo's columns; invented data throughout."""
+    rng = np.random.default_rng(seed)
+    codes = np.array(
+        "I21.9 I50.0 E11.9 E11.2 C78.0 C18.7 J44.9 N18.5 F03 R29.6 W19 I10 E66.9 "
+        "F32.9 K70.3 G30.9 I63.9 S72.0 N39.0 Z74.1 I48.9 M81.9 L89.1 E87.1 R41.8".split()
+    )
+    rows = []
+    patients = rng.integers(0, n // 3, size=n)
+    for e in range(n):
+        age = int(rng.integers(20, 100))
+        k = min(20, int(rng.exponential(3.0)))
+        dx = list(rng.choice(codes, size=min(k, len(codes)), replace=False))
+        eta = -6.0 + 0.045 * age + 0.3 * len(dx) + (1.2 if "C78.0" in dx else 0.0)
+        died = rng.random() < 1 / (1 + np.exp(-eta))
+        outcome = "" if rng.random() < 0.02 else str(int(died))
+        sex = "F" if rng.random() < 0.52 else "M"
+        date = f"2025-{rng.integers(1, 13):02d}-{rng.integers(1, 29):02d}"
+        rows.append(
+            [f"E{e:06d}", f"P{patients[e]:05d}", "Site 1", date, str(age), sex]
+            + dx
+            + [""] * (20 - len(dx))
+            + [outcome]
+        )
+    cols = (
+        ["episode_id", "patient_id", "site", "admission_date", "age", "sex"]
+        + [f"dx{i}" for i in range(1, 21)]
+        + [OUTCOME]
+    )
+    pd.DataFrame(rows, columns=cols).to_csv(path, index=False)
+
+
+@pytest.fixture(scope="module")
+def extract(tmp_path_factory) -> Path:
+    if DEMO.is_file():
+        return DEMO
+    path = tmp_path_factory.mktemp("compare") / "synthetic.csv"
+    print(f"{DEMO} not found: using a seeded synthetic extract")
+    synthetic_extract(path)
+    return path
+
+
+LOOKBACKS = {
+    "no-lookback": [],
+    "lookback-365": ["--id", "patient_id", "--date", "admission_date", "--lookback", "365"],
+}
+
+
+@pytest.fixture(scope="module", params=list(LOOKBACKS))
+def case(request, extract, tmp_path_factory):
+    """The compare JSON and the per-unit scores and flags for one setting."""
+    extra = LOOKBACKS[request.param]
+    out = tmp_path_factory.mktemp("json") / "compare.json"
+    base = [str(extract), "--dx", "dx*", *extra]
+    run(
+        "compare", *base, "--outcome", OUTCOME, "--adjust", "age",
+        "--adjust-cat", "sex", "--json", str(out), "-q",
+    )
+    result = json.loads(out.read_text())
+    specs = ",".join(ix["spec"] for ix in result["indices"])
+    scored = run("score", *base, "--index", specs, "--flags", "-q").stdout
+    df = pd.read_csv(io.StringIO(scored), dtype=str, keep_default_na=False)
+    return result, df
+
+
+def analysed(df: pd.DataFrame) -> pd.DataFrame:
+    """The units compare analyses: outcome 0/1, age and sex present."""
+    def present(col):
+        return ~df[col].str.strip().str.upper().isin(MISSING)
+    keep = present(OUTCOME) & present("age") & present("sex")
+    return df[keep]
+
+
+def test_units(case):
+    result, df = case
+    u = result["units"]
+    a = analysed(df)
+    assert u["read"] == len(df)
+    assert u["analysed"] == len(a)
+    assert u["events"] == int((a[OUTCOME] == "1").sum())
+    assert u["missing_outcome"] == int(df[OUTCOME].str.strip().str.upper().isin(MISSING).sum())
+
+
+def test_c_statistic_against_scikit_learn(case):
+    """Reference: scikit-learn roc_auc_score."""
+    result, df = case
+    a = analysed(df)
+    y = (a[OUTCOME] == "1").astype(int).to_numpy()
+    checked = 0
+    for ix in result["indices"]:
+        s = a[ix["name"]].astype(float).to_numpy()
+        if ix["c_statistic"] is None:
+            assert np.ptp(s) == 0, ix["notes"]
+            continue
+        expected = roc_auc_score(y, s)
+        assert ix["c_statistic"]["estimate"] == pytest.approx(expected, abs=1e-12), ix["name"]
+        checked += 1
+    assert checked >= 3
+
+
+def test_logistic_against_statsmodels(case):
+    """Reference: statsmodels Logit (maximum likelihood, Newton)."""
+    result, df = case
+    a = analysed(df)
+    y = (a[OUTCOME] == "1").astype(int).to_numpy()
+    ref_level = result["adjustment"][1]["reference"]
+    assert result["adjustment"][1]["name"] == f"sex={sorted(a['sex'].unique())[1]}"
+    assert ref_level == sorted(a["sex"].unique())[0]
+    checked = 0
+    for ix in result["indices"]:
+        if ix["model"] is None:
+            continue
+        X = pd.DataFrame(
+            {
+                ix["name"]: a[ix["name"]].astype(float).to_numpy(),
+                "age": a["age"].astype(float).to_numpy(),
+            }
+        )
+        for level in sorted(a["sex"].unique())[1:]:
+            X[f"sex={level}"] = (a["sex"] == level).astype(float).to_numpy()
+        fit = sm.Logit(y, sm.add_constant(X)).fit(disp=0, method="newton", tol=1e-12, maxiter=100)
+        terms = ix["model"]["terms"]
+        assert [t["name"] for t in terms] == ["(Intercept)", *X.columns]
+        for t, b, se in zip(terms, fit.params, fit.bse):
+            assert t["estimate"] == pytest.approx(b, rel=1e-6, abs=1e-9), (ix["name"], t["name"])
+            assert t["std_error"] == pytest.approx(se, rel=1e-6), (ix["name"], t["name"])
+        assert ix["model"]["aic"] == pytest.approx(fit.aic, rel=1e-9)
+        assert ix["model"]["log_likelihood"] == pytest.approx(fit.llf, rel=1e-9)
+        # c-statistic of the fitted linear predictor (scikit-learn).
+        assert ix["model"]["c_statistic"] == pytest.approx(
+            roc_auc_score(y, fit.fittedvalues), abs=1e-9
+        )
+        checked += 1
+    assert checked >= 3
+
+
+def delong_reference(scores: list[np.ndarray], y: np.ndarray):
+    """DeLong, DeLong & Clarke-Pearson, Biometrics 1988;44:837-45, eqs. as
+    written: psi(X, Y) = 1 if X > Y, 1/2 if equal, 0 if below; V10(X_i) =
+    mean_j psi(X_i, Y_j); V01(Y_j) = mean_i psi(X_i, Y_j); S = S10/m + S01/n.
+    Direct O(m n) pair kernel, in blocks of positives."""
+    pos, neg = y == 1, y == 0
+    m, n = pos.sum(), neg.sum()
+    v10, v01, aucs = [], [], []
+    for s in scores:
+        x, yy = s[pos], s[neg]
+        row = np.zeros(m)
+        col = np.zeros(n)
+        for start in range(0, m, 256):
+            block = x[start:start + 256, None]
+            psi = (block > yy[None, :]) + 0.5 * (block == yy[None, :])
+            row[start:start + 256] = psi.mean(axis=1)
+            col += psi.sum(axis=0)
+        col /= m
+        v10.append(row)
+        v01.append(col)
+        aucs.append(row.mean())
+    v10, v01 = np.array(v10), np.array(v01)
+    s10 = np.cov(v10, ddof=1) if len(scores) > 1 else np.array([[v10[0].var(ddof=1)]])
+    s01 = np.cov(v01, ddof=1) if len(scores) > 1 else np.array([[v01[0].var(ddof=1)]])
+    return np.array(aucs), s10 / m + s01 / n
+
+
+def test_delong_against_independent_implementation(case):
+    """Reference: DeLong, DeLong & Clarke-Pearson, Biometrics 1988;44:837-45
+    (implemented above, independently of the Rust code)."""
+    result, df = case
+    a = analysed(df)
+    y = (a[OUTCOME] == "1").astype(int).to_numpy()
+    live = [ix for ix in result["indices"] if ix["c_statistic"] is not None]
+    scores = [a[ix["name"]].astype(float).to_numpy() for ix in live]
+    aucs, cov = delong_reference(scores, y)
+    for k, ix in enumerate(live):
+        c = ix["c_statistic"]
+        assert c["estimate"] == pytest.approx(aucs[k], abs=1e-12)
+        assert c["std_error"] ** 2 == pytest.approx(cov[k, k], rel=1e-9), ix["name"]
+        half = norm.ppf(0.975) * np.sqrt(cov[k, k])
+        assert c["ci95"][0] == pytest.approx(max(0.0, aucs[k] - half), abs=1e-9)
+        assert c["ci95"][1] == pytest.approx(min(1.0, aucs[k] + half), abs=1e-9)
+    names = [ix["name"] for ix in live]
+    tested = 0
+    for p in result["pairs"]:
+        if p["delong"] is None:
+            continue
+        i, j = names.index(p["a"]), names.index(p["b"])
+        var = cov[i, i] + cov[j, j] - 2 * cov[i, j]
+        t = p["delong"]
+        assert t["difference"] == pytest.approx(aucs[i] - aucs[j], abs=1e-12)
+        assert t["std_error"] ** 2 == pytest.approx(var, rel=1e-7), (p["a"], p["b"])
+        z = (aucs[i] - aucs[j]) / np.sqrt(var)
+        assert t["z"] == pytest.approx(z, rel=1e-6, abs=1e-9)
+        assert t["p_value"] == pytest.approx(2 * norm.sf(abs(z)), rel=1e-6, abs=1e-12)
+        tested += 1
+    assert tested >= 3
+
+
+def test_spearman_against_scipy(case):
+    """Reference: scipy.stats.spearmanr (average ranks for ties)."""
+    result, df = case
+    a = analysed(df)
+    checked = 0
+    for p in result["pairs"]:
+        if p["spearman"] is None:
+            continue
+        rho = spearmanr(a[p["a"]].astype(float), a[p["b"]].astype(float)).statistic
+        assert p["spearman"] == pytest.approx(rho, abs=1e-12), (p["a"], p["b"])
+        checked += 1
+    assert checked >= 3
+
+
+def test_distribution_and_prevalence_against_numpy(case):
+    """Reference: numpy mean, std(ddof=1), percentile(method='linear');
+    prevalence from the `morbus score --flags` condition columns."""
+    result, df = case
+    a = analysed(df)
+    for ix in result["indices"]:
+        s = a[ix["name"]].astype(float).to_numpy()
+        d = ix["distribution"]
+        assert d["n"] == len(s)
+        assert d["mean"] == pytest.approx(s.mean(), rel=1e-12, abs=1e-12)
+        assert d["sd"] == pytest.approx(s.std(ddof=1), rel=1e-12, abs=1e-12)
+        q = np.percentile(s, [0, 25, 50, 75, 100], method="linear")
+        assert [d["min"], d["q1"], d["median"], d["q3"], d["max"]] == pytest.approx(list(q))
+        assert d["zero_share"] == pytest.approx((s == 0).mean(), abs=1e-15)
+        assert sum(b["count"] for b in ix["histogram"]) == len(s)
+        for p in ix["prevalence"]:
+            flags = a[f"{ix['list']}_{p['key']}"].astype(int)
+            assert p["count"] == int(flags.sum()), (ix["name"], p["key"])
+            assert p["share"] == pytest.approx(flags.mean(), abs=1e-15)

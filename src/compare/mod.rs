@@ -1,0 +1,1203 @@
+//! `compare`: how several index specifications behave on one extract and
+//! how well each discriminates a binary outcome.
+//!
+//! The unit is the episode (a wide row, or a long-layout episode; in a long
+//! extract without `--episode`, each id). Condition sets come from the
+//! in-memory history ([`crate::pipeline::history::History`]), so lookback,
+//! hierarchies and the primary/present-on-admission rules apply exactly as in
+//! `score`.
+//!
+//! Which units are analysed: those with an outcome of 0 or 1, a value for
+//! every adjustment column and, with `--age`, a readable age. Every result
+//! (prevalence, distributions, c-statistics, models, pairwise tests) is
+//! computed on that same set, so the indices are compared on equal terms;
+//! the units left out are counted by reason.
+//!
+//! Values read as missing (outcome and adjustment columns): an empty field,
+//! `NA`, `N/A`, `N/K`, `NK`, `NULL` or `.` (any case). Any other outcome value than `0` or `1` is
+//! an error naming the line; so is a value of a numeric adjustment column
+//! that is not a number. A categorical adjustment column enters the models
+//! as one 0/1 indicator per level except the reference, which is the first
+//! level in byte order of the values as written (so `F` before `M`).
+//!
+//! The numerics are those of [`crate::stats`]: c-statistic and DeLong
+//! covariance (DeLong, DeLong & Clarke-Pearson, Biometrics 1988;44:837-45),
+//! logistic regression by Newton–Raphson with Wald standard errors,
+//! Spearman's rank correlation, descriptive summaries.
+//!
+//! Nothing here is NaN: what cannot be computed (a constant score, a
+//! separated model, too few events for a variance) is `None` in the result
+//! with a note saying why.
+
+mod report;
+mod table;
+
+use std::collections::BTreeMap;
+use std::io::Read;
+
+use serde::Serialize;
+
+use crate::io::RecordScanner;
+use crate::lists::{Catalogue, SCALE};
+use crate::pipeline::history::History;
+use crate::pipeline::{Header, Layout, ScoreConfig, Summary as ReadSummary};
+use crate::score::{ColumnKind, Engine, IndexSpec, Value};
+use crate::stats::{self, StatsError};
+use crate::Error;
+
+pub use report::html_report;
+pub use table::text_table;
+
+/// Version of the JSON layout written by `--json` (see
+/// [`Comparison`]); raised when a field changes meaning or goes away.
+pub const JSON_FORMAT_VERSION: u32 = 1;
+
+/// The caution printed with every comparison.
+pub const CAUTION: &str = "These indices and the models fitted here describe groups of \
+patients for research and risk adjustment. They are not fit to judge, rank or treat an \
+individual patient. The c-statistics and models are estimated on this extract only: \
+they are not validated prediction tools, and differences between indices depend on \
+local coding practice, the lookback and the outcome chosen.";
+
+/// What to compare against what.
+#[derive(Clone, Debug, Default)]
+pub struct CompareOptions {
+    /// The 0/1 outcome column.
+    pub outcome: String,
+    /// Numeric adjustment columns (exact names).
+    pub adjust: Vec<String>,
+    /// Categorical adjustment columns (exact names).
+    pub adjust_categorical: Vec<String>,
+}
+
+/// Every (list, weighting) of a catalogue, in catalogue order: the default
+/// set of `compare`.
+pub fn all_specs(catalogue: &Catalogue) -> Vec<IndexSpec> {
+    catalogue
+        .lists()
+        .iter()
+        .flat_map(|l| {
+            l.weightings.iter().map(|w| IndexSpec {
+                list: l.name.clone(),
+                weighting: Some(w.name.clone()),
+            })
+        })
+        .collect()
+}
+
+/// The result of a comparison; serialised as the `--json` file.
+#[derive(Clone, Debug, Serialize)]
+pub struct Comparison {
+    /// [`JSON_FORMAT_VERSION`].
+    pub format_version: u32,
+    pub morbus_version: String,
+    pub outcome: String,
+    /// Lookback in days; `"all"` for the whole history; `null` for none.
+    pub lookback: Option<String>,
+    pub hierarchy: bool,
+    pub units: UnitCounts,
+    /// The terms every model is adjusted for, in model order.
+    pub adjustment: Vec<AdjustmentTerm>,
+    /// The model of the outcome on the adjustment terms alone (when there
+    /// are any): the baseline against which each index's model is read.
+    pub adjustment_model: Option<Model>,
+    /// Notes about the adjustment-only model (why it is missing).
+    pub adjustment_notes: Vec<String>,
+    pub indices: Vec<IndexResult>,
+    /// Every pair of indices (a before b in index order).
+    pub pairs: Vec<PairResult>,
+    /// Notes that concern the whole run.
+    pub notes: Vec<String>,
+    pub caution: String,
+}
+
+/// Which units were analysed, and why the others were not.
+#[derive(Clone, Debug, Default, Serialize)]
+pub struct UnitCounts {
+    /// Units (episodes) in the extract.
+    pub read: u64,
+    /// Left out: outcome missing.
+    pub missing_outcome: u64,
+    /// Left out (outcome present): a missing adjustment value.
+    pub missing_adjustment: u64,
+    /// Left out (outcome and adjustment present): age missing or
+    /// unreadable, with `--age`.
+    pub missing_age: u64,
+    /// Units analysed.
+    pub analysed: u64,
+    /// Analysed units with outcome 1.
+    pub events: u64,
+    /// `events / analysed`.
+    pub event_share: f64,
+}
+
+/// One term of the adjustment.
+#[derive(Clone, Debug, Serialize)]
+pub struct AdjustmentTerm {
+    /// Name in the models: the column, or `column=level` for a level of a
+    /// categorical column.
+    pub name: String,
+    pub column: String,
+    /// `numeric` or `categorical`.
+    pub kind: String,
+    /// Categorical: the level this indicator stands for.
+    pub level: Option<String>,
+    /// Categorical: the reference level.
+    pub reference: Option<String>,
+}
+
+/// Results for one index specification.
+#[derive(Clone, Debug, Serialize)]
+pub struct IndexResult {
+    /// Column name as in `score` output, e.g. `charlson_quan2011`.
+    pub name: String,
+    /// `LIST:WEIGHTING`.
+    pub spec: String,
+    pub list: String,
+    pub weighting: String,
+    /// The weighting's label.
+    pub label: String,
+    /// Whether the score includes the list's age points (`--age`).
+    pub with_age: bool,
+    pub distribution: Distribution,
+    pub histogram: Vec<Bin>,
+    /// Every condition of the list, after the hierarchy.
+    pub prevalence: Vec<Prevalence>,
+    /// `None` with a note when undefined.
+    pub c_statistic: Option<CStatistic>,
+    /// Empirical ROC curve `[false-positive rate, true-positive rate]`,
+    /// from (0, 0) to (1, 1); empty when the score is constant.
+    pub roc: Vec<[f64; 2]>,
+    /// Outcome on the score plus the adjustment terms.
+    pub model: Option<Model>,
+    pub notes: Vec<String>,
+}
+
+/// Score distribution over the analysed units.
+#[derive(Clone, Debug, Serialize)]
+pub struct Distribution {
+    pub n: usize,
+    pub mean: f64,
+    /// `None` for a single unit.
+    pub sd: Option<f64>,
+    pub min: f64,
+    pub q1: f64,
+    pub median: f64,
+    pub q3: f64,
+    pub max: f64,
+    /// Share of units scoring exactly 0.
+    pub zero_share: f64,
+    /// Number of distinct score values.
+    pub distinct: usize,
+}
+
+/// Units whose score lies in `[from, to)` (the last bin includes `to`).
+#[derive(Clone, Debug, Serialize)]
+pub struct Bin {
+    pub from: f64,
+    pub to: f64,
+    pub count: u64,
+}
+
+/// Units with a condition.
+#[derive(Clone, Debug, Serialize)]
+pub struct Prevalence {
+    pub key: String,
+    pub label: String,
+    pub count: u64,
+    /// `count / analysed`.
+    pub share: f64,
+}
+
+/// c-statistic of the score alone.
+#[derive(Clone, Debug, Serialize)]
+pub struct CStatistic {
+    pub estimate: f64,
+    /// DeLong standard error; `None` with fewer than 2 units of an outcome.
+    pub std_error: Option<f64>,
+    /// 95% interval, estimate ± 1.96·SE clipped to [0, 1].
+    pub ci95: Option<[f64; 2]>,
+}
+
+/// A fitted logistic model.
+#[derive(Clone, Debug, Serialize)]
+pub struct Model {
+    /// Intercept first.
+    pub terms: Vec<Term>,
+    pub c_statistic: f64,
+    pub aic: f64,
+    pub log_likelihood: f64,
+    pub n: usize,
+    pub events: usize,
+    pub iterations: usize,
+}
+
+/// One coefficient.
+#[derive(Clone, Debug, Serialize)]
+pub struct Term {
+    pub name: String,
+    pub estimate: f64,
+    pub std_error: f64,
+    pub z: f64,
+    pub p_value: f64,
+    /// `exp(estimate)`; `None` when it overflows.
+    pub odds_ratio: Option<f64>,
+}
+
+/// Comparison of two indices on the same units.
+#[derive(Clone, Debug, Serialize)]
+pub struct PairResult {
+    pub a: String,
+    pub b: String,
+    /// DeLong test of c(a) − c(b); `None` with a note when undefined.
+    pub delong: Option<PairTest>,
+    /// Spearman's ρ of the two scores.
+    pub spearman: Option<f64>,
+    pub notes: Vec<String>,
+}
+
+/// DeLong test of a difference in c-statistics.
+#[derive(Clone, Debug, Serialize)]
+pub struct PairTest {
+    pub difference: f64,
+    pub std_error: f64,
+    pub z: f64,
+    pub p_value: f64,
+    pub ci95: [f64; 2],
+}
+
+/// Values read as missing in the outcome and adjustment columns.
+fn is_missing(v: &[u8]) -> bool {
+    v.is_empty()
+        || [&b"NA"[..], b"N/A", b"N/K", b"NK", b"NULL", b"."]
+            .iter()
+            .any(|m| m.eq_ignore_ascii_case(v))
+}
+
+fn lossy(v: &[u8]) -> String {
+    String::from_utf8_lossy(v).into_owned()
+}
+
+/// A finite number, or `None`.
+fn parse_number(v: &[u8]) -> Option<f64> {
+    let s = std::str::from_utf8(v).ok()?;
+    // Rust accepts "inf", "nan", "infinity": not numbers in an extract.
+    if !s
+        .bytes()
+        .all(|b| b.is_ascii_digit() || matches!(b, b'.' | b'-' | b'+' | b'e' | b'E'))
+    {
+        return None;
+    }
+    s.parse::<f64>().ok().filter(|x| x.is_finite())
+}
+
+/// One index being compared: a score column of the engine.
+struct Slot {
+    spec: usize,
+    with_age: bool,
+    column: usize,
+}
+
+/// Runs the comparison over an extract.
+// Parallel per-column arrays are indexed by column number throughout.
+#[allow(clippy::needless_range_loop)]
+pub fn compare(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    opts: &CompareOptions,
+    input: impl Read,
+) -> Result<(Comparison, ReadSummary), Error> {
+    let mut seen: Vec<&str> = vec![opts.outcome.as_str()];
+    for c in opts.adjust.iter().chain(&opts.adjust_categorical) {
+        if seen.contains(&c.as_str()) {
+            return Err(Error::Usage(if *c == opts.outcome {
+                format!("column '{c}' is the outcome; it cannot also be an adjustment")
+            } else {
+                format!("adjustment column '{c}' is named twice")
+            }));
+        }
+        seen.push(c);
+    }
+    let mut extra = vec![opts.outcome.clone()];
+    extra.extend(opts.adjust.iter().cloned());
+    extra.extend(opts.adjust_categorical.iter().cloned());
+    // The extract is held in memory anyway (the history); keeping its bytes
+    // lets the outcome and adjustment columns be read in a second pass.
+    let mut data = Vec::new();
+    let mut input = input;
+    input
+        .read_to_end(&mut data)
+        .map_err(|e| Error::io("cannot read input", e))?;
+    // Both passes only read the buffer: run them side by side.
+    let (history, values_of) = std::thread::scope(|s| {
+        let second = s.spawn(|| read_extra(cfg, &data, &extra));
+        let first = History::read(engine, cfg, &data[..], false);
+        let second = second
+            .join()
+            .unwrap_or_else(|e| std::panic::resume_unwind(e));
+        (first, second)
+    });
+    // An error of the history (malformed record, usage) comes first.
+    let (hist, mut summary) = history?;
+    let values_of = values_of?;
+    drop(data);
+    if values_of.units() != hist.episodes.len() {
+        return Err(Error::data(
+            None,
+            format!(
+                "internal error: {} units in the history but {} when reading the outcome",
+                hist.episodes.len(),
+                values_of.units()
+            ),
+        ));
+    }
+    summary.units = hist.episodes.len() as u64;
+    let windows = hist.windows(cfg.lookback);
+    let resolved = hist.resolve(engine, &windows);
+    let w = hist.words();
+    let nnum = opts.adjust.len();
+    let ncat = opts.adjust_categorical.len();
+
+    // The indices: score columns of the engine.
+    let slots: Vec<Slot> = engine
+        .columns()
+        .iter()
+        .enumerate()
+        .filter_map(|(i, c)| match c.kind {
+            ColumnKind::Score { spec } => Some(Slot {
+                spec,
+                with_age: false,
+                column: i,
+            }),
+            ColumnKind::ScoreWithAge { spec } => Some(Slot {
+                spec,
+                with_age: true,
+                column: i,
+            }),
+            _ => None,
+        })
+        .collect();
+    let needs_age = slots.iter().any(|s| s.with_age);
+
+    // Which units, with their outcome and adjustment values.
+    let mut units = UnitCounts {
+        read: hist.episodes.len() as u64,
+        ..UnitCounts::default()
+    };
+    let mut kept: Vec<usize> = Vec::new();
+    let mut y: Vec<bool> = Vec::new();
+    let mut numeric: Vec<Vec<f64>> = vec![Vec::new(); nnum];
+    let mut categorical: Vec<Vec<u32>> = vec![Vec::new(); ncat];
+    let mut levels: Vec<BTreeMap<Vec<u8>, u32>> = vec![BTreeMap::new(); ncat];
+    let mut row_num = vec![0.0; nnum];
+    let mut row_cat: Vec<&[u8]> = vec![&[]; ncat];
+    'units: for (e, ep) in hist.episodes.iter().enumerate() {
+        let outcome = match values_of.get(e, 0) {
+            Some((v, _)) if is_missing(v) => None,
+            None => None,
+            Some((b"0", _)) => Some(false),
+            Some((b"1", _)) => Some(true),
+            Some((v, line)) => {
+                return Err(Error::data(
+                    Some(line),
+                    format!(
+                    "outcome column '{}' holds '{}': expected 0 or 1 (empty, NA, N/A, N/K, NK, NULL or . for missing)",
+                    opts.outcome,
+                    lossy(v)
+                ),
+                ))
+            }
+        };
+        let Some(outcome) = outcome else {
+            units.missing_outcome += 1;
+            continue;
+        };
+        let mut missing = false;
+        for k in 0..nnum {
+            match values_of.get(e, 1 + k) {
+                Some((v, line)) if !is_missing(v) => match parse_number(v) {
+                    Some(x) => row_num[k] = x,
+                    None => {
+                        return Err(Error::data(
+                            Some(line),
+                            format!(
+                                "adjustment column '{}' holds '{}', which is not a number \
+                                 (for a categorical column use --adjust-cat)",
+                                opts.adjust[k],
+                                lossy(v)
+                            ),
+                        ))
+                    }
+                },
+                _ => missing = true,
+            }
+        }
+        for k in 0..ncat {
+            match values_of.get(e, 1 + nnum + k) {
+                Some((v, _)) if !is_missing(v) => row_cat[k] = v,
+                _ => missing = true,
+            }
+        }
+        if missing {
+            units.missing_adjustment += 1;
+            continue 'units;
+        }
+        if needs_age && ep.age.is_none() {
+            units.missing_age += 1;
+            continue;
+        }
+        kept.push(e);
+        y.push(outcome);
+        for k in 0..nnum {
+            numeric[k].push(row_num[k]);
+        }
+        for k in 0..ncat {
+            let next = levels[k].len() as u32;
+            let id = *levels[k].entry(row_cat[k].to_vec()).or_insert(next);
+            categorical[k].push(id);
+        }
+    }
+    let n = kept.len();
+    units.analysed = n as u64;
+    units.events = y.iter().filter(|&&v| v).count() as u64;
+    if n == 0 {
+        return Err(Error::data(
+            None,
+            format!(
+                "no unit can be analysed: {} of {} have no outcome, {} a missing adjustment value, {} no age",
+                units.missing_outcome, units.read, units.missing_adjustment, units.missing_age
+            ),
+        ));
+    }
+    units.event_share = units.events as f64 / n as f64;
+    if units.events == 0 || units.events == n as u64 {
+        return Err(Error::data(
+            None,
+            format!(
+                "outcome '{}' is {} for every one of the {n} analysed units: c-statistics and \
+                 models need units with both outcomes",
+                opts.outcome,
+                if units.events == 0 { 0 } else { 1 }
+            ),
+        ));
+    }
+
+    let mut notes: Vec<String> = Vec::new();
+    // Adjustment design columns.
+    let mut adjustment: Vec<AdjustmentTerm> = Vec::new();
+    let mut design: Vec<Vec<f64>> = Vec::new();
+    for k in 0..nnum {
+        let col = &numeric[k];
+        if col.iter().all(|&v| v == col[0]) {
+            notes.push(format!(
+                "adjustment column '{}' takes the single value {} on every analysed unit; left out of the models",
+                opts.adjust[k], col[0]
+            ));
+            continue;
+        }
+        adjustment.push(AdjustmentTerm {
+            name: opts.adjust[k].clone(),
+            column: opts.adjust[k].clone(),
+            kind: "numeric".into(),
+            level: None,
+            reference: None,
+        });
+        design.push(std::mem::take(&mut numeric[k]));
+    }
+    for k in 0..ncat {
+        let col_name = &opts.adjust_categorical[k];
+        // Levels in byte order; the first is the reference.
+        let sorted: Vec<(&Vec<u8>, &u32)> = levels[k].iter().collect();
+        if sorted.len() < 2 {
+            notes.push(format!(
+                "categorical adjustment column '{col_name}' has a single level ('{}') among the analysed units; left out of the models",
+                sorted.first().map(|l| lossy(l.0)).unwrap_or_default()
+            ));
+            continue;
+        }
+        let reference = lossy(sorted[0].0);
+        for (level, &id) in &sorted[1..] {
+            let level = lossy(level);
+            adjustment.push(AdjustmentTerm {
+                name: format!("{col_name}={level}"),
+                column: col_name.clone(),
+                kind: "categorical".into(),
+                level: Some(level),
+                reference: Some(reference.clone()),
+            });
+            design.push(
+                categorical[k]
+                    .iter()
+                    .map(|&v| if v == id { 1.0 } else { 0.0 })
+                    .collect(),
+            );
+        }
+    }
+    let adjust_names: Vec<String> = adjustment.iter().map(|t| t.name.clone()).collect();
+
+    let k = slots.len();
+    let mut scores: Vec<Vec<f64>> = vec![Vec::with_capacity(n); k];
+    let nconditions = engine.conditions();
+    let mut condition_counts = vec![0u64; nconditions];
+    let mut values: Vec<Value> = Vec::new();
+    for &e in &kept {
+        let bits = &resolved[e * w..(e + 1) * w];
+        engine.values(bits, hist.episodes[e].age, &mut values);
+        for (s, slot) in scores.iter_mut().zip(&slots) {
+            let v = match values[slot.column] {
+                Value::Score { scaled, .. } => scaled as f64 / SCALE as f64,
+                // Unreachable: units without an age were left out above.
+                _ => 0.0,
+            };
+            s.push(v);
+        }
+        for (wi, &word) in bits.iter().enumerate() {
+            let mut word = word;
+            while word != 0 {
+                let id = wi * 64 + word.trailing_zeros() as usize;
+                word &= word - 1;
+                if id < nconditions {
+                    condition_counts[id] += 1;
+                }
+            }
+        }
+    }
+
+    // The heavy numerics, spread over the cores: one task per summary, ROC
+    // curve, model and rank correlation, one for the joint DeLong covariance.
+    let constant: Vec<bool> = scores
+        .iter()
+        .map(|s| s.iter().all(|&v| v == s[0]))
+        .collect();
+    let live: Vec<usize> = (0..k).filter(|&i| !constant[i]).collect();
+    let names: Vec<String> = slots
+        .iter()
+        .map(|slot| {
+            let spec = &engine.specs()[slot.spec];
+            if slot.with_age {
+                format!("{}_age", spec.name)
+            } else {
+                spec.name.clone()
+            }
+        })
+        .collect();
+    let mut tasks = Vec::new();
+    if !design.is_empty() {
+        tasks.push(Task::Baseline);
+    }
+    tasks.extend(live.iter().map(|&i| Task::Model(i)));
+    if !live.is_empty() {
+        tasks.push(Task::DeLong);
+    }
+    tasks.extend(live.iter().map(|&i| Task::Ranks(i)));
+    tasks.extend(live.iter().map(|&i| Task::Roc(i)));
+    tasks.extend((0..k).map(Task::Summary));
+    let refs: Vec<&[f64]> = live.iter().map(|&i| scores[i].as_slice()).collect();
+    let outputs = par_map(&tasks, cfg.threads, |t| match *t {
+        Task::Baseline => Output::Model(stats::logistic(&y, &design, &adjust_names)),
+        Task::Model(i) => {
+            let mut x = Vec::with_capacity(1 + design.len());
+            x.push(scores[i].clone());
+            x.extend(design.iter().cloned());
+            let mut terms = vec![names[i].clone()];
+            terms.extend(adjust_names.iter().cloned());
+            Output::Model(stats::logistic(&y, &x, &terms))
+        }
+        Task::DeLong => Output::DeLong(stats::delong(&refs, &y)),
+        Task::Ranks(i) => Output::Ranks(stats::average_ranks(&scores[i])),
+        Task::Roc(i) => Output::Roc(stats::roc_curve(&scores[i], &y)),
+        Task::Summary(i) => Output::Summary(stats::Summary::of(&scores[i])),
+    });
+    let mut baseline = None;
+    let mut models: Vec<Option<Result<stats::LogisticFit, StatsError>>> = vec![None; k];
+    let mut joint_result = None;
+    let mut ranks: Vec<Option<Result<Vec<f64>, StatsError>>> = vec![None; k];
+    let mut rocs: Vec<Option<RocResult>> = vec![None; k];
+    let mut sums: Vec<Option<stats::Summary>> = vec![None; k];
+    for (t, o) in tasks.iter().zip(outputs) {
+        match (*t, o) {
+            (Task::Baseline, Output::Model(m)) => baseline = Some(m),
+            (Task::Model(i), Output::Model(m)) => models[i] = Some(m),
+            (Task::DeLong, Output::DeLong(d)) => joint_result = Some(d),
+            (Task::Ranks(i), Output::Ranks(r)) => ranks[i] = Some(r),
+            (Task::Roc(i), Output::Roc(r)) => rocs[i] = Some(r),
+            (Task::Summary(i), Output::Summary(r)) => {
+                sums[i] = Some(r.map_err(|e| Error::data(None, e.to_string()))?)
+            }
+            _ => {}
+        }
+    }
+
+    let mut indices: Vec<IndexResult> = Vec::with_capacity(k);
+    for (si, slot) in slots.iter().enumerate() {
+        let spec = &engine.specs()[slot.spec];
+        let sel = &engine.lists()[spec.list];
+        let list = &sel.list;
+        let weighting = &list.weightings[spec.weighting];
+        let Some(sum) = sums[si].take() else {
+            return Err(Error::data(
+                None,
+                "internal error: a summary was not computed",
+            ));
+        };
+        let mut inotes = Vec::new();
+        if constant[si] {
+            inotes.push(format!(
+                "every analysed unit scores {}: the index has zero variance, so it cannot \
+                 discriminate; no c-statistic, ROC curve, model or comparison is given",
+                fmt_num(sum.min)
+            ));
+        }
+        let roc: Vec<[f64; 2]> = match rocs[si].take() {
+            Some(Ok(c)) => c.into_iter().map(|(a, b)| [a, b]).collect(),
+            Some(Err(e)) => {
+                inotes.push(format!("no ROC curve: {e}"));
+                Vec::new()
+            }
+            None => Vec::new(),
+        };
+        // The ROC curve has a point per distinct score, after (0, 0).
+        let distinct = if constant[si] {
+            1
+        } else {
+            roc.len().saturating_sub(1)
+        };
+        let prevalence = list
+            .conditions
+            .iter()
+            .enumerate()
+            .map(|(ci, c)| {
+                let count = condition_counts[sel.offset + ci];
+                Prevalence {
+                    key: c.key.clone(),
+                    label: c.label.clone(),
+                    count,
+                    share: count as f64 / n as f64,
+                }
+            })
+            .collect();
+        indices.push(IndexResult {
+            name: names[si].clone(),
+            spec: format!("{}:{}", list.name, weighting.name),
+            list: list.name.clone(),
+            weighting: weighting.name.clone(),
+            label: weighting.label.clone(),
+            with_age: slot.with_age,
+            histogram: histogram(&scores[si], sum.min, sum.max),
+            distribution: Distribution {
+                n: sum.n,
+                mean: sum.mean,
+                sd: sum.sd,
+                min: sum.min,
+                q1: sum.q1,
+                median: sum.median,
+                q3: sum.q3,
+                max: sum.max,
+                zero_share: sum.zero_share,
+                distinct,
+            },
+            prevalence,
+            c_statistic: None,
+            roc,
+            model: None,
+            notes: inotes,
+        });
+    }
+
+    // c-statistics with DeLong's covariance, over the non-constant indices.
+    let joint = match joint_result {
+        Some(Ok(d)) => Some(d),
+        Some(Err(e)) => {
+            notes.push(format!(
+                "no DeLong variance: {e}; c-statistics are given without confidence intervals and indices are not tested against each other"
+            ));
+            None
+        }
+        None => None,
+    };
+    for (j, &i) in live.iter().enumerate() {
+        let r = &mut indices[i];
+        match &joint {
+            Some(d) => {
+                let se = d.covariance[j][j].max(0.0).sqrt();
+                if d.aucs[j] == 1.0 || d.aucs[j] == 0.0 {
+                    r.notes.push(format!(
+                        "the score separates the outcomes perfectly (c-statistic {}): the DeLong \
+                         standard error is 0 and the interval degenerates to a point",
+                        d.aucs[j]
+                    ));
+                }
+                r.c_statistic = Some(CStatistic {
+                    estimate: d.aucs[j],
+                    std_error: Some(se),
+                    ci95: Some([d.ci95[j].0, d.ci95[j].1]),
+                });
+            }
+            None => match stats::auc(&scores[i], &y) {
+                Ok(c) => {
+                    r.c_statistic = Some(CStatistic {
+                        estimate: c,
+                        std_error: None,
+                        ci95: None,
+                    })
+                }
+                Err(e) => r.notes.push(format!("no c-statistic: {e}")),
+            },
+        }
+    }
+
+    // Models.
+    let mut adjustment_model = None;
+    let mut adjustment_notes = Vec::new();
+    match baseline {
+        Some(Ok(f)) => adjustment_model = Some(model_of(&f)),
+        Some(Err(e)) => adjustment_notes.push(model_note(&e)),
+        None => {}
+    }
+    for (i, m) in models.into_iter().enumerate() {
+        match m {
+            Some(Ok(f)) => indices[i].model = Some(model_of(&f)),
+            Some(Err(e)) => indices[i].notes.push(model_note(&e)),
+            None => {}
+        }
+    }
+
+    // Pairs.
+    let mut pairs = Vec::new();
+    for a in 0..k {
+        for b in a + 1..k {
+            let mut p = PairResult {
+                a: indices[a].name.clone(),
+                b: indices[b].name.clone(),
+                delong: None,
+                spearman: None,
+                notes: Vec::new(),
+            };
+            if constant[a] || constant[b] {
+                let which: Vec<&str> = [a, b]
+                    .iter()
+                    .filter(|&&i| constant[i])
+                    .map(|&i| indices[i].name.as_str())
+                    .collect();
+                p.notes.push(format!(
+                    "{} has zero variance: no test or correlation",
+                    which.join(" and ")
+                ));
+                pairs.push(p);
+                continue;
+            }
+            if let Some(d) = &joint {
+                let ja = live.iter().position(|&i| i == a).unwrap_or(0);
+                let jb = live.iter().position(|&i| i == b).unwrap_or(0);
+                match d.compare(ja, jb) {
+                    Ok(t) => {
+                        p.delong = Some(PairTest {
+                            difference: t.difference,
+                            std_error: t.std_error,
+                            z: t.z,
+                            p_value: t.p_value,
+                            ci95: [t.ci95.0, t.ci95.1],
+                        })
+                    }
+                    Err(StatsError::ZeroVariance { .. }) => p.notes.push(
+                        "the two scores order the units identically (or the difference is \
+                         otherwise deterministic): their c-statistics are equal and the DeLong \
+                         test is undefined"
+                            .into(),
+                    ),
+                    Err(e) => p.notes.push(format!("no DeLong test: {e}")),
+                }
+            }
+            match (&ranks[a], &ranks[b]) {
+                (Some(Ok(ra)), Some(Ok(rb))) => match pearson_of_ranks(ra, rb) {
+                    Some(r) => p.spearman = Some(r),
+                    None => p
+                        .notes
+                        .push("no Spearman correlation: all values tied".into()),
+                },
+                (Some(Err(e)), _) | (_, Some(Err(e))) => {
+                    p.notes.push(format!("no Spearman correlation: {e}"))
+                }
+                _ => {}
+            }
+            pairs.push(p);
+        }
+    }
+
+    if cfg.layout == Layout::Long && cfg.episode.is_none() {
+        notes.push(
+            "long layout without --episode: each id is one unit (all its codes together)".into(),
+        );
+    }
+    let lookback = cfg.lookback.map(|d| {
+        if d == u32::MAX {
+            "all".to_string()
+        } else {
+            d.to_string()
+        }
+    });
+    Ok((
+        Comparison {
+            format_version: JSON_FORMAT_VERSION,
+            morbus_version: crate::VERSION.to_string(),
+            outcome: opts.outcome.clone(),
+            lookback,
+            hierarchy: engine.options().hierarchy,
+            units,
+            adjustment,
+            adjustment_model,
+            adjustment_notes,
+            indices,
+            pairs,
+            notes,
+            caution: CAUTION.to_string(),
+        },
+        summary,
+    ))
+}
+
+type RocResult = Result<Vec<(f64, f64)>, StatsError>;
+
+/// One piece of the numerics.
+#[derive(Clone, Copy)]
+enum Task {
+    /// The model on the adjustment terms alone.
+    Baseline,
+    Model(usize),
+    DeLong,
+    /// Average ranks of a score (for Spearman's ρ).
+    Ranks(usize),
+    Roc(usize),
+    Summary(usize),
+}
+
+enum Output {
+    Model(Result<stats::LogisticFit, StatsError>),
+    DeLong(Result<stats::DeLongResult, StatsError>),
+    Ranks(Result<Vec<f64>, StatsError>),
+    Roc(RocResult),
+    Summary(Result<stats::Summary, StatsError>),
+}
+
+/// `f` over `items` on `threads` threads (0: one per core), items taken in
+/// order as the threads free up; results in the order of `items`.
+fn par_map<T: Sync, R: Send>(items: &[T], threads: usize, f: impl Fn(&T) -> R + Sync) -> Vec<R> {
+    use std::sync::atomic::{AtomicUsize, Ordering};
+    let threads = if threads == 0 {
+        std::thread::available_parallelism().map_or(1, |n| n.get())
+    } else {
+        threads
+    }
+    .min(items.len());
+    if threads <= 1 {
+        return items.iter().map(f).collect();
+    }
+    let next = AtomicUsize::new(0);
+    let done: Vec<Vec<(usize, R)>> = std::thread::scope(|s| {
+        let handles: Vec<_> = (0..threads)
+            .map(|_| {
+                s.spawn(|| {
+                    let mut out = Vec::new();
+                    loop {
+                        let i = next.fetch_add(1, Ordering::Relaxed);
+                        if i >= items.len() {
+                            break;
+                        }
+                        out.push((i, f(&items[i])));
+                    }
+                    out
+                })
+            })
+            .collect();
+        handles
+            .into_iter()
+            .map(|h| h.join().unwrap_or_else(|e| std::panic::resume_unwind(e)))
+            .collect()
+    });
+    let mut slots: Vec<Option<R>> = (0..items.len()).map(|_| None).collect();
+    for (i, r) in done.into_iter().flatten() {
+        slots[i] = Some(r);
+    }
+    slots.into_iter().flatten().collect()
+}
+
+/// Spearman's ρ from the average ranks of two scores
+/// ([`stats::average_ranks`]): their Pearson correlation, computed as
+/// [`stats::spearman`] does (the mean rank is exactly (n + 1)/2), so that
+/// each score is ranked once rather than once per pair. `None` when every
+/// value of a score is tied.
+fn pearson_of_ranks(ra: &[f64], rb: &[f64]) -> Option<f64> {
+    let mid = (ra.len() + 1) as f64 / 2.0;
+    let (mut sab, mut saa, mut sbb) = (0.0, 0.0, 0.0);
+    for (&x, &y) in ra.iter().zip(rb) {
+        let (dx, dy) = (x - mid, y - mid);
+        sab += dx * dy;
+        saa += dx * dx;
+        sbb += dy * dy;
+    }
+    (saa > 0.0 && sbb > 0.0).then(|| (sab / (saa * sbb).sqrt()).clamp(-1.0, 1.0))
+}
+
+/// Per unit, the trimmed value of each extra column and the line it was
+/// read from.
+struct Extra {
+    ncol: usize,
+    /// (start, length, line) into `arena`; line 0: no value.
+    spans: Vec<(usize, usize, u64)>,
+    arena: Vec<u8>,
+}
+
+impl Extra {
+    fn units(&self) -> usize {
+        self.spans.len() / self.ncol.max(1)
+    }
+
+    fn get(&self, unit: usize, k: usize) -> Option<(&[u8], u64)> {
+        let &(s, l, line) = self.spans.get(unit * self.ncol + k)?;
+        (line != 0).then(|| (&self.arena[s..s + l], line))
+    }
+}
+
+/// Reads the extra columns of every record, unit by unit in the order the
+/// history numbers them: a wide row is a unit; long-layout rows are grouped
+/// by (id, episode value) in order of first appearance. A unit's value is
+/// the first non-empty one among its rows; a different non-empty value on a
+/// later row of the same unit is an error.
+fn read_extra(cfg: &ScoreConfig, data: &[u8], names: &[String]) -> Result<Extra, Error> {
+    let ncol = names.len();
+    let mut out = Extra {
+        ncol,
+        spans: Vec::new(),
+        arena: Vec::new(),
+    };
+    let mut scanner = RecordScanner::new(cfg.delimiter);
+    let mut cols: Option<(Vec<usize>, Option<usize>, Option<usize>)> = None;
+    let mut index: std::collections::HashMap<Box<[u8]>, usize> = Default::default();
+    let mut key: Vec<u8> = Vec::new();
+    let mut rows = 0usize;
+    let mut cursor = (0usize, 1u64);
+    scanner.scan(data, true, |rec| -> Result<(), Error> {
+        let line =
+            cursor.1 + memchr::memchr_iter(b'\n', &data[cursor.0..rec.offset]).count() as u64;
+        cursor = (rec.offset, line);
+        let Some((c, id, ep)) = cols.as_ref() else {
+            let header = Header::from_fields(&rec.fields);
+            let mut c = Vec::with_capacity(ncol);
+            for (k, n) in names.iter().enumerate() {
+                c.push(header.column(n, if k == 0 { "outcome" } else { "adjustment" })?);
+            }
+            let one = |n: &Option<String>, role: &str| -> Result<Option<usize>, Error> {
+                n.as_deref().map(|n| header.column(n, role)).transpose()
+            };
+            cols = Some((c, one(&cfg.id, "id")?, one(&cfg.episode, "episode")?));
+            return Ok(());
+        };
+        let unit = match cfg.layout {
+            Layout::Wide => rows,
+            Layout::Long => {
+                let pid = id.map_or(&[][..], |i| rec.fields.get(i));
+                let ekey = ep.map_or(&[][..], |i| rec.fields.get(i));
+                key.clear();
+                key.extend_from_slice(&(pid.len() as u32).to_le_bytes());
+                key.extend_from_slice(pid);
+                key.extend_from_slice(ekey);
+                match index.get(&key[..]) {
+                    Some(&u) => u,
+                    None => {
+                        let u = index.len();
+                        index.insert(key.as_slice().into(), u);
+                        u
+                    }
+                }
+            }
+        };
+        rows += 1;
+        if unit * ncol >= out.spans.len() {
+            out.spans.resize((unit + 1) * ncol, (0, 0, 0));
+        }
+        for (k, &col) in c.iter().enumerate() {
+            let v = rec.fields.get(col).trim_ascii();
+            if v.is_empty() {
+                continue;
+            }
+            let slot = &mut out.spans[unit * ncol + k];
+            if slot.2 == 0 {
+                *slot = (out.arena.len(), v.len(), line);
+                out.arena.extend_from_slice(v);
+            } else {
+                let old = &out.arena[slot.0..slot.0 + slot.1];
+                if old != v {
+                    return Err(Error::data(
+                        Some(line),
+                        format!(
+                            "column '{}' holds '{}' here but '{}' on line {} of the same episode",
+                            names[k],
+                            lossy(v),
+                            lossy(old),
+                            slot.2
+                        ),
+                    ));
+                }
+            }
+        }
+        Ok(())
+    })?;
+    Ok(out)
+}
+
+fn model_note(e: &StatsError) -> String {
+    match e {
+        StatsError::Separation { .. } => format!(
+            "no logistic model: {e}. The outcome is (almost) perfectly predicted by the \
+             score and adjustment terms, so the coefficients diverge; the c-statistic and \
+             prevalence still describe the index"
+        ),
+        _ => format!("no logistic model: {e}"),
+    }
+}
+
+fn model_of(f: &stats::LogisticFit) -> Model {
+    Model {
+        terms: f
+            .coefficients
+            .iter()
+            .map(|c| Term {
+                name: c.name.clone(),
+                estimate: c.estimate,
+                std_error: c.std_error,
+                z: c.z,
+                p_value: c.p_value,
+                odds_ratio: Some(c.estimate.exp()).filter(|v| v.is_finite()),
+            })
+            .collect(),
+        c_statistic: f.c_statistic,
+        aic: f.aic,
+        log_likelihood: f.log_likelihood,
+        n: f.n,
+        events: f.n_events,
+        iterations: f.iterations,
+    }
+}
+
+/// A round bin width near `raw`: 1, 2, 2.5 or 5 times a power of ten.
+fn nice_width(raw: f64) -> f64 {
+    if raw <= 0.0 || !raw.is_finite() {
+        return 1.0;
+    }
+    let p = 10f64.powf(raw.log10().floor());
+    for m in [1.0, 2.0, 2.5, 5.0, 10.0] {
+        if m * p >= raw {
+            return m * p;
+        }
+    }
+    10.0 * p
+}
+
+/// Histogram of the scores: one bin per whole point when the scores are
+/// whole numbers spanning at most 40 points, otherwise about 30 bins of a
+/// round width.
+fn histogram(s: &[f64], min: f64, max: f64) -> Vec<Bin> {
+    let integers = s.iter().all(|v| v.fract() == 0.0);
+    let width = if integers && max - min <= 40.0 {
+        1.0
+    } else {
+        nice_width((max - min) / 30.0)
+    };
+    let start = (min / width).floor() * width;
+    let nbins = (((max - start) / width).floor() as usize + 1).clamp(1, 1000);
+    let mut counts = vec![0u64; nbins];
+    for &v in s {
+        let b = (((v - start) / width).floor() as usize).min(nbins - 1);
+        counts[b] += 1;
+    }
+    counts
+        .into_iter()
+        .enumerate()
+        .map(|(i, count)| Bin {
+            from: start + i as f64 * width,
+            to: start + (i + 1) as f64 * width,
+            count,
+        })
+        .collect()
+}
+
+/// A count with thousands separators: 1,000,000.
+pub(crate) fn fmt_count(v: u64) -> String {
+    let digits = v.to_string();
+    let mut out = String::with_capacity(digits.len() + digits.len() / 3);
+    for (i, ch) in digits.chars().enumerate() {
+        if i > 0 && (digits.len() - i) % 3 == 0 {
+            out.push(',');
+        }
+        out.push(ch);
+    }
+    out
+}
+
+/// A number for display: up to 4 significant decimals, no trailing zeros.
+pub(crate) fn fmt_num(v: f64) -> String {
+    let s = format!("{v:.4}");
+    let s = s.trim_end_matches('0').trim_end_matches('.');
+    if s == "-0" {
+        "0".into()
+    } else {
+        s.to_string()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn histogram_integer_and_fractional() {
+        let h = histogram(&[0.0, 1.0, 1.0, 3.0], 0.0, 3.0);
+        assert_eq!(h.len(), 4);
+        assert_eq!(
+            h.iter().map(|b| b.count).collect::<Vec<_>>(),
+            vec![1, 2, 0, 1]
+        );
+        let v: Vec<f64> = (0..100).map(|i| i as f64 * 0.7).collect();
+        let h = histogram(&v, 0.0, 69.3);
+        assert_eq!(h.iter().map(|b| b.count).sum::<u64>(), 100);
+        assert!(h.len() <= 31, "{}", h.len());
+        assert!(h[0].from <= 0.0 && h.last().unwrap().to > 69.3);
+    }
+
+    #[test]
+    fn missing_and_numbers() {
+        for m in ["", "NA", "na", "N/A", "N/K", "nk", "NULL", "."] {
+            assert!(is_missing(m.as_bytes()), "{m}");
+        }
+        assert!(!is_missing(b"0"));
+        assert_eq!(parse_number(b"72.5"), Some(72.5));
+        assert_eq!(parse_number(b"-1e2"), Some(-100.0));
+        assert_eq!(parse_number(b"inf"), None);
+        assert_eq!(parse_number(b"NaN"), None);
+        assert_eq!(parse_number(b"seventy"), None);
+    }
+
+    #[test]
+    fn spearman_from_ranks_is_the_library_spearman() {
+        let a = [3.0, 1.0, 4.0, 1.0, 5.0, 9.0, 2.0, 6.0, 5.0, 3.0];
+        let b = [2.0, 7.0, 1.0, 8.0, 2.0, 8.0, 1.0, 8.0, 2.0, 8.0];
+        let ra = stats::average_ranks(&a).unwrap();
+        let rb = stats::average_ranks(&b).unwrap();
+        let rho = pearson_of_ranks(&ra, &rb).unwrap();
+        assert_eq!(rho, stats::spearman(&a, &b).unwrap());
+        assert_eq!(pearson_of_ranks(&ra, &[5.5; 10]), None);
+    }
+
+    #[test]
+    fn number_display() {
+        assert_eq!(fmt_num(1.0), "1");
+        assert_eq!(fmt_count(0), "0");
+        assert_eq!(fmt_count(999), "999");
+        assert_eq!(fmt_count(1000), "1,000");
+        assert_eq!(fmt_count(1234567), "1,234,567");
+        assert_eq!(fmt_num(0.12345), "0.1235");
+        assert_eq!(fmt_num(-0.00001), "0");
+        assert_eq!(nice_width(0.37), 0.5);
+        assert_eq!(nice_width(2.1), 2.5);
+    }
+}

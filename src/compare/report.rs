@@ -1,0 +1,658 @@
+//! The `--report` page: one self-contained HTML file, inline CSS and SVG
+//! charts drawn here, no script, no external resource of any kind.
+
+use std::fmt::Write as _;
+
+use super::table::{fixed, p_value, pct};
+use super::{fmt_count, fmt_num, Comparison, IndexResult, Model};
+
+/// Series colours, chosen for contrast on white and against each other.
+const PALETTE: &[&str] = &[
+    "#1b6f8a", "#c8553d", "#5b8c2a", "#7b4b94", "#c58f12", "#40505f", "#b8477a", "#2e8b6e",
+];
+/// Dash patterns used once the palette has gone round.
+const DASHES: &[&str] = &["", "6 3", "2 3", "8 3 2 3"];
+
+fn colour(i: usize) -> &'static str {
+    PALETTE[i % PALETTE.len()]
+}
+
+fn dash(i: usize) -> &'static str {
+    DASHES[(i / PALETTE.len()) % DASHES.len()]
+}
+
+/// Escapes text for HTML content and attribute values.
+fn esc(s: &str) -> String {
+    let mut o = String::with_capacity(s.len());
+    for ch in s.chars() {
+        match ch {
+            '&' => o.push_str("&amp;"),
+            '<' => o.push_str("&lt;"),
+            '>' => o.push_str("&gt;"),
+            '"' => o.push_str("&quot;"),
+            '\'' => o.push_str("&#39;"),
+            c => o.push(c),
+        }
+    }
+    o
+}
+
+const CSS: &str = r#"
+:root { --ink:#1d2430; --muted:#5d6675; --line:#d9dde3; --soft:#f4f6f8; --accent:#1b6f8a; }
+* { box-sizing: border-box; }
+body { margin:0; color:var(--ink); background:#fff;
+  font: 15px/1.5 system-ui, -apple-system, "Segoe UI", Roboto, "Helvetica Neue", Arial, sans-serif; }
+main { max-width: 1120px; margin: 0 auto; padding: 28px 32px 48px; }
+h1 { font-size: 26px; margin: 0 0 4px; letter-spacing: -0.01em; }
+h2 { font-size: 19px; margin: 36px 0 10px; padding-bottom: 6px; border-bottom: 2px solid var(--ink); }
+h3 { font-size: 15px; margin: 18px 0 6px; }
+p.lede { color: var(--muted); margin: 0 0 18px; }
+.cards { display:flex; flex-wrap:wrap; gap:12px; margin: 14px 0 6px; }
+.card { background:var(--soft); border-radius:6px; padding:10px 16px; min-width:150px; }
+.card .v { font-size:22px; font-weight:650; font-variant-numeric: tabular-nums; }
+.card .k { font-size:12px; color:var(--muted); text-transform: uppercase; letter-spacing: .04em; }
+.caution { border-left: 5px solid #c58f12; background:#fbf6ea; padding: 10px 16px; margin: 18px 0; border-radius: 0 6px 6px 0; }
+.caution strong { display:block; margin-bottom:2px; }
+.notes { border-left: 5px solid #7b4b94; background:#f6f2f9; padding: 8px 16px 8px 8px; border-radius: 0 6px 6px 0; }
+.notes li { margin: 3px 0; }
+table { border-collapse: collapse; font-variant-numeric: tabular-nums; margin: 6px 0 12px; font-size: 14px; }
+th, td { padding: 4px 10px; border-bottom: 1px solid var(--line); text-align: right; vertical-align: top; }
+th { font-weight: 600; border-bottom: 2px solid #9aa3ae; background: #fafbfc; }
+th:first-child, td:first-child, td.l, th.l { text-align: left; }
+td.sub { color: var(--muted); }
+tr.first td { border-top: 2px solid #c3c9d1; }
+.key { display:inline-block; width:12px; height:12px; border-radius:2px; margin-right:6px; vertical-align:-1px; }
+.row { display:flex; flex-wrap:nowrap; gap: 22px; align-items:flex-start; }
+.row > figure { flex: none; }
+.row > div { flex: 1 1 auto; min-width: 0; }
+.row table { font-size: 13px; }
+@media (max-width: 980px) { .row { flex-wrap: wrap; } }
+.grid { display:grid; grid-template-columns: repeat(auto-fill, minmax(320px, 1fr)); gap: 18px 24px; }
+figure { margin: 0; }
+figcaption { font-size: 13px; color: var(--muted); margin-top: 2px; }
+svg text { font-family: system-ui, -apple-system, "Segoe UI", Roboto, Arial, sans-serif; fill: var(--ink); }
+svg .axis { stroke:#6b7480; stroke-width:1; }
+svg .gridline { stroke:#e6e9ed; stroke-width:1; }
+svg .tick { font-size: 11px; fill:#4d5562; }
+svg .title { font-size: 13px; font-weight: 600; }
+details { margin: 6px 0 16px; }
+summary { cursor: pointer; color: var(--accent); }
+footer { margin-top: 40px; font-size: 13px; color: var(--muted); border-top: 1px solid var(--line); padding-top: 10px; }
+code { font-family: ui-monospace, "SFMono-Regular", Menlo, Consolas, monospace; font-size: 13px; background: var(--soft); padding: 0 3px; border-radius: 3px; }
+@media print { main { max-width: none; } h2 { break-after: avoid; } figure, table { break-inside: avoid; } }
+"#;
+
+/// The ROC curves of every index on one plot, with the chance diagonal.
+fn roc_svg(c: &Comparison) -> String {
+    let (size, left, top, right, bottom) = (380.0, 50.0, 12.0, 12.0, 42.0);
+    let plot = size - left - right;
+    let plot_h = size - top - bottom;
+    let x = |v: f64| left + v * plot;
+    let y = |v: f64| top + (1.0 - v) * plot_h;
+    let mut s = String::new();
+    let _ = write!(
+        s,
+        r#"<svg xmlns="http://www.w3.org/2000/svg" width="{size}" height="{size}" viewBox="0 0 {size} {size}" role="img" aria-label="ROC curves of every index">"#
+    );
+    for t in 0..=5 {
+        let v = t as f64 / 5.0;
+        let _ = write!(
+            s,
+            r#"<line class="gridline" x1="{:.1}" y1="{:.1}" x2="{:.1}" y2="{:.1}"/><line class="gridline" x1="{:.1}" y1="{:.1}" x2="{:.1}" y2="{:.1}"/>"#,
+            x(v),
+            y(0.0),
+            x(v),
+            y(1.0),
+            x(0.0),
+            y(v),
+            x(1.0),
+            y(v)
+        );
+        let _ = write!(
+            s,
+            r#"<text class="tick" x="{:.1}" y="{:.1}" text-anchor="middle">{}</text><text class="tick" x="{:.1}" y="{:.1}" text-anchor="end">{}</text>"#,
+            x(v),
+            y(0.0) + 16.0,
+            fmt_num(v),
+            x(0.0) - 6.0,
+            y(v) + 4.0,
+            fmt_num(v)
+        );
+    }
+    let _ = write!(
+        s,
+        r#"<rect x="{left}" y="{top}" width="{plot}" height="{plot_h}" fill="none" class="axis"/>"#
+    );
+    let _ = write!(
+        s,
+        r##"<line x1="{:.1}" y1="{:.1}" x2="{:.1}" y2="{:.1}" stroke="#9aa3ae" stroke-width="1.2" stroke-dasharray="5 4"/>"##,
+        x(0.0),
+        y(0.0),
+        x(1.0),
+        y(1.0)
+    );
+    let _ = write!(
+        s,
+        r#"<text class="tick" x="{:.1}" y="{:.1}" text-anchor="middle" transform="rotate(-45 {:.1} {:.1})">chance (c = 0.5)</text>"#,
+        x(0.72),
+        y(0.72) + 20.0,
+        x(0.72),
+        y(0.72) + 20.0
+    );
+    for (i, ix) in c.indices.iter().enumerate() {
+        if ix.roc.is_empty() {
+            continue;
+        }
+        // Thin very long curves (the shape is kept: every k-th point and the
+        // last one).
+        let step = (ix.roc.len() / 1500).max(1);
+        let mut d = String::new();
+        for (j, p) in ix.roc.iter().enumerate() {
+            if j % step != 0 && j != ix.roc.len() - 1 {
+                continue;
+            }
+            let _ = write!(
+                d,
+                "{}{:.1},{:.1}",
+                if d.is_empty() { "M" } else { "L" },
+                x(p[0]),
+                y(p[1])
+            );
+        }
+        let _ = write!(
+            s,
+            r#"<path d="{d}" fill="none" stroke="{}" stroke-width="2" stroke-dasharray="{}" stroke-linejoin="round"><title>{}</title></path>"#,
+            colour(i),
+            dash(i),
+            esc(&ix.name)
+        );
+    }
+    let _ = write!(
+        s,
+        r#"<text class="tick" x="{:.1}" y="{:.1}" text-anchor="middle">false-positive rate (1 − specificity)</text>"#,
+        left + plot / 2.0,
+        size - 8.0
+    );
+    let _ = write!(
+        s,
+        r#"<text class="tick" x="14" y="{:.1}" text-anchor="middle" transform="rotate(-90 14 {:.1})">true-positive rate (sensitivity)</text>"#,
+        top + plot_h / 2.0,
+        top + plot_h / 2.0
+    );
+    s.push_str("</svg>");
+    s
+}
+
+/// Histogram of one index's scores.
+fn histogram_svg(i: usize, ix: &IndexResult) -> String {
+    let (w, h, left, top, right, bottom) = (320.0, 180.0, 46.0, 12.0, 10.0, 40.0);
+    let pw = w - left - right;
+    let ph = h - top - bottom;
+    let bins = &ix.histogram;
+    let max = bins.iter().map(|b| b.count).max().unwrap_or(0).max(1) as f64;
+    let n = ix.distribution.n.max(1) as f64;
+    let mut s = String::new();
+    let _ = write!(
+        s,
+        r#"<svg xmlns="http://www.w3.org/2000/svg" width="{w}" height="{h}" viewBox="0 0 {w} {h}" role="img" aria-label="histogram of {}">"#,
+        esc(&ix.name)
+    );
+    // Share-of-units gridlines at round percentages.
+    let top_share = max / n;
+    let step = super::nice_width(top_share / 4.0);
+    let mut g = step;
+    while g <= top_share * 1.0001 {
+        let yy = top + ph - g / top_share * ph;
+        let _ = write!(
+            s,
+            r#"<line class="gridline" x1="{left}" y1="{yy:.1}" x2="{:.1}" y2="{yy:.1}"/><text class="tick" x="{:.1}" y="{:.1}" text-anchor="end">{}</text>"#,
+            left + pw,
+            left - 4.0,
+            yy + 4.0,
+            pct_short(g)
+        );
+        g += step;
+    }
+    let nb = bins.len().max(1) as f64;
+    let bw = pw / nb;
+    for b in bins.iter() {
+        let k = (b.from - bins[0].from) / (bins[0].to - bins[0].from);
+        let bh = b.count as f64 / max * ph;
+        let _ = write!(
+            s,
+            r#"<rect x="{:.2}" y="{:.2}" width="{:.2}" height="{:.2}" fill="{}"><title>{} to {}: {} units ({})</title></rect>"#,
+            left + k * bw + bw * 0.08,
+            top + ph - bh,
+            (bw * 0.84).max(0.6),
+            bh,
+            colour(i),
+            fmt_num(b.from),
+            fmt_num(b.to),
+            fmt_count(b.count),
+            pct(b.count as f64 / n)
+        );
+    }
+    let _ = write!(
+        s,
+        r#"<line class="axis" x1="{left}" y1="{:.1}" x2="{:.1}" y2="{:.1}"/>"#,
+        top + ph,
+        left + pw,
+        top + ph
+    );
+    // x labels: about six, at bin starts (bin centres for one-point bins).
+    let unit = bins.first().is_some_and(|b| b.to - b.from == 1.0);
+    let every = (bins.len() as f64 / 6.0).ceil().max(1.0) as usize;
+    for (j, b) in bins.iter().enumerate() {
+        if j % every != 0 {
+            continue;
+        }
+        let xx = if unit {
+            left + (j as f64 + 0.5) * bw
+        } else {
+            left + j as f64 * bw
+        };
+        let _ = write!(
+            s,
+            r#"<text class="tick" x="{xx:.1}" y="{:.1}" text-anchor="middle">{}</text>"#,
+            top + ph + 14.0,
+            fmt_num(b.from)
+        );
+    }
+    let _ = write!(
+        s,
+        r#"<text class="tick" x="{:.1}" y="{:.1}" text-anchor="middle">score</text>"#,
+        left + pw / 2.0,
+        h - 6.0
+    );
+    s.push_str("</svg>");
+    s
+}
+
+fn pct_short(share: f64) -> String {
+    let v = 100.0 * share;
+    if v >= 10.0 || v == v.round() {
+        format!("{v:.0}%")
+    } else {
+        format!("{}%", fmt_num(v))
+    }
+}
+
+/// Most conditions drawn per list (all are in the table below the chart).
+const MAX_BARS: usize = 40;
+
+/// Horizontal prevalence bars of a list's conditions (those present, most
+/// frequent first).
+fn prevalence_svg(ix: &IndexResult, colour: &str) -> String {
+    let mut rows: Vec<&super::Prevalence> = ix.prevalence.iter().filter(|p| p.count > 0).collect();
+    rows.sort_by(|a, b| b.count.cmp(&a.count).then_with(|| a.key.cmp(&b.key)));
+    rows.truncate(MAX_BARS);
+    let label_w = 330.0;
+    let bar_w = 560.0;
+    let value_w = 110.0;
+    let row_h = 19.0;
+    let top = 22.0;
+    let w = label_w + bar_w + value_w;
+    let h = top + row_h * rows.len() as f64 + 8.0;
+    let max = rows.first().map_or(1.0, |p| p.share.max(1e-12));
+    let mut s = String::new();
+    let _ = write!(
+        s,
+        r#"<svg xmlns="http://www.w3.org/2000/svg" width="{w}" height="{h}" viewBox="0 0 {w} {h}" role="img" aria-label="condition prevalence, {}">"#,
+        esc(&ix.list)
+    );
+    // Gridlines at round shares.
+    let step = super::nice_width(max / 5.0);
+    let mut g = 0.0;
+    while g <= max * 1.0001 {
+        let xx = label_w + g / max * bar_w;
+        let _ = write!(
+            s,
+            r#"<line class="gridline" x1="{xx:.1}" y1="{:.1}" x2="{xx:.1}" y2="{:.1}"/><text class="tick" x="{xx:.1}" y="14" text-anchor="middle">{}</text>"#,
+            top - 4.0,
+            h - 6.0,
+            pct_short(g)
+        );
+        g += step;
+    }
+    for (j, p) in rows.iter().enumerate() {
+        let yy = top + j as f64 * row_h;
+        let mut label = p.label.clone();
+        if label.chars().count() > 46 {
+            label = label.chars().take(44).collect::<String>() + "…";
+        }
+        let _ = write!(
+            s,
+            r#"<text x="{:.1}" y="{:.1}" text-anchor="end" font-size="12">{}</text>"#,
+            label_w - 8.0,
+            yy + 13.0,
+            esc(&label)
+        );
+        let bw = (p.share / max * bar_w).max(1.0);
+        let _ = write!(
+            s,
+            r#"<rect x="{label_w}" y="{:.1}" width="{bw:.1}" height="{:.1}" fill="{colour}" rx="2"><title>{} ({}): {} units, {}</title></rect>"#,
+            yy + 3.0,
+            row_h - 6.0,
+            esc(&p.label),
+            esc(&p.key),
+            p.count,
+            pct(p.share)
+        );
+        let _ = write!(
+            s,
+            r#"<text class="tick" x="{:.1}" y="{:.1}">{} · {}</text>"#,
+            label_w + bw + 6.0,
+            yy + 13.0,
+            pct(p.share),
+            fmt_count(p.count)
+        );
+    }
+    s.push_str("</svg>");
+    s
+}
+
+fn model_table_rows(label: &str, m: &Model, out: &mut String) {
+    for (j, t) in m.terms.iter().enumerate() {
+        let _ = write!(
+            out,
+            "<tr{}><td>{}</td><td class=\"l\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            if j == 0 { " class=\"first\"" } else { "" },
+            if j == 0 { esc(label) } else { String::new() },
+            esc(&t.name),
+            fixed(t.estimate, 4),
+            fixed(t.std_error, 4),
+            if j == 0 {
+                "–".into()
+            } else {
+                t.odds_ratio.map_or("–".into(), |o| fixed(o, 3))
+            },
+            p_value(t.p_value),
+            if j == 0 { fixed(m.c_statistic, 3) } else { String::new() },
+            if j == 0 { fixed(m.aic, 1) } else { String::new() },
+        );
+    }
+}
+
+/// The comparison as one self-contained HTML page.
+pub fn html_report(c: &Comparison) -> String {
+    let mut h = String::new();
+    let u = &c.units;
+    let _ = write!(
+        h,
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">\
+         <meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\
+         <title>Index comparison: {}</title><style>{CSS}</style></head><body><main>",
+        esc(&c.outcome)
+    );
+    let _ = write!(
+        h,
+        "<h1>How the indices compare on this extract</h1><p class=\"lede\">Outcome <code>{}</code> · {} index specification{} · {}{} · morbus {}</p>",
+        esc(&c.outcome),
+        c.indices.len(),
+        if c.indices.len() == 1 { "" } else { "s" },
+        match &c.lookback {
+            None => "no lookback".to_string(),
+            Some(l) if l == "all" => "lookback over the whole history".to_string(),
+            Some(l) => format!("lookback {} days", esc(l)),
+        },
+        if c.hierarchy { "" } else { " · hierarchies off" },
+        esc(&c.morbus_version)
+    );
+    h.push_str("<div class=\"cards\">");
+    for (k, v) in [
+        ("units read", fmt_count(u.read)),
+        ("units analysed", fmt_count(u.analysed)),
+        ("outcome 1", fmt_count(u.events)),
+        ("outcome share", pct(u.event_share)),
+    ] {
+        let _ = write!(
+            h,
+            "<div class=\"card\"><div class=\"v\">{}</div><div class=\"k\">{}</div></div>",
+            esc(&v),
+            k
+        );
+    }
+    h.push_str("</div>");
+    let mut left = Vec::new();
+    if u.missing_outcome > 0 {
+        left.push(format!(
+            "{} without an outcome",
+            fmt_count(u.missing_outcome)
+        ));
+    }
+    if u.missing_adjustment > 0 {
+        left.push(format!(
+            "{} with a missing adjustment value",
+            fmt_count(u.missing_adjustment)
+        ));
+    }
+    if u.missing_age > 0 {
+        left.push(format!(
+            "{} without a readable age",
+            fmt_count(u.missing_age)
+        ));
+    }
+    h.push_str("<p>");
+    if !left.is_empty() {
+        let _ = write!(h, "Left out: {}. ", esc(&left.join(", ")));
+    }
+    if c.adjustment.is_empty() {
+        h.push_str("Models: the outcome on each score alone.");
+    } else {
+        let names: Vec<String> = c.adjustment.iter().map(|t| esc(&t.name)).collect();
+        let _ = write!(
+            h,
+            "Models: the outcome on each score plus {}.",
+            names.join(", ")
+        );
+        let mut seen: Vec<&str> = Vec::new();
+        for t in &c.adjustment {
+            if let Some(r) = &t.reference {
+                if !seen.contains(&t.column.as_str()) {
+                    seen.push(&t.column);
+                    let _ = write!(
+                        h,
+                        " <code>{}</code>: reference level <code>{}</code>.",
+                        esc(&t.column),
+                        esc(r)
+                    );
+                }
+            }
+        }
+    }
+    h.push_str("</p>");
+    let _ = write!(
+        h,
+        "<div class=\"caution\"><strong>For population-level research only</strong>{}</div>",
+        esc(&c.caution)
+    );
+
+    // Discrimination.
+    h.push_str("<h2>Discrimination</h2><div class=\"row\"><figure>");
+    h.push_str(&roc_svg(c));
+    h.push_str("<figcaption>Empirical ROC curve of each score; dashed grey: chance.</figcaption></figure><div>");
+    h.push_str("<table><thead><tr><th>index</th><th>c-statistic</th><th>95% CI</th><th>model c</th><th>model AIC</th></tr></thead><tbody>");
+    for (i, ix) in c.indices.iter().enumerate() {
+        let (cs, ci) = match &ix.c_statistic {
+            Some(s) => (
+                fixed(s.estimate, 3),
+                s.ci95.map_or("–".into(), |[a, b]| {
+                    format!("{} – {}", fixed(a, 3), fixed(b, 3))
+                }),
+            ),
+            None => ("–".into(), "–".into()),
+        };
+        let (mc, aic) = ix.model.as_ref().map_or(("–".into(), "–".into()), |m| {
+            (fixed(m.c_statistic, 3), fixed(m.aic, 1))
+        });
+        let _ = write!(
+            h,
+            "<tr><td><span class=\"key\" style=\"background:{}\"></span>{}</td><td>{cs}</td><td>{ci}</td><td>{mc}</td><td>{aic}</td></tr>",
+            colour(i),
+            esc(&ix.name)
+        );
+    }
+    if let Some(m) = &c.adjustment_model {
+        let _ = write!(
+            h,
+            "<tr><td class=\"sub\">adjustment terms alone</td><td>–</td><td>–</td><td>{}</td><td>{}</td></tr>",
+            fixed(m.c_statistic, 3),
+            fixed(m.aic, 1)
+        );
+    }
+    h.push_str("</tbody></table><p class=\"lede\" style=\"font-size:13px\">95% confidence intervals by the method of DeLong et al. (1988). The c-statistic is the chance that a unit with the outcome scores higher than one without (ties count half). The model columns refer to the logistic model of the outcome on the score and the adjustment terms; a lower AIC is a better fit for the same units.</p></div></div>");
+
+    if !c.pairs.is_empty() {
+        h.push_str("<h3>Pairs of indices</h3><table><thead><tr><th>a</th><th class=\"l\">b</th><th>c(a) − c(b)</th><th>95% CI</th><th>p (DeLong)</th><th>Spearman ρ</th></tr></thead><tbody>");
+        for p in &c.pairs {
+            let (d, ci, pv) =
+                p.delong
+                    .as_ref()
+                    .map_or(("–".into(), "–".into(), "–".into()), |t| {
+                        (
+                            fixed(t.difference, 4),
+                            format!("{} – {}", fixed(t.ci95[0], 4), fixed(t.ci95[1], 4)),
+                            p_value(t.p_value),
+                        )
+                    });
+            let _ = write!(
+                h,
+                "<tr><td>{}</td><td class=\"l\">{}</td><td>{d}</td><td>{ci}</td><td>{pv}</td><td>{}</td></tr>",
+                esc(&p.a),
+                esc(&p.b),
+                p.spearman.map_or("–".into(), |r| fixed(r, 3))
+            );
+        }
+        h.push_str("</tbody></table>");
+    }
+
+    // Models.
+    h.push_str("<h2>Logistic models</h2><table><thead><tr><th>model</th><th class=\"l\">term</th><th>estimate</th><th>SE</th><th>odds ratio</th><th>p</th><th>c</th><th>AIC</th></tr></thead><tbody>");
+    if let Some(m) = &c.adjustment_model {
+        model_table_rows("adjustment only", m, &mut h);
+    }
+    for ix in &c.indices {
+        match &ix.model {
+            Some(m) => model_table_rows(&ix.name, m, &mut h),
+            None => {
+                let _ = write!(
+                    h,
+                    "<tr class=\"first\"><td>{}</td><td class=\"l\" colspan=\"7\">no model (see notes)</td></tr>",
+                    esc(&ix.name)
+                );
+            }
+        }
+    }
+    h.push_str("</tbody></table><p class=\"lede\">Estimates are log odds ratios per point of the score (or per unit of an adjustment term); standard errors are Wald standard errors from the inverse information matrix.</p>");
+
+    // Distributions.
+    h.push_str("<h2>Score distributions</h2><table><thead><tr><th>index</th><th>mean</th><th>SD</th><th>min</th><th>Q1</th><th>median</th><th>Q3</th><th>max</th><th>score 0</th><th>distinct</th></tr></thead><tbody>");
+    for ix in &c.indices {
+        let d = &ix.distribution;
+        let _ = write!(
+            h,
+            "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            esc(&ix.name),
+            fixed(d.mean, 2),
+            d.sd.map_or("–".into(), |s| fixed(s, 2)),
+            fmt_num(d.min),
+            fmt_num(d.q1),
+            fmt_num(d.median),
+            fmt_num(d.q3),
+            fmt_num(d.max),
+            pct(d.zero_share),
+            d.distinct
+        );
+    }
+    h.push_str("</tbody></table><div class=\"grid\">");
+    for (i, ix) in c.indices.iter().enumerate() {
+        let _ = write!(
+            h,
+            "<figure><div class=\"title\" style=\"font-weight:600;font-size:14px\"><span class=\"key\" style=\"background:{}\"></span>{}</div>{}<figcaption>share of units by score; mean {}, {} score 0</figcaption></figure>",
+            colour(i),
+            esc(&ix.name),
+            histogram_svg(i, ix),
+            fixed(ix.distribution.mean, 2),
+            pct(ix.distribution.zero_share)
+        );
+    }
+    h.push_str("</div>");
+
+    // Prevalence, once per list.
+    h.push_str("<h2>Condition prevalence</h2><p class=\"lede\">Share of analysed units with each condition after the list's hierarchy (the same for every weighting of a list). Conditions no unit has are listed in the full table only.</p>");
+    let mut done: Vec<&str> = Vec::new();
+    for (i, ix) in c.indices.iter().enumerate() {
+        if done.contains(&ix.list.as_str()) {
+            continue;
+        }
+        done.push(&ix.list);
+        let absent = ix.prevalence.iter().filter(|p| p.count == 0).count();
+        let _ = write!(
+            h,
+            "<h3>{} <span style=\"font-weight:400;color:#5d6675\">· {} conditions, {} present</span></h3>",
+            esc(&ix.list),
+            ix.prevalence.len(),
+            ix.prevalence.len() - absent
+        );
+        let present = ix.prevalence.len() - absent;
+        if present > 0 {
+            h.push_str("<figure>");
+            h.push_str(&prevalence_svg(ix, colour(i)));
+            if present > MAX_BARS {
+                let _ = write!(
+                    h,
+                    "<figcaption>The {MAX_BARS} most frequent of the {present} conditions present; the full table lists every one.</figcaption>"
+                );
+            }
+            h.push_str("</figure>");
+        }
+        h.push_str("<details><summary>Full table</summary><table><thead><tr><th>key</th><th class=\"l\">condition</th><th>units</th><th>share</th></tr></thead><tbody>");
+        for p in &ix.prevalence {
+            let _ = write!(
+                h,
+                "<tr><td><code>{}</code></td><td class=\"l\">{}</td><td>{}</td><td>{}</td></tr>",
+                esc(&p.key),
+                esc(&p.label),
+                fmt_count(p.count),
+                pct(p.share)
+            );
+        }
+        h.push_str("</tbody></table></details>");
+    }
+
+    // Notes.
+    let mut notes: Vec<String> = c.notes.clone();
+    for n in &c.adjustment_notes {
+        notes.push(format!("adjustment-only model: {n}"));
+    }
+    for ix in &c.indices {
+        for n in &ix.notes {
+            notes.push(format!("{}: {n}", ix.name));
+        }
+    }
+    for p in &c.pairs {
+        for n in &p.notes {
+            notes.push(format!("{} vs {}: {n}", p.a, p.b));
+        }
+    }
+    if !notes.is_empty() {
+        h.push_str("<h2>Notes</h2><ul class=\"notes\">");
+        for n in notes {
+            let _ = write!(h, "<li>{}</li>", esc(&n));
+        }
+        h.push_str("</ul>");
+    }
+    h.push_str("<footer>Methods: c-statistic as the Mann–Whitney probability; confidence intervals and tests of correlated c-statistics by DeLong, DeLong &amp; Clarke-Pearson, Biometrics 1988;44:837-45; logistic regression by maximum likelihood (Newton–Raphson) with Wald standard errors; Spearman's rank correlation with average ranks for ties; quartiles by linear interpolation (Hyndman &amp; Fan type 7). Every figure was computed on the analysed units listed above. This page loads nothing from the network.</footer>");
+    h.push_str("</main></body></html>\n");
+    h
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn escapes_markup() {
+        assert_eq!(esc("a<b & \"c\""), "a&lt;b &amp; &quot;c&quot;");
+    }
+}

@@ -1,0 +1,859 @@
+//! End-to-end runs of `morbus compare`: the units analysed, the numbers
+//! against independent computations in this file, clear messages for bad
+//! input (never NaN), the JSON and HTML outputs, and a look at the report in
+//! a real browser where one is installed.
+
+use std::io::Write;
+use std::path::{Path, PathBuf};
+use std::process::{Command, Stdio};
+
+struct Run {
+    code: i32,
+    stdout: String,
+    stderr: String,
+}
+
+fn morbus(args: &[&str], stdin: &[u8]) -> Run {
+    let mut child = Command::new(env!("CARGO_BIN_EXE_morbus"))
+        .args(args)
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("run morbus");
+    let mut input = child.stdin.take().unwrap();
+    let data = stdin.to_vec();
+    let writer = std::thread::spawn(move || {
+        let _ = input.write_all(&data);
+    });
+    let out = child.wait_with_output().unwrap();
+    writer.join().unwrap();
+    Run {
+        code: out.status.code().unwrap_or(-1),
+        stdout: String::from_utf8_lossy(&out.stdout).into_owned(),
+        stderr: String::from_utf8_lossy(&out.stderr).into_owned(),
+    }
+}
+
+fn tmp(name: &str) -> PathBuf {
+    let dir = std::env::temp_dir().join(format!("morbus-compare-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    dir.join(name)
+}
+
+/// 64-bit LCG (Knuth's MMIX constants): deterministic test data.
+struct Lcg(u64);
+
+impl Lcg {
+    fn next(&mut self) -> u64 {
+        self.0 = self
+            .0
+            .wrapping_mul(6364136223846793005)
+            .wrapping_add(1442695040888963407);
+        self.0 >> 11
+    }
+    fn uniform(&mut self) -> f64 {
+        self.next() as f64 / (1u64 << 53) as f64
+    }
+    fn below(&mut self, n: u64) -> u64 {
+        self.next() % n
+    }
+}
+
+const CODES: &[&str] = &[
+    "I21.9", "I50.0", "E11.9", "E11.2", "C78.0", "C18.7", "J44.9", "N18.5", "F03", "R29.6", "W19",
+    "I10", "E66.9", "F32.9", "K70.3", "G30.9", "I63.9", "S72.0", "N39.0", "Z74.1", "I48.9",
+];
+
+/// A wide extract of `n` episodes (columns episode, patient, date, age, sex,
+/// dx1..dx6, died); the outcome depends on age and the number of codes; every
+/// `missing_every`-th episode has an empty outcome.
+fn extract(n: usize, seed: u64, missing_every: usize) -> String {
+    let mut r = Lcg(seed);
+    let mut s = String::from("episode,patient,date,age,sex,dx1,dx2,dx3,dx4,dx5,dx6,died\n");
+    for e in 0..n {
+        let age = 30 + r.below(65);
+        let k = r.below(7) as usize;
+        let mut dx: Vec<&str> = Vec::new();
+        for _ in 0..k {
+            let c = CODES[r.below(CODES.len() as u64) as usize];
+            if !dx.contains(&c) {
+                dx.push(c);
+            }
+        }
+        let eta = -4.0 + 0.035 * age as f64 + 0.4 * dx.len() as f64;
+        let died = r.uniform() < 1.0 / (1.0 + (-eta).exp());
+        let sex = if r.below(2) == 0 { "F" } else { "M" };
+        let outcome = if missing_every > 0 && e % missing_every == missing_every - 1 {
+            ""
+        } else if died {
+            "1"
+        } else {
+            "0"
+        };
+        let patient = r.below(n as u64 / 3 + 1);
+        let date = format!("2025-{:02}-{:02}", 1 + r.below(12), 1 + r.below(28));
+        let mut row = format!("E{e},P{patient},{date},{age},{sex}");
+        for i in 0..6 {
+            row.push(',');
+            row.push_str(dx.get(i).copied().unwrap_or(""));
+        }
+        row.push(',');
+        row.push_str(outcome);
+        row.push('\n');
+        s.push_str(&row);
+    }
+    s
+}
+
+fn write(name: &str, text: &str) -> PathBuf {
+    let p = tmp(name);
+    std::fs::write(&p, text).unwrap();
+    p
+}
+
+fn json(path: &Path) -> serde_json::Value {
+    serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
+}
+
+/// No NaN or infinity anywhere in a text output.
+fn assert_no_nan(what: &str, text: &str) {
+    for bad in ["NaN", "nan", "inf", "Infinity"] {
+        let hit = text.split(|c: char| !c.is_alphanumeric()).any(|w| w == bad);
+        assert!(!hit, "{what} contains {bad}:\n{text}");
+    }
+}
+
+/// c-statistic by direct pair counting: P(score of a positive > score of a
+/// negative) + ½ P(tie) (Hanley & McNeil, Radiology 1982;143:29-36).
+fn auc_pairs(scores: &[f64], y: &[bool]) -> f64 {
+    let (mut num, mut den) = (0.0, 0.0);
+    for (i, &a) in scores.iter().enumerate() {
+        if !y[i] {
+            continue;
+        }
+        for (j, &b) in scores.iter().enumerate() {
+            if y[j] {
+                continue;
+            }
+            den += 1.0;
+            if a > b {
+                num += 1.0;
+            } else if a == b {
+                num += 0.5;
+            }
+        }
+    }
+    num / den
+}
+
+fn score_columns(csv_text: &str, index: &str) -> (Vec<String>, Vec<Vec<String>>) {
+    let r = morbus(
+        &["score", "--dx", "dx*", "--index", index, "-q"],
+        csv_text.as_bytes(),
+    );
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let mut rdr = csv::Reader::from_reader(r.stdout.as_bytes());
+    let head: Vec<String> = rdr.headers().unwrap().iter().map(String::from).collect();
+    let rows = rdr
+        .records()
+        .map(|x| x.unwrap().iter().map(String::from).collect())
+        .collect();
+    (head, rows)
+}
+
+#[test]
+fn default_compares_every_weighting_and_counts_units() {
+    let data = extract(600, 11, 25);
+    let input = write("default.csv", &data);
+    let out = tmp("default.json");
+    let r = morbus(
+        &[
+            "compare",
+            input.to_str().unwrap(),
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--json",
+            out.to_str().unwrap(),
+        ],
+        b"",
+    );
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let j = json(&out);
+    let names: Vec<&str> = j["indices"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|i| i["name"].as_str().unwrap())
+        .collect();
+    // Every (list, weighting) of the built-in catalogue, as `morbus lists` shows it.
+    let lists = morbus(&["lists"], b"");
+    let mut expected = 0;
+    for line in lists.stdout.lines().skip(1) {
+        let name = line.split_whitespace().next().unwrap();
+        let n = names
+            .iter()
+            .filter(|x| x.starts_with(&format!("{name}_")))
+            .count();
+        assert!(n >= 1, "no index of list {name} in {names:?}");
+        expected += n;
+    }
+    assert_eq!(names.len(), expected);
+    assert_eq!(
+        names.len() * (names.len() - 1) / 2,
+        j["pairs"].as_array().unwrap().len()
+    );
+    let u = &j["units"];
+    assert_eq!(u["read"], 600);
+    assert_eq!(u["missing_outcome"], 24);
+    assert_eq!(u["analysed"], 576);
+    let events = data.lines().skip(1).filter(|l| l.ends_with(",1")).count();
+    assert_eq!(u["events"], events as u64);
+    assert!(r.stdout.contains("576 analysed"), "{}", r.stdout);
+    assert!(r.stdout.contains("24 without an outcome"));
+    assert_no_nan("stdout", &r.stdout);
+}
+
+#[test]
+fn c_statistics_match_pair_counting_on_score_output() {
+    let data = extract(400, 5, 0);
+    let input = write("auc.csv", &data);
+    let out = tmp("auc.json");
+    let index = "charlson:quan2011,elixhauser:vanwalraven2009,hfrs";
+    let r = morbus(
+        &[
+            "compare",
+            input.to_str().unwrap(),
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--index",
+            index,
+            "--json",
+            out.to_str().unwrap(),
+            "-q",
+        ],
+        b"",
+    );
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let j = json(&out);
+    let (head, rows) = score_columns(&data, index);
+    let died = head.iter().position(|h| h == "died").unwrap();
+    let y: Vec<bool> = rows.iter().map(|r| r[died] == "1").collect();
+    for ix in j["indices"].as_array().unwrap() {
+        let name = ix["name"].as_str().unwrap();
+        let col = head.iter().position(|h| h == name).unwrap();
+        let s: Vec<f64> = rows.iter().map(|r| r[col].parse().unwrap()).collect();
+        let c = ix["c_statistic"]["estimate"].as_f64().unwrap();
+        let expect = auc_pairs(&s, &y);
+        assert!((c - expect).abs() < 1e-12, "{name}: {c} vs {expect}");
+        // Mean score and share of zeros, straight from the score column.
+        let mean = s.iter().sum::<f64>() / s.len() as f64;
+        let m = ix["distribution"]["mean"].as_f64().unwrap();
+        assert!((m - mean).abs() < 1e-9, "{name}: mean {m} vs {mean}");
+        let zeros = s.iter().filter(|&&v| v == 0.0).count() as f64 / s.len() as f64;
+        assert_eq!(ix["distribution"]["zero_share"].as_f64().unwrap(), zeros);
+        let ci = ix["c_statistic"]["ci95"].as_array().unwrap();
+        assert!(ci[0].as_f64().unwrap() < c && c < ci[1].as_f64().unwrap());
+    }
+}
+
+#[test]
+fn outcome_that_is_not_zero_or_one_names_the_line() {
+    let data = "episode,dx1,died\ne1,I21.9,0\ne2,C78.0,1\ne3,,yes\ne4,,0\n";
+    let r = morbus(
+        &["compare", "--dx", "dx1", "--outcome", "died"],
+        data.as_bytes(),
+    );
+    assert_eq!(r.code, 1, "{}", r.stderr);
+    assert!(r.stderr.contains("line 4"), "{}", r.stderr);
+    assert!(r.stderr.contains("'yes'"), "{}", r.stderr);
+    assert!(r.stderr.contains("expected 0 or 1"), "{}", r.stderr);
+    assert!(r.stdout.is_empty());
+}
+
+#[test]
+fn constant_outcome_is_an_error_not_a_table_of_nan() {
+    let mut data = String::from("episode,dx1,died\n");
+    for i in 0..20 {
+        data.push_str(&format!("e{i},{},0\n", CODES[i % CODES.len()]));
+    }
+    data.push_str("e20,I21.9,\n");
+    let r = morbus(
+        &["compare", "--dx", "dx1", "--outcome", "died"],
+        data.as_bytes(),
+    );
+    assert_eq!(r.code, 1, "{}", r.stderr);
+    assert!(
+        r.stderr
+            .contains("is 0 for every one of the 20 analysed units"),
+        "{}",
+        r.stderr
+    );
+    assert!(r.stdout.is_empty());
+    // No analysable unit at all.
+    let data = "episode,dx1,died\ne1,I21.9,\ne2,C78.0,NA\n";
+    let r = morbus(
+        &["compare", "--dx", "dx1", "--outcome", "died"],
+        data.as_bytes(),
+    );
+    assert_eq!(r.code, 1, "{}", r.stderr);
+    assert!(r.stderr.contains("no unit can be analysed"), "{}", r.stderr);
+}
+
+#[test]
+fn separated_model_is_a_note_with_the_c_statistic_kept() {
+    // Outcome 1 exactly for the episodes with a metastatic tumour (6 points
+    // in the 1987 weighting); the others score at most 1.
+    let mut data = String::from("episode,age,dx1,dx2,died\n");
+    let mut r = Lcg(3);
+    for i in 0..60 {
+        let age = 40 + r.below(50);
+        if i % 4 == 0 {
+            data.push_str(&format!("e{i},{age},C78.0,,1\n"));
+        } else if i % 4 == 1 {
+            data.push_str(&format!("e{i},{age},I21.9,,0\n"));
+        } else {
+            data.push_str(&format!("e{i},{age},,,0\n"));
+        }
+    }
+    let out = tmp("separated.json");
+    let report = tmp("separated.html");
+    let run = morbus(
+        &[
+            "compare",
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--index",
+            "charlson:charlson1987",
+            "--adjust",
+            "age",
+            "--json",
+            out.to_str().unwrap(),
+            "--report",
+            report.to_str().unwrap(),
+        ],
+        data.as_bytes(),
+    );
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let j = json(&out);
+    let ix = &j["indices"][0];
+    assert_eq!(ix["c_statistic"]["estimate"].as_f64().unwrap(), 1.0);
+    assert!(ix["model"].is_null());
+    let notes = ix["notes"].to_string();
+    assert!(notes.contains("separation"), "{notes}");
+    assert!(run.stdout.contains("separation"), "{}", run.stdout);
+    assert!(
+        run.stdout.contains("(no model: see notes)"),
+        "{}",
+        run.stdout
+    );
+    assert_no_nan("stdout", &run.stdout);
+    assert_no_nan("json", &std::fs::read_to_string(&out).unwrap());
+    assert_no_nan("report", &std::fs::read_to_string(&report).unwrap());
+}
+
+#[test]
+fn zero_variance_index_is_noted_and_left_out_of_tests() {
+    // Codes that the Charlson list knows and the frailty list does not.
+    let mut data = String::from("episode,dx1,died\n");
+    let mut r = Lcg(9);
+    for i in 0..80 {
+        let c = ["I21.9", "E11.9", "C78.0", "", "J44.9"][r.below(5) as usize];
+        let died = if r.uniform() < 0.3 { 1 } else { 0 };
+        data.push_str(&format!("e{i},{c},{died}\n"));
+    }
+    let out = tmp("zero.json");
+    let run = morbus(
+        &[
+            "compare",
+            "--dx",
+            "dx1",
+            "--outcome",
+            "died",
+            "--index",
+            "charlson,hfrs",
+            "--json",
+            out.to_str().unwrap(),
+        ],
+        data.as_bytes(),
+    );
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let j = json(&out);
+    let hfrs = &j["indices"][1];
+    assert_eq!(hfrs["name"], "hfrs_gilbert2018");
+    assert!(hfrs["c_statistic"].is_null());
+    assert!(hfrs["model"].is_null());
+    assert!(hfrs["notes"].to_string().contains("zero variance"));
+    assert_eq!(hfrs["distribution"]["zero_share"].as_f64().unwrap(), 1.0);
+    assert!(hfrs["distribution"]["sd"].as_f64().unwrap() == 0.0);
+    let charlson = &j["indices"][0];
+    assert!(charlson["c_statistic"]["estimate"].as_f64().is_some());
+    let pair = &j["pairs"][0];
+    assert!(pair["delong"].is_null() && pair["spearman"].is_null());
+    assert!(pair["notes"].to_string().contains("zero variance"));
+    assert!(run.stdout.contains("zero variance"), "{}", run.stdout);
+    assert_no_nan("stdout", &run.stdout);
+}
+
+#[test]
+fn identical_rankings_give_a_note_instead_of_a_test() {
+    // Charlson count and Charlson 1987 weights rank units identically when
+    // every unit has at most one condition of weight 1.
+    let mut data = String::from("episode,dx1,died\n");
+    let mut r = Lcg(21);
+    for i in 0..50 {
+        let c = ["I21.9", "", "J44.9"][r.below(3) as usize];
+        let died = if r.uniform() < 0.4 { 1 } else { 0 };
+        data.push_str(&format!("e{i},{c},{died}\n"));
+    }
+    let out = tmp("identical.json");
+    let run = morbus(
+        &[
+            "compare",
+            "--dx",
+            "dx1",
+            "--outcome",
+            "died",
+            "--index",
+            "charlson:charlson1987,charlson:count",
+            "--json",
+            out.to_str().unwrap(),
+        ],
+        data.as_bytes(),
+    );
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let j = json(&out);
+    let pair = &j["pairs"][0];
+    assert!(pair["delong"].is_null());
+    assert!(pair["notes"]
+        .to_string()
+        .contains("order the units identically"));
+    assert_eq!(pair["spearman"].as_f64().unwrap(), 1.0);
+    assert_no_nan("stdout", &run.stdout);
+}
+
+#[test]
+fn adjustment_numeric_and_categorical() {
+    let data = extract(300, 17, 0);
+    let out = tmp("adjust.json");
+    let run = morbus(
+        &[
+            "compare",
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--index",
+            "charlson",
+            "--adjust",
+            "age",
+            "--adjust-cat",
+            "sex",
+            "--json",
+            out.to_str().unwrap(),
+        ],
+        data.as_bytes(),
+    );
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let j = json(&out);
+    let terms: Vec<&str> = j["indices"][0]["model"]["terms"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|t| t["name"].as_str().unwrap())
+        .collect();
+    assert_eq!(terms, ["(Intercept)", "charlson_quan2011", "age", "sex=M"]);
+    assert_eq!(j["adjustment"][1]["reference"], "F");
+    assert!(j["adjustment_model"]["aic"].as_f64().is_some());
+    assert!(run.stdout.contains("reference level 'F'"), "{}", run.stdout);
+
+    // A non-number in a numeric adjustment column: its line.
+    let mut lines: Vec<String> = data.lines().map(String::from).collect();
+    let mut cells: Vec<String> = lines[5].split(',').map(String::from).collect();
+    cells[3] = "unknown".into();
+    lines[5] = cells.join(",");
+    let bad = lines.join("\n") + "\n";
+    let run = morbus(
+        &[
+            "compare",
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--adjust",
+            "age",
+        ],
+        bad.as_bytes(),
+    );
+    assert_eq!(run.code, 1, "{}", run.stderr);
+    assert!(run.stderr.contains("line 6"), "{}", run.stderr);
+    assert!(
+        run.stderr.contains("'unknown', which is not a number"),
+        "{}",
+        run.stderr
+    );
+
+    // Missing adjustment values leave the unit out, counted.
+    let mut lines: Vec<String> = data.lines().map(String::from).collect();
+    for l in lines.iter_mut().skip(1).step_by(10) {
+        let mut cells: Vec<String> = l.split(',').map(String::from).collect();
+        cells[3] = "NA".into();
+        *l = cells.join(",");
+    }
+    let gaps = lines.join("\n") + "\n";
+    let run = morbus(
+        &[
+            "compare",
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--adjust",
+            "age",
+            "--index",
+            "hfrs",
+        ],
+        gaps.as_bytes(),
+    );
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    assert!(
+        run.stdout.contains("30 with a missing adjustment value"),
+        "{}",
+        run.stdout
+    );
+    assert!(run.stdout.contains("270 analysed"), "{}", run.stdout);
+}
+
+#[test]
+fn usage_errors_exit_2() {
+    let data = extract(30, 1, 0);
+    let r = morbus(
+        &["compare", "--dx", "dx*", "--outcome", "dead"],
+        data.as_bytes(),
+    );
+    assert_eq!(r.code, 2, "{}", r.stderr);
+    assert!(r.stderr.contains("'dead' not found"), "{}", r.stderr);
+    let r = morbus(
+        &[
+            "compare",
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--adjust",
+            "died",
+        ],
+        data.as_bytes(),
+    );
+    assert_eq!(r.code, 2, "{}", r.stderr);
+    assert!(r.stderr.contains("is the outcome"), "{}", r.stderr);
+    let r = morbus(&["compare", "--dx", "dx*"], data.as_bytes());
+    assert_eq!(r.code, 2, "{}", r.stderr);
+    let r = morbus(
+        &[
+            "compare",
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--index",
+            "nosuch",
+        ],
+        data.as_bytes(),
+    );
+    assert_eq!(r.code, 2, "{}", r.stderr);
+}
+
+#[test]
+fn long_layout_episodes_and_lookback() {
+    // Patient p1: an earlier episode with heart failure, a later one with a
+    // myocardial infarction. With a lookback the later episode has both.
+    let mut long = String::from("patient,episode,date,code,died\n");
+    let mut r = Lcg(4);
+    for p in 0..40 {
+        let died_late = if r.uniform() < 0.5 { 1 } else { 0 };
+        long.push_str(&format!("p{p},a,2025-01-10,I50.0,0\n"));
+        long.push_str(&format!("p{p},b,2025-03-01,I21.9,{died_late}\n"));
+        long.push_str(&format!("p{p},b,2025-03-01,J44.9,\n"));
+    }
+    let base = [
+        "compare",
+        "--dx",
+        "code",
+        "--layout",
+        "long",
+        "--id",
+        "patient",
+        "--episode",
+        "episode",
+        "--date",
+        "date",
+        "--outcome",
+        "died",
+        "--index",
+        "charlson:count",
+    ];
+    let out0 = tmp("long0.json");
+    let mut a: Vec<&str> = base.to_vec();
+    a.extend(["--json", out0.to_str().unwrap()]);
+    let run = morbus(&a, long.as_bytes());
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let j0 = json(&out0);
+    assert_eq!(j0["units"]["read"], 80);
+    assert_eq!(j0["units"]["analysed"], 80);
+    let out1 = tmp("long1.json");
+    let mut a: Vec<&str> = base.to_vec();
+    a.extend(["--lookback", "365", "--json", out1.to_str().unwrap()]);
+    let run = morbus(&a, long.as_bytes());
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let j1 = json(&out1);
+    assert_eq!(j1["lookback"], "365");
+    let chf = |j: &serde_json::Value| {
+        j["indices"][0]["prevalence"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|p| p["key"] == "congestive_heart_failure")
+            .unwrap()["count"]
+            .as_u64()
+            .unwrap()
+    };
+    assert_eq!(chf(&j0), 40);
+    assert_eq!(chf(&j1), 80);
+    let mean0 = j0["indices"][0]["distribution"]["mean"].as_f64().unwrap();
+    let mean1 = j1["indices"][0]["distribution"]["mean"].as_f64().unwrap();
+    assert_eq!((mean0, mean1), (1.5, 2.0));
+
+    // Two rows of one episode disagreeing on the outcome.
+    let clash = long.replacen("p0,b,2025-03-01,J44.9,", "p0,b,2025-03-01,J44.9,7", 1);
+    let clash = clash.replacen("p0,b,2025-03-01,I21.9,0", "p0,b,2025-03-01,I21.9,1", 1);
+    let run = morbus(&base, clash.as_bytes());
+    assert_eq!(run.code, 1, "{}", run.stderr);
+    assert!(run.stderr.contains("line 4"), "{}", run.stderr);
+    assert!(run.stderr.contains("same episode"), "{}", run.stderr);
+}
+
+#[test]
+fn age_points_add_an_age_variant() {
+    let data = extract(200, 8, 0);
+    let out = tmp("age.json");
+    let run = morbus(
+        &[
+            "compare",
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--index",
+            "charlson:charlson1987",
+            "--age",
+            "age",
+            "--json",
+            out.to_str().unwrap(),
+        ],
+        data.as_bytes(),
+    );
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let j = json(&out);
+    let names: Vec<&str> = j["indices"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|i| i["name"].as_str().unwrap())
+        .collect();
+    assert_eq!(
+        names,
+        ["charlson_charlson1987", "charlson_charlson1987_age"]
+    );
+    assert_eq!(j["indices"][1]["with_age"], true);
+    let m0 = j["indices"][0]["distribution"]["mean"].as_f64().unwrap();
+    let m1 = j["indices"][1]["distribution"]["mean"].as_f64().unwrap();
+    assert!(m1 > m0, "age points add to the mean: {m0} {m1}");
+}
+
+fn report_for_tests() -> PathBuf {
+    let data = extract(1500, 31, 40);
+    let input = write("report.csv", &data);
+    let report = tmp("report.html");
+    let run = morbus(
+        &[
+            "compare",
+            input.to_str().unwrap(),
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--adjust",
+            "age",
+            "--adjust-cat",
+            "sex",
+            "--report",
+            report.to_str().unwrap(),
+            "-q",
+        ],
+        b"",
+    );
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    report
+}
+
+#[test]
+fn report_is_one_self_contained_page() {
+    let html = std::fs::read_to_string(report_for_tests()).unwrap();
+    assert!(html.starts_with("<!DOCTYPE html>"));
+    assert!(html.trim_end().ends_with("</html>"));
+    for banned in [
+        "<script", "<link", "<img", "@import", "url(", "src=", "href=",
+    ] {
+        assert!(!html.contains(banned), "report contains {banned}");
+    }
+    // The only URL is the SVG namespace name, which is never fetched.
+    let urls = html.matches("http").count();
+    let ns = html.matches("http://www.w3.org/2000/svg").count();
+    assert_eq!(urls, ns);
+    // One ROC plot with a path per index, a histogram per index, the
+    // prevalence bars per list and the caution.
+    let indices = 6;
+    assert_eq!(html.matches("aria-label=\"ROC curves").count(), 1);
+    assert!(html.matches("stroke-width=\"2\"").count() >= indices);
+    assert_eq!(html.matches("aria-label=\"histogram of").count(), indices);
+    assert_eq!(html.matches("aria-label=\"condition prevalence").count(), 3);
+    assert!(html.contains("For population-level research only"));
+    assert_no_nan("report", &html);
+}
+
+fn find_browser() -> Option<PathBuf> {
+    let path = std::env::var_os("PATH")?;
+    for dir in std::env::split_paths(&path) {
+        for name in ["chromium", "chromium-browser", "google-chrome"] {
+            let p = dir.join(name);
+            if p.is_file() {
+                return Some(p);
+            }
+        }
+    }
+    None
+}
+
+/// Width, height of a PNG from its IHDR chunk.
+fn png_size(bytes: &[u8]) -> Option<(u32, u32)> {
+    if bytes.len() < 24 || &bytes[..8] != b"\x89PNG\r\n\x1a\n" || &bytes[12..16] != b"IHDR" {
+        return None;
+    }
+    let w = u32::from_be_bytes(bytes[16..20].try_into().ok()?);
+    let h = u32::from_be_bytes(bytes[20..24].try_into().ok()?);
+    Some((w, h))
+}
+
+#[test]
+fn report_renders_in_headless_chromium() {
+    let Some(browser) = find_browser() else {
+        eprintln!(
+            "SKIPPED report_renders_in_headless_chromium: no chromium on PATH \
+             (install Debian's chromium package to run it)"
+        );
+        return;
+    };
+    let report = report_for_tests();
+    let png = tmp("report.png");
+    let profile = tmp("chromium-profile");
+    std::fs::create_dir_all(&profile).unwrap();
+    let status = Command::new(&browser)
+        .args([
+            "--headless",
+            "--no-sandbox",
+            "--disable-gpu",
+            "--disable-quic",
+            "--no-first-run",
+            "--disable-background-networking",
+            "--disable-component-update",
+            "--disable-sync",
+            &format!("--user-data-dir={}", profile.display()),
+            &format!("--screenshot={}", png.display()),
+            "--window-size=1200,2400",
+            &format!("file://{}", report.display()),
+        ])
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .status()
+        .expect("run chromium");
+    assert!(status.success(), "chromium failed: {status}");
+    let bytes = std::fs::read(&png).unwrap();
+    assert_eq!(png_size(&bytes), Some((1200, 2400)));
+    // A blank or error page compresses to a few kilobytes; the report's
+    // text, tables and charts do not.
+    assert!(
+        bytes.len() > 60_000,
+        "screenshot is only {} bytes: the page looks empty",
+        bytes.len()
+    );
+}
+
+#[test]
+fn single_event_gives_c_statistics_without_intervals() {
+    let mut data = String::from("episode,dx1,dx2,died\n");
+    for i in 0..30 {
+        let (a, b) = [
+            ("I21.9", "E11.9"),
+            ("", ""),
+            ("J44.9", ""),
+            ("C78.0", "I50.0"),
+        ][i % 4];
+        data.push_str(&format!("e{i},{a},{b},{}\n", if i == 3 { 1 } else { 0 }));
+    }
+    let out = tmp("single.json");
+    let run = morbus(
+        &[
+            "compare",
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--index",
+            "charlson:charlson1987,elixhauser",
+            "--json",
+            out.to_str().unwrap(),
+        ],
+        data.as_bytes(),
+    );
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let j = json(&out);
+    let c = &j["indices"][0]["c_statistic"];
+    // The one event scores highest (metastatic tumour + heart failure): the
+    // episodes scoring the same are the other 6 of its kind (ties count ½).
+    let negatives = 29.0;
+    let tied = 7.0 - 1.0;
+    let expected = (negatives - tied + 0.5 * tied) / negatives;
+    assert!(
+        (c["estimate"].as_f64().unwrap() - expected).abs() < 1e-12,
+        "{c}"
+    );
+    assert!(c["std_error"].is_null() && c["ci95"].is_null());
+    assert!(
+        j["notes"].to_string().contains("no DeLong variance"),
+        "{}",
+        j["notes"]
+    );
+    assert!(j["pairs"][0]["delong"].is_null());
+    assert!(j["pairs"][0]["spearman"].as_f64().is_some());
+    assert_no_nan("stdout", &run.stdout);
+}
+
+#[test]
+fn header_only_and_empty_input_are_clear_errors() {
+    let r = morbus(
+        &["compare", "--dx", "dx1", "--outcome", "died"],
+        b"episode,dx1,died\n",
+    );
+    assert_eq!(r.code, 1, "{}", r.stderr);
+    assert!(r.stderr.contains("no unit can be analysed"), "{}", r.stderr);
+    let r = morbus(&["compare", "--dx", "dx1", "--outcome", "died"], b"");
+    assert_eq!(r.code, 1, "{}", r.stderr);
+    assert!(r.stderr.contains("empty"), "{}", r.stderr);
+}
