@@ -20,6 +20,7 @@ python/, or `pip install ./python`). The data are invented:
 from __future__ import annotations
 
 import argparse
+import os
 import re
 import shutil
 import subprocess
@@ -90,6 +91,9 @@ def main() -> None:
     ap.add_argument("--threads", type=int, default=None, help="threads= of morbus.score (default: one per core)")
     ap.add_argument("--data", default="synth" if shutil.which("cargo") else "numpy")
     a = ap.parse_args()
+    print(f"morbus from {Path(morbus.__file__).parent}")
+    if morbus._native.debug_build():
+        print("warning: this is a debug build of the extension; build with --release to measure speed")
     t0 = time.perf_counter()
     if a.data in ("numpy", "full"):
         df = frame(a.rows, a.dx, full=a.data == "full")
@@ -99,13 +103,17 @@ def main() -> None:
     filled = int(df.filter(like="dx").notna().to_numpy().sum())
     print(f"data ({a.data}): {len(df):,} rows x {a.dx} diagnosis columns ({filled:,} non-empty fields, dtype {df['dx1'].dtype}), made in {time.perf_counter() - t0:.1f} s")
     times = []
+    cpu = []
     for _ in range(a.repeat):
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         out, prov = morbus.score(df, dx="dx*", threads=a.threads, provenance=True)
         times.append(time.perf_counter() - t0)
+        cpu.append(time.process_time() - c0)
     print(f"morbus {morbus.__version__}: {', '.join(i['spec'] for i in prov['indices'])}, threads={a.threads or 'one per core'}")
     print(prov["report"])
-    print(f"score(): best {min(times):.2f} s, all {', '.join(f'{t:.2f}' for t in times)} s")
+    load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
+    print(f"score(): best {min(times):.2f} s, all {', '.join(f'{t:.2f}' for t in times)} s "
+          f"(CPU time {', '.join(f'{t:.2f}' for t in cpu)} s; load average {load:.1f} on {os.cpu_count()} cores)")
     assert len(out) == len(df)
 
 

@@ -19,7 +19,7 @@ from __future__ import annotations
 import json
 import os
 import sys
-from typing import Any, Dict, List, Optional, Sequence, Tuple, Union
+from typing import Any, Dict, List, Optional, Sequence, Union
 
 from . import _native
 from ._native import Lists
@@ -28,8 +28,11 @@ __all__ = ["score", "lists", "load_lists", "Lists", "__version__"]
 
 __version__: str = _native.version()
 
-# `morbus.explain(...)` (which codes gave which condition) is planned: it will
-# be added here once the library's explain feature has landed.
+# Planned: `morbus.explain(...)` (which code gave which condition, as
+# `morbus explain` shows) and the dated-history options (`date=`, `lookback=`,
+# ...). The library has them for delimited text; they need a columnar entry
+# point in the library (like `morbus::columnar` for `score`) before they can
+# be offered here without scoring logic of their own.
 
 _Names = Union[str, Sequence[str]]
 
@@ -296,6 +299,7 @@ def score(
     if first_stream is None:
         out = _attach(kind, frame, scores)
     else:
+        assert id is not None  # the long layout needs it (checked by the engine)
         first = pa.table(first_stream).column(0)
         out = _long(kind, frame, names.index(id), first, scores)
     if not provenance:
@@ -305,6 +309,14 @@ def score(
     return out, prov
 
 
+def _polars(table: Any) -> Any:
+    import polars as pl
+
+    out = pl.from_arrow(table)
+    assert isinstance(out, pl.DataFrame)
+    return out
+
+
 def _attach(kind: str, frame: Any, scores: Any) -> Any:
     """The input frame with the score columns after its own."""
     if kind == "pandas":
@@ -312,9 +324,7 @@ def _attach(kind: str, frame: Any, scores: Any) -> Any:
 
         return pd.concat([frame, _to_pandas(scores, frame.index)], axis=1)
     if kind == "polars":
-        import polars as pl
-
-        return frame.hstack(pl.from_arrow(scores).get_columns())
+        return frame.hstack(_polars(scores).get_columns())
     table = frame
     for field, column in zip(scores.schema, scores.columns):
         table = table.append_column(field, column)
@@ -333,7 +343,7 @@ def _long(kind: str, frame: Any, id_index: int, first: Any, scores: Any) -> Any:
         import polars as pl
 
         ids = frame.get_column(frame.columns[id_index]).gather(first.to_numpy())
-        return pl.DataFrame([ids]).hstack(pl.from_arrow(scores).get_columns())
+        return pl.DataFrame([ids]).hstack(_polars(scores).get_columns())
     import pyarrow as pa
 
     ids = frame.column(id_index).take(first)

@@ -18,6 +18,7 @@ use arrow_array::types::*;
 use arrow_array::{
     Array, ArrayRef, Int64Array, RecordBatch, RecordBatchIterator, RecordBatchReader,
 };
+use arrow_buffer::NullBuffer;
 use arrow_schema::{ArrowError, DataType, Field, Schema, SchemaRef};
 use pyo3::exceptions::{PyKeyError, PyTypeError, PyValueError};
 use pyo3::prelude::*;
@@ -221,11 +222,19 @@ fn import_stream(obj: &Bound<'_, PyAny>) -> PyResult<Vec<RecordBatch>> {
 
 /// A text column of a batch.
 enum Text<'a> {
-    Utf8(&'a arrow_array::StringArray),
-    LargeUtf8(&'a arrow_array::LargeStringArray),
+    /// String or binary with 32-bit offsets (read straight from the buffers).
+    Offsets32 {
+        offsets: &'a [i32],
+        values: &'a [u8],
+        nulls: Option<&'a NullBuffer>,
+    },
+    /// Large string or large binary: 64-bit offsets.
+    Offsets64 {
+        offsets: &'a [i64],
+        values: &'a [u8],
+        nulls: Option<&'a NullBuffer>,
+    },
     View(&'a arrow_array::StringViewArray),
-    Binary(&'a arrow_array::BinaryArray),
-    LargeBinary(&'a arrow_array::LargeBinaryArray),
     BinaryView(&'a arrow_array::BinaryViewArray),
     Dict {
         array: &'a dyn Array,
@@ -242,12 +251,30 @@ impl<'a> Text<'a> {
         if array.null_count() == array.len() {
             return Some(Text::Null);
         }
+        fn o32<'a, T: arrow_array::types::ByteArrayType<Offset = i32>>(
+            a: &'a arrow_array::GenericByteArray<T>,
+        ) -> Text<'a> {
+            Text::Offsets32 {
+                offsets: a.value_offsets(),
+                values: a.value_data(),
+                nulls: a.nulls(),
+            }
+        }
+        fn o64<'a, T: arrow_array::types::ByteArrayType<Offset = i64>>(
+            a: &'a arrow_array::GenericByteArray<T>,
+        ) -> Text<'a> {
+            Text::Offsets64 {
+                offsets: a.value_offsets(),
+                values: a.value_data(),
+                nulls: a.nulls(),
+            }
+        }
         Some(match array.data_type() {
-            DataType::Utf8 => Text::Utf8(array.as_string::<i32>()),
-            DataType::LargeUtf8 => Text::LargeUtf8(array.as_string::<i64>()),
+            DataType::Utf8 => o32(array.as_string::<i32>()),
+            DataType::LargeUtf8 => o64(array.as_string::<i64>()),
+            DataType::Binary => o32(array.as_binary::<i32>()),
+            DataType::LargeBinary => o64(array.as_binary::<i64>()),
             DataType::Utf8View => Text::View(array.as_string_view()),
-            DataType::Binary => Text::Binary(array.as_binary::<i32>()),
-            DataType::LargeBinary => Text::LargeBinary(array.as_binary::<i64>()),
             DataType::BinaryView => Text::BinaryView(array.as_binary_view()),
             DataType::Dictionary(_, _) => {
                 let d = array.as_any_dictionary();
@@ -269,12 +296,40 @@ impl<'a> Text<'a> {
     #[inline]
     fn get(&self, i: usize) -> &[u8] {
         match self {
-            Text::Utf8(a) => text_or_empty(*a, i, |a, i| a.value(i).as_bytes()),
-            Text::LargeUtf8(a) => text_or_empty(*a, i, |a, i| a.value(i).as_bytes()),
-            Text::View(a) => text_or_empty(*a, i, |a, i| a.value(i).as_bytes()),
-            Text::Binary(a) => text_or_empty(*a, i, |a, i| a.value(i)),
-            Text::LargeBinary(a) => text_or_empty(*a, i, |a, i| a.value(i)),
-            Text::BinaryView(a) => text_or_empty(*a, i, |a, i| a.value(i)),
+            Text::Offsets32 {
+                offsets,
+                values,
+                nulls,
+            } => {
+                if nulls.is_some_and(|n| n.is_null(i)) {
+                    return b"";
+                }
+                &values[offsets[i] as usize..offsets[i + 1] as usize]
+            }
+            Text::Offsets64 {
+                offsets,
+                values,
+                nulls,
+            } => {
+                if nulls.is_some_and(|n| n.is_null(i)) {
+                    return b"";
+                }
+                &values[offsets[i] as usize..offsets[i + 1] as usize]
+            }
+            Text::View(a) => {
+                if a.is_null(i) {
+                    b""
+                } else {
+                    a.value(i).as_bytes()
+                }
+            }
+            Text::BinaryView(a) => {
+                if a.is_null(i) {
+                    b""
+                } else {
+                    a.value(i)
+                }
+            }
             Text::Dict {
                 array,
                 keys,
@@ -293,11 +348,10 @@ impl<'a> Text<'a> {
     #[inline]
     fn is_null(&self, i: usize) -> bool {
         match self {
-            Text::Utf8(a) => a.is_null(i),
-            Text::LargeUtf8(a) => a.is_null(i),
+            Text::Offsets32 { nulls, .. } | Text::Offsets64 { nulls, .. } => {
+                nulls.is_some_and(|n| n.is_null(i))
+            }
             Text::View(a) => a.is_null(i),
-            Text::Binary(a) => a.is_null(i),
-            Text::LargeBinary(a) => a.is_null(i),
             Text::BinaryView(a) => a.is_null(i),
             Text::Dict {
                 array,
@@ -306,19 +360,6 @@ impl<'a> Text<'a> {
             } => array.is_null(i) || values.is_null(keys[i]),
             Text::Null => true,
         }
-    }
-}
-
-#[inline]
-fn text_or_empty<'a, A: Array>(
-    a: &'a A,
-    i: usize,
-    f: impl Fn(&'a A, usize) -> &'a [u8],
-) -> &'a [u8] {
-    if a.is_null(i) {
-        b""
-    } else {
-        f(a, i)
     }
 }
 
@@ -867,6 +908,12 @@ fn version() -> &'static str {
     morbus::VERSION
 }
 
+/// Whether this extension is a debug build (slow; for tests only).
+#[pyfunction]
+fn debug_build() -> bool {
+    cfg!(debug_assertions)
+}
+
 #[pymodule]
 fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<PyLists>()?;
@@ -876,5 +923,6 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(list_table, m)?)?;
     m.add_function(wrap_pyfunction!(score, m)?)?;
     m.add_function(wrap_pyfunction!(version, m)?)?;
+    m.add_function(wrap_pyfunction!(debug_build, m)?)?;
     Ok(())
 }
