@@ -59,9 +59,10 @@ pub struct History {
     own_all: Vec<u64>,
     /// Empty when no exclusion rule is on (then it equals `own_all`).
     own_current: Vec<u64>,
-    /// Wide layout: the end of each row's raw bytes in `arena`.
-    row_ends: Vec<usize>,
-    arena: Vec<u8>,
+    /// Wide layout: each row's raw bytes, as (block, start, end) into the
+    /// blocks' own buffers (kept as read: no copy into one arena).
+    row_spans: Vec<(u32, u32, u32)>,
+    raw_blocks: Vec<Vec<u8>>,
     /// Every code, when asked for.
     pub codes: Vec<CodeRecord>,
 }
@@ -238,8 +239,8 @@ impl History {
         let mut keys: Vec<Box<[u8]>> = Vec::new();
         let mut own_all: Vec<u64> = Vec::new();
         let mut own_current: Vec<u64> = Vec::new();
-        let mut row_ends: Vec<usize> = Vec::new();
-        let mut arena: Vec<u8> = Vec::new();
+        let mut row_spans: Vec<(u32, u32, u32)> = Vec::new();
+        let mut raw_blocks: Vec<Vec<u8>> = Vec::new();
         let mut codes: Vec<CodeRecord> = Vec::new();
         let mut patient_index: ByteMap<u32> = ByteMap::default();
         let mut episode_index: ByteMap<u32> = ByteMap::default();
@@ -343,9 +344,14 @@ impl History {
                     }
                 }
                 if cfg.layout == Layout::Wide {
-                    let base = arena.len();
-                    arena.extend_from_slice(&b.raw);
-                    row_ends.extend(b.raw_ends.iter().map(|&x| base + x));
+                    let bi = raw_blocks.len() as u32;
+                    let mut start = 0u32;
+                    row_spans.extend(b.raw_ends.iter().map(|&x| {
+                        let span = (bi, start, x as u32);
+                        start = x as u32;
+                        span
+                    }));
+                    raw_blocks.push(b.raw);
                 }
                 for mut c in b.codes {
                     c.episode = block_episode[c.episode as usize];
@@ -374,8 +380,8 @@ impl History {
             words,
             own_all,
             own_current,
-            row_ends,
-            arena,
+            row_spans,
+            raw_blocks,
             codes,
         };
         Ok((hist, summary))
@@ -385,13 +391,23 @@ impl History {
     /// an episode's window is itself alone.
     pub fn windows(&self, lookback: Option<u32>) -> Windows {
         let n = self.episodes.len();
-        let mut sorted: Vec<u32> = (0..n as u32).collect();
         // Per patient, dated episodes by date, then undated; input order
-        // breaks ties.
-        sorted.sort_by_key(|&e| {
-            let ep = &self.episodes[e as usize];
-            (ep.patient, ep.date.is_none(), ep.date.unwrap_or(0), e)
-        });
+        // breaks ties. One packed key per episode: patient (32 bits), then
+        // 1 bit "undated", then the date shifted to be non-negative.
+        let mut keyed: Vec<(u64, u32)> = self
+            .episodes
+            .iter()
+            .enumerate()
+            .map(|(e, ep)| {
+                let day = match ep.date {
+                    Some(d) => (d as i64 - i32::MIN as i64) as u64,
+                    None => 1 << 32,
+                };
+                (((ep.patient as u64) << 33) | day, e as u32)
+            })
+            .collect();
+        keyed.sort_unstable();
+        let sorted: Vec<u32> = keyed.into_iter().map(|(_, e)| e).collect();
         let mut range = vec![(0u32, 0u32); n];
         let mut i = 0;
         while i < n {
@@ -486,8 +502,8 @@ impl History {
 
     /// Wide layout: each row's raw bytes, in input order (one per episode).
     pub fn row_raw(&self, e: usize) -> &[u8] {
-        let start = if e == 0 { 0 } else { self.row_ends[e - 1] };
-        &self.arena[start..self.row_ends[e]]
+        let (b, start, end) = self.row_spans[e];
+        &self.raw_blocks[b as usize][start as usize..end as usize]
     }
 }
 
