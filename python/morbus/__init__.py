@@ -262,6 +262,7 @@ def score(
       episode being scored count only when it holds one of ``poa_values``
       (default ``("Y", "W")``, case-insensitive).
 
+    >>> import pandas as pd, morbus
     >>> df = pd.DataFrame({
     ...     "patient": ["p1", "p1", "p2"],
     ...     "day": ["2024-01-10", "2024-03-01", "2024-03-01"],

@@ -228,8 +228,11 @@ def explain(
     ... })
     >>> out = morbus.explain(df, dx="dx*", id="patient", date="day", lookback=365,
     ...                      index="charlson:charlson1987")
-    >>> out[["row", "source_row", "condition", "weight", "status"]].values.tolist()
-    [[1, 1, 'mi', 1, 'counted'], [1, <NA>, None, 1, 'total'], [2, 2, 'diabetes', 1, 'counted'], [2, 1, 'mi', 1, 'counted'], [2, <NA>, None, 2, 'total']]
+    >>> codes = out[out["status"] != "total"]
+    >>> codes[["row", "source_row", "condition", "status"]].values.tolist()
+    [[1, 1, 'myocardial_infarction', 'counted'], [2, 2, 'diabetes_without_chronic_complication', 'counted'], [2, 1, 'myocardial_infarction', 'counted']]
+    >>> out.loc[out["status"] == "total", "weight"].tolist()
+    [1, 2]
     """
     from . import _as_list, _catalogue, _optional_name
 

@@ -532,7 +532,7 @@ fn memchr_count(b: &[u8]) -> u64 {
 fn frame_error(run: &Run, starts: &[u64], e: Error) -> PyErr {
     let row = |line: u64| starts.partition_point(|&s| s <= line).saturating_sub(1);
     let names = |mut m: String| {
-        for u in &run.used {
+        'found: for u in &run.used {
             for (from, to) in [
                 (
                     format!("in column '{}'", u.text_name),
@@ -545,6 +545,7 @@ fn frame_error(run: &Run, starts: &[u64], e: Error) -> PyErr {
             ] {
                 if let Some(head) = m.strip_suffix(&from) {
                     m = format!("{head}{to}");
+                    break 'found;
                 }
             }
         }
