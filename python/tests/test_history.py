@@ -234,17 +234,17 @@ def test_explain_long_equals_cli(run_cli, reader):
     assert {"excluded:primary_diagnosis", "excluded:not_present_on_admission"} <= set(cli["status"])
     py = as_pandas(out)
     assert str(py["source_date"].dtype).startswith("datetime64")
-    assert py["weight"].dtype == "int64"  # the default charlson and elixhauser weightings are whole
+    assert py["weight"].dtype == "float64"  # hfrs (a default index) has decimals
 
 
 
-def test_explain_long_hfrs_weights(run_cli, long_part):
-    """hfrs has decimals: float weights."""
-    opts = {**LONG, "index": "hfrs"}
+def test_explain_long_whole_weights(run_cli, long_part):
+    """Whole-number weightings only: int64 weights."""
+    opts = {**LONG, "index": "charlson:quan2011,elixhauser:vanwalraven2009"}
     cli = cli_frame(run_cli, "explain", long_part, opts)
     out = morbus.explain(read("polars", long_part), **opts)
     assert_same(out, cli, list(cli.columns))
-    assert as_pandas(out)["weight"].dtype == "float64"
+    assert as_pandas(out)["weight"].dtype == "int64"
 
 
 def test_explain_totals_are_the_scores():
