@@ -611,7 +611,8 @@ fn fetch_text(
         }
         run.text_cfg.date_format = DateFormat::Iso;
     }
-    let (text, starts) = to_text(run, &cols, &lens);
+    let run: &Run = run;
+    let (text, starts) = fetch.py().detach(|| to_text(run, &cols, &lens));
     let total = lens.iter().sum();
     Ok((text, starts, total))
 }
