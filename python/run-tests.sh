@@ -28,4 +28,4 @@ if [ -n "${MORBUS_RELEASE:-}" ]; then profile=(--release); fi
 export MORBUS_BIN="$CARGO_TARGET_DIR/debug/morbus"
 
 cd "$here"
-exec "$venv/bin/python" -m pytest -q "$@"
+exec "$venv/bin/python" -m pytest -q -rs "$@"

@@ -19,20 +19,16 @@ from __future__ import annotations
 import json
 import os
 import sys
-from typing import Any, Dict, List, Optional, Sequence, Union
+from typing import Any, Dict, List, Optional, Sequence, Tuple, Union
 
-from . import _native
+from . import _history, _native
+from ._history import explain
 from ._native import Lists
 
-__all__ = ["score", "lists", "load_lists", "Lists", "__version__"]
+__all__ = ["score", "explain", "lists", "load_lists", "Lists", "__version__"]
 
 __version__: str = _native.version()
 
-# Planned: `morbus.explain(...)` (which code gave which condition, as
-# `morbus explain` shows) and the dated-history options (`date=`, `lookback=`,
-# ...). The library has them for delimited text; they need a columnar entry
-# point in the library (like `morbus::columnar` for `score`) before they can
-# be offered here without scoring logic of their own.
 
 _Names = Union[str, Sequence[str]]
 
@@ -189,6 +185,14 @@ def score(
     strict: bool = False,
     threads: Optional[int] = None,
     provenance: bool = False,
+    date: Optional[str] = None,
+    date_format: Optional[str] = None,
+    lookback: Union[None, int, str] = None,
+    episode: Optional[str] = None,
+    exclude_primary: bool = False,
+    primary: Optional[str] = None,
+    poa: Optional[str] = None,
+    poa_values: Union[str, Sequence[str]] = ("Y", "W"),
 ) -> Any:
     """Add comorbidity and frailty scores to an extract (``morbus score``).
 
@@ -236,6 +240,41 @@ def score(
     holds only nulls (an empty column read from a file), which is empty.
     Ages may be numbers (NaN and null are missing) or text.
 
+    Dated patient history, as ``morbus score --date --lookback ...``:
+
+    - ``date``: episode date column: text (``date_format``, by default
+      ``YYYY-MM-DD``, a time after it ignored), or dates and timestamps
+      (Arrow date32/date64/timestamp, pandas ``datetime64``, polars
+      ``Date``/``Datetime``; with a time zone, the local date).
+    - ``lookback``: days (an ``int``) or ``"all"``: each episode is scored
+      from its own codes and those of the same patient's (``id``) episodes
+      dated within that many days before it, both ends inclusive (episodes of
+      the same day count each other; later episodes never count). Needs
+      ``id`` and ``date``.
+    - ``episode`` (long layout): the column grouping code rows into episodes;
+      the result has one row per episode in order of first appearance, with
+      the ``id`` and ``episode`` columns, then the scores.
+    - ``exclude_primary=True``: leave the primary diagnosis of the episode
+      being scored out (wide: the first diagnosis column; long: the rows
+      flagged by ``primary``, a column holding 1, y, yes, true, p or primary).
+      It still counts when an earlier episode is in the window.
+    - ``poa`` (long layout): present-on-admission column; codes of the
+      episode being scored count only when it holds one of ``poa_values``
+      (default ``("Y", "W")``, case-insensitive).
+
+    >>> import pandas as pd, morbus
+    >>> df = pd.DataFrame({
+    ...     "patient": ["p1", "p1", "p2"],
+    ...     "day": ["2024-01-10", "2024-03-01", "2024-03-01"],
+    ...     "dx1": ["I21.9", "J18.9", "E11.9"],
+    ... })
+    >>> morbus.score(df, dx="dx1", id="patient", date="day", lookback=365,
+    ...              index="charlson:charlson1987")["charlson_charlson1987"].tolist()
+    [1, 1, 1]
+    >>> morbus.score(df, dx="dx1", id="patient", date="day", lookback=365, exclude_primary=True,
+    ...              index="charlson:charlson1987")["charlson_charlson1987"].tolist()
+    [0, 1, 0]
+
     Errors: ``KeyError`` for a column that is not in the frame; ``ValueError``
     for everything else the command line reports as a usage error (exit 2),
     with its message, and for ``strict`` failures.
@@ -264,6 +303,16 @@ def score(
     elif isinstance(threads, bool) or not isinstance(threads, int) or threads < 1:
         raise ValueError(f"threads must be a positive whole number, not {threads!r}")
     cat = _catalogue(lists)
+    if _history.wants_history(date, lookback, episode, exclude_primary, primary, poa):
+        return _score_history(
+            frame,
+            dict(dx=dx_items, layout=layout, id=id, age=age, index=index_items, flags=bool(flags),
+                 hierarchy=bool(hierarchy), lists=cat, dx_sep=dx_sep, strict=bool(strict), threads=threads),
+            _history.native_options(date=date, date_format=date_format, lookback=lookback, episode=episode,
+                                    exclude_primary=exclude_primary, primary=primary, poa=poa,
+                                    poa_values=poa_values),
+            provenance,
+        )
 
     if kind == "pandas":
         names = [str(c) for c in frame.columns]
@@ -315,6 +364,25 @@ def _polars(table: Any) -> Any:
     out = pl.from_arrow(table)
     assert isinstance(out, pl.DataFrame)
     return out
+
+
+def _score_history(frame: Any, common: Dict[str, Any], history: Dict[str, Any], provenance: bool) -> Any:
+    """`score` over the patient history (see `morbus._history`)."""
+    import pyarrow as pa
+
+    kind, frame, names, fetch = _history.frame_source(frame)
+    scores_stream, first_stream, prov_json, report = _native.score_history(names, fetch, **common, **history)
+    scores = pa.table(scores_stream)
+    if first_stream is None:
+        out = _attach(kind, frame, scores)
+    else:
+        first = pa.table(first_stream).column(0)
+        out = _history.score_long(kind, frame, names, common["id"], history["episode"], first, scores)
+    if not provenance:
+        return out
+    prov = json.loads(prov_json)
+    prov["report"] = report
+    return out, prov
 
 
 def _attach(kind: str, frame: Any, scores: Any) -> Any:

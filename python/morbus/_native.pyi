@@ -44,5 +44,56 @@ def score(
     strict: bool,
     threads: int,
 ) -> Tuple[ArrowStream, Optional[ArrowStream], str, str]: ...
+def score_history(
+    names: Sequence[str],
+    fetch: Callable[[List[int]], Any],
+    *,
+    dx: Sequence[str],
+    layout: str,
+    id: Optional[str],
+    age: Optional[str],
+    index: Optional[Sequence[str]],
+    flags: bool,
+    hierarchy: bool,
+    lists: Optional[Lists],
+    dx_sep: Optional[str],
+    strict: bool,
+    threads: int,
+    date: Optional[str],
+    date_format: Optional[str],
+    lookback: Optional[str],
+    episode: Optional[str],
+    exclude_primary: bool,
+    primary: Optional[str],
+    poa: Optional[str],
+    poa_values: Sequence[str],
+) -> Tuple[ArrowStream, Optional[ArrowStream], str, str]:
+    """`morbus.score` over the patient history: (scores, per output row the
+    0-based frame row of the episode's first record (long layout), provenance
+    JSON, summary line)."""
+def explain(
+    names: Sequence[str],
+    fetch: Callable[[List[int]], Any],
+    *,
+    dx: Sequence[str],
+    layout: str,
+    id: Optional[str],
+    age: Optional[str],
+    index: Optional[Sequence[str]],
+    hierarchy: bool,
+    lists: Optional[Lists],
+    dx_sep: Optional[str],
+    strict: bool,
+    threads: int,
+    date: Optional[str],
+    date_format: Optional[str],
+    lookback: Optional[str],
+    episode: Optional[str],
+    exclude_primary: bool,
+    primary: Optional[str],
+    poa: Optional[str],
+    poa_values: Sequence[str],
+) -> Tuple[ArrowStream, str]:
+    """`morbus explain` on a frame: (the columns from `row` on, summary line)."""
 def version() -> str: ...
 def debug_build() -> bool: ...

@@ -31,6 +31,8 @@ use morbus::provenance::Provenance;
 use morbus::score::{ColumnKind, Engine, IndexSpec, ScoreOptions, Value, DEFAULT_INDICES};
 use morbus::Error;
 
+mod history;
+
 const STREAM: &CStr = c"arrow_array_stream";
 
 /// The Python exception for a library error: `ValueError`, with the
@@ -924,5 +926,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(score, m)?)?;
     m.add_function(wrap_pyfunction!(version, m)?)?;
     m.add_function(wrap_pyfunction!(debug_build, m)?)?;
+    m.add_function(wrap_pyfunction!(history::score_history, m)?)?;
+    m.add_function(wrap_pyfunction!(history::explain, m)?)?;
     Ok(())
 }
