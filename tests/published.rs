@@ -1,8 +1,8 @@
 //! Checks of the built-in lists and the scorer against the published sources.
 //!
-//! The expected values below were transcribed from the publications from
+//! The expected values below were copied from the publications from
 //! memory (no copy was at hand while writing them), independently of the
-//! list files; where the two transcriptions disagree a test fails and the
+//! list files; where the two copies disagree a test fails and the
 //! publication decides.
 
 use morbus::code::{read_code, Reading};

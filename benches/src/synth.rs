@@ -416,8 +416,8 @@ const COAG_WHO: Codes = "D68.9 30, D69.6 35, D68.3 10, D68.4 6, D69.5 8";
 const COAG_CM: Codes = "D68.9 30, D69.6 35, D68.51 6, D68.32 10, D69.59 8";
 const MALNUTRITION_WHO: Codes = "E43 15, E44.0 15, E44.1 8, E46 20, R63.4 30, R64 12";
 const MALNUTRITION_CM: Codes = "E43 12, E44.0 15, E44.1 8, E46 15, R63.4 35, R64 10";
-const PULMCIRC_WHO: Codes = "I26.9 40, I27.0 8, I27.2 20, I27.9 10, I26.0 8";
-const PULMCIRC_CM: Codes = "I26.99 35, I26.09 8, I27.20 15, I27.21 8, I27.0 5";
+const PULMONARY_CIRCULATION_WHO: Codes = "I26.9 40, I27.0 8, I27.2 20, I27.9 10, I26.0 8";
+const PULMONARY_CIRCULATION_CM: Codes = "I26.99 35, I26.09 8, I27.20 15, I27.21 8, I27.0 5";
 const GORD_WHO: Codes = "K21.9 70, K21.0 30";
 const GORD_CM: Codes = "K21.9 70, K21.00 30";
 const OSTEOPOROSIS_WHO: Codes = "M81.9 40, M81.0 40, M80.9 10, M80.0 10";
@@ -932,7 +932,7 @@ const HIV: usize = 31;
 const ANAEMIA: usize = 32;
 const COAG: usize = 33;
 const MALNUTRITION: usize = 34;
-const PULMCIRC: usize = 35;
+const PULMONARY_CIRCULATION: usize = 35;
 const OSTEOPOROSIS: usize = 37;
 const HIPFRACTURE: usize = 39;
 /// Number of latent conditions (`COND` is indexed by the constants above).
@@ -1399,8 +1399,8 @@ const COND: [CondDef; NC] = [
         admit: 0.4,
         death: 0.6,
         incident: 0.15,
-        who: PULMCIRC_WHO,
-        cm: PULMCIRC_CM,
+        who: PULMONARY_CIRCULATION_WHO,
+        cm: PULMONARY_CIRCULATION_CM,
         ..CHRONIC
     },
     CondDef {
@@ -1479,7 +1479,7 @@ const DEPS: &[(usize, usize, f64)] = &[
     (IHD, MI, 1.4),
     (AF, HF, 0.8),
     (AF, STROKE, 0.9),
-    (COPD, PULMCIRC, 0.8),
+    (COPD, PULMONARY_CIRCULATION, 0.8),
     (STROKE, PARALYSIS, 2.5),
     (STROKE, DEMENTIA, 0.6),
     (PARKINSON, DEMENTIA, 0.8),
@@ -1488,7 +1488,7 @@ const DEPS: &[(usize, usize, f64)] = &[
     (PARKINSON, HIPFRACTURE, 0.7),
     (CANCER, ANAEMIA, 0.8),
     (CANCER, MALNUTRITION, 1.0),
-    (CANCER, PULMCIRC, 0.8),
+    (CANCER, PULMONARY_CIRCULATION, 0.8),
     (METS, MALNUTRITION, 0.8),
     (HAEM, ANAEMIA, 1.2),
     (HAEM, COAG, 0.8),
