@@ -15,7 +15,6 @@ use std::hash::BuildHasherDefault;
 use std::io::{Read, Write};
 
 use super::parallel::run_blocks;
-use super::stream::merge;
 use super::{check_collisions, Exclusion, Layout, Plan, RowIssue, ScoreConfig, Summary};
 use crate::code::Code;
 use crate::io::{write_field, RecordScanner};
@@ -357,7 +356,7 @@ impl History {
                     c.episode = block_episode[c.episode as usize];
                     codes.push(c);
                 }
-                merge(&mut summary, b.summary);
+                summary.merge(b.summary);
                 b.err.map_or(Ok(()), Err)
             },
         )?;

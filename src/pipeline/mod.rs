@@ -219,6 +219,7 @@ impl Summary {
         self.unreadable_dates += later.unreadable_dates;
         self.excluded_primary += later.excluded_primary;
         self.excluded_not_on_admission += later.excluded_not_on_admission;
+        self.missing_ids += later.missing_ids;
         if self.dx_columns.is_empty() {
             self.dx_columns = later.dx_columns;
         }
@@ -847,5 +848,47 @@ mod tests {
         // h (7), 1 (8), blank (9), 2 spans 10-11, 3 (12), CR CRLF (13), 4
         // (14), a CR alone after LF (15), 5 (16).
         assert_eq!(lines, [7, 8, 10, 12, 14, 16]);
+    }
+}
+
+#[cfg(test)]
+mod summary_tests {
+    use super::Summary;
+
+    #[test]
+    fn merge_adds_every_count() {
+        let one = Summary {
+            rows_read: 1,
+            rows_written: 2,
+            codes_read: 3,
+            invalid_codes: 4,
+            missing_ages: 5,
+            unreadable_ages: 6,
+            units: 7,
+            missing_dates: 8,
+            unreadable_dates: 9,
+            excluded_primary: 10,
+            excluded_not_on_admission: 11,
+            missing_ids: 12,
+            invalid_values: [(b"N/A".to_vec(), 4)].into_iter().collect(),
+            dx_columns: vec!["dx1".into()],
+        };
+        let mut total = one.clone();
+        total.merge(one.clone());
+        let mut doubled = one.clone();
+        doubled.rows_read *= 2;
+        doubled.rows_written *= 2;
+        doubled.codes_read *= 2;
+        doubled.invalid_codes *= 2;
+        doubled.missing_ages *= 2;
+        doubled.unreadable_ages *= 2;
+        doubled.units *= 2;
+        doubled.missing_dates *= 2;
+        doubled.unreadable_dates *= 2;
+        doubled.excluded_primary *= 2;
+        doubled.excluded_not_on_admission *= 2;
+        doubled.missing_ids *= 2;
+        doubled.invalid_values.insert(b"N/A".to_vec(), 8);
+        assert_eq!(total, doubled);
     }
 }

@@ -188,25 +188,6 @@ fn score_wide_block(
     (summary, r.err())
 }
 
-/// Adds a block's counts to the run's.
-pub(super) fn merge(into: &mut Summary, s: Summary) {
-    into.rows_read += s.rows_read;
-    into.rows_written += s.rows_written;
-    into.codes_read += s.codes_read;
-    into.missing_ages += s.missing_ages;
-    into.unreadable_ages += s.unreadable_ages;
-    into.units += s.units;
-    into.excluded_primary += s.excluded_primary;
-    into.excluded_not_on_admission += s.excluded_not_on_admission;
-    into.missing_dates += s.missing_dates;
-    into.unreadable_dates += s.unreadable_dates;
-    for (k, v) in s.invalid_values {
-        into.add_invalid(k, v);
-    }
-    into.invalid_codes += s.invalid_codes;
-    into.missing_ids += s.missing_ids;
-}
-
 /// Wide scoring on every core: a reader thread cuts blocks, workers score
 /// them, and the calling thread writes their output in input order.
 fn score_wide_parallel(
@@ -248,7 +229,7 @@ fn score_wide_parallel(
                 header_written = true;
             }
             output.write_all(&out).map_err(write_err)?;
-            merge(&mut summary, s);
+            summary.merge(s);
             p.rows = summary.rows_read;
             progress(p);
             err.map_or(Ok(()), Err)
