@@ -1,9 +1,12 @@
 #!/usr/bin/env bash
 # Every test of the project, as CI runs it: formatting, lints, the Rust test
-# suite, and the Python package's tests in a fresh virtual environment.
+# suite, a lint of the build without Parquet, and the Python package's tests
+# in a fresh virtual environment.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 cargo fmt --all --check
 cargo clippy --workspace --all-targets -- -D warnings
+# The library and command line without Parquet (feature `parquet` off).
+cargo clippy -p morbus --no-default-features --all-targets -- -D warnings
 cargo test --workspace
 bash python/run-tests.sh

@@ -86,9 +86,20 @@ struct ExplainArgs {
     /// Write JSON lines instead of CSV.
     #[arg(long)]
     json: bool,
-    /// Output path (`.gz` compresses); standard output by default.
+    /// Output path (`.gz` compresses, `.parquet` writes Parquet); standard output by default.
     #[arg(long, short, value_name = "PATH")]
     output: Option<PathBuf>,
+    /// Output format (default: Parquet for a `.parquet`, `.parq` or `.pq` path, else CSV).
+    #[arg(long, value_enum, value_name = "FORMAT")]
+    output_format: Option<FormatArg>,
+}
+
+#[derive(Clone, Copy, ValueEnum, PartialEq, Eq)]
+enum FormatArg {
+    /// Delimited text (gzip-compressed for a `.gz` path).
+    Csv,
+    /// Apache Parquet: typed score columns; a Parquet input's own columns copied as they are.
+    Parquet,
 }
 
 #[derive(Clone, Copy, ValueEnum, PartialEq, Eq)]
@@ -102,7 +113,8 @@ enum LayoutArg {
 /// Options shared by every command that reads an extract.
 #[derive(Args, Clone)]
 struct InputArgs {
-    /// Input CSV (plain or gzip); `-` or nothing reads standard input.
+    /// Input CSV (plain or gzip) or Parquet (recognised by its content); `-` or nothing reads
+    /// standard input.
     input: Option<PathBuf>,
     /// Diagnosis columns: names and/or globs, comma-separated (e.g. 'dx*').
     #[arg(long, value_name = "COLS", required = true)]
@@ -180,9 +192,12 @@ struct ScoreArgs {
     /// Add a 0/1 column `<list>_<condition>` per condition.
     #[arg(long)]
     flags: bool,
-    /// Output path (`.gz` compresses); standard output by default.
+    /// Output path (`.gz` compresses, `.parquet` writes Parquet); standard output by default.
     #[arg(long, short, value_name = "PATH")]
     output: Option<PathBuf>,
+    /// Output format (default: Parquet for a `.parquet`, `.parq` or `.pq` path, else CSV).
+    #[arg(long, value_enum, value_name = "FORMAT")]
+    output_format: Option<FormatArg>,
     /// Write what produced the output (tool, lists with versions and
     /// checksums, options, counts) as JSON to this file.
     #[arg(long, value_name = "FILE")]
@@ -420,15 +435,20 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
                 .map_err(|e| Error::io(format!("cannot write {}", p.display()), e))
         })
         .transpose()?;
+    let parquet_out = wants_parquet(a.output_format, a.output.as_deref());
     let run = || -> Result<pipeline::Summary, Error> {
-        let input = morbus::io::open_input(a.input.input.as_deref())?;
-        let mut output = morbus::io::open_output(a.output.as_deref())?;
+        // A long output keeps only the id and episode columns; a Parquet
+        // output of a Parquet input copies the input's own columns from it:
+        // either way the pipeline needs only the columns it reads.
+        let only_read = parquet_out || cfg.layout == Layout::Long;
+        let mut input = open_extract(&a.input, &cfg, only_read, &[])?;
+        let mut output = open_scores_output(&a, &engine, &cfg, &input, parquet_out)?;
         let show = !a.input.quiet && std::io::stderr().is_terminal();
-        let mut bar = progress::ProgressLine::new(if input.compressed { None } else { input.size });
+        let mut bar = progress::ProgressLine::new(input.size);
         let result = pipeline::score_stream_observed(
             &engine,
             &cfg,
-            input.reader,
+            input.take_reader(),
             &mut output.writer,
             &mut |p| {
                 if show {
@@ -439,7 +459,9 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         if show {
             bar.finish();
         }
-        result
+        let summary = result.map_err(|e| input.translate(e))?;
+        output.finish()?;
+        Ok(summary)
     };
     let summary = match run() {
         Ok(s) => s,
@@ -471,19 +493,202 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
 fn explain(a: ExplainArgs) -> Result<(), Error> {
     let (_cat, engine) = engine_for(&a.input, false)?;
     let cfg = config_for(&a.input)?;
-    let input = morbus::io::open_input(a.input.input.as_deref())?;
-    let mut output = morbus::io::open_output(a.output.as_deref())?;
+    let parquet_out = wants_parquet(a.output_format, a.output.as_deref());
+    if parquet_out && a.json {
+        return Err(Error::Usage(
+            "--json writes JSON lines; leave it out for a Parquet output".into(),
+        ));
+    }
+    // explain keeps only the id and episode columns.
+    let mut input = open_extract(&a.input, &cfg, true, &[])?;
+    let mut output = if parquet_out {
+        open_parquet(
+            a.output.as_deref(),
+            &cfg,
+            |source| explain_columns(&engine, source),
+            &input,
+            false,
+        )?
+    } else {
+        morbus::io::open_output(a.output.as_deref())?
+    };
     let format = if a.json {
         ExplainFormat::JsonLines
     } else {
         ExplainFormat::Csv
     };
-    let summary =
-        pipeline::explain_stream(&engine, &cfg, format, input.reader, &mut output.writer)?;
-    drop(output);
+    let summary = pipeline::explain_stream(
+        &engine,
+        &cfg,
+        format,
+        input.take_reader(),
+        &mut output.writer,
+    )
+    .map_err(|e| input.translate(e))?;
+    output.finish()?;
     if !a.input.quiet {
         eprintln!("{}", summary.report());
     }
+    Ok(())
+}
+
+/// Whether the output is Parquet: as asked, or by the output's name.
+fn wants_parquet(format: Option<FormatArg>, path: Option<&std::path::Path>) -> bool {
+    match format {
+        Some(f) => f == FormatArg::Parquet,
+        None => path.is_some_and(morbus::io::is_parquet_path),
+    }
+}
+
+/// An extract opened for a run: delimited text for the pipeline, from a
+/// text file or a Parquet file.
+struct Extract {
+    reader: Box<dyn std::io::Read + Send>,
+    /// Size of the text in bytes, when known (for the progress line).
+    size: Option<u64>,
+    #[cfg(feature = "parquet")]
+    parquet: Option<(
+        morbus::io::parquet::Source,
+        std::sync::Arc<std::sync::Mutex<morbus::io::parquet::RowLines>>,
+    )>,
+    /// The input as named in messages.
+    #[cfg_attr(not(feature = "parquet"), allow(dead_code))]
+    name: String,
+}
+
+impl Extract {
+    /// The text for the pipeline (once).
+    fn take_reader(&mut self) -> Box<dyn std::io::Read + Send> {
+        std::mem::replace(&mut self.reader, Box::new(std::io::empty()))
+    }
+
+    /// An error of the run, with rows instead of lines for a Parquet input.
+    fn translate(&self, e: Error) -> Error {
+        #[cfg(feature = "parquet")]
+        if let Some((_, lines)) = &self.parquet {
+            return lines.lock().expect("row map lock").translate(e, &self.name);
+        }
+        e
+    }
+}
+
+/// Opens the input of a run. For a Parquet input with `only_read`, only
+/// the columns the run reads (and `extra`) become text.
+fn open_extract(
+    a: &InputArgs,
+    cfg: &ScoreConfig,
+    only_read: bool,
+    extra: &[String],
+) -> Result<Extract, Error> {
+    let input = morbus::io::open_input(a.input.as_deref())?;
+    #[cfg(feature = "parquet")]
+    if let Some(source) = input.parquet {
+        use morbus::io::parquet;
+        let columns = if only_read {
+            parquet::read_columns(&source.column_names()?, cfg, extra)
+        } else {
+            None
+        };
+        let text =
+            parquet::ParquetText::from_source(source.clone(), cfg.delimiter, columns.as_deref())?;
+        let lines = text.row_lines();
+        return Ok(Extract {
+            reader: Box::new(text),
+            size: None,
+            parquet: Some((source, lines)),
+            name: input.name,
+        });
+    }
+    let _ = (cfg, only_read, extra);
+    Ok(Extract {
+        reader: input.reader,
+        size: if input.compressed { None } else { input.size },
+        #[cfg(feature = "parquet")]
+        parquet: None,
+        name: input.name,
+    })
+}
+
+fn open_scores_output(
+    a: &ScoreArgs,
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    input: &Extract,
+    parquet_out: bool,
+) -> Result<morbus::io::Output, Error> {
+    if !parquet_out {
+        return morbus::io::open_output(a.output.as_deref());
+    }
+    open_parquet(
+        a.output.as_deref(),
+        cfg,
+        |source| score_columns(engine, source, cfg.layout == Layout::Wide),
+        input,
+        cfg.layout == Layout::Wide,
+    )
+}
+
+#[cfg(feature = "parquet")]
+type Source = morbus::io::parquet::Source;
+#[cfg(not(feature = "parquet"))]
+type Source = ();
+
+/// A Parquet output; with `rows_are_input_rows` (the wide layout) a Parquet
+/// input's columns are copied from it.
+#[cfg(feature = "parquet")]
+fn open_parquet(
+    path: Option<&std::path::Path>,
+    cfg: &ScoreConfig,
+    columns: impl FnOnce(Option<&Source>) -> Result<morbus::io::parquet::OutputColumns, Error>,
+    input: &Extract,
+    rows_are_input_rows: bool,
+) -> Result<morbus::io::Output, Error> {
+    let source = input.parquet.as_ref().map(|(s, _)| s);
+    let columns = columns(source)?;
+    let passthrough = source.filter(|_| rows_are_input_rows).cloned();
+    morbus::io::open_parquet_output(path, cfg.delimiter, columns, passthrough)
+}
+
+#[cfg(not(feature = "parquet"))]
+fn open_parquet(
+    _path: Option<&std::path::Path>,
+    _cfg: &ScoreConfig,
+    _columns: impl FnOnce(Option<&Source>) -> Result<(), Error>,
+    _input: &Extract,
+    _rows_are_input_rows: bool,
+) -> Result<morbus::io::Output, Error> {
+    Err(Error::Usage(
+        "this build of morbus writes CSV only (build it with the `parquet` feature)".into(),
+    ))
+}
+
+/// The columns of a Parquet output of `score`; for a wide output of a
+/// Parquet input, first the check that no score column repeats one of the
+/// input's (the pipeline sees only the columns it reads).
+#[cfg(feature = "parquet")]
+fn score_columns(
+    engine: &Engine,
+    s: Option<&Source>,
+    wide: bool,
+) -> Result<morbus::io::parquet::OutputColumns, Error> {
+    if let Some(source) = s.filter(|_| wide) {
+        morbus::io::parquet::check_copied_names(source, engine)?;
+    }
+    morbus::io::parquet::OutputColumns::scores(engine, s)
+}
+#[cfg(feature = "parquet")]
+fn explain_columns(
+    engine: &Engine,
+    s: Option<&Source>,
+) -> Result<morbus::io::parquet::OutputColumns, Error> {
+    morbus::io::parquet::OutputColumns::explain(engine, s)
+}
+#[cfg(not(feature = "parquet"))]
+fn score_columns(_: &Engine, _: Option<&Source>, _: bool) -> Result<(), Error> {
+    Ok(())
+}
+#[cfg(not(feature = "parquet"))]
+fn explain_columns(_: &Engine, _: Option<&Source>) -> Result<(), Error> {
     Ok(())
 }
 
@@ -505,8 +710,12 @@ fn compare(a: CompareArgs) -> Result<(), Error> {
         adjust: split_columns(&a.adjust),
         adjust_categorical: split_columns(&a.adjust_cat),
     };
-    let input = morbus::io::open_input(a.input.input.as_deref())?;
-    let (result, summary) = morbus::compare::compare(&engine, &cfg, &opts, input.reader)?;
+    let mut wanted = vec![opts.outcome.clone()];
+    wanted.extend(opts.adjust.iter().cloned());
+    wanted.extend(opts.adjust_categorical.iter().cloned());
+    let mut input = open_extract(&a.input, &cfg, true, &wanted)?;
+    let (result, summary) = morbus::compare::compare(&engine, &cfg, &opts, input.take_reader())
+        .map_err(|e| input.translate(e))?;
     let write_file = |path: &PathBuf, text: &str| -> Result<(), Error> {
         std::fs::write(path, text)
             .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))

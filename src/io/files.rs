@@ -17,6 +17,10 @@ pub struct Input {
     /// the bytes the reader will give).
     pub compressed: bool,
     pub name: String,
+    /// A Parquet input (recognised by its magic bytes): read it through
+    /// [`crate::io::parquet::ParquetText`]; `reader` is then empty.
+    #[cfg(feature = "parquet")]
+    pub parquet: Option<crate::io::parquet::Source>,
 }
 
 /// Opens a path (`-` or `None`: standard input). Gzip is recognised by its
@@ -43,6 +47,9 @@ pub fn open_input(path: Option<&Path>) -> Result<Input, Error> {
         .fill_buf()
         .map_err(|e| Error::io(format!("cannot read {name}"), e))?;
     let compressed = head.starts_with(&[0x1f, 0x8b]);
+    if head.starts_with(b"PAR1") {
+        return parquet_input(path, buffered, size, name);
+    }
     let reader: Box<dyn Read + Send> = if compressed {
         Box::new(MultiGzDecoder::new(buffered))
     } else {
@@ -53,41 +60,161 @@ pub fn open_input(path: Option<&Path>) -> Result<Input, Error> {
         size,
         compressed,
         name,
+        #[cfg(feature = "parquet")]
+        parquet: None,
     })
 }
 
-/// An opened output.
+#[cfg(feature = "parquet")]
+fn parquet_input(
+    path: Option<&Path>,
+    mut buffered: BufReader<Box<dyn Read + Send>>,
+    size: Option<u64>,
+    name: String,
+) -> Result<Input, Error> {
+    use crate::io::parquet::Source;
+    let source = match path {
+        Some(p) if p.as_os_str() != "-" => Source::File(p.to_path_buf()),
+        // Parquet keeps its index at the end: a stream is read whole.
+        _ => {
+            let mut all = Vec::new();
+            buffered
+                .read_to_end(&mut all)
+                .map_err(|e| Error::io(format!("cannot read {name}"), e))?;
+            Source::Memory(all.into())
+        }
+    };
+    Ok(Input {
+        reader: Box::new(io::empty()),
+        size,
+        compressed: false,
+        name,
+        parquet: Some(source),
+    })
+}
+
+#[cfg(not(feature = "parquet"))]
+fn parquet_input(
+    _path: Option<&Path>,
+    _buffered: BufReader<Box<dyn Read + Send>>,
+    _size: Option<u64>,
+    name: String,
+) -> Result<Input, Error> {
+    Err(Error::Usage(format!(
+        "{name} is a Parquet file; this build of morbus reads CSV only (build it with the \
+         `parquet` feature)"
+    )))
+}
+
+/// An opened output. Call [`Output::finish`] at the end: a Parquet output
+/// writes its footer then, and write errors surface.
 pub struct Output {
-    pub writer: Box<dyn Write + Send>,
+    pub writer: Writer,
     pub name: String,
+}
+
+/// Where an output's bytes go: delimited text (plain or gzip), or a
+/// Parquet file written from that text.
+pub enum Writer {
+    Text(Box<dyn Write + Send>),
+    #[cfg(feature = "parquet")]
+    Parquet(Box<crate::io::parquet::ParquetSink>),
+}
+
+impl Write for Writer {
+    #[inline]
+    fn write(&mut self, buf: &[u8]) -> io::Result<usize> {
+        match self {
+            Writer::Text(w) => w.write(buf),
+            #[cfg(feature = "parquet")]
+            Writer::Parquet(w) => w.write(buf),
+        }
+    }
+    #[inline]
+    fn write_all(&mut self, buf: &[u8]) -> io::Result<()> {
+        match self {
+            Writer::Text(w) => w.write_all(buf),
+            #[cfg(feature = "parquet")]
+            Writer::Parquet(w) => w.write_all(buf),
+        }
+    }
+    fn flush(&mut self) -> io::Result<()> {
+        match self {
+            Writer::Text(w) => w.flush(),
+            #[cfg(feature = "parquet")]
+            Writer::Parquet(w) => w.flush(),
+        }
+    }
+}
+
+impl Output {
+    /// Flushes a text output; writes the rest and the footer of a Parquet
+    /// output.
+    pub fn finish(self) -> Result<(), Error> {
+        match self.writer {
+            Writer::Text(mut w) => w
+                .flush()
+                .map_err(|e| Error::io(format!("cannot write {}", self.name), e)),
+            #[cfg(feature = "parquet")]
+            Writer::Parquet(w) => w.finish(),
+        }
+    }
+}
+
+/// Whether a path names a Parquet file (`.parquet`, `.parq` or `.pq`).
+pub fn is_parquet_path(path: &Path) -> bool {
+    path.extension()
+        .and_then(|x| x.to_str())
+        .is_some_and(|x| matches!(x.to_ascii_lowercase().as_str(), "parquet" | "parq" | "pq"))
 }
 
 /// Opens an output path (`-` or `None`: standard output); a name ending in
 /// `.gz` is written gzip-compressed.
 pub fn open_output(path: Option<&Path>) -> Result<Output, Error> {
-    match path {
-        None => Ok(stdout()),
-        Some(p) if p.as_os_str() == "-" => Ok(stdout()),
-        Some(p) => {
-            let f = File::create(p)
-                .map_err(|e| Error::io(format!("cannot create {}", p.display()), e))?;
-            let w = BufWriter::with_capacity(1 << 17, f);
-            let writer: Box<dyn Write + Send> = if p.extension().is_some_and(|x| x == "gz") {
-                Box::new(GzEncoder::new(w, Compression::fast()))
-            } else {
-                Box::new(w)
-            };
-            Ok(Output {
-                writer,
-                name: p.display().to_string(),
-            })
-        }
-    }
+    let (raw, name) = raw_output(path)?;
+    let writer: Box<dyn Write + Send> =
+        if path.is_some_and(|p| p.extension().is_some_and(|x| x == "gz")) {
+            Box::new(GzEncoder::new(raw, Compression::fast()))
+        } else {
+            Box::new(raw)
+        };
+    Ok(Output {
+        writer: Writer::Text(writer),
+        name,
+    })
 }
 
-fn stdout() -> Output {
-    Output {
-        writer: Box::new(BufWriter::with_capacity(1 << 17, io::stdout())),
-        name: "standard output".into(),
+/// Opens a Parquet output (`-` or `None`: standard output) for delimited
+/// text with `delimiter` and the columns `columns`; `passthrough` copies
+/// the columns of a Parquet input (see [`crate::io::parquet::ParquetSink`]).
+#[cfg(feature = "parquet")]
+pub fn open_parquet_output(
+    path: Option<&Path>,
+    delimiter: u8,
+    columns: crate::io::parquet::OutputColumns,
+    passthrough: Option<crate::io::parquet::Source>,
+) -> Result<Output, Error> {
+    let (raw, name) = raw_output(path)?;
+    let sink = crate::io::parquet::ParquetSink::new(Box::new(raw), delimiter, columns, passthrough);
+    Ok(Output {
+        writer: Writer::Parquet(Box::new(sink)),
+        name,
+    })
+}
+
+fn raw_output(path: Option<&Path>) -> Result<(BufWriter<Box<dyn Write + Send>>, String), Error> {
+    match path {
+        Some(p) if p.as_os_str() != "-" => {
+            let f = File::create(p)
+                .map_err(|e| Error::io(format!("cannot create {}", p.display()), e))?;
+            Ok((
+                BufWriter::with_capacity(1 << 17, Box::new(f)),
+                p.display().to_string(),
+            ))
+        }
+        _ => Ok((
+            BufWriter::with_capacity(1 << 17, Box::new(io::stdout())),
+            "standard output".into(),
+        )),
     }
 }

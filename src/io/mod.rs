@@ -1,13 +1,18 @@
 //! Streaming delimited text: opening inputs and outputs (plain or gzip),
 //! cutting the input into blocks of whole records, and reading the fields of
-//! each record while keeping its raw bytes for byte-identical pass-through.
+//! each record while keeping its raw bytes for byte-identical pass-through;
+//! Parquet in and out ([`parquet`]) through the same text.
 
 mod blocks;
 mod files;
+#[cfg(feature = "parquet")]
+pub mod parquet;
 mod records;
 
 pub use blocks::{line_ends, Block, BlockReader};
-pub use files::{open_input, open_output, Input, Output};
+#[cfg(feature = "parquet")]
+pub use files::open_parquet_output;
+pub use files::{is_parquet_path, open_input, open_output, Input, Output, Writer};
 pub use records::{Fields, RecordRef, RecordScanner};
 
 /// Appends one field as delimited text, quoting it only when it holds the

@@ -1,0 +1,1164 @@
+//! Parquet in and out (feature `parquet`, on by default).
+//!
+//! The scoring pipelines read and write delimited text; Parquet joins them at
+//! both ends, so that every command (`score` wide, long or with a lookback,
+//! `explain`, `compare`) takes a Parquet input and `score` and `explain` write
+//! Parquet, with the guarantees of the text path:
+//!
+//! - **In** ([`ParquetText`]): the file's row groups are read batch by batch
+//!   and written as delimited text (a header of the column names, one record
+//!   per row, text values as they are, other types in their ISO or shortest
+//!   round-trip form, nulls empty) into the reader the pipeline consumes. The
+//!   pipeline's line numbers are turned back into rows ([`RowLines`]), since a
+//!   value with a line break takes several lines of text.
+//! - **Out** ([`ParquetSink`]): the pipeline's delimited output is read back
+//!   record by record and written as Parquet row groups. Score columns are
+//!   typed (whole-number scores `Int64`, scores with decimals `Float64`,
+//!   condition flags `Int8`, bands text; empty values null). When the rows of
+//!   the output are the rows of a Parquet input (the wide layout), the input's
+//!   own columns are copied from the input file itself, arrays and types
+//!   untouched, in order; other kept columns (the id and episode of the long
+//!   layout) take their input type back when their text casts to it exactly,
+//!   and are text otherwise. Columns of a text input are UTF-8 text.
+//!
+//! ```
+//! use std::io::{Read, Write};
+//! use morbus::io::parquet::{OutputColumns, ParquetSink, ParquetText};
+//!
+//! // Write a small Parquet file through the sink, from delimited text...
+//! let dir = std::env::temp_dir().join(format!("morbus-doc-{}", std::process::id()));
+//! std::fs::create_dir_all(&dir).unwrap();
+//! let path = dir.join("tiny.parquet");
+//! let file = std::fs::File::create(&path).unwrap();
+//! let mut sink = ParquetSink::new(Box::new(file), b',', OutputColumns::default(), None);
+//! sink.write_all(b"id,dx1\nA,I21.9\nB,\"with, comma\"\n").unwrap();
+//! sink.finish().unwrap();
+//!
+//! // ... and read it back as delimited text.
+//! let mut text = String::new();
+//! ParquetText::open(&path, b',', None).unwrap().read_to_string(&mut text).unwrap();
+//! assert_eq!(text, "id,dx1\nA,I21.9\nB,\"with, comma\"\n");
+//! # std::fs::remove_dir_all(&dir).unwrap();
+//! ```
+
+use std::collections::{HashMap, VecDeque};
+use std::fs::File;
+use std::io::{self, Read, Write};
+use std::path::{Path, PathBuf};
+use std::sync::{Arc, Mutex};
+
+use arrow_array::builder::{
+    Date32Builder, Float64Builder, Int64Builder, Int8Builder, StringBuilder,
+};
+use arrow_array::cast::AsArray;
+use arrow_array::{Array, ArrayRef, RecordBatch, RecordBatchOptions};
+use arrow_cast::display::{ArrayFormatter, FormatOptions};
+use arrow_schema::{DataType, Field, Schema, SchemaRef};
+use bytes::Bytes;
+use parquet::arrow::arrow_reader::{ParquetRecordBatchReader, ParquetRecordBatchReaderBuilder};
+use parquet::arrow::{ArrowWriter, ProjectionMask};
+use parquet::basic::{Compression, ZstdLevel};
+use parquet::file::properties::WriterProperties;
+
+use super::write_field;
+use crate::pipeline::{DateFormat, ScoreConfig};
+use crate::score::{ColumnKind, Engine};
+use crate::Error;
+
+/// The first bytes of every Parquet file.
+pub const MAGIC: &[u8; 4] = b"PAR1";
+
+/// Rows per batch read from a Parquet input, and per row group written.
+const BATCH_ROWS: usize = 8192;
+/// Rows buffered by the sink before they are written (one row group each).
+const GROUP_ROWS: usize = 131_072;
+
+/// Where a Parquet input comes from: a file, or the bytes of standard input
+/// (Parquet keeps its index at the end, so a stream is read whole first).
+#[derive(Clone)]
+pub enum Source {
+    File(PathBuf),
+    Memory(Bytes),
+}
+
+impl Source {
+    fn builder(&self) -> Result<ParquetRecordBatchReaderBuilder<Box<dyn ChunkSource>>, Error> {
+        let inner: Box<dyn ChunkSource> = match self {
+            Source::File(p) => {
+                Box::new(FileChunks(File::open(p).map_err(|e| {
+                    Error::io(format!("cannot open {}", p.display()), e)
+                })?))
+            }
+            Source::Memory(b) => Box::new(MemoryChunks(b.clone())),
+        };
+        ParquetRecordBatchReaderBuilder::try_new(inner).map_err(|e| self.error(e))
+    }
+
+    fn name(&self) -> String {
+        match self {
+            Source::File(p) => p.display().to_string(),
+            Source::Memory(_) => "standard input".into(),
+        }
+    }
+
+    fn error(&self, e: impl std::fmt::Display) -> Error {
+        Error::data(None, format!("cannot read {} as Parquet: {e}", self.name()))
+    }
+
+    /// The column names of the file.
+    pub fn column_names(&self) -> Result<Vec<String>, Error> {
+        Ok(self
+            .builder()?
+            .schema()
+            .fields()
+            .iter()
+            .map(|f| f.name().clone())
+            .collect())
+    }
+}
+
+/// Byte ranges of a Parquet input, from a file or memory, behind one type.
+trait ChunkSource: Send + Sync + 'static {
+    fn len(&self) -> u64;
+    fn bytes(&self, start: u64, len: usize) -> parquet::errors::Result<Bytes>;
+    fn reader(&self, start: u64) -> parquet::errors::Result<Box<dyn Read + Send>>;
+}
+
+struct FileChunks(File);
+struct MemoryChunks(Bytes);
+
+impl ChunkSource for FileChunks {
+    fn len(&self) -> u64 {
+        parquet::file::reader::Length::len(&self.0)
+    }
+    fn bytes(&self, start: u64, len: usize) -> parquet::errors::Result<Bytes> {
+        parquet::file::reader::ChunkReader::get_bytes(&self.0, start, len)
+    }
+    fn reader(&self, start: u64) -> parquet::errors::Result<Box<dyn Read + Send>> {
+        Ok(Box::new(parquet::file::reader::ChunkReader::get_read(
+            &self.0, start,
+        )?))
+    }
+}
+
+impl ChunkSource for MemoryChunks {
+    fn len(&self) -> u64 {
+        self.0.len() as u64
+    }
+    fn bytes(&self, start: u64, len: usize) -> parquet::errors::Result<Bytes> {
+        parquet::file::reader::ChunkReader::get_bytes(&self.0, start, len)
+    }
+    fn reader(&self, start: u64) -> parquet::errors::Result<Box<dyn Read + Send>> {
+        Ok(Box::new(parquet::file::reader::ChunkReader::get_read(
+            &self.0, start,
+        )?))
+    }
+}
+
+impl parquet::file::reader::Length for Box<dyn ChunkSource> {
+    fn len(&self) -> u64 {
+        (**self).len()
+    }
+}
+
+impl parquet::file::reader::ChunkReader for Box<dyn ChunkSource> {
+    type T = Box<dyn Read + Send>;
+    fn get_read(&self, start: u64) -> parquet::errors::Result<Self::T> {
+        (**self).reader(start)
+    }
+    fn get_bytes(&self, start: u64, length: usize) -> parquet::errors::Result<Bytes> {
+        (**self).bytes(start, length)
+    }
+}
+
+/// Where the rows of a Parquet input start in its text: the pipeline counts
+/// lines, a value holding a line break makes a row take several, and
+/// messages should name the row.
+#[derive(Debug, Default)]
+pub struct RowLines {
+    /// `(line, row)`: from `line` on, line `line + k` starts row `row + k`
+    /// (rows counted from 1, lines from 1 with the header on line 1). A new
+    /// entry follows every row that took more than one line.
+    marks: Vec<(u64, u64)>,
+}
+
+impl RowLines {
+    /// The row (counted from 1) whose record holds `line`.
+    pub fn row(&self, line: u64) -> u64 {
+        let k = self.marks.partition_point(|&(l, _)| l <= line);
+        match k.checked_sub(1).map(|k| self.marks[k]) {
+            Some((l, r)) => r + (line - l),
+            None => line.saturating_sub(1),
+        }
+    }
+
+    /// `e` with its line turned into the row of the Parquet input `name`.
+    pub fn translate(&self, e: Error, name: &str) -> Error {
+        match e {
+            Error::Data {
+                line: Some(l),
+                message,
+            } => Error::data(None, format!("row {} of {name}: {message}", self.row(l))),
+            Error::Strict {
+                line: Some(l),
+                message,
+            } => Error::Strict {
+                line: None,
+                message: format!("row {} of {name}: {message}", self.row(l)),
+            },
+            other => other,
+        }
+    }
+}
+
+/// A Parquet input read as delimited text (see the module documentation).
+pub struct ParquetText {
+    batches: ParquetRecordBatchReader,
+    source: Source,
+    delimiter: u8,
+    buf: Vec<u8>,
+    pos: usize,
+    /// Line on which the next record starts.
+    line: u64,
+    /// Rows written so far.
+    rows: u64,
+    lines: Arc<Mutex<RowLines>>,
+    /// Rows of the file (from its footer).
+    pub total_rows: u64,
+}
+
+impl ParquetText {
+    /// Opens a Parquet file; `columns` (indices of the file's top-level
+    /// columns) keeps only those, in file order.
+    pub fn open(path: &Path, delimiter: u8, columns: Option<&[usize]>) -> Result<Self, Error> {
+        Self::from_source(Source::File(path.to_path_buf()), delimiter, columns)
+    }
+
+    pub fn from_source(
+        source: Source,
+        delimiter: u8,
+        columns: Option<&[usize]>,
+    ) -> Result<Self, Error> {
+        let builder = source.builder()?;
+        let total_rows = builder.metadata().file_metadata().num_rows().max(0) as u64;
+        let mut builder = builder.with_batch_size(BATCH_ROWS);
+        if let Some(cols) = columns {
+            let mask = ProjectionMask::roots(builder.parquet_schema(), cols.iter().copied());
+            builder = builder.with_projection(mask);
+        }
+        let mut header = Vec::new();
+        for (k, f) in builder.schema().fields().iter().enumerate() {
+            if columns.is_some_and(|c| !c.contains(&k)) {
+                continue;
+            }
+            if !header.is_empty() {
+                header.push(delimiter);
+            }
+            write_field(f.name().as_bytes(), delimiter, &mut header);
+        }
+        header.push(b'\n');
+        let batches = builder.build().map_err(|e| source.error(e))?;
+        Ok(ParquetText {
+            batches,
+            source,
+            delimiter,
+            buf: header,
+            pos: 0,
+            line: 2,
+            rows: 0,
+            lines: Arc::new(Mutex::new(RowLines::default())),
+            total_rows,
+        })
+    }
+
+    /// The map from lines of the text to rows of the file, filled as the
+    /// text is read.
+    pub fn row_lines(&self) -> Arc<Mutex<RowLines>> {
+        self.lines.clone()
+    }
+
+    /// Writes the next batch as text; false at the end of the file.
+    fn refill(&mut self) -> Result<bool, Error> {
+        let batch = match self.batches.next() {
+            None => return Ok(false),
+            Some(b) => b.map_err(|e| self.source.error(e))?,
+        };
+        self.buf.clear();
+        self.pos = 0;
+        let names: Vec<String> = batch
+            .schema()
+            .fields()
+            .iter()
+            .map(|f| f.name().clone())
+            .collect();
+        let cols = batch
+            .columns()
+            .iter()
+            .zip(&names)
+            .map(|(a, name)| TextColumn::new(a.as_ref(), name))
+            .collect::<Result<Vec<_>, Error>>()?;
+        let mut scratch = String::new();
+        let mut marks = Vec::new();
+        for row in 0..batch.num_rows() {
+            let begin = self.buf.len();
+            for (k, c) in cols.iter().enumerate() {
+                if k > 0 {
+                    self.buf.push(self.delimiter);
+                }
+                c.write(row, self.delimiter, &mut scratch, &mut self.buf);
+            }
+            if cols.len() == 1 && self.buf.len() == begin {
+                // One empty field: an empty line would be skipped.
+                self.buf.extend_from_slice(b"\"\"");
+            }
+            let breaks = memchr::memchr_iter(b'\n', &self.buf[begin..]).count() as u64;
+            self.rows += 1;
+            self.line += breaks + 1;
+            if breaks > 0 {
+                marks.push((self.line, self.rows + 1));
+            }
+            self.buf.push(b'\n');
+        }
+        if !marks.is_empty() {
+            self.lines.lock().expect("row map lock").marks.extend(marks);
+        }
+        Ok(true)
+    }
+}
+
+impl Read for ParquetText {
+    fn read(&mut self, out: &mut [u8]) -> io::Result<usize> {
+        while self.pos == self.buf.len() {
+            match self.refill() {
+                Ok(true) => {}
+                Ok(false) => return Ok(0),
+                Err(e) => return Err(io::Error::other(e.to_string())),
+            }
+        }
+        let n = out.len().min(self.buf.len() - self.pos);
+        out[..n].copy_from_slice(&self.buf[self.pos..self.pos + n]);
+        self.pos += n;
+        Ok(n)
+    }
+}
+
+/// One column of a batch as text fields.
+enum TextColumn<'a> {
+    Utf8(&'a arrow_array::StringArray),
+    LargeUtf8(&'a arrow_array::LargeStringArray),
+    Utf8View(&'a arrow_array::StringViewArray),
+    Binary(&'a arrow_array::BinaryArray),
+    LargeBinary(&'a arrow_array::LargeBinaryArray),
+    /// Anything else, in the ISO / shortest round-trip form of Arrow's
+    /// formatter.
+    Formatted(ArrayFormatter<'a>),
+}
+
+const FORMAT: FormatOptions<'static> = FormatOptions::new().with_display_error(false);
+
+impl<'a> TextColumn<'a> {
+    fn new(array: &'a dyn Array, name: &str) -> Result<TextColumn<'a>, Error> {
+        Ok(match array.data_type() {
+            DataType::Utf8 => TextColumn::Utf8(array.as_string::<i32>()),
+            DataType::LargeUtf8 => TextColumn::LargeUtf8(array.as_string::<i64>()),
+            DataType::Utf8View => TextColumn::Utf8View(array.as_string_view()),
+            DataType::Binary => TextColumn::Binary(array.as_binary::<i32>()),
+            DataType::LargeBinary => TextColumn::LargeBinary(array.as_binary::<i64>()),
+            _ => TextColumn::Formatted(ArrayFormatter::try_new(array, &FORMAT).map_err(|e| {
+                Error::data(
+                    None,
+                    format!(
+                        "column '{name}' holds {} values, which cannot be written as text: {e}",
+                        array.data_type()
+                    ),
+                )
+            })?),
+        })
+    }
+
+    #[inline]
+    fn write(&self, row: usize, delimiter: u8, scratch: &mut String, out: &mut Vec<u8>) {
+        let bytes: &[u8] = match self {
+            TextColumn::Utf8(a) if a.is_valid(row) => a.value(row).as_bytes(),
+            TextColumn::LargeUtf8(a) if a.is_valid(row) => a.value(row).as_bytes(),
+            TextColumn::Utf8View(a) if a.is_valid(row) => a.value(row).as_bytes(),
+            TextColumn::Binary(a) if a.is_valid(row) => a.value(row),
+            TextColumn::LargeBinary(a) if a.is_valid(row) => a.value(row),
+            TextColumn::Formatted(f) => {
+                use std::fmt::Write as _;
+                scratch.clear();
+                // Formatting into a String cannot fail for a valid array.
+                let _ = write!(scratch, "{}", f.value(row));
+                scratch.as_bytes()
+            }
+            _ => b"",
+        };
+        write_field(bytes, delimiter, out);
+    }
+}
+
+/// The type a Parquet output gives a column of the pipeline's text.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum ColumnType {
+    Text,
+    Int64,
+    Float64,
+    Int8,
+    /// An ISO date (`YYYY-MM-DD`).
+    Date,
+}
+
+/// What a Parquet output knows of the columns it will be given.
+#[derive(Clone, Debug, Default)]
+pub struct OutputColumns {
+    /// Columns with a type of their own, by name (the score columns).
+    pub typed: HashMap<String, ColumnType>,
+    /// Types of the input's columns (a Parquet input), by name: kept columns
+    /// are cast back to them where the cast is exact.
+    pub input_types: HashMap<String, DataType>,
+}
+
+/// A [`Write`] that takes the pipeline's delimited output and writes it as
+/// Parquet (see the module documentation). [`ParquetSink::finish`] writes
+/// the file's footer; without it the file is incomplete.
+pub struct ParquetSink {
+    /// The thread that copies the input's columns, encodes and writes.
+    background: Option<Background>,
+    /// Whether the input's columns are copied (then the text's are not kept).
+    copies: bool,
+    columns: OutputColumns,
+    csv: csv_core::Reader,
+    fields: Vec<u8>,
+    ends: Vec<usize>,
+    nfield: usize,
+    nend: usize,
+    header: Option<Header>,
+    rows: usize,
+    /// Rows written, for messages.
+    written: u64,
+    /// Batches handed to the background thread.
+    batches: u64,
+    /// Rows per batch handed over.
+    group_rows: usize,
+    failed: Option<String>,
+}
+
+/// Encoding and writing on a thread of its own, so that it runs beside the
+/// pipeline: takes batches of the text's columns, puts the copied input
+/// columns in front of them, and writes.
+struct Background {
+    batches: Option<std::sync::mpsc::SyncSender<RecordBatch>>,
+    thread: Option<std::thread::JoinHandle<Result<(), Error>>>,
+    /// Set when the sink is dropped unfinished (the run failed): the file
+    /// then gets no footer, so that it cannot pass for a complete one.
+    abandoned: Arc<std::sync::atomic::AtomicBool>,
+}
+
+impl Background {
+    fn start(out: Box<dyn Write + Send>, passthrough: Option<Source>) -> Background {
+        let (tx, rx) = std::sync::mpsc::sync_channel::<RecordBatch>(2);
+        let abandoned = Arc::new(std::sync::atomic::AtomicBool::new(false));
+        let stop = abandoned.clone();
+        let thread = std::thread::spawn(move || -> Result<(), Error> {
+            let mut copies = passthrough.map(PassthroughRows::open).transpose()?;
+            let mut out = Some(out);
+            let mut writer: Option<ArrowWriter<Box<dyn Write + Send>>> = None;
+            for batch in rx {
+                let batch = match copies.as_mut() {
+                    None => batch,
+                    Some(p) => {
+                        let copied = p.take(batch.num_rows())?;
+                        let mut fields: Vec<Field> = copied
+                            .schema()
+                            .fields()
+                            .iter()
+                            .map(|f| f.as_ref().clone())
+                            .collect();
+                        let mut arrays = copied.columns().to_vec();
+                        fields.extend(batch.schema().fields().iter().map(|f| f.as_ref().clone()));
+                        arrays.extend(batch.columns().iter().cloned());
+                        RecordBatch::try_new_with_options(
+                            Arc::new(Schema::new(fields)),
+                            arrays,
+                            &RecordBatchOptions::new().with_row_count(Some(batch.num_rows())),
+                        )
+                        .map_err(|e| Error::data(None, format!("internal error: {e}")))?
+                    }
+                };
+                if writer.is_none() {
+                    writer = Some(
+                        ArrowWriter::try_new(
+                            out.take().expect("an output"),
+                            batch.schema(),
+                            Some(writer_properties()),
+                        )
+                        .map_err(|e| Error::data(None, format!("cannot write Parquet: {e}")))?,
+                    );
+                }
+                writer
+                    .as_mut()
+                    .expect("a writer")
+                    .write(&batch)
+                    .map_err(parquet_write_error)?;
+            }
+            if stop.load(std::sync::atomic::Ordering::SeqCst) {
+                return Ok(());
+            }
+            if let Some(p) = copies.as_mut() {
+                if !p.exhausted() {
+                    return Err(Error::data(
+                        None,
+                        format!(
+                            "internal error: the output has fewer rows than {}",
+                            p.source.name()
+                        ),
+                    ));
+                }
+            }
+            if let Some(w) = writer {
+                let mut out = w.into_inner().map_err(parquet_write_error)?;
+                out.flush()
+                    .map_err(|e| Error::io("cannot write the Parquet output", e))?;
+            }
+            Ok(())
+        });
+        Background {
+            batches: Some(tx),
+            thread: Some(thread),
+            abandoned,
+        }
+    }
+
+    /// Hands over a batch; the thread's error if it has stopped.
+    fn send(&mut self, batch: RecordBatch) -> Result<(), Error> {
+        let sent = self.batches.as_ref().map(|tx| tx.send(batch));
+        match sent {
+            Some(Ok(())) => Ok(()),
+            _ => Err(self.join().err().unwrap_or_else(|| {
+                Error::data(
+                    None,
+                    "internal error: the Parquet writer stopped".to_string(),
+                )
+            })),
+        }
+    }
+
+    /// Waits for the thread to write everything.
+    fn join(&mut self) -> Result<(), Error> {
+        self.batches = None;
+        match self.thread.take() {
+            Some(t) => t.join().unwrap_or_else(|_| {
+                Err(Error::data(
+                    None,
+                    "internal error: the Parquet writer failed".to_string(),
+                ))
+            }),
+            None => Ok(()),
+        }
+    }
+}
+
+struct Header {
+    /// Per text column: its builder, or `None` when the column is left out
+    /// (a copied input column).
+    builders: Vec<Option<Builder>>,
+}
+
+enum Builder {
+    Text(String, StringBuilder),
+    Int64(String, Int64Builder),
+    Float64(String, Float64Builder),
+    Int8(String, Int8Builder),
+    Date(String, Date32Builder),
+    /// A kept column: text, cast to the input's type when exact.
+    Kept(String, StringBuilder, Option<DataType>),
+}
+
+/// The rows of a Parquet input, read alongside the output.
+struct PassthroughRows {
+    source: Source,
+    reader: ParquetRecordBatchReader,
+    schema: SchemaRef,
+    queue: VecDeque<RecordBatch>,
+    queued: usize,
+}
+
+impl PassthroughRows {
+    fn open(source: Source) -> Result<Self, Error> {
+        let builder = source.builder()?.with_batch_size(BATCH_ROWS);
+        let schema = builder.schema().clone();
+        let reader = builder.build().map_err(|e| source.error(e))?;
+        Ok(PassthroughRows {
+            source,
+            reader,
+            schema,
+            queue: VecDeque::new(),
+            queued: 0,
+        })
+    }
+
+    /// The next `n` rows of the input.
+    fn take(&mut self, n: usize) -> Result<RecordBatch, Error> {
+        while self.queued < n {
+            match self.reader.next() {
+                Some(b) => {
+                    let b = b.map_err(|e| self.source.error(e))?;
+                    self.queued += b.num_rows();
+                    self.queue.push_back(b);
+                }
+                None => {
+                    return Err(Error::data(
+                        None,
+                        format!(
+                            "internal error: the output has more rows than {}",
+                            self.source.name()
+                        ),
+                    ))
+                }
+            }
+        }
+        let mut parts = Vec::new();
+        let mut need = n;
+        while need > 0 {
+            let b = self.queue.pop_front().expect("queued rows");
+            if b.num_rows() <= need {
+                need -= b.num_rows();
+                parts.push(b);
+            } else {
+                parts.push(b.slice(0, need));
+                self.queue.push_front(b.slice(need, b.num_rows() - need));
+                need = 0;
+            }
+        }
+        self.queued -= n;
+        arrow_select::concat::concat_batches(&self.schema, &parts)
+            .map_err(|e| Error::data(None, format!("internal error: {e}")))
+    }
+
+    fn exhausted(&mut self) -> bool {
+        if self.queue.iter().any(|b| b.num_rows() > 0) {
+            return false;
+        }
+        self.queued == 0 && self.reader.next().is_none()
+    }
+}
+
+impl ParquetSink {
+    /// A sink writing Parquet to `out`, reading text with `delimiter`.
+    /// `passthrough` (for a wide output of a Parquet input: its rows are the
+    /// input's rows) copies the input's columns from the input itself, and
+    /// keeps of the text only the `typed` columns.
+    pub fn new(
+        out: Box<dyn Write + Send>,
+        delimiter: u8,
+        columns: OutputColumns,
+        passthrough: Option<Source>,
+    ) -> ParquetSink {
+        ParquetSink {
+            copies: passthrough.is_some(),
+            background: Some(Background::start(out, passthrough)),
+            columns,
+            csv: csv_core::ReaderBuilder::new().delimiter(delimiter).build(),
+            fields: vec![0; 1 << 12],
+            ends: vec![0; 64],
+            nfield: 0,
+            nend: 0,
+            header: None,
+            rows: 0,
+            written: 0,
+            batches: 0,
+            group_rows: GROUP_ROWS,
+            failed: None,
+        }
+    }
+
+    /// Rows taken before they are handed to the writer (131,072 by
+    /// default); smaller values use less memory and make smaller row
+    /// groups.
+    pub fn with_group_rows(mut self, rows: usize) -> Self {
+        self.group_rows = rows.max(1);
+        self
+    }
+
+    fn start(&mut self, names: Vec<String>) {
+        let builders = names
+            .into_iter()
+            .map(|name| {
+                if self.copies && !self.columns.typed.contains_key(&name) {
+                    return None;
+                }
+                Some(match self.columns.typed.get(&name) {
+                    Some(ColumnType::Text) => Builder::Text(name, StringBuilder::new()),
+                    Some(ColumnType::Int64) => Builder::Int64(name, Int64Builder::new()),
+                    Some(ColumnType::Float64) => Builder::Float64(name, Float64Builder::new()),
+                    Some(ColumnType::Int8) => Builder::Int8(name, Int8Builder::new()),
+                    Some(ColumnType::Date) => Builder::Date(name, Date32Builder::new()),
+                    None => {
+                        let t = self.columns.input_types.get(&name).cloned();
+                        Builder::Kept(name, StringBuilder::new(), t)
+                    }
+                })
+            })
+            .collect();
+        self.header = Some(Header { builders });
+    }
+
+    /// Takes one record of the text.
+    fn record(&mut self) -> Result<(), Error> {
+        let fields = &self.fields[..self.nfield];
+        let ends = &self.ends[..self.nend];
+        let field = |k: usize| &fields[if k == 0 { 0 } else { ends[k - 1] }..ends[k]];
+        let Some(header) = self.header.as_mut() else {
+            let names = (0..ends.len())
+                .map(|k| String::from_utf8_lossy(field(k)).into_owned())
+                .collect();
+            self.start(names);
+            return Ok(());
+        };
+        if ends.len() != header.builders.len() {
+            return Err(self.internal("a record of another width"));
+        }
+        let row = self.written + self.rows as u64 + 1;
+        for (k, b) in header.builders.iter_mut().enumerate() {
+            let v = field(k);
+            let Some(b) = b else { continue };
+            let text = |name: &str| {
+                std::str::from_utf8(v).map_err(|_| {
+                    Error::data(
+                        None,
+                        format!(
+                            "row {row}, column '{name}': the value is not UTF-8 text, which a \
+                             Parquet text column must be (write CSV instead, or convert the \
+                             input to UTF-8)"
+                        ),
+                    )
+                })
+            };
+            let number = |name: &str| {
+                Error::data(
+                    None,
+                    format!(
+                        "internal error: row {row}, column '{name}' holds '{}', not a number",
+                        String::from_utf8_lossy(v)
+                    ),
+                )
+            };
+            match b {
+                Builder::Text(name, b) | Builder::Kept(name, b, _) => {
+                    if v.is_empty() {
+                        b.append_null()
+                    } else {
+                        b.append_value(text(name)?)
+                    }
+                }
+                Builder::Int64(name, b) => match v {
+                    b"" => b.append_null(),
+                    _ => b.append_value(
+                        std::str::from_utf8(v)
+                            .ok()
+                            .and_then(|s| s.parse().ok())
+                            .ok_or_else(|| number(name))?,
+                    ),
+                },
+                Builder::Float64(name, b) => match v {
+                    b"" => b.append_null(),
+                    _ => b.append_value(
+                        std::str::from_utf8(v)
+                            .ok()
+                            .and_then(|s| s.parse().ok())
+                            .ok_or_else(|| number(name))?,
+                    ),
+                },
+                Builder::Int8(name, b) => match v {
+                    b"" => b.append_null(),
+                    _ => b.append_value(
+                        std::str::from_utf8(v)
+                            .ok()
+                            .and_then(|s| s.parse().ok())
+                            .ok_or_else(|| number(name))?,
+                    ),
+                },
+                Builder::Date(name, b) => match v {
+                    b"" => b.append_null(),
+                    _ => b.append_value(DateFormat::Iso.parse(v).ok_or_else(|| number(name))?),
+                },
+            }
+        }
+        self.rows += 1;
+        if self.rows >= self.group_rows {
+            self.flush_rows()?;
+        }
+        Ok(())
+    }
+
+    fn internal(&self, what: &str) -> Error {
+        Error::data(None, format!("internal error: the output held {what}"))
+    }
+
+    /// Writes the rows taken so far as one row group.
+    fn flush_rows(&mut self) -> Result<(), Error> {
+        let Some(header) = self.header.as_mut() else {
+            return Ok(());
+        };
+        // An empty output still gets its columns (one empty batch).
+        if self.rows == 0 && self.batches > 0 {
+            return Ok(());
+        }
+        let rows = self.rows;
+        let mut fields: Vec<Field> = Vec::new();
+        let mut arrays: Vec<ArrayRef> = Vec::new();
+        for b in header.builders.iter_mut().flatten() {
+            let (name, a): (&str, ArrayRef) = match b {
+                Builder::Text(n, b) => (n, Arc::new(b.finish())),
+                Builder::Int64(n, b) => (n, Arc::new(b.finish())),
+                Builder::Float64(n, b) => (n, Arc::new(b.finish())),
+                Builder::Int8(n, b) => (n, Arc::new(b.finish())),
+                Builder::Date(n, b) => (n, Arc::new(b.finish())),
+                Builder::Kept(n, b, t) => {
+                    let text: ArrayRef = Arc::new(b.finish());
+                    (n, kept_column(text, t))
+                }
+            };
+            fields.push(Field::new(name, a.data_type().clone(), true));
+            arrays.push(a);
+        }
+        let batch = RecordBatch::try_new_with_options(
+            Arc::new(Schema::new(fields)),
+            arrays,
+            &RecordBatchOptions::new().with_row_count(Some(rows)),
+        )
+        .map_err(|e| Error::data(None, format!("internal error: {e}")))?;
+        self.background
+            .as_mut()
+            .expect("a writer thread")
+            .send(batch)?;
+        self.batches += 1;
+        self.written += rows as u64;
+        self.rows = 0;
+        Ok(())
+    }
+
+    fn feed(&mut self, mut input: &[u8]) -> Result<(), Error> {
+        use csv_core::ReadRecordResult as R;
+        loop {
+            let (res, nin, nout, nend) = self.csv.read_record(
+                input,
+                &mut self.fields[self.nfield..],
+                &mut self.ends[self.nend..],
+            );
+            input = &input[nin..];
+            // Field ends count from the start of the record, across calls.
+            self.nfield += nout;
+            self.nend += nend;
+            match res {
+                R::InputEmpty => return Ok(()),
+                R::OutputFull => {
+                    let n = self.fields.len();
+                    self.fields.resize(n * 2, 0);
+                }
+                R::OutputEndsFull => {
+                    let n = self.ends.len();
+                    self.ends.resize(n * 2, 0);
+                }
+                R::Record => {
+                    self.record()?;
+                    self.nfield = 0;
+                    self.nend = 0;
+                }
+                R::End => return Ok(()),
+            }
+        }
+    }
+
+    /// Writes what is left and the file's footer.
+    pub fn finish(mut self) -> Result<(), Error> {
+        if let Some(m) = self.failed.take() {
+            return Err(Error::data(None, m));
+        }
+        self.feed(&[])?;
+        if self.header.is_none() {
+            // Nothing written at all (an empty input): a file with no columns.
+            self.start(Vec::new());
+        }
+        self.flush_rows()?;
+        let mut b = self.background.take().expect("a writer thread");
+        b.join()
+    }
+}
+
+/// How morbus writes Parquet: zstd (level 1) compression, row groups of
+/// 131,072 rows.
+pub fn writer_properties() -> WriterProperties {
+    WriterProperties::builder()
+        .set_compression(Compression::ZSTD(ZstdLevel::try_new(1).expect("level 1")))
+        .set_max_row_group_row_count(Some(GROUP_ROWS))
+        .build()
+}
+
+fn parquet_write_error(e: parquet::errors::ParquetError) -> Error {
+    match e {
+        parquet::errors::ParquetError::External(inner) => match inner.downcast::<io::Error>() {
+            Ok(io) => Error::io("cannot write the Parquet output", *io),
+            Err(other) => Error::data(None, format!("cannot write Parquet: {other}")),
+        },
+        other => Error::data(None, format!("cannot write Parquet: {other}")),
+    }
+}
+
+/// A kept column's text as the input's type, when casting gives every
+/// value back exactly (checked by casting back to text); else the text.
+fn kept_column(text: ArrayRef, input: &Option<DataType>) -> ArrayRef {
+    let Some(t) = input else { return text };
+    if matches!(t, DataType::Utf8) {
+        return text;
+    }
+    let options = arrow_cast::CastOptions {
+        safe: false,
+        format_options: FORMAT,
+    };
+    let Ok(typed) = arrow_cast::cast_with_options(&text, t, &options) else {
+        return text;
+    };
+    let exact = match ArrayFormatter::try_new(typed.as_ref(), &FORMAT) {
+        Ok(back) => {
+            let strings = text.as_string::<i32>();
+            (0..typed.len()).all(|i| {
+                strings.is_null(i) == typed.is_null(i)
+                    && (strings.is_null(i) || back.value(i).to_string() == strings.value(i))
+            })
+        }
+        Err(_) => false,
+    };
+    if exact {
+        typed
+    } else {
+        text
+    }
+}
+
+impl Drop for ParquetSink {
+    fn drop(&mut self) {
+        if let Some(mut b) = self.background.take() {
+            b.abandoned.store(true, std::sync::atomic::Ordering::SeqCst);
+            let _ = b.join();
+        }
+    }
+}
+
+impl Write for ParquetSink {
+    fn write(&mut self, buf: &[u8]) -> io::Result<usize> {
+        if let Some(m) = &self.failed {
+            return Err(io::Error::other(m.clone()));
+        }
+        match self.feed(buf) {
+            Ok(()) => Ok(buf.len()),
+            Err(e) => {
+                let m = e.to_string();
+                self.failed = Some(m.clone());
+                Err(io::Error::other(m))
+            }
+        }
+    }
+    fn flush(&mut self) -> io::Result<()> {
+        Ok(())
+    }
+}
+
+impl OutputColumns {
+    /// The columns of `score`: the score columns typed, the kept columns of
+    /// a Parquet `input` with their input types.
+    pub fn scores(engine: &Engine, input: Option<&Source>) -> Result<OutputColumns, Error> {
+        let typed = engine
+            .columns()
+            .iter()
+            .map(|c| {
+                let t = match c.kind {
+                    ColumnKind::Score { spec } | ColumnKind::ScoreWithAge { spec } => {
+                        if engine.decimals(spec) == 0 {
+                            ColumnType::Int64
+                        } else {
+                            ColumnType::Float64
+                        }
+                    }
+                    ColumnKind::Band { .. } => ColumnType::Text,
+                    ColumnKind::Flag { .. } => ColumnType::Int8,
+                };
+                (c.name.clone(), t)
+            })
+            .collect();
+        Ok(OutputColumns {
+            typed,
+            input_types: input_types(input)?,
+        })
+    }
+
+    /// The columns of `explain`: rows as whole numbers, the source date as
+    /// a date, the weight as a number, the rest text; the id and episode of
+    /// a Parquet `input` with their input types.
+    pub fn explain(engine: &Engine, input: Option<&Source>) -> Result<OutputColumns, Error> {
+        let whole = (0..engine.specs().len()).all(|s| engine.decimals(s) == 0);
+        let weight = if whole {
+            ColumnType::Int64
+        } else {
+            ColumnType::Float64
+        };
+        let typed = [
+            ("row", ColumnType::Int64),
+            ("index", ColumnType::Text),
+            ("source_row", ColumnType::Int64),
+            ("source_date", ColumnType::Date),
+            ("code_as_written", ColumnType::Text),
+            ("code", ColumnType::Text),
+            ("condition", ColumnType::Text),
+            ("weight", weight),
+            ("status", ColumnType::Text),
+        ]
+        .into_iter()
+        .map(|(n, t)| (n.to_string(), t))
+        .collect();
+        Ok(OutputColumns {
+            typed,
+            input_types: input_types(input)?,
+        })
+    }
+}
+
+fn input_types(input: Option<&Source>) -> Result<HashMap<String, DataType>, Error> {
+    let Some(source) = input else {
+        return Ok(HashMap::new());
+    };
+    Ok(source
+        .builder()?
+        .schema()
+        .fields()
+        .iter()
+        .map(|f| (f.name().clone(), f.data_type().clone()))
+        .collect())
+}
+
+/// The columns of a Parquet input that a run reads (diagnoses, age, id,
+/// episode, date, primary flag, present-on-admission indicator, and
+/// `extra`), by position; `None` when one of them cannot be resolved, so
+/// that the run sees every column and reports the problem with its usual
+/// message.
+pub fn read_columns(names: &[String], cfg: &ScoreConfig, extra: &[String]) -> Option<Vec<usize>> {
+    let header = crate::pipeline::Header {
+        names: names.to_vec(),
+    };
+    let mut cols = header.columns(&cfg.dx, "diagnosis").ok()?;
+    let singles = [
+        &cfg.age,
+        &cfg.id,
+        &cfg.episode,
+        &cfg.date,
+        &cfg.primary,
+        &cfg.poa,
+    ];
+    for name in singles.into_iter().flatten().chain(extra) {
+        cols.push(header.column(name, "input").ok()?);
+    }
+    cols.sort_unstable();
+    cols.dedup();
+    Some(cols)
+}
+
+/// Refuses a run whose score columns would repeat a column of the Parquet
+/// input that a wide output copies (the pipeline, reading only some
+/// columns, does not see the others).
+pub fn check_copied_names(source: &Source, engine: &Engine) -> Result<(), Error> {
+    let names = source.column_names()?;
+    let names: Vec<&str> = names.iter().map(String::as_str).collect();
+    crate::pipeline::check_collisions(&names, engine)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::lists::Catalogue;
+    use crate::score::{IndexSpec, ScoreOptions};
+    use arrow_array::{Int64Array, StringArray};
+
+    #[test]
+    fn rows_of_lines_after_values_with_line_breaks() {
+        // Rows 1 and 2 take one line each (lines 2, 3); row 3 takes three
+        // (lines 4-6); row 4 starts on line 7; row 6 takes two (9-10).
+        let lines = RowLines {
+            marks: vec![(7, 4), (11, 7)],
+        };
+        let rows: Vec<u64> = [2, 3, 4, 7, 8, 9, 11, 12]
+            .iter()
+            .map(|&l| lines.row(l))
+            .collect();
+        assert_eq!(rows, [1, 2, 3, 4, 5, 6, 7, 8]);
+        let e = lines.translate(Error::data(Some(8), "bad"), "x.parquet");
+        assert_eq!(e.to_string(), "row 5 of x.parquet: bad");
+    }
+
+    /// A wide score of a Parquet input whose row groups (37 rows) do not
+    /// line up with the output's batches (50 rows): every row comes out
+    /// once, in order, with the input's own columns.
+    #[test]
+    fn copied_columns_line_up_across_uneven_batches() {
+        let dir = std::env::temp_dir().join(format!("morbus-pq-unit-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let input = dir.join("in.parquet");
+        let n = 370;
+        let ids = Int64Array::from_iter_values(0..n as i64);
+        let codes = ["I21.9", "C78.0", "", "F00.1", "E11.2", "bad"];
+        let dx = StringArray::from_iter_values((0..n).map(|i| codes[i % codes.len()]));
+        let batch = RecordBatch::try_from_iter([
+            ("id", Arc::new(ids) as ArrayRef),
+            ("dx1", Arc::new(dx) as ArrayRef),
+        ])
+        .unwrap();
+        let props = WriterProperties::builder()
+            .set_max_row_group_row_count(Some(37))
+            .build();
+        let mut w =
+            ArrowWriter::try_new(File::create(&input).unwrap(), batch.schema(), Some(props))
+                .unwrap();
+        w.write(&batch).unwrap();
+        w.close().unwrap();
+
+        let specs = IndexSpec::parse_many("charlson").unwrap();
+        let engine = Engine::new(&Catalogue::builtin(), &specs, ScoreOptions::default()).unwrap();
+        let cfg = ScoreConfig {
+            dx: vec!["dx1".into()],
+            threads: 2,
+            ..ScoreConfig::default()
+        };
+        let source = Source::File(input.clone());
+        let text = ParquetText::from_source(source.clone(), b',', Some(&[1])).unwrap();
+        let out = dir.join("out.parquet");
+        let columns = OutputColumns::scores(&engine, Some(&source)).unwrap();
+        let mut sink = ParquetSink::new(
+            Box::new(File::create(&out).unwrap()),
+            b',',
+            columns,
+            Some(source),
+        )
+        .with_group_rows(50);
+        let summary = crate::pipeline::score_stream(&engine, &cfg, text, &mut sink).unwrap();
+        sink.finish().unwrap();
+        assert_eq!(summary.rows_read, n as u64);
+        assert_eq!(
+            summary.invalid_codes,
+            (n / codes.len()) as u64 + u64::from(n % codes.len() > 5)
+        );
+
+        let reader = ParquetRecordBatchReaderBuilder::try_new(File::open(&out).unwrap()).unwrap();
+        let got: Vec<RecordBatch> = reader.build().unwrap().map(Result::unwrap).collect();
+        let got = arrow_select::concat::concat_batches(&got[0].schema(), &got).unwrap();
+        assert_eq!(got.num_rows(), n);
+        assert_eq!(got.column(0).as_ref(), batch.column(0).as_ref());
+        assert_eq!(got.column(1).as_ref(), batch.column(1).as_ref());
+        // Each row's score follows its own code: the same code, the same score.
+        let scores = got
+            .column(2)
+            .as_primitive::<arrow_array::types::Int64Type>();
+        for i in codes.len()..n {
+            assert_eq!(scores.value(i), scores.value(i % codes.len()), "row {i}");
+        }
+        std::fs::remove_dir_all(&dir).unwrap();
+    }
+}

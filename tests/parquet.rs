@@ -1,0 +1,752 @@
+//! Parquet in and out: every command gives on a Parquet extract what it
+//! gives on the same extract as CSV (the CSV path is the reference, checked
+//! against published values in tests/published.rs), rows and their order
+//! are kept, a Parquet input's own columns come out of a Parquet output
+//! untouched (types, values, nulls), score columns are typed, and problems
+//! are reported with the row.
+//!
+//! The extracts are the invented demo data, written here as Parquet with
+//! typed columns (dates as dates, integer ids, a dictionary-encoded column,
+//! nulls for empty fields), and the same values written as CSV.
+
+#![cfg(feature = "parquet")]
+
+mod common;
+
+use std::fs::File;
+use std::io::Write;
+use std::path::{Path, PathBuf};
+use std::process::{Command, Stdio};
+use std::sync::Arc;
+
+use arrow_array::builder::{
+    Date32Builder, Int64Builder, Int8Builder, LargeStringBuilder, ListBuilder, StringBuilder,
+    StringDictionaryBuilder,
+};
+use arrow_array::cast::AsArray;
+use arrow_array::types::Int32Type;
+use arrow_array::{Array, ArrayRef, RecordBatch};
+use arrow_schema::DataType;
+use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
+use parquet::arrow::ArrowWriter;
+use parquet::file::properties::WriterProperties;
+
+use common::{morbus, root, TempDir};
+
+/// The records of a CSV file (header first).
+fn records(path: &Path) -> Vec<Vec<String>> {
+    let mut rdr = csv::ReaderBuilder::new()
+        .has_headers(false)
+        .from_path(path)
+        .unwrap();
+    rdr.records()
+        .map(|r| r.unwrap().iter().map(str::to_string).collect())
+        .collect()
+}
+
+/// How a test extract types a column in its Parquet form.
+#[derive(Clone, Copy, PartialEq)]
+enum Kind {
+    Text,
+    /// Text as 64-bit offsets (large string).
+    LargeText,
+    /// Dictionary-encoded text (a categorical column).
+    Dict,
+    Date,
+    /// `P0003` as the integer 3 (in both forms).
+    IntId,
+    /// A 0/1 value as Int8.
+    Byte,
+}
+
+/// Writes `rows` (header first) as Parquet with `kinds` per column, and the
+/// same values as CSV; `group` rows per row group. Empty fields are nulls.
+fn write_both(
+    rows: &[Vec<String>],
+    kinds: &[(&str, Kind)],
+    group: usize,
+    dir: &Path,
+    stem: &str,
+) -> (PathBuf, PathBuf) {
+    let header = &rows[0];
+    let kind_of = |name: &str| {
+        kinds
+            .iter()
+            .find(|(n, _)| *n == name)
+            .map_or(Kind::Text, |(_, k)| *k)
+    };
+    let int_id = |v: &str| {
+        v.trim_start_matches(|c: char| c.is_ascii_alphabetic())
+            .parse::<i64>()
+            .unwrap()
+    };
+    let mut arrays: Vec<(String, ArrayRef)> = Vec::new();
+    for (k, name) in header.iter().enumerate() {
+        let values = rows[1..].iter().map(|r| r[k].as_str());
+        let a: ArrayRef = match kind_of(name) {
+            Kind::Text => {
+                let mut b = StringBuilder::new();
+                values.for_each(|v| {
+                    if v.is_empty() {
+                        b.append_null()
+                    } else {
+                        b.append_value(v)
+                    }
+                });
+                Arc::new(b.finish())
+            }
+            Kind::LargeText => {
+                let mut b = LargeStringBuilder::new();
+                values.for_each(|v| {
+                    if v.is_empty() {
+                        b.append_null()
+                    } else {
+                        b.append_value(v)
+                    }
+                });
+                Arc::new(b.finish())
+            }
+            Kind::Dict => {
+                let mut b = StringDictionaryBuilder::<Int32Type>::new();
+                values.for_each(|v| {
+                    if v.is_empty() {
+                        b.append_null()
+                    } else {
+                        b.append_value(v);
+                    }
+                });
+                Arc::new(b.finish())
+            }
+            Kind::Date => {
+                let mut b = Date32Builder::new();
+                values.for_each(|v| {
+                    b.append_option(morbus::pipeline::DateFormat::Iso.parse(v.as_bytes()))
+                });
+                Arc::new(b.finish())
+            }
+            Kind::IntId => {
+                let mut b = Int64Builder::new();
+                values.for_each(|v| b.append_value(int_id(v)));
+                Arc::new(b.finish())
+            }
+            Kind::Byte => {
+                let mut b = Int8Builder::new();
+                values.for_each(|v| b.append_value(v.parse().unwrap()));
+                Arc::new(b.finish())
+            }
+        };
+        arrays.push((name.clone(), a));
+    }
+    let batch = RecordBatch::try_from_iter(arrays).unwrap();
+    let pq = dir.join(format!("{stem}.parquet"));
+    write_parquet(&pq, &batch, group);
+
+    let csv = dir.join(format!("{stem}.csv"));
+    let mut w = csv::Writer::from_path(&csv).unwrap();
+    w.write_record(header).unwrap();
+    for r in &rows[1..] {
+        let rec: Vec<String> = r
+            .iter()
+            .zip(header)
+            .map(|(v, name)| match kind_of(name) {
+                Kind::IntId => int_id(v).to_string(),
+                _ => v.clone(),
+            })
+            .collect();
+        w.write_record(&rec).unwrap();
+    }
+    w.flush().unwrap();
+    (pq, csv)
+}
+
+fn write_parquet(path: &Path, batch: &RecordBatch, group: usize) {
+    let props = WriterProperties::builder()
+        .set_max_row_group_row_count(Some(group))
+        .build();
+    let mut w =
+        ArrowWriter::try_new(File::create(path).unwrap(), batch.schema(), Some(props)).unwrap();
+    w.write(batch).unwrap();
+    w.close().unwrap();
+}
+
+/// Every row of a Parquet file, as one batch, and its number of row groups.
+fn read_parquet(path: &Path) -> (RecordBatch, usize) {
+    let b = ParquetRecordBatchReaderBuilder::try_new(File::open(path).unwrap()).unwrap();
+    let groups = b.metadata().num_row_groups();
+    let schema = b.schema().clone();
+    let batches: Vec<RecordBatch> = b.build().unwrap().map(Result::unwrap).collect();
+    (
+        arrow_select::concat::concat_batches(&schema, &batches).unwrap(),
+        groups,
+    )
+}
+
+/// A column as text: nulls empty, floats in Rust's shortest form.
+fn as_text(batch: &RecordBatch, name: &str) -> Vec<String> {
+    let a = batch
+        .column_by_name(name)
+        .unwrap_or_else(|| panic!("column {name}"));
+    if a.data_type() == &DataType::Float64 {
+        let f = a.as_primitive::<arrow_array::types::Float64Type>();
+        return f
+            .iter()
+            .map(|v| v.map_or(String::new(), |v| v.to_string()))
+            .collect();
+    }
+    let f = arrow_cast::display::ArrayFormatter::try_new(a.as_ref(), &Default::default()).unwrap();
+    (0..a.len())
+        .map(|i| {
+            if a.is_null(i) {
+                String::new()
+            } else {
+                f.value(i).to_string()
+            }
+        })
+        .collect()
+}
+
+/// A column of a CSV text.
+fn csv_column(text: &str, name: &str) -> Vec<String> {
+    let mut rdr = csv::Reader::from_reader(text.as_bytes());
+    let k = rdr
+        .headers()
+        .unwrap()
+        .iter()
+        .position(|h| h == name)
+        .unwrap_or_else(|| panic!("column {name}"));
+    rdr.records().map(|r| r.unwrap()[k].to_string()).collect()
+}
+
+/// Equal columns, or the first row where they differ.
+fn assert_same(got: &[String], expected: &[String], what: &str) {
+    assert_eq!(got.len(), expected.len(), "{what}: number of rows");
+    if let Some(i) = (0..got.len()).find(|&i| got[i] != expected[i]) {
+        panic!(
+            "{what}: row {i}: got '{}', expected '{}'",
+            got[i], expected[i]
+        );
+    }
+}
+
+fn csv_header(text: &str) -> Vec<String> {
+    let mut rdr = csv::Reader::from_reader(text.as_bytes());
+    rdr.headers().unwrap().iter().map(str::to_string).collect()
+}
+
+const WIDE_KINDS: &[(&str, Kind)] = &[
+    ("patient_id", Kind::Dict),
+    ("site", Kind::LargeText),
+    ("admission_date", Kind::Date),
+    ("died_within_30_days", Kind::Byte),
+];
+
+struct Wide {
+    _dir: TempDir,
+    pq: PathBuf,
+    csv: PathBuf,
+    dir: PathBuf,
+}
+
+fn wide() -> Wide {
+    let dir = TempDir::new("parquet-wide");
+    let rows = records(&root().join("demo-data/episodes.csv"));
+    // Row groups of 700 rows: batches and row groups do not line up with
+    // the output's.
+    let (pq, csv) = write_both(&rows, WIDE_KINDS, 700, dir.path(), "episodes");
+    let d = dir.path().to_path_buf();
+    Wide {
+        _dir: dir,
+        pq,
+        csv,
+        dir: d,
+    }
+}
+
+fn s(p: &Path) -> &str {
+    p.to_str().unwrap()
+}
+
+/// The option sets the wide comparisons run.
+const WIDE_OPTIONS: &[&[&str]] = &[
+    &["--dx", "dx*"],
+    &[
+        "--dx",
+        "dx*",
+        "--age",
+        "age",
+        "--flags",
+        "--index",
+        "charlson:charlson1987,hfrs",
+    ],
+    &[
+        "--dx",
+        "dx1,dx2,dx3",
+        "--no-hierarchy",
+        "--index",
+        "elixhauser",
+    ],
+    &[
+        "--dx",
+        "dx*",
+        "--id",
+        "patient_id",
+        "--date",
+        "admission_date",
+        "--lookback",
+        "365",
+        "--age",
+        "age",
+    ],
+    &[
+        "--dx",
+        "dx*",
+        "--id",
+        "patient_id",
+        "--date",
+        "admission_date",
+        "--lookback",
+        "all",
+        "--exclude-primary",
+    ],
+];
+
+#[test]
+fn parquet_in_csv_out_equals_the_csv_run() {
+    let w = wide();
+    for opts in WIDE_OPTIONS {
+        let mut a = vec!["score", s(&w.pq)];
+        a.extend_from_slice(opts);
+        let from_pq = morbus(&a);
+        let mut b = vec!["score", s(&w.csv)];
+        b.extend_from_slice(opts);
+        let from_csv = morbus(&b);
+        assert_eq!(from_pq.code, 0, "{opts:?}: {}", from_pq.stderr);
+        assert_eq!(from_csv.code, 0, "{opts:?}: {}", from_csv.stderr);
+        // Same bytes: the demo's values need no quoting, the dates are ISO,
+        // nulls are empty fields.
+        assert_eq!(from_pq.stdout, from_csv.stdout, "{opts:?}");
+        assert_eq!(from_pq.stderr, from_csv.stderr, "{opts:?}");
+    }
+}
+
+#[test]
+fn parquet_out_keeps_the_input_columns_and_types_the_scores() {
+    let w = wide();
+    let (input, _) = read_parquet(&w.pq);
+    for (k, opts) in WIDE_OPTIONS.iter().enumerate() {
+        let out = w.dir.join(format!("out{k}.parquet"));
+        let mut a = vec!["score", s(&w.pq), "-o", s(&out)];
+        a.extend_from_slice(opts);
+        let r = morbus(&a);
+        assert_eq!(r.code, 0, "{opts:?}: {}", r.stderr);
+        let mut b = vec!["score", s(&w.csv)];
+        b.extend_from_slice(opts);
+        let reference = morbus(&b);
+        let names = csv_header(&reference.stdout);
+
+        let (got, _) = read_parquet(&out);
+        assert_eq!(got.num_rows(), input.num_rows());
+        assert_eq!(got.num_columns(), names.len());
+        // The input's columns: the same arrays, same types (dictionary,
+        // large string, date, int8 included), nulls where they were.
+        for (i, f) in input.schema().fields().iter().enumerate() {
+            assert_eq!(got.schema().field(i).name(), f.name());
+            assert_eq!(
+                got.schema().field(i).data_type(),
+                f.data_type(),
+                "{}",
+                f.name()
+            );
+            assert_eq!(
+                got.column(i).as_ref(),
+                input.column(i).as_ref(),
+                "{}",
+                f.name()
+            );
+        }
+        // The score columns: typed, with the CSV run's values.
+        for name in &names[input.num_columns()..] {
+            let t = got
+                .schema()
+                .field_with_name(name)
+                .unwrap()
+                .data_type()
+                .clone();
+            let expected = if name.ends_with("_band") {
+                DataType::Utf8
+            } else if !name
+                .as_bytes()
+                .windows(4)
+                .any(|w| w.iter().all(u8::is_ascii_digit))
+            {
+                // Score columns are named after their weighting, which
+                // carries its year (charlson1987); condition flags are not.
+                DataType::Int8
+            } else if name.starts_with("hfrs") {
+                DataType::Float64 // points with one decimal
+            } else {
+                DataType::Int64
+            };
+            assert_eq!(t, expected, "{name}");
+            let mut csv_values = csv_column(&reference.stdout, name);
+            if t == DataType::Float64 {
+                // The CSV writes the weighting's decimals; Arrow the shortest form.
+                for v in &mut csv_values {
+                    if !v.is_empty() {
+                        *v = v.parse::<f64>().unwrap().to_string();
+                    }
+                }
+            }
+            assert_same(
+                &as_text(&got, name),
+                &csv_values,
+                &format!("{opts:?} {name}"),
+            );
+        }
+    }
+}
+
+#[test]
+fn long_layout_keeps_an_integer_id_and_gives_the_csv_numbers() {
+    let dir = TempDir::new("parquet-long");
+    let rows = records(&root().join("demo-data/episodes-long.csv"));
+    let kinds = [
+        ("patient_id", Kind::IntId),
+        ("admission_date", Kind::Date),
+        ("position", Kind::IntId),
+        ("died_within_30_days", Kind::Byte),
+    ];
+    let (pq, csv) = write_both(&rows, &kinds, 1000, dir.path(), "long");
+    for opts in [
+        &["--layout", "long", "--id", "patient_id", "--dx", "code"][..],
+        &[
+            "--layout",
+            "long",
+            "--id",
+            "patient_id",
+            "--episode",
+            "episode_id",
+            "--dx",
+            "code",
+            "--date",
+            "admission_date",
+            "--lookback",
+            "730",
+            "--exclude-primary",
+            "--primary",
+            "position",
+            "--poa",
+            "present_on_admission",
+            "--age",
+            "age",
+        ],
+    ] {
+        let out = dir.path().join("out.parquet");
+        let mut a = vec!["score", s(&pq), "-o", s(&out)];
+        a.extend_from_slice(opts);
+        let r = morbus(&a);
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        let mut b = vec!["score", s(&csv)];
+        b.extend_from_slice(opts);
+        let reference = morbus(&b);
+        assert_eq!(r.stderr, reference.stderr);
+        let (got, _) = read_parquet(&out);
+        // The id keeps its integer type; the episode its text.
+        assert_eq!(got.schema().field(0).data_type(), &DataType::Int64);
+        if opts.contains(&"--episode") {
+            assert_eq!(got.schema().field(1).data_type(), &DataType::Utf8);
+        }
+        for name in csv_header(&reference.stdout) {
+            let mut expected = csv_column(&reference.stdout, &name);
+            if name.starts_with("hfrs") && !name.ends_with("_band") {
+                for v in &mut expected {
+                    *v = v.parse::<f64>().unwrap().to_string();
+                }
+            }
+            assert_same(&as_text(&got, &name), &expected, &name);
+        }
+    }
+}
+
+#[test]
+fn explain_and_compare_read_parquet() {
+    let w = wide();
+    let opts = [
+        "--dx",
+        "dx*",
+        "--id",
+        "patient_id",
+        "--date",
+        "admission_date",
+        "--lookback",
+        "365",
+    ];
+    // explain: CSV output identical; Parquet output typed with the same values.
+    let mut a = vec!["explain", s(&w.pq)];
+    a.extend_from_slice(&opts);
+    let mut b = vec!["explain", s(&w.csv)];
+    b.extend_from_slice(&opts);
+    let (from_pq, reference) = (morbus(&a), morbus(&b));
+    assert_eq!(from_pq.code, 0, "{}", from_pq.stderr);
+    assert_eq!(from_pq.stdout, reference.stdout);
+    let out = w.dir.join("explain.parquet");
+    a.extend_from_slice(&["-o", s(&out)]);
+    assert_eq!(morbus(&a).code, 0);
+    let (got, _) = read_parquet(&out);
+    for (name, t) in [
+        ("row", DataType::Int64),
+        ("source_row", DataType::Int64),
+        ("source_date", DataType::Date32),
+        ("weight", DataType::Float64),
+        ("status", DataType::Utf8),
+    ] {
+        assert_eq!(
+            got.schema().field_with_name(name).unwrap().data_type(),
+            &t,
+            "{name}"
+        );
+    }
+    for name in csv_header(&reference.stdout) {
+        let mut expected = csv_column(&reference.stdout, &name);
+        if name == "weight" {
+            for v in &mut expected {
+                *v = v.parse::<f64>().unwrap().to_string();
+            }
+        }
+        assert_same(&as_text(&got, &name), &expected, &name);
+    }
+    // explain --json cannot be Parquet.
+    let r = morbus(&["explain", s(&w.pq), "--dx", "dx*", "--json", "-o", s(&out)]);
+    assert_eq!(r.code, 2, "{}", r.stderr);
+
+    // compare: the same results (JSON) from either form.
+    let compare = |input: &Path, json: &Path| {
+        let r = morbus(&[
+            "compare",
+            s(input),
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died_within_30_days",
+            "--adjust",
+            "age",
+            "--adjust-cat",
+            "sex",
+            "--index",
+            "charlson,hfrs",
+            "--json",
+            s(json),
+            "-q",
+        ]);
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        (r.stdout, std::fs::read_to_string(json).unwrap())
+    };
+    let j1 = w.dir.join("c1.json");
+    let j2 = w.dir.join("c2.json");
+    assert_eq!(compare(&w.pq, &j1), compare(&w.csv, &j2));
+}
+
+#[test]
+fn csv_in_parquet_out_keeps_the_fields_as_text() {
+    let dir = TempDir::new("parquet-from-csv");
+    let input = dir.path().join("in.csv");
+    std::fs::write(
+        &input,
+        "episode,note,dx1,dx2\ne1,\"two\nlines, and a comma\",I21.9,\ne2,,C78.0,\"\"\ne3, spaced ,F00.1,R29.6\n",
+    )
+    .unwrap();
+    let out = dir.path().join("out.pq");
+    let r = morbus(&[
+        "score",
+        s(&input),
+        "--dx",
+        "dx*",
+        "-o",
+        s(&out),
+        "--index",
+        "charlson",
+    ]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let (got, _) = read_parquet(&out);
+    assert_eq!(got.num_rows(), 3);
+    let note = got.column_by_name("note").unwrap().as_string::<i32>();
+    assert_eq!(note.value(0), "two\nlines, and a comma");
+    assert!(note.is_null(1), "an empty field is null");
+    assert_eq!(note.value(2), " spaced ", "spaces kept");
+    let dx2 = got.column_by_name("dx2").unwrap();
+    assert!(dx2.is_null(0) && dx2.is_null(1));
+    assert_eq!(
+        got.column_by_name("charlson_quan2011").unwrap().data_type(),
+        &DataType::Int64
+    );
+    let reference = morbus(&["score", s(&input), "--dx", "dx*", "--index", "charlson"]);
+    assert_eq!(
+        as_text(&got, "charlson_quan2011"),
+        csv_column(&reference.stdout, "charlson_quan2011")
+    );
+}
+
+#[test]
+fn a_list_column_passes_through_and_a_standard_input_parquet_is_read() {
+    let dir = TempDir::new("parquet-list");
+    let mut tags = ListBuilder::new(StringBuilder::new());
+    tags.values().append_value("a");
+    tags.values().append_value("b");
+    tags.append(true);
+    tags.append(false);
+    let mut dx = StringBuilder::new();
+    dx.append_value("I50.9");
+    dx.append_value("I21.9");
+    let batch = RecordBatch::try_from_iter([
+        ("tags", Arc::new(tags.finish()) as ArrayRef),
+        ("dx1", Arc::new(dx.finish()) as ArrayRef),
+    ])
+    .unwrap();
+    let input = dir.path().join("in.parquet");
+    write_parquet(&input, &batch, 10);
+    let out = dir.path().join("out.parquet");
+    let r = morbus(&[
+        "score",
+        s(&input),
+        "--dx",
+        "dx1",
+        "-o",
+        s(&out),
+        "--index",
+        "charlson",
+    ]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let (got, _) = read_parquet(&out);
+    assert_eq!(got.column(0).as_ref(), batch.column(0).as_ref());
+    // As CSV the list is written in Arrow's display form, quoted for its
+    // comma. Scores: Quan et al., Am J Epidemiol 2011;173:676-82, Table 3
+    // (from memory): congestive heart failure (I50) 2, myocardial
+    // infarction (I21) 0.
+    let r = morbus(&["score", s(&input), "--dx", "dx1", "--index", "charlson"]);
+    assert_eq!(
+        r.stdout,
+        "tags,dx1,charlson_quan2011\n\"[a, b]\",I50.9,2\n,I21.9,0\n"
+    );
+
+    // From standard input, to standard output as Parquet.
+    let mut child = Command::new(env!("CARGO_BIN_EXE_morbus"))
+        .args([
+            "score",
+            "--dx",
+            "dx1",
+            "--index",
+            "charlson",
+            "--output-format",
+            "parquet",
+            "-q",
+        ])
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .spawn()
+        .unwrap();
+    child
+        .stdin
+        .take()
+        .unwrap()
+        .write_all(&std::fs::read(&input).unwrap())
+        .unwrap();
+    let o = child.wait_with_output().unwrap();
+    assert!(o.status.success());
+    let piped = dir.path().join("piped.parquet");
+    std::fs::write(&piped, &o.stdout).unwrap();
+    assert_eq!(read_parquet(&piped).0, got);
+}
+
+#[test]
+fn problems_name_the_row_and_a_failed_run_leaves_no_valid_file() {
+    let dir = TempDir::new("parquet-errors");
+    // Row 2 holds a value spanning three lines of text; row 4 an invalid code.
+    let mut note = StringBuilder::new();
+    let mut dx = StringBuilder::new();
+    for (n, d) in [
+        ("", "I21.9"),
+        ("one\ntwo\nthree", "C78.0"),
+        ("", "I50.9"),
+        ("", "XYZ"),
+        ("", "F00.1"),
+    ] {
+        note.append_value(n);
+        dx.append_value(d);
+    }
+    let batch = RecordBatch::try_from_iter([
+        ("note", Arc::new(note.finish()) as ArrayRef),
+        ("dx1", Arc::new(dx.finish()) as ArrayRef),
+    ])
+    .unwrap();
+    let input = dir.path().join("in.parquet");
+    write_parquet(&input, &batch, 2);
+    let out = dir.path().join("out.parquet");
+    let r = morbus(&["score", s(&input), "--dx", "dx1", "--strict", "-o", s(&out)]);
+    assert_eq!(r.code, 3, "{}", r.stderr);
+    assert!(
+        r.stderr.contains(&format!("row 4 of {}", input.display())),
+        "{}",
+        r.stderr
+    );
+    assert!(r.stderr.contains("XYZ"), "{}", r.stderr);
+    assert!(
+        ParquetRecordBatchReaderBuilder::try_new(File::open(&out).unwrap()).is_err(),
+        "a run that failed must not leave a complete-looking Parquet file"
+    );
+    // Without --strict every row comes out, the invalid code counted.
+    let r = morbus(&["score", s(&input), "--dx", "dx1", "-o", s(&out)]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    assert!(
+        r.stderr.contains("5 rows read, 5 rows written") && r.stderr.contains("1 invalid code"),
+        "{}",
+        r.stderr
+    );
+    assert_eq!(read_parquet(&out).0.num_rows(), 5);
+
+    // A damaged file: a clear message, exit 1.
+    let bytes = std::fs::read(&input).unwrap();
+    let cut = dir.path().join("cut.parquet");
+    std::fs::write(&cut, &bytes[..bytes.len() / 2]).unwrap();
+    let r = morbus(&["score", s(&cut), "--dx", "dx1"]);
+    assert_eq!(r.code, 1, "{}", r.stderr);
+    assert!(r.stderr.contains("as Parquet"), "{}", r.stderr);
+    assert!(!r.stderr.contains("panicked"), "{}", r.stderr);
+
+    // A column that is not there: the usual message, listing the columns.
+    let r = morbus(&["score", s(&input), "--dx", "dx9", "-o", s(&out)]);
+    assert_eq!(r.code, 2, "{}", r.stderr);
+    assert!(
+        r.stderr.contains("note, dx1") || r.stderr.contains("note,dx1"),
+        "{}",
+        r.stderr
+    );
+
+    // Text that is not UTF-8 cannot go into a Parquet text column.
+    let latin = dir.path().join("latin.csv");
+    std::fs::write(&latin, b"name,dx1\nJos\xe9,I21.9\n").unwrap();
+    let r = morbus(&["score", s(&latin), "--dx", "dx1", "-o", s(&out)]);
+    assert_eq!(r.code, 1, "{}", r.stderr);
+    assert!(r.stderr.contains("not UTF-8"), "{}", r.stderr);
+}
+
+#[test]
+fn a_score_column_already_in_a_parquet_input_is_refused() {
+    let w = wide();
+    let once = w.dir.join("once.parquet");
+    assert_eq!(
+        morbus(&["score", s(&w.pq), "--dx", "dx*", "-o", s(&once)]).code,
+        0
+    );
+    // Scoring the scored file again would repeat its score columns.
+    for out in ["twice.parquet", "twice.csv"] {
+        let out = w.dir.join(out);
+        let r = morbus(&["score", s(&once), "--dx", "dx*", "-o", s(&out)]);
+        assert_eq!(r.code, 2, "{}", r.stderr);
+        assert!(
+            r.stderr
+                .contains("output column 'charlson_quan2011' already exists in the input"),
+            "{}",
+            r.stderr
+        );
+    }
+}
