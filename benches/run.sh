@@ -7,11 +7,13 @@
 #   bash benches/run.sh            # 1,000,000-episode scenarios
 #   SIZES="1000000 10000000" bash benches/run.sh
 #   SCENARIOS="wide long" bash benches/run.sh
+#   SCENARIOS=parquet bash benches/run.sh   # Parquet in and out; its floor is a
+#                                           # read-and-rewrite with the parquet crate
 set -euo pipefail
 cd "$(dirname "$0")/.."
 RUNS=${RUNS:-3}
 SIZES=${SIZES:-1000000}
-SCENARIOS=${SCENARIOS:-"wide long lookback explain compare python"}
+SCENARIOS=${SCENARIOS:-"wide long lookback explain compare parquet python"}
 DATA=${DATA:-bench-data}
 mkdir -p "$DATA"
 cargo build --release -q -p morbus -p morbus-bench
@@ -79,6 +81,22 @@ for n in $SIZES; do
             --index charlson:charlson1987,charlson:quan2011,charlson:count,elixhauser:vanwalraven2009,elixhauser:count,hfrs:gilbert2018)
           row "compare, 6 index specifications" "$n" "$t" "$m" "$floor"
         fi
+        ;;
+      parquet)
+        # The same extract as typed Parquet (dates as dates; zstd), and the
+        # Parquet floor: read and rewrite it with the parquet crate.
+        pq="$DATA/wide-$n.parquet"
+        [ -f "$pq" ] || $BIN/rewrite --typed-parquet "$wide" "$pq"
+        read -r pfloor pfloor_mem < <(best_of $BIN/rewrite "$pq" "$DATA/out.parquet")
+        row "read-and-rewrite (floor), Parquet" "$n" "$pfloor" "$pfloor_mem" "$pfloor"
+        read -r t m < <(best_of $MORBUS score "$pq" --dx 'dx*' -q -o "$DATA/out.parquet")
+        row "score, Parquet to Parquet" "$n" "$t" "$m" "$pfloor"
+        read -r t m < <(best_of $MORBUS score "$pq" --dx 'dx*' -q -o "$DATA/out.csv")
+        row "score, Parquet to CSV" "$n" "$t" "$m" "$pfloor"
+        read -r t m < <(best_of $MORBUS score "$wide" --dx 'dx*' -q -o "$DATA/out.parquet")
+        row "score, CSV to Parquet" "$n" "$t" "$m" "$pfloor"
+        read -r t m < <(best_of $MORBUS score "$pq" --dx 'dx*' --id patient_id --date admission_date --lookback 730 -q -o "$DATA/out.parquet")
+        row "score, Parquet, 730-day lookback" "$n" "$t" "$m" "$pfloor"
         ;;
       python)
         if [ -x python/.venv/bin/python ] && [ -f python/bench.py ]; then
