@@ -15,7 +15,8 @@ extracts, when the data are partitioned as the run needs:
   episodes held by other partitions: the test shows such a run giving
   different (wrong) scores for exactly the split patients.
 
-`score_on_spark` below is the Spark example for python/README.md. Spark reorders rows,
+`score_on_spark` below is the example of python/README.md ("Spark"), and
+a test checks that the README shows it as it is here. Spark reorders rows,
 so results are compared by episode id. One session for the module; its
 warehouse, scratch and Java temporary directories are in pytest's tmp
 directory. Skipped, with the reason, when pyspark cannot be imported or no
@@ -24,6 +25,7 @@ Java runtime is found.
 
 from __future__ import annotations
 
+import inspect
 import os
 import shutil
 import sys
@@ -76,7 +78,7 @@ SCORES = ["charlson_quan2011", "charlson_quan2011_age", "elixhauser_vanwalraven2
 LONG_SCORES = ["patient_id", "charlson_quan2011", "elixhauser_vanwalraven2009", "hfrs_gilbert2018", "hfrs_gilbert2018_band"]
 
 
-# The example for python/README.md ("Spark").
+# The example of python/README.md ("Spark").
 def score_on_spark(sdf, **options):
     """`sdf` scored by morbus.score: one call per Arrow batch, or per whole
     partition with a lookback or the long layout, which need all rows of a
@@ -170,6 +172,11 @@ def partition_layout(sdf) -> list:
             )
 
     return sdf.mapInArrow(layout, "partition long, batches long, patients array<string>").collect()
+
+
+def test_readme_shows_this_example():
+    readme = (REPO / "python" / "README.md").read_text(encoding="utf-8")
+    assert inspect.getsource(score_on_spark) in readme, "python/README.md should show score_on_spark as it is here"
 
 
 def test_session_and_workers(spark):
