@@ -266,6 +266,8 @@ struct Units {
     first_rows: Vec<u64>,
     bits: Vec<u64>,
     ages: Vec<Option<u32>>,
+    /// Whether a later row gave another age than the first readable one.
+    disagrees: Vec<bool>,
 }
 
 impl Units {
@@ -287,6 +289,7 @@ impl Units {
         self.first_rows.push(row);
         self.bits.resize(self.bits.len() + words, 0);
         self.ages.push(None);
+        self.disagrees.push(false);
         u
     }
 }
@@ -353,7 +356,8 @@ impl<'e> Scorer<'e> {
     }
 
     /// Long layout: adds the codes (and first readable age) of every row of
-    /// a batch to its unit.
+    /// a batch to its unit; a unit's row with another age is counted in
+    /// [`Summary::disagreeing_units`].
     pub fn long(&mut self, rows: &impl Rows) -> Result<(), Error> {
         let words = self.reader.engine.words();
         for i in 0..rows.len() {
@@ -364,8 +368,26 @@ impl<'e> Scorer<'e> {
             self.reader.dx(rows, i, row, bits)?;
             if self.reader.has_age {
                 let age = self.reader.age(rows, i, row)?;
-                if self.long.ages[u].is_none() {
-                    self.long.ages[u] = age;
+                // The first readable age counts; another one later is
+                // counted (and stops a strict run), as on the command line.
+                match (self.long.ages[u], age) {
+                    (None, a) => self.long.ages[u] = a,
+                    (Some(first), Some(a)) if a != first => {
+                        if self.reader.strict {
+                            return Err(Error::Strict {
+                                line: None,
+                                message: format!(
+                                    "row {row}: a row of a unit gives another age {a} (the \
+                                     unit's first age is {first})"
+                                ),
+                            });
+                        }
+                        if !self.long.disagrees[u] {
+                            self.long.disagrees[u] = true;
+                            self.reader.summary.disagreeing_units += 1;
+                        }
+                    }
+                    _ => {}
                 }
             }
             self.row += 1;
@@ -653,5 +675,35 @@ mod tests {
         assert_eq!(got[3].2, Value::Missing);
         assert_eq!(s.summary().units, 4);
         assert_eq!(s.summary().rows_read, 6);
+        assert_eq!(s.summary().disagreeing_units, 0);
+    }
+
+    #[test]
+    fn long_rows_of_a_unit_with_another_age_are_counted() {
+        let e = engine("charlson:count", true);
+        let h = header(&["pid", "dx", "age"]);
+        let mut cfg = long_cfg("dx", "pid");
+        cfg.age = Some("age".into());
+        let p = plan(&e, &cfg, &h).unwrap();
+        let rows = Frame {
+            dx: vec![vec!["I21"], vec!["I50"], vec!["J44"], vec![""]],
+            ages: vec![
+                Age::Number(70.0),
+                Age::Missing,
+                Age::Number(71.0),
+                Age::Number(72.0),
+            ],
+            ids: vec![Some("a"), Some("a"), Some("a"), Some("b")],
+        };
+        let mut s = Scorer::new(&e, &cfg, &h, &p);
+        s.long(&rows).unwrap();
+        assert_eq!(s.summary().disagreeing_units, 1);
+        cfg.strict = true;
+        let mut s = Scorer::new(&e, &cfg, &h, &p);
+        let err = s.long(&rows).unwrap_err();
+        assert_eq!(
+            err.to_string(),
+            "row 2: a row of a unit gives another age 71 (the unit's first age is 70) (--strict)"
+        );
     }
 }

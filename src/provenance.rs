@@ -14,7 +14,7 @@
 //! | `indices` | every index scored: `spec` (`LIST:WEIGHTING`), `list`, `weighting`, `column` |
 //! | `options` | `layout` (`wide`/`long`), `dx` (names and patterns as given), `dx_columns` (the columns read), `dx_separator`, `delimiter`, `id_column`, `episode_column`, `date_column`, `date_format`, `lookback` (`null`, or `days`: a number, `null` for the whole history), `exclude_primary`, `primary_column`, `poa_column`, `poa_values`, `age_column`, `hierarchy`, `flags`, `strict` |
 //! | `columns` | the output columns added, in order |
-//! | `rows` | `read`, `written`, `units` (episodes in wide, ids in long), `missing_ids` (rows with an empty id field) |
+//! | `rows` | `read`, `written`, `units` (episodes in wide, ids in long), `missing_ids` (rows with an empty id field), `disagreeing_units` (long-layout units whose rows give different dates or ages; the first is used) |
 //! | `codes` | `read` (valid codes), `invalid` (count), `top_invalid` (up to 20 most frequent invalid values with their `count`) |
 //! | `excluded` | codes left out: `primary` (primary diagnosis), `not_on_admission` |
 //! | `ages` | `missing` and `unreadable` age fields; `null` without an age column |
@@ -151,6 +151,8 @@ pub struct Rows {
     pub units: u64,
     /// Rows whose id field was empty (long layout, lookback).
     pub missing_ids: u64,
+    /// Long-layout units whose rows give different dates or ages.
+    pub disagreeing_units: u64,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize)]
@@ -268,6 +270,7 @@ impl Provenance {
                 written: summary.rows_written,
                 units: summary.units,
                 missing_ids: summary.missing_ids,
+                disagreeing_units: summary.disagreeing_units,
             },
             codes: Codes {
                 read: summary.codes_read,

@@ -415,3 +415,104 @@ e,2023-06-01,I85.0,XYZ\n";
     assert_eq!(lines.len(), rows.len());
     assert_eq!(lines[0]["status"], rows[0][9].as_str());
 }
+
+#[test]
+fn long_rows_of_one_episode_that_disagree_on_date_or_age_are_counted() {
+    // Episode e1 of patient p: its second row gives another date, its third
+    // another age; the first readable values count (2024-03-01, age 70), so
+    // e0 of 2023-03-02 (365 days before) is in the window and its heart
+    // failure counts. e2 agrees with itself; e3's first date is missing and
+    // its second row supplies it (no disagreement).
+    let input = "patient,episode,admitted,age,code\n\
+p,e0,2023-03-02,69,I50.9\n\
+p,e1,2024-03-01,70,I21.9\n\
+p,e1,2024-03-09,70,E11.9\n\
+p,e1,2024-03-01,71,\n\
+p,e2,2024-05-01,70,C78.0\n\
+p,e2,2024-05-01,70,\n\
+p,e3,,70,\n\
+p,e3,2024-06-01,70,\n";
+    let args = [
+        "score",
+        "--layout",
+        "long",
+        "--id",
+        "patient",
+        "--episode",
+        "episode",
+        "--date",
+        "admitted",
+        "--age",
+        "age",
+        "--dx",
+        "code",
+        "--lookback",
+        "365",
+        "--index",
+        "charlson:charlson1987",
+    ];
+    let (code, out, err) = morbus(&args, input);
+    assert_eq!(code, 0, "{err}");
+    assert!(
+        err.contains("units whose rows disagree on date or age: 1 (the first value is used)"),
+        "{err}"
+    );
+    // e1: MI 1 + heart failure 1 (e0, in the window) + diabetes 1 = 3.
+    let e1 = out.lines().find(|l| l.starts_with("p,e1,")).unwrap();
+    assert!(e1.starts_with("p,e1,3,"), "{out}");
+
+    // --strict stops at the first disagreeing row, with its line.
+    let mut strict = args.to_vec();
+    strict.push("--strict");
+    let (code, _, err) = morbus(&strict, input);
+    assert_eq!(code, 3, "{err}");
+    assert!(
+        err.contains("line 4: a row of a unit gives another date 2024-03-09 (the unit's first date is 2024-03-01) (--strict)"),
+        "{err}"
+    );
+    // With the date fixed, the age is the first disagreement.
+    let fixed = input.replace("e1,2024-03-09", "e1,2024-03-01");
+    let (code, _, err) = morbus(&strict, &fixed);
+    assert_eq!(code, 3, "{err}");
+    assert!(
+        err.contains("line 5: a row of a unit gives another age 71 (the unit's first age is 70)"),
+        "{err}"
+    );
+}
+
+#[test]
+fn long_rows_of_one_id_that_disagree_on_age_are_counted_without_a_history() {
+    // No --episode, no --lookback: the unit is the id. Unit a's rows give
+    // ages 80 and 81: the first (80) is used, for the Charlson age points
+    // (Charlson et al. 1994 age points, J Clin Epidemiol 1994;47:1245-51,
+    // from memory: one point per decade from 50, so 80 gives 3 like 81).
+    let input = "id,age,code\na,80,I21.9\na,81,I50.9\nb,60,\nb,60,C78.0\n";
+    let args = [
+        "score",
+        "--layout",
+        "long",
+        "--id",
+        "id",
+        "--age",
+        "age",
+        "--dx",
+        "code",
+        "--index",
+        "charlson:charlson1987",
+    ];
+    let (code, out, err) = morbus(&args, input);
+    assert_eq!(code, 0, "{err}");
+    assert!(
+        err.contains("units whose rows disagree on date or age: 1"),
+        "{err}"
+    );
+    assert_eq!(out.lines().count(), 3, "{out}");
+    let mut strict = args.to_vec();
+    strict.push("--strict");
+    let (code, _, err) = morbus(&strict, input);
+    assert_eq!(code, 3, "{err}");
+    assert!(
+        err.contains("line 3: a row of a unit gives another age 81 (the unit's first age is 80)"),
+        "{err}"
+    );
+}

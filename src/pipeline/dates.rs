@@ -131,6 +131,30 @@ fn is_leap(y: i32) -> bool {
     (y % 4 == 0 && y % 100 != 0) || y % 400 == 0
 }
 
+/// Appends the ISO `YYYY-MM-DD` form of a day number (days since
+/// 1970-01-01; H. Hinnant's civil_from_days). Years outside 0..=9999 give
+/// text that [`DateFormat::Iso`] does not read back.
+///
+/// ```
+/// use morbus::pipeline::dates::{days_from_civil, write_iso_date};
+/// let mut out = Vec::new();
+/// write_iso_date(days_from_civil(2024, 2, 29).unwrap() as i64, &mut out);
+/// assert_eq!(out, b"2024-02-29");
+/// ```
+pub fn write_iso_date(days: i64, out: &mut Vec<u8>) {
+    let z = days.saturating_add(719_468);
+    let era = z.div_euclid(146_097);
+    let doe = z - era * 146_097;
+    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
+    let y = yoe.saturating_add(era.saturating_mul(400));
+    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    let mp = (5 * doy + 2) / 153;
+    let d = doy - (153 * mp + 2) / 5 + 1;
+    let m = if mp < 10 { mp + 3 } else { mp - 9 };
+    let y = if m <= 2 { y.saturating_add(1) } else { y };
+    out.extend_from_slice(format!("{y:04}-{m:02}-{d:02}").as_bytes());
+}
+
 /// Days since 1970-01-01 of a proleptic Gregorian date, validated.
 pub fn days_from_civil(y: i32, m: u32, d: u32) -> Option<i32> {
     if !(1..=12).contains(&m) || !(1000..=9999).contains(&y) {
@@ -166,6 +190,39 @@ pub fn days_from_civil(y: i32, m: u32, d: u32) -> Option<i32> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn iso_dates_read_back_to_their_day() {
+        // Every day from 1000-01-01 to 9999-12-31 in steps of 37 days, and
+        // the days around the leap-year rules (1900 no, 2000 yes).
+        let first = days_from_civil(1000, 1, 1).unwrap();
+        let last = days_from_civil(9999, 12, 31).unwrap();
+        let around = [
+            (1900, 2, 28),
+            (1900, 3, 1),
+            (2000, 2, 29),
+            (2000, 3, 1),
+            (1970, 1, 1),
+        ];
+        let days = (first..=last).step_by(37).chain([last]).chain(
+            around
+                .iter()
+                .map(|&(y, m, d)| days_from_civil(y, m, d).unwrap()),
+        );
+        for day in days {
+            let mut out = Vec::new();
+            write_iso_date(day as i64, &mut out);
+            assert_eq!(
+                DateFormat::Iso.parse(&out),
+                Some(day),
+                "{}",
+                String::from_utf8_lossy(&out)
+            );
+        }
+        let mut out = Vec::new();
+        write_iso_date(days_from_civil(1900, 3, 1).unwrap() as i64 - 1, &mut out);
+        assert_eq!(out, b"1900-02-28");
+    }
 
     #[test]
     fn iso_dates() {

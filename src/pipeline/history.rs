@@ -14,6 +14,7 @@ use std::collections::HashMap;
 use std::hash::BuildHasherDefault;
 use std::io::{Read, Write};
 
+use super::dates;
 use super::parallel::run_blocks;
 use super::{check_collisions, Exclusion, Layout, Plan, RowIssue, ScoreConfig, Summary};
 use crate::code::Code;
@@ -34,6 +35,8 @@ pub struct Episode {
     /// Data row number (1-based) of the episode's first record.
     pub row: u64,
     date_unreadable: bool,
+    /// A later row of the episode gave another date or age (long layout).
+    disagrees: bool,
 }
 
 /// One code of an episode (kept for `explain`).
@@ -90,6 +93,8 @@ struct RowRead {
     ekey: (usize, usize),
     date: DateRead,
     age: Option<u32>,
+    /// Line of the record (long layout only, for messages; else 0).
+    line: u64,
 }
 
 /// A block's rows, read on a worker thread.
@@ -208,12 +213,17 @@ fn read_block(
             b.raw.extend_from_slice(rec.raw);
             b.raw_ends.push(b.raw.len());
         }
+        let line = match cfg.layout {
+            Layout::Long => line(),
+            Layout::Wide => 0,
+        };
         b.rows.push(RowRead {
             no_id,
             pid,
             ekey,
             date,
             age,
+            line,
         });
         Ok(())
     });
@@ -290,6 +300,7 @@ impl History {
                                 age: None,
                                 row: rows_seen,
                                 date_unreadable: false,
+                                disagrees: false,
                             });
                             own_all.resize(own_all.len() + words, 0);
                             if exclusions {
@@ -322,15 +333,43 @@ impl History {
                     };
                     block_episode.push(e);
                     let ep = &mut episodes[e as usize];
-                    if ep.date.is_none() {
-                        match r.date {
-                            DateRead::Day(d) => ep.date = Some(d),
-                            DateRead::Unreadable => ep.date_unreadable = true,
-                            DateRead::Missing => {}
+                    // The first readable date and age of an episode's rows
+                    // count; a later row giving another one is counted (and
+                    // stops a --strict run).
+                    let mut other = None;
+                    match (ep.date, r.date) {
+                        (None, DateRead::Day(d)) => ep.date = Some(d),
+                        (None, DateRead::Unreadable) => ep.date_unreadable = true,
+                        (Some(first), DateRead::Day(d)) if d != first => {
+                            let (mut a, mut b) = (Vec::new(), Vec::new());
+                            dates::write_iso_date(first as i64, &mut a);
+                            dates::write_iso_date(d as i64, &mut b);
+                            other = Some(format!(
+                                "date {} (the unit's first date is {})",
+                                String::from_utf8_lossy(&b),
+                                String::from_utf8_lossy(&a)
+                            ));
                         }
+                        _ => {}
                     }
-                    if ep.age.is_none() {
-                        ep.age = r.age;
+                    match (ep.age, r.age) {
+                        (None, a) => ep.age = a,
+                        (Some(first), Some(a)) if a != first && other.is_none() => {
+                            other = Some(format!("age {a} (the unit's first age is {first})"));
+                        }
+                        _ => {}
+                    }
+                    if let Some(what) = other {
+                        if cfg.strict {
+                            return Err(Error::Strict {
+                                line: Some(r.line),
+                                message: format!("a row of a unit gives another {what}"),
+                            });
+                        }
+                        if !ep.disagrees {
+                            ep.disagrees = true;
+                            summary.disagreeing_units += 1;
+                        }
                     }
                     let (dst, src) = (e as usize * words, i * words);
                     for k in 0..words {

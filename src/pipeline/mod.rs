@@ -147,6 +147,10 @@ pub struct Summary {
     /// id (so all empty ones form one unit); with a lookback each is scored
     /// from its own codes alone.
     pub missing_ids: u64,
+    /// Long-layout units (episodes, or ids without `--episode`) with a row
+    /// whose date or age differs from the unit's first readable one (which
+    /// is used).
+    pub disagreeing_units: u64,
     /// Codes of episodes being scored left out as their primary diagnosis.
     pub excluded_primary: u64,
     /// Codes of episodes being scored left out as not present on admission.
@@ -220,6 +224,7 @@ impl Summary {
         self.excluded_primary += later.excluded_primary;
         self.excluded_not_on_admission += later.excluded_not_on_admission;
         self.missing_ids += later.missing_ids;
+        self.disagreeing_units += later.disagreeing_units;
         if self.dx_columns.is_empty() {
             self.dx_columns = later.dx_columns;
         }
@@ -290,6 +295,12 @@ impl Summary {
             s.push_str(&format!(
                 "; dates missing: {}, unreadable: {} (those episodes scored from their own codes alone)",
                 self.missing_dates, self.unreadable_dates
+            ));
+        }
+        if self.disagreeing_units > 0 {
+            s.push_str(&format!(
+                "; units whose rows disagree on date or age: {} (the first value is used)",
+                self.disagreeing_units
             ));
         }
         if self.missing_ids > 0 {
@@ -870,6 +881,7 @@ mod summary_tests {
             excluded_primary: 10,
             excluded_not_on_admission: 11,
             missing_ids: 12,
+            disagreeing_units: 13,
             invalid_values: [(b"N/A".to_vec(), 4)].into_iter().collect(),
             dx_columns: vec!["dx1".into()],
         };
@@ -888,6 +900,7 @@ mod summary_tests {
         doubled.excluded_primary *= 2;
         doubled.excluded_not_on_admission *= 2;
         doubled.missing_ids *= 2;
+        doubled.disagreeing_units *= 2;
         doubled.invalid_values.insert(b"N/A".to_vec(), 8);
         assert_eq!(total, doubled);
     }

@@ -77,8 +77,23 @@ fn score_long(
             let age = p
                 .read_age(cfg, &rec.fields, &mut summary)
                 .map_err(|i| p.issue(i, &block, &rec))?;
-            if long.ages[u].is_none() {
-                long.ages[u] = age;
+            match (long.ages[u], age) {
+                (None, a) => long.ages[u] = a,
+                (Some(first), Some(a)) if a != first => {
+                    if cfg.strict {
+                        return Err(Error::Strict {
+                            line: Some(super::line_of(&block, rec.offset)),
+                            message: format!(
+                                "a row of a unit gives another age {a} (the unit's first age is {first})"
+                            ),
+                        });
+                    }
+                    if !long.disagrees[u] {
+                        long.disagrees[u] = true;
+                        summary.disagreeing_units += 1;
+                    }
+                }
+                _ => {}
             }
             let bits = &mut long.bits[u * words..(u + 1) * words];
             let mut excluded = (0u64, 0u64);
@@ -127,6 +142,8 @@ pub(super) struct LongUnits {
     pub ids: Vec<Box<[u8]>>,
     pub bits: Vec<u64>,
     pub ages: Vec<Option<u32>>,
+    /// Whether a later row gave another age than the first readable one.
+    pub disagrees: Vec<bool>,
 }
 
 impl LongUnits {
@@ -140,6 +157,7 @@ impl LongUnits {
         self.ids.push(key);
         self.bits.resize(self.bits.len() + words, 0);
         self.ages.push(None);
+        self.disagrees.push(false);
         u
     }
 }
