@@ -30,6 +30,7 @@ use pyo3::exceptions::{PyKeyError, PyValueError};
 use pyo3::prelude::*;
 
 use morbus::io::{write_field, RecordScanner};
+use morbus::pipeline::dates::write_iso_date;
 use morbus::pipeline::explain::ExplainFormat;
 use morbus::pipeline::history::History;
 use morbus::pipeline::{DateFormat, Header, Layout, ScoreConfig, Summary};
@@ -37,7 +38,9 @@ use morbus::provenance::Provenance;
 use morbus::score::{Engine, IndexSpec, ScoreOptions, Value, DEFAULT_INDICES};
 use morbus::Error;
 
-use crate::{builtin_lists, import_stream, numbers, type_name, ArrowStream, Output, PyLists, Text};
+use crate::{
+    builtin_lists, import_stream, ints, numbers, type_name, ArrowStream, Output, PyLists, Text,
+};
 
 /// A column of the frame as the text fields it is written as.
 enum Col<'a> {
@@ -59,29 +62,6 @@ enum Role {
     Id,
     Date,
     Flag,
-}
-
-fn ints(array: &dyn Array) -> Option<Vec<Option<i128>>> {
-    macro_rules! prim {
-        ($t:ty) => {
-            array
-                .as_primitive::<$t>()
-                .iter()
-                .map(|v| v.map(|x| x as i128))
-                .collect()
-        };
-    }
-    Some(match array.data_type() {
-        DataType::Int8 => prim!(Int8Type),
-        DataType::Int16 => prim!(Int16Type),
-        DataType::Int32 => prim!(Int32Type),
-        DataType::Int64 => prim!(Int64Type),
-        DataType::UInt8 => prim!(UInt8Type),
-        DataType::UInt16 => prim!(UInt16Type),
-        DataType::UInt32 => prim!(UInt32Type),
-        DataType::UInt64 => prim!(UInt64Type),
-        _ => return None,
-    })
 }
 
 /// Days since 1970-01-01 of a date or time-zone-free timestamp column.
@@ -106,22 +86,6 @@ fn days(array: &dyn Array) -> Option<Vec<Option<i64>>> {
         },
         _ => return None,
     })
-}
-
-/// ISO `YYYY-MM-DD` of a day number (H. Hinnant's civil_from_days); years
-/// outside 0..=9999 give text the date reader reports as unreadable.
-fn iso(z: i64, out: &mut Vec<u8>) {
-    let z = z.saturating_add(719_468);
-    let era = z.div_euclid(146_097);
-    let doe = z - era * 146_097;
-    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
-    let y = yoe.saturating_add(era.saturating_mul(400));
-    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
-    let mp = (5 * doy + 2) / 153;
-    let d = doy - (153 * mp + 2) / 5 + 1;
-    let m = if mp < 10 { mp + 3 } else { mp - 9 };
-    let y = if m <= 2 { y.saturating_add(1) } else { y };
-    out.extend_from_slice(format!("{y:04}-{m:02}-{d:02}").as_bytes());
 }
 
 impl Col<'_> {
@@ -156,7 +120,7 @@ impl Col<'_> {
             }
             Col::Days(v) => {
                 if let Some(d) = v[row] {
-                    iso(d, out)
+                    write_iso_date(d, out)
                 }
             }
         }

@@ -365,14 +365,15 @@ impl<'a> Text<'a> {
     }
 }
 
-/// Numbers of a numeric column as `f64` (`None`: null).
-fn numbers(array: &dyn Array) -> Option<Vec<Option<f64>>> {
+/// Whole numbers of an integer column (`None`: null; no value for other
+/// types).
+fn ints(array: &dyn Array) -> Option<Vec<Option<i128>>> {
     macro_rules! prim {
         ($t:ty) => {
             array
                 .as_primitive::<$t>()
                 .iter()
-                .map(|v| v.map(|x| x as f64))
+                .map(|v| v.map(|x| x as i128))
                 .collect()
         };
     }
@@ -385,33 +386,31 @@ fn numbers(array: &dyn Array) -> Option<Vec<Option<f64>>> {
         DataType::UInt16 => prim!(UInt16Type),
         DataType::UInt32 => prim!(UInt32Type),
         DataType::UInt64 => prim!(UInt64Type),
-        DataType::Float32 => prim!(Float32Type),
-        DataType::Float64 => prim!(Float64Type),
         _ => return None,
     })
 }
 
+/// Numbers of a numeric column as `f64` (`None`: null).
+fn numbers(array: &dyn Array) -> Option<Vec<Option<f64>>> {
+    match array.data_type() {
+        DataType::Float32 => Some(
+            array
+                .as_primitive::<Float32Type>()
+                .iter()
+                .map(|v| v.map(f64::from))
+                .collect(),
+        ),
+        DataType::Float64 => Some(array.as_primitive::<Float64Type>().iter().collect()),
+        _ => ints(array).map(|v| v.into_iter().map(|x| x.map(|x| x as f64)).collect()),
+    }
+}
+
 /// Whole numbers of an integer column as id keys (`None`: null).
 fn integer_keys(array: &dyn Array) -> Option<Vec<Option<[u8; 8]>>> {
-    macro_rules! prim {
-        ($t:ty) => {
-            array
-                .as_primitive::<$t>()
-                .iter()
-                .map(|v| v.map(|x| (x as i64).to_le_bytes()))
-                .collect()
-        };
-    }
-    Some(match array.data_type() {
-        DataType::Int8 => prim!(Int8Type),
-        DataType::Int16 => prim!(Int16Type),
-        DataType::Int32 => prim!(Int32Type),
-        DataType::Int64 => prim!(Int64Type),
-        DataType::UInt8 => prim!(UInt8Type),
-        DataType::UInt16 => prim!(UInt16Type),
-        DataType::UInt32 => prim!(UInt32Type),
-        DataType::UInt64 => prim!(UInt64Type),
-        _ => return None,
+    ints(array).map(|v| {
+        v.into_iter()
+            .map(|x| x.map(|x| (x as i64).to_le_bytes()))
+            .collect()
     })
 }
 
