@@ -584,6 +584,7 @@ fn open_extract(
     #[cfg(feature = "parquet")]
     if let Some(source) = input.parquet {
         use morbus::io::parquet;
+        parquet::quiet_decoder_panics();
         let columns = if only_read {
             parquet::read_columns(&source.column_names()?, cfg, extra)
         } else {

@@ -73,6 +73,41 @@ const BATCH_ROWS: usize = 8192;
 /// Rows buffered by the sink before they are written (one row group each).
 const GROUP_ROWS: usize = 131_072;
 
+thread_local! {
+    /// Whether this thread is decoding Parquet (see [`quiet_decoder_panics`]).
+    static DECODING: std::cell::Cell<bool> = const { std::cell::Cell::new(false) };
+}
+
+/// Runs a call into the Parquet decoder, turning a panic (the decoder
+/// panics on some damaged files) into its message.
+fn guarded<T>(f: impl FnOnce() -> T) -> Result<T, String> {
+    let was = DECODING.with(|d| d.replace(true));
+    let r = std::panic::catch_unwind(std::panic::AssertUnwindSafe(f));
+    DECODING.with(|d| d.set(was));
+    r.map_err(|p| {
+        p.downcast_ref::<String>()
+            .cloned()
+            .or_else(|| p.downcast_ref::<&str>().map(|s| s.to_string()))
+            .unwrap_or_else(|| "the decoder stopped".into())
+    })
+}
+
+/// Keeps the panic messages of the Parquet decoder (caught and reported as
+/// a damaged file) off standard error, leaving every other panic's message
+/// as it was. For programs, such as the command line; a library leaves the
+/// panic hook alone.
+pub fn quiet_decoder_panics() {
+    static ONCE: std::sync::Once = std::sync::Once::new();
+    ONCE.call_once(|| {
+        let previous = std::panic::take_hook();
+        std::panic::set_hook(Box::new(move |info| {
+            if !DECODING.with(|d| d.get()) {
+                previous(info)
+            }
+        }));
+    });
+}
+
 /// Where a Parquet input comes from: a file, or the bytes of standard input
 /// (Parquet keeps its index at the end, so a stream is read whole first).
 #[derive(Clone)]
@@ -91,7 +126,24 @@ impl Source {
             }
             Source::Memory(b) => Box::new(MemoryChunks(b.clone())),
         };
-        ParquetRecordBatchReaderBuilder::try_new(inner).map_err(|e| self.error(e))
+        guarded(|| ParquetRecordBatchReaderBuilder::try_new(inner))
+            .map_err(|m| self.damaged(&m))?
+            .map_err(|e| self.error(e))
+    }
+
+    fn damaged(&self, what: &str) -> Error {
+        self.error(format!("the file is damaged ({what})"))
+    }
+
+    /// The next batch of a reader of this source.
+    fn next_batch(
+        &self,
+        reader: &mut ParquetRecordBatchReader,
+    ) -> Result<Option<RecordBatch>, Error> {
+        match guarded(|| reader.next()).map_err(|m| self.damaged(&m))? {
+            None => Ok(None),
+            Some(b) => b.map(Some).map_err(|e| self.error(e)),
+        }
     }
 
     fn name(&self) -> String {
@@ -279,9 +331,8 @@ impl ParquetText {
 
     /// Writes the next batch as text; false at the end of the file.
     fn refill(&mut self) -> Result<bool, Error> {
-        let batch = match self.batches.next() {
-            None => return Ok(false),
-            Some(b) => b.map_err(|e| self.source.error(e))?,
+        let Some(batch) = self.source.next_batch(&mut self.batches)? else {
+            return Ok(false);
         };
         self.buf.clear();
         self.pos = 0;
@@ -600,9 +651,8 @@ impl PassthroughRows {
     /// The next `n` rows of the input.
     fn take(&mut self, n: usize) -> Result<RecordBatch, Error> {
         while self.queued < n {
-            match self.reader.next() {
+            match self.source.next_batch(&mut self.reader)? {
                 Some(b) => {
-                    let b = b.map_err(|e| self.source.error(e))?;
                     self.queued += b.num_rows();
                     self.queue.push_back(b);
                 }
@@ -639,7 +689,7 @@ impl PassthroughRows {
         if self.queue.iter().any(|b| b.num_rows() > 0) {
             return false;
         }
-        self.queued == 0 && self.reader.next().is_none()
+        self.queued == 0 && matches!(self.source.next_batch(&mut self.reader), Ok(None))
     }
 }
 
