@@ -39,14 +39,21 @@ fn rewrite_csv(input: File, output: &str) -> Result<u64> {
     Ok(n)
 }
 
-fn rewrite_parquet(input: File, output: &str) -> Result<u64> {
-    let builder = ParquetRecordBatchReaderBuilder::try_new(input)?.with_batch_size(8192);
-    let schema = builder.schema().clone();
-    let mut writer = ArrowWriter::try_new(
+/// A Parquet writer with the settings morbus writes with.
+fn parquet_writer(
+    output: &str,
+    schema: arrow_schema::SchemaRef,
+) -> Result<ArrowWriter<BufWriter<File>>> {
+    Ok(ArrowWriter::try_new(
         BufWriter::with_capacity(1 << 17, File::create(output)?),
         schema,
         Some(morbus::io::parquet::writer_properties()),
-    )?;
+    )?)
+}
+
+fn rewrite_parquet(input: File, output: &str) -> Result<u64> {
+    let builder = ParquetRecordBatchReaderBuilder::try_new(input)?.with_batch_size(8192);
+    let mut writer = parquet_writer(output, builder.schema().clone())?;
     let mut n = 0u64;
     for batch in builder.build()? {
         let batch = batch?;
@@ -67,11 +74,7 @@ fn typed_parquet(input: &str, output: &str) -> Result<u64> {
         .with_format(format)
         .with_batch_size(65_536)
         .build(BufReader::new(f))?;
-    let mut writer = ArrowWriter::try_new(
-        BufWriter::with_capacity(1 << 17, File::create(output)?),
-        schema,
-        Some(morbus::io::parquet::writer_properties()),
-    )?;
+    let mut writer = parquet_writer(output, schema)?;
     let mut n = 0u64;
     for batch in reader {
         let batch = batch?;

@@ -801,37 +801,12 @@ impl ParquetSink {
                         b.append_value(text(name)?)
                     }
                 }
-                Builder::Int64(name, b) => match v {
-                    b"" => b.append_null(),
-                    _ => b.append_value(
-                        std::str::from_utf8(v)
-                            .ok()
-                            .and_then(|s| s.parse().ok())
-                            .ok_or_else(|| number(name))?,
-                    ),
-                },
-                Builder::Float64(name, b) => match v {
-                    b"" => b.append_null(),
-                    _ => b.append_value(
-                        std::str::from_utf8(v)
-                            .ok()
-                            .and_then(|s| s.parse().ok())
-                            .ok_or_else(|| number(name))?,
-                    ),
-                },
-                Builder::Int8(name, b) => match v {
-                    b"" => b.append_null(),
-                    _ => b.append_value(
-                        std::str::from_utf8(v)
-                            .ok()
-                            .and_then(|s| s.parse().ok())
-                            .ok_or_else(|| number(name))?,
-                    ),
-                },
-                Builder::Date(name, b) => match v {
-                    b"" => b.append_null(),
-                    _ => b.append_value(DateFormat::Iso.parse(v).ok_or_else(|| number(name))?),
-                },
+                Builder::Int64(name, b) => b.append_option(typed(v, parse, || number(name))?),
+                Builder::Float64(name, b) => b.append_option(typed(v, parse, || number(name))?),
+                Builder::Int8(name, b) => b.append_option(typed(v, parse, || number(name))?),
+                Builder::Date(name, b) => {
+                    b.append_option(typed(v, |v| DateFormat::Iso.parse(v), || number(name))?)
+                }
             }
         }
         self.rows += 1;
@@ -934,6 +909,23 @@ impl ParquetSink {
         let mut b = self.background.take().expect("a writer thread");
         b.join()
     }
+}
+
+/// A field of a typed column: `None` when empty, else its value as read by
+/// `read`, or the error `bad` when it does not read.
+fn typed<T>(
+    v: &[u8],
+    read: impl Fn(&[u8]) -> Option<T>,
+    bad: impl FnOnce() -> Error,
+) -> Result<Option<T>, Error> {
+    if v.is_empty() {
+        return Ok(None);
+    }
+    read(v).map(Some).ok_or_else(bad)
+}
+
+fn parse<T: std::str::FromStr>(v: &[u8]) -> Option<T> {
+    std::str::from_utf8(v).ok()?.parse().ok()
 }
 
 /// How morbus writes Parquet: zstd (level 1) compression, row groups of
