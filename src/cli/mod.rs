@@ -444,7 +444,7 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         let mut input = open_extract(&a.input, &cfg, only_read, &[])?;
         let mut output = open_scores_output(&a, &engine, &cfg, &input, parquet_out)?;
         let show = !a.input.quiet && std::io::stderr().is_terminal();
-        let mut bar = progress::ProgressLine::new(input.size);
+        let mut bar = progress::ProgressLine::new(input.size).with_rows(input.rows);
         let result = pipeline::score_stream_observed(
             &engine,
             &cfg,
@@ -546,6 +546,8 @@ struct Extract {
     reader: Box<dyn std::io::Read + Send>,
     /// Size of the text in bytes, when known (for the progress line).
     size: Option<u64>,
+    /// Rows of the input, when known (a Parquet input's footer says).
+    rows: Option<u64>,
     #[cfg(feature = "parquet")]
     parquet: Option<(
         morbus::io::parquet::Source,
@@ -593,9 +595,11 @@ fn open_extract(
         let text =
             parquet::ParquetText::from_source(source.clone(), cfg.delimiter, columns.as_deref())?;
         let lines = text.row_lines();
+        let rows = Some(text.total_rows);
         return Ok(Extract {
             reader: Box::new(text),
             size: None,
+            rows,
             parquet: Some((source, lines)),
             name: input.name,
         });
@@ -604,6 +608,7 @@ fn open_extract(
     Ok(Extract {
         reader: input.reader,
         size: if input.compressed { None } else { input.size },
+        rows: None,
         #[cfg(feature = "parquet")]
         parquet: None,
         name: input.name,

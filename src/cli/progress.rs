@@ -1,5 +1,7 @@
 //! A one-line progress display on standard error (only when it is a
-//! terminal): rows read, rows per second, bytes read of the total.
+//! terminal): rows read (of the total, for a Parquet input, whose footer
+//! says), rows per second, and for text inputs bytes read (of the total,
+//! for a plain file).
 
 use std::io::Write;
 use std::time::{Duration, Instant};
@@ -8,6 +10,7 @@ use morbus::pipeline::Progress;
 
 pub struct ProgressLine {
     total: Option<u64>,
+    total_rows: Option<u64>,
     started: Instant,
     last: Instant,
     shown: bool,
@@ -22,10 +25,17 @@ impl ProgressLine {
         let now = Instant::now();
         ProgressLine {
             total,
+            total_rows: None,
             started: now,
             last: now,
             shown: false,
         }
+    }
+
+    /// Shows the rows read out of `rows` (known up front for Parquet).
+    pub fn with_rows(mut self, rows: Option<u64>) -> Self {
+        self.total_rows = rows;
+        self
     }
 
     pub fn update(&mut self, p: Progress) {
@@ -45,12 +55,22 @@ impl ProgressLine {
             ),
             _ => megabytes(p.bytes_read),
         };
+        let rows = match self.total_rows {
+            Some(t) if t > 0 => format!(
+                "{} of {t} rows ({:.0}%)",
+                p.rows,
+                100.0 * p.rows as f64 / t as f64
+            ),
+            _ => format!("{} rows", p.rows),
+        };
         let mut err = std::io::stderr().lock();
-        let _ = write!(
-            err,
-            "\r\x1b[2Kmorbus: {} rows, {:.0} rows/s, {bytes}",
-            p.rows, rate
-        );
+        let _ = if self.total_rows.is_some() {
+            // A Parquet input: the bytes are those of its text form, which
+            // say nothing to the user.
+            write!(err, "\r\x1b[2Kmorbus: {rows}, {rate:.0} rows/s")
+        } else {
+            write!(err, "\r\x1b[2Kmorbus: {rows}, {rate:.0} rows/s, {bytes}")
+        };
         let _ = err.flush();
         self.shown = true;
     }
