@@ -751,39 +751,45 @@ fn a_score_column_already_in_a_parquet_input_is_refused() {
     }
 }
 
-/// `tests/data/damaged-page.parquet`: a small file of invented columns (an
-/// integer id, dictionary-encoded patient ids, dates, ages, a list, two
-/// diagnosis columns) with a few bytes of a data page overwritten, found by
-/// mutating valid files. Its footer reads; decoding a page makes the
-/// Parquet decoder panic, which must come out as a plain error.
+/// Damaged files must come out as a plain error (exit 1), never a panic:
+/// - `tests/data/damaged-page.parquet`: a small file of invented columns (an
+///   integer id, dictionary-encoded patient ids, dates, ages, a list, two
+///   diagnosis columns) with a few bytes of a data page overwritten, found
+///   by mutating valid files; its footer reads, decoding a page made the
+///   decoder panic;
+/// - `tests/data/damaged-row-counts.parquet`: found by the fuzz target
+///   `parquet_input`; its row groups' row counts overflow when the reader
+///   adds them up (a panic in the reader's set-up).
 #[test]
-fn a_damaged_page_is_an_error_not_a_panic() {
+fn a_damaged_file_is_an_error_not_a_panic() {
     let dir = TempDir::new("parquet-damaged");
-    let damaged = root().join("tests/data/damaged-page.parquet");
-    let out = dir.path().join("out.parquet");
-    for args in [
-        vec!["score", s(&damaged), "--dx", "dx*"],
-        vec!["score", s(&damaged), "--dx", "dx*", "-o", s(&out)],
-        vec![
-            "explain",
-            s(&damaged),
-            "--dx",
-            "dx*",
-            "--id",
-            "pid",
-            "--date",
-            "date",
-            "--lookback",
-            "all",
-        ],
-    ] {
-        let r = morbus(&args);
-        assert_eq!(r.code, 1, "{args:?}: {}", r.stderr);
-        assert!(
-            r.stderr.contains("as Parquet: the file is damaged"),
-            "{args:?}: {}",
-            r.stderr
-        );
-        assert!(!r.stderr.contains("panicked"), "{args:?}: {}", r.stderr);
+    for name in ["damaged-page.parquet", "damaged-row-counts.parquet"] {
+        let damaged = root().join("tests/data").join(name);
+        let out = dir.path().join("out.parquet");
+        for args in [
+            vec!["score", s(&damaged), "--dx", "dx*"],
+            vec!["score", s(&damaged), "--dx", "dx*", "-o", s(&out)],
+            vec![
+                "explain",
+                s(&damaged),
+                "--dx",
+                "dx*",
+                "--id",
+                "pid",
+                "--date",
+                "date",
+                "--lookback",
+                "all",
+            ],
+        ] {
+            let r = morbus(&args);
+            assert_eq!(r.code, 1, "{args:?}: {}", r.stderr);
+            assert!(
+                r.stderr.contains("as Parquet: the file is damaged"),
+                "{args:?}: {}",
+                r.stderr
+            );
+            assert!(!r.stderr.contains("panicked"), "{args:?}: {}", r.stderr);
+        }
     }
 }

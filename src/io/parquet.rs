@@ -135,6 +135,16 @@ impl Source {
         self.error(format!("the file is damaged ({what})"))
     }
 
+    /// A reader of this source from its builder.
+    fn build(
+        &self,
+        builder: ParquetRecordBatchReaderBuilder<Box<dyn ChunkSource>>,
+    ) -> Result<ParquetRecordBatchReader, Error> {
+        guarded(|| builder.build())
+            .map_err(|m| self.damaged(&m))?
+            .map_err(|e| self.error(e))
+    }
+
     /// The next batch of a reader of this source.
     fn next_batch(
         &self,
@@ -309,7 +319,7 @@ impl ParquetText {
             write_field(f.name().as_bytes(), delimiter, &mut header);
         }
         header.push(b'\n');
-        let batches = builder.build().map_err(|e| source.error(e))?;
+        let batches = source.build(builder)?;
         Ok(ParquetText {
             batches,
             source,
@@ -380,7 +390,10 @@ impl ParquetText {
 impl Read for ParquetText {
     fn read(&mut self, out: &mut [u8]) -> io::Result<usize> {
         while self.pos == self.buf.len() {
-            match self.refill() {
+            // The decoder's arrays of a damaged file may also upset their
+            // formatting: the whole step is guarded.
+            let step = guarded(|| self.refill()).unwrap_or_else(|m| Err(self.source.damaged(&m)));
+            match step {
                 Ok(true) => {}
                 Ok(false) => return Ok(0),
                 Err(e) => return Err(io::Error::other(e.to_string())),
@@ -638,7 +651,7 @@ impl PassthroughRows {
     fn open(source: Source) -> Result<Self, Error> {
         let builder = source.builder()?.with_batch_size(BATCH_ROWS);
         let schema = builder.schema().clone();
-        let reader = builder.build().map_err(|e| source.error(e))?;
+        let reader = source.build(builder)?;
         Ok(PassthroughRows {
             source,
             reader,
