@@ -6,6 +6,7 @@ use std::path::PathBuf;
 
 use clap::{Args, Parser, Subcommand, ValueEnum};
 
+use morbus::io::{Extract, Table};
 use morbus::lists::{self, Catalogue, Loaded};
 use morbus::pipeline::explain::ExplainFormat;
 use morbus::pipeline::{self, DateFormat, Layout, ScoreConfig};
@@ -442,7 +443,13 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         // either way the pipeline needs only the columns it reads.
         let only_read = parquet_out || cfg.layout == Layout::Long;
         let mut input = open_extract(&a.input, &cfg, only_read, &[])?;
-        let mut output = open_scores_output(&a, &engine, &cfg, &input, parquet_out)?;
+        let mut output = input.open_output(
+            a.output.as_deref(),
+            parquet_out,
+            Table::Scores,
+            &engine,
+            &cfg,
+        )?;
         let show = !a.input.quiet && std::io::stderr().is_terminal();
         let mut bar = progress::ProgressLine::new(input.size).with_rows(input.rows);
         let result = pipeline::score_stream_observed(
@@ -501,17 +508,13 @@ fn explain(a: ExplainArgs) -> Result<(), Error> {
     }
     // explain keeps only the id and episode columns.
     let mut input = open_extract(&a.input, &cfg, true, &[])?;
-    let mut output = if parquet_out {
-        open_parquet(
-            a.output.as_deref(),
-            &cfg,
-            |source| explain_columns(&engine, source),
-            &input,
-            false,
-        )?
-    } else {
-        morbus::io::open_output(a.output.as_deref())?
-    };
+    let mut output = input.open_output(
+        a.output.as_deref(),
+        parquet_out,
+        Table::Explain,
+        &engine,
+        &cfg,
+    )?;
     let format = if a.json {
         ExplainFormat::JsonLines
     } else {
@@ -532,170 +535,25 @@ fn explain(a: ExplainArgs) -> Result<(), Error> {
     Ok(())
 }
 
-/// Whether the output is Parquet: as asked, or by the output's name.
-fn wants_parquet(format: Option<FormatArg>, path: Option<&std::path::Path>) -> bool {
-    match format {
-        Some(f) => f == FormatArg::Parquet,
-        None => path.is_some_and(morbus::io::is_parquet_path),
-    }
-}
-
-/// An extract opened for a run: delimited text for the pipeline, from a
-/// text file or a Parquet file.
-struct Extract {
-    reader: Box<dyn std::io::Read + Send>,
-    /// Size of the text in bytes, when known (for the progress line).
-    size: Option<u64>,
-    /// Rows of the input, when known (a Parquet input's footer says).
-    rows: Option<u64>,
-    #[cfg(feature = "parquet")]
-    parquet: Option<(
-        morbus::io::parquet::Source,
-        std::sync::Arc<std::sync::Mutex<morbus::io::parquet::RowLines>>,
-    )>,
-    /// The input as named in messages.
-    #[cfg_attr(not(feature = "parquet"), allow(dead_code))]
-    name: String,
-}
-
-impl Extract {
-    /// The text for the pipeline (once).
-    fn take_reader(&mut self) -> Box<dyn std::io::Read + Send> {
-        std::mem::replace(&mut self.reader, Box::new(std::io::empty()))
-    }
-
-    /// An error of the run, with rows instead of lines for a Parquet input.
-    fn translate(&self, e: Error) -> Error {
-        #[cfg(feature = "parquet")]
-        if let Some((_, lines)) = &self.parquet {
-            return lines.lock().expect("row map lock").translate(e, &self.name);
-        }
-        e
-    }
-}
-
-/// Opens the input of a run. For a Parquet input with `only_read`, only
-/// the columns the run reads (and `extra`) become text.
+/// Opens the input of a run (see [`Extract::open`]); the command line keeps
+/// the Parquet decoder's caught panics off standard error.
 fn open_extract(
     a: &InputArgs,
     cfg: &ScoreConfig,
     only_read: bool,
     extra: &[String],
 ) -> Result<Extract, Error> {
-    let input = morbus::io::open_input(a.input.as_deref())?;
     #[cfg(feature = "parquet")]
-    if let Some(source) = input.parquet {
-        use morbus::io::parquet;
-        parquet::quiet_decoder_panics();
-        let columns = if only_read {
-            parquet::read_columns(&source.column_names()?, cfg, extra)
-        } else {
-            None
-        };
-        let text =
-            parquet::ParquetText::from_source(source.clone(), cfg.delimiter, columns.as_deref())?;
-        let lines = text.row_lines();
-        let rows = Some(text.total_rows);
-        return Ok(Extract {
-            reader: Box::new(text),
-            size: None,
-            rows,
-            parquet: Some((source, lines)),
-            name: input.name,
-        });
+    morbus::io::parquet::quiet_decoder_panics();
+    Extract::open(a.input.as_deref(), cfg, only_read, extra)
+}
+
+/// Whether the output is Parquet: as asked, or by the output's name.
+fn wants_parquet(format: Option<FormatArg>, path: Option<&std::path::Path>) -> bool {
+    match format {
+        Some(f) => f == FormatArg::Parquet,
+        None => path.is_some_and(morbus::io::is_parquet_path),
     }
-    let _ = (cfg, only_read, extra);
-    Ok(Extract {
-        reader: input.reader,
-        size: if input.compressed { None } else { input.size },
-        rows: None,
-        #[cfg(feature = "parquet")]
-        parquet: None,
-        name: input.name,
-    })
-}
-
-fn open_scores_output(
-    a: &ScoreArgs,
-    engine: &Engine,
-    cfg: &ScoreConfig,
-    input: &Extract,
-    parquet_out: bool,
-) -> Result<morbus::io::Output, Error> {
-    if !parquet_out {
-        return morbus::io::open_output(a.output.as_deref());
-    }
-    open_parquet(
-        a.output.as_deref(),
-        cfg,
-        |source| score_columns(engine, source, cfg.layout == Layout::Wide),
-        input,
-        cfg.layout == Layout::Wide,
-    )
-}
-
-#[cfg(feature = "parquet")]
-type Source = morbus::io::parquet::Source;
-#[cfg(not(feature = "parquet"))]
-type Source = ();
-
-/// A Parquet output; with `rows_are_input_rows` (the wide layout) a Parquet
-/// input's columns are copied from it.
-#[cfg(feature = "parquet")]
-fn open_parquet(
-    path: Option<&std::path::Path>,
-    cfg: &ScoreConfig,
-    columns: impl FnOnce(Option<&Source>) -> Result<morbus::io::parquet::OutputColumns, Error>,
-    input: &Extract,
-    rows_are_input_rows: bool,
-) -> Result<morbus::io::Output, Error> {
-    let source = input.parquet.as_ref().map(|(s, _)| s);
-    let columns = columns(source)?;
-    let passthrough = source.filter(|_| rows_are_input_rows).cloned();
-    morbus::io::open_parquet_output(path, cfg.delimiter, columns, passthrough)
-}
-
-#[cfg(not(feature = "parquet"))]
-fn open_parquet(
-    _path: Option<&std::path::Path>,
-    _cfg: &ScoreConfig,
-    _columns: impl FnOnce(Option<&Source>) -> Result<(), Error>,
-    _input: &Extract,
-    _rows_are_input_rows: bool,
-) -> Result<morbus::io::Output, Error> {
-    Err(Error::Usage(
-        "this build of morbus writes CSV only (build it with the `parquet` feature)".into(),
-    ))
-}
-
-/// The columns of a Parquet output of `score`; for a wide output of a
-/// Parquet input, first the check that no score column repeats one of the
-/// input's (the pipeline sees only the columns it reads).
-#[cfg(feature = "parquet")]
-fn score_columns(
-    engine: &Engine,
-    s: Option<&Source>,
-    wide: bool,
-) -> Result<morbus::io::parquet::OutputColumns, Error> {
-    if let Some(source) = s.filter(|_| wide) {
-        morbus::io::parquet::check_copied_names(source, engine)?;
-    }
-    morbus::io::parquet::OutputColumns::scores(engine, s)
-}
-#[cfg(feature = "parquet")]
-fn explain_columns(
-    engine: &Engine,
-    s: Option<&Source>,
-) -> Result<morbus::io::parquet::OutputColumns, Error> {
-    morbus::io::parquet::OutputColumns::explain(engine, s)
-}
-#[cfg(not(feature = "parquet"))]
-fn score_columns(_: &Engine, _: Option<&Source>, _: bool) -> Result<(), Error> {
-    Ok(())
-}
-#[cfg(not(feature = "parquet"))]
-fn explain_columns(_: &Engine, _: Option<&Source>) -> Result<(), Error> {
-    Ok(())
 }
 
 fn split_columns(items: &[String]) -> Vec<String> {

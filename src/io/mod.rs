@@ -4,12 +4,14 @@
 //! Parquet in and out ([`parquet`]) through the same text.
 
 mod blocks;
+mod extract;
 mod files;
 #[cfg(feature = "parquet")]
 pub mod parquet;
 mod records;
 
 pub use blocks::{line_ends, Block, BlockReader};
+pub use extract::{Extract, Table};
 #[cfg(feature = "parquet")]
 pub use files::open_parquet_output;
 pub use files::{is_parquet_path, open_input, open_output, Input, Output, Writer};

@@ -1,0 +1,163 @@
+//! An extract opened for a run, whatever its format, and the output that
+//! goes with it: what the front ends call instead of choosing between text
+//! and Parquet themselves.
+//!
+//! - [`Extract::open`] gives the pipelines delimited text: the file's bytes
+//!   (plain or gzip), or a Parquet file's rows as text (feature `parquet`;
+//!   only the columns the run reads when the output does not carry the
+//!   others).
+//! - [`Extract::open_output`] gives a text output, or a Parquet one typed
+//!   for the table written ([`Table`]); a wide Parquet output of a Parquet
+//!   input copies the input's own columns from it.
+//! - [`Extract::translate`] turns the pipeline's line numbers into rows for
+//!   a Parquet input.
+
+use std::io::Read;
+use std::path::Path;
+
+use super::files::{open_input, open_output, Output};
+use crate::pipeline::ScoreConfig;
+use crate::score::Engine;
+use crate::Error;
+
+#[cfg(feature = "parquet")]
+use super::parquet::{self, RowLines, Source};
+#[cfg(feature = "parquet")]
+use crate::pipeline::Layout;
+#[cfg(feature = "parquet")]
+use std::sync::{Arc, Mutex};
+
+/// The table a run writes.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Table {
+    /// `score`: the input's columns (wide) or id and episode (long), then
+    /// the score columns.
+    Scores,
+    /// `explain`: id and episode, then the explanation's columns.
+    Explain,
+}
+
+/// An extract opened for a run.
+pub struct Extract {
+    reader: Box<dyn Read + Send>,
+    /// Size of the text in bytes, when known (for a progress display).
+    pub size: Option<u64>,
+    /// Rows of the input, when known (a Parquet input's footer says).
+    pub rows: Option<u64>,
+    /// The input as named in messages.
+    pub name: String,
+    #[cfg(feature = "parquet")]
+    parquet: Option<(Source, Arc<Mutex<RowLines>>)>,
+}
+
+impl Extract {
+    /// Opens `path` (`-` or `None`: standard input) for a run with `cfg`.
+    /// For a Parquet input with `only_read`, only the columns the run reads
+    /// (and `extra`, e.g. `compare`'s outcome) become text.
+    pub fn open(
+        path: Option<&Path>,
+        cfg: &ScoreConfig,
+        only_read: bool,
+        extra: &[String],
+    ) -> Result<Extract, Error> {
+        let input = open_input(path)?;
+        #[cfg(feature = "parquet")]
+        if let Some(source) = input.parquet {
+            let columns = if only_read {
+                parquet::read_columns(&source.column_names()?, cfg, extra)
+            } else {
+                None
+            };
+            let text = parquet::ParquetText::from_source(
+                source.clone(),
+                cfg.delimiter,
+                columns.as_deref(),
+            )?;
+            let lines = text.row_lines();
+            let rows = Some(text.total_rows);
+            return Ok(Extract {
+                reader: Box::new(text),
+                size: None,
+                rows,
+                name: input.name,
+                parquet: Some((source, lines)),
+            });
+        }
+        let _ = (cfg, only_read, extra);
+        Ok(Extract {
+            reader: input.reader,
+            size: if input.compressed { None } else { input.size },
+            rows: None,
+            name: input.name,
+            #[cfg(feature = "parquet")]
+            parquet: None,
+        })
+    }
+
+    /// The text for the pipeline (once; later calls give nothing).
+    pub fn take_reader(&mut self) -> Box<dyn Read + Send> {
+        std::mem::replace(&mut self.reader, Box::new(std::io::empty()))
+    }
+
+    /// An error of the run, with rows instead of lines for a Parquet input.
+    pub fn translate(&self, e: Error) -> Error {
+        #[cfg(feature = "parquet")]
+        if let Some((_, lines)) = &self.parquet {
+            return lines.lock().expect("row map lock").translate(e, &self.name);
+        }
+        e
+    }
+
+    /// The output of a run writing `table` to `path` (`-` or `None`:
+    /// standard output): text, or with `as_parquet` Parquet.
+    pub fn open_output(
+        &self,
+        path: Option<&Path>,
+        as_parquet: bool,
+        table: Table,
+        engine: &Engine,
+        cfg: &ScoreConfig,
+    ) -> Result<Output, Error> {
+        if !as_parquet {
+            return open_output(path);
+        }
+        self.parquet_output(path, table, engine, cfg)
+    }
+
+    #[cfg(feature = "parquet")]
+    fn parquet_output(
+        &self,
+        path: Option<&Path>,
+        table: Table,
+        engine: &Engine,
+        cfg: &ScoreConfig,
+    ) -> Result<Output, Error> {
+        let source = self.parquet.as_ref().map(|(s, _)| s);
+        // A wide score's rows are the input's rows: its columns are copied.
+        let copied = source.filter(|_| table == Table::Scores && cfg.layout == Layout::Wide);
+        let columns = match table {
+            Table::Scores => {
+                if let Some(s) = copied {
+                    // The pipeline sees only the columns it reads.
+                    parquet::check_copied_names(s, engine)?;
+                }
+                parquet::OutputColumns::scores(engine, source)?
+            }
+            Table::Explain => parquet::OutputColumns::explain(engine, source)?,
+        };
+        super::files::open_parquet_output(path, cfg.delimiter, columns, copied.cloned())
+    }
+
+    #[cfg(not(feature = "parquet"))]
+    fn parquet_output(
+        &self,
+        _path: Option<&Path>,
+        _table: Table,
+        _engine: &Engine,
+        _cfg: &ScoreConfig,
+    ) -> Result<Output, Error> {
+        Err(Error::Usage(
+            "this build of morbus writes CSV only (build it with the `parquet` feature)".into(),
+        ))
+    }
+}
