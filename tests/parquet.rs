@@ -793,3 +793,62 @@ fn a_damaged_file_is_an_error_not_a_panic() {
         }
     }
 }
+
+#[test]
+fn a_timestamp_with_a_time_zone_counts_on_its_date_in_that_zone() {
+    use arrow_array::TimestampMicrosecondArray;
+    // Patient p: heart failure at 2023-01-02T23:30Z, which is 2023-01-03
+    // 01:30 at +02:00; a myocardial infarction at 2024-01-03 00:30 +02:00.
+    // 2023-01-03 is exactly 365 days before 2024-01-03 (inclusive window),
+    // 2023-01-02 (the UTC date) is 366: read in its zone the earlier
+    // episode counts. Charlson et al. 1987 weights (from memory, as in
+    // tests/history.rs): heart failure 1, myocardial infarction 1.
+    let micros = |days: i64, secs: i64| (days * 86_400 + secs) * 1_000_000;
+    let d2023_01_02 = 19_359; // days since 1970-01-01
+    let d2024_01_02 = d2023_01_02 + 365;
+    let ts = TimestampMicrosecondArray::from(vec![
+        micros(d2023_01_02, 23 * 3600 + 1800),
+        micros(d2024_01_02, 22 * 3600 + 1800),
+    ])
+    .with_timezone("+02:00");
+    let mut pid = StringBuilder::new();
+    let mut dx = StringBuilder::new();
+    for (p, d) in [("p", "I50.9"), ("p", "I21.9")] {
+        pid.append_value(p);
+        dx.append_value(d);
+    }
+    let batch = RecordBatch::try_from_iter([
+        ("patient", Arc::new(pid.finish()) as ArrayRef),
+        ("admitted", Arc::new(ts) as ArrayRef),
+        ("dx1", Arc::new(dx.finish()) as ArrayRef),
+    ])
+    .unwrap();
+    let dir = TempDir::new("parquet-tz");
+    let input = dir.path().join("tz.parquet");
+    write_parquet(&input, &batch, 10);
+    let r = morbus(&[
+        "score",
+        s(&input),
+        "--dx",
+        "dx1",
+        "--id",
+        "patient",
+        "--date",
+        "admitted",
+        "--lookback",
+        "365",
+        "--index",
+        "charlson:charlson1987",
+    ]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    assert_eq!(
+        csv_column(&r.stdout, "charlson_charlson1987"),
+        ["1", "2"],
+        "{}",
+        r.stdout
+    );
+    assert_eq!(
+        csv_column(&r.stdout, "admitted"),
+        ["2023-01-03T01:30:00+02:00", "2024-01-03T00:30:00+02:00"]
+    );
+}
