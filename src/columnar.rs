@@ -44,7 +44,9 @@ use std::hash::BuildHasherDefault;
 
 use crate::code::Reading;
 use crate::matcher::KeyHasher;
-use crate::pipeline::{check_collisions, Header, Layout, ScoreConfig, Summary};
+use crate::pipeline::{
+    check_collisions, disagreement, keep_first, Header, Layout, ScoreConfig, Summary,
+};
 use crate::score::{read_age, Engine, Unit, Value};
 use crate::Error;
 
@@ -370,24 +372,16 @@ impl<'e> Scorer<'e> {
                 let age = self.reader.age(rows, i, row)?;
                 // The first readable age counts; another one later is
                 // counted (and stops a strict run), as on the command line.
-                match (self.long.ages[u], age) {
-                    (None, a) => self.long.ages[u] = a,
-                    (Some(first), Some(a)) if a != first => {
-                        if self.reader.strict {
-                            return Err(Error::Strict {
-                                line: None,
-                                message: format!(
-                                    "row {row}: a row of a unit gives another age {a} (the \
-                                     unit's first age is {first})"
-                                ),
-                            });
-                        }
-                        if !self.long.disagrees[u] {
-                            self.long.disagrees[u] = true;
-                            self.reader.summary.disagreeing_units += 1;
-                        }
+                if let Some((first, a)) = keep_first(&mut self.long.ages[u], age) {
+                    let message = disagreement("age", a, first);
+                    if self.reader.strict {
+                        return Err(Error::Strict {
+                            line: None,
+                            message: format!("row {row}: {message}"),
+                        });
                     }
-                    _ => {}
+                    let counted = &mut self.long.disagrees[u];
+                    self.reader.summary.count_disagreeing(counted);
                 }
             }
             self.row += 1;

@@ -1,9 +1,13 @@
 //! End-to-end runs of the `morbus score` command: nothing lost, pass-through
 //! bytes untouched, clear messages and exit codes for bad input.
 
+mod common;
+
 use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
+
+use common::column;
 
 pub struct Run {
     pub code: i32,
@@ -54,19 +58,6 @@ e1,72,I21.9,E11.2,E11.9\n\
 e2,45,C78.0,C18.7,N/A\n\
 \"e3, with comma\",,,,\n\
 e4,88,F00.1,R29.6,W19\n";
-
-fn column(out: &str, name: &str) -> Vec<String> {
-    let mut rdr = csv::Reader::from_reader(out.as_bytes());
-    let idx = rdr
-        .headers()
-        .unwrap()
-        .iter()
-        .position(|h| h == name)
-        .unwrap_or_else(|| panic!("no column {name}"));
-    rdr.records()
-        .map(|r| r.unwrap().get(idx).unwrap().to_string())
-        .collect()
-}
 
 #[test]
 fn wide_scores_and_passes_rows_through() {

@@ -31,7 +31,7 @@ use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
 use parquet::arrow::ArrowWriter;
 use parquet::file::properties::WriterProperties;
 
-use common::{morbus, root, TempDir};
+use common::{column, morbus, root, TempDir};
 
 /// The records of a CSV file (header first).
 fn records(path: &Path) -> Vec<Vec<String>> {
@@ -205,18 +205,6 @@ fn as_text(batch: &RecordBatch, name: &str) -> Vec<String> {
         .collect()
 }
 
-/// A column of a CSV text.
-fn csv_column(text: &str, name: &str) -> Vec<String> {
-    let mut rdr = csv::Reader::from_reader(text.as_bytes());
-    let k = rdr
-        .headers()
-        .unwrap()
-        .iter()
-        .position(|h| h == name)
-        .unwrap_or_else(|| panic!("column {name}"));
-    rdr.records().map(|r| r.unwrap()[k].to_string()).collect()
-}
-
 /// Equal columns, or the first row where they differ.
 fn assert_same(got: &[String], expected: &[String], what: &str) {
     assert_eq!(got.len(), expected.len(), "{what}: number of rows");
@@ -388,7 +376,7 @@ fn parquet_out_keeps_the_input_columns_and_types_the_scores() {
                 DataType::Int64
             };
             assert_eq!(t, expected, "{name}");
-            let mut csv_values = csv_column(&reference.stdout, name);
+            let mut csv_values = column(&reference.stdout, name);
             if t == DataType::Float64 {
                 // The CSV writes the weighting's decimals; Arrow the shortest form.
                 for v in &mut csv_values {
@@ -457,7 +445,7 @@ fn long_layout_keeps_an_integer_id_and_gives_the_csv_numbers() {
             assert_eq!(got.schema().field(1).data_type(), &DataType::Utf8);
         }
         for name in csv_header(&reference.stdout) {
-            let mut expected = csv_column(&reference.stdout, &name);
+            let mut expected = column(&reference.stdout, &name);
             if name.starts_with("hfrs") && !name.ends_with("_band") {
                 for v in &mut expected {
                     *v = v.parse::<f64>().unwrap().to_string();
@@ -507,7 +495,7 @@ fn explain_and_compare_read_parquet() {
         );
     }
     for name in csv_header(&reference.stdout) {
-        let mut expected = csv_column(&reference.stdout, &name);
+        let mut expected = column(&reference.stdout, &name);
         if name == "weight" {
             for v in &mut expected {
                 *v = v.parse::<f64>().unwrap().to_string();
@@ -582,7 +570,7 @@ fn csv_in_parquet_out_keeps_the_fields_as_text() {
     let reference = morbus(&["score", s(&input), "--dx", "dx*", "--index", "charlson"]);
     assert_eq!(
         as_text(&got, "charlson_quan2011"),
-        csv_column(&reference.stdout, "charlson_quan2011")
+        column(&reference.stdout, "charlson_quan2011")
     );
 }
 
@@ -842,13 +830,13 @@ fn a_timestamp_with_a_time_zone_counts_on_its_date_in_that_zone() {
     ]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     assert_eq!(
-        csv_column(&r.stdout, "charlson_charlson1987"),
+        column(&r.stdout, "charlson_charlson1987"),
         ["1", "2"],
         "{}",
         r.stdout
     );
     assert_eq!(
-        csv_column(&r.stdout, "admitted"),
+        column(&r.stdout, "admitted"),
         ["2023-01-03T01:30:00+02:00", "2024-01-03T00:30:00+02:00"]
     );
 }

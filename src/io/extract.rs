@@ -25,6 +25,8 @@ use super::parquet::{self, RowLines, Source};
 #[cfg(feature = "parquet")]
 use crate::pipeline::Layout;
 #[cfg(feature = "parquet")]
+use arrow_schema::SchemaRef;
+#[cfg(feature = "parquet")]
 use std::sync::{Arc, Mutex};
 
 /// The table a run writes.
@@ -46,8 +48,10 @@ pub struct Extract {
     pub rows: Option<u64>,
     /// The input as named in messages.
     pub name: String,
+    /// A Parquet input: where it is, its columns (the footer is read once
+    /// here) and the map of its text's lines to rows.
     #[cfg(feature = "parquet")]
-    parquet: Option<(Source, Arc<Mutex<RowLines>>)>,
+    parquet: Option<(Source, SchemaRef, Arc<Mutex<RowLines>>)>,
 }
 
 impl Extract {
@@ -63,8 +67,10 @@ impl Extract {
         let input = open_input(path)?;
         #[cfg(feature = "parquet")]
         if let Some(source) = input.parquet {
+            let schema = source.schema()?;
             let columns = if only_read {
-                parquet::read_columns(&source.column_names()?, cfg, extra)
+                let names: Vec<String> = schema.fields().iter().map(|f| f.name().clone()).collect();
+                parquet::read_columns(&names, cfg, extra)
             } else {
                 None
             };
@@ -80,7 +86,7 @@ impl Extract {
                 size: None,
                 rows,
                 name: input.name,
-                parquet: Some((source, lines)),
+                parquet: Some((source, schema, lines)),
             });
         }
         let _ = (cfg, only_read, extra);
@@ -102,7 +108,7 @@ impl Extract {
     /// An error of the run, with rows instead of lines for a Parquet input.
     pub fn translate(&self, e: Error) -> Error {
         #[cfg(feature = "parquet")]
-        if let Some((_, lines)) = &self.parquet {
+        if let Some((_, _, lines)) = &self.parquet {
             return lines.lock().expect("row map lock").translate(e, &self.name);
         }
         e
@@ -132,20 +138,24 @@ impl Extract {
         engine: &Engine,
         cfg: &ScoreConfig,
     ) -> Result<Output, Error> {
-        let source = self.parquet.as_ref().map(|(s, _)| s);
+        let input = self.parquet.as_ref();
+        let schema = input.map(|(_, schema, _)| schema.as_ref());
         // A wide score's rows are the input's rows: its columns are copied.
-        let copied = source.filter(|_| table == Table::Scores && cfg.layout == Layout::Wide);
+        let copies = table == Table::Scores && cfg.layout == Layout::Wide;
+        let copied = input
+            .filter(|_| copies)
+            .map(|(source, _, _)| source.clone());
         let columns = match table {
             Table::Scores => {
-                if let Some(s) = copied {
+                if let Some(s) = schema.filter(|_| copies) {
                     // The pipeline sees only the columns it reads.
                     parquet::check_copied_names(s, engine)?;
                 }
-                parquet::OutputColumns::scores(engine, source)?
+                parquet::OutputColumns::scores(engine, schema)
             }
-            Table::Explain => parquet::OutputColumns::explain(engine, source)?,
+            Table::Explain => parquet::OutputColumns::explain(engine, schema),
         };
-        super::files::open_parquet_output(path, cfg.delimiter, columns, copied.cloned())
+        super::files::open_parquet_output(path, cfg.delimiter, columns, copied)
     }
 
     #[cfg(not(feature = "parquet"))]

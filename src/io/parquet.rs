@@ -65,10 +65,7 @@ use crate::pipeline::{DateFormat, ScoreConfig};
 use crate::score::{ColumnKind, Engine};
 use crate::Error;
 
-/// The first bytes of every Parquet file.
-pub const MAGIC: &[u8; 4] = b"PAR1";
-
-/// Rows per batch read from a Parquet input, and per row group written.
+/// Rows per batch read from a Parquet input.
 const BATCH_ROWS: usize = 8192;
 /// Rows buffered by the sink before they are written (one row group each).
 const GROUP_ROWS: usize = 131_072;
@@ -117,14 +114,12 @@ pub enum Source {
 }
 
 impl Source {
-    fn builder(&self) -> Result<ParquetRecordBatchReaderBuilder<Box<dyn ChunkSource>>, Error> {
-        let inner: Box<dyn ChunkSource> = match self {
-            Source::File(p) => {
-                Box::new(FileChunks(File::open(p).map_err(|e| {
-                    Error::io(format!("cannot open {}", p.display()), e)
-                })?))
-            }
-            Source::Memory(b) => Box::new(MemoryChunks(b.clone())),
+    fn builder(&self) -> Result<ParquetRecordBatchReaderBuilder<Chunks>, Error> {
+        let inner = match self {
+            Source::File(p) => Chunks::File(
+                File::open(p).map_err(|e| Error::io(format!("cannot open {}", p.display()), e))?,
+            ),
+            Source::Memory(b) => Chunks::Memory(b.clone()),
         };
         guarded(|| ParquetRecordBatchReaderBuilder::try_new(inner))
             .map_err(|m| self.damaged(&m))?
@@ -138,7 +133,7 @@ impl Source {
     /// A reader of this source from its builder.
     fn build(
         &self,
-        builder: ParquetRecordBatchReaderBuilder<Box<dyn ChunkSource>>,
+        builder: ParquetRecordBatchReaderBuilder<Chunks>,
     ) -> Result<ParquetRecordBatchReader, Error> {
         guarded(|| builder.build())
             .map_err(|m| self.damaged(&m))?
@@ -167,69 +162,41 @@ impl Source {
         Error::data(None, format!("cannot read {} as Parquet: {e}", self.name()))
     }
 
-    /// The column names of the file.
-    pub fn column_names(&self) -> Result<Vec<String>, Error> {
-        Ok(self
-            .builder()?
-            .schema()
-            .fields()
-            .iter()
-            .map(|f| f.name().clone())
-            .collect())
+    /// The columns of the file (its footer, read once per call).
+    pub fn schema(&self) -> Result<SchemaRef, Error> {
+        Ok(self.builder()?.schema().clone())
     }
 }
 
-/// Byte ranges of a Parquet input, from a file or memory, behind one type.
-trait ChunkSource: Send + Sync + 'static {
-    fn len(&self) -> u64;
-    fn bytes(&self, start: u64, len: usize) -> parquet::errors::Result<Bytes>;
-    fn reader(&self, start: u64) -> parquet::errors::Result<Box<dyn Read + Send>>;
+/// The bytes of a Parquet input, from a file or memory, as one type for
+/// the reader.
+enum Chunks {
+    File(File),
+    Memory(Bytes),
 }
 
-struct FileChunks(File);
-struct MemoryChunks(Bytes);
-
-impl ChunkSource for FileChunks {
+impl parquet::file::reader::Length for Chunks {
     fn len(&self) -> u64 {
-        parquet::file::reader::Length::len(&self.0)
-    }
-    fn bytes(&self, start: u64, len: usize) -> parquet::errors::Result<Bytes> {
-        parquet::file::reader::ChunkReader::get_bytes(&self.0, start, len)
-    }
-    fn reader(&self, start: u64) -> parquet::errors::Result<Box<dyn Read + Send>> {
-        Ok(Box::new(parquet::file::reader::ChunkReader::get_read(
-            &self.0, start,
-        )?))
+        match self {
+            Chunks::File(f) => f.len(),
+            Chunks::Memory(b) => b.len() as u64,
+        }
     }
 }
 
-impl ChunkSource for MemoryChunks {
-    fn len(&self) -> u64 {
-        self.0.len() as u64
-    }
-    fn bytes(&self, start: u64, len: usize) -> parquet::errors::Result<Bytes> {
-        parquet::file::reader::ChunkReader::get_bytes(&self.0, start, len)
-    }
-    fn reader(&self, start: u64) -> parquet::errors::Result<Box<dyn Read + Send>> {
-        Ok(Box::new(parquet::file::reader::ChunkReader::get_read(
-            &self.0, start,
-        )?))
-    }
-}
-
-impl parquet::file::reader::Length for Box<dyn ChunkSource> {
-    fn len(&self) -> u64 {
-        (**self).len()
-    }
-}
-
-impl parquet::file::reader::ChunkReader for Box<dyn ChunkSource> {
+impl parquet::file::reader::ChunkReader for Chunks {
     type T = Box<dyn Read + Send>;
     fn get_read(&self, start: u64) -> parquet::errors::Result<Self::T> {
-        (**self).reader(start)
+        Ok(match self {
+            Chunks::File(f) => Box::new(f.get_read(start)?),
+            Chunks::Memory(b) => Box::new(b.get_read(start)?),
+        })
     }
     fn get_bytes(&self, start: u64, length: usize) -> parquet::errors::Result<Bytes> {
-        (**self).bytes(start, length)
+        match self {
+            Chunks::File(f) => f.get_bytes(start, length),
+            Chunks::Memory(b) => b.get_bytes(start, length),
+        }
     }
 }
 
@@ -699,9 +666,6 @@ impl PassthroughRows {
     }
 
     fn exhausted(&mut self) -> bool {
-        if self.queue.iter().any(|b| b.num_rows() > 0) {
-            return false;
-        }
         self.queued == 0 && matches!(self.source.next_batch(&mut self.reader), Ok(None))
     }
 }
@@ -1022,7 +986,7 @@ impl Write for ParquetSink {
 impl OutputColumns {
     /// The columns of `score`: the score columns typed, the kept columns of
     /// a Parquet `input` with their input types.
-    pub fn scores(engine: &Engine, input: Option<&Source>) -> Result<OutputColumns, Error> {
+    pub fn scores(engine: &Engine, input: Option<&Schema>) -> OutputColumns {
         let typed = engine
             .columns()
             .iter()
@@ -1041,16 +1005,16 @@ impl OutputColumns {
                 (c.name.clone(), t)
             })
             .collect();
-        Ok(OutputColumns {
+        OutputColumns {
             typed,
-            input_types: input_types(input)?,
-        })
+            input_types: input_types(input),
+        }
     }
 
     /// The columns of `explain`: rows as whole numbers, the source date as
     /// a date, the weight as a number, the rest text; the id and episode of
     /// a Parquet `input` with their input types.
-    pub fn explain(engine: &Engine, input: Option<&Source>) -> Result<OutputColumns, Error> {
+    pub fn explain(engine: &Engine, input: Option<&Schema>) -> OutputColumns {
         let whole = (0..engine.specs().len()).all(|s| engine.decimals(s) == 0);
         let weight = if whole {
             ColumnType::Int64
@@ -1071,27 +1035,24 @@ impl OutputColumns {
         .into_iter()
         .map(|(n, t)| (n.to_string(), t))
         .collect();
-        Ok(OutputColumns {
+        OutputColumns {
             typed,
-            input_types: input_types(input)?,
-        })
+            input_types: input_types(input),
+        }
     }
 }
 
-fn input_types(input: Option<&Source>) -> Result<HashMap<String, DataType>, Error> {
-    let Some(source) = input else {
-        return Ok(HashMap::new());
-    };
-    Ok(source
-        .builder()?
-        .schema()
-        .fields()
-        .iter()
-        .map(|f| (f.name().clone(), f.data_type().clone()))
-        .collect())
+fn input_types(input: Option<&Schema>) -> HashMap<String, DataType> {
+    input.map_or_else(HashMap::new, |schema| {
+        schema
+            .fields()
+            .iter()
+            .map(|f| (f.name().clone(), f.data_type().clone()))
+            .collect()
+    })
 }
 
-/// The columns of a Parquet input that a run reads (diagnoses, age, id,
+/// The columns of a Parquet input (named `names`) that a run reads (diagnoses, age, id,
 /// episode, date, primary flag, present-on-admission indicator, and
 /// `extra`), by position; `None` when one of them cannot be resolved, so
 /// that the run sees every column and reports the problem with its usual
@@ -1120,9 +1081,8 @@ pub fn read_columns(names: &[String], cfg: &ScoreConfig, extra: &[String]) -> Op
 /// Refuses a run whose score columns would repeat a column of the Parquet
 /// input that a wide output copies (the pipeline, reading only some
 /// columns, does not see the others).
-pub fn check_copied_names(source: &Source, engine: &Engine) -> Result<(), Error> {
-    let names = source.column_names()?;
-    let names: Vec<&str> = names.iter().map(String::as_str).collect();
+pub fn check_copied_names(input: &Schema, engine: &Engine) -> Result<(), Error> {
+    let names: Vec<&str> = input.fields().iter().map(|f| f.name().as_str()).collect();
     crate::pipeline::check_collisions(&names, engine)
 }
 
@@ -1185,7 +1145,7 @@ mod tests {
         let source = Source::File(input.clone());
         let text = ParquetText::from_source(source.clone(), b',', Some(&[1])).unwrap();
         let out = dir.join("out.parquet");
-        let columns = OutputColumns::scores(&engine, Some(&source)).unwrap();
+        let columns = OutputColumns::scores(&engine, Some(&source.schema().unwrap()));
         let mut sink = ParquetSink::new(
             Box::new(File::create(&out).unwrap()),
             b',',

@@ -16,7 +16,10 @@ use std::io::{Read, Write};
 
 use super::dates;
 use super::parallel::run_blocks;
-use super::{check_collisions, Exclusion, Layout, Plan, RowIssue, ScoreConfig, Summary};
+use super::{
+    check_collisions, disagreement, keep_first, Exclusion, Layout, Plan, RowIssue, ScoreConfig,
+    Summary,
+};
 use crate::code::Code;
 use crate::io::{write_field, RecordScanner};
 use crate::matcher::KeyHasher;
@@ -336,40 +339,31 @@ impl History {
                     // The first readable date and age of an episode's rows
                     // count; a later row giving another one is counted (and
                     // stops a --strict run).
-                    let mut other = None;
-                    match (ep.date, r.date) {
-                        (None, DateRead::Day(d)) => ep.date = Some(d),
-                        (None, DateRead::Unreadable) => ep.date_unreadable = true,
-                        (Some(first), DateRead::Day(d)) if d != first => {
-                            let (mut a, mut b) = (Vec::new(), Vec::new());
-                            dates::write_iso_date(first as i64, &mut a);
-                            dates::write_iso_date(d as i64, &mut b);
-                            other = Some(format!(
-                                "date {} (the unit's first date is {})",
-                                String::from_utf8_lossy(&b),
-                                String::from_utf8_lossy(&a)
-                            ));
+                    let day = match r.date {
+                        DateRead::Day(d) => Some(d),
+                        DateRead::Unreadable => {
+                            ep.date_unreadable |= ep.date.is_none();
+                            None
                         }
-                        _ => {}
-                    }
-                    match (ep.age, r.age) {
-                        (None, a) => ep.age = a,
-                        (Some(first), Some(a)) if a != first && other.is_none() => {
-                            other = Some(format!("age {a} (the unit's first age is {first})"));
-                        }
-                        _ => {}
-                    }
-                    if let Some(what) = other {
+                        DateRead::Missing => None,
+                    };
+                    let iso = |d: i32| {
+                        let mut t = Vec::new();
+                        dates::write_iso_date(d as i64, &mut t);
+                        String::from_utf8_lossy(&t).into_owned()
+                    };
+                    let other_date = keep_first(&mut ep.date, day)
+                        .map(|(first, d)| disagreement("date", iso(d), iso(first)));
+                    let other_age = keep_first(&mut ep.age, r.age)
+                        .map(|(first, a)| disagreement("age", a, first));
+                    if let Some(message) = other_date.or(other_age) {
                         if cfg.strict {
                             return Err(Error::Strict {
                                 line: Some(r.line),
-                                message: format!("a row of a unit gives another {what}"),
+                                message,
                             });
                         }
-                        if !ep.disagrees {
-                            ep.disagrees = true;
-                            summary.disagreeing_units += 1;
-                        }
+                        summary.count_disagreeing(&mut ep.disagrees);
                     }
                     let (dst, src) = (e as usize * words, i * words);
                     for k in 0..words {

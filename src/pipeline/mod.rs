@@ -792,6 +792,42 @@ pub fn is_flag_set(raw: &[u8]) -> bool {
         .any(|f| f.as_bytes().eq_ignore_ascii_case(v))
 }
 
+/// Keeps the first readable value of a long-layout unit (its date or age)
+/// in `slot`; returns `(first, new)` when `new` is readable and differs
+/// from it (the row disagrees with the unit).
+pub(crate) fn keep_first<T: Copy + PartialEq>(
+    slot: &mut Option<T>,
+    new: Option<T>,
+) -> Option<(T, T)> {
+    match (*slot, new) {
+        (None, v) => {
+            *slot = v;
+            None
+        }
+        (Some(first), Some(v)) if v != first => Some((first, v)),
+        _ => None,
+    }
+}
+
+/// The warning for a row of a unit that gives another `what` (date, age)
+/// than the unit's first.
+pub(crate) fn disagreement(
+    what: &str,
+    new: impl std::fmt::Display,
+    first: impl std::fmt::Display,
+) -> String {
+    format!("a row of a unit gives another {what} {new} (the unit's first {what} is {first})")
+}
+
+impl Summary {
+    /// Counts a unit whose rows disagree, once (`counted` is the unit's flag).
+    pub(crate) fn count_disagreeing(&mut self, counted: &mut bool) {
+        if !std::mem::replace(counted, true) {
+            self.disagreeing_units += 1;
+        }
+    }
+}
+
 pub(crate) fn check_collisions(names: &[&str], engine: &Engine) -> Result<(), Error> {
     for c in engine.columns() {
         if names.contains(&c.name.as_str()) {

@@ -77,23 +77,15 @@ fn score_long(
             let age = p
                 .read_age(cfg, &rec.fields, &mut summary)
                 .map_err(|i| p.issue(i, &block, &rec))?;
-            match (long.ages[u], age) {
-                (None, a) => long.ages[u] = a,
-                (Some(first), Some(a)) if a != first => {
-                    if cfg.strict {
-                        return Err(Error::Strict {
-                            line: Some(super::line_of(&block, rec.offset)),
-                            message: format!(
-                                "a row of a unit gives another age {a} (the unit's first age is {first})"
-                            ),
-                        });
-                    }
-                    if !long.disagrees[u] {
-                        long.disagrees[u] = true;
-                        summary.disagreeing_units += 1;
-                    }
+            if let Some((first, a)) = super::keep_first(&mut long.ages[u], age) {
+                let message = super::disagreement("age", a, first);
+                if cfg.strict {
+                    return Err(Error::Strict {
+                        line: Some(super::line_of(&block, rec.offset)),
+                        message,
+                    });
                 }
-                _ => {}
+                summary.count_disagreeing(&mut long.disagrees[u]);
             }
             let bits = &mut long.bits[u * words..(u + 1) * words];
             let mut excluded = (0u64, 0u64);

@@ -34,6 +34,20 @@ pub fn morbus(args: &[&str]) -> Run {
     Run::from(out)
 }
 
+/// The values of column `name` of a CSV text (header first).
+pub fn column(text: &str, name: &str) -> Vec<String> {
+    let mut rdr = csv::Reader::from_reader(text.as_bytes());
+    let idx = rdr
+        .headers()
+        .unwrap()
+        .iter()
+        .position(|h| h == name)
+        .unwrap_or_else(|| panic!("no column {name}"));
+    rdr.records()
+        .map(|r| r.unwrap().get(idx).unwrap().to_string())
+        .collect()
+}
+
 pub fn root() -> &'static Path {
     Path::new(env!("CARGO_MANIFEST_DIR"))
 }
