@@ -81,7 +81,8 @@ impl CodeEntry {
         }
     }
 
-    /// Whether a code is claimed by this entry (prefix match).
+    /// Whether a code is claimed by this entry (prefix match; a range
+    /// follows the letter rule of [`crate::code::range_claims`]).
     pub fn claims(&self, code: &Code) -> bool {
         let n = self.first.len();
         if code.len() < n {
@@ -90,7 +91,7 @@ impl CodeEntry {
         let p = &code.as_bytes()[..n];
         match &self.last {
             None => p == self.first.as_bytes(),
-            Some(l) => p >= self.first.as_bytes() && p <= l.as_bytes(),
+            Some(l) => crate::code::range_claims(&self.first, l, p),
         }
     }
 }
