@@ -43,6 +43,7 @@ def score(
     dx_sep: Optional[str],
     strict: bool,
     threads: int,
+    edition: str = ...,
 ) -> Tuple[ArrowStream, Optional[ArrowStream], str, str]: ...
 def score_history(
     names: Sequence[str],
@@ -67,6 +68,7 @@ def score_history(
     primary: Optional[str],
     poa: Optional[str],
     poa_values: Sequence[str],
+    edition: str = ...,
 ) -> Tuple[ArrowStream, Optional[ArrowStream], str, str]:
     """`morbus.score` over the patient history: (scores, per output row the
     0-based frame row of the episode's first record (long layout), provenance
@@ -93,7 +95,10 @@ def explain(
     primary: Optional[str],
     poa: Optional[str],
     poa_values: Sequence[str],
+    edition: str = ...,
 ) -> Tuple[ArrowStream, str]:
     """`morbus explain` on a frame: (the columns from `row` on, summary line)."""
+def code_status(values: Sequence[str], edition: str = ...) -> List[str]:
+    """Per value: "known", "extended", "unknown", "invalid" or "empty"."""
 def version() -> str: ...
 def debug_build() -> bool: ...

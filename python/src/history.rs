@@ -323,6 +323,7 @@ fn resolve(
         poa_values,
         age,
         strict,
+        edition: hist.edition,
         threads,
         ..ScoreConfig::default()
     };
@@ -449,6 +450,7 @@ struct HistoryArgs {
     primary: Option<String>,
     poa: Option<String>,
     poa_values: Vec<String>,
+    edition: morbus::pipeline::Edition,
 }
 
 /// The used columns as delimited text, and the line on which each row's
@@ -588,7 +590,7 @@ fn fetch_text(
 /// [`crate::score`]: `first_rows` (long layout) holds, per output row, the
 /// 0-based frame row of the episode's first record.
 #[pyfunction]
-#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values))]
+#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values, edition="any"))]
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn score_history<'py>(
     py: Python<'py>,
@@ -613,6 +615,7 @@ pub(crate) fn score_history<'py>(
     primary: Option<String>,
     poa: Option<String>,
     poa_values: Vec<String>,
+    edition: &str,
 ) -> PyResult<(ArrowStream, Option<ArrowStream>, String, String)> {
     let builtin;
     let lists: &PyLists = match &lists {
@@ -631,6 +634,7 @@ pub(crate) fn score_history<'py>(
         primary,
         poa,
         poa_values,
+        edition: crate::parse_edition(edition)?,
     };
     let mut run = resolve(
         names, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads, hist,
@@ -697,7 +701,7 @@ fn rows_stream(rows: Vec<i64>) -> ArrowStream {
 /// `source_row` are the command line's 1-based data rows, the frame row plus
 /// one) and the summary line.
 #[pyfunction]
-#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values))]
+#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values, edition="any"))]
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn explain<'py>(
     py: Python<'py>,
@@ -721,6 +725,7 @@ pub(crate) fn explain<'py>(
     primary: Option<String>,
     poa: Option<String>,
     poa_values: Vec<String>,
+    edition: &str,
 ) -> PyResult<(ArrowStream, String)> {
     let builtin;
     let lists: &PyLists = match &lists {
@@ -739,6 +744,7 @@ pub(crate) fn explain<'py>(
         primary,
         poa,
         poa_values,
+        edition: crate::parse_edition(edition)?,
     };
     let mut run = resolve(
         names, dx, layout, id, age, index, false, hierarchy, lists, dx_sep, strict, threads, hist,

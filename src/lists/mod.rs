@@ -27,7 +27,7 @@ pub use canonical::{canonical_text, checksum};
 pub use check::{check_path, CheckReport};
 pub use decimal::{format_scaled, parse_scaled, SCALE, SCALE_DECIMALS};
 pub use describe::{describe, Description};
-pub use diff::{diff, ListDiff};
+pub use diff::{diff, diff_dirs, DirDiff, ListDiff};
 pub use export::{export_text, export_to_dir};
 pub use parse::{parse, Diagnostic, Severity};
 
