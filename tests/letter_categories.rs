@@ -5,8 +5,9 @@
 //! malignant neuroendocrine tumours, C7B secondary neuroendocrine tumours,
 //! D3A benign neuroendocrine tumours, M1A chronic gout, Z3A weeks of
 //! gestation, among others; the codes below were picked from that list from
-//! memory and are checked against the `simple-icd-10-cm` package by
-//! `tests/editions.rs`). In character order they fall inside numeric ranges
+//! memory; the test below checks them against the compiled ICD-10-CM set,
+//! which `python/tests/test_editions.py` checks against the
+//! `simple-icd-10-cm` package). In character order they fall inside numeric ranges
 //! of the WHO-based published tables (`C7A` between `C77` and `C80`,
 //! `C4A` between `C45` and `C58`). The rule of this project
 //! (`code-lists/FORMAT.md`): a range claims a letter in a position only when
@@ -70,6 +71,18 @@ fn every_builtin_spec() -> Vec<String> {
                 .map(move |w| format!("{}:{}", l.name, w.name))
         })
         .collect()
+}
+
+#[test]
+fn the_letter_codes_are_icd10cm_codes_and_not_who_ones() {
+    use morbus::editions::{existence, Edition, Existence};
+    for code in LETTER_CODES {
+        let morbus::code::Reading::Valid(c) = morbus::code::read_code(code.as_bytes()) else {
+            panic!("{code} reads as a code");
+        };
+        assert_eq!(existence(&c, Edition::Cm), Existence::Known, "{code}");
+        assert_eq!(existence(&c, Edition::Who), Existence::Unknown, "{code}");
+    }
 }
 
 #[test]
