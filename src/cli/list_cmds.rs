@@ -54,6 +54,9 @@ pub fn show(list: &CodeList, json: bool) -> Result<(), Error> {
             c.label,
             c.source
         ));
+        for n in &c.notes {
+            line(format!("       {:<kw$}  note: {n}", ""));
+        }
     }
     line(String::new());
     line("codes per condition (as written -> normalised, line)".into());

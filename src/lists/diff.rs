@@ -292,6 +292,18 @@ pub fn diff(a: &CodeList, b: &CodeList) -> ListDiff {
     for ca in &a.conditions {
         if let Some(cb) = b.conditions.iter().find(|c| c.key == ca.key) {
             labels_changed.extend(change(format!("label of {}", ca.key), &ca.label, &cb.label));
+            let notes = |c: &super::Condition| {
+                c.notes
+                    .iter()
+                    .map(|n| n.text.as_str())
+                    .collect::<Vec<_>>()
+                    .join(" | ")
+            };
+            labels_changed.extend(change(
+                format!("notes of {}", ca.key),
+                &notes(ca),
+                &notes(cb),
+            ));
             sources.extend(change(
                 format!("source of condition {}", ca.key),
                 &ca.source,
@@ -473,6 +485,44 @@ age_points\t65\t*\t1\tInvented\n";
 
     fn load(text: &str) -> CodeList {
         parse(text, Origin::File("t.tsv".into())).unwrap().list
+    }
+
+    #[test]
+    fn condition_notes_are_content() {
+        let b = BASE.to_string() + "condition_note\ttwo\tsecondary positions only\tInvented\n";
+        let (la, lb) = (load(BASE), load(&b));
+        assert_eq!(lb.conditions[1].notes[0].text, "secondary positions only");
+        assert_ne!(la.checksum, lb.checksum);
+        let d = diff(&la, &lb);
+        assert_eq!(d.labels_changed.len(), 1);
+        assert_eq!(d.labels_changed[0].what, "notes of two");
+        assert_eq!(d.labels_changed[0].after, "secondary positions only");
+        // The canonical text carries the note: it loads back the same.
+        let back = load(&crate::lists::canonical_text(&lb));
+        assert_eq!(back.checksum, lb.checksum);
+        assert_eq!(
+            back.conditions[1].notes,
+            lb.conditions[1]
+                .notes
+                .iter()
+                .map(|n| crate::lists::ConditionNote {
+                    line: back.conditions[1].notes[0].line,
+                    ..n.clone()
+                })
+                .collect::<Vec<_>>()
+        );
+        // A note for an undeclared condition, or without text, is an error.
+        for bad in [
+            "condition_note\tnine\tx\tInvented\n",
+            "condition_note\ttwo\t\tInvented\n",
+        ] {
+            let e = parse(&(BASE.to_string() + bad), Origin::File("t.tsv".into())).unwrap_err();
+            assert!(
+                e.diagnostics[0].message.contains("condition_note"),
+                "{:?}",
+                e.diagnostics
+            );
+        }
     }
 
     #[test]

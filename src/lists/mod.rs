@@ -56,6 +56,18 @@ pub struct Condition {
     pub label: String,
     pub source: String,
     pub line: usize,
+    /// `condition_note` records: notes on how the source applies the
+    /// condition (e.g. a category counted in secondary diagnosis positions
+    /// only). Recorded and shown; scoring does not use them.
+    pub notes: Vec<ConditionNote>,
+}
+
+/// One `condition_note` record.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ConditionNote {
+    pub text: String,
+    pub source: String,
+    pub line: usize,
 }
 
 /// One `code` record: a code or an inclusive range of equal-length codes.

@@ -200,6 +200,7 @@ pub fn parse(text: &str, origin: Origin) -> Result<Loaded, ListError> {
     let mut cond_index: HashMap<String, usize> = HashMap::new();
     let mut raw_codes: Vec<(String, String, String, usize)> = Vec::new();
     let mut raw_hier: Vec<(String, String, String, usize)> = Vec::new();
+    let mut raw_notes: Vec<(String, String, String, usize)> = Vec::new();
     let mut raw_weights: Vec<(String, String, String, String, usize)> = Vec::new();
     let mut raw_bands: Vec<(String, String, String, String, String, usize)> = Vec::new();
     let mut weightings: Vec<RawWeighting> = Vec::new();
@@ -301,8 +302,13 @@ pub fn parse(text: &str, origin: Origin) -> Result<Loaded, ListError> {
                         label: f(2).to_string(),
                         source: f(3).to_string(),
                         line,
+                        notes: Vec::new(),
                     });
                 }
+            }
+            "condition_note" => {
+                max_fields(&mut cx, 4);
+                raw_notes.push((f(1).to_string(), f(2).to_string(), f(3).to_string(), line));
             }
             "code" => {
                 max_fields(&mut cx, 4);
@@ -454,6 +460,27 @@ pub fn parse(text: &str, origin: Origin) -> Result<Loaded, ListError> {
     for (c, has) in conditions.iter().zip(&has_codes) {
         if !has {
             cx.warn(c.line, format!("condition '{}' has no codes", c.key));
+        }
+    }
+
+    // Notes on conditions.
+    for (key, text, src, line) in raw_notes {
+        match cond_index.get(&key) {
+            None => cx.err(
+                line,
+                format!("condition_note for undeclared condition '{key}'"),
+            ),
+            Some(_) if text.is_empty() => cx.err(line, "condition_note without text"),
+            Some(&ci) => {
+                if src.is_empty() {
+                    cx.warn(line, format!("condition_note of '{key}' has no source"));
+                }
+                conditions[ci].notes.push(super::ConditionNote {
+                    text,
+                    source: src,
+                    line,
+                });
+            }
         }
     }
 
