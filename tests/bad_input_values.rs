@@ -734,3 +734,62 @@ fn a_score_at_the_edge_of_the_range_is_exact() {
     // 922 x 999,999,999,999.9999 = 921,999,999,999,999.9078
     assert_eq!(col(&o, "heavy_big"), ["921999999999999.9078"]);
 }
+
+#[test]
+fn parquet_wide_poa_reads_the_paired_columns() {
+    use arrow_array::{ArrayRef, RecordBatch, StringArray};
+    use std::sync::Arc;
+    // WIDE_POA as Parquet text columns (empty fields null).
+    let text = |v: [&str; 4]| {
+        Arc::new(StringArray::from(
+            v.iter()
+                .map(|s| (!s.is_empty()).then_some(*s))
+                .collect::<Vec<_>>(),
+        )) as ArrayRef
+    };
+    let batch = RecordBatch::try_from_iter([
+        ("id", text(["1", "2", "3", "4"])),
+        ("dx1", text(["I21.9", "I50.9", "I21", "I21"])),
+        ("dx2", text(["E11.2", "C78.0", "I50", ""])),
+        ("poa1", text(["Y", "", "E", "W"])),
+        ("poa2", text(["N", "1", "u", ""])),
+    ])
+    .unwrap();
+    let dir = TempDir::new("values-parquet-poa");
+    let path = dir.path().join("wide.parquet");
+    let mut w = parquet::arrow::ArrowWriter::try_new(
+        std::fs::File::create(&path).unwrap(),
+        batch.schema(),
+        None,
+    )
+    .unwrap();
+    w.write(&batch).unwrap();
+    w.close().unwrap();
+    let bytes = std::fs::read(&path).unwrap();
+    // explain reads only the columns the run uses (the paired ones here).
+    let o = run_on(
+        "explain",
+        "wide.parquet",
+        &bytes,
+        &with(CHARLSON, &["--dx", "dx*", "--poa", "poa*"]),
+    );
+    assert_eq!(o.code, 0, "{}", o.stderr);
+    let text = String::from_utf8_lossy(&o.stdout);
+    let status = common::column(&text, "status");
+    let weight = common::column(&text, "weight");
+    let totals: Vec<&str> = status
+        .iter()
+        .zip(&weight)
+        .filter(|(s, _)| s.as_str() == "total")
+        .map(|(_, w)| w.as_str())
+        .collect();
+    // As the CSV run: 1, 7, 0, 1.
+    assert_eq!(totals, ["1", "7", "0", "1"]);
+    let o = run_on(
+        "score",
+        "wide.parquet",
+        &bytes,
+        &with(CHARLSON, &["--dx", "dx*", "--poa", "poa*"]),
+    );
+    assert_eq!(col(&o, "charlson_charlson1987"), ["1", "7", "0", "1"]);
+}
