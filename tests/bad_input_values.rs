@@ -793,3 +793,23 @@ fn parquet_wide_poa_reads_the_paired_columns() {
     );
     assert_eq!(col(&o, "charlson_charlson1987"), ["1", "7", "0", "1"]);
 }
+
+#[test]
+fn a_field_indicator_covers_every_code_of_a_split_field() {
+    // I21 (1) and C78.0 (6) share one field and one indicator: N leaves both
+    // out, Y counts both. One indicator per field is counted.
+    let input = "id,dx1,poa1\n1,I21|C78.0,N\n2,I21|C78.0,Y\n";
+    let o = score(
+        input,
+        &with(CHARLSON, &["--dx", "dx1", "--dx-sep", "|", "--poa", "poa*"]),
+    );
+    accepted(&o, input);
+    assert_eq!(col(&o, "charlson_charlson1987"), ["0", "7"]);
+    assert!(
+        summary(&o).ends_with(
+            "; present-on-admission indicators: 'N' 1, 'Y' 1; codes not present on admission left out: 2"
+        ),
+        "{}",
+        summary(&o)
+    );
+}
