@@ -13,7 +13,7 @@ fn write_err(e: std::io::Error) -> Error {
 }
 
 fn json_out<T: serde::Serialize>(v: &T) -> Result<(), Error> {
-    let mut out = std::io::stdout().lock();
+    let mut out = morbus::io::atomic::stdout();
     let text = serde_json::to_string_pretty(v)
         .map_err(|e| Error::Usage(format!("cannot write JSON: {e}")))?;
     writeln!(out, "{text}").map_err(write_err)
@@ -123,8 +123,7 @@ pub fn show(list: &CodeList, json: bool) -> Result<(), Error> {
             line(format!("  {} {to}: +{}  [{}]", a.from, a.points, a.source));
         }
     }
-    std::io::stdout()
-        .lock()
+    morbus::io::atomic::stdout()
         .write_all(s.as_bytes())
         .map_err(write_err)
 }
@@ -132,7 +131,7 @@ pub fn show(list: &CodeList, json: bool) -> Result<(), Error> {
 /// `lists check`: every diagnostic on standard output; exit 2 on errors.
 pub fn check(path: &Path) -> Result<(), Error> {
     let report = lists::check_path(path);
-    let mut out = std::io::stdout().lock();
+    let mut out = morbus::io::atomic::stdout();
     for d in report.diagnostics() {
         writeln!(out, "{d}").map_err(write_err)?;
     }
@@ -169,7 +168,7 @@ pub fn check(path: &Path) -> Result<(), Error> {
         failed
     )
     .map_err(write_err)?;
-    drop(out);
+    out.flush().map_err(write_err)?;
     if errors > 0 {
         return Err(Error::Usage(format!(
             "{} has {errors} error(s) in code lists (shown above)",
@@ -298,8 +297,7 @@ pub fn diff(a: &CodeList, b: &CodeList, json: bool) -> Result<(), Error> {
     for c in &d.sources_changed {
         line(format!("{}: '{}' -> '{}'", c.what, c.before, c.after));
     }
-    std::io::stdout()
-        .lock()
+    morbus::io::atomic::stdout()
         .write_all(s.as_bytes())
         .map_err(write_err)
 }
