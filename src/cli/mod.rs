@@ -703,6 +703,9 @@ fn list_table(cat: &Catalogue) -> Result<(), Error> {
 }
 
 fn lists_command(a: ListsArgs) -> Result<(), Error> {
+    if !matches!(a.command, Some(ListsCommand::Export { .. })) {
+        morbus::io::atomic::check_stdout_open()?;
+    }
     match a.command {
         None => list_table(&catalogue(a.lists.as_ref(), false, false)?),
         Some(ListsCommand::Check { path }) => list_cmds::check(&path),
