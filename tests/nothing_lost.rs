@@ -14,7 +14,7 @@ use std::io::Write;
 use std::path::Path;
 use std::process::{Command, Stdio};
 
-use common::{invented_extract, morbus, TempDir};
+use common::{invented_extract, TempDir};
 
 const EXTRACT: &str = "episode,patient,dx1,dx2\n\
 e1,p1,I21.9,E11.9\n\
@@ -538,4 +538,127 @@ fn an_interrupt_removes_the_temporary_files() {
         2,
         &["--id", "patient", "--lookback", "all", "--date", "admitted"],
     );
+}
+
+#[cfg(feature = "parquet")]
+mod parquet_cases {
+    use super::*;
+    use arrow_array::builder::StringBuilder;
+    use arrow_array::{ArrayRef, RecordBatch, TimestampMicrosecondArray};
+    use common::{column, morbus};
+    use parquet::arrow::ArrowWriter;
+    use std::sync::Arc;
+
+    fn write_parquet(path: &Path, batch: &RecordBatch) {
+        let file = std::fs::File::create(path).unwrap();
+        let mut w = ArrowWriter::try_new(file, batch.schema(), None).unwrap();
+        w.write(batch).unwrap();
+        w.close().unwrap();
+    }
+
+    /// Timestamps with a named time zone (as data-frame libraries write
+    /// zone-aware columns), in a column the run uses and in one it only
+    /// passes on.
+    fn zoned(dir: &TempDir) -> std::path::PathBuf {
+        // Patient p: heart failure at 2023-01-02T15:30Z, which is 2023-01-03
+        // 00:30 in Asia/Tokyo (UTC+09:00 all year, no daylight saving since
+        // 1951: IANA time zone database); a myocardial infarction at
+        // 2024-01-03 00:30 Tokyo time. 2023-01-03 is exactly 365 days before
+        // 2024-01-03 (inclusive window); the UTC date 2023-01-02 is 366:
+        // read in its zone the earlier episode counts. Charlson et al. 1987
+        // weights (from memory, as in tests/history.rs): heart failure 1,
+        // myocardial infarction 1.
+        let micros = |days: i64, secs: i64| (days * 86_400 + secs) * 1_000_000;
+        let d2023_01_02 = 19_359; // days since 1970-01-01
+        let d2024_01_02 = d2023_01_02 + 365;
+        let admitted = TimestampMicrosecondArray::from(vec![
+            micros(d2023_01_02, 15 * 3600 + 1800),
+            micros(d2024_01_02, 15 * 3600 + 1800),
+        ])
+        .with_timezone("Asia/Tokyo");
+        // Not used by the run: 12:00Z is 07:00 in New York in January
+        // (UTC-05:00, standard time) and 08:00 in July (UTC-04:00).
+        let recorded = TimestampMicrosecondArray::from(vec![
+            micros(d2023_01_02, 12 * 3600),
+            micros(d2023_01_02 + 181, 12 * 3600),
+        ])
+        .with_timezone("America/New_York");
+        let mut pid = StringBuilder::new();
+        let mut dx = StringBuilder::new();
+        for (p, d) in [("p", "I50.9"), ("p", "I21.9")] {
+            pid.append_value(p);
+            dx.append_value(d);
+        }
+        let batch = RecordBatch::try_from_iter([
+            ("patient", Arc::new(pid.finish()) as ArrayRef),
+            ("admitted", Arc::new(admitted) as ArrayRef),
+            ("recorded", Arc::new(recorded) as ArrayRef),
+            ("dx1", Arc::new(dx.finish()) as ArrayRef),
+        ])
+        .unwrap();
+        let input = dir.path().join("zoned.parquet");
+        write_parquet(&input, &batch);
+        input
+    }
+
+    #[test]
+    fn timestamps_with_a_named_time_zone_are_read() {
+        let dir = TempDir::new("named-zone");
+        let input = zoned(&dir);
+        let input = input.to_str().unwrap();
+        let lookback = [
+            "--dx",
+            "dx1",
+            "--id",
+            "patient",
+            "--date",
+            "admitted",
+            "--lookback",
+            "365",
+            "--index",
+            "charlson:charlson1987",
+        ];
+        let mut args = vec!["score", input];
+        args.extend_from_slice(&lookback);
+        let r = morbus(&args);
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        assert_eq!(column(&r.stdout, "charlson_charlson1987"), ["1", "2"]);
+        assert_eq!(
+            column(&r.stdout, "admitted"),
+            ["2023-01-03T00:30:00+09:00", "2024-01-03T00:30:00+09:00"]
+        );
+        assert_eq!(
+            column(&r.stdout, "recorded"),
+            ["2023-01-02T07:00:00-05:00", "2023-07-02T08:00:00-04:00"]
+        );
+        // Without a lookback, the zoned columns are only passed on.
+        let r = morbus(&["score", input, "--dx", "dx1", "-q"]);
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        assert_eq!(
+            column(&r.stdout, "recorded")[0],
+            "2023-01-02T07:00:00-05:00"
+        );
+        // Parquet to Parquet keeps the arrays as they are.
+        let out = dir.join("out.parquet");
+        let mut args = vec!["score", input, "-o", &out, "-q"];
+        args.extend_from_slice(&lookback);
+        let r = morbus(&args);
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        let file = std::fs::File::open(&out).unwrap();
+        let reader = parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder::try_new(file)
+            .unwrap()
+            .build()
+            .unwrap();
+        let batch = reader.map(Result::unwrap).next().unwrap();
+        let zone = |name: &str| {
+            batch
+                .schema()
+                .field_with_name(name)
+                .unwrap()
+                .data_type()
+                .to_string()
+        };
+        assert_eq!(zone("admitted"), "Timestamp(µs, \"Asia/Tokyo\")");
+        assert_eq!(zone("recorded"), "Timestamp(µs, \"America/New_York\")");
+    }
 }
