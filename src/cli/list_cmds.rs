@@ -8,6 +8,12 @@ use morbus::lists::diff::CodeLine;
 use morbus::lists::{self, CodeList};
 use morbus::Error;
 
+/// A line of a list's text for the terminal: control characters escaped as
+/// everywhere else (see `morbus::pipeline::escaped`).
+pub fn shown(text: &str) -> String {
+    morbus::pipeline::escaped(text.as_bytes())
+}
+
 fn write_err(e: std::io::Error) -> Error {
     Error::io("cannot write output", e)
 }
@@ -27,7 +33,7 @@ pub fn show(list: &CodeList, json: bool) -> Result<(), Error> {
     }
     let mut s = String::new();
     let mut line = |t: String| {
-        s.push_str(t.trim_end());
+        s.push_str(&shown(t.trim_end()));
         s.push('\n');
     };
     line(format!("list               {}", d.name));
@@ -197,7 +203,7 @@ pub fn diff(a: &CodeList, b: &CodeList, json: bool) -> Result<(), Error> {
     }
     let mut s = String::new();
     let mut line = |t: String| {
-        s.push_str(t.trim_end());
+        s.push_str(&shown(t.trim_end()));
         s.push('\n');
     };
     line(format!(

@@ -646,24 +646,26 @@ fn list_table(cat: &Catalogue) -> Result<(), Error> {
         .iter()
         .map(|l| {
             [
-                l.name.clone(),
-                l.version.clone(),
+                list_cmds::shown(&l.name),
+                list_cmds::shown(&l.version),
                 l.conditions.len().to_string(),
                 l.code_entries().to_string(),
-                l.weightings
-                    .iter()
-                    .map(|w| {
-                        if w.name == l.default_weighting {
-                            format!("{} (default)", w.name)
-                        } else {
-                            w.name.clone()
-                        }
-                    })
-                    .collect::<Vec<_>>()
-                    .join(", "),
+                list_cmds::shown(
+                    &l.weightings
+                        .iter()
+                        .map(|w| {
+                            if w.name == l.default_weighting {
+                                format!("{} (default)", w.name)
+                            } else {
+                                w.name.clone()
+                            }
+                        })
+                        .collect::<Vec<_>>()
+                        .join(", "),
+                ),
                 l.checksum[..12].to_string(),
-                l.origin.to_string(),
-                l.source.clone(),
+                list_cmds::shown(&l.origin.to_string()),
+                list_cmds::shown(&l.source),
             ]
         })
         .collect();

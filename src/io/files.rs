@@ -53,8 +53,15 @@ pub fn open_input(path: Option<&Path>) -> Result<Input, Error> {
         return parquet_input(path, buffered, size, name);
     }
     let reader: Box<dyn Read + Send> = if compressed {
-        Box::new(MultiGzDecoder::new(buffered))
+        let mut text = BufReader::with_capacity(1 << 16, MultiGzDecoder::new(buffered));
+        // The same message as a damaged stream found later in the run.
+        let head = text
+            .fill_buf()
+            .map_err(|e| Error::io("cannot read input", e))?;
+        refuse_wide_encodings(head, &name)?;
+        Box::new(text)
     } else {
+        refuse_wide_encodings(head, &name)?;
         Box::new(buffered)
     };
     Ok(Input {
@@ -65,6 +72,42 @@ pub fn open_input(path: Option<&Path>) -> Result<Input, Error> {
         #[cfg(feature = "parquet")]
         parquet: None,
     })
+}
+
+/// The UTF-16 or UTF-32 encoding of text starting with `head`, recognised
+/// by its byte-order mark or, without one, by the NUL bytes that ASCII
+/// characters carry in those encodings.
+pub fn wide_encoding(head: &[u8]) -> Option<&'static str> {
+    const MARKS: [(&[u8], &str); 4] = [
+        (b"\xff\xfe\0\0", "UTF-32 (little-endian)"),
+        (b"\0\0\xfe\xff", "UTF-32 (big-endian)"),
+        (b"\xff\xfe", "UTF-16 (little-endian)"),
+        (b"\xfe\xff", "UTF-16 (big-endian)"),
+    ];
+    if let Some((_, name)) = MARKS.iter().find(|(m, _)| head.starts_with(m)) {
+        return Some(name);
+    }
+    // Without a mark: the first characters of a header are ASCII.
+    match head {
+        [a, 0, 0, 0, b, 0, 0, 0, ..] if *a != 0 && *b != 0 => Some("UTF-32 (little-endian)"),
+        [0, 0, 0, a, 0, 0, 0, b, ..] if *a != 0 && *b != 0 => Some("UTF-32 (big-endian)"),
+        [a, 0, b, 0, ..] if *a != 0 && *b != 0 => Some("UTF-16 (little-endian)"),
+        [0, a, 0, b, ..] if *a != 0 && *b != 0 => Some("UTF-16 (big-endian)"),
+        _ => None,
+    }
+}
+
+fn refuse_wide_encodings(head: &[u8], name: &str) -> Result<(), Error> {
+    match wide_encoding(head) {
+        None => Ok(()),
+        Some(encoding) => Err(Error::data(
+            None,
+            format!(
+                "{name} is {encoding} text; morbus reads UTF-8 (or ASCII) text: convert it \
+                 first (e.g. with iconv -t UTF-8)"
+            ),
+        )),
+    }
 }
 
 #[cfg(feature = "parquet")]
@@ -244,5 +287,47 @@ fn raw_output(path: Option<&Path>) -> Result<RawOutput, Error> {
                 None,
             ))
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::wide_encoding;
+
+    #[test]
+    fn wide_encodings_are_recognised() {
+        // Byte-order marks as the Unicode Standard defines them (U+FEFF in
+        // each encoding); the NUL patterns are those of ASCII letters.
+        let utf16le: Vec<u8> = "id,dx1\n"
+            .encode_utf16()
+            .flat_map(u16::to_le_bytes)
+            .collect();
+        let utf16be: Vec<u8> = "id,dx1\n"
+            .encode_utf16()
+            .flat_map(u16::to_be_bytes)
+            .collect();
+        let utf32le: Vec<u8> = "id,dx1"
+            .chars()
+            .flat_map(|c| (c as u32).to_le_bytes())
+            .collect();
+        let utf32be: Vec<u8> = "id,dx1"
+            .chars()
+            .flat_map(|c| (c as u32).to_be_bytes())
+            .collect();
+        assert_eq!(wide_encoding(&utf16le), Some("UTF-16 (little-endian)"));
+        assert_eq!(wide_encoding(&utf16be), Some("UTF-16 (big-endian)"));
+        assert_eq!(wide_encoding(&utf32le), Some("UTF-32 (little-endian)"));
+        assert_eq!(wide_encoding(&utf32be), Some("UTF-32 (big-endian)"));
+        assert_eq!(wide_encoding(b"\xff\xfeid"), Some("UTF-16 (little-endian)"));
+        assert_eq!(wide_encoding(b"\xfe\xffid"), Some("UTF-16 (big-endian)"));
+        assert_eq!(
+            wide_encoding(b"\xff\xfe\0\0i\0\0\0"),
+            Some("UTF-32 (little-endian)")
+        );
+        assert_eq!(wide_encoding(b"\0\0\xfe\xff"), Some("UTF-32 (big-endian)"));
+        assert_eq!(wide_encoding(b"\xef\xbb\xbfid,dx1\n"), None);
+        assert_eq!(wide_encoding(b"id,dx1\n"), None);
+        assert_eq!(wide_encoding(b""), None);
+        assert_eq!(wide_encoding(b"a\0b"), None);
     }
 }
