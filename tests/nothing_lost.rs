@@ -540,6 +540,169 @@ fn an_interrupt_removes_the_temporary_files() {
     );
 }
 
+/// Inputs that are not plain files: list files must be regular files of a
+/// bounded size; an export never writes through a link to nothing.
+#[test]
+fn list_files_that_are_not_plain_files() {
+    let dir = TempDir::new("list-files");
+    let d = dir.path();
+    std::fs::create_dir(d.join("lists")).unwrap();
+    let fifo = d.join("lists/pipe.tsv");
+    assert!(Command::new("mkfifo")
+        .arg(&fifo)
+        .status()
+        .unwrap()
+        .success());
+    std::os::unix::fs::symlink("/dev/zero", d.join("lists/zero.tsv")).unwrap();
+    dir.write("c.csv", EXTRACT);
+    let not_regular =
+        "cannot read: not a regular file (a FIFO, device or socket); a list is read from a file";
+    // Neither hangs on the FIFO nor reads /dev/zero without end.
+    let r = run_in(d, &["score", "c.csv", "--dx", "dx*", "--lists", "lists"]);
+    assert_eq!(r.code, 2, "{}", r.stderr);
+    assert!(
+        r.stderr
+            .contains(&format!("lists/pipe.tsv: error: {not_regular}")),
+        "{}",
+        r.stderr
+    );
+    assert!(
+        r.stderr
+            .contains(&format!("lists/zero.tsv: error: {not_regular}")),
+        "{}",
+        r.stderr
+    );
+    let r = run_in(d, &["lists", "show", "lists/pipe.tsv"]);
+    assert_eq!(r.code, 2, "{}", r.stderr);
+    assert!(r.stderr.contains(not_regular), "{}", r.stderr);
+    let r = run_in(d, &["lists", "check", "lists/zero.tsv"]);
+    assert_eq!(r.code, 2, "{}", r.stderr);
+    assert!(r.stdout.contains(not_regular), "{}", r.stdout);
+
+    // An export onto a link to nothing: refused without --force, the
+    // link's target never created; with --force the file replaces the link.
+    std::fs::create_dir(d.join("out")).unwrap();
+    std::os::unix::fs::symlink("../elsewhere.tsv", d.join("out/charlson.tsv")).unwrap();
+    let r = run_in(d, &["lists", "export", "charlson", "out"]);
+    assert_eq!(r.code, 2);
+    assert_eq!(
+        r.stderr,
+        "morbus: error: out/charlson.tsv is a symbolic link to a file that does not exist; remove it or use --force to replace it\n"
+    );
+    assert!(!d.join("elsewhere.tsv").exists());
+    let r = run_in(d, &["lists", "export", "charlson", "out", "--force"]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let m = std::fs::symlink_metadata(d.join("out/charlson.tsv")).unwrap();
+    assert!(m.file_type().is_file());
+    assert!(!d.join("elsewhere.tsv").exists());
+    assert_eq!(entries(&d.join("out")), ["charlson.tsv"]);
+}
+
+/// Text shown on a terminal has its control characters escaped, the same
+/// way for values, header names and list fields; a carriage return inside
+/// a field is kept (the code reader does not drop it) and shown.
+#[test]
+fn shown_text_is_escaped_and_wide_encodings_refused() {
+    let dir = TempDir::new("escaped");
+    let d = dir.path();
+    dir.write("cr.csv", "id,dx1\na,\"I21\r\"\nb,I50\n");
+    let r = run_in(d, &["score", "cr.csv", "--dx", "dx1", "--strict"]);
+    assert_eq!(r.code, 3);
+    assert_eq!(
+        r.stderr,
+        "morbus: error: line 2: invalid code 'I21\\r' in column 'dx1' (--strict)\n"
+    );
+    let r = run_in(
+        d,
+        &["score", "cr.csv", "--dx", "dx1", "--index", "charlson"],
+    );
+    assert_eq!(r.code, 0);
+    assert!(
+        r.stderr
+            .contains("most frequent invalid values: 'I21\\r' (1)"),
+        "{}",
+        r.stderr
+    );
+    dir.write("esc.csv", "id,d\x1b[31mx\na,I21\n");
+    let r = run_in(d, &["score", "esc.csv", "--dx", "dx1"]);
+    assert_eq!(r.code, 2);
+    assert_eq!(
+        r.stderr,
+        "morbus: error: diagnosis column 'dx1' not found; columns in the input: id, d\\u{1b}[31mx\n"
+    );
+    // A list whose title and version carry control characters.
+    let list = std::fs::read_to_string(common::root().join("code-lists/charlson.tsv")).unwrap();
+    let mut edited = String::new();
+    for line in list.lines() {
+        if line.starts_with("version\t") {
+            edited.push_str("version\t2026.1\x1b[2J\n");
+        } else {
+            edited.push_str(line);
+            edited.push('\n');
+        }
+    }
+    dir.write("charlson.tsv", &edited);
+    let r = run_in(d, &["lists", "show", "charlson.tsv"]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    assert!(
+        r.stdout.contains("version            2026.1\\u{1b}[2J\n"),
+        "{}",
+        r.stdout
+    );
+    assert!(!r.stdout.contains('\x1b'));
+    // UTF-16 and UTF-32, with or without a byte-order mark: exit 1.
+    let text = "id,dx1\na,I21\n";
+    let cases: [(&str, Vec<u8>, &str); 4] = [
+        (
+            "u16le.csv",
+            [
+                &[0xff, 0xfe][..],
+                &text
+                    .encode_utf16()
+                    .flat_map(u16::to_le_bytes)
+                    .collect::<Vec<_>>(),
+            ]
+            .concat(),
+            "UTF-16 (little-endian)",
+        ),
+        (
+            "u16be.csv",
+            text.encode_utf16().flat_map(u16::to_be_bytes).collect(),
+            "UTF-16 (big-endian)",
+        ),
+        (
+            "u32le.csv",
+            text.chars()
+                .flat_map(|c| (c as u32).to_le_bytes())
+                .collect(),
+            "UTF-32 (little-endian)",
+        ),
+        (
+            "u32be.csv",
+            [
+                &[0, 0, 0xfe, 0xff][..],
+                &text
+                    .chars()
+                    .flat_map(|c| (c as u32).to_be_bytes())
+                    .collect::<Vec<_>>(),
+            ]
+            .concat(),
+            "UTF-32 (big-endian)",
+        ),
+    ];
+    for (name, bytes, encoding) in cases {
+        std::fs::write(d.join(name), &bytes).unwrap();
+        let r = run_in(d, &["score", name, "--dx", "dx1"]);
+        assert_eq!(r.code, 1, "{name}");
+        assert_eq!(
+            r.stderr,
+            format!("morbus: error: {name} is {encoding} text; morbus reads UTF-8 (or ASCII) text: convert it first (e.g. with iconv -t UTF-8)\n")
+        );
+        assert_eq!(r.stdout, "");
+        assert_eq!(std::fs::read(d.join(name)).unwrap(), bytes);
+    }
+}
+
 #[cfg(feature = "parquet")]
 mod parquet_cases {
     use super::*;
@@ -660,5 +823,28 @@ mod parquet_cases {
         };
         assert_eq!(zone("admitted"), "Timestamp(µs, \"Asia/Tokyo\")");
         assert_eq!(zone("recorded"), "Timestamp(µs, \"America/New_York\")");
+    }
+
+    /// A Parquet file read through a FIFO (as `<(cat f.parquet)` gives) is
+    /// read whole into memory, as standard input is.
+    #[test]
+    fn parquet_through_a_fifo() {
+        let dir = TempDir::new("parquet-fifo");
+        let input = zoned(&dir);
+        let fifo = dir.path().join("pipe");
+        assert!(Command::new("mkfifo")
+            .arg(&fifo)
+            .status()
+            .unwrap()
+            .success());
+        let bytes = std::fs::read(&input).unwrap();
+        let fifo_w = fifo.clone();
+        let writer = std::thread::spawn(move || std::fs::write(fifo_w, bytes).unwrap());
+        let r = morbus(&["score", fifo.to_str().unwrap(), "--dx", "dx1", "-q"]);
+        writer.join().unwrap();
+        let direct = morbus(&["score", input.to_str().unwrap(), "--dx", "dx1", "-q"]);
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        assert_eq!(r.stdout, direct.stdout);
+        assert_eq!(column(&r.stdout, "dx1"), ["I50.9", "I21.9"]);
     }
 }
