@@ -513,8 +513,9 @@ fn interrupted(signal: &str, number: i32, extra: &[&str]) {
         assert!(tries < 6000, "no temporary files: {:?}", entries(d));
         std::thread::sleep(std::time::Duration::from_millis(10));
     }
-    let status = Command::new("kill")
-        .args([&format!("-{signal}"), &child.id().to_string()])
+    let status = Command::new("bash")
+        .arg("-c")
+        .arg(format!("kill -{signal} {}", child.id()))
         .status()
         .unwrap();
     assert!(status.success());
