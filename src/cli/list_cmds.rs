@@ -8,12 +8,18 @@ use morbus::lists::diff::CodeLine;
 use morbus::lists::{self, CodeList};
 use morbus::Error;
 
+/// A line of a list's text for the terminal: control characters escaped as
+/// everywhere else (see `morbus::pipeline::escaped`).
+pub fn shown(text: &str) -> String {
+    morbus::pipeline::escaped(text.as_bytes())
+}
+
 fn write_err(e: std::io::Error) -> Error {
     Error::io("cannot write output", e)
 }
 
 fn json_out<T: serde::Serialize>(v: &T) -> Result<(), Error> {
-    let mut out = std::io::stdout().lock();
+    let mut out = morbus::io::atomic::stdout();
     let text = serde_json::to_string_pretty(v)
         .map_err(|e| Error::Usage(format!("cannot write JSON: {e}")))?;
     writeln!(out, "{text}").map_err(write_err)
@@ -27,7 +33,7 @@ pub fn show(list: &CodeList, json: bool) -> Result<(), Error> {
     }
     let mut s = String::new();
     let mut line = |t: String| {
-        s.push_str(t.trim_end());
+        s.push_str(&shown(t.trim_end()));
         s.push('\n');
     };
     line(format!("list               {}", d.name));
@@ -126,8 +132,7 @@ pub fn show(list: &CodeList, json: bool) -> Result<(), Error> {
             line(format!("  {} {to}: +{}  [{}]", a.from, a.points, a.source));
         }
     }
-    std::io::stdout()
-        .lock()
+    morbus::io::atomic::stdout()
         .write_all(s.as_bytes())
         .map_err(write_err)
 }
@@ -135,7 +140,7 @@ pub fn show(list: &CodeList, json: bool) -> Result<(), Error> {
 /// `lists check`: every diagnostic on standard output; exit 2 on errors.
 pub fn check(path: &Path) -> Result<(), Error> {
     let report = lists::check_path(path);
-    let mut out = std::io::stdout().lock();
+    let mut out = morbus::io::atomic::stdout();
     for d in report.diagnostics() {
         writeln!(out, "{d}").map_err(write_err)?;
     }
@@ -172,7 +177,7 @@ pub fn check(path: &Path) -> Result<(), Error> {
         failed
     )
     .map_err(write_err)?;
-    drop(out);
+    out.flush().map_err(write_err)?;
     if errors > 0 {
         return Err(Error::Usage(format!(
             "{} has {errors} error(s) in code lists (shown above)",
@@ -200,8 +205,7 @@ pub fn diff(a: &CodeList, b: &CodeList, json: bool) -> Result<(), Error> {
         return json_out(&d);
     }
     let s = diff_text(&d);
-    std::io::stdout()
-        .lock()
+    morbus::io::atomic::stdout()
         .write_all(s.as_bytes())
         .map_err(write_err)
 }
@@ -244,8 +248,7 @@ pub fn diff_dirs(d: &lists::DirDiff, json: bool) -> Result<(), Error> {
             &o.checksum[..12]
         ));
     }
-    std::io::stdout()
-        .lock()
+    morbus::io::atomic::stdout()
         .write_all(s.as_bytes())
         .map_err(write_err)
 }
@@ -254,7 +257,7 @@ pub fn diff_dirs(d: &lists::DirDiff, json: bool) -> Result<(), Error> {
 fn diff_text(d: &lists::ListDiff) -> String {
     let mut s = String::new();
     let mut line = |t: String| {
-        s.push_str(t.trim_end());
+        s.push_str(&shown(t.trim_end()));
         s.push('\n');
     };
     line(format!(
