@@ -516,3 +516,172 @@ fn long_rows_of_one_id_that_disagree_on_age_are_counted_without_a_history() {
         "{err}"
     );
 }
+
+/// Scores a wide history and returns the named output columns, row by row.
+fn columns(input: &str, args: &[&str], names: &[&str]) -> Vec<Vec<String>> {
+    let mut all = vec![
+        "score", "--dx", "dx*", "--id", "patient", "--date", "admitted",
+    ];
+    all.extend_from_slice(args);
+    let (code, out, err) = morbus(&all, input);
+    assert_eq!(code, 0, "{err}");
+    let mut lines = out.lines();
+    let head: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let at: Vec<usize> = names
+        .iter()
+        .map(|n| {
+            head.iter()
+                .position(|h| h == n)
+                .unwrap_or_else(|| panic!("{n}"))
+        })
+        .collect();
+    lines
+        .map(|l| {
+            let f: Vec<&str> = l.split(',').collect();
+            at.iter().map(|&i| f[i].to_string()).collect()
+        })
+        .collect()
+}
+
+#[test]
+fn earlier_only_leaves_out_the_episode_and_its_day() {
+    // Day 0: myocardial infarction (1) in one episode, heart failure (1) in
+    // another of the same day; day 92: diabetes with chronic complications
+    // (2). Charlson 1987 weights, see the top of the file.
+    let input = "patient,admitted,dx1\n\
+a,2024-03-01,I21.0\n\
+a,2024-03-01,I50.0\n\
+a,2024-06-01,E11.2\n";
+    // Default: the episode itself and every episode up to its day.
+    assert_eq!(wide(input, &["--lookback", "365"]), ["2", "2", "4"]);
+    // Earlier days only: neither the episode nor its same-day sibling.
+    assert_eq!(
+        wide(input, &["--lookback", "365", "--window", "earlier-only"]),
+        ["0", "0", "2"]
+    );
+    // The window's far end stays inclusive: day 0 is 92 days before day 92.
+    assert_eq!(
+        wide(input, &["--lookback", "92", "--window", "earlier-only"]),
+        ["0", "0", "2"]
+    );
+    assert_eq!(
+        wide(input, &["--lookback", "91", "--window", "earlier-only"]),
+        ["0", "0", "0"]
+    );
+    // A zero-day window holds no earlier day.
+    assert_eq!(
+        wide(input, &["--lookback", "0", "--window", "earlier-only"]),
+        ["0", "0", "0"]
+    );
+    assert_eq!(
+        wide(input, &["--lookback", "all", "--window", "earlier-only"]),
+        ["0", "0", "2"]
+    );
+}
+
+#[test]
+fn each_list_is_scored_over_its_own_window() {
+    // Heart failure (I50.0) 548 days before the second episode: inside a
+    // 730-day window, outside a 365-day one. I50.x is congestive heart
+    // failure in both Charlson (weight 1, Charlson 1987) and Elixhauser
+    // (Quan et al., Med Care 2005;43:1130-9, Table 2; from memory); the
+    // Elixhauser count weighting counts conditions (common practice).
+    let input = "patient,admitted,dx1\n\
+a,2022-06-01,I50.0\n\
+a,2023-12-01,\n";
+    let names = ["charlson_charlson1987", "elixhauser_count"];
+    let index = ["--index", "charlson:charlson1987,elixhauser:count"];
+    let run = |lookback: &str| {
+        let mut a = index.to_vec();
+        a.extend(["--lookback", lookback]);
+        columns(input, &a, &names)
+    };
+    assert_eq!(run("charlson=365,elixhauser=730")[1], ["0", "1"]);
+    assert_eq!(run("elixhauser=730,charlson=365")[1], ["0", "1"]);
+    assert_eq!(run("365,elixhauser=730")[1], ["0", "1"]);
+    assert_eq!(run("730,elixhauser=365")[1], ["1", "0"]);
+    // A list not named, with no bare DAYS, is scored from the episode alone.
+    assert_eq!(run("charlson=730")[1], ["1", "0"]);
+    assert_eq!(run("elixhauser=all")[1], ["0", "1"]);
+    // The first episode has its own heart failure under every window.
+    assert_eq!(run("charlson=365,elixhauser=730")[0], ["1", "1"]);
+    // Earlier-only applies to the lists with a window; the others keep the
+    // episode's own codes.
+    let mut a = index.to_vec();
+    a.extend(["--lookback", "elixhauser=730", "--window", "earlier-only"]);
+    assert_eq!(columns(input, &a, &names), [["1", "0"], ["0", "1"]]);
+}
+
+#[test]
+fn window_options_are_checked() {
+    let input = "patient,admitted,dx1\na,2024-01-01,I21.0\n";
+    let base = [
+        "score", "--dx", "dx1", "--id", "patient", "--date", "admitted",
+    ];
+    for (extra, message) in [
+        (
+            &["--lookback", "nosuchlist=30"][..],
+            "--lookback names list 'nosuchlist'",
+        ),
+        (&["--lookback", "charlson=x"][..], "not 'x'"),
+        (
+            &["--lookback", "charlson=3,charlson=4"][..],
+            "more than one window",
+        ),
+        (&["--lookback", "3,4"][..], "more than one window"),
+        (
+            &["--window", "earlier-only"][..],
+            "--window is used with --lookback",
+        ),
+        (
+            &["--lookback", "3", "--window", "before"][..],
+            "--window takes",
+        ),
+    ] {
+        let mut a = base.to_vec();
+        a.extend_from_slice(extra);
+        let (code, _, err) = morbus(&a, input);
+        assert_eq!(code, 2, "{extra:?}: {err}");
+        assert!(err.contains(message), "{extra:?}: {err}");
+    }
+}
+
+#[test]
+fn explain_shows_the_current_episode_left_out() {
+    let input = "patient,admitted,dx1\n\
+a,2024-03-01,I21.0\n\
+a,2024-06-01,E11.2\n";
+    let (code, out, err) = morbus(
+        &[
+            "explain",
+            "--dx",
+            "dx1",
+            "--id",
+            "patient",
+            "--date",
+            "admitted",
+            "--lookback",
+            "365",
+            "--window",
+            "earlier-only",
+            "--index",
+            "charlson:charlson1987",
+        ],
+        input,
+    );
+    assert_eq!(code, 0, "{err}");
+    // The second episode: its own diabetes left out, the earlier infarction
+    // counted, total 1.
+    let rows: Vec<&str> = out.lines().filter(|l| l.starts_with("a,2,")).collect();
+    assert!(
+        rows.iter()
+            .any(|l| l.contains("E112") && l.ends_with("excluded:current_episode")),
+        "{out}"
+    );
+    assert!(
+        rows.iter()
+            .any(|l| l.contains("I210") && l.ends_with(",counted")),
+        "{out}"
+    );
+    assert!(rows.iter().any(|l| l.ends_with(",1,total")), "{out}");
+}

@@ -32,7 +32,7 @@ use pyo3::prelude::*;
 use morbus::io::{write_field, RecordScanner};
 use morbus::pipeline::dates::write_iso_date;
 use morbus::pipeline::explain::ExplainFormat;
-use morbus::pipeline::history::History;
+use morbus::pipeline::history::{History, Windows};
 use morbus::pipeline::{DateFormat, Header, Layout, ScoreConfig, Summary};
 use morbus::provenance::Provenance;
 use morbus::score::{Engine, IndexSpec, ScoreOptions, Value, DEFAULT_INDICES};
@@ -281,15 +281,21 @@ fn resolve(
             )))
         }
     };
-    let lookback = match hist.lookback.as_deref() {
-        None => None,
-        Some("all") => Some(u32::MAX),
-        Some(t) => Some(t.trim().parse::<u32>().map_err(|_| {
-            usage(format!(
-                "lookback takes a whole number of days or 'all', not '{t}'"
-            ))
-        })?),
+    let (lookback, lookback_lists) = match hist.lookback.as_deref() {
+        None => (None, Vec::new()),
+        Some(t) => morbus::pipeline::parse_lookback(t, "lookback").map_err(value_error)?,
     };
+    let window = match hist.window.as_deref() {
+        None => morbus::pipeline::WindowScope::default(),
+        Some(w) => morbus::pipeline::WindowScope::parse(w).ok_or_else(|| {
+            usage(format!(
+                "window takes 'current-and-earlier' or 'earlier-only', not '{w}'"
+            ))
+        })?,
+    };
+    if hist.window.is_some() && hist.lookback.is_none() {
+        return Err(usage("window= is used with lookback=DAYS (or 'all')"));
+    }
     let date_format = match hist.date_format.as_deref() {
         None => DateFormat::Iso,
         Some(p) => DateFormat::from_pattern(p).ok_or_else(|| {
@@ -298,7 +304,7 @@ fn resolve(
             ))
         })?,
     };
-    if hist.date.is_some() && lookback.is_none() && hist.episode.is_none() {
+    if hist.date.is_some() && hist.lookback.is_none() && hist.episode.is_none() {
         return Err(usage("date= is used with lookback=DAYS (or 'all')"));
     }
     let poa_values: Vec<String> = hist
@@ -317,6 +323,8 @@ fn resolve(
         date: hist.date,
         date_format,
         lookback,
+        lookback_lists,
+        window,
         exclude_primary: hist.exclude_primary,
         primary: hist.primary,
         poa: hist.poa,
@@ -353,7 +361,7 @@ fn resolve(
     let date_col = one(&cfg.date, "date")?;
     let primary_col = one(&cfg.primary, "primary-diagnosis")?;
     let poa_col = one(&cfg.poa, "present-on-admission")?;
-    if cfg.lookback.is_some() && (id_col.is_none() || date_col.is_none()) {
+    if cfg.uses_history() && (id_col.is_none() || date_col.is_none()) {
         return Err(usage("lookback= needs id= (the patient column) and date="));
     }
     if layout == Layout::Long && cfg.exclude_primary && primary_col.is_none() {
@@ -444,6 +452,7 @@ struct HistoryArgs {
     date: Option<String>,
     date_format: Option<String>,
     lookback: Option<String>,
+    window: Option<String>,
     episode: Option<String>,
     exclude_primary: bool,
     primary: Option<String>,
@@ -588,7 +597,7 @@ fn fetch_text(
 /// [`crate::score`]: `first_rows` (long layout) holds, per output row, the
 /// 0-based frame row of the episode's first record.
 #[pyfunction]
-#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values))]
+#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, window, episode, exclude_primary, primary, poa, poa_values))]
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn score_history<'py>(
     py: Python<'py>,
@@ -608,6 +617,7 @@ pub(crate) fn score_history<'py>(
     date: Option<String>,
     date_format: Option<String>,
     lookback: Option<String>,
+    window: Option<String>,
     episode: Option<String>,
     exclude_primary: bool,
     primary: Option<String>,
@@ -626,6 +636,7 @@ pub(crate) fn score_history<'py>(
         date,
         date_format,
         lookback,
+        window,
         episode,
         exclude_primary,
         primary,
@@ -641,8 +652,10 @@ pub(crate) fn score_history<'py>(
     let engine = &run.engine;
     let (batch, first, summary) = py
         .detach(|| -> Result<(RecordBatch, Vec<i64>, Summary), Error> {
-            let (hist, mut summary) = History::read(engine, &run.text_cfg, &text[..], false)?;
-            let windows = hist.windows(run.text_cfg.lookback);
+            let windows = Windows::new(engine, &run.text_cfg)?;
+            let (mut hist, mut summary) = History::read(engine, &run.text_cfg, &text[..], false)?;
+            hist.resolve(&windows);
+            let hist = hist;
             let n = hist.episodes.len();
             let mut out = Output::new(engine, n);
             let mut first = Vec::with_capacity(n);
@@ -650,7 +663,7 @@ pub(crate) fn score_history<'py>(
             let mut scratch = bits.clone();
             let mut values: Vec<Value> = Vec::new();
             for (e, ep) in hist.episodes.iter().enumerate() {
-                hist.resolve_into(engine, &windows, e, &mut bits, &mut scratch);
+                hist.final_into(engine, e, &mut bits, &mut scratch);
                 engine.values(&bits, ep.age, &mut values);
                 out.push(engine, &values);
                 first.push(ep.row as i64 - 1);
@@ -697,7 +710,7 @@ fn rows_stream(rows: Vec<i64>) -> ArrowStream {
 /// `source_row` are the command line's 1-based data rows, the frame row plus
 /// one) and the summary line.
 #[pyfunction]
-#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values))]
+#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, window, episode, exclude_primary, primary, poa, poa_values))]
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn explain<'py>(
     py: Python<'py>,
@@ -716,6 +729,7 @@ pub(crate) fn explain<'py>(
     date: Option<String>,
     date_format: Option<String>,
     lookback: Option<String>,
+    window: Option<String>,
     episode: Option<String>,
     exclude_primary: bool,
     primary: Option<String>,
@@ -734,6 +748,7 @@ pub(crate) fn explain<'py>(
         date,
         date_format,
         lookback,
+        window,
         episode,
         exclude_primary,
         primary,

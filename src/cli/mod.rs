@@ -142,9 +142,17 @@ struct InputArgs {
     #[arg(long, value_name = "PATTERN")]
     date_format: Option<String>,
     /// Score each episode from the same patient's episodes dated within DAYS before it
-    /// (inclusive) and itself; `all` for the whole history.
+    /// (inclusive) and itself; `all` for the whole history. One window per list with
+    /// LIST=DAYS pairs (`charlson=365,hfrs=730`); a bare DAYS beside them is the window of
+    /// the lists not named, and lists without a window are scored from the episode alone.
     #[arg(long, value_name = "DAYS")]
     lookback: Option<String>,
+    /// Which episodes of a lookback window count: `current-and-earlier` (the episode itself
+    /// and every episode of the window up to and including its day) or `earlier-only`
+    /// (only episodes dated before its day: its own codes and those of other episodes of
+    /// the same day are left out).
+    #[arg(long, value_name = "SCOPE", default_value = "current-and-earlier")]
+    window: String,
     /// Leave out the primary diagnosis of the episode being scored (wide: the first
     /// diagnosis column; long: the rows flagged by --primary).
     #[arg(long)]
@@ -371,15 +379,21 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
     if layout == Layout::Long && a.id.is_none() {
         return Err(Error::Usage("--layout long needs --id COL".into()));
     }
-    let lookback = match a.lookback.as_deref() {
-        None => None,
-        Some("all") => Some(u32::MAX),
-        Some(t) => Some(t.trim().parse::<u32>().map_err(|_| {
-            Error::Usage(format!(
-                "--lookback takes a whole number of days or 'all', not '{t}'"
-            ))
-        })?),
+    let (lookback, lookback_lists) = match a.lookback.as_deref() {
+        None => (None, Vec::new()),
+        Some(t) => morbus::pipeline::parse_lookback(t, "--lookback")?,
     };
+    let window = morbus::pipeline::WindowScope::parse(&a.window).ok_or_else(|| {
+        Error::Usage(format!(
+            "--window takes 'current-and-earlier' or 'earlier-only', not '{}'",
+            a.window
+        ))
+    })?;
+    if window != morbus::pipeline::WindowScope::default() && a.lookback.is_none() {
+        return Err(Error::Usage(
+            "--window is used with --lookback DAYS (or 'all')".into(),
+        ));
+    }
     let date_format = match a.date_format.as_deref() {
         None => DateFormat::Iso,
         Some(p) => DateFormat::from_pattern(p).ok_or_else(|| {
@@ -388,7 +402,7 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
             ))
         })?,
     };
-    if a.date.is_some() && lookback.is_none() && a.episode.is_none() {
+    if a.date.is_some() && a.lookback.is_none() && a.episode.is_none() {
         return Err(Error::Usage(
             "--date is used with --lookback DAYS (or 'all')".into(),
         ));
@@ -398,6 +412,8 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
         date: a.date.clone(),
         date_format,
         lookback,
+        lookback_lists,
+        window,
         exclude_primary: a.exclude_primary,
         primary: a.primary.clone(),
         poa: a.poa.clone(),

@@ -4,8 +4,8 @@
 
 use std::io::{Read, Write};
 
-use super::history::History;
-use super::{Exclusion, ScoreConfig, Summary};
+use super::history::{History, Windows};
+use super::{Exclusion, ScoreConfig, Summary, WindowScope};
 use crate::io::write_field;
 use crate::lists::format_scaled;
 use crate::score::Engine;
@@ -29,6 +29,9 @@ pub enum Status {
     SupersededBy(String),
     /// Left out of the episode being scored.
     Excluded(Exclusion),
+    /// A code of the episode being scored, left out because only earlier
+    /// episodes count (`--window earlier-only`).
+    CurrentEpisode,
 }
 
 impl Status {
@@ -41,6 +44,7 @@ impl Status {
             Status::Excluded(Exclusion::NotPresentOnAdmission) => {
                 "excluded:not_present_on_admission".into()
             }
+            Status::CurrentEpisode => "excluded:current_episode".into(),
         }
     }
 }
@@ -75,9 +79,15 @@ pub fn explain_stream(
     input: impl Read + Send,
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
-    let (hist, mut summary) = History::read(engine, cfg, input, true)?;
-    let windows = hist.windows(cfg.lookback);
-    let resolved = hist.resolve(engine, &windows);
+    let windows = Windows::new(engine, cfg)?;
+    let (mut hist, mut summary) = History::read(engine, cfg, input, true)?;
+    let sorted = hist.resolve(&windows);
+    let hist = hist;
+    let resolved = hist.final_sets(engine);
+    let mut pos = vec![0u32; sorted.len()];
+    for (i, &e) in sorted.iter().enumerate() {
+        pos[e as usize] = i as u32;
+    }
     let w = hist.words();
     let p = &hist.plan;
     let d = cfg.delimiter;
@@ -144,18 +154,6 @@ pub fn explain_stream(
     let mut order: Vec<u32> = Vec::new();
     for (e, ep) in hist.episodes.iter().enumerate() {
         let final_bits = &resolved[e * w..(e + 1) * w];
-        // The current episode first, then the window's others, most recent
-        // first.
-        let (lo, hi) = windows.range[e];
-        order.clear();
-        order.push(e as u32);
-        let mut others: Vec<u32> = windows.sorted[lo as usize..hi as usize]
-            .iter()
-            .copied()
-            .filter(|&f| f as usize != e)
-            .collect();
-        others.reverse();
-        order.extend(others);
 
         let mut prefix: Vec<String> = Vec::new();
         if id_name.is_some() {
@@ -171,6 +169,13 @@ pub fn explain_stream(
             let list = &sel.list;
             let weighting = &list.weightings[spec.weighting];
             let decimals = weighting.decimals;
+            // The current episode first, then the window's others, most
+            // recent first.
+            let days = windows.per_list[spec.list];
+            order.clear();
+            order.push(e as u32);
+            order.extend(hist.window_members(&sorted, &pos, e, days, windows.scope));
+            let current_left_out = days.is_some() && windows.scope == WindowScope::EarlierOnly;
             let mut counted = vec![false; list.conditions.len()];
             let mut total = 0i64;
             for &src in &order {
@@ -187,7 +192,9 @@ pub fn explain_stream(
                     hits.sort_unstable();
                     hits.dedup();
                     for c in hits {
-                        let status = if src as usize == e && rec.exclusion.is_some() {
+                        let status = if src as usize == e && current_left_out {
+                            Status::CurrentEpisode
+                        } else if src as usize == e && rec.exclusion.is_some() {
                             Status::Excluded(rec.exclusion.unwrap_or(Exclusion::Primary))
                         } else if !Engine::has(final_bits, sel.offset + c) {
                             let sup = list
