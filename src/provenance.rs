@@ -14,7 +14,7 @@
 //! | `indices` | every index scored: `spec` (`LIST:WEIGHTING`), `list`, `weighting`, `column` |
 //! | `options` | `layout` (`wide`/`long`), `dx` (names and patterns as given), `dx_columns` (the columns read), `dx_separator`, `delimiter`, `id_column`, `episode_column`, `date_column`, `date_format`, `lookback` (`null`, or an object: `days`, a number or `null` for the whole history, for every list not named; `lists`, list name to `{"days": ...}` for `--lookback LIST=DAYS`; `window`, `current-and-earlier` or `earlier-only`), `exclude_primary`, `primary_column`, `poa_column`, `poa_values`, `age_column`, `hierarchy`, `flags`, `strict` |
 //! | `columns` | the output columns added, in order |
-//! | `rows` | `read`, `written`, `units` (episodes in wide, ids in long), `missing_ids` (rows with an empty id field), `disagreeing_units` (long-layout units whose rows give different dates or ages; the first is used) |
+//! | `rows` | `read`, `written`, `units` (episodes in wide, ids in long), `missing_ids` (rows with an empty id field), `disagreeing_units` (long-layout units whose rows give different dates, ages or values of a kept column; the first is used) |
 //! | `codes` | `read` (valid codes), `invalid` (count), `top_invalid` (up to 20 most frequent invalid values with their `count`) |
 //! | `excluded` | codes left out: `primary` (primary diagnosis), `not_on_admission` |
 //! | `ages` | `missing` and `unreadable` age fields; `null` without an age column |

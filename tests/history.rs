@@ -323,7 +323,8 @@ e,2023-06-01,I85.0,XYZ\n";
             "code",
             "condition",
             "weight",
-            "status"
+            "status",
+            "age_points"
         ]
     );
     let rows: Vec<Vec<String>> = rdr
@@ -454,7 +455,9 @@ p,e3,2024-06-01,70,\n";
     let (code, out, err) = morbus(&args, input);
     assert_eq!(code, 0, "{err}");
     assert!(
-        err.contains("units whose rows disagree on date or age: 1 (the first value is used)"),
+        err.contains(
+            "units whose rows disagree on date, age or a kept column: 1 (the first value is used)"
+        ),
         "{err}"
     );
     // e1: MI 1 + heart failure 1 (e0, in the window) + diabetes 1 = 3.
@@ -503,7 +506,7 @@ fn long_rows_of_one_id_that_disagree_on_age_are_counted_without_a_history() {
     let (code, out, err) = morbus(&args, input);
     assert_eq!(code, 0, "{err}");
     assert!(
-        err.contains("units whose rows disagree on date or age: 1"),
+        err.contains("units whose rows disagree on date, age or a kept column: 1"),
         "{err}"
     );
     assert_eq!(out.lines().count(), 3, "{out}");
@@ -675,13 +678,135 @@ a,2024-06-01,E11.2\n";
     let rows: Vec<&str> = out.lines().filter(|l| l.starts_with("a,2,")).collect();
     assert!(
         rows.iter()
-            .any(|l| l.contains("E112") && l.ends_with("excluded:current_episode")),
+            .any(|l| l.contains("E112") && l.ends_with("excluded:current_episode,")),
         "{out}"
     );
     assert!(
         rows.iter()
-            .any(|l| l.contains("I210") && l.ends_with(",counted")),
+            .any(|l| l.contains("I210") && l.ends_with(",counted,")),
         "{out}"
     );
-    assert!(rows.iter().any(|l| l.ends_with(",1,total")), "{out}");
+    assert!(rows.iter().any(|l| l.ends_with(",1,total,")), "{out}");
+}
+
+#[test]
+fn long_layout_keeps_columns_with_the_first_value_and_counts_disagreements() {
+    // Episode 1's rows give ward "north" then "" (empty: no disagreement);
+    // episode 2's give "east" then "west" (a disagreement: "east" is kept).
+    let input = "patient,episode,ward,unit_type,code\n\
+a,1,north,acute,I21.0\n\
+a,1,,acute,I50.0\n\
+a,2,east,,E11.9\n\
+a,2,west,rehab,C50.9\n\
+b,9,,,\n";
+    let args = [
+        "score",
+        "--layout",
+        "long",
+        "--id",
+        "patient",
+        "--episode",
+        "episode",
+        "--dx",
+        "code",
+        "--index",
+        "charlson:charlson1987",
+        "--keep",
+        "ward,unit_type",
+    ];
+    let (code, out, err) = morbus(&args, input);
+    assert_eq!(code, 0, "{err}");
+    assert_eq!(
+        out,
+        "patient,episode,ward,unit_type,charlson_charlson1987\n\
+a,1,north,acute,2\n\
+a,2,east,rehab,3\n\
+b,9,,,0\n"
+    );
+    assert!(
+        err.contains("units whose rows disagree on date, age or a kept column: 1"),
+        "{err}"
+    );
+    // --strict stops at the disagreeing row.
+    let mut strict = args.to_vec();
+    strict.push("--strict");
+    let (code, _, err) = morbus(&strict, input);
+    assert_eq!(code, 3, "{err}");
+    assert!(
+        err.contains("line 5: a row of a unit gives another value of column 'ward' west (the unit's first value of column 'ward' is east)"),
+        "{err}"
+    );
+    // Repeated --keep, and the checks.
+    let mut twice = args[..args.len() - 1].to_vec();
+    twice.extend(["ward", "--keep", "unit_type"]);
+    assert_eq!(morbus(&twice, input).1, out);
+    let mut missing = args[..args.len() - 1].to_vec();
+    missing.push("nosuch");
+    assert_eq!(morbus(&missing, input).0, 2);
+    let mut again = args[..args.len() - 1].to_vec();
+    again.push("episode");
+    let (code, _, err) = morbus(&again, input);
+    assert_eq!(code, 2);
+    assert!(err.contains("already in the output"), "{err}");
+    let (code, _, err) = morbus(&["score", "--dx", "code", "--keep", "ward"], input);
+    assert_eq!(code, 2);
+    assert!(err.contains("--keep is for the long layout"), "{err}");
+}
+
+#[test]
+fn explain_labels_rows_and_writes_json_numbers() {
+    // Charlson age points: one per decade from 50 (50-59 1, 60-69 2, 70-79
+    // 3; Charlson et al., J Clin Epidemiol 1994;47:1245-51, from memory, as
+    // in tests/published.rs): age 72 gives 3. Congestive heart failure
+    // weighs 1 (Charlson 1987, top of the file).
+    let input = "patient,stay_ref,admitted,age,dx1\n\
+a,S-17,2024-01-10,72,I50.0\n";
+    let args = [
+        "explain",
+        "--dx",
+        "dx1",
+        "--id",
+        "patient",
+        "--date",
+        "admitted",
+        "--lookback",
+        "30",
+        "--age",
+        "age",
+        "--index",
+        "charlson:charlson1987",
+        "--label",
+        "stay_ref",
+    ];
+    let (code, out, err) = morbus(&args, input);
+    assert_eq!(code, 0, "{err}");
+    assert_eq!(
+        out,
+        "patient,stay_ref,row,index,source_row,source_date,code_as_written,code,condition,weight,status,age_points\n\
+a,S-17,1,charlson:charlson1987,1,2024-01-10,I50.0,I500,congestive_heart_failure,1,counted,\n\
+a,S-17,1,charlson:charlson1987,,2024-01-10,,,,1,total,\n\
+a,S-17,1,charlson:charlson1987,,2024-01-10,,,,4,total_with_age:72,3\n"
+    );
+    let mut json = args.to_vec();
+    json.push("--json");
+    let (code, out, err) = morbus(&json, input);
+    assert_eq!(code, 0, "{err}");
+    let rows: Vec<serde_json::Value> = out
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect();
+    assert_eq!(rows.len(), 3);
+    assert_eq!(rows[0]["stay_ref"], "S-17");
+    assert_eq!(rows[0]["row"], 1);
+    assert_eq!(rows[0]["source_row"], 1);
+    assert_eq!(rows[0]["weight"], 1);
+    assert_eq!(rows[0]["age_points"], serde_json::Value::Null);
+    assert_eq!(rows[1]["source_row"], serde_json::Value::Null);
+    assert_eq!(rows[2]["weight"], 4);
+    assert_eq!(rows[2]["age_points"], 3);
+    assert_eq!(rows[2]["status"], "total_with_age:72");
+    // A label that would repeat an output column is refused.
+    let mut clash = args[..args.len() - 1].to_vec();
+    clash.push("patient");
+    assert_eq!(morbus(&clash, input).0, 2);
 }

@@ -238,10 +238,12 @@ def explain(
       ``excluded:not_present_on_admission`` or ``excluded:current_episode``
       (``window="earlier-only"``); and one ``total`` row per
       episode and index (``weight`` is the score; ``total_with_age:<age>``
-      adds the age points with ``age=``), whose code columns are null.
+      adds the age points with ``age=``), whose code columns are null;
+    - ``age_points``: on ``total_with_age`` rows, the age points added
+      (null elsewhere).
 
-    ``weight`` is ``int64`` when every weighting has whole-number points,
-    else ``float64``. ``report=True`` returns ``(frame, summary line)``.
+    ``weight`` and ``age_points`` are ``int64`` when every weighting has
+    whole-number points, else ``float64``. ``report=True`` returns ``(frame, summary line)``.
 
     >>> import pandas as pd, morbus
     >>> df = pd.DataFrame({

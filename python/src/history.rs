@@ -706,7 +706,8 @@ fn rows_stream(rows: Vec<i64>) -> ArrowStream {
 ///
 /// Returns `(table, report)`: the columns of `morbus explain` after the id
 /// and episode columns (`row`, `index`, `source_row`, `source_date`,
-/// `code_as_written`, `code`, `condition`, `weight`, `status`; `row` and
+/// `code_as_written`, `code`, `condition`, `weight`, `status`,
+/// `age_points`; `row` and
 /// `source_row` are the command line's 1-based data rows, the frame row plus
 /// one) and the summary line.
 #[pyfunction]
@@ -794,6 +795,8 @@ fn explain_columns(csv: &[u8], skip: usize, whole: bool) -> Result<RecordBatch, 
     let mut weight_i = Int64Builder::new();
     let mut weight_f = Float64Builder::new();
     let mut status = StringBuilder::new();
+    let mut points_i = Int64Builder::new();
+    let mut points_f = Float64Builder::new();
     let bad = |what: &str| Error::data(None, format!("internal error: explain wrote {what}"));
     let text = |b: &[u8]| String::from_utf8_lossy(b).into_owned();
     let mut first = true;
@@ -802,7 +805,7 @@ fn explain_columns(csv: &[u8], skip: usize, whole: bool) -> Result<RecordBatch, 
             return Ok(());
         }
         let f = |k: usize| rec.fields.get(skip + k);
-        if rec.fields.len() != skip + 9 {
+        if rec.fields.len() != skip + 10 {
             return Err(bad("a record of another width"));
         }
         let int = |b: &[u8]| -> Result<Option<i64>, Error> {
@@ -844,6 +847,12 @@ fn explain_columns(csv: &[u8], skip: usize, whole: bool) -> Result<RecordBatch, 
             weight_f.append_option(w.parse::<f64>().ok());
         }
         status.append_value(text(f(8)));
+        let a = std::str::from_utf8(f(9)).unwrap_or("");
+        if whole {
+            points_i.append_option(a.parse::<i64>().ok());
+        } else {
+            points_f.append_option(a.parse::<f64>().ok());
+        }
         Ok(())
     })?;
     let weight: ArrayRef = if whole {
@@ -861,6 +870,11 @@ fn explain_columns(csv: &[u8], skip: usize, whole: bool) -> Result<RecordBatch, 
         Arc::new(condition.finish()),
         weight,
         Arc::new(status.finish()),
+        if whole {
+            Arc::new(points_i.finish())
+        } else {
+            Arc::new(points_f.finish())
+        },
     ];
     let names = [
         ("row", false),
@@ -872,6 +886,7 @@ fn explain_columns(csv: &[u8], skip: usize, whole: bool) -> Result<RecordBatch, 
         ("condition", true),
         ("weight", false),
         ("status", false),
+        ("age_points", true),
     ];
     let fields: Vec<Field> = names
         .iter()

@@ -84,9 +84,13 @@ struct CompareArgs {
 struct ExplainArgs {
     #[command(flatten)]
     input: InputArgs,
-    /// Write JSON lines instead of CSV.
+    /// Write JSON lines instead of CSV (numbers as JSON numbers, empty values as null).
     #[arg(long)]
     json: bool,
+    /// Name each episode by this column too (its value on the episode's row; long layout:
+    /// the episode's first non-empty value), placed after the id and episode columns.
+    #[arg(long, value_name = "COL")]
+    label: Option<String>,
     /// Output path (`.gz` compresses, `.parquet` writes Parquet); standard output by default.
     #[arg(long, short, value_name = "PATH")]
     output: Option<PathBuf>,
@@ -201,6 +205,11 @@ struct ScoreArgs {
     /// Add a 0/1 column `<list>_<condition>` per condition.
     #[arg(long)]
     flags: bool,
+    /// Long layout: carry these columns (names, comma-separated or repeated) into each output
+    /// row after the id and episode: the unit's first non-empty value; units whose rows give
+    /// other values are counted, as for date and age.
+    #[arg(long, value_name = "COLS")]
+    keep: Vec<String>,
     /// Output path (`.gz` compresses, `.parquet` writes Parquet); standard output by default.
     #[arg(long, short, value_name = "PATH")]
     output: Option<PathBuf>,
@@ -371,6 +380,16 @@ fn engine_with_default(
     Ok((cat, engine))
 }
 
+/// Column names given comma-separated and/or repeated.
+fn names_list(values: &[String]) -> Vec<String> {
+    values
+        .iter()
+        .flat_map(|v| v.split(','))
+        .map(|v| v.trim().to_string())
+        .filter(|v| !v.is_empty())
+        .collect()
+}
+
 fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
     let layout = match a.layout {
         LayoutArg::Wide => Layout::Wide,
@@ -441,7 +460,13 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
 
 fn score(a: ScoreArgs) -> Result<(), Error> {
     let (_cat, engine) = engine_for(&a.input, a.flags)?;
-    let cfg = config_for(&a.input)?;
+    let mut cfg = config_for(&a.input)?;
+    cfg.keep = names_list(&a.keep);
+    if !cfg.keep.is_empty() && cfg.layout == Layout::Wide {
+        return Err(Error::Usage(
+            "--keep is for the long layout; a wide output keeps every input column already".into(),
+        ));
+    }
     // Create the provenance file before the output and the run, so that an
     // unwritable path fails before any work is done.
     let provenance_file = a
@@ -515,7 +540,8 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
 
 fn explain(a: ExplainArgs) -> Result<(), Error> {
     let (_cat, engine) = engine_for(&a.input, false)?;
-    let cfg = config_for(&a.input)?;
+    let mut cfg = config_for(&a.input)?;
+    cfg.keep = a.label.iter().cloned().collect();
     let parquet_out = wants_parquet(a.output_format, a.output.as_deref());
     if parquet_out && a.json {
         return Err(Error::Usage(

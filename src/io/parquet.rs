@@ -1031,6 +1031,7 @@ impl OutputColumns {
             ("condition", ColumnType::Text),
             ("weight", weight),
             ("status", ColumnType::Text),
+            ("age_points", weight),
         ]
         .into_iter()
         .map(|(n, t)| (n.to_string(), t))
@@ -1070,7 +1071,7 @@ pub fn read_columns(names: &[String], cfg: &ScoreConfig, extra: &[String]) -> Op
         &cfg.primary,
         &cfg.poa,
     ];
-    for name in singles.into_iter().flatten().chain(extra) {
+    for name in singles.into_iter().flatten().chain(&cfg.keep).chain(extra) {
         cols.push(header.column(name, "input").ok()?);
     }
     cols.sort_unstable();

@@ -11,6 +11,20 @@ use crate::lists::format_scaled;
 use crate::score::Engine;
 use crate::Error;
 
+/// The columns of `explain` after the id, episode and label columns.
+pub const EXPLAIN_COLUMNS: [&str; 10] = [
+    "row",
+    "index",
+    "source_row",
+    "source_date",
+    "code_as_written",
+    "code",
+    "condition",
+    "weight",
+    "status",
+    "age_points",
+];
+
 /// Output format of `explain`.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum ExplainFormat {
@@ -107,19 +121,29 @@ pub fn explain_stream(
     if let Some(n) = &episode_name {
         head.push(n.clone());
     }
-    head.push("row".into());
-    for h in [
-        "index",
-        "source_row",
-        "source_date",
-        "code_as_written",
-        "code",
-        "condition",
-        "weight",
-        "status",
-    ] {
-        head.push(h.into());
+    for &c in &p.keep {
+        let name = &p.header.names[c];
+        if head.contains(name) || EXPLAIN_COLUMNS.contains(&name.as_str()) {
+            return Err(Error::Usage(format!(
+                "--label column '{name}' is already a column of explain's output"
+            )));
+        }
+        head.push(name.clone());
     }
+    let numbers_from = head.len();
+    head.push("row".into());
+    for h in &EXPLAIN_COLUMNS[1..] {
+        head.push(h.to_string());
+    }
+    // JSON: these are numbers (null when empty).
+    let numeric: Vec<bool> = head
+        .iter()
+        .enumerate()
+        .map(|(i, h)| {
+            i >= numbers_from
+                && matches!(h.as_str(), "row" | "source_row" | "weight" | "age_points")
+        })
+        .collect();
 
     let mut out: Vec<u8> = Vec::new();
     let write_err = |e| Error::io("cannot write output", e);
@@ -141,7 +165,15 @@ pub fn explain_stream(
                 }
                 out.extend_from_slice(json_str(k).as_bytes());
                 out.push(b':');
-                out.extend_from_slice(json_str(v).as_bytes());
+                if !numeric[i] {
+                    out.extend_from_slice(json_str(v).as_bytes());
+                } else if v.is_empty() {
+                    out.extend_from_slice(b"null");
+                } else {
+                    // Row numbers and weights as written: whole numbers or
+                    // decimals, valid JSON numbers.
+                    out.extend_from_slice(v.as_bytes());
+                }
             }
             out.extend_from_slice(b"}\n");
         }
@@ -161,6 +193,9 @@ pub fn explain_stream(
         }
         if episode_name.is_some() {
             prefix.push(String::from_utf8_lossy(hist.key(e)).into_owned());
+        }
+        for j in 0..p.keep.len() {
+            prefix.push(String::from_utf8_lossy(hist.kept(e, j)).into_owned());
         }
         prefix.push(ep.row.to_string());
 
@@ -226,13 +261,14 @@ pub fn explain_stream(
                         cells.push(list.conditions[c].key.clone());
                         cells.push(String::from_utf8_lossy(&weight).into_owned());
                         cells.push(status.label());
+                        cells.push(String::new());
                         emit(&mut out, &cells);
                     }
                 }
             }
             debug_assert_eq!(total, engine.score(final_bits, si));
             let score = engine.score(final_bits, si);
-            let mut total_row = |scaled: i64, status: String| {
+            let mut total_row = |scaled: i64, status: String, age_points: Option<i64>| {
                 let mut cells = prefix.clone();
                 cells.push(format!("{}:{}", list.name, weighting.name));
                 cells.extend([
@@ -246,14 +282,21 @@ pub fn explain_stream(
                 format_scaled(scaled, decimals, &mut t);
                 cells.push(String::from_utf8_lossy(&t).into_owned());
                 cells.push(status);
+                let mut a = Vec::new();
+                if let Some(points) = age_points {
+                    format_scaled(points, decimals, &mut a);
+                }
+                cells.push(String::from_utf8_lossy(&a).into_owned());
                 emit(&mut out, &cells);
             };
-            total_row(score, "total".into());
+            total_row(score, "total".into(), None);
             if let (Some(age), true) = (ep.age, engine.options().age && !list.age_points.is_empty())
             {
+                let points = list.points_for_age(age);
                 total_row(
-                    score + list.points_for_age(age),
+                    score + points,
                     format!("total_with_age:{age}"),
+                    Some(points),
                 );
             }
         }

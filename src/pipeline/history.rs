@@ -65,6 +65,9 @@ pub struct History {
     pub episodes: Vec<Episode>,
     /// Long layout with `--episode`: each episode's value.
     keys: Vec<Box<[u8]>>,
+    /// Kept columns (`ScoreConfig::keep`): per episode, one value per
+    /// column (the first non-empty one of its rows).
+    kept: Vec<Option<Box<[u8]>>>,
     words: usize,
     own_all: Vec<u64>,
     /// Empty when no exclusion rule is on (then it equals `own_all`).
@@ -219,8 +222,10 @@ struct BlockRows {
     summary: Summary,
     err: Option<Error>,
     rows: Vec<RowRead>,
-    /// Patient ids and episode values of the rows.
+    /// Patient ids, episode values and kept values of the rows.
     ids: Vec<u8>,
+    /// Kept values: `plan.keep.len()` spans into `ids` per row.
+    keep: Vec<(usize, usize)>,
     all: Vec<u64>,
     cur: Vec<u64>,
     raw: Vec<u8>,
@@ -245,6 +250,7 @@ fn read_block(
         err: None,
         rows: Vec::new(),
         ids: Vec::new(),
+        keep: Vec::new(),
         all: Vec::new(),
         cur: Vec::new(),
         raw: Vec::new(),
@@ -275,6 +281,10 @@ fn read_block(
         };
         let pid = id(p.id, &mut b.ids);
         let ekey = id(p.episode, &mut b.ids);
+        for &c in &p.keep {
+            let span = id(Some(c), &mut b.ids);
+            b.keep.push(span);
+        }
         let date = match p.read_date(cfg, &rec.fields) {
             Ok(Some(d)) => DateRead::Day(d),
             Ok(None) => DateRead::Missing,
@@ -363,6 +373,7 @@ impl History {
         let mut patients: Vec<Box<[u8]>> = Vec::new();
         let mut episodes: Vec<Episode> = Vec::new();
         let mut keys: Vec<Box<[u8]>> = Vec::new();
+        let mut kept: Vec<Option<Box<[u8]>>> = Vec::new();
         let mut own_all: Vec<u64> = Vec::new();
         let mut own_current: Vec<u64> = Vec::new();
         let mut row_spans: Vec<(u32, u32, u32)> = Vec::new();
@@ -390,6 +401,7 @@ impl History {
             },
             |h, b: BlockRows, _| {
                 let long_episodes = h.0.episode.is_some();
+                let nkeep = h.0.keep.len();
                 let mut block_episode = Vec::with_capacity(b.rows.len());
                 for (i, r) in b.rows.iter().enumerate() {
                     rows_seen += 1;
@@ -423,6 +435,7 @@ impl History {
                             if exclusions {
                                 own_current.resize(own_current.len() + words, 0);
                             }
+                            kept.resize(kept.len() + nkeep, None);
                             (episodes.len() - 1) as u32
                         };
                     // Every wide row is an episode; in the long layout one
@@ -470,7 +483,27 @@ impl History {
                         .map(|(first, d)| disagreement("date", iso(d), iso(first)));
                     let other_age = keep_first(&mut ep.age, r.age)
                         .map(|(first, a)| disagreement("age", a, first));
-                    if let Some(message) = other_date.or(other_age) {
+                    let mut other_kept = None;
+                    for j in 0..nkeep {
+                        let (s, t) = b.keep[i * nkeep + j];
+                        let v = &b.ids[s..t];
+                        if v.trim_ascii().is_empty() {
+                            continue;
+                        }
+                        match &kept[e as usize * nkeep + j] {
+                            None => kept[e as usize * nkeep + j] = Some(v.into()),
+                            Some(first) if **first != *v && other_kept.is_none() => {
+                                let name = &h.0.header.names[h.0.keep[j]];
+                                other_kept = Some(disagreement(
+                                    &format!("value of column '{name}'"),
+                                    String::from_utf8_lossy(v),
+                                    String::from_utf8_lossy(first),
+                                ));
+                            }
+                            Some(_) => {}
+                        }
+                    }
+                    if let Some(message) = other_date.or(other_age).or(other_kept) {
                         if cfg.strict {
                             return Err(Error::Strict {
                                 line: Some(r.line),
@@ -523,6 +556,7 @@ impl History {
             patients,
             episodes,
             keys,
+            kept,
             words,
             own_all,
             own_current,
@@ -727,6 +761,13 @@ impl History {
         self.words
     }
 
+    /// Episode `e`'s value of kept column `j` (empty when none of its rows
+    /// had one).
+    pub fn kept(&self, e: usize, j: usize) -> &[u8] {
+        let k = self.plan.keep.len();
+        self.kept[e * k + j].as_deref().unwrap_or(&[])
+    }
+
     /// Wide layout: each row's raw bytes, in input order (one per episode).
     pub fn row_raw(&self, e: usize) -> &[u8] {
         let (b, start, end) = self.row_spans[e];
@@ -760,6 +801,15 @@ pub fn score_history(
             let mut keep = vec![p.header.names[p.id.unwrap_or(0)].as_str()];
             if let Some(c) = p.episode {
                 keep.push(&p.header.names[c]);
+            }
+            for &c in &p.keep {
+                let name = p.header.names[c].as_str();
+                if keep.contains(&name) {
+                    return Err(Error::Usage(format!(
+                        "column '{name}' is already in the output; keep it once"
+                    )));
+                }
+                keep.push(name);
             }
             check_collisions(&keep, engine)?;
             for (i, k) in keep.iter().enumerate() {
@@ -795,6 +845,10 @@ pub fn score_history(
                     if p.episode.is_some() {
                         out.push(d);
                         write_field(hist.key(e), d, &mut out);
+                    }
+                    for j in 0..p.keep.len() {
+                        out.push(d);
+                        write_field(hist.kept(e, j), d, &mut out);
                     }
                 }
             }

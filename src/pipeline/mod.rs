@@ -65,6 +65,11 @@ pub struct ScoreConfig {
     pub lookback_lists: Vec<(String, u32)>,
     /// Which episodes of a window count for the episode being scored.
     pub window: WindowScope,
+    /// Other columns carried into a unit's output row (long layout's
+    /// `--keep`, `explain`'s `--label`): each unit's first non-empty value;
+    /// a later row with another non-empty value is counted as a
+    /// disagreement, as for date and age.
+    pub keep: Vec<String>,
     /// Leave the primary diagnosis of the episode being scored out.
     pub exclude_primary: bool,
     /// Long layout: column flagging the primary-diagnosis row.
@@ -236,6 +241,7 @@ impl Default for ScoreConfig {
             lookback: None,
             lookback_lists: Vec::new(),
             window: WindowScope::default(),
+            keep: Vec::new(),
             exclude_primary: false,
             primary: None,
             poa: None,
@@ -434,7 +440,7 @@ impl Summary {
         }
         if self.disagreeing_units > 0 {
             s.push_str(&format!(
-                "; units whose rows disagree on date or age: {} (the first value is used)",
+                "; units whose rows disagree on date, age or a kept column: {} (the first value is used)",
                 self.disagreeing_units
             ));
         }
@@ -614,6 +620,8 @@ pub(crate) struct Plan {
     pub date: Option<usize>,
     pub primary: Option<usize>,
     pub poa: Option<usize>,
+    /// Columns carried into each unit's output row.
+    pub keep: Vec<usize>,
     pub ncols: usize,
     pub crlf: bool,
 }
@@ -658,6 +666,11 @@ impl Plan {
         let date = one(&cfg.date, "date")?;
         let primary = one(&cfg.primary, "primary-diagnosis")?;
         let poa = one(&cfg.poa, "present-on-admission")?;
+        let keep = cfg
+            .keep
+            .iter()
+            .map(|n| header.column(n, "kept"))
+            .collect::<Result<Vec<usize>, Error>>()?;
         if cfg.layout == Layout::Long && id.is_none() {
             return Err(Error::Usage("--layout long needs --id COL".into()));
         }
@@ -692,6 +705,7 @@ impl Plan {
             date,
             primary,
             poa,
+            keep,
             crlf,
         })
     }
@@ -995,7 +1009,7 @@ pub fn score_stream_observed(
     output: &mut dyn Write,
     progress: &mut dyn FnMut(Progress),
 ) -> Result<Summary, Error> {
-    if cfg.uses_history() || cfg.episode.is_some() {
+    if cfg.uses_history() || cfg.episode.is_some() || !cfg.keep.is_empty() {
         history::score_history(engine, cfg, input, output)
     } else {
         stream::score_plain(engine, cfg, input, output, progress)
