@@ -810,3 +810,40 @@ a,S-17,1,charlson:charlson1987,,2024-01-10,,,,4,total_with_age:72,3\n"
     clash.push("patient");
     assert_eq!(morbus(&clash, input).0, 2);
 }
+
+#[test]
+fn explain_lists_each_index_window_sources() {
+    // As in each_list_is_scored_over_its_own_window: the heart failure of
+    // 548 days before counts for Elixhauser (730 days) but not Charlson
+    // (365 days).
+    let input = "patient,admitted,dx1\n\
+a,2022-06-01,I50.0\n\
+a,2023-12-01,\n";
+    let (code, out, err) = morbus(
+        &[
+            "explain",
+            "--dx",
+            "dx1",
+            "--id",
+            "patient",
+            "--date",
+            "admitted",
+            "--lookback",
+            "charlson=365,elixhauser=730",
+            "--index",
+            "charlson:charlson1987,elixhauser:count",
+        ],
+        input,
+    );
+    assert_eq!(code, 0, "{err}");
+    let second: Vec<&str> = out.lines().filter(|l| l.starts_with("a,2,")).collect();
+    assert_eq!(
+        second,
+        [
+            "a,2,charlson:charlson1987,,2023-12-01,,,,0,total,",
+            "a,2,elixhauser:count,1,2022-06-01,I50.0,I500,congestive_heart_failure,1,counted,",
+            "a,2,elixhauser:count,,2023-12-01,,,,1,total,",
+        ],
+        "{out}"
+    );
+}
