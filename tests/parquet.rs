@@ -296,6 +296,21 @@ const WIDE_OPTIONS: &[&[&str]] = &[
         "all",
         "--exclude-primary",
     ],
+    // Per-list windows, earlier days only, rows waiting in a temporary file.
+    &[
+        "--dx",
+        "dx*",
+        "--id",
+        "patient_id",
+        "--date",
+        "admission_date",
+        "--lookback",
+        "365,hfrs=730",
+        "--window",
+        "earlier-only",
+        "--memory",
+        "1KiB",
+    ],
 ];
 
 #[test]

@@ -653,7 +653,8 @@ pub(crate) fn score_history<'py>(
     let (batch, first, summary) = py
         .detach(|| -> Result<(RecordBatch, Vec<i64>, Summary), Error> {
             let windows = Windows::new(engine, &run.text_cfg)?;
-            let (mut hist, mut summary) = History::read(engine, &run.text_cfg, &text[..], false)?;
+            let (mut hist, mut summary) =
+                History::read(engine, &run.text_cfg, &text[..], Default::default())?;
             hist.resolve(&windows);
             let hist = hist;
             let n = hist.episodes.len();

@@ -192,6 +192,14 @@ struct InputArgs {
     /// Do not print the summary or the progress line on standard error.
     #[arg(long, short)]
     quiet: bool,
+    /// Memory budget of a run that holds the extract (--lookback, --episode, --keep):
+    /// the wide layout's input rows, kept for the output, take at most half of it in
+    /// memory and the rest waits in a temporary file (e.g. 512MiB, 2GiB).
+    #[arg(long, value_name = "LIMIT", default_value = "1GiB")]
+    memory: String,
+    /// Directory for temporary files (default: the system's).
+    #[arg(long, value_name = "DIR")]
+    temp_dir: Option<PathBuf>,
     /// Worker threads for wide scoring and for `compare`'s numerics (default: one per core;
     /// at most 256).
     #[arg(long, value_name = "N", default_value_t = 0)]
@@ -433,6 +441,13 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
         lookback,
         lookback_lists,
         window,
+        memory: morbus::pipeline::rows_store::parse_memory(&a.memory).ok_or_else(|| {
+            Error::Usage(format!(
+                "--memory takes a size such as 512MiB or 2GiB, not '{}'",
+                a.memory
+            ))
+        })?,
+        temp_dir: a.temp_dir.clone(),
         exclude_primary: a.exclude_primary,
         primary: a.primary.clone(),
         poa: a.poa.clone(),

@@ -339,7 +339,7 @@ pub fn compare(
     // Both passes only read the buffer: run them side by side.
     let (history, values_of) = std::thread::scope(|s| {
         let second = s.spawn(|| read_extra(cfg, &data, &extra));
-        let first = History::read(engine, cfg, &data[..], false);
+        let first = History::read(engine, cfg, &data[..], Default::default());
         let second = second
             .join()
             .unwrap_or_else(|e| std::panic::resume_unwind(e));

@@ -4,7 +4,7 @@
 
 use std::io::{Read, Write};
 
-use super::history::{History, Windows};
+use super::history::{History, Needs, Windows};
 use super::{Exclusion, ScoreConfig, Summary, WindowScope};
 use crate::io::write_field;
 use crate::lists::format_scaled;
@@ -94,7 +94,15 @@ pub fn explain_stream(
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
     let windows = Windows::new(engine, cfg)?;
-    let (mut hist, mut summary) = History::read(engine, cfg, input, true)?;
+    let (mut hist, mut summary) = History::read(
+        engine,
+        cfg,
+        input,
+        Needs {
+            codes: true,
+            rows: false,
+        },
+    )?;
     let sorted = hist.resolve(&windows);
     let hist = hist;
     let resolved = hist.final_sets(engine);

@@ -21,6 +21,7 @@ use std::io::{Read, Write};
 
 use super::dates;
 use super::parallel::run_blocks;
+use super::rows_store::{Loaded, RowStore};
 use super::{
     check_collisions, disagreement, keep_first, Exclusion, Layout, Plan, RowIssue, ScoreConfig,
     Summary, WindowScope,
@@ -75,11 +76,20 @@ pub struct History {
     /// Wide layout: each row's raw bytes, as (block, start, end) into the
     /// blocks' own buffers (kept as read: no copy into one arena).
     row_spans: Vec<(u32, u32, u32)>,
-    raw_blocks: Vec<Vec<u8>>,
+    raw_blocks: RowStore,
     /// Every code, when asked for.
     pub codes: Vec<CodeRecord>,
     /// `own_all` holds each episode's windowed set ([`History::resolve`]).
     resolved: bool,
+}
+
+/// What a [`History`] keeps besides the condition sets.
+#[derive(Clone, Copy, Debug, Default)]
+pub struct Needs {
+    /// Every code, for `explain`.
+    pub codes: bool,
+    /// The wide layout's raw rows, for an output that copies them.
+    pub rows: bool,
 }
 
 /// The lookback windows of a run: the lists grouped by window length, each
@@ -242,7 +252,7 @@ fn read_block(
     block: &crate::io::Block,
     start: usize,
     scanner: &mut RecordScanner,
-    (keep_codes, exclusions): (bool, bool),
+    (keep_codes, exclusions, keep_rows): (bool, bool, bool),
 ) -> BlockRows {
     let words = engine.words();
     let mut b = BlockRows {
@@ -336,7 +346,7 @@ fn read_block(
         .map_err(issue)?;
         b.summary.excluded_primary += excluded.0;
         b.summary.excluded_not_on_admission += excluded.1;
-        if cfg.layout == Layout::Wide {
+        if keep_rows && cfg.layout == Layout::Wide {
             b.raw.extend_from_slice(rec.raw);
             b.raw_ends.push(b.raw.len());
         }
@@ -365,8 +375,9 @@ impl History {
         engine: &Engine,
         cfg: &ScoreConfig,
         input: impl Read + Send,
-        keep_codes: bool,
+        needs: Needs,
     ) -> Result<(History, Summary), Error> {
+        let keep_codes = needs.codes;
         let words = engine.words();
         let exclusions = cfg.exclude_primary || cfg.poa.is_some();
         let mut summary = Summary::default();
@@ -377,7 +388,9 @@ impl History {
         let mut own_all: Vec<u64> = Vec::new();
         let mut own_current: Vec<u64> = Vec::new();
         let mut row_spans: Vec<(u32, u32, u32)> = Vec::new();
-        let mut raw_blocks: Vec<Vec<u8>> = Vec::new();
+        let temp_dir = cfg.temp_dir.clone().unwrap_or_else(std::env::temp_dir);
+        let mut raw_blocks = RowStore::new((cfg.memory / 2) as usize, &temp_dir);
+        let keep_rows = needs.rows && cfg.layout == Layout::Wide;
         let mut codes: Vec<CodeRecord> = Vec::new();
         let mut patient_index: ByteMap<u32> = ByteMap::default();
         let mut episode_index: ByteMap<u32> = ByteMap::default();
@@ -396,7 +409,7 @@ impl History {
                     block,
                     start,
                     scanner,
-                    (keep_codes, exclusions),
+                    (keep_codes, exclusions, needs.rows),
                 )
             },
             |h, b: BlockRows, _| {
@@ -522,15 +535,14 @@ impl History {
                         }
                     }
                 }
-                if cfg.layout == Layout::Wide {
-                    let bi = raw_blocks.len() as u32;
+                if keep_rows {
+                    let bi = raw_blocks.push(b.raw)?;
                     let mut start = 0u32;
                     row_spans.extend(b.raw_ends.iter().map(|&x| {
                         let span = (bi, start, x as u32);
                         start = x as u32;
                         span
                     }));
-                    raw_blocks.push(b.raw);
                 }
                 for mut c in b.codes {
                     c.episode = block_episode[c.episode as usize];
@@ -768,10 +780,9 @@ impl History {
         self.kept[e * k + j].as_deref().unwrap_or(&[])
     }
 
-    /// Wide layout: each row's raw bytes, in input order (one per episode).
-    pub fn row_raw(&self, e: usize) -> &[u8] {
-        let (b, start, end) = self.row_spans[e];
-        &self.raw_blocks[b as usize][start as usize..end as usize]
+    /// Whether the raw rows went partly to a temporary file.
+    pub fn rows_spilled(&self) -> bool {
+        self.raw_blocks.spilled()
     }
 }
 
@@ -784,7 +795,11 @@ pub fn score_history(
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
     let windows = Windows::new(engine, cfg)?;
-    let (mut hist, mut summary) = History::read(engine, cfg, input, false)?;
+    let needs = Needs {
+        codes: false,
+        rows: true,
+    };
+    let (mut hist, mut summary) = History::read(engine, cfg, input, needs)?;
     hist.resolve(&windows);
     let hist = hist;
     let p = &hist.plan;
@@ -829,7 +844,7 @@ pub fn score_history(
     output.write_all(&out).map_err(write_err)?;
     // Episodes are formatted on every core, a round of chunks at a time, and
     // written in order.
-    let format_chunk = |range: std::ops::Range<usize>| -> Vec<u8> {
+    let format_chunk = |range: std::ops::Range<usize>, rows: &Loaded<'_>| -> Vec<u8> {
         let mut out = Vec::with_capacity(range.len() * 128);
         let mut bits = vec![0u64; hist.words()];
         let mut scratch = bits.clone();
@@ -839,7 +854,10 @@ pub fn score_history(
             hist.final_into(engine, e, &mut bits, &mut scratch);
             engine.values(&bits, ep.age, &mut values);
             match cfg.layout {
-                Layout::Wide => out.extend_from_slice(hist.row_raw(e)),
+                Layout::Wide => {
+                    let (b, s, t) = hist.row_spans[e];
+                    out.extend_from_slice(rows.slice(b, s, t));
+                }
                 Layout::Long => {
                     write_field(&hist.patients[ep.patient as usize], d, &mut out);
                     if p.episode.is_some() {
@@ -866,11 +884,20 @@ pub fn score_history(
             .map(|t| (start + t * CHUNK).min(n)..(start + (t + 1) * CHUNK).min(n))
             .filter(|r| !r.is_empty())
             .collect();
+        // The raw rows of this round, read back if they wait on disk.
+        let rows = match cfg.layout {
+            Layout::Wide => hist.raw_blocks.load(
+                hist.row_spans[start].0,
+                hist.row_spans[(start + threads * CHUNK).min(n) - 1].0,
+            )?,
+            Layout::Long => hist.raw_blocks.none(),
+        };
         start = (start + threads * CHUNK).min(n);
+        let rows = &rows;
         let parts: Option<Vec<Vec<u8>>> = std::thread::scope(|s| {
             let handles: Vec<_> = chunks
                 .into_iter()
-                .map(|r| s.spawn(|| format_chunk(r)))
+                .map(|r| s.spawn(move || format_chunk(r, rows)))
                 .collect();
             handles.into_iter().map(|h| h.join().ok()).collect()
         });

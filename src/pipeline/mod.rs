@@ -14,6 +14,7 @@ pub mod dates;
 pub mod explain;
 pub mod history;
 mod parallel;
+pub mod rows_store;
 mod stream;
 
 use std::collections::HashMap;
@@ -40,6 +41,9 @@ pub enum Layout {
 /// and `W` (clinically undetermined), following the US present-on-admission
 /// reporting convention (common practice).
 pub const DEFAULT_POA_VALUES: &[&str] = &["Y", "W"];
+
+/// The default `--memory`: 1 GiB, within a desktop's means.
+pub const DEFAULT_MEMORY: u64 = 1 << 30;
 
 /// Options of a scoring run over delimited text.
 #[derive(Clone, Debug)]
@@ -70,6 +74,12 @@ pub struct ScoreConfig {
     /// a later row with another non-empty value is counted as a
     /// disagreement, as for date and age.
     pub keep: Vec<String>,
+    /// Memory budget in bytes of a run that holds the extract (`--memory`):
+    /// the wide layout's raw rows take at most half of it in memory, the
+    /// rest waits in a temporary file.
+    pub memory: u64,
+    /// Directory of temporary files (`None`: the system's).
+    pub temp_dir: Option<std::path::PathBuf>,
     /// Leave the primary diagnosis of the episode being scored out.
     pub exclude_primary: bool,
     /// Long layout: column flagging the primary-diagnosis row.
@@ -242,6 +252,8 @@ impl Default for ScoreConfig {
             lookback_lists: Vec::new(),
             window: WindowScope::default(),
             keep: Vec::new(),
+            memory: DEFAULT_MEMORY,
+            temp_dir: None,
             exclude_primary: false,
             primary: None,
             poa: None,
