@@ -78,7 +78,9 @@ for n in $SIZES; do
         # the same size and codes, dates over the same three years. Its
         # ratio is to the ordinary extract's run with the same lookback.
         one="$DATA/oneid-$n.csv"
-        [ -f "$one" ] || $BIN/synth --episodes "$n" --patients 1 --fields 20 --seed 11 -q -o "$one"
+        # (synth caps episodes per patient, so the ordinary extract's
+        # patient column is overwritten with one id)
+        [ -f "$one" ] || sed -E '2,$ s/^([^,]*),[^,]*,/\1,P0000001,/' "$wide" > "$one"
         for lb in 365 all; do
           read -r base bm < <(best_of $MORBUS score "$wide" --dx 'dx*' --id patient_id --date admission_date --lookback $lb -q -o "$DATA/out.csv")
           row "score, wide, lookback $lb" "$n" "$base" "$bm" "$floor"
