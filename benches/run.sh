@@ -9,6 +9,10 @@
 #   SCENARIOS="wide long" bash benches/run.sh
 #   SCENARIOS=parquet bash benches/run.sh   # Parquet in and out; its floor is a
 #                                           # read-and-rewrite with the parquet crate
+#   SCENARIOS=oneid bash benches/run.sh     # one id holding every episode (365 days
+#                                           # and all) against the ordinary extract
+#   SIZES=10000000 SCENARIOS=history-ratio bash benches/run.sh
+#                                           # 365-day lookback against plain scoring
 set -euo pipefail
 cd "$(dirname "$0")/.."
 RUNS=${RUNS:-3}
@@ -68,6 +72,27 @@ for n in $SIZES; do
       lookback)
         read -r t m < <(best_of $MORBUS score "$wide" --dx 'dx*' --id patient_id --date admission_date --lookback 730 -q -o "$DATA/out.csv")
         row "score, wide, 730-day lookback" "$n" "$t" "$m" "$floor"
+        ;;
+      oneid)
+        # One id with every episode (a placeholder id in a real extract):
+        # the same size and codes, dates over the same three years. Its
+        # ratio is to the ordinary extract's run with the same lookback.
+        one="$DATA/oneid-$n.csv"
+        # (synth caps episodes per patient, so the ordinary extract's
+        # patient column is overwritten with one id)
+        [ -f "$one" ] || sed -E '2,$ s/^([^,]*),[^,]*,/\1,P0000001,/' "$wide" > "$one"
+        for lb in 365 all; do
+          read -r base bm < <(best_of $MORBUS score "$wide" --dx 'dx*' --id patient_id --date admission_date --lookback $lb -q -o "$DATA/out.csv")
+          row "score, wide, lookback $lb" "$n" "$base" "$bm" "$floor"
+          read -r t m < <(best_of $MORBUS score "$one" --dx 'dx*' --id patient_id --date admission_date --lookback $lb -q -o "$DATA/out.csv")
+          row "one id, lookback $lb (ratio: to above)" "$n" "$t" "$m" "$base"
+        done
+        ;;
+      history-ratio)
+        read -r plain pm < <(best_of $MORBUS score "$wide" --dx 'dx*' -q -o "$DATA/out.csv")
+        row "score, wide, no lookback" "$n" "$plain" "$pm" "$floor"
+        read -r t m < <(best_of $MORBUS score "$wide" --dx 'dx*' --id patient_id --date admission_date --lookback 365 -q -o "$DATA/out.csv")
+        row "365-day lookback (ratio: to above)" "$n" "$t" "$m" "$plain"
         ;;
       explain)
         if [ "$n" -le 1000000 ]; then

@@ -66,7 +66,7 @@ pub struct Plan {
 /// would collide with input columns.
 pub fn plan(engine: &Engine, cfg: &ScoreConfig, header: &Header) -> Result<Plan, Error> {
     let unsupported = [
-        (cfg.lookback.is_some(), "--lookback"),
+        (cfg.uses_history(), "--lookback"),
         (cfg.episode.is_some(), "--episode"),
         (cfg.date.is_some(), "--date"),
         (cfg.exclude_primary, "--exclude-primary"),

@@ -12,9 +12,9 @@
 //! | `input`, `output` | paths as given (`null`: standard input or output) |
 //! | `lists` | every list used: `name`, `version`, `title`, `editions`, `source`, `checksum` (SHA-256 of the canonical content), `origin` (`built-in (FILE)` or a path), `builtin` (true/false), and `weightings` used (`name`, `label`, `source`) |
 //! | `indices` | every index scored: `spec` (`LIST:WEIGHTING`), `list`, `weighting`, `column` |
-//! | `options` | `layout` (`wide`/`long`), `dx` (names and patterns as given), `dx_columns` (the columns read), `dx_separator`, `delimiter`, `id_column`, `episode_column`, `date_column`, `date_format`, `lookback` (`null`, or `days`: a number, `null` for the whole history), `exclude_primary`, `primary_column`, `poa_column`, `poa_values`, `age_column`, `hierarchy`, `flags`, `strict` |
+//! | `options` | `layout` (`wide`/`long`), `dx` (names and patterns as given), `dx_columns` (the columns read), `dx_separator`, `delimiter`, `id_column`, `episode_column`, `date_column`, `date_format`, `lookback` (`null`, or an object: `days`, a number or `null` for the whole history, for every list not named; `lists`, list name to `{"days": ...}` for `--lookback LIST=DAYS`; `window`, `current-and-earlier` or `earlier-only`), `exclude_primary`, `primary_column`, `poa_column`, `poa_values`, `age_column`, `hierarchy`, `flags`, `strict` |
 //! | `columns` | the output columns added, in order |
-//! | `rows` | `read`, `written`, `units` (episodes in wide, ids in long), `missing_ids` (rows with an empty id field), `disagreeing_units` (long-layout units whose rows give different dates or ages; the first is used) |
+//! | `rows` | `read`, `written`, `units` (episodes in wide, ids in long), `missing_ids` (rows with an empty id field), `disagreeing_units` (long-layout units whose rows give different dates, ages or values of a kept column; the first is used) |
 //! | `codes` | `read` (valid, that is well-shaped, codes), `invalid` (count of malformed values: not ICD-10-shaped), `top_invalid` (up to 20 most frequent invalid values with their `count`), `edition` (`who`, `cm` or `any`: where codes were looked up), `edition_sources` (the code sets: edition, release, package), `unknown` (well-shaped codes in no selected edition, stem included), `top_unknown`, `extended` (codes not in the selected editions whose three- or four-character stem is), `top_extended` (normalised codes with their `count`) |
 //! | `excluded` | codes left out: `primary` (primary diagnosis), `not_on_admission` |
 //! | `ages` | `missing` and `unreadable` age fields; `null` without an age column |
@@ -128,6 +128,20 @@ pub struct Options {
 
 #[derive(Clone, Debug, PartialEq, Serialize)]
 pub struct Lookback {
+    /// Window in days of every list not named in `lists`; `None` for the
+    /// whole history. Left out when only named lists have a window.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub days: Option<Option<u32>>,
+    /// Per-list windows (`--lookback LIST=DAYS`), when given: list name to
+    /// `{"days": ...}`.
+    #[serde(skip_serializing_if = "std::collections::BTreeMap::is_empty")]
+    pub lists: std::collections::BTreeMap<String, ListLookback>,
+    /// `current-and-earlier` or `earlier-only` (`--window`).
+    pub window: &'static str,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct ListLookback {
     /// Window in days; `None` for the whole history.
     pub days: Option<u32>,
 }
@@ -278,8 +292,21 @@ impl Provenance {
                 episode_column: cfg.episode.clone(),
                 date_column: cfg.date.clone(),
                 date_format: cfg.date_format.to_string(),
-                lookback: cfg.lookback.map(|d| Lookback {
-                    days: (d != u32::MAX).then_some(d),
+                lookback: cfg.uses_history().then(|| Lookback {
+                    days: cfg.lookback.map(|d| (d != u32::MAX).then_some(d)),
+                    lists: cfg
+                        .lookback_lists
+                        .iter()
+                        .map(|(n, d)| {
+                            (
+                                n.clone(),
+                                ListLookback {
+                                    days: (*d != u32::MAX).then_some(*d),
+                                },
+                            )
+                        })
+                        .collect(),
+                    window: cfg.window.name(),
                 }),
                 exclude_primary: cfg.exclude_primary,
                 primary_column: cfg.primary.clone(),

@@ -330,7 +330,8 @@ e,2023-06-01,I85.0,XYZ\n";
             "code",
             "condition",
             "weight",
-            "status"
+            "status",
+            "age_points"
         ]
     );
     let rows: Vec<Vec<String>> = rdr
@@ -461,7 +462,9 @@ p,e3,2024-06-01,70,\n";
     let (code, out, err) = morbus(&args, input);
     assert_eq!(code, 0, "{err}");
     assert!(
-        err.contains("units whose rows disagree on date or age: 1 (the first value is used)"),
+        err.contains(
+            "units whose rows disagree on date, age or a kept column: 1 (the first value is used)"
+        ),
         "{err}"
     );
     // e1: MI 1 + heart failure 1 (e0, in the window) + diabetes 1 = 3.
@@ -510,7 +513,7 @@ fn long_rows_of_one_id_that_disagree_on_age_are_counted_without_a_history() {
     let (code, out, err) = morbus(&args, input);
     assert_eq!(code, 0, "{err}");
     assert!(
-        err.contains("units whose rows disagree on date or age: 1"),
+        err.contains("units whose rows disagree on date, age or a kept column: 1"),
         "{err}"
     );
     assert_eq!(out.lines().count(), 3, "{out}");
@@ -521,5 +524,333 @@ fn long_rows_of_one_id_that_disagree_on_age_are_counted_without_a_history() {
     assert!(
         err.contains("line 3: a row of a unit gives another age 81 (the unit's first age is 80)"),
         "{err}"
+    );
+}
+
+/// Scores a wide history and returns the named output columns, row by row.
+fn columns(input: &str, args: &[&str], names: &[&str]) -> Vec<Vec<String>> {
+    let mut all = vec![
+        "score", "--dx", "dx*", "--id", "patient", "--date", "admitted",
+    ];
+    all.extend_from_slice(args);
+    let (code, out, err) = morbus(&all, input);
+    assert_eq!(code, 0, "{err}");
+    let mut lines = out.lines();
+    let head: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let at: Vec<usize> = names
+        .iter()
+        .map(|n| {
+            head.iter()
+                .position(|h| h == n)
+                .unwrap_or_else(|| panic!("{n}"))
+        })
+        .collect();
+    lines
+        .map(|l| {
+            let f: Vec<&str> = l.split(',').collect();
+            at.iter().map(|&i| f[i].to_string()).collect()
+        })
+        .collect()
+}
+
+#[test]
+fn earlier_only_leaves_out_the_episode_and_its_day() {
+    // Day 0: myocardial infarction (1) in one episode, heart failure (1) in
+    // another of the same day; day 92: diabetes with chronic complications
+    // (2). Charlson 1987 weights, see the top of the file.
+    let input = "patient,admitted,dx1\n\
+a,2024-03-01,I21.0\n\
+a,2024-03-01,I50.0\n\
+a,2024-06-01,E11.2\n";
+    // Default: the episode itself and every episode up to its day.
+    assert_eq!(wide(input, &["--lookback", "365"]), ["2", "2", "4"]);
+    // Earlier days only: neither the episode nor its same-day sibling.
+    assert_eq!(
+        wide(input, &["--lookback", "365", "--window", "earlier-only"]),
+        ["0", "0", "2"]
+    );
+    // The window's far end stays inclusive: day 0 is 92 days before day 92.
+    assert_eq!(
+        wide(input, &["--lookback", "92", "--window", "earlier-only"]),
+        ["0", "0", "2"]
+    );
+    assert_eq!(
+        wide(input, &["--lookback", "91", "--window", "earlier-only"]),
+        ["0", "0", "0"]
+    );
+    // A zero-day window holds no earlier day.
+    assert_eq!(
+        wide(input, &["--lookback", "0", "--window", "earlier-only"]),
+        ["0", "0", "0"]
+    );
+    assert_eq!(
+        wide(input, &["--lookback", "all", "--window", "earlier-only"]),
+        ["0", "0", "2"]
+    );
+}
+
+#[test]
+fn each_list_is_scored_over_its_own_window() {
+    // Heart failure (I50.0) 548 days before the second episode: inside a
+    // 730-day window, outside a 365-day one. I50.x is congestive heart
+    // failure in both Charlson (weight 1, Charlson 1987) and Elixhauser
+    // (Quan et al., Med Care 2005;43:1130-9, Table 2; from memory); the
+    // Elixhauser count weighting counts conditions (common practice).
+    let input = "patient,admitted,dx1\n\
+a,2022-06-01,I50.0\n\
+a,2023-12-01,\n";
+    let names = ["charlson_charlson1987", "elixhauser_count"];
+    let index = ["--index", "charlson:charlson1987,elixhauser:count"];
+    let run = |lookback: &str| {
+        let mut a = index.to_vec();
+        a.extend(["--lookback", lookback]);
+        columns(input, &a, &names)
+    };
+    assert_eq!(run("charlson=365,elixhauser=730")[1], ["0", "1"]);
+    assert_eq!(run("elixhauser=730,charlson=365")[1], ["0", "1"]);
+    assert_eq!(run("365,elixhauser=730")[1], ["0", "1"]);
+    assert_eq!(run("730,elixhauser=365")[1], ["1", "0"]);
+    // A list not named, with no bare DAYS, is scored from the episode alone.
+    assert_eq!(run("charlson=730")[1], ["1", "0"]);
+    assert_eq!(run("elixhauser=all")[1], ["0", "1"]);
+    // The first episode has its own heart failure under every window.
+    assert_eq!(run("charlson=365,elixhauser=730")[0], ["1", "1"]);
+    // Earlier-only applies to the lists with a window; the others keep the
+    // episode's own codes.
+    let mut a = index.to_vec();
+    a.extend(["--lookback", "elixhauser=730", "--window", "earlier-only"]);
+    assert_eq!(columns(input, &a, &names), [["1", "0"], ["0", "1"]]);
+}
+
+#[test]
+fn window_options_are_checked() {
+    let input = "patient,admitted,dx1\na,2024-01-01,I21.0\n";
+    let base = [
+        "score", "--dx", "dx1", "--id", "patient", "--date", "admitted",
+    ];
+    for (extra, message) in [
+        (
+            &["--lookback", "nosuchlist=30"][..],
+            "--lookback names list 'nosuchlist'",
+        ),
+        (&["--lookback", "charlson=x"][..], "not 'x'"),
+        (
+            &["--lookback", "charlson=3,charlson=4"][..],
+            "more than one window",
+        ),
+        (&["--lookback", "3,4"][..], "more than one window"),
+        (
+            &["--window", "earlier-only"][..],
+            "--window is used with --lookback",
+        ),
+        (
+            &["--lookback", "3", "--window", "before"][..],
+            "--window takes",
+        ),
+    ] {
+        let mut a = base.to_vec();
+        a.extend_from_slice(extra);
+        let (code, _, err) = morbus(&a, input);
+        assert_eq!(code, 2, "{extra:?}: {err}");
+        assert!(err.contains(message), "{extra:?}: {err}");
+    }
+}
+
+#[test]
+fn explain_shows_the_current_episode_left_out() {
+    let input = "patient,admitted,dx1\n\
+a,2024-03-01,I21.0\n\
+a,2024-06-01,E11.2\n";
+    let (code, out, err) = morbus(
+        &[
+            "explain",
+            "--dx",
+            "dx1",
+            "--id",
+            "patient",
+            "--date",
+            "admitted",
+            "--lookback",
+            "365",
+            "--window",
+            "earlier-only",
+            "--index",
+            "charlson:charlson1987",
+        ],
+        input,
+    );
+    assert_eq!(code, 0, "{err}");
+    // The second episode: its own diabetes left out, the earlier infarction
+    // counted, total 1.
+    let rows: Vec<&str> = out.lines().filter(|l| l.starts_with("a,2,")).collect();
+    assert!(
+        rows.iter()
+            .any(|l| l.contains("E112") && l.ends_with("excluded:current_episode,")),
+        "{out}"
+    );
+    assert!(
+        rows.iter()
+            .any(|l| l.contains("I210") && l.ends_with(",counted,")),
+        "{out}"
+    );
+    assert!(rows.iter().any(|l| l.ends_with(",1,total,")), "{out}");
+}
+
+#[test]
+fn long_layout_keeps_columns_with_the_first_value_and_counts_disagreements() {
+    // Episode 1's rows give ward "north" then "" (empty: no disagreement);
+    // episode 2's give "east" then "west" (a disagreement: "east" is kept).
+    let input = "patient,episode,ward,unit_type,code\n\
+a,1,north,acute,I21.0\n\
+a,1,,acute,I50.0\n\
+a,2,east,,E11.9\n\
+a,2,west,rehab,C50.9\n\
+b,9,,,\n";
+    let args = [
+        "score",
+        "--layout",
+        "long",
+        "--id",
+        "patient",
+        "--episode",
+        "episode",
+        "--dx",
+        "code",
+        "--index",
+        "charlson:charlson1987",
+        "--keep",
+        "ward,unit_type",
+    ];
+    let (code, out, err) = morbus(&args, input);
+    assert_eq!(code, 0, "{err}");
+    assert_eq!(
+        out,
+        "patient,episode,ward,unit_type,charlson_charlson1987\n\
+a,1,north,acute,2\n\
+a,2,east,rehab,3\n\
+b,9,,,0\n"
+    );
+    assert!(
+        err.contains("units whose rows disagree on date, age or a kept column: 1"),
+        "{err}"
+    );
+    // --strict stops at the disagreeing row.
+    let mut strict = args.to_vec();
+    strict.push("--strict");
+    let (code, _, err) = morbus(&strict, input);
+    assert_eq!(code, 3, "{err}");
+    assert!(
+        err.contains("line 5: a row of a unit gives another value of column 'ward' west (the unit's first value of column 'ward' is east)"),
+        "{err}"
+    );
+    // Repeated --keep, and the checks.
+    let mut twice = args[..args.len() - 1].to_vec();
+    twice.extend(["ward", "--keep", "unit_type"]);
+    assert_eq!(morbus(&twice, input).1, out);
+    let mut missing = args[..args.len() - 1].to_vec();
+    missing.push("nosuch");
+    assert_eq!(morbus(&missing, input).0, 2);
+    let mut again = args[..args.len() - 1].to_vec();
+    again.push("episode");
+    let (code, _, err) = morbus(&again, input);
+    assert_eq!(code, 2);
+    assert!(err.contains("already in the output"), "{err}");
+    let (code, _, err) = morbus(&["score", "--dx", "code", "--keep", "ward"], input);
+    assert_eq!(code, 2);
+    assert!(err.contains("--keep is for the long layout"), "{err}");
+}
+
+#[test]
+fn explain_labels_rows_and_writes_json_numbers() {
+    // Charlson age points: one per decade from 50 (50-59 1, 60-69 2, 70-79
+    // 3; Charlson et al., J Clin Epidemiol 1994;47:1245-51, from memory, as
+    // in tests/published.rs): age 72 gives 3. Congestive heart failure
+    // weighs 1 (Charlson 1987, top of the file).
+    let input = "patient,stay_ref,admitted,age,dx1\n\
+a,S-17,2024-01-10,72,I50.0\n";
+    let args = [
+        "explain",
+        "--dx",
+        "dx1",
+        "--id",
+        "patient",
+        "--date",
+        "admitted",
+        "--lookback",
+        "30",
+        "--age",
+        "age",
+        "--index",
+        "charlson:charlson1987",
+        "--label",
+        "stay_ref",
+    ];
+    let (code, out, err) = morbus(&args, input);
+    assert_eq!(code, 0, "{err}");
+    assert_eq!(
+        out,
+        "patient,stay_ref,row,index,source_row,source_date,code_as_written,code,condition,weight,status,age_points\n\
+a,S-17,1,charlson:charlson1987,1,2024-01-10,I50.0,I500,congestive_heart_failure,1,counted,\n\
+a,S-17,1,charlson:charlson1987,,2024-01-10,,,,1,total,\n\
+a,S-17,1,charlson:charlson1987,,2024-01-10,,,,4,total_with_age:72,3\n"
+    );
+    let mut json = args.to_vec();
+    json.push("--json");
+    let (code, out, err) = morbus(&json, input);
+    assert_eq!(code, 0, "{err}");
+    let rows: Vec<serde_json::Value> = out
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect();
+    assert_eq!(rows.len(), 3);
+    assert_eq!(rows[0]["stay_ref"], "S-17");
+    assert_eq!(rows[0]["row"], 1);
+    assert_eq!(rows[0]["source_row"], 1);
+    assert_eq!(rows[0]["weight"], 1);
+    assert_eq!(rows[0]["age_points"], serde_json::Value::Null);
+    assert_eq!(rows[1]["source_row"], serde_json::Value::Null);
+    assert_eq!(rows[2]["weight"], 4);
+    assert_eq!(rows[2]["age_points"], 3);
+    assert_eq!(rows[2]["status"], "total_with_age:72");
+    // A label that would repeat an output column is refused.
+    let mut clash = args[..args.len() - 1].to_vec();
+    clash.push("patient");
+    assert_eq!(morbus(&clash, input).0, 2);
+}
+
+#[test]
+fn explain_lists_each_index_window_sources() {
+    // As in each_list_is_scored_over_its_own_window: the heart failure of
+    // 548 days before counts for Elixhauser (730 days) but not Charlson
+    // (365 days).
+    let input = "patient,admitted,dx1\n\
+a,2022-06-01,I50.0\n\
+a,2023-12-01,\n";
+    let (code, out, err) = morbus(
+        &[
+            "explain",
+            "--dx",
+            "dx1",
+            "--id",
+            "patient",
+            "--date",
+            "admitted",
+            "--lookback",
+            "charlson=365,elixhauser=730",
+            "--index",
+            "charlson:charlson1987,elixhauser:count",
+        ],
+        input,
+    );
+    assert_eq!(code, 0, "{err}");
+    let second: Vec<&str> = out.lines().filter(|l| l.starts_with("a,2,")).collect();
+    assert_eq!(
+        second,
+        [
+            "a,2,charlson:charlson1987,,2023-12-01,,,,0,total,",
+            "a,2,elixhauser:count,1,2022-06-01,I50.0,I500,congestive_heart_failure,1,counted,",
+            "a,2,elixhauser:count,,2023-12-01,,,,1,total,",
+        ],
+        "{out}"
     );
 }

@@ -547,7 +547,10 @@ fn provenance_records_lookback_dates_and_exclusions() {
     let o = &v["options"];
     assert_eq!(o["id_column"], "patient");
     assert_eq!(o["date_column"], "admitted");
-    assert_eq!(o["lookback"], serde_json::json!({ "days": null }));
+    assert_eq!(
+        o["lookback"],
+        serde_json::json!({ "days": null, "window": "current-and-earlier" })
+    );
     assert_eq!(o["exclude_primary"], true);
     assert_eq!(o["dx_columns"], serde_json::json!(["dx1", "dx2"]));
     assert_eq!(v["dates"]["missing"], 1);

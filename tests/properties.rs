@@ -11,7 +11,12 @@
 //! - wide and long layouts agree on the same episodes;
 //! - a lookback over the whole history equals patient-level long scoring
 //!   for each patient's latest episodes;
-//! - parallel wide output equals single-thread output for any block size.
+//! - parallel wide output equals single-thread output for any block size;
+//! - the sliding-window history equals a naive reference that gathers, for
+//!   every episode and list, the codes of the episodes in its window
+//!   (same-day episodes, whole history, per-list windows, earlier episodes
+//!   only, the primary left out of the current episode only, undated
+//!   episodes, one patient with many episodes).
 
 mod common;
 
@@ -19,7 +24,8 @@ use std::sync::OnceLock;
 
 use morbus::lists::{builtin, canonical_text, export_text, parse, Catalogue, Origin};
 use morbus::pipeline::dates::days_from_civil;
-use morbus::pipeline::{score_stream, DateFormat, Layout, ScoreConfig};
+use morbus::pipeline::dates::write_iso_date;
+use morbus::pipeline::{score_stream, DateFormat, Layout, ScoreConfig, WindowScope};
 use morbus::score::{Engine, IndexSpec, ScoreOptions};
 use proptest::prelude::*;
 
@@ -381,6 +387,205 @@ proptest! {
         let (b, sb) = run(&parallel, &input);
         prop_assert_eq!(a, b);
         prop_assert_eq!(sa, sb);
+    }
+}
+
+/// One generated episode: patient, day (`None`: no date), codes (the first
+/// is the primary diagnosis).
+type GenEpisode = (usize, Option<i64>, Vec<String>);
+
+fn history_episodes() -> impl Strategy<Value = Vec<GenEpisode>> {
+    // Few patients and a short span of days: many same-day episodes and
+    // windows whose ends fall on episodes.
+    prop::collection::vec(
+        (
+            0usize..3,
+            prop::option::weighted(0.9, 0i64..40),
+            prop::collection::vec(code(), 0..5),
+        ),
+        1..40,
+    )
+}
+
+fn lookback_days() -> impl Strategy<Value = u32> {
+    prop_oneof![0u32..20, Just(u32::MAX)]
+}
+
+/// The naive reference of a history run: for each episode and each list,
+/// the codes of every episode in that list's window, scored together.
+fn history_reference(eps: &[GenEpisode], cfg: &ScoreConfig) -> Vec<Vec<String>> {
+    let e = engine();
+    let mut out = Vec::new();
+    for (i, (p, d, codes)) in eps.iter().enumerate() {
+        let mut bits = vec![0u64; e.words()];
+        for l in e.lists() {
+            let days = cfg
+                .lookback_lists
+                .iter()
+                .find(|(n, _)| *n == l.list.name)
+                .map(|x| x.1)
+                .or(cfg.lookback);
+            let mut unit = e.unit();
+            let own = |unit: &mut morbus::score::Unit| {
+                let skip = usize::from(cfg.exclude_primary);
+                for c in codes.iter().skip(skip) {
+                    e.add_raw(&mut unit.bits, c.as_bytes());
+                }
+            };
+            match (days, cfg.window) {
+                (None, _) | (Some(_), WindowScope::CurrentAndEarlier) => own(&mut unit),
+                (Some(_), WindowScope::EarlierOnly) => {}
+            }
+            if let (Some(days), Some(d)) = (days, d) {
+                for (j, (q, dj, cj)) in eps.iter().enumerate() {
+                    let Some(dj) = dj else { continue };
+                    let counts = j != i
+                        && q == p
+                        && *dj >= d - days as i64
+                        && match cfg.window {
+                            WindowScope::CurrentAndEarlier => dj <= d,
+                            WindowScope::EarlierOnly => dj < d,
+                        };
+                    if counts {
+                        for c in cj {
+                            e.add_raw(&mut unit.bits, c.as_bytes());
+                        }
+                    }
+                }
+            }
+            for id in l.offset..l.offset + l.list.conditions.len() {
+                if morbus::score::Engine::has(&unit.bits, id) {
+                    bits[id >> 6] |= 1 << (id & 63);
+                }
+            }
+        }
+        let mut scratch = vec![0u64; e.words()];
+        e.apply_hierarchy(&mut bits, &mut scratch);
+        let mut values = Vec::new();
+        e.values(&bits, None, &mut values);
+        let mut line = Vec::new();
+        e.write_values(&values, b',', &mut line);
+        out.push(
+            String::from_utf8(line)
+                .unwrap()
+                .split(',')
+                .skip(1)
+                .map(str::to_string)
+                .collect(),
+        );
+    }
+    out
+}
+
+/// A wide extract `pid,date,dx1..dxK` of generated episodes.
+fn history_csv(eps: &[GenEpisode]) -> (String, usize) {
+    let k = eps.iter().map(|e| e.2.len()).max().unwrap_or(0).max(1);
+    let mut s = String::from("pid,date");
+    for i in 1..=k {
+        s.push_str(&format!(",dx{i}"));
+    }
+    s.push('\n');
+    for (p, d, codes) in eps {
+        let mut date = Vec::new();
+        if let Some(d) = d {
+            // Days from 2024-02-20: windows cross a leap day.
+            write_iso_date(19_773 + d, &mut date);
+        }
+        s.push_str(&format!("p{p},{}", String::from_utf8(date).unwrap()));
+        for j in 0..k {
+            s.push(',');
+            s.push_str(codes.get(j).map_or("", String::as_str));
+        }
+        s.push('\n');
+    }
+    (s, k)
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig { cases: 300, ..ProptestConfig::default() })]
+
+    #[test]
+    fn history_equals_naive_reference(
+        eps in history_episodes(),
+        every in prop::option::of(lookback_days()),
+        hfrs in prop::option::of(lookback_days()),
+        charlson in prop::option::of(lookback_days()),
+        earlier_only in any::<bool>(),
+        exclude_primary in any::<bool>(),
+        threads in 1usize..3,
+    ) {
+        let mut lookback_lists = Vec::new();
+        if let Some(d) = hfrs {
+            lookback_lists.push(("hfrs".to_string(), d));
+        }
+        if let Some(d) = charlson {
+            lookback_lists.push(("charlson".to_string(), d));
+        }
+        // At least one window, else the run is not a history run.
+        let lookback = if every.is_none() && lookback_lists.is_empty() { Some(0) } else { every };
+        let cfg = ScoreConfig {
+            dx: vec!["dx*".into()],
+            id: Some("pid".into()),
+            date: Some("date".into()),
+            lookback,
+            lookback_lists,
+            window: if earlier_only { WindowScope::EarlierOnly } else { WindowScope::CurrentAndEarlier },
+            exclude_primary,
+            threads,
+            ..ScoreConfig::default()
+        };
+        let (csv_text, k) = history_csv(&eps);
+        let (out, summary) = run(&cfg, &csv_text);
+        let got = score_rows(&out, 2 + k);
+        let want = history_reference(&eps, &cfg);
+        prop_assert_eq!(summary.units as usize, eps.len());
+        prop_assert_eq!(got, want);
+    }
+}
+
+#[test]
+fn one_patient_with_many_episodes_equals_naive_reference() {
+    // One id with 1,500 episodes over 200 days (about 7 a day), codes drawn
+    // from the pool by a fixed linear congruential sequence.
+    let p = pool();
+    let mut x: u64 = 12_345;
+    let mut next = |m: usize| {
+        x = x.wrapping_mul(6_364_136_223_846_793_005).wrapping_add(1);
+        ((x >> 33) as usize) % m
+    };
+    let eps: Vec<GenEpisode> = (0..1_500)
+        .map(|_| {
+            let d = next(200) as i64;
+            let n = next(4);
+            (
+                0,
+                Some(d),
+                (0..n).map(|_| p[next(p.len())].clone()).collect(),
+            )
+        })
+        .collect();
+    for (lookback, window) in [
+        (30, WindowScope::CurrentAndEarlier),
+        (u32::MAX, WindowScope::CurrentAndEarlier),
+        (30, WindowScope::EarlierOnly),
+        (0, WindowScope::EarlierOnly),
+    ] {
+        let cfg = ScoreConfig {
+            dx: vec!["dx*".into()],
+            id: Some("pid".into()),
+            date: Some("date".into()),
+            lookback: Some(lookback),
+            window,
+            exclude_primary: true,
+            ..ScoreConfig::default()
+        };
+        let (csv_text, k) = history_csv(&eps);
+        let (out, _) = run(&cfg, &csv_text);
+        assert_eq!(
+            score_rows(&out, 2 + k),
+            history_reference(&eps, &cfg),
+            "{lookback} {window:?}"
+        );
     }
 }
 

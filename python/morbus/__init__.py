@@ -217,7 +217,8 @@ def score(
     provenance: bool = False,
     date: Optional[str] = None,
     date_format: Optional[str] = None,
-    lookback: Union[None, int, str] = None,
+    lookback: Union[None, int, str, Dict[str, Union[int, str]]] = None,
+    window: Optional[str] = None,
     episode: Optional[str] = None,
     exclude_primary: bool = False,
     primary: Optional[str] = None,
@@ -291,7 +292,14 @@ def score(
       from its own codes and those of the same patient's (``id``) episodes
       dated within that many days before it, both ends inclusive (episodes of
       the same day count each other; later episodes never count). Needs
-      ``id`` and ``date``.
+      ``id`` and ``date``. One window per list: ``"charlson=365,hfrs=730"``
+      or ``{"charlson": 365, "hfrs": 730}`` (a bare number beside them, or
+      the key ``"*"``, is the window of the lists not named; lists without
+      a window are scored from the episode alone).
+    - ``window``: ``"current-and-earlier"`` (the default) or
+      ``"earlier-only"``: only episodes dated before the episode's own day
+      count; its own codes and those of other episodes of the same day are
+      left out.
     - ``episode`` (long layout): the column grouping code rows into episodes;
       the result has one row per episode in order of first appearance, with
       the ``id`` and ``episode`` columns, then the scores.
@@ -360,13 +368,14 @@ def score(
     elif isinstance(threads, bool) or not isinstance(threads, int) or threads < 1:
         raise ValueError(f"threads must be a positive whole number, not {threads!r}")
     cat = _catalogue(lists)
-    if _history.wants_history(date, lookback, episode, exclude_primary, primary, poa):
+    if _history.wants_history(date, lookback, episode, exclude_primary, primary, poa, window):
         return _score_history(
             frame,
             dict(dx=dx_items, layout=layout, id=id, age=age, index=index_items, flags=bool(flags),
                  hierarchy=bool(hierarchy), lists=cat, dx_sep=dx_sep, strict=bool(strict), threads=threads,
                  edition=edition),
-            _history.native_options(date=date, date_format=date_format, lookback=lookback, episode=episode,
+            _history.native_options(date=date, date_format=date_format, lookback=lookback, window=window,
+                                    episode=episode,
                                     exclude_primary=exclude_primary, primary=primary, poa=poa,
                                     poa_values=poa_values, max_unreadable_dates=max_unreadable_dates),
             provenance,

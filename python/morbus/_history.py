@@ -12,30 +12,48 @@ their dtypes.
 
 from __future__ import annotations
 
-from typing import Any, List, Optional, Sequence, Tuple, Union
+from typing import Any, Dict, List, Optional, Sequence, Tuple, Union
 
 from . import _native
 
 _Names = Union[str, Sequence[str]]
 
-HISTORY_OPTIONS = ("date", "lookback", "episode", "exclude_primary", "primary", "poa")
+HISTORY_OPTIONS = ("date", "lookback", "window", "episode", "exclude_primary", "primary", "poa")
 
 
-def wants_history(date, lookback, episode, exclude_primary, primary, poa) -> bool:
+def wants_history(date, lookback, episode, exclude_primary, primary, poa, window=None) -> bool:
     """Whether a call needs the patient-history reader."""
-    return any(v is not None for v in (date, lookback, episode, primary, poa)) or bool(exclude_primary)
+    return any(v is not None for v in (date, lookback, episode, primary, poa, window)) or bool(exclude_primary)
 
 
-def lookback_text(lookback: Union[None, int, str]) -> Optional[str]:
+def _days_text(days: Any, what: str) -> str:
+    if isinstance(days, bool):
+        raise ValueError(f"{what} takes a whole number of days or 'all', not {days!r}")
+    if isinstance(days, int):
+        return str(days)
+    if isinstance(days, str):
+        return days
+    raise TypeError(f"{what} must be a whole number of days or 'all', not {type(days).__name__}")
+
+
+def lookback_text(lookback: Union[None, int, str, Dict[str, Union[int, str]]]) -> Optional[str]:
+    """The command line's ``--lookback`` text of a ``lookback=`` value: days,
+    ``"all"``, ``"charlson=365,hfrs=730"``, or a dict of list name to days
+    (key ``None`` or ``"*"``: every list not named)."""
     if lookback is None:
         return None
-    if isinstance(lookback, bool):
-        raise ValueError(f"lookback takes a whole number of days or 'all', not {lookback!r}")
-    if isinstance(lookback, int):
-        return str(lookback)
-    if isinstance(lookback, str):
-        return lookback
-    raise TypeError(f"lookback must be a whole number of days or 'all', not {type(lookback).__name__}")
+    if isinstance(lookback, dict):
+        parts = []
+        for name, days in lookback.items():
+            text = _days_text(days, "lookback")
+            if name is None or name == "*":
+                parts.insert(0, text)
+            elif isinstance(name, str):
+                parts.append(f"{name}={text}")
+            else:
+                raise TypeError("lookback's keys must be list names")
+        return ",".join(parts)
+    return _days_text(lookback, "lookback")
 
 
 def poa_list(poa_values: Union[str, Sequence[str]]) -> List[str]:
@@ -94,16 +112,20 @@ def native_options(
     primary,
     poa,
     poa_values,
+    window=None,
     max_unreadable_dates=1,
 ) -> dict:
     from . import _optional_name
 
     if date_format is not None and not isinstance(date_format, str):
         raise TypeError("date_format must be a pattern string such as '%d/%m/%Y'")
+    if window is not None and not isinstance(window, str):
+        raise TypeError("window must be 'current-and-earlier' or 'earlier-only'")
     return dict(
         date=_optional_name(date, "date"),
         date_format=date_format,
         lookback=lookback_text(lookback),
+        window=window,
         episode=_optional_name(episode, "episode"),
         exclude_primary=bool(exclude_primary),
         primary=_optional_name(primary, "primary"),
@@ -202,7 +224,8 @@ def explain(
     threads: Optional[int] = None,
     date: Optional[str] = None,
     date_format: Optional[str] = None,
-    lookback: Union[None, int, str] = None,
+    lookback: Union[None, int, str, Dict[str, Union[int, str]]] = None,
+    window: Optional[str] = None,
     episode: Optional[str] = None,
     exclude_primary: bool = False,
     primary: Optional[str] = None,
@@ -228,13 +251,16 @@ def explain(
     - ``code_as_written``, ``code``, ``condition``, ``weight``;
     - ``status``: ``counted``, ``repeated`` (another code already counted
       the condition), ``superseded_by:<condition>`` (hierarchy),
-      ``excluded:primary_diagnosis`` or
-      ``excluded:not_present_on_admission``; and one ``total`` row per
+      ``excluded:primary_diagnosis``,
+      ``excluded:not_present_on_admission`` or ``excluded:current_episode``
+      (``window="earlier-only"``); and one ``total`` row per
       episode and index (``weight`` is the score; ``total_with_age:<age>``
-      adds the age points with ``age=``), whose code columns are null.
+      adds the age points with ``age=``), whose code columns are null;
+    - ``age_points``: on ``total_with_age`` rows, the age points added
+      (null elsewhere).
 
-    ``weight`` is ``int64`` when every weighting has whole-number points,
-    else ``float64``. ``report=True`` returns ``(frame, summary line)``;
+    ``weight`` and ``age_points`` are ``int64`` when every weighting has
+    whole-number points, else ``float64``. ``report=True`` returns ``(frame, summary line)``;
     the summary line counts invalid, unknown and extended codes as
     :func:`score` describes (``edition``).
 
@@ -271,6 +297,7 @@ def explain(
         date=date,
         date_format=date_format,
         lookback=lookback,
+        window=window,
         episode=episode,
         exclude_primary=exclude_primary,
         primary=primary,

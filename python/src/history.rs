@@ -32,7 +32,7 @@ use pyo3::prelude::*;
 use morbus::io::{write_field, RecordScanner};
 use morbus::pipeline::dates::write_iso_date;
 use morbus::pipeline::explain::ExplainFormat;
-use morbus::pipeline::history::History;
+use morbus::pipeline::history::{History, Windows};
 use morbus::pipeline::{
     percent_from, poa_columns, poa_values_from, DateFormat, Header, Layout, ScoreConfig, Summary,
     DEFAULT_MAX_UNREADABLE_DATES,
@@ -284,21 +284,27 @@ fn resolve(
             )))
         }
     };
-    let lookback = match hist.lookback.as_deref() {
-        None => None,
-        Some("all") => Some(u32::MAX),
-        Some(t) => Some(t.trim().parse::<u32>().map_err(|_| {
-            usage(format!(
-                "lookback takes a whole number of days or 'all', not '{t}'"
-            ))
-        })?),
+    let (lookback, lookback_lists) = match hist.lookback.as_deref() {
+        None => (None, Vec::new()),
+        Some(t) => morbus::pipeline::parse_lookback(t, "lookback").map_err(value_error)?,
     };
+    let window = match hist.window.as_deref() {
+        None => morbus::pipeline::WindowScope::default(),
+        Some(w) => morbus::pipeline::WindowScope::parse(w).ok_or_else(|| {
+            usage(format!(
+                "window takes 'current-and-earlier' or 'earlier-only', not '{w}'"
+            ))
+        })?,
+    };
+    if hist.window.is_some() && hist.lookback.is_none() {
+        return Err(usage("window= is used with lookback=DAYS (or 'all')"));
+    }
     let date_format = match hist.date_format.as_deref() {
         None => DateFormat::Iso,
         Some(p) => DateFormat::from_pattern_checked(p)
             .map_err(|why| usage(format!("date_format '{p}' {why}")))?,
     };
-    if hist.date.is_some() && lookback.is_none() && hist.episode.is_none() {
+    if hist.date.is_some() && hist.lookback.is_none() && hist.episode.is_none() {
         return Err(usage("date= is used with lookback=DAYS (or 'all')"));
     }
     let poa_values = poa_values_from(&hist.poa_values);
@@ -320,6 +326,8 @@ fn resolve(
         date: hist.date,
         date_format,
         lookback,
+        lookback_lists,
+        window,
         exclude_primary: hist.exclude_primary,
         primary: hist.primary,
         poa: hist.poa,
@@ -363,7 +371,7 @@ fn resolve(
         }
         None => Vec::new(),
     };
-    if cfg.lookback.is_some() && (id_col.is_none() || date_col.is_none()) {
+    if cfg.uses_history() && (id_col.is_none() || date_col.is_none()) {
         return Err(usage("lookback= needs id= (the patient column) and date="));
     }
     if layout == Layout::Long && cfg.exclude_primary && primary_col.is_none() {
@@ -462,6 +470,7 @@ struct HistoryArgs {
     date: Option<String>,
     date_format: Option<String>,
     lookback: Option<String>,
+    window: Option<String>,
     episode: Option<String>,
     exclude_primary: bool,
     primary: Option<String>,
@@ -616,7 +625,7 @@ fn fetch_text(
 /// [`crate::score`]: `first_rows` (long layout) holds, per output row, the
 /// 0-based frame row of the episode's first record.
 #[pyfunction]
-#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values, max_unreadable_dates=None, edition="any"))]
+#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, window, episode, exclude_primary, primary, poa, poa_values, max_unreadable_dates=None, edition="any"))]
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn score_history<'py>(
     py: Python<'py>,
@@ -636,6 +645,7 @@ pub(crate) fn score_history<'py>(
     date: Option<String>,
     date_format: Option<String>,
     lookback: Option<String>,
+    window: Option<String>,
     episode: Option<String>,
     exclude_primary: bool,
     primary: Option<String>,
@@ -656,6 +666,7 @@ pub(crate) fn score_history<'py>(
         date,
         date_format,
         lookback,
+        window,
         episode,
         exclude_primary,
         primary,
@@ -673,8 +684,11 @@ pub(crate) fn score_history<'py>(
     let engine = &run.engine;
     let (batch, first, summary) = py
         .detach(|| -> Result<(RecordBatch, Vec<i64>, Summary), Error> {
-            let (hist, mut summary) = History::read(engine, &run.text_cfg, &text[..], false)?;
-            let windows = hist.windows(run.text_cfg.lookback);
+            let windows = Windows::new(engine, &run.text_cfg)?;
+            let (mut hist, mut summary) =
+                History::read(engine, &run.text_cfg, &text[..], Default::default())?;
+            hist.resolve(&windows);
+            let hist = hist;
             let n = hist.episodes.len();
             let mut out = Output::new(engine, n);
             let mut first = Vec::with_capacity(n);
@@ -682,7 +696,7 @@ pub(crate) fn score_history<'py>(
             let mut scratch = bits.clone();
             let mut values: Vec<Value> = Vec::new();
             for (e, ep) in hist.episodes.iter().enumerate() {
-                hist.resolve_into(engine, &windows, e, &mut bits, &mut scratch);
+                hist.final_into(engine, e, &mut bits, &mut scratch);
                 engine.values(&bits, ep.age, &mut values);
                 out.push(engine, &values);
                 first.push(ep.row as i64 - 1);
@@ -725,11 +739,12 @@ fn rows_stream(rows: Vec<i64>) -> ArrowStream {
 ///
 /// Returns `(table, report)`: the columns of `morbus explain` after the id
 /// and episode columns (`row`, `index`, `source_row`, `source_date`,
-/// `code_as_written`, `code`, `condition`, `weight`, `status`; `row` and
+/// `code_as_written`, `code`, `condition`, `weight`, `status`,
+/// `age_points`; `row` and
 /// `source_row` are the command line's 1-based data rows, the frame row plus
 /// one) and the summary line.
 #[pyfunction]
-#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values, max_unreadable_dates=None, edition="any"))]
+#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, window, episode, exclude_primary, primary, poa, poa_values, max_unreadable_dates=None, edition="any"))]
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn explain<'py>(
     py: Python<'py>,
@@ -748,6 +763,7 @@ pub(crate) fn explain<'py>(
     date: Option<String>,
     date_format: Option<String>,
     lookback: Option<String>,
+    window: Option<String>,
     episode: Option<String>,
     exclude_primary: bool,
     primary: Option<String>,
@@ -768,6 +784,7 @@ pub(crate) fn explain<'py>(
         date,
         date_format,
         lookback,
+        window,
         episode,
         exclude_primary,
         primary,
@@ -815,6 +832,8 @@ fn explain_columns(csv: &[u8], skip: usize, whole: bool) -> Result<RecordBatch, 
     let mut weight_i = Int64Builder::new();
     let mut weight_f = Float64Builder::new();
     let mut status = StringBuilder::new();
+    let mut points_i = Int64Builder::new();
+    let mut points_f = Float64Builder::new();
     let bad = |what: &str| Error::data(None, format!("internal error: explain wrote {what}"));
     let text = |b: &[u8]| String::from_utf8_lossy(b).into_owned();
     let mut first = true;
@@ -823,7 +842,7 @@ fn explain_columns(csv: &[u8], skip: usize, whole: bool) -> Result<RecordBatch, 
             return Ok(());
         }
         let f = |k: usize| rec.fields.get(skip + k);
-        if rec.fields.len() != skip + 9 {
+        if rec.fields.len() != skip + 10 {
             return Err(bad("a record of another width"));
         }
         let int = |b: &[u8]| -> Result<Option<i64>, Error> {
@@ -865,6 +884,12 @@ fn explain_columns(csv: &[u8], skip: usize, whole: bool) -> Result<RecordBatch, 
             weight_f.append_option(w.parse::<f64>().ok());
         }
         status.append_value(text(f(8)));
+        let a = std::str::from_utf8(f(9)).unwrap_or("");
+        if whole {
+            points_i.append_option(a.parse::<i64>().ok());
+        } else {
+            points_f.append_option(a.parse::<f64>().ok());
+        }
         Ok(())
     })?;
     let weight: ArrayRef = if whole {
@@ -882,6 +907,11 @@ fn explain_columns(csv: &[u8], skip: usize, whole: bool) -> Result<RecordBatch, 
         Arc::new(condition.finish()),
         weight,
         Arc::new(status.finish()),
+        if whole {
+            Arc::new(points_i.finish())
+        } else {
+            Arc::new(points_f.finish())
+        },
     ];
     let names = [
         ("row", false),
@@ -893,6 +923,7 @@ fn explain_columns(csv: &[u8], skip: usize, whole: bool) -> Result<RecordBatch, 
         ("condition", true),
         ("weight", false),
         ("status", false),
+        ("age_points", true),
     ];
     let fields: Vec<Field> = names
         .iter()

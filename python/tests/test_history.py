@@ -159,6 +159,39 @@ def test_wide_lookback_equals_cli(run_cli, reader, exclude):
     pd.testing.assert_frame_equal(got, as_pandas(frame))
 
 
+@pytest.mark.parametrize("reader", ["pandas-text", "polars"])
+@pytest.mark.parametrize(
+    "windows",
+    [
+        {"lookback": "charlson=365,hfrs=730"},
+        {"lookback": "90,elixhauser=all", "window": "earlier-only"},
+        {"lookback": "365", "window": "earlier-only", "exclude_primary": True},
+    ],
+    ids=["per-list", "mixed-earlier-only", "earlier-only-exclude"],
+)
+def test_windows_equal_cli(run_cli, reader, windows):
+    opts = {**WIDE, **windows}
+    cli = cli_frame(run_cli, "score", WIDE_CSV, opts)
+    frame = read(reader, WIDE_CSV)
+    out = morbus.score(frame, **opts)
+    assert_same(out, cli, added_columns(cli, list(as_pandas(frame).columns)))
+    # The same windows as a dict.
+    if windows["lookback"] == "charlson=365,hfrs=730":
+        as_dict = morbus.score(frame, **{**opts, "lookback": {"charlson": 365, "hfrs": 730}})
+        assert_same(as_dict, cli, added_columns(cli, list(as_pandas(frame).columns)))
+
+
+def test_windows_change_scores(run_cli):
+    """Per-list windows and earlier-only scoring differ from one window for
+    all on the demo extract (else the comparisons above could not fail)."""
+    one = cli_frame(run_cli, "score", WIDE_CSV, {**WIDE, "lookback": "365"})
+    per_list = cli_frame(run_cli, "score", WIDE_CSV, {**WIDE, "lookback": "charlson=365,hfrs=730"})
+    earlier = cli_frame(run_cli, "score", WIDE_CSV, {**WIDE, "lookback": "365", "window": "earlier-only"})
+    assert (one["hfrs_gilbert2018"] != per_list["hfrs_gilbert2018"]).sum() > 10
+    assert (one["charlson_quan2011"] == per_list["charlson_quan2011"]).all()
+    assert (one["charlson_quan2011"] != earlier["charlson_quan2011"]).sum() > 100
+
+
 def test_wide_lookback_changes_scores(run_cli):
     """The lookback and the exclusion matter on the demo extract (else the
     comparisons above could not fail on them)."""
@@ -328,7 +361,7 @@ def test_errors_carry_the_command_line_messages():
         morbus.score(df, dx="dx*", date="day", lookback=30)
     with pytest.raises(ValueError, match=r"date= is used with lookback=DAYS"):
         morbus.score(df, dx="dx*", id="pid", date="day")
-    with pytest.raises(ValueError, match="lookback takes a whole number of days or 'all', not 'soon'"):
+    with pytest.raises(ValueError, match=r"lookback takes a whole number of days or 'all' \(or LIST=DAYS pairs\), not 'soon'"):
         morbus.score(df, dx="dx*", id="pid", date="day", lookback="soon")
     with pytest.raises(ValueError, match="not '-3'"):
         morbus.score(df, dx="dx*", id="pid", date="day", lookback=-3)

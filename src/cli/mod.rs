@@ -93,9 +93,13 @@ struct CompareArgs {
 struct ExplainArgs {
     #[command(flatten)]
     input: InputArgs,
-    /// Write JSON lines instead of CSV.
+    /// Write JSON lines instead of CSV (numbers as JSON numbers, empty values as null).
     #[arg(long)]
     json: bool,
+    /// Name each episode by this column too (its value on the episode's row; long layout:
+    /// the episode's first non-empty value), placed after the id and episode columns.
+    #[arg(long, value_name = "COL")]
+    label: Option<String>,
     /// Output path (`.gz` compresses, `.parquet` writes Parquet); standard output by default.
     #[arg(long, short, value_name = "PATH")]
     output: Option<PathBuf>,
@@ -162,9 +166,17 @@ struct InputArgs {
     #[arg(long, value_name = "PATTERN")]
     date_format: Option<String>,
     /// Score each episode from the same patient's episodes dated within DAYS before it
-    /// (inclusive) and itself; `all` for the whole history.
+    /// (inclusive) and itself; `all` for the whole history. One window per list with
+    /// LIST=DAYS pairs (`charlson=365,hfrs=730`); a bare DAYS beside them is the window of
+    /// the lists not named, and lists without a window are scored from the episode alone.
     #[arg(long, value_name = "DAYS")]
     lookback: Option<String>,
+    /// Which episodes of a lookback window count: `current-and-earlier` (the episode itself
+    /// and every episode of the window up to and including its day) or `earlier-only`
+    /// (only episodes dated before its day: its own codes and those of other episodes of
+    /// the same day are left out).
+    #[arg(long, value_name = "SCOPE", default_value = "current-and-earlier")]
+    window: String,
     /// Leave out the primary diagnosis of the episode being scored (wide: the first
     /// diagnosis column; long: the rows flagged by --primary).
     #[arg(long)]
@@ -213,6 +225,14 @@ struct InputArgs {
     /// Do not print the summary or the progress line on standard error.
     #[arg(long, short)]
     quiet: bool,
+    /// Memory budget of a run that holds the extract (--lookback, --episode, --keep):
+    /// the wide layout's input rows, kept for the output, take at most half of it in
+    /// memory and the rest waits in a temporary file (e.g. 512MiB, 2GiB).
+    #[arg(long, value_name = "LIMIT", default_value = "1GiB")]
+    memory: String,
+    /// Directory for temporary files (default: the system's).
+    #[arg(long, value_name = "DIR")]
+    temp_dir: Option<PathBuf>,
     /// Worker threads for wide scoring and for `compare`'s numerics (default: one per core;
     /// at most 256).
     #[arg(long, value_name = "N", default_value_t = 0)]
@@ -226,6 +246,11 @@ struct ScoreArgs {
     /// Add a 0/1 column `<list>_<condition>` per condition.
     #[arg(long)]
     flags: bool,
+    /// Long layout: carry these columns (names, comma-separated or repeated) into each output
+    /// row after the id and episode: the unit's first non-empty value; units whose rows give
+    /// other values are counted, as for date and age.
+    #[arg(long, value_name = "COLS")]
+    keep: Vec<String>,
     /// Output path (`.gz` compresses, `.parquet` writes Parquet); standard output by default.
     #[arg(long, short, value_name = "PATH")]
     output: Option<PathBuf>,
@@ -405,6 +430,16 @@ fn engine_with_default(
     Ok((cat, engine))
 }
 
+/// Column names given comma-separated and/or repeated.
+fn names_list(values: &[String]) -> Vec<String> {
+    values
+        .iter()
+        .flat_map(|v| v.split(','))
+        .map(|v| v.trim().to_string())
+        .filter(|v| !v.is_empty())
+        .collect()
+}
+
 fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
     let layout = match a.layout {
         LayoutArg::Wide => Layout::Wide,
@@ -413,15 +448,21 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
     if layout == Layout::Long && a.id.is_none() {
         return Err(Error::Usage("--layout long needs --id COL".into()));
     }
-    let lookback = match a.lookback.as_deref() {
-        None => None,
-        Some("all") => Some(u32::MAX),
-        Some(t) => Some(t.trim().parse::<u32>().map_err(|_| {
-            Error::Usage(format!(
-                "--lookback takes a whole number of days or 'all', not '{t}'"
-            ))
-        })?),
+    let (lookback, lookback_lists) = match a.lookback.as_deref() {
+        None => (None, Vec::new()),
+        Some(t) => morbus::pipeline::parse_lookback(t, "--lookback")?,
     };
+    let window = morbus::pipeline::WindowScope::parse(&a.window).ok_or_else(|| {
+        Error::Usage(format!(
+            "--window takes 'current-and-earlier' or 'earlier-only', not '{}'",
+            a.window
+        ))
+    })?;
+    if window != morbus::pipeline::WindowScope::default() && a.lookback.is_none() {
+        return Err(Error::Usage(
+            "--window is used with --lookback DAYS (or 'all')".into(),
+        ));
+    }
     let date_format = match a.date_format.as_deref() {
         None => DateFormat::Iso,
         Some(p) => DateFormat::from_pattern_checked(p)
@@ -432,7 +473,7 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
             "--poa-values is empty; name the values that count (e.g. Y,W,1,blank)".into(),
         ));
     }
-    if a.date.is_some() && lookback.is_none() && a.episode.is_none() {
+    if a.date.is_some() && a.lookback.is_none() && a.episode.is_none() {
         return Err(Error::Usage(
             "--date is used with --lookback DAYS (or 'all')".into(),
         ));
@@ -442,6 +483,15 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
         date: a.date.clone(),
         date_format,
         lookback,
+        lookback_lists,
+        window,
+        memory: morbus::pipeline::rows_store::parse_memory(&a.memory).ok_or_else(|| {
+            Error::Usage(format!(
+                "--memory takes a size such as 512MiB or 2GiB, not '{}'",
+                a.memory
+            ))
+        })?,
+        temp_dir: a.temp_dir.clone(),
         exclude_primary: a.exclude_primary,
         primary: a.primary.clone(),
         poa: a.poa.clone(),
@@ -476,7 +526,13 @@ fn file_end<'a>(role: &'a str, path: &'a Option<PathBuf>) -> Option<End<'a>> {
 
 fn score(a: ScoreArgs) -> Result<(), Error> {
     let (_cat, engine) = engine_for(&a.input, a.flags)?;
-    let cfg = config_for(&a.input)?;
+    let mut cfg = config_for(&a.input)?;
+    cfg.keep = names_list(&a.keep);
+    if !cfg.keep.is_empty() && cfg.layout == Layout::Wide {
+        return Err(Error::Usage(
+            "--keep is for the long layout; a wide output keeps every input column already".into(),
+        ));
+    }
     morbus::io::check_distinct(
         &[End::new("input", a.input.input.as_deref())],
         &[
@@ -550,7 +606,8 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
 
 fn explain(a: ExplainArgs) -> Result<(), Error> {
     let (_cat, engine) = engine_for(&a.input, false)?;
-    let cfg = config_for(&a.input)?;
+    let mut cfg = config_for(&a.input)?;
+    cfg.keep = a.label.iter().cloned().collect();
     let parquet_out = wants_parquet(a.output_format, a.output.as_deref());
     if parquet_out && a.json {
         return Err(Error::Usage(

@@ -95,8 +95,13 @@ pub struct Comparison {
     pub format_version: u32,
     pub morbus_version: String,
     pub outcome: String,
-    /// Lookback in days; `"all"` for the whole history; `null` for none.
+    /// Lookback in days; `"all"` for the whole history; `null` for none;
+    /// with per-list windows as `--lookback` takes them (`365,hfrs=730`).
     pub lookback: Option<String>,
+    /// With a lookback, which episodes count: `current-and-earlier` or
+    /// `earlier-only`.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub window: Option<String>,
     pub hierarchy: bool,
     pub units: UnitCounts,
     /// The terms every model is adjusted for, in model order.
@@ -334,7 +339,7 @@ pub fn compare(
     // Both passes only read the buffer: run them side by side.
     let (history, values_of) = std::thread::scope(|s| {
         let second = s.spawn(|| read_extra(cfg, &data, &extra));
-        let first = History::read(engine, cfg, &data[..], false);
+        let first = History::read(engine, cfg, &data[..], Default::default());
         let second = second
             .join()
             .unwrap_or_else(|e| std::panic::resume_unwind(e));
@@ -355,8 +360,9 @@ pub fn compare(
         ));
     }
     summary.units = hist.episodes.len() as u64;
-    let windows = hist.windows(cfg.lookback);
-    let resolved = hist.resolve(engine, &windows);
+    let mut hist = hist;
+    hist.resolve(&crate::pipeline::history::Windows::new(engine, cfg)?);
+    let resolved = hist.final_sets(engine);
     let w = hist.words();
     let nnum = opts.adjust.len();
     let ncat = opts.adjust_categorical.len();
@@ -840,19 +846,15 @@ pub fn compare(
             "long layout without --episode: each id is one unit (all its codes together)".into(),
         );
     }
-    let lookback = cfg.lookback.map(|d| {
-        if d == u32::MAX {
-            "all".to_string()
-        } else {
-            d.to_string()
-        }
-    });
+    let lookback = crate::pipeline::lookback_text(cfg);
+    let window = cfg.uses_history().then(|| cfg.window.name().to_string());
     Ok((
         Comparison {
             format_version: JSON_FORMAT_VERSION,
             morbus_version: crate::VERSION.to_string(),
             outcome: opts.outcome.clone(),
             lookback,
+            window,
             hierarchy: engine.options().hierarchy,
             units,
             adjustment,

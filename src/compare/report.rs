@@ -393,7 +393,11 @@ pub fn html_report(c: &Comparison) -> String {
         match &c.lookback {
             None => "no lookback".to_string(),
             Some(l) if l == "all" => "lookback over the whole history".to_string(),
-            Some(l) => format!("lookback {} days", esc(l)),
+            Some(l) if l.parse::<u32>().is_ok() => format!("lookback {} days", esc(l)),
+            Some(l) => format!("lookback {} (days)", esc(l)),
+        } + match c.window.as_deref() {
+            Some("earlier-only") => ", earlier episodes only",
+            _ => "",
         },
         if c.hierarchy { "" } else { " · hierarchies off" },
         esc(&c.morbus_version)

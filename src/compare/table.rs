@@ -125,10 +125,15 @@ pub fn text_table(c: &Comparison) -> String {
             ", lookback {}",
             if l == "all" {
                 "whole history".to_string()
-            } else {
+            } else if l.parse::<u32>().is_ok() {
                 format!("{l} days")
+            } else {
+                format!("{l} (days)")
             }
         ));
+        if c.window.as_deref() == Some("earlier-only") {
+            o.push_str(", earlier episodes only");
+        }
     }
     if !c.hierarchy {
         o.push_str(", hierarchies off");

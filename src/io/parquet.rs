@@ -1031,6 +1031,7 @@ impl OutputColumns {
             ("condition", ColumnType::Text),
             ("weight", weight),
             ("status", ColumnType::Text),
+            ("age_points", weight),
         ]
         .into_iter()
         .map(|(n, t)| (n.to_string(), t))
@@ -1071,7 +1072,7 @@ pub fn read_columns(names: &[String], cfg: &ScoreConfig, extra: &[String]) -> Op
         );
     }
     let singles = [&cfg.age, &cfg.id, &cfg.episode, &cfg.date, &cfg.primary];
-    for name in singles.into_iter().flatten().chain(extra) {
+    for name in singles.into_iter().flatten().chain(&cfg.keep).chain(extra) {
         cols.push(header.column(name, "input").ok()?);
     }
     cols.sort_unstable();

@@ -4,12 +4,26 @@
 
 use std::io::{Read, Write};
 
-use super::history::History;
-use super::{Exclusion, ScoreConfig, Summary};
+use super::history::{History, Needs, Windows};
+use super::{Exclusion, ScoreConfig, Summary, WindowScope};
 use crate::io::write_field;
 use crate::lists::format_scaled;
 use crate::score::Engine;
 use crate::Error;
+
+/// The columns of `explain` after the id, episode and label columns.
+pub const EXPLAIN_COLUMNS: [&str; 10] = [
+    "row",
+    "index",
+    "source_row",
+    "source_date",
+    "code_as_written",
+    "code",
+    "condition",
+    "weight",
+    "status",
+    "age_points",
+];
 
 /// Output format of `explain`.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -29,6 +43,9 @@ pub enum Status {
     SupersededBy(String),
     /// Left out of the episode being scored.
     Excluded(Exclusion),
+    /// A code of the episode being scored, left out because only earlier
+    /// episodes count (`--window earlier-only`).
+    CurrentEpisode,
 }
 
 impl Status {
@@ -41,6 +58,7 @@ impl Status {
             Status::Excluded(Exclusion::NotPresentOnAdmission) => {
                 "excluded:not_present_on_admission".into()
             }
+            Status::CurrentEpisode => "excluded:current_episode".into(),
         }
     }
 }
@@ -75,9 +93,23 @@ pub fn explain_stream(
     input: impl Read + Send,
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
-    let (hist, mut summary) = History::read(engine, cfg, input, true)?;
-    let windows = hist.windows(cfg.lookback);
-    let resolved = hist.resolve(engine, &windows);
+    let windows = Windows::new(engine, cfg)?;
+    let (mut hist, mut summary) = History::read(
+        engine,
+        cfg,
+        input,
+        Needs {
+            codes: true,
+            rows: false,
+        },
+    )?;
+    let sorted = hist.resolve(&windows);
+    let hist = hist;
+    let resolved = hist.final_sets(engine);
+    let mut pos = vec![0u32; sorted.len()];
+    for (i, &e) in sorted.iter().enumerate() {
+        pos[e as usize] = i as u32;
+    }
     let w = hist.words();
     let p = &hist.plan;
     let d = cfg.delimiter;
@@ -97,19 +129,29 @@ pub fn explain_stream(
     if let Some(n) = &episode_name {
         head.push(n.clone());
     }
-    head.push("row".into());
-    for h in [
-        "index",
-        "source_row",
-        "source_date",
-        "code_as_written",
-        "code",
-        "condition",
-        "weight",
-        "status",
-    ] {
-        head.push(h.into());
+    for &c in &p.keep {
+        let name = &p.header.names[c];
+        if head.contains(name) || EXPLAIN_COLUMNS.contains(&name.as_str()) {
+            return Err(Error::Usage(format!(
+                "--label column '{name}' is already a column of explain's output"
+            )));
+        }
+        head.push(name.clone());
     }
+    let numbers_from = head.len();
+    head.push("row".into());
+    for h in &EXPLAIN_COLUMNS[1..] {
+        head.push(h.to_string());
+    }
+    // JSON: these are numbers (null when empty).
+    let numeric: Vec<bool> = head
+        .iter()
+        .enumerate()
+        .map(|(i, h)| {
+            i >= numbers_from
+                && matches!(h.as_str(), "row" | "source_row" | "weight" | "age_points")
+        })
+        .collect();
 
     let mut out: Vec<u8> = Vec::new();
     let write_err = |e| Error::io("cannot write output", e);
@@ -131,7 +173,15 @@ pub fn explain_stream(
                 }
                 out.extend_from_slice(json_str(k).as_bytes());
                 out.push(b':');
-                out.extend_from_slice(json_str(v).as_bytes());
+                if !numeric[i] {
+                    out.extend_from_slice(json_str(v).as_bytes());
+                } else if v.is_empty() {
+                    out.extend_from_slice(b"null");
+                } else {
+                    // Row numbers and weights as written: whole numbers or
+                    // decimals, valid JSON numbers.
+                    out.extend_from_slice(v.as_bytes());
+                }
             }
             out.extend_from_slice(b"}\n");
         }
@@ -144,18 +194,6 @@ pub fn explain_stream(
     let mut order: Vec<u32> = Vec::new();
     for (e, ep) in hist.episodes.iter().enumerate() {
         let final_bits = &resolved[e * w..(e + 1) * w];
-        // The current episode first, then the window's others, most recent
-        // first.
-        let (lo, hi) = windows.range[e];
-        order.clear();
-        order.push(e as u32);
-        let mut others: Vec<u32> = windows.sorted[lo as usize..hi as usize]
-            .iter()
-            .copied()
-            .filter(|&f| f as usize != e)
-            .collect();
-        others.reverse();
-        order.extend(others);
 
         let mut prefix: Vec<String> = Vec::new();
         if id_name.is_some() {
@@ -164,6 +202,9 @@ pub fn explain_stream(
         if episode_name.is_some() {
             prefix.push(String::from_utf8_lossy(hist.key(e)).into_owned());
         }
+        for j in 0..p.keep.len() {
+            prefix.push(String::from_utf8_lossy(hist.kept(e, j)).into_owned());
+        }
         prefix.push(ep.row.to_string());
 
         for (si, spec) in engine.specs().iter().enumerate() {
@@ -171,6 +212,13 @@ pub fn explain_stream(
             let list = &sel.list;
             let weighting = &list.weightings[spec.weighting];
             let decimals = weighting.decimals;
+            // The current episode first, then the window's others, most
+            // recent first.
+            let days = windows.per_list[spec.list];
+            order.clear();
+            order.push(e as u32);
+            order.extend(hist.window_members(&sorted, &pos, e, days, windows.scope));
+            let current_left_out = days.is_some() && windows.scope == WindowScope::EarlierOnly;
             let mut counted = vec![false; list.conditions.len()];
             let mut total = 0i64;
             for &src in &order {
@@ -187,7 +235,9 @@ pub fn explain_stream(
                     hits.sort_unstable();
                     hits.dedup();
                     for c in hits {
-                        let status = if src as usize == e && rec.exclusion.is_some() {
+                        let status = if src as usize == e && current_left_out {
+                            Status::CurrentEpisode
+                        } else if src as usize == e && rec.exclusion.is_some() {
                             Status::Excluded(rec.exclusion.unwrap_or(Exclusion::Primary))
                         } else if !Engine::has(final_bits, sel.offset + c) {
                             let sup = list
@@ -219,13 +269,14 @@ pub fn explain_stream(
                         cells.push(list.conditions[c].key.clone());
                         cells.push(String::from_utf8_lossy(&weight).into_owned());
                         cells.push(status.label());
+                        cells.push(String::new());
                         emit(&mut out, &cells);
                     }
                 }
             }
             debug_assert_eq!(total, engine.score(final_bits, si));
             let score = engine.score(final_bits, si);
-            let mut total_row = |scaled: i64, status: String| {
+            let mut total_row = |scaled: i64, status: String, age_points: Option<i64>| {
                 let mut cells = prefix.clone();
                 cells.push(format!("{}:{}", list.name, weighting.name));
                 cells.extend([
@@ -239,14 +290,21 @@ pub fn explain_stream(
                 format_scaled(scaled, decimals, &mut t);
                 cells.push(String::from_utf8_lossy(&t).into_owned());
                 cells.push(status);
+                let mut a = Vec::new();
+                if let Some(points) = age_points {
+                    format_scaled(points, decimals, &mut a);
+                }
+                cells.push(String::from_utf8_lossy(&a).into_owned());
                 emit(&mut out, &cells);
             };
-            total_row(score, "total".into());
+            total_row(score, "total".into(), None);
             if let (Some(age), true) = (ep.age, engine.options().age && !list.age_points.is_empty())
             {
+                let points = list.points_for_age(age);
                 total_row(
-                    score + list.points_for_age(age),
+                    score + points,
                     format!("total_with_age:{age}"),
+                    Some(points),
                 );
             }
         }

@@ -1,14 +1,19 @@
 //! Patient history: scoring each episode from its own codes and those of the
 //! same patient's episodes whose date lies in `[date - lookback, date]`
 //! (both ends inclusive; later episodes never count, episodes of the same day
-//! count each other).
+//! count each other). Each list may have a window of its own, and with
+//! [`WindowScope::EarlierOnly`] only episodes of earlier days count (the
+//! window is `[date - lookback, date - 1]` and the episode's own codes are
+//! left out).
 //!
 //! The extract is read into memory once: per episode its patient, date, age,
 //! and two condition sets: `own_all` (every code, used when the episode is an
 //! earlier one) and `own_current` (without the codes that the primary and
 //! present-on-admission rules leave out, used when the episode is the one
 //! being scored). Episodes are then sorted per patient by date and each
-//! episode's window is found with two pointers.
+//! window slides along a patient's episodes with a count per condition
+//! ([`History::resolve`]): linear in the episodes, however many one patient
+//! has.
 
 use std::collections::HashMap;
 use std::hash::BuildHasherDefault;
@@ -16,9 +21,10 @@ use std::io::{Read, Write};
 
 use super::dates;
 use super::parallel::run_blocks;
+use super::rows_store::{Loaded, RowStore};
 use super::{
     check_collisions, disagreement, keep_first, Exclusion, Layout, Plan, RowIssue, ScoreConfig,
-    Summary,
+    Summary, WindowScope,
 };
 use crate::code::Code;
 use crate::io::{write_field, RecordScanner};
@@ -60,6 +66,9 @@ pub struct History {
     pub episodes: Vec<Episode>,
     /// Long layout with `--episode`: each episode's value.
     keys: Vec<Box<[u8]>>,
+    /// Kept columns (`ScoreConfig::keep`): per episode, one value per
+    /// column (the first non-empty one of its rows).
+    kept: Vec<Option<Box<[u8]>>>,
     words: usize,
     own_all: Vec<u64>,
     /// Empty when no exclusion rule is on (then it equals `own_all`).
@@ -67,16 +76,134 @@ pub struct History {
     /// Wide layout: each row's raw bytes, as (block, start, end) into the
     /// blocks' own buffers (kept as read: no copy into one arena).
     row_spans: Vec<(u32, u32, u32)>,
-    raw_blocks: Vec<Vec<u8>>,
+    raw_blocks: RowStore,
     /// Every code, when asked for.
     pub codes: Vec<CodeRecord>,
+    /// `own_all` holds each episode's windowed set ([`History::resolve`]).
+    resolved: bool,
 }
 
-/// Per episode, the window of same-patient episodes that count for it:
-/// `sorted[range.0..range.1]`.
+/// What a [`History`] keeps besides the condition sets.
+#[derive(Clone, Copy, Debug, Default)]
+pub struct Needs {
+    /// Every code, for `explain`.
+    pub codes: bool,
+    /// The wide layout's raw rows, for an output that copies them.
+    pub rows: bool,
+}
+
+/// The lookback windows of a run: the lists grouped by window length, each
+/// group with the mask of its conditions.
 pub struct Windows {
-    pub sorted: Vec<u32>,
-    pub range: Vec<(u32, u32)>,
+    pub groups: Vec<WindowGroup>,
+    /// Every condition of a list scored over a window.
+    pub windowed: Vec<u64>,
+    pub scope: WindowScope,
+    /// Each engine list's window (`None`: scored from the episode alone).
+    pub per_list: Vec<Option<u32>>,
+}
+
+/// The lists sharing one window length.
+pub struct WindowGroup {
+    /// Days before the episode's date (`u32::MAX`: the whole history).
+    pub days: u32,
+    pub mask: Vec<u64>,
+}
+
+impl Windows {
+    /// The windows of `cfg` over the engine's lists. A list named in
+    /// `lookback_lists` that is not an index of the run is a usage error.
+    pub fn new(engine: &Engine, cfg: &ScoreConfig) -> Result<Windows, Error> {
+        let w = engine.words();
+        for (name, _) in &cfg.lookback_lists {
+            if !engine.lists().iter().any(|l| &l.list.name == name) {
+                let run: Vec<&str> = engine
+                    .lists()
+                    .iter()
+                    .map(|l| l.list.name.as_str())
+                    .collect();
+                return Err(Error::Usage(format!(
+                    "--lookback names list '{name}', which is not scored in this run (lists: {})",
+                    run.join(", ")
+                )));
+            }
+        }
+        let mut groups: Vec<WindowGroup> = Vec::new();
+        let mut windowed = vec![0u64; w];
+        let mut per_list = Vec::new();
+        for l in engine.lists() {
+            let days = cfg
+                .lookback_lists
+                .iter()
+                .find(|(n, _)| *n == l.list.name)
+                .map(|&(_, d)| d)
+                .or(cfg.lookback);
+            per_list.push(days);
+            let Some(days) = days else { continue };
+            let gi = match groups.iter().position(|g| g.days == days) {
+                Some(i) => i,
+                None => {
+                    groups.push(WindowGroup {
+                        days,
+                        mask: vec![0; w],
+                    });
+                    groups.len() - 1
+                }
+            };
+            for id in l.offset..l.offset + l.list.conditions.len() {
+                groups[gi].mask[id >> 6] |= 1 << (id & 63);
+                windowed[id >> 6] |= 1 << (id & 63);
+            }
+        }
+        Ok(Windows {
+            groups,
+            windowed,
+            scope: cfg.window,
+            per_list,
+        })
+    }
+}
+
+/// Adds an episode's conditions (under `mask`) to a window's counts.
+fn count_in(own: &[u64], mask: &[u64], counts: &mut [u32], present: &mut [u64], multi: &mut [u64]) {
+    for (j, (&o, &m)) in own.iter().zip(mask).enumerate() {
+        let mut x = o & m;
+        while x != 0 {
+            let b = x.trailing_zeros() as usize;
+            x &= x - 1;
+            let c = &mut counts[j * 64 + b];
+            *c += 1;
+            match *c {
+                1 => present[j] |= 1 << b,
+                2 => multi[j] |= 1 << b,
+                _ => {}
+            }
+        }
+    }
+}
+
+/// Removes an episode's conditions (under `mask`) from a window's counts.
+fn count_out(
+    own: &[u64],
+    mask: &[u64],
+    counts: &mut [u32],
+    present: &mut [u64],
+    multi: &mut [u64],
+) {
+    for (j, (&o, &m)) in own.iter().zip(mask).enumerate() {
+        let mut x = o & m;
+        while x != 0 {
+            let b = x.trailing_zeros() as usize;
+            x &= x - 1;
+            let c = &mut counts[j * 64 + b];
+            *c -= 1;
+            match *c {
+                0 => present[j] &= !(1 << b),
+                1 => multi[j] &= !(1 << b),
+                _ => {}
+            }
+        }
+    }
 }
 
 /// How a row's date read.
@@ -105,8 +232,10 @@ struct BlockRows {
     summary: Summary,
     err: Option<Error>,
     rows: Vec<RowRead>,
-    /// Patient ids and episode values of the rows.
+    /// Patient ids, episode values and kept values of the rows.
     ids: Vec<u8>,
+    /// Kept values: `plan.keep.len()` spans into `ids` per row.
+    keep: Vec<(usize, usize)>,
     all: Vec<u64>,
     cur: Vec<u64>,
     raw: Vec<u8>,
@@ -123,7 +252,7 @@ fn read_block(
     block: &crate::io::Block,
     start: usize,
     scanner: &mut RecordScanner,
-    (keep_codes, exclusions): (bool, bool),
+    (keep_codes, exclusions, keep_rows): (bool, bool, bool),
 ) -> BlockRows {
     let words = engine.words();
     let mut b = BlockRows {
@@ -131,6 +260,7 @@ fn read_block(
         err: None,
         rows: Vec::new(),
         ids: Vec::new(),
+        keep: Vec::new(),
         all: Vec::new(),
         cur: Vec::new(),
         raw: Vec::new(),
@@ -161,6 +291,10 @@ fn read_block(
         };
         let pid = id(p.id, &mut b.ids);
         let ekey = id(p.episode, &mut b.ids);
+        for &c in &p.keep {
+            let span = id(Some(c), &mut b.ids);
+            b.keep.push(span);
+        }
         let date = match p.read_date(cfg, &rec.fields, &mut b.summary) {
             Ok(Some(d)) => DateRead::Day(d),
             Ok(None) => DateRead::Missing,
@@ -212,7 +346,7 @@ fn read_block(
         .map_err(issue)?;
         b.summary.excluded_primary += excluded.0;
         b.summary.excluded_not_on_admission += excluded.1;
-        if cfg.layout == Layout::Wide {
+        if keep_rows && cfg.layout == Layout::Wide {
             b.raw.extend_from_slice(rec.raw);
             b.raw_ends.push(b.raw.len());
         }
@@ -267,18 +401,22 @@ impl History {
         engine: &Engine,
         cfg: &ScoreConfig,
         input: impl Read + Send,
-        keep_codes: bool,
+        needs: Needs,
     ) -> Result<(History, Summary), Error> {
+        let keep_codes = needs.codes;
         let words = engine.words();
         let exclusions = cfg.exclude_primary || cfg.poa.is_some();
         let mut summary = Summary::default();
         let mut patients: Vec<Box<[u8]>> = Vec::new();
         let mut episodes: Vec<Episode> = Vec::new();
         let mut keys: Vec<Box<[u8]>> = Vec::new();
+        let mut kept: Vec<Option<Box<[u8]>>> = Vec::new();
         let mut own_all: Vec<u64> = Vec::new();
         let mut own_current: Vec<u64> = Vec::new();
         let mut row_spans: Vec<(u32, u32, u32)> = Vec::new();
-        let mut raw_blocks: Vec<Vec<u8>> = Vec::new();
+        let temp_dir = cfg.temp_dir.clone().unwrap_or_else(std::env::temp_dir);
+        let mut raw_blocks = RowStore::new((cfg.memory / 2) as usize, &temp_dir);
+        let keep_rows = needs.rows && cfg.layout == Layout::Wide;
         let mut codes: Vec<CodeRecord> = Vec::new();
         let mut patient_index: ByteMap<u32> = ByteMap::default();
         let mut episode_index: ByteMap<u32> = ByteMap::default();
@@ -297,11 +435,12 @@ impl History {
                     block,
                     start,
                     scanner,
-                    (keep_codes, exclusions),
+                    (keep_codes, exclusions, needs.rows),
                 )
             },
             |h, b: BlockRows, _| {
                 let long_episodes = h.0.episode.is_some();
+                let nkeep = h.0.keep.len();
                 let mut block_episode = Vec::with_capacity(b.rows.len());
                 for (i, r) in b.rows.iter().enumerate() {
                     rows_seen += 1;
@@ -335,6 +474,7 @@ impl History {
                             if exclusions {
                                 own_current.resize(own_current.len() + words, 0);
                             }
+                            kept.resize(kept.len() + nkeep, None);
                             (episodes.len() - 1) as u32
                         };
                     // Every wide row is an episode; in the long layout one
@@ -382,7 +522,27 @@ impl History {
                         .map(|(first, d)| disagreement("date", iso(d), iso(first)));
                     let other_age = keep_first(&mut ep.age, r.age)
                         .map(|(first, a)| disagreement("age", a, first));
-                    if let Some(message) = other_date.or(other_age) {
+                    let mut other_kept = None;
+                    for j in 0..nkeep {
+                        let (s, t) = b.keep[i * nkeep + j];
+                        let v = &b.ids[s..t];
+                        if v.trim_ascii().is_empty() {
+                            continue;
+                        }
+                        match &kept[e as usize * nkeep + j] {
+                            None => kept[e as usize * nkeep + j] = Some(v.into()),
+                            Some(first) if **first != *v && other_kept.is_none() => {
+                                let name = &h.0.header.names[h.0.keep[j]];
+                                other_kept = Some(disagreement(
+                                    &format!("value of column '{name}'"),
+                                    String::from_utf8_lossy(v),
+                                    String::from_utf8_lossy(first),
+                                ));
+                            }
+                            Some(_) => {}
+                        }
+                    }
+                    if let Some(message) = other_date.or(other_age).or(other_kept) {
                         if cfg.strict {
                             return Err(Error::Strict {
                                 line: Some(r.line),
@@ -401,15 +561,14 @@ impl History {
                         }
                     }
                 }
-                if cfg.layout == Layout::Wide {
-                    let bi = raw_blocks.len() as u32;
+                if keep_rows {
+                    let bi = raw_blocks.push(b.raw)?;
                     let mut start = 0u32;
                     row_spans.extend(b.raw_ends.iter().map(|&x| {
                         let span = (bi, start, x as u32);
                         start = x as u32;
                         span
                     }));
-                    raw_blocks.push(b.raw);
                 }
                 for mut c in b.codes {
                     c.episode = block_episode[c.episode as usize];
@@ -439,23 +598,23 @@ impl History {
             patients,
             episodes,
             keys,
+            kept,
             words,
             own_all,
             own_current,
             row_spans,
             raw_blocks,
             codes,
+            resolved: false,
         };
         Ok((hist, summary))
     }
 
-    /// The window of every episode. Without a lookback (or without a date)
-    /// an episode's window is itself alone.
-    pub fn windows(&self, lookback: Option<u32>) -> Windows {
-        let n = self.episodes.len();
-        // Per patient, dated episodes by date, then undated; input order
-        // breaks ties. One packed key per episode: patient (32 bits), then
-        // 1 bit "undated", then the date shifted to be non-negative.
+    /// Episodes in window order: per patient, dated episodes by date, then
+    /// undated ones; input order breaks ties.
+    pub fn window_order(&self) -> Vec<u32> {
+        // One packed key per episode: patient (32 bits), then 1 bit
+        // "undated", then the date shifted to be non-negative.
         let mut keyed: Vec<(u64, u32)> = self
             .episodes
             .iter()
@@ -469,87 +628,169 @@ impl History {
             })
             .collect();
         keyed.sort_unstable();
-        let sorted: Vec<u32> = keyed.into_iter().map(|(_, e)| e).collect();
-        let mut range = vec![(0u32, 0u32); n];
+        keyed.into_iter().map(|(_, e)| e).collect()
+    }
+
+    /// Replaces every episode's own condition set by the set its windows
+    /// give it (before the hierarchy): its own codes (after the primary and
+    /// present-on-admission rules; none for lists scored over earlier
+    /// episodes only) and, per list, every code of the same patient's
+    /// episodes in that list's window. Returns the window order
+    /// ([`History::window_order`]).
+    ///
+    /// Per patient and window, a count per condition of the episodes in the
+    /// window is kept while the window slides along the patient's episodes
+    /// in date order: each episode enters and leaves a window once, so the
+    /// cost is linear in the episodes (times the set size), however many
+    /// episodes one patient has. An episode's history holds a condition when
+    /// some other episode of its window has it: two or more in the window,
+    /// or one that is not the episode itself.
+    pub fn resolve(&mut self, windows: &Windows) -> Vec<u32> {
+        let sorted = self.window_order();
+        if self.resolved {
+            return sorted;
+        }
+        let w = self.words;
+        let n = sorted.len();
+        let mut counts = vec![0u32; w * 64];
+        let mut present = vec![0u64; w];
+        let mut multi = vec![0u64; w];
+        let mut res: Vec<u64> = Vec::new();
+        let earlier_only = windows.scope == WindowScope::EarlierOnly;
+        let own_all = &mut self.own_all;
+        let own_current = &self.own_current;
+        let episodes = &self.episodes;
+        let date = |e: u32| episodes[e as usize].date.map_or(0, i64::from);
         let mut i = 0;
         while i < n {
-            let patient = self.episodes[sorted[i] as usize].patient;
-            let mut end = i;
-            while end < n && self.episodes[sorted[end] as usize].patient == patient {
+            let patient = episodes[sorted[i] as usize].patient;
+            let mut end = i + 1;
+            while end < n && episodes[sorted[end] as usize].patient == patient {
                 end += 1;
             }
-            let (mut lo, mut hi) = (i, i);
-            for k in i..end {
-                let ep = &self.episodes[sorted[k] as usize];
-                match (ep.date, lookback) {
-                    (Some(d), Some(l)) => {
-                        let d = d as i64;
-                        while hi < end
-                            && self.episodes[sorted[hi] as usize]
-                                .date
-                                .is_some_and(|x| (x as i64) <= d)
-                        {
-                            hi += 1;
-                        }
-                        while self.episodes[sorted[lo] as usize]
-                            .date
-                            .is_some_and(|x| (x as i64) < d - l as i64)
-                        {
-                            lo += 1;
-                        }
-                        range[sorted[k] as usize] = (lo as u32, hi as u32);
-                    }
-                    _ => range[sorted[k] as usize] = (k as u32, k as u32 + 1),
+            let seg = &sorted[i..end];
+            res.clear();
+            res.resize(seg.len() * w, 0);
+            for (k, &e) in seg.iter().enumerate() {
+                let e = e as usize;
+                let cur = if own_current.is_empty() {
+                    &own_all[e * w..(e + 1) * w]
+                } else {
+                    &own_current[e * w..(e + 1) * w]
+                };
+                for j in 0..w {
+                    res[k * w + j] = if earlier_only {
+                        cur[j] & !windows.windowed[j]
+                    } else {
+                        cur[j]
+                    };
                 }
+            }
+            let dated = seg
+                .iter()
+                .take_while(|&&e| episodes[e as usize].date.is_some())
+                .count();
+            for g in &windows.groups {
+                let own = |e: u32| &own_all[e as usize * w..(e as usize + 1) * w];
+                let (mut lo, mut hi) = (0usize, 0usize);
+                for k in 0..dated {
+                    let d = date(seg[k]);
+                    while hi < dated && (date(seg[hi]) < d || (!earlier_only && date(seg[hi]) == d))
+                    {
+                        count_in(own(seg[hi]), &g.mask, &mut counts, &mut present, &mut multi);
+                        hi += 1;
+                    }
+                    while lo < hi && date(seg[lo]) < d - g.days as i64 {
+                        count_out(own(seg[lo]), &g.mask, &mut counts, &mut present, &mut multi);
+                        lo += 1;
+                    }
+                    let mine = own(seg[k]);
+                    let out = &mut res[k * w..(k + 1) * w];
+                    for j in 0..w {
+                        let others = if earlier_only {
+                            present[j]
+                        } else {
+                            multi[j] | (present[j] & !mine[j])
+                        };
+                        out[j] |= others & g.mask[j];
+                    }
+                }
+                while lo < hi {
+                    count_out(own(seg[lo]), &g.mask, &mut counts, &mut present, &mut multi);
+                    lo += 1;
+                }
+            }
+            for (k, &e) in seg.iter().enumerate() {
+                let e = e as usize;
+                own_all[e * w..(e + 1) * w].copy_from_slice(&res[k * w..(k + 1) * w]);
             }
             i = end;
         }
-        Windows { sorted, range }
+        self.own_current = Vec::new();
+        self.resolved = true;
+        sorted
     }
 
-    /// Episode `e`'s condition set after its window and the hierarchy, into
-    /// `bits` (`scratch`: the hierarchy's work space).
-    pub fn resolve_into(
-        &self,
-        engine: &Engine,
-        windows: &Windows,
-        e: usize,
-        bits: &mut [u64],
-        scratch: &mut [u64],
-    ) {
+    /// Episode `e`'s final condition set (after [`History::resolve`] and the
+    /// hierarchy), into `bits` (`scratch`: the hierarchy's work space).
+    pub fn final_into(&self, engine: &Engine, e: usize, bits: &mut [u64], scratch: &mut [u64]) {
+        debug_assert!(self.resolved);
         let w = self.words;
-        let current = if self.own_current.is_empty() {
-            &self.own_all
-        } else {
-            &self.own_current
-        };
-        bits.copy_from_slice(&current[e * w..(e + 1) * w]);
-        let (lo, hi) = windows.range[e];
-        for &f in &windows.sorted[lo as usize..hi as usize] {
-            if f as usize != e {
-                let other = &self.own_all[f as usize * w..(f as usize + 1) * w];
-                for (b, o) in bits.iter_mut().zip(other) {
-                    *b |= o;
-                }
-            }
-        }
+        bits.copy_from_slice(&self.own_all[e * w..(e + 1) * w]);
         engine.apply_hierarchy(bits, scratch);
     }
 
-    /// Every episode's condition set after its window and the hierarchy.
-    pub fn resolve(&self, engine: &Engine, windows: &Windows) -> Vec<u64> {
+    /// Every episode's final condition set (see [`History::final_into`]).
+    pub fn final_sets(&self, engine: &Engine) -> Vec<u64> {
         let w = self.words;
         let mut out = vec![0u64; self.episodes.len() * w];
         let mut scratch = vec![0u64; w];
         for e in 0..self.episodes.len() {
-            self.resolve_into(
-                engine,
-                windows,
-                e,
-                &mut out[e * w..(e + 1) * w],
-                &mut scratch,
-            );
+            self.final_into(engine, e, &mut out[e * w..(e + 1) * w], &mut scratch);
         }
+        out
+    }
+
+    /// The episodes other than `e` whose codes count for `e` under a window
+    /// of `days` (`None`: no window), most recent first. `sorted` is the
+    /// window order and `pos[e]` its position there. For `explain`.
+    pub fn window_members(
+        &self,
+        sorted: &[u32],
+        pos: &[u32],
+        e: usize,
+        days: Option<u32>,
+        scope: WindowScope,
+    ) -> Vec<u32> {
+        let (Some(days), Some(d)) = (days, self.episodes[e].date) else {
+            return Vec::new();
+        };
+        let d = d as i64;
+        let patient = self.episodes[e].patient;
+        let p = pos[e] as usize;
+        let mut start = p;
+        while start > 0 && self.episodes[sorted[start - 1] as usize].patient == patient {
+            start -= 1;
+        }
+        let mut out = Vec::new();
+        for &f in &sorted[start..] {
+            let ep = &self.episodes[f as usize];
+            if ep.patient != patient {
+                break;
+            }
+            let Some(x) = ep.date else { break };
+            let x = x as i64;
+            let counts = f as usize != e
+                && x >= d - days as i64
+                && match scope {
+                    WindowScope::CurrentAndEarlier => x <= d,
+                    WindowScope::EarlierOnly => x < d,
+                };
+            if counts {
+                out.push(f);
+            }
+        }
+        out.reverse();
         out
     }
 
@@ -562,10 +803,16 @@ impl History {
         self.words
     }
 
-    /// Wide layout: each row's raw bytes, in input order (one per episode).
-    pub fn row_raw(&self, e: usize) -> &[u8] {
-        let (b, start, end) = self.row_spans[e];
-        &self.raw_blocks[b as usize][start as usize..end as usize]
+    /// Episode `e`'s value of kept column `j` (empty when none of its rows
+    /// had one).
+    pub fn kept(&self, e: usize, j: usize) -> &[u8] {
+        let k = self.plan.keep.len();
+        self.kept[e * k + j].as_deref().unwrap_or(&[])
+    }
+
+    /// Whether the raw rows went partly to a temporary file.
+    pub fn rows_spilled(&self) -> bool {
+        self.raw_blocks.spilled()
     }
 }
 
@@ -577,7 +824,14 @@ pub fn score_history(
     input: impl Read + Send,
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
-    let (hist, mut summary) = History::read(engine, cfg, input, false)?;
+    let windows = Windows::new(engine, cfg)?;
+    let needs = Needs {
+        codes: false,
+        rows: true,
+    };
+    let (mut hist, mut summary) = History::read(engine, cfg, input, needs)?;
+    hist.resolve(&windows);
+    let hist = hist;
     let p = &hist.plan;
     let d = cfg.delimiter;
     let mut out = Vec::with_capacity(cfg.block_size + 4096);
@@ -593,6 +847,15 @@ pub fn score_history(
             if let Some(c) = p.episode {
                 keep.push(&p.header.names[c]);
             }
+            for &c in &p.keep {
+                let name = p.header.names[c].as_str();
+                if keep.contains(&name) {
+                    return Err(Error::Usage(format!(
+                        "column '{name}' is already in the output; keep it once"
+                    )));
+                }
+                keep.push(name);
+            }
             check_collisions(&keep, engine)?;
             for (i, k) in keep.iter().enumerate() {
                 if i > 0 {
@@ -607,27 +870,33 @@ pub fn score_history(
         write_field(c.name.as_bytes(), d, &mut out);
     }
     out.extend_from_slice(eol);
-    let windows = hist.windows(cfg.lookback);
     let write_err = |e| Error::io("cannot write output", e);
     output.write_all(&out).map_err(write_err)?;
     // Episodes are formatted on every core, a round of chunks at a time, and
     // written in order.
-    let format_chunk = |range: std::ops::Range<usize>| -> Vec<u8> {
+    let format_chunk = |range: std::ops::Range<usize>, rows: &Loaded<'_>| -> Vec<u8> {
         let mut out = Vec::with_capacity(range.len() * 128);
         let mut bits = vec![0u64; hist.words()];
         let mut scratch = bits.clone();
         let mut values: Vec<Value> = Vec::new();
         for e in range {
             let ep = &hist.episodes[e];
-            hist.resolve_into(engine, &windows, e, &mut bits, &mut scratch);
+            hist.final_into(engine, e, &mut bits, &mut scratch);
             engine.values(&bits, ep.age, &mut values);
             match cfg.layout {
-                Layout::Wide => out.extend_from_slice(hist.row_raw(e)),
+                Layout::Wide => {
+                    let (b, s, t) = hist.row_spans[e];
+                    out.extend_from_slice(rows.slice(b, s, t));
+                }
                 Layout::Long => {
                     write_field(&hist.patients[ep.patient as usize], d, &mut out);
                     if p.episode.is_some() {
                         out.push(d);
                         write_field(hist.key(e), d, &mut out);
+                    }
+                    for j in 0..p.keep.len() {
+                        out.push(d);
+                        write_field(hist.kept(e, j), d, &mut out);
                     }
                 }
             }
@@ -645,11 +914,20 @@ pub fn score_history(
             .map(|t| (start + t * CHUNK).min(n)..(start + (t + 1) * CHUNK).min(n))
             .filter(|r| !r.is_empty())
             .collect();
+        // The raw rows of this round, read back if they wait on disk.
+        let rows = match cfg.layout {
+            Layout::Wide => hist.raw_blocks.load(
+                hist.row_spans[start].0,
+                hist.row_spans[(start + threads * CHUNK).min(n) - 1].0,
+            )?,
+            Layout::Long => hist.raw_blocks.none(),
+        };
         start = (start + threads * CHUNK).min(n);
+        let rows = &rows;
         let parts: Option<Vec<Vec<u8>>> = std::thread::scope(|s| {
             let handles: Vec<_> = chunks
                 .into_iter()
-                .map(|r| s.spawn(|| format_chunk(r)))
+                .map(|r| s.spawn(move || format_chunk(r, rows)))
                 .collect();
             handles.into_iter().map(|h| h.join().ok()).collect()
         });

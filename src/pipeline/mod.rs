@@ -14,6 +14,7 @@ pub mod dates;
 pub mod explain;
 pub mod history;
 mod parallel;
+pub mod rows_store;
 mod stream;
 
 use std::collections::HashMap;
@@ -131,6 +132,9 @@ pub fn poa_values_from(items: &[String]) -> Vec<String> {
         .collect()
 }
 
+/// The default `--memory`: 1 GiB, within a desktop's means.
+pub const DEFAULT_MEMORY: u64 = 1 << 30;
+
 /// Options of a scoring run over delimited text.
 #[derive(Clone, Debug)]
 pub struct ScoreConfig {
@@ -146,8 +150,26 @@ pub struct ScoreConfig {
     /// Episode date column.
     pub date: Option<String>,
     pub date_format: DateFormat,
-    /// Lookback window in days (`u32::MAX`: the whole history).
+    /// Lookback window in days (`u32::MAX`: the whole history) for every
+    /// list not named in `lookback_lists`.
     pub lookback: Option<u32>,
+    /// Per-list lookback windows (`LIST=DAYS`), which replace `lookback` for
+    /// the lists named. Lists with no window are scored from the episode
+    /// alone.
+    pub lookback_lists: Vec<(String, u32)>,
+    /// Which episodes of a window count for the episode being scored.
+    pub window: WindowScope,
+    /// Other columns carried into a unit's output row (long layout's
+    /// `--keep`, `explain`'s `--label`): each unit's first non-empty value;
+    /// a later row with another non-empty value is counted as a
+    /// disagreement, as for date and age.
+    pub keep: Vec<String>,
+    /// Memory budget in bytes of a run that holds the extract (`--memory`):
+    /// the wide layout's raw rows take at most half of it in memory, the
+    /// rest waits in a temporary file.
+    pub memory: u64,
+    /// Directory of temporary files (`None`: the system's).
+    pub temp_dir: Option<std::path::PathBuf>,
     /// Leave the primary diagnosis of the episode being scored out.
     pub exclude_primary: bool,
     /// Long layout: column flagging the primary-diagnosis row.
@@ -181,6 +203,132 @@ pub struct ScoreConfig {
     pub threads: usize,
 }
 
+impl ScoreConfig {
+    /// Whether any list is scored over a lookback window (the run then reads
+    /// the patient history).
+    pub fn uses_history(&self) -> bool {
+        self.lookback.is_some() || !self.lookback_lists.is_empty()
+    }
+}
+
+/// Which of a patient's episodes in a lookback window count for the episode
+/// being scored.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum WindowScope {
+    /// The episode itself (its codes after the primary and
+    /// present-on-admission rules) and every episode of the patient dated
+    /// within the window up to and including its own day.
+    #[default]
+    CurrentAndEarlier,
+    /// Only episodes dated strictly before the episode's own day (and within
+    /// the window): the episode's own codes and those of other episodes of
+    /// the same day are left out.
+    EarlierOnly,
+}
+
+impl WindowScope {
+    /// The option value naming the scope.
+    pub fn name(self) -> &'static str {
+        match self {
+            WindowScope::CurrentAndEarlier => "current-and-earlier",
+            WindowScope::EarlierOnly => "earlier-only",
+        }
+    }
+
+    /// Reads an option value.
+    pub fn parse(text: &str) -> Option<WindowScope> {
+        match text.trim() {
+            "current-and-earlier" => Some(WindowScope::CurrentAndEarlier),
+            "earlier-only" => Some(WindowScope::EarlierOnly),
+            _ => None,
+        }
+    }
+}
+
+/// A run's lookback windows: the window of every list not named, and the
+/// per-list ones.
+pub type Lookbacks = (Option<u32>, Vec<(String, u32)>);
+
+/// The lookback windows of a run as given on the command line or in Python:
+/// `DAYS`, `all`, `LIST=DAYS` pairs, or both (`365,hfrs=730`: 365 days for
+/// every list but `hfrs`). Returns the window for every list not named and
+/// the per-list windows; `all` is `u32::MAX`. The message names the option
+/// as `option`.
+pub fn parse_lookback(text: &str, option: &str) -> Result<Lookbacks, Error> {
+    let days = |t: &str| -> Result<u32, Error> {
+        let t = t.trim();
+        if t == "all" {
+            return Ok(u32::MAX);
+        }
+        match t.parse::<u32>() {
+            Ok(d) if d < u32::MAX => Ok(d),
+            _ => Err(Error::Usage(format!(
+                "{option} takes a whole number of days or 'all' (or LIST=DAYS pairs), not '{t}'"
+            ))),
+        }
+    };
+    let mut default = None;
+    let mut lists: Vec<(String, u32)> = Vec::new();
+    for part in text.split(',') {
+        let part = part.trim();
+        if part.is_empty() {
+            continue;
+        }
+        match part.split_once('=') {
+            None => {
+                if default.is_some() {
+                    return Err(Error::Usage(format!(
+                        "{option} gives more than one window for every list ('{text}')"
+                    )));
+                }
+                default = Some(days(part)?);
+            }
+            Some((name, d)) => {
+                let name = name.trim();
+                if name.is_empty() {
+                    return Err(Error::Usage(format!(
+                        "{option}: '{part}' names no list (LIST=DAYS)"
+                    )));
+                }
+                if lists.iter().any(|(n, _)| n == name) {
+                    return Err(Error::Usage(format!(
+                        "{option} gives list '{name}' more than one window"
+                    )));
+                }
+                lists.push((name.to_string(), days(d)?));
+            }
+        }
+    }
+    if default.is_none() && lists.is_empty() {
+        return Err(Error::Usage(format!(
+            "{option} takes a whole number of days or 'all' (or LIST=DAYS pairs), not '{text}'"
+        )));
+    }
+    Ok((default, lists))
+}
+
+/// The lookback of a run as text, the way `--lookback` takes it (`365`,
+/// `all`, `365,hfrs=730`); `None` without one.
+pub fn lookback_text(cfg: &ScoreConfig) -> Option<String> {
+    if !cfg.uses_history() {
+        return None;
+    }
+    let days = |d: u32| {
+        if d == u32::MAX {
+            "all".to_string()
+        } else {
+            d.to_string()
+        }
+    };
+    let mut parts: Vec<String> = cfg.lookback.map(days).into_iter().collect();
+    parts.extend(
+        cfg.lookback_lists
+            .iter()
+            .map(|(n, d)| format!("{n}={}", days(*d))),
+    );
+    Some(parts.join(","))
+}
+
 /// How far a run has got, for a progress display.
 #[derive(Clone, Copy, Debug, Default)]
 pub struct Progress {
@@ -201,6 +349,11 @@ impl Default for ScoreConfig {
             date: None,
             date_format: DateFormat::Iso,
             lookback: None,
+            lookback_lists: Vec::new(),
+            window: WindowScope::default(),
+            keep: Vec::new(),
+            memory: DEFAULT_MEMORY,
+            temp_dir: None,
             exclude_primary: false,
             primary: None,
             poa: None,
@@ -632,7 +785,7 @@ impl Summary {
         }
         if self.disagreeing_units > 0 {
             s.push_str(&format!(
-                "; units whose rows disagree on date or age: {} (the first value is used)",
+                "; units whose rows disagree on date, age or a kept column: {} (the first value is used)",
                 self.disagreeing_units
             ));
         }
@@ -842,6 +995,8 @@ pub(crate) struct Plan {
     /// Present-on-admission columns: one (long layout) or one per
     /// diagnosis column (wide layout); empty without `--poa`.
     pub poa: Vec<usize>,
+    /// Columns carried into each unit's output row.
+    pub keep: Vec<usize>,
     pub ncols: usize,
     pub crlf: bool,
 }
@@ -945,10 +1100,15 @@ impl Plan {
             Some(p) => poa_columns(&header, &dx, p, cfg.layout, ("--poa", "--dx"))?,
             None => Vec::new(),
         };
+        let keep = cfg
+            .keep
+            .iter()
+            .map(|n| header.column(n, "kept"))
+            .collect::<Result<Vec<usize>, Error>>()?;
         if cfg.layout == Layout::Long && id.is_none() {
             return Err(Error::Usage("--layout long needs --id COL".into()));
         }
-        if cfg.lookback.is_some() && (id.is_none() || date.is_none()) {
+        if cfg.uses_history() && (id.is_none() || date.is_none()) {
             return Err(Error::Usage(
                 "--lookback needs --id (the patient column) and --date".into(),
             ));
@@ -979,6 +1139,7 @@ impl Plan {
             date,
             primary,
             poa,
+            keep,
             crlf,
         })
     }
@@ -1356,7 +1517,7 @@ pub fn score_stream_observed(
     output: &mut dyn Write,
     progress: &mut dyn FnMut(Progress),
 ) -> Result<Summary, Error> {
-    if cfg.lookback.is_some() || cfg.episode.is_some() {
+    if cfg.uses_history() || cfg.episode.is_some() || !cfg.keep.is_empty() {
         history::score_history(engine, cfg, input, output)
     } else {
         stream::score_plain(engine, cfg, input, output, progress)
