@@ -170,8 +170,11 @@ pub struct Request {
     pub primary: Option<String>,
     pub poa: Option<String>,
     /// Present-on-admission values that count (each may hold several,
-    /// comma-separated); empty: `Y,W`.
+    /// comma-separated; `blank` for an empty field); empty: the default,
+    /// [`crate::pipeline::DEFAULT_POA_VALUES`].
     pub poa_values: Vec<String>,
+    /// Percent of non-empty dates that may be unreadable (default 1).
+    pub max_unreadable_dates: Option<String>,
     /// Index specifications (each may hold several, comma-separated);
     /// empty: the default indices.
     pub index: Vec<String>,
@@ -223,11 +226,8 @@ impl Request {
         };
         let date_format = match self.date_format.as_deref() {
             None => DateFormat::Iso,
-            Some(p) => DateFormat::from_pattern(p).ok_or_else(|| {
-                Error::Usage(format!(
-                    "--date-format '{p}' must hold %Y, %m (or %b) and %d, e.g. '%d/%m/%Y'"
-                ))
-            })?,
+            Some(p) => DateFormat::from_pattern_checked(p)
+                .map_err(|why| Error::Usage(format!("--date-format '{p}' {why}")))?,
         };
         if self.date.is_some() && lookback.is_none() && self.episode.is_none() {
             return Err(Error::Usage(
@@ -248,13 +248,7 @@ impl Request {
                 }
             }
         };
-        let mut poa_values: Vec<String> = self
-            .poa_values
-            .iter()
-            .flat_map(|v| v.split(','))
-            .map(|v| v.trim().to_ascii_uppercase())
-            .filter(|v| !v.is_empty())
-            .collect();
+        let mut poa_values = crate::pipeline::poa_values_from(&self.poa_values);
         if poa_values.is_empty() {
             poa_values = crate::pipeline::DEFAULT_POA_VALUES
                 .iter()
@@ -274,6 +268,11 @@ impl Request {
             primary: self.primary.clone(),
             poa: self.poa.clone(),
             poa_values,
+            max_unreadable_dates: match self.max_unreadable_dates.as_deref() {
+                None => crate::pipeline::DEFAULT_MAX_UNREADABLE_DATES,
+                Some(t) => crate::pipeline::percent_from(t)
+                    .map_err(|why| Error::Usage(format!("--max-unreadable-dates {why}")))?,
+            },
             age: self.age.clone(),
             strict: self.strict,
             threads: self.threads,
@@ -389,7 +388,6 @@ fn resolve(cfg: &ScoreConfig, header: &Header) -> Result<Vec<Used>, Error> {
         (&cfg.episode, Role::Id, "episode", "episode"),
         (&cfg.date, Role::Date, "date", "date"),
         (&cfg.primary, Role::Flag, "primary-diagnosis", "primary"),
-        (&cfg.poa, Role::Flag, "present-on-admission", "poa"),
     ] {
         if let Some(n) = name {
             let c = header.column(n, what)?;
@@ -399,6 +397,20 @@ fn resolve(cfg: &ScoreConfig, header: &Header) -> Result<Vec<Used>, Error> {
                 what,
                 name: n.clone(),
                 text_name: text_name.into(),
+            });
+        }
+    }
+    // Present on admission: one column (long layout) or one per diagnosis
+    // column, paired in order (wide).
+    if let Some(p) = &cfg.poa {
+        let cols = crate::pipeline::poa_columns(header, &dx, p, cfg.layout, ("--poa", "--dx"))?;
+        for (k, c) in cols.into_iter().enumerate() {
+            used.push(Used {
+                col: c,
+                role: Role::Flag,
+                what: "present-on-admission",
+                name: header.names[c].clone(),
+                text_name: format!("poa{k}"),
             });
         }
     }
@@ -674,7 +686,10 @@ fn text_config(cfg: &ScoreConfig, used: &[Used], typed_dates: bool) -> ScoreConf
         episode: name(Role::Id, "episode"),
         date: name(Role::Date, "date"),
         primary: name(Role::Flag, "primary"),
-        poa: name(Role::Flag, "poa"),
+        poa: used
+            .iter()
+            .any(|u| u.text_name.starts_with("poa"))
+            .then(|| "poa*".to_string()),
         delimiter: b',',
         date_format: if typed_dates {
             DateFormat::Iso

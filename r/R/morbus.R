@@ -113,7 +113,7 @@ frame_columns <- function(data) {
 options_list <- function(dx, index, age, id, date, lookback, episode, layout,
                          flags, hierarchy, strict, threads, dx_sep,
                          date_format, exclude_primary, primary, poa,
-                         poa_values) {
+                         poa_values, max_unreadable_dates) {
   if (is.null(dx)) usage_error("dx is required: the diagnosis columns (names and/or globs such as \"dx*\")", sys.call(-1))
   if (!is.numeric(threads) || length(threads) != 1 || is.na(threads) || threads < 0) {
     usage_error("threads must be a whole number, 0 for one per core", sys.call(-1))
@@ -136,7 +136,8 @@ options_list <- function(dx, index, age, id, date, lookback, episode, layout,
     exclude_primary = switch_value(exclude_primary, "exclude_primary"),
     primary = one_text(primary, "primary"),
     poa = one_text(poa, "poa"),
-    poa_values = texts(poa_values, "poa_values")
+    poa_values = texts(poa_values, "poa_values"),
+    max_unreadable_dates = one_text(max_unreadable_dates, "max_unreadable_dates")
   )
 }
 
@@ -220,9 +221,15 @@ add_columns <- function(data, cols) {
 #'   episode being scored (wide: the first diagnosis column; long: the rows
 #'   flagged by `primary`).
 #' @param primary Long layout: column flagging the primary-diagnosis row.
-#' @param poa Long layout: present-on-admission indicator column.
-#' @param poa_values Present-on-admission values that count (default `Y`,
-#'   `W`).
+#' @param poa Present-on-admission indicator column (long layout), or
+#'   columns paired in order with the diagnosis columns (wide layout: names
+#'   or a glob such as `"poa*"`); codes of the episode being scored count
+#'   only when their indicator is one of `poa_values`.
+#' @param poa_values Present-on-admission values that count, a character
+#'   vector (`"blank"` for an empty field); `NULL` for the command line's
+#'   default, `Y`, `W`, `1` and blank.
+#' @param max_unreadable_dates Stop (`morbus_data_error`) when more than this
+#'   percentage of the non-empty episode dates cannot be read.
 #' @param quiet `FALSE` shows the run's summary as a message.
 #' @return A data frame of the class of `data` (see Details).
 #' @section Errors: conditions of class `morbus_usage_error` (options,
@@ -256,12 +263,12 @@ score <- function(data, dx, index = NULL, age = NULL, id = NULL, date = NULL,
                   flags = FALSE, hierarchy = TRUE, lists = NULL,
                   strict = FALSE, threads = 0L, provenance = FALSE,
                   dx_sep = NULL, date_format = NULL, exclude_primary = FALSE,
-                  primary = NULL, poa = NULL, poa_values = c("Y", "W"),
-                  quiet = TRUE) {
+                  primary = NULL, poa = NULL, poa_values = NULL,
+                  max_unreadable_dates = 1, quiet = TRUE) {
   opts <- options_list(
     dx, index, age, id, date, lookback, episode, layout, flags, hierarchy,
     strict, threads, dx_sep, date_format, exclude_primary, primary, poa,
-    poa_values
+    poa_values, max_unreadable_dates
   )
   switch_value(provenance, "provenance")
   switch_value(quiet, "quiet")
@@ -308,11 +315,11 @@ explain <- function(data, dx, index = NULL, age = NULL, id = NULL, date = NULL,
                     hierarchy = TRUE, lists = NULL, strict = FALSE,
                     threads = 0L, dx_sep = NULL, date_format = NULL,
                     exclude_primary = FALSE, primary = NULL, poa = NULL,
-                    poa_values = c("Y", "W"), quiet = TRUE) {
+                    poa_values = NULL, max_unreadable_dates = 1, quiet = TRUE) {
   opts <- options_list(
     dx, index, age, id, date, lookback, episode, layout, FALSE, hierarchy,
     strict, threads, dx_sep, date_format, exclude_primary, primary, poa,
-    poa_values
+    poa_values, max_unreadable_dates
   )
   switch_value(quiet, "quiet")
   cols <- frame_columns(data)

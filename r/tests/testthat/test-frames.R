@@ -92,6 +92,7 @@ test_that("generated extracts equal the command line, every weighting and layout
     stringsAsFactors = FALSE
   )
   for (k in 1:8) g[[paste0("code", k)]] <- sample(pool, n, replace = TRUE)
+  for (k in 1:8) g[[paste0("poa", k)]] <- sample(c("Y", "N", "U", "W", "1", "", "E"), n, replace = TRUE)
   path <- tempfile(fileext = ".csv")
   write.csv(g, path, row.names = FALSE, na = "")
   all_specs <- "charlson:charlson1987,charlson:quan2011,charlson:count,elixhauser:vanwalraven2009,elixhauser:count,hfrs:gilbert2018"
@@ -100,7 +101,13 @@ test_that("generated extracts equal the command line, every weighting and layout
     list(cli = c("--id", "patient", "--date", "day", "--lookback", "180"),
          r = list(id = "patient", date = "day", lookback = 180)),
     list(cli = c("--id", "patient", "--date", "day", "--lookback", "all", "--exclude-primary"),
-         r = list(id = "patient", date = "day", lookback = "all", exclude_primary = TRUE))
+         r = list(id = "patient", date = "day", lookback = "all", exclude_primary = TRUE)),
+    # present on admission, wide: one indicator column per diagnosis column
+    list(cli = c("--poa", "'poa*'"), r = list(poa = "poa*")),
+    list(cli = c("--poa", "'poa*'", "--poa-values", "Y,W,blank", "--id", "patient", "--date", "day",
+                 "--lookback", "365"),
+         r = list(poa = "poa*", poa_values = c("Y", "W", "blank"), id = "patient", date = "day",
+                  lookback = 365))
   )) {
     cli <- run_cli("score", path, c("--dx", "'code*'", "--index", all_specs, "--age", "age",
                                     "--flags", case$cli))

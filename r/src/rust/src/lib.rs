@@ -373,6 +373,7 @@ unsafe fn request(opts: SEXP) -> Request {
         primary: s("primary"),
         poa: s("poa"),
         poa_values: string_vec(element(opts, "poa_values")),
+        max_unreadable_dates: s("max_unreadable_dates"),
         index: string_vec(element(opts, "index")),
         age: s("age"),
         flags: flag(element(opts, "flags")),
