@@ -288,7 +288,7 @@ pub const INVALID_VALUE_BYTES: usize = 64;
 
 /// An invalid value as remembered: trimmed, and cut when too long.
 fn kept_value(value: &[u8]) -> std::borrow::Cow<'_, [u8]> {
-    let v = value.trim_ascii();
+    let v = trim_blanks(value);
     if v.len() <= INVALID_VALUE_BYTES {
         return std::borrow::Cow::Borrowed(v);
     }
@@ -307,15 +307,32 @@ fn kept_value(value: &[u8]) -> std::borrow::Cow<'_, [u8]> {
 /// [`INVALID_VALUE_BYTES`] bytes with its length said when longer.
 pub fn shown(value: &[u8]) -> String {
     let mut out = escaped(&kept_value(value));
-    let n = value.trim_ascii().len();
+    let n = trim_blanks(value).len();
     if n > INVALID_VALUE_BYTES {
         out.push_str(&format!(" ({n} bytes)"));
     }
     out
 }
 
-/// Lossy UTF-8 with control characters escaped.
-fn escaped(value: &[u8]) -> String {
+/// A value without the spaces and tabs around it: what the code reader
+/// ignores (see [`crate::code`]). A carriage return or any other control
+/// character is kept, and shown escaped (`'I21\r'`), since it makes the
+/// value an invalid code.
+fn trim_blanks(value: &[u8]) -> &[u8] {
+    let start = value
+        .iter()
+        .position(|b| !matches!(b, b' ' | b'\t'))
+        .unwrap_or(value.len());
+    let end = value
+        .iter()
+        .rposition(|b| !matches!(b, b' ' | b'\t'))
+        .map_or(start, |e| e + 1);
+    &value[start..end]
+}
+
+/// Lossy UTF-8 with control characters escaped: how text from an input or
+/// a list is shown on a terminal, everywhere (`\r`, `\u{1b}`).
+pub fn escaped(value: &[u8]) -> String {
     let mut out = String::new();
     for c in String::from_utf8_lossy(value).chars() {
         if c.is_control() {
@@ -581,7 +598,11 @@ impl Header {
     /// hint when the header looks split by another delimiter.
     fn available(&self) -> String {
         const SHOWN: usize = 40;
-        let mut s = self.names[..self.names.len().min(SHOWN)].join(", ");
+        let mut s = self.names[..self.names.len().min(SHOWN)]
+            .iter()
+            .map(|n| escaped(n.as_bytes()))
+            .collect::<Vec<_>>()
+            .join(", ");
         if self.names.len() > SHOWN {
             s.push_str(&format!(", and {} more", self.names.len() - SHOWN));
         }
