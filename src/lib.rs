@@ -16,6 +16,7 @@
 //! - [`io`]: streaming delimited text in and out;
 //! - [`pipeline`]: `score` over an extract, wide or long, with its summary;
 //! - [`columnar`]: `score` over in-memory columns (Arrow arrays, data frames);
+//! - [`frame`]: `score` and `explain` over a data frame's typed columns (the bindings);
 //! - [`provenance`]: what produced an output (tool, lists, options, counts);
 //! - [`stats`]: the numerics of `compare` (c-statistics, DeLong, logistic
 //!   regression, rank correlation);
@@ -43,6 +44,7 @@ pub mod columnar;
 pub mod compare;
 pub mod editions;
 pub mod error;
+pub mod frame;
 pub mod io;
 pub mod lists;
 pub mod matcher;

@@ -35,7 +35,12 @@ mod progress;
 from the ICD-10 diagnosis fields of hospital episode and claims extracts.\n\n\
 These indices support population-level risk adjustment and research, not decisions about an \
 individual patient. Review the code lists against local coding standards before use.\n\n\
-Exit codes: 0 success, 1 unreadable input data, 2 usage (options, columns, lists), 3 stopped by --strict."
+Exit codes: 0 success, 1 unreadable input data, 2 usage (options, columns, lists), 3 stopped by --strict.",
+    after_help = "\
+Examples (the demo data of the repository):
+  morbus score demo-data/episodes.csv --dx 'dx*' --age age -o scored.csv
+  morbus explain demo-data/episodes.csv --dx 'dx*' --index charlson -o explained.csv
+  morbus lists"
 )]
 struct Cli {
     #[command(subcommand)]
@@ -68,7 +73,12 @@ NA, N/A, N/K, NK, NULL and . (any case) are missing (counted and left out). Any 
 the models as 0/1 indicators, one per level except the reference: the first level in byte order \
 of the values as written.
 
-The results describe groups of patients for research and risk adjustment, not individuals.")]
+The results describe groups of patients for research and risk adjustment, not individuals.
+
+Examples:
+  morbus compare demo-data/episodes.csv --dx 'dx*' --outcome died_within_30_days
+  morbus compare demo-data/episodes.csv --dx 'dx*' --outcome died_within_30_days --index charlson,elixhauser --adjust age --adjust-cat sex --report compare.html
+  morbus compare demo-data/episodes.csv --dx 'dx*' --outcome died_within_30_days --id patient_id --date admission_date --lookback 365 --json compare.json")]
 struct CompareArgs {
     #[command(flatten)]
     input: InputArgs,
@@ -90,6 +100,11 @@ struct CompareArgs {
 }
 
 #[derive(Args)]
+#[command(after_help = "\
+Examples:
+  morbus explain demo-data/episodes.csv --dx 'dx*' --index charlson -o explained.csv
+  morbus explain demo-data/episodes.csv --dx 'dx*' --id patient_id --date admission_date --lookback 365 --json -o explained.jsonl
+  morbus explain demo-data/episodes-long.csv --layout long --id patient_id --episode episode_id --dx code --index hfrs -o explained.csv")]
 struct ExplainArgs {
     #[command(flatten)]
     input: InputArgs,
@@ -198,8 +213,9 @@ struct InputArgs {
     /// cannot be read with the date format.
     #[arg(long, value_name = "PERCENT", default_value = "1")]
     max_unreadable_dates: String,
-    /// Index specifications LIST[:WEIGHTING], comma-separated or repeated.
-    #[arg(long = "index", value_name = "SPEC")]
+    /// Index specifications LIST[:WEIGHTING], comma-separated or repeated (the lists and
+    /// weightings are listed in the full help, --help).
+    #[arg(long = "index", value_name = "SPEC", long_help = index_help())]
     index: Vec<String>,
     /// Age column (whole years): adds `<list>_<weighting>_age` for lists with age points.
     #[arg(long, value_name = "COL")]
@@ -240,6 +256,11 @@ struct InputArgs {
 }
 
 #[derive(Args)]
+#[command(after_help = "\
+Examples:
+  morbus score demo-data/episodes.csv --dx 'dx*' --age age -o scored.csv
+  morbus score demo-data/episodes.csv --dx 'dx*' --index charlson:charlson1987,hfrs --flags --provenance scored.json -o scored.csv
+  morbus score demo-data/episodes-long.csv --layout long --id patient_id --episode episode_id --dx code --date admission_date --lookback 365 -o episodes-scored.csv")]
 struct ScoreArgs {
     #[command(flatten)]
     input: InputArgs,
@@ -265,6 +286,11 @@ struct ScoreArgs {
 
 /// Without a subcommand: a table of the available lists.
 #[derive(Args)]
+#[command(after_help = "\
+Examples:
+  morbus lists
+  morbus lists show charlson
+  morbus lists export charlson my-lists/ --force")]
 struct ListsArgs {
     /// Also load the lists found in this directory (they replace built-ins
     /// of the same name).
@@ -278,6 +304,10 @@ struct ListsArgs {
 enum ListsCommand {
     /// Everything a list holds: metadata, conditions with their codes,
     /// hierarchy, weightings with their weights, age points and bands.
+    #[command(after_help = "\
+Examples:
+  morbus lists show charlson
+  morbus lists show hfrs --json")]
     Show {
         /// List name (or path to a list file).
         name: String,
@@ -286,6 +316,10 @@ enum ListsCommand {
         json: bool,
     },
     /// Write an editable copy DIR/NAME.tsv that `--lists DIR` loads back.
+    #[command(after_help = "\
+Examples:
+  morbus lists export charlson my-lists/ --force
+  morbus lists export elixhauser my-lists/ --force")]
     Export {
         /// List name (or path to a list file).
         name: String,
@@ -297,6 +331,10 @@ enum ListsCommand {
     },
     /// Validate a list file, or every list of a directory: prints each error
     /// and warning with file and line; exits 2 on errors.
+    #[command(after_help = "\
+Examples:
+  morbus lists check code-lists/
+  morbus lists check code-lists/charlson.tsv")]
     Check {
         /// A list file or a directory of lists.
         path: PathBuf,
@@ -305,6 +343,11 @@ enum ListsCommand {
     /// hierarchy, weights, bands, age points, version and sources. A and B may
     /// both be directories (as `lists export` writes): lists are paired by name,
     /// and lists present on one side only are reported.
+    #[command(after_help = "\
+Examples:
+  morbus lists diff charlson code-lists/charlson.tsv
+  morbus lists diff charlson code-lists/charlson.tsv --json
+  morbus lists diff exported-lists/ my-lists/")]
     Diff {
         /// List name, path to a list file, or directory of lists (before).
         a: String,
@@ -314,6 +357,74 @@ enum ListsCommand {
         #[arg(long)]
         json: bool,
     },
+}
+
+/// The full help of `--index`: the built-in lists with their weightings and
+/// defaults, from the catalogue itself.
+fn index_help() -> String {
+    let cat = Catalogue::builtin();
+    let mut s = String::from(
+        "Index specifications LIST[:WEIGHTING], comma-separated or repeated; a bare LIST takes \
+         its default weighting.\n\nBuilt-in lists and their weightings (--lists DIR adds more; \
+         `morbus lists` shows them):",
+    );
+    for l in cat.lists() {
+        let w: Vec<String> = l
+            .weightings
+            .iter()
+            .map(|w| {
+                if w.name == l.default_weighting {
+                    format!("{} (default)", w.name)
+                } else {
+                    w.name.clone()
+                }
+            })
+            .collect();
+        s.push_str(&format!("\n  {}: {}", l.name, w.join(", ")));
+    }
+    s.push_str(&format!(
+        "\n\nWithout --index: {DEFAULT_INDICES} (compare: every weighting of every list)."
+    ));
+    s
+}
+
+/// On a terminal, says after a moment that the command waits for data on
+/// standard input, and how to name a file instead; quiet once data came.
+struct StdinNotice(Option<std::sync::Arc<std::sync::atomic::AtomicBool>>);
+
+impl StdinNotice {
+    fn new(a: &InputArgs, command: &str) -> StdinNotice {
+        use std::sync::atomic::{AtomicBool, Ordering};
+        let stdin = a.input.as_ref().is_none_or(|p| p.as_os_str() == "-");
+        if !stdin || !std::io::stdin().is_terminal() {
+            return StdinNotice(None);
+        }
+        let done = std::sync::Arc::new(AtomicBool::new(false));
+        let seen = done.clone();
+        let command = command.to_string();
+        let after = std::env::var("MORBUS_STDIN_NOTICE_MS")
+            .ok()
+            .and_then(|v| v.parse().ok())
+            .unwrap_or(1500);
+        std::thread::spawn(move || {
+            std::thread::sleep(std::time::Duration::from_millis(after));
+            if !seen.load(Ordering::SeqCst) {
+                eprintln!(
+                    "morbus: waiting for CSV on standard input (type or paste it, then Ctrl-D; \
+                     Ctrl-C stops). To read a file, name it: morbus {command} FILE.csv --dx ..."
+                );
+            }
+        });
+        StdinNotice(Some(done))
+    }
+}
+
+impl Drop for StdinNotice {
+    fn drop(&mut self) {
+        if let Some(d) = &self.0 {
+            d.store(true, std::sync::atomic::Ordering::SeqCst);
+        }
+    }
 }
 
 /// Runs the command line and returns the exit code.
@@ -557,7 +668,7 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         // output of a Parquet input copies the input's own columns from it:
         // either way the pipeline needs only the columns it reads.
         let only_read = parquet_out || cfg.layout == Layout::Long;
-        let mut input = open_extract(&a.input, &cfg, only_read, &[])?;
+        let mut input = open_extract("score", &a.input, &cfg, only_read, &[])?;
         let mut output = input.open_output(
             a.output.as_deref(),
             parquet_out,
@@ -619,7 +730,7 @@ fn explain(a: ExplainArgs) -> Result<(), Error> {
         &[End::new("--output", a.output.as_deref())],
     )?;
     // explain keeps only the id and episode columns.
-    let mut input = open_extract(&a.input, &cfg, true, &[])?;
+    let mut input = open_extract("explain", &a.input, &cfg, true, &[])?;
     let mut output = input.open_output(
         a.output.as_deref(),
         parquet_out,
@@ -650,6 +761,7 @@ fn explain(a: ExplainArgs) -> Result<(), Error> {
 /// Opens the input of a run (see [`Extract::open`]); the command line keeps
 /// the Parquet decoder's caught panics off standard error.
 fn open_extract(
+    command: &str,
     a: &InputArgs,
     cfg: &ScoreConfig,
     only_read: bool,
@@ -657,6 +769,8 @@ fn open_extract(
 ) -> Result<Extract, Error> {
     #[cfg(feature = "parquet")]
     morbus::io::parquet::quiet_decoder_panics();
+    // Opening reads the first bytes: the notice is for a wait before them.
+    let _notice = StdinNotice::new(a, command);
     Extract::open(a.input.as_deref(), cfg, only_read, extra)
 }
 
@@ -704,7 +818,7 @@ fn compare(a: CompareArgs) -> Result<(), Error> {
     let mut wanted = vec![opts.outcome.clone()];
     wanted.extend(opts.adjust.iter().cloned());
     wanted.extend(opts.adjust_categorical.iter().cloned());
-    let mut input = open_extract(&a.input, &cfg, true, &wanted)?;
+    let mut input = open_extract("compare", &a.input, &cfg, true, &wanted)?;
     let (result, summary) = morbus::compare::compare(&engine, &cfg, &opts, input.take_reader())
         .map_err(|e| input.translate(e))?;
     if let Some(file) = json_file {

@@ -1,0 +1,4 @@
+library(testthat)
+library(morbus)
+
+test_check("morbus")

@@ -1,0 +1,1150 @@
+//! `score` and `explain` over the typed columns of a data frame, for the
+//! language bindings (the R package; the Python package's dated-history path
+//! in `python/src/history.rs` follows the same route).
+//!
+//! A binding describes its frame through [`Columns`]: for every column its
+//! [`Kind`] and, row by row, its [`Field`]s (text read in place, numbers,
+//! dates as days). [`score`] and [`explain`] resolve the run's columns
+//! against the frame's names with the command line's checks and messages,
+//! then:
+//!
+//! - without the dated-history options (`--date`, `--lookback`,
+//!   `--episode`, `--exclude-primary`, `--primary`, `--poa`), score the rows
+//!   with [`crate::columnar::Scorer`], on several threads for a large wide
+//!   frame;
+//! - with them, write the columns the run uses (and only those) as delimited
+//!   text and read that with the library's own history reader
+//!   ([`History`], the one behind `morbus score --lookback` and
+//!   `morbus explain`); line numbers are mapped back to frame rows and the
+//!   reader's column names back to the frame's.
+//!
+//! Results come back typed, one vector per output column ([`Scored`],
+//! [`Explained`]). Rows in messages are numbered from `first_row` (0 for
+//! Python, 1 for R).
+//!
+//! ```
+//! use morbus::frame::{self, Columns, Field, Kind, ScoreColumn};
+//! use morbus::lists::Catalogue;
+//! use morbus::pipeline::{Header, ScoreConfig};
+//! use morbus::score::{Engine, IndexSpec, ScoreOptions};
+//!
+//! struct Codes(Vec<&'static str>);
+//! impl Columns for Codes {
+//!     fn rows(&self) -> usize { self.0.len() }
+//!     fn kind(&self, _col: usize) -> Kind { Kind::Text }
+//!     fn field(&self, _col: usize, row: usize) -> Field<'_> { Field::Text(self.0[row].as_bytes()) }
+//! }
+//!
+//! let specs = IndexSpec::parse_many("charlson:charlson1987").unwrap();
+//! let engine = Engine::new(&Catalogue::builtin(), &specs, ScoreOptions::default()).unwrap();
+//! let cfg = ScoreConfig { dx: vec!["dx1".into()], ..ScoreConfig::default() };
+//! let header = Header { names: vec!["dx1".into()] };
+//! let scored = frame::score(&engine, &cfg, &header, &Codes(vec!["C78.0", "I21.9"]), 1).unwrap();
+//! assert_eq!(scored.columns[0], ScoreColumn::Int(vec![Some(6), Some(1)]));
+//! ```
+
+use std::borrow::Cow;
+
+use crate::columnar::{self, Age, Rows, Scorer};
+use crate::io::{write_field, RecordScanner};
+use crate::lists::SCALE;
+use crate::pipeline::dates::write_iso_date;
+use crate::pipeline::explain::ExplainFormat;
+use crate::pipeline::history::History;
+use crate::pipeline::{DateFormat, Header, Layout, ScoreConfig, Summary};
+use crate::score::{ColumnKind, Engine, Value};
+use crate::Error;
+
+/// What a column holds, as a whole.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Kind {
+    Text,
+    /// Whole numbers.
+    Integer,
+    /// Floating-point numbers.
+    Number,
+    /// True/false.
+    Logical,
+    /// Dates (days since 1970-01-01).
+    Date,
+    /// Anything else (the binding names it in [`Columns::type_name`]).
+    Other,
+}
+
+/// One value of a column.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum Field<'a> {
+    /// Missing (`NA`, `None`, null).
+    Null,
+    Text(&'a [u8]),
+    Integer(i64),
+    /// NaN counts as missing.
+    Number(f64),
+    Logical(bool),
+    /// Days since 1970-01-01.
+    Date(i64),
+}
+
+/// A data frame as the scorer reads it. Columns are numbered as in the
+/// [`Header`] given with it; rows from 0.
+pub trait Columns: Sync {
+    /// Number of rows.
+    fn rows(&self) -> usize;
+    /// What column `col` holds.
+    fn kind(&self, col: usize) -> Kind;
+    /// The value of column `col` at `row`. Only the columns a run uses are
+    /// read.
+    fn field(&self, col: usize, row: usize) -> Field<'_>;
+    /// The column's type as the binding's users know it, for messages.
+    fn type_name(&self, col: usize) -> String {
+        format!("{:?}", self.kind(col)).to_lowercase()
+    }
+}
+
+/// One output column, with a value (or `None`: missing) per output row.
+#[derive(Clone, Debug, PartialEq)]
+pub enum ScoreColumn {
+    /// A score without decimals.
+    Int(Vec<Option<i64>>),
+    /// A score with decimals (the frailty score).
+    Float(Vec<Option<f64>>),
+    /// A band: an index into `names`.
+    Band {
+        names: Vec<String>,
+        values: Vec<Option<u16>>,
+    },
+    /// A condition flag, 0 or 1.
+    Flag(Vec<Option<i8>>),
+}
+
+/// The result of [`score`].
+#[derive(Debug)]
+pub struct Scored {
+    /// One column per [`Engine::columns`], named as there.
+    pub columns: Vec<ScoreColumn>,
+    /// Long layout: for each output row, the 0-based frame row where its
+    /// unit first appears (to take the id and episode values from).
+    pub first_rows: Option<Vec<u64>>,
+    pub summary: Summary,
+}
+
+/// The rows of `morbus explain`, typed, after the id and episode columns
+/// (take those from the frame at `row`).
+#[derive(Debug, Default)]
+pub struct Explained {
+    /// 1-based data row of the episode (its first record in the long
+    /// layout), as the command line numbers it.
+    pub row: Vec<i64>,
+    pub index: Vec<String>,
+    pub source_row: Vec<Option<i64>>,
+    /// Days since 1970-01-01.
+    pub source_date: Vec<Option<i64>>,
+    pub code_as_written: Vec<Option<String>>,
+    pub code: Vec<Option<String>>,
+    pub condition: Vec<Option<String>>,
+    pub weight: Vec<f64>,
+    /// Whether every weight is a whole number (no index with decimals).
+    pub whole_weights: bool,
+    pub status: Vec<String>,
+}
+
+/// The options of a `score` or `explain` call as a binding receives them
+/// (the command line's options, as text and switches), resolved into an
+/// [`Engine`] and a [`ScoreConfig`] by [`Request::resolve`] with the command
+/// line's checks and messages.
+#[derive(Clone, Debug, Default)]
+pub struct Request {
+    /// Diagnosis columns: names and/or globs (each may hold several,
+    /// comma-separated).
+    pub dx: Vec<String>,
+    pub dx_sep: Option<String>,
+    /// `wide` (default when empty) or `long`.
+    pub layout: String,
+    pub id: Option<String>,
+    pub episode: Option<String>,
+    pub date: Option<String>,
+    pub date_format: Option<String>,
+    /// Days, or `all`.
+    pub lookback: Option<String>,
+    pub exclude_primary: bool,
+    pub primary: Option<String>,
+    pub poa: Option<String>,
+    /// Present-on-admission values that count (each may hold several,
+    /// comma-separated; `blank` for an empty field); empty: the default,
+    /// [`crate::pipeline::DEFAULT_POA_VALUES`].
+    pub poa_values: Vec<String>,
+    /// Percent of non-empty dates that may be unreadable (default 1).
+    pub max_unreadable_dates: Option<String>,
+    /// Index specifications (each may hold several, comma-separated);
+    /// empty: the default indices.
+    pub index: Vec<String>,
+    pub age: Option<String>,
+    pub flags: bool,
+    pub no_hierarchy: bool,
+    pub strict: bool,
+    pub threads: usize,
+}
+
+impl Request {
+    /// The engine and options of the run, over `catalogue`.
+    pub fn resolve(
+        &self,
+        catalogue: &crate::lists::Catalogue,
+    ) -> Result<(Engine, ScoreConfig), Error> {
+        use crate::score::{IndexSpec, ScoreOptions, DEFAULT_INDICES};
+        let specs = if self.index.iter().all(|s| s.trim().is_empty()) {
+            IndexSpec::parse_many(DEFAULT_INDICES)?
+        } else {
+            IndexSpec::parse_many(&self.index.join(","))?
+        };
+        let options = ScoreOptions {
+            hierarchy: !self.no_hierarchy,
+            flags: self.flags,
+            age: self.age.is_some(),
+        };
+        let engine = Engine::new(catalogue, &specs, options)?;
+        let layout = match self.layout.as_str() {
+            "" | "wide" => Layout::Wide,
+            "long" => Layout::Long,
+            other => {
+                return Err(Error::Usage(format!(
+                    "--layout is 'wide' or 'long', not '{other}'"
+                )))
+            }
+        };
+        if layout == Layout::Long && self.id.is_none() {
+            return Err(Error::Usage("--layout long needs --id COL".into()));
+        }
+        let lookback = match self.lookback.as_deref().map(str::trim) {
+            None => None,
+            Some("all") => Some(u32::MAX),
+            Some(t) => Some(t.parse::<u32>().map_err(|_| {
+                Error::Usage(format!(
+                    "--lookback takes a whole number of days or 'all', not '{t}'"
+                ))
+            })?),
+        };
+        let date_format = match self.date_format.as_deref() {
+            None => DateFormat::Iso,
+            Some(p) => DateFormat::from_pattern_checked(p)
+                .map_err(|why| Error::Usage(format!("--date-format '{p}' {why}")))?,
+        };
+        if self.date.is_some() && lookback.is_none() && self.episode.is_none() {
+            return Err(Error::Usage(
+                "--date is used with --lookback DAYS (or 'all')".into(),
+            ));
+        }
+        let dx_sep = match self.dx_sep.as_deref() {
+            None => None,
+            Some("tab") | Some("\\t") => Some(b'\t'),
+            Some(t) => {
+                let b = t.as_bytes();
+                if b.len() == 1 && b[0].is_ascii() && !b"\"\n\r".contains(&b[0]) {
+                    Some(b[0])
+                } else {
+                    return Err(Error::Usage(format!(
+                        "--dx-sep must be one ASCII character (or 'tab'), not '{t}'"
+                    )));
+                }
+            }
+        };
+        let mut poa_values = crate::pipeline::poa_values_from(&self.poa_values);
+        if poa_values.is_empty() {
+            poa_values = crate::pipeline::DEFAULT_POA_VALUES
+                .iter()
+                .map(|v| v.to_string())
+                .collect();
+        }
+        let cfg = ScoreConfig {
+            dx: self.dx.clone(),
+            dx_sep,
+            layout,
+            id: self.id.clone(),
+            episode: self.episode.clone(),
+            date: self.date.clone(),
+            date_format,
+            lookback,
+            exclude_primary: self.exclude_primary,
+            primary: self.primary.clone(),
+            poa: self.poa.clone(),
+            poa_values,
+            max_unreadable_dates: match self.max_unreadable_dates.as_deref() {
+                None => crate::pipeline::DEFAULT_MAX_UNREADABLE_DATES,
+                Some(t) => crate::pipeline::percent_from(t)
+                    .map_err(|why| Error::Usage(format!("--max-unreadable-dates {why}")))?,
+            },
+            age: self.age.clone(),
+            strict: self.strict,
+            threads: self.threads,
+            ..ScoreConfig::default()
+        };
+        Ok((engine, cfg))
+    }
+}
+
+/// Whether a run needs the dated-history reader.
+fn needs_history(cfg: &ScoreConfig) -> bool {
+    cfg.lookback.is_some()
+        || cfg.episode.is_some()
+        || cfg.date.is_some()
+        || cfg.exclude_primary
+        || cfg.primary.is_some()
+        || cfg.poa.is_some()
+}
+
+#[derive(Clone, Copy, PartialEq, Eq)]
+enum Role {
+    Dx,
+    Age,
+    Id,
+    Date,
+    Flag,
+}
+
+/// A used column: frame position, role, name for messages, text name.
+struct Used {
+    col: usize,
+    role: Role,
+    what: &'static str,
+    name: String,
+    text_name: String,
+}
+
+fn all_null(cols: &impl Columns, col: usize) -> bool {
+    (0..cols.rows()).all(|r| matches!(cols.field(col, r), Field::Null))
+}
+
+/// Refuses a column whose kind does not fit its role.
+fn check_kind(cols: &impl Columns, u: &Used, typed_date_format: bool) -> Result<(), Error> {
+    let kind = cols.kind(u.col);
+    let ok = match u.role {
+        Role::Dx => kind == Kind::Text,
+        Role::Age => matches!(kind, Kind::Text | Kind::Integer | Kind::Number),
+        Role::Id => matches!(kind, Kind::Text | Kind::Integer | Kind::Number),
+        Role::Date => matches!(kind, Kind::Text | Kind::Date),
+        Role::Flag => matches!(
+            kind,
+            Kind::Text | Kind::Integer | Kind::Number | Kind::Logical
+        ),
+    };
+    if ok {
+        if u.role == Role::Date && kind == Kind::Date && typed_date_format {
+            return Err(Error::Usage(format!(
+                "--date-format is for dates written as text; column '{}' holds dates \
+                 (leave the date format out)",
+                u.name
+            )));
+        }
+        return Ok(());
+    }
+    // A column with no value at all reads as empty whatever its type.
+    if all_null(cols, u.col) {
+        return Ok(());
+    }
+    let t = cols.type_name(u.col);
+    Err(Error::Usage(match u.role {
+        Role::Dx => format!(
+            "diagnosis column '{}' holds {t} values, not text; ICD-10 codes are text \
+             (convert the column to text first if its values really are codes)",
+            u.name
+        ),
+        Role::Age => format!(
+            "age column '{}' holds {t} values; ages must be numbers or text",
+            u.name
+        ),
+        Role::Id => format!(
+            "{} column '{}' holds {t} values; it must hold text or whole numbers",
+            u.what, u.name
+        ),
+        Role::Date => format!(
+            "date column '{}' holds {t} values; dates must be text or dates",
+            u.name
+        ),
+        Role::Flag => format!(
+            "{} column '{}' holds {t} values; it must hold text, numbers or true/false",
+            u.what, u.name
+        ),
+    }))
+}
+
+/// Resolves the used columns against the frame, with the command line's
+/// checks and messages.
+fn resolve(cfg: &ScoreConfig, header: &Header) -> Result<Vec<Used>, Error> {
+    let dx = header.columns(&cfg.dx, "diagnosis")?;
+    let mut used: Vec<Used> = dx
+        .iter()
+        .enumerate()
+        .map(|(k, &c)| Used {
+            col: c,
+            role: Role::Dx,
+            what: "diagnosis",
+            name: header.names[c].clone(),
+            text_name: format!("d{k}"),
+        })
+        .collect();
+    for (name, role, what, text_name) in [
+        (&cfg.age, Role::Age, "age", "age"),
+        (&cfg.id, Role::Id, "id", "id"),
+        (&cfg.episode, Role::Id, "episode", "episode"),
+        (&cfg.date, Role::Date, "date", "date"),
+        (&cfg.primary, Role::Flag, "primary-diagnosis", "primary"),
+    ] {
+        if let Some(n) = name {
+            let c = header.column(n, what)?;
+            used.push(Used {
+                col: c,
+                role,
+                what,
+                name: n.clone(),
+                text_name: text_name.into(),
+            });
+        }
+    }
+    // Present on admission: one column (long layout) or one per diagnosis
+    // column, paired in order (wide).
+    if let Some(p) = &cfg.poa {
+        let cols = crate::pipeline::poa_columns(header, &dx, p, cfg.layout, ("--poa", "--dx"))?;
+        for (k, c) in cols.into_iter().enumerate() {
+            used.push(Used {
+                col: c,
+                role: Role::Flag,
+                what: "present-on-admission",
+                name: header.names[c].clone(),
+                text_name: format!("poa{k}"),
+            });
+        }
+    }
+    Ok(used)
+}
+
+/// Scores a frame: every row (wide) or every unit (long) of it.
+pub fn score(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    header: &Header,
+    cols: &impl Columns,
+    first_row: u64,
+) -> Result<Scored, Error> {
+    let used = resolve(cfg, header)?;
+    let typed_format = cfg.date_format != DateFormat::Iso;
+    for u in &used {
+        check_kind(cols, u, typed_format)?;
+    }
+    if needs_history(cfg) {
+        return score_history(engine, cfg, header, cols, &used, first_row);
+    }
+    let plan = &columnar::plan(engine, cfg, header)?;
+    let n = cols.rows();
+    let ids = plan.id.map(|c| id_keys(cols, c));
+    let view = View {
+        cols,
+        plan,
+        ids: ids.as_deref(),
+        start: 0,
+        len: n,
+    };
+    match cfg.layout {
+        Layout::Wide => {
+            let threads = thread_count(cfg.threads);
+            let parts = if threads > 1 && n >= PARALLEL_ROWS {
+                threads
+            } else {
+                1
+            };
+            let per = n.div_ceil(parts).max(1);
+            let results: Vec<Result<(Output, Summary), Error>> = std::thread::scope(|s| {
+                let handles: Vec<_> = (0..n.div_ceil(per).max(1))
+                    .map(|p| {
+                        let start = p * per;
+                        let len = per.min(n - start.min(n));
+                        let part = View { start, len, ..view };
+                        s.spawn(move || {
+                            let mut scorer = Scorer::new(engine, cfg, header, plan)
+                                .starting_at(first_row + start as u64);
+                            let mut out = Output::new(engine, len);
+                            scorer.wide(&part, |v| out.push(v))?;
+                            Ok((out, scorer.into_summary()))
+                        })
+                    })
+                    .collect();
+                handles
+                    .into_iter()
+                    .map(|h| h.join().expect("a scoring thread panicked"))
+                    .collect()
+            });
+            let mut out = Output::new(engine, n);
+            let mut summary: Option<Summary> = None;
+            for r in results {
+                let (o, s) = r?;
+                out.append(o);
+                match &mut summary {
+                    None => summary = Some(s),
+                    Some(all) => all.merge(s),
+                }
+            }
+            Ok(Scored {
+                columns: out.finish(engine),
+                first_rows: None,
+                summary: summary.unwrap_or_default(),
+            })
+        }
+        Layout::Long => {
+            let mut scorer = Scorer::new(engine, cfg, header, plan).starting_at(first_row);
+            scorer.long(&view)?;
+            let mut out = Output::new(engine, 0);
+            let mut firsts = Vec::new();
+            scorer.finish_long(|row, v| {
+                firsts.push(row - first_row);
+                out.push(v);
+            });
+            Ok(Scored {
+                columns: out.finish(engine),
+                first_rows: Some(firsts),
+                summary: scorer.into_summary(),
+            })
+        }
+    }
+}
+
+/// Frames of at least this many rows are scored on several threads.
+const PARALLEL_ROWS: usize = 50_000;
+
+fn thread_count(asked: usize) -> usize {
+    match asked {
+        0 => std::thread::available_parallelism().map_or(1, |n| n.get()),
+        n => n.min(256),
+    }
+}
+
+/// Id keys of a non-text id column (whole numbers as their digits).
+fn id_keys(cols: &impl Columns, col: usize) -> Vec<Option<Cow<'_, [u8]>>> {
+    (0..cols.rows())
+        .map(|r| field_text(cols.field(col, r)))
+        .collect()
+}
+
+/// A field as the text the command line would read for it (`None`: null).
+fn field_text(f: Field<'_>) -> Option<Cow<'_, [u8]>> {
+    match f {
+        Field::Null => None,
+        Field::Text(t) => Some(Cow::Borrowed(t)),
+        Field::Integer(i) => Some(Cow::Owned(i.to_string().into_bytes())),
+        Field::Number(x) if x.is_nan() => None,
+        Field::Number(x) if x.fract() == 0.0 && x.abs() < 1e15 => {
+            Some(Cow::Owned((x as i64).to_string().into_bytes()))
+        }
+        Field::Number(x) => Some(Cow::Owned(x.to_string().into_bytes())),
+        Field::Logical(b) => Some(Cow::Borrowed(if b { b"true" } else { b"false" })),
+        Field::Date(d) => {
+            let mut out = Vec::with_capacity(10);
+            write_iso_date(d, &mut out);
+            Some(Cow::Owned(out))
+        }
+    }
+}
+
+/// Rows `start..start + len` of a frame as [`Rows`].
+#[derive(Clone, Copy)]
+struct View<'a, C: Columns> {
+    cols: &'a C,
+    plan: &'a columnar::Plan,
+    ids: Option<&'a [Option<Cow<'a, [u8]>>]>,
+    start: usize,
+    len: usize,
+}
+
+impl<C: Columns> Rows for View<'_, C> {
+    fn len(&self) -> usize {
+        self.len
+    }
+    #[inline]
+    fn dx(&self, k: usize, row: usize) -> &[u8] {
+        match self.cols.field(self.plan.dx[k], self.start + row) {
+            Field::Text(t) => t,
+            // Columns of other kinds were refused unless every value is
+            // missing.
+            _ => b"",
+        }
+    }
+    fn age(&self, row: usize) -> Age<'_> {
+        let Some(c) = self.plan.age else {
+            return Age::Missing;
+        };
+        match self.cols.field(c, self.start + row) {
+            Field::Text(t) => Age::Text(t),
+            Field::Integer(i) => Age::Number(i as f64),
+            Field::Number(x) => Age::Number(x),
+            _ => Age::Missing,
+        }
+    }
+    fn id(&self, row: usize) -> Option<&[u8]> {
+        self.ids.and_then(|ids| ids[self.start + row].as_deref())
+    }
+}
+
+/// Output columns being filled.
+struct Output {
+    cols: Vec<ScoreColumn>,
+    bands: Vec<Option<usize>>,
+}
+
+impl Output {
+    fn new(engine: &Engine, rows: usize) -> Output {
+        let mut bands = Vec::new();
+        let cols = engine
+            .columns()
+            .iter()
+            .map(|c| {
+                bands.push(None);
+                match c.kind {
+                    ColumnKind::Score { spec } | ColumnKind::ScoreWithAge { spec } => {
+                        if engine.decimals(spec) == 0 {
+                            ScoreColumn::Int(Vec::with_capacity(rows))
+                        } else {
+                            ScoreColumn::Float(Vec::with_capacity(rows))
+                        }
+                    }
+                    ColumnKind::Band { spec } => {
+                        *bands.last_mut().expect("pushed") = Some(spec);
+                        ScoreColumn::Band {
+                            names: Vec::new(),
+                            values: Vec::with_capacity(rows),
+                        }
+                    }
+                    ColumnKind::Flag { .. } => ScoreColumn::Flag(Vec::with_capacity(rows)),
+                }
+            })
+            .collect();
+        Output { cols, bands }
+    }
+
+    #[inline]
+    fn push(&mut self, values: &[Value]) {
+        for (c, v) in self.cols.iter_mut().zip(values) {
+            match (c, *v) {
+                (ScoreColumn::Int(b), Value::Score { scaled, .. }) => b.push(Some(scaled / SCALE)),
+                (ScoreColumn::Float(b), Value::Score { scaled, .. }) => {
+                    b.push(Some(scaled as f64 / SCALE as f64))
+                }
+                (ScoreColumn::Int(b), _) => b.push(None),
+                (ScoreColumn::Float(b), _) => b.push(None),
+                (ScoreColumn::Band { values, .. }, Value::Band { band, .. }) => {
+                    values.push(Some(band))
+                }
+                (ScoreColumn::Band { values, .. }, _) => values.push(None),
+                (ScoreColumn::Flag(b), Value::Flag(f)) => b.push(Some(f as i8)),
+                (ScoreColumn::Flag(b), _) => b.push(None),
+            }
+        }
+    }
+
+    fn append(&mut self, later: Output) {
+        for (a, b) in self.cols.iter_mut().zip(later.cols) {
+            match (a, b) {
+                (ScoreColumn::Int(a), ScoreColumn::Int(b)) => a.extend(b),
+                (ScoreColumn::Float(a), ScoreColumn::Float(b)) => a.extend(b),
+                (ScoreColumn::Band { values: a, .. }, ScoreColumn::Band { values: b, .. }) => {
+                    a.extend(b)
+                }
+                (ScoreColumn::Flag(a), ScoreColumn::Flag(b)) => a.extend(b),
+                _ => unreachable!("outputs of one engine have the same columns"),
+            }
+        }
+    }
+
+    fn finish(mut self, engine: &Engine) -> Vec<ScoreColumn> {
+        for (c, spec) in self.cols.iter_mut().zip(&self.bands) {
+            if let (ScoreColumn::Band { names, .. }, Some(spec)) = (c, spec) {
+                let s = &engine.specs()[*spec];
+                let list = &engine.lists()[s.list].list;
+                *names = list.weightings[s.weighting]
+                    .bands
+                    .iter()
+                    .map(|b| b.name.clone())
+                    .collect();
+            }
+        }
+        self.cols
+    }
+}
+
+/// The options over the text written for the history reader.
+fn text_config(cfg: &ScoreConfig, used: &[Used], typed_dates: bool) -> ScoreConfig {
+    let name = |role: Role, n: &str| {
+        used.iter()
+            .find(|u| u.role == role && u.text_name == n)
+            .map(|u| u.text_name.clone())
+    };
+    ScoreConfig {
+        dx: used
+            .iter()
+            .filter(|u| u.role == Role::Dx)
+            .map(|u| u.text_name.clone())
+            .collect(),
+        age: name(Role::Age, "age"),
+        id: name(Role::Id, "id"),
+        episode: name(Role::Id, "episode"),
+        date: name(Role::Date, "date"),
+        primary: name(Role::Flag, "primary"),
+        poa: used
+            .iter()
+            .any(|u| u.text_name.starts_with("poa"))
+            .then(|| "poa*".to_string()),
+        delimiter: b',',
+        date_format: if typed_dates {
+            DateFormat::Iso
+        } else {
+            cfg.date_format.clone()
+        },
+        ..cfg.clone()
+    }
+}
+
+/// The used columns as delimited text, and the line on which each row's
+/// record starts (a quoted field may hold line breaks).
+fn to_text(cols: &impl Columns, used: &[Used]) -> (Vec<u8>, Vec<u64>) {
+    let mut out = Vec::new();
+    for (k, u) in used.iter().enumerate() {
+        if k > 0 {
+            out.push(b',');
+        }
+        out.extend_from_slice(u.text_name.as_bytes());
+    }
+    out.push(b'\n');
+    let n = cols.rows();
+    let mut starts = Vec::with_capacity(n);
+    let mut line = 2u64;
+    for row in 0..n {
+        starts.push(line);
+        let begin = out.len();
+        for (k, u) in used.iter().enumerate() {
+            if k > 0 {
+                out.push(b',');
+            }
+            match (u.role, cols.field(u.col, row)) {
+                // An age: whole years, decimals truncated (as
+                // `columnar::read_age_value`); out of range it stays as
+                // written, which reads as unreadable.
+                (Role::Age, Field::Number(x)) if (0.0..151.0).contains(&x) => {
+                    out.extend_from_slice((x.trunc() as u32).to_string().as_bytes())
+                }
+                (_, f) => {
+                    if let Some(t) = field_text(f) {
+                        write_field(&t, b',', &mut out)
+                    }
+                }
+            }
+        }
+        if out.len() == begin {
+            // A record of one empty field: an empty line would be skipped.
+            out.extend_from_slice(b"\"\"");
+        }
+        line += out[begin..].iter().filter(|&&b| b == b'\n').count() as u64 + 1;
+        out.push(b'\n');
+    }
+    (out, starts)
+}
+
+/// A reader error with frame rows and names instead of text lines and
+/// names.
+fn frame_error(used: &[Used], starts: &[u64], first_row: u64, e: Error) -> Error {
+    let row =
+        |line: u64| starts.partition_point(|&s| s <= line).saturating_sub(1) as u64 + first_row;
+    let names = |mut m: String| {
+        'found: for u in used {
+            for (from, to) in [
+                (
+                    format!("in column '{}'", u.text_name),
+                    format!("in column '{}'", u.name),
+                ),
+                (
+                    format!("(column '{}' is empty)", u.text_name),
+                    format!("(column '{}' is empty)", u.name),
+                ),
+            ] {
+                if let Some(head) = m.strip_suffix(&from) {
+                    m = format!("{head}{to}");
+                    break 'found;
+                }
+            }
+        }
+        m
+    };
+    match e {
+        Error::Strict {
+            line: Some(l),
+            message,
+        } => Error::Strict {
+            line: None,
+            message: format!("row {}: {}", row(l), names(message)),
+        },
+        Error::Data {
+            line: Some(l),
+            message,
+        } => Error::Data {
+            line: None,
+            message: format!("row {}: {}", row(l), names(message)),
+        },
+        other => other,
+    }
+}
+
+fn history_text(
+    cfg: &ScoreConfig,
+    cols: &impl Columns,
+    used: &[Used],
+) -> (ScoreConfig, Vec<u8>, Vec<u64>) {
+    let typed_dates = used
+        .iter()
+        .any(|u| u.role == Role::Date && cols.kind(u.col) == Kind::Date);
+    let text_cfg = text_config(cfg, used, typed_dates);
+    let (text, starts) = to_text(cols, used);
+    (text_cfg, text, starts)
+}
+
+fn score_history(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    header: &Header,
+    cols: &impl Columns,
+    used: &[Used],
+    first_row: u64,
+) -> Result<Scored, Error> {
+    // The command line's checks of the options, and of output columns that
+    // would collide with the columns kept.
+    crate::pipeline::Plan::new(
+        cfg,
+        Header {
+            names: header.names.clone(),
+        },
+        false,
+    )?;
+    let kept: Vec<&str> = match cfg.layout {
+        Layout::Wide => header.names.iter().map(String::as_str).collect(),
+        Layout::Long => used
+            .iter()
+            .filter(|u| u.role == Role::Id)
+            .map(|u| u.name.as_str())
+            .collect(),
+    };
+    crate::pipeline::check_collisions(&kept, engine)?;
+    let (text_cfg, text, starts) = history_text(cfg, cols, used);
+    let run = || -> Result<Scored, Error> {
+        let (hist, mut summary) = History::read(engine, &text_cfg, &text[..], false)?;
+        let windows = hist.windows(text_cfg.lookback);
+        let n = hist.episodes.len();
+        let mut out = Output::new(engine, n);
+        let mut first = Vec::with_capacity(n);
+        let mut bits = vec![0u64; hist.words()];
+        let mut scratch = bits.clone();
+        let mut values: Vec<Value> = Vec::new();
+        for (e, ep) in hist.episodes.iter().enumerate() {
+            hist.resolve_into(engine, &windows, e, &mut bits, &mut scratch);
+            engine.values(&bits, ep.age, &mut values);
+            out.push(&values);
+            first.push(ep.row - 1);
+        }
+        summary.rows_written += n as u64;
+        summary.units += n as u64;
+        summary.dx_columns = used
+            .iter()
+            .filter(|u| u.role == Role::Dx)
+            .map(|u| u.name.clone())
+            .collect();
+        if cfg.layout == Layout::Wide && n != cols.rows() {
+            return Err(Error::data(
+                None,
+                format!("internal error: {n} rows scored for {} rows", cols.rows()),
+            ));
+        }
+        Ok(Scored {
+            columns: out.finish(engine),
+            first_rows: (cfg.layout == Layout::Long).then_some(first),
+            summary,
+        })
+    };
+    run().map_err(|e| frame_error(used, &starts, first_row, e))
+}
+
+/// `morbus explain` over a frame: one row per (episode, matched code,
+/// index, condition) and the totals, as the command line writes them.
+pub fn explain(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    header: &Header,
+    cols: &impl Columns,
+    first_row: u64,
+) -> Result<(Explained, Summary), Error> {
+    let used = resolve(cfg, header)?;
+    let typed_format = cfg.date_format != DateFormat::Iso;
+    for u in &used {
+        check_kind(cols, u, typed_format)?;
+    }
+    crate::pipeline::Plan::new(
+        cfg,
+        Header {
+            names: header.names.clone(),
+        },
+        false,
+    )?;
+    let (text_cfg, text, starts) = history_text(cfg, cols, &used);
+    let whole = (0..engine.specs().len()).all(|s| engine.decimals(s) == 0);
+    let skip = usize::from(text_cfg.id.is_some()) + usize::from(text_cfg.episode.is_some());
+    let run = || -> Result<(Explained, Summary), Error> {
+        let mut csv = Vec::new();
+        let summary = crate::pipeline::explain_stream(
+            engine,
+            &text_cfg,
+            ExplainFormat::Csv,
+            &text[..],
+            &mut csv,
+        )?;
+        Ok((explained(&csv, skip, whole)?, summary))
+    };
+    let (mut ex, mut summary) = run().map_err(|e| frame_error(&used, &starts, first_row, e))?;
+    summary.dx_columns = used
+        .iter()
+        .filter(|u| u.role == Role::Dx)
+        .map(|u| u.name.clone())
+        .collect();
+    ex.whole_weights = whole;
+    Ok((ex, summary))
+}
+
+/// The CSV written by `explain_stream` as typed columns, leaving out the
+/// first `skip` (id, episode) columns; empty cells are `None`.
+fn explained(csv: &[u8], skip: usize, whole: bool) -> Result<Explained, Error> {
+    let mut ex = Explained {
+        whole_weights: whole,
+        ..Explained::default()
+    };
+    let bad = |what: &str| Error::data(None, format!("internal error: explain wrote {what}"));
+    let text = |b: &[u8]| String::from_utf8_lossy(b).into_owned();
+    let opt = |b: &[u8]| (!b.is_empty()).then(|| text(b));
+    let mut first = true;
+    RecordScanner::new(b',').scan(csv, true, |rec| -> Result<(), Error> {
+        if std::mem::replace(&mut first, false) {
+            return Ok(());
+        }
+        if rec.fields.len() != skip + 9 {
+            return Err(bad("a record of another width"));
+        }
+        let f = |k: usize| rec.fields.get(skip + k);
+        let int = |b: &[u8]| -> Result<Option<i64>, Error> {
+            if b.is_empty() {
+                return Ok(None);
+            }
+            std::str::from_utf8(b)
+                .ok()
+                .and_then(|s| s.parse().ok())
+                .map(Some)
+                .ok_or_else(|| bad("a row number that is not one"))
+        };
+        ex.row
+            .push(int(f(0))?.ok_or_else(|| bad("a record without its row"))?);
+        ex.index.push(text(f(1)));
+        ex.source_row.push(int(f(2))?);
+        let d = f(3);
+        ex.source_date.push(if d.is_empty() {
+            None
+        } else {
+            Some(
+                DateFormat::Iso
+                    .parse(d)
+                    .ok_or_else(|| bad("a date that is not one"))? as i64,
+            )
+        });
+        ex.code_as_written.push(opt(f(4)));
+        ex.code.push(opt(f(5)));
+        ex.condition.push(opt(f(6)));
+        let w = std::str::from_utf8(f(7))
+            .ok()
+            .and_then(|w| w.parse::<f64>().ok())
+            .ok_or_else(|| bad("a weight that is not a number"))?;
+        ex.weight.push(w);
+        ex.status.push(text(f(8)));
+        Ok(())
+    })?;
+    Ok(ex)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::lists::Catalogue;
+    use crate::score::{IndexSpec, ScoreOptions};
+
+    /// A frame of text and typed columns.
+    struct Frame {
+        kinds: Vec<Kind>,
+        rows: Vec<Vec<Field<'static>>>,
+    }
+
+    impl Columns for Frame {
+        fn rows(&self) -> usize {
+            self.rows.len()
+        }
+        fn kind(&self, col: usize) -> Kind {
+            self.kinds[col]
+        }
+        fn field(&self, col: usize, row: usize) -> Field<'_> {
+            self.rows[row][col]
+        }
+    }
+
+    fn engine(spec: &str, age: bool) -> Engine {
+        let specs = IndexSpec::parse_many(spec).unwrap();
+        let opts = ScoreOptions {
+            age,
+            ..ScoreOptions::default()
+        };
+        Engine::new(&Catalogue::builtin(), &specs, opts).unwrap()
+    }
+
+    fn header(names: &[&str]) -> Header {
+        Header {
+            names: names.iter().map(|s| s.to_string()).collect(),
+        }
+    }
+
+    fn t(s: &'static str) -> Field<'static> {
+        Field::Text(s.as_bytes())
+    }
+
+    /// The same frame as text through the command line's stream, and typed
+    /// through [`score`], give the same numbers.
+    fn stream(engine: &Engine, cfg: &ScoreConfig, csv: &str) -> String {
+        let mut out = Vec::new();
+        crate::pipeline::score_stream(engine, cfg, csv.as_bytes(), &mut out).unwrap();
+        String::from_utf8(out).unwrap()
+    }
+
+    #[test]
+    fn lookback_over_typed_dates_matches_the_text_stream() {
+        // Patient 7: I21 (myocardial infarction, 1 point in Charlson 1987)
+        // on day 0, I50 (heart failure, 1) on day 300; patient 8: one
+        // episode. Hand-worked: with a 365-day window the second episode of
+        // patient 7 counts both (2), the first one (1).
+        let e = engine("charlson:charlson1987", false);
+        let h = header(&["pid", "when", "dx1"]);
+        let cfg = ScoreConfig {
+            dx: vec!["dx1".into()],
+            id: Some("pid".into()),
+            date: Some("when".into()),
+            lookback: Some(365),
+            ..ScoreConfig::default()
+        };
+        let f = Frame {
+            kinds: vec![Kind::Integer, Kind::Date, Kind::Text],
+            rows: vec![
+                vec![Field::Integer(7), Field::Date(19_000), t("I21.9")],
+                vec![Field::Integer(8), Field::Date(19_100), t("")],
+                vec![Field::Integer(7), Field::Date(19_300), t("I50")],
+            ],
+        };
+        let s = score(&e, &cfg, &h, &f, 1).unwrap();
+        assert_eq!(
+            s.columns[0],
+            ScoreColumn::Int(vec![Some(1), Some(0), Some(2)])
+        );
+        let text = "pid,when,dx1\n7,2022-01-08,I21.9\n8,2022-04-18,\n7,2022-11-04,I50\n";
+        let csv = stream(&e, &cfg, text);
+        let scores: Vec<&str> = csv
+            .lines()
+            .skip(1)
+            .map(|l| l.rsplit(',').next().unwrap())
+            .collect();
+        assert_eq!(scores, vec!["1", "0", "2"]);
+    }
+
+    #[test]
+    fn wide_rows_on_threads_match_one_thread() {
+        let e = engine("charlson,hfrs", true);
+        let h = header(&["dx1", "dx2", "age"]);
+        let codes = ["I21.9", "F00", "C78.0", "", "R41.0", "zz", "E11.2", "I50"];
+        let rows: Vec<Vec<Field<'static>>> = (0..PARALLEL_ROWS + 7)
+            .map(|i| {
+                vec![
+                    t(codes[i % codes.len()]),
+                    t(codes[(i / 3) % codes.len()]),
+                    if i % 5 == 0 {
+                        Field::Null
+                    } else {
+                        Field::Number((i % 90) as f64)
+                    },
+                ]
+            })
+            .collect();
+        let f = Frame {
+            kinds: vec![Kind::Text, Kind::Text, Kind::Number],
+            rows,
+        };
+        let mut cfg = ScoreConfig {
+            dx: vec!["dx*".into()],
+            age: Some("age".into()),
+            threads: 1,
+            ..ScoreConfig::default()
+        };
+        let one = score(&e, &cfg, &h, &f, 0).unwrap();
+        cfg.threads = 3;
+        let three = score(&e, &cfg, &h, &f, 0).unwrap();
+        assert_eq!(one.columns, three.columns);
+        assert_eq!(one.summary, three.summary);
+        assert_eq!(one.summary.rows_read, (PARALLEL_ROWS + 7) as u64);
+    }
+
+    #[test]
+    fn kinds_that_do_not_fit_are_refused_unless_empty() {
+        let e = engine("charlson:count", false);
+        let h = header(&["dx1", "dx2"]);
+        let cfg = ScoreConfig {
+            dx: vec!["dx*".into()],
+            ..ScoreConfig::default()
+        };
+        let empty = Frame {
+            kinds: vec![Kind::Text, Kind::Logical],
+            rows: vec![vec![t("I21"), Field::Null]],
+        };
+        assert_eq!(
+            score(&e, &cfg, &h, &empty, 1).unwrap().columns[0],
+            ScoreColumn::Int(vec![Some(1)])
+        );
+        let numbers = Frame {
+            kinds: vec![Kind::Text, Kind::Integer],
+            rows: vec![vec![t("I21"), Field::Integer(410)]],
+        };
+        let err = score(&e, &cfg, &h, &numbers, 1).unwrap_err();
+        assert_eq!(err.exit_code(), 2);
+        assert!(
+            err.to_string().contains("'dx2' holds integer values"),
+            "{err}"
+        );
+    }
+
+    #[test]
+    fn history_errors_name_frame_rows_and_columns() {
+        let e = engine("charlson", false);
+        let h = header(&["pid", "when", "code"]);
+        let cfg = ScoreConfig {
+            dx: vec!["code".into()],
+            id: Some("pid".into()),
+            date: Some("when".into()),
+            lookback: Some(30),
+            strict: true,
+            ..ScoreConfig::default()
+        };
+        let f = Frame {
+            kinds: vec![Kind::Text, Kind::Text, Kind::Text],
+            rows: vec![
+                vec![t("a"), t("2024-01-01"), t("I21")],
+                vec![t("a"), t("2024-01-02"), t("??")],
+            ],
+        };
+        let err = score(&e, &cfg, &h, &f, 1).unwrap_err();
+        assert_eq!(err.exit_code(), 3);
+        assert_eq!(
+            err.to_string(),
+            "row 2: invalid code '??' in column 'code' (--strict)"
+        );
+    }
+}
