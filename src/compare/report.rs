@@ -549,17 +549,18 @@ pub fn html_report(c: &Comparison) -> String {
     h.push_str("<h2>Score distributions</h2><table><thead><tr><th>index</th><th>mean</th><th>SD</th><th>min</th><th>Q1</th><th>median</th><th>Q3</th><th>max</th><th>score 0</th><th>distinct</th></tr></thead><tbody>");
     for ix in &c.indices {
         let d = &ix.distribution;
+        let qs = super::table::quantiles(d);
         let _ = write!(
             h,
             "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
             esc(&ix.name),
             fixed(d.mean, 2),
             d.sd.map_or("–".into(), |s| fixed(s, 2)),
-            fmt_num(d.min),
-            fmt_num(d.q1),
-            fmt_num(d.median),
-            fmt_num(d.q3),
-            fmt_num(d.max),
+            qs[0],
+            qs[1],
+            qs[2],
+            qs[3],
+            qs[4],
             pct(d.zero_share),
             d.distinct
         );

@@ -37,7 +37,7 @@ const LANCZOS: [f64; 9] = [
 
 /// ln Γ(a) for a > 0 (NaN otherwise).
 pub fn ln_gamma(a: f64) -> f64 {
-    if !(a > 0.0) {
+    if a.is_nan() || a <= 0.0 {
         return f64::NAN;
     }
     if a < 0.5 {
@@ -107,7 +107,7 @@ fn q_fraction(a: f64, x: f64) -> f64 {
 }
 
 fn check(a: f64, x: f64) -> Result<(), StatsError> {
-    if !(a > 0.0 && a.is_finite()) || !(x >= 0.0) || x.is_nan() {
+    if !(a > 0.0 && a.is_finite() && x >= 0.0) {
         return Err(StatsError::InvalidArgument(format!(
             "incomplete gamma needs a > 0 and x >= 0, got a = {a}, x = {x}"
         )));
@@ -319,7 +319,7 @@ pub fn poisson_exact_limits(observed: u64, alpha: f64) -> Result<(f64, f64), Sta
 /// # Errors
 /// [`StatsError::InvalidArgument`] unless E > 0 (finite) and 0 < p < 1.
 pub fn funnel_limit(expected: f64, p: f64) -> Result<f64, StatsError> {
-    if !(expected > 0.0 && expected.is_finite()) || !(p > 0.0 && p < 1.0) {
+    if !(expected > 0.0 && expected.is_finite() && p > 0.0 && p < 1.0) {
         return Err(StatsError::InvalidArgument(format!(
             "funnel limit needs E > 0 and 0 < p < 1, got E = {expected}, p = {p}"
         )));
