@@ -180,13 +180,20 @@ struct InputArgs {
     /// Long layout: column flagging the primary-diagnosis row (1, y, yes, true, p, primary).
     #[arg(long, value_name = "COL")]
     primary: Option<String>,
-    /// Long layout: present-on-admission indicator column; codes of the episode being
-    /// scored count only when it holds one of --poa-values.
-    #[arg(long, value_name = "COL")]
+    /// Present-on-admission indicator column (long layout), or columns paired in order
+    /// with the --dx columns (wide layout: names or globs, e.g. 'poa*'); codes of the
+    /// episode being scored count only when their indicator is one of --poa-values.
+    #[arg(long, value_name = "COLS")]
     poa: Option<String>,
-    /// Present-on-admission values that count, comma-separated.
-    #[arg(long, value_name = "VALUES", default_value = "Y,W")]
+    /// Present-on-admission values that count, comma-separated; `blank` stands for an
+    /// empty field. The default follows the ICD-10-CM reporting guidelines: Y, W and
+    /// exempt codes (1 or blank) count, N and U do not.
+    #[arg(long, value_name = "VALUES", default_value = "Y,W,1,blank")]
     poa_values: String,
+    /// Stop (exit 1) when more than this percentage of the non-empty episode dates
+    /// cannot be read with the date format.
+    #[arg(long, value_name = "PERCENT", default_value = "1")]
+    max_unreadable_dates: String,
     /// Index specifications LIST[:WEIGHTING], comma-separated or repeated.
     #[arg(long = "index", value_name = "SPEC")]
     index: Vec<String>,
@@ -410,12 +417,14 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
     };
     let date_format = match a.date_format.as_deref() {
         None => DateFormat::Iso,
-        Some(p) => DateFormat::from_pattern(p).ok_or_else(|| {
-            Error::Usage(format!(
-                "--date-format '{p}' must hold %Y, %m (or %b) and %d, e.g. '%d/%m/%Y'"
-            ))
-        })?,
+        Some(p) => DateFormat::from_pattern_checked(p)
+            .map_err(|why| Error::Usage(format!("--date-format '{p}' {why}")))?,
     };
+    if a.poa_values.trim().is_empty() {
+        return Err(Error::Usage(
+            "--poa-values is empty; name the values that count (e.g. Y,W,1,blank)".into(),
+        ));
+    }
     if a.date.is_some() && lookback.is_none() && a.episode.is_none() {
         return Err(Error::Usage(
             "--date is used with --lookback DAYS (or 'all')".into(),
@@ -429,12 +438,9 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
         exclude_primary: a.exclude_primary,
         primary: a.primary.clone(),
         poa: a.poa.clone(),
-        poa_values: a
-            .poa_values
-            .split(',')
-            .map(|v| v.trim().to_ascii_uppercase())
-            .filter(|v| !v.is_empty())
-            .collect(),
+        poa_values: pipeline::poa_values_from(std::slice::from_ref(&a.poa_values)),
+        max_unreadable_dates: pipeline::percent_from(&a.max_unreadable_dates)
+            .map_err(|why| Error::Usage(format!("--max-unreadable-dates {why}")))?,
         dx: a.dx.clone(),
         dx_sep: a
             .dx_sep
