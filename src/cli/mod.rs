@@ -632,8 +632,7 @@ fn compare(a: CompareArgs) -> Result<(), Error> {
             .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))
     };
     if let Some(p) = &a.json {
-        let text = serde_json::to_string_pretty(&result)
-            .map_err(|e| Error::Usage(format!("cannot encode the results as JSON: {e}")))?;
+        let text = morbus::compare::json_text(&result)?;
         write_file(p, &(text + "\n"))?;
     }
     if let Some(p) = &a.report {

@@ -114,6 +114,13 @@ impl Default for CompareOptions {
     }
 }
 
+/// The comparison as the text of the `--json` file (and of Python's
+/// `morbus.compare`).
+pub fn json_text(c: &Comparison) -> Result<String, Error> {
+    serde_json::to_string_pretty(c)
+        .map_err(|e| Error::Usage(format!("cannot encode the results as JSON: {e}")))
+}
+
 /// Every (list, weighting) of a catalogue, in catalogue order: the default
 /// set of `compare`.
 pub fn all_specs(catalogue: &Catalogue) -> Vec<IndexSpec> {
