@@ -759,13 +759,16 @@ pub fn compare(
     tasks.extend(live.iter().map(|&i| Task::Ranks(i)));
     tasks.extend(live.iter().map(|&i| Task::Roc(i)));
     tasks.extend((0..k).map(Task::Summary));
+    // The folds' fits run after the full-data fits, which start them.
+    let mut fold_tasks = Vec::new();
     if let Some(kf) = opts.folds {
         for &i in &live {
-            tasks.extend((0..kf).map(|f| Task::Fold(i, f as u32)));
+            fold_tasks.extend((0..kf).map(|f| Task::Fold(i, f as u32)));
         }
     }
+    let full_fits: std::sync::OnceLock<Vec<Option<Vec<f64>>>> = std::sync::OnceLock::new();
     let refs: Vec<&[f64]> = live.iter().map(|&i| scores[i].as_slice()).collect();
-    let outputs = par_map(&tasks, cfg.threads, |t| match *t {
+    let run_task = |t: &Task| match *t {
         Task::Baseline => Output::Model(stats::logistic(&y, &design, &adjust_names)),
         Task::Model(i) => {
             let mut x = Vec::with_capacity(1 + design.len());
@@ -782,6 +785,9 @@ pub fn compare(
         }
         Task::Fold(i, f) => {
             let folds = fold_of.as_deref().unwrap_or_default();
+            // Started from the full-data estimates (a near start saves
+            // Newton iterations; the maximum is the same).
+            let start = full_fits.get().and_then(|f| f[i].as_deref());
             let train: Vec<usize> = (0..n).filter(|&u| folds[u] != f).collect();
             let test: Vec<usize> = (0..n).filter(|&u| folds[u] == f).collect();
             let pick =
@@ -792,7 +798,7 @@ pub fn compare(
             let ty: Vec<bool> = train.iter().map(|&u| y[u]).collect();
             let mut terms = vec![names[i].clone()];
             terms.extend(adjust_names.iter().cloned());
-            let fit = stats::logistic(&ty, &x, &terms);
+            let fit = stats::logistic_from(&ty, &x, &terms, start);
             drop(x);
             Output::Fold(fit.and_then(|fit| {
                 let mut t = Vec::with_capacity(1 + design.len());
@@ -806,7 +812,8 @@ pub fn compare(
         Task::Ranks(i) => Output::Ranks(stats::average_ranks(&scores[i])),
         Task::Roc(i) => Output::Roc(stats::roc_curve(&scores[i], &y)),
         Task::Summary(i) => Output::Summary(stats::Summary::of(&scores[i])),
-    });
+    };
+    let outputs = par_map(&tasks, cfg.threads, run_task);
     let mut baseline = None;
     let mut models: Vec<Option<Result<stats::LogisticFit, StatsError>>> = vec![None; k];
     let mut etas: Vec<Option<Vec<f64>>> = vec![None; k];
@@ -822,7 +829,6 @@ pub fn compare(
                 models[i] = Some(m);
                 etas[i] = e;
             }
-            (Task::Fold(i, _), Output::Fold(r)) => fold_etas[i].push(r),
             (Task::DeLong, Output::DeLong(d)) => joint_result = Some(d),
             (Task::Ranks(i), Output::Ranks(r)) => ranks[i] = Some(r),
             (Task::Roc(i), Output::Roc(r)) => rocs[i] = Some(r),
@@ -830,6 +836,24 @@ pub fn compare(
                 sums[i] = Some(r.map_err(|e| Error::data(None, e.to_string()))?)
             }
             _ => {}
+        }
+    }
+    if !fold_tasks.is_empty() {
+        let starts = models
+            .iter()
+            .map(|m| match m {
+                Some(Ok(f)) => Some(f.coefficients.iter().map(|c| c.estimate).collect()),
+                _ => None,
+            })
+            .collect();
+        let _ = full_fits.set(starts);
+        for (t, o) in fold_tasks
+            .iter()
+            .zip(par_map(&fold_tasks, cfg.threads, run_task))
+        {
+            if let (Task::Fold(i, _), Output::Fold(r)) = (*t, o) {
+                fold_etas[i].push(r);
+            }
         }
     }
 

@@ -63,7 +63,7 @@ pub use gamma::{
     chi_square_quantile, chi_square_sf, funnel_limit, gamma_p, gamma_p_inverse, gamma_q, ln_gamma,
     poisson_cdf, poisson_exact_limits,
 };
-pub use logistic::{logistic, Coefficient, LogisticFit, INTERCEPT_NAME};
+pub use logistic::{logistic, logistic_from, Coefficient, LogisticFit, INTERCEPT_NAME};
 pub use normal::{erf, erfc, normal_cdf, normal_quantile, normal_sf, two_sided_p, Z_975};
 pub use rank::{average_ranks, spearman};
 pub use roc::{auc, roc_curve};
