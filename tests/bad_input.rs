@@ -1358,7 +1358,7 @@ fn unreadable_and_unwritable_files() {
             ]),
             1,
             format!(
-                "morbus: error: cannot write {}: ",
+                "morbus: error: cannot create {}: ",
                 dir.join("no/dir/p.json")
             ),
         ),

@@ -590,6 +590,7 @@ fn ages_past_130_are_unreadable() {
     );
 }
 
+#[cfg(feature = "parquet")]
 #[test]
 fn parquet_ages_past_130_are_unreadable() {
     use arrow_array::{ArrayRef, Int64Array, RecordBatch, StringArray};
@@ -735,6 +736,7 @@ fn a_score_at_the_edge_of_the_range_is_exact() {
     assert_eq!(col(&o, "heavy_big"), ["921999999999999.9078"]);
 }
 
+#[cfg(feature = "parquet")]
 #[test]
 fn parquet_wide_poa_reads_the_paired_columns() {
     use arrow_array::{ArrayRef, RecordBatch, StringArray};

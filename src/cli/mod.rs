@@ -2,17 +2,26 @@
 //! summary and maps errors to exit codes (see [`morbus::error`]).
 
 use std::io::{IsTerminal, Write};
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 use clap::{Args, Parser, Subcommand, ValueEnum};
 
-use morbus::io::{Extract, Table};
+use morbus::io::{AtomicFile, End, Extract, Table};
 use morbus::lists::{self, Catalogue, Loaded};
 use morbus::pipeline::explain::ExplainFormat;
-use morbus::pipeline::{self, DateFormat, Layout, ScoreConfig};
+use morbus::pipeline::{self, DateFormat, Edition, Layout, ScoreConfig};
 use morbus::provenance::Provenance;
 use morbus::score::{Engine, IndexSpec, ScoreOptions, DEFAULT_INDICES};
 use morbus::Error;
+
+/// `eprintln!` that never panics: a closed or full standard error loses
+/// the message, not the run.
+macro_rules! say {
+    ($($arg:tt)*) => {{
+        use std::io::Write as _;
+        let _ = writeln!(std::io::stderr(), $($arg)*);
+    }};
+}
 
 mod list_cmds;
 mod progress;
@@ -139,6 +148,17 @@ enum LayoutArg {
     Long,
 }
 
+/// `--edition`.
+#[derive(Clone, Copy, ValueEnum)]
+enum EditionArg {
+    /// WHO ICD-10, 2019 edition.
+    Who,
+    /// ICD-10-CM, April 2026 release (fiscal year 2026).
+    Cm,
+    /// Either (a code is known when one of the two has it).
+    Any,
+}
+
 /// Options shared by every command that reads an extract.
 #[derive(Args, Clone)]
 struct InputArgs {
@@ -206,7 +226,13 @@ struct InputArgs {
     /// Directory of code lists (*.tsv) that add to or replace the built-ins.
     #[arg(long, value_name = "DIR")]
     lists: Option<PathBuf>,
-    /// Stop (exit 3) at the first warning, with its line: an invalid code, a missing or
+    /// ICD-10 editions a code is looked up in: a well-shaped code in none of them (nor its
+    /// category or subcategory) is counted as unknown, one whose category or subcategory
+    /// is in one of them as extended (a national variant). Both still score by prefix.
+    #[arg(long, value_enum, default_value = "any")]
+    edition: EditionArg,
+    /// Stop (exit 3) at the first warning, with its line: an invalid code, an unknown code
+    /// (see --edition; extended codes do not stop), a missing or
     /// unreadable age or date, a row with an empty --id, or a warning of a list loaded
     /// with --lists. Input that cannot be read at all (wrong field count, a quote never
     /// closed) fails with exit 1, with or without --strict.
@@ -279,11 +305,13 @@ enum ListsCommand {
         path: PathBuf,
     },
     /// What changed from list A to list B: conditions, codes per condition,
-    /// hierarchy, weights, bands, age points, version and sources.
+    /// hierarchy, weights, bands, age points, version and sources. A and B may
+    /// both be directories (as `lists export` writes): lists are paired by name,
+    /// and lists present on one side only are reported.
     Diff {
-        /// List name or path to a list file (before).
+        /// List name, path to a list file, or directory of lists (before).
         a: String,
-        /// List name or path to a list file (after).
+        /// List name, path to a list file, or directory of lists (after).
         b: String,
         /// Print JSON instead of text.
         #[arg(long)]
@@ -301,6 +329,10 @@ pub fn run() -> i32 {
             return code;
         }
     };
+    #[cfg(unix)]
+    if let Err(e) = morbus::io::atomic::remove_temporaries_on_signals() {
+        say!("morbus: warning: cannot watch for interrupts ({e}); an interrupted run may leave a temporary file");
+    }
     let result = match cli.command {
         Command::Score(a) => score(*a),
         Command::Explain(a) => explain(*a),
@@ -309,8 +341,11 @@ pub fn run() -> i32 {
     };
     match result {
         Ok(()) => 0,
+        // The reader of standard output chose to stop (`| head`): the run
+        // ends quietly, as Unix tools do.
+        Err(_) if morbus::io::atomic::stdout_closed_by_reader() => 0,
         Err(e) => {
-            eprintln!("morbus: error: {e}");
+            say!("morbus: error: {e}");
             e.exit_code()
         }
     }
@@ -358,13 +393,13 @@ fn catalogue(dir: Option<&PathBuf>, quiet: bool, strict: bool) -> Result<Catalog
         }
         for l in loaded {
             for w in &l.warnings {
-                eprintln!("morbus: {w}");
+                say!("morbus: {w}");
             }
             let name = l.list.name.clone();
             let origin = l.list.origin.clone();
             if let Some(old) = cat.insert(l.list) {
                 if !quiet {
-                    eprintln!("morbus: list '{name}' from {origin} replaces the {old} list");
+                    say!("morbus: list '{name}' from {origin} replaces the {old} list");
                 }
             }
         }
@@ -452,23 +487,41 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
         age: a.age.clone(),
         delimiter: one_char(&a.delimiter, "--delimiter")?,
         strict: a.strict,
+        edition: match a.edition {
+            EditionArg::Who => Edition::Who,
+            EditionArg::Cm => Edition::Cm,
+            EditionArg::Any => Edition::Any,
+        },
         threads: a.threads,
         ..ScoreConfig::default()
     })
 }
 
+/// An optional file output for [`morbus::io::check_distinct`].
+fn file_end<'a>(role: &'a str, path: &'a Option<PathBuf>) -> Option<End<'a>> {
+    path.as_deref().map(|p| End::new(role, Some(p)))
+}
+
 fn score(a: ScoreArgs) -> Result<(), Error> {
     let (_cat, engine) = engine_for(&a.input, a.flags)?;
     let cfg = config_for(&a.input)?;
-    // Create the provenance file before the output and the run, so that an
-    // unwritable path fails before any work is done.
+    morbus::io::check_distinct(
+        &[End::new("input", a.input.input.as_deref())],
+        &[
+            Some(End::new("--output", a.output.as_deref())),
+            file_end("--provenance", &a.provenance),
+        ]
+        .into_iter()
+        .flatten()
+        .collect::<Vec<_>>(),
+    )?;
+    // Create the provenance file (a temporary file beside it) before the
+    // output and the run, so that an unwritable path fails before any work
+    // is done; it is written at the end, from the run's final counts.
     let provenance_file = a
         .provenance
-        .as_ref()
-        .map(|p| {
-            std::fs::File::create(p)
-                .map_err(|e| Error::io(format!("cannot write {}", p.display()), e))
-        })
+        .as_deref()
+        .map(morbus::io::AtomicFile::create)
         .transpose()?;
     let parquet_out = wants_parquet(a.output_format, a.output.as_deref());
     let run = || -> Result<pipeline::Summary, Error> {
@@ -504,17 +557,10 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         output.finish()?;
         Ok(summary)
     };
-    let summary = match run() {
-        Ok(s) => s,
-        Err(e) => {
-            // No provenance for a run that did not finish.
-            if let Some(p) = &a.provenance {
-                let _ = std::fs::remove_file(p);
-            }
-            return Err(e);
-        }
-    };
-    if let (Some(mut file), Some(path)) = (provenance_file, a.provenance.as_ref()) {
+    // A run that fails drops the provenance file's guard: no provenance for
+    // a run that did not finish.
+    let summary = run()?;
+    if let Some(file) = provenance_file {
         let shown = |p: &Option<PathBuf>| {
             p.as_ref()
                 .filter(|p| p.as_os_str() != "-")
@@ -522,11 +568,10 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         };
         let prov = Provenance::new(&engine, &cfg, &summary)
             .with_files(shown(&a.input.input), shown(&a.output));
-        file.write_all(prov.to_json().as_bytes())
-            .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))?;
+        file.write_and_commit(prov.to_json().as_bytes())?;
     }
     if !a.input.quiet {
-        eprintln!("{}", summary.report());
+        say!("{}", summary.report());
     }
     Ok(())
 }
@@ -540,6 +585,10 @@ fn explain(a: ExplainArgs) -> Result<(), Error> {
             "--json writes JSON lines; leave it out for a Parquet output".into(),
         ));
     }
+    morbus::io::check_distinct(
+        &[End::new("input", a.input.input.as_deref())],
+        &[End::new("--output", a.output.as_deref())],
+    )?;
     // explain keeps only the id and episode columns.
     let mut input = open_extract(&a.input, &cfg, true, &[])?;
     let mut output = input.open_output(
@@ -564,7 +613,7 @@ fn explain(a: ExplainArgs) -> Result<(), Error> {
     .map_err(|e| input.translate(e))?;
     output.finish()?;
     if !a.input.quiet {
-        eprintln!("{}", summary.report());
+        say!("{}", summary.report());
     }
     Ok(())
 }
@@ -617,6 +666,21 @@ fn compare(a: CompareArgs) -> Result<(), Error> {
         seed: a.seed,
         reference: a.reference.clone(),
     };
+    morbus::io::check_distinct(
+        &[End::new("input", a.input.input.as_deref())],
+        &[
+            Some(End::new("standard output", None)),
+            file_end("--json", &a.json),
+            file_end("--report", &a.report),
+        ]
+        .into_iter()
+        .flatten()
+        .collect::<Vec<_>>(),
+    )?;
+    morbus::io::atomic::check_stdout_open()?;
+    // Created before the run: an unwritable path fails before any work.
+    let json_file = a.json.as_deref().map(AtomicFile::create).transpose()?;
+    let report_file = a.report.as_deref().map(AtomicFile::create).transpose()?;
     let mut wanted = vec![opts.outcome.clone()];
     wanted.extend(opts.adjust.iter().cloned());
     wanted.extend(opts.adjust_categorical.iter().cloned());
@@ -627,53 +691,51 @@ fn compare(a: CompareArgs) -> Result<(), Error> {
     let mut input = open_extract(&a.input, &cfg, true, &wanted)?;
     let (result, summary) = morbus::compare::compare(&engine, &cfg, &opts, input.take_reader())
         .map_err(|e| input.translate(e))?;
-    let write_file = |path: &PathBuf, text: &str| -> Result<(), Error> {
-        std::fs::write(path, text)
-            .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))
-    };
-    if let Some(p) = &a.json {
+    if let Some(file) = json_file {
         let text = morbus::compare::json_text(&result)?;
-        write_file(p, &(text + "\n"))?;
+        file.write_and_commit((text + "\n").as_bytes())?;
     }
-    if let Some(p) = &a.report {
-        write_file(p, &morbus::compare::html_report(&result))?;
+    if let Some(file) = report_file {
+        file.write_and_commit(morbus::compare::html_report(&result).as_bytes())?;
     }
-    let mut out = std::io::stdout().lock();
+    let mut out = morbus::io::atomic::stdout();
     out.write_all(morbus::compare::text_table(&result).as_bytes())
         .and_then(|()| out.flush())
         .map_err(|e| Error::io("cannot write output", e))?;
     if !a.input.quiet {
         // compare writes no rows: leave that count out of the shared summary.
-        eprintln!("{}", summary.report().replacen(", 0 rows written", "", 1));
+        say!("{}", summary.report().replacen(", 0 rows written", "", 1));
     }
     Ok(())
 }
 
 fn list_table(cat: &Catalogue) -> Result<(), Error> {
-    let mut out = std::io::stdout().lock();
+    let mut out = morbus::io::atomic::stdout();
     let rows: Vec<[String; 8]> = cat
         .lists()
         .iter()
         .map(|l| {
             [
-                l.name.clone(),
-                l.version.clone(),
+                list_cmds::shown(&l.name),
+                list_cmds::shown(&l.version),
                 l.conditions.len().to_string(),
                 l.code_entries().to_string(),
-                l.weightings
-                    .iter()
-                    .map(|w| {
-                        if w.name == l.default_weighting {
-                            format!("{} (default)", w.name)
-                        } else {
-                            w.name.clone()
-                        }
-                    })
-                    .collect::<Vec<_>>()
-                    .join(", "),
+                list_cmds::shown(
+                    &l.weightings
+                        .iter()
+                        .map(|w| {
+                            if w.name == l.default_weighting {
+                                format!("{} (default)", w.name)
+                            } else {
+                                w.name.clone()
+                            }
+                        })
+                        .collect::<Vec<_>>()
+                        .join(", "),
+                ),
                 l.checksum[..12].to_string(),
-                l.origin.to_string(),
-                l.source.clone(),
+                list_cmds::shown(&l.origin.to_string()),
+                list_cmds::shown(&l.source),
             ]
         })
         .collect();
@@ -713,6 +775,9 @@ fn list_table(cat: &Catalogue) -> Result<(), Error> {
 }
 
 fn lists_command(a: ListsArgs) -> Result<(), Error> {
+    if !matches!(a.command, Some(ListsCommand::Export { .. })) {
+        morbus::io::atomic::check_stdout_open()?;
+    }
     match a.command {
         None => list_table(&catalogue(a.lists.as_ref(), false, false)?),
         Some(ListsCommand::Check { path }) => list_cmds::check(&path),
@@ -725,7 +790,7 @@ fn lists_command(a: ListsArgs) -> Result<(), Error> {
             let cat = catalogue(a.lists.as_ref(), false, false)?;
             let l = resolve_list(&name, &cat)?;
             let path = lists::export_to_dir(&l.list, &dir, force)?;
-            eprintln!(
+            say!(
                 "morbus: wrote list '{}' version {} ({} code entries, checksum {}) to {}",
                 l.list.name,
                 l.list.version,
@@ -736,6 +801,20 @@ fn lists_command(a: ListsArgs) -> Result<(), Error> {
             Ok(())
         }
         Some(ListsCommand::Diff { a: la, b: lb, json }) => {
+            let (da, db) = (Path::new(&la).is_dir(), Path::new(&lb).is_dir());
+            if da && db {
+                let (d, warnings) = lists::diff_dirs(Path::new(&la), Path::new(&lb))?;
+                for w in &warnings {
+                    eprintln!("{w}");
+                }
+                return list_cmds::diff_dirs(&d, json);
+            }
+            if da || db {
+                let (dir, other) = if da { (&la, &lb) } else { (&lb, &la) };
+                return Err(Error::Usage(format!(
+                    "'{dir}' is a directory but '{other}' is not: compare two directories (lists paired by name) or two lists"
+                )));
+            }
             let cat = catalogue(a.lists.as_ref(), false, false)?;
             let left = resolve_list(&la, &cat)?;
             let right = resolve_list(&lb, &cat)?;
@@ -748,7 +827,7 @@ fn lists_command(a: ListsArgs) -> Result<(), Error> {
 fn resolve_list(arg: &str, cat: &Catalogue) -> Result<Loaded, Error> {
     let l = lists::resolve(arg, cat)?;
     for w in &l.warnings {
-        eprintln!("morbus: {w}");
+        say!("morbus: {w}");
     }
     Ok(l)
 }

@@ -27,7 +27,7 @@ pub use canonical::{canonical_text, checksum};
 pub use check::{check_path, CheckReport};
 pub use decimal::{format_scaled, parse_scaled, SCALE, SCALE_DECIMALS};
 pub use describe::{describe, Description};
-pub use diff::{diff, ListDiff};
+pub use diff::{diff, diff_dirs, DirDiff, ListDiff};
 pub use export::{export_text, export_to_dir};
 pub use parse::{parse, Diagnostic, Severity};
 
@@ -56,6 +56,18 @@ pub struct Condition {
     pub label: String,
     pub source: String,
     pub line: usize,
+    /// `condition_note` records: notes on how the source applies the
+    /// condition (e.g. a category counted in secondary diagnosis positions
+    /// only). Recorded and shown; scoring does not use them.
+    pub notes: Vec<ConditionNote>,
+}
+
+/// One `condition_note` record.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ConditionNote {
+    pub text: String,
+    pub source: String,
+    pub line: usize,
 }
 
 /// One `code` record: a code or an inclusive range of equal-length codes.
@@ -81,7 +93,8 @@ impl CodeEntry {
         }
     }
 
-    /// Whether a code is claimed by this entry (prefix match).
+    /// Whether a code is claimed by this entry (prefix match; a range
+    /// follows the letter rule of [`crate::code::range_claims`]).
     pub fn claims(&self, code: &Code) -> bool {
         let n = self.first.len();
         if code.len() < n {
@@ -90,7 +103,7 @@ impl CodeEntry {
         let p = &code.as_bytes()[..n];
         match &self.last {
             None => p == self.first.as_bytes(),
-            Some(l) => p >= self.first.as_bytes() && p <= l.as_bytes(),
+            Some(l) => crate::code::range_claims(&self.first, l, p),
         }
     }
 }
@@ -264,14 +277,49 @@ pub struct Loaded {
     pub warnings: Vec<Diagnostic>,
 }
 
-/// Loads one list file.
+/// The largest list file read (64 MiB; the built-in lists are a few
+/// kilobytes): a larger file is refused rather than read without limit.
+pub const MAX_LIST_BYTES: u64 = 64 << 20;
+
+/// The bytes of a list file: a regular file (symbolic links followed) of at
+/// most [`MAX_LIST_BYTES`]. A FIFO or device is refused before it is opened
+/// (a FIFO would wait for a writer, `/dev/zero` never ends).
+pub(crate) fn read_list_bytes(path: &Path) -> Result<Vec<u8>, String> {
+    use std::io::Read;
+    let meta = std::fs::metadata(path).map_err(|e| format!("cannot read: {e}"))?;
+    if meta.is_dir() {
+        return Err("cannot read: it is a directory, not a list file".into());
+    }
+    if !meta.is_file() {
+        return Err(
+            "cannot read: not a regular file (a FIFO, device or socket); a list is read \
+             from a file"
+                .into(),
+        );
+    }
+    let too_big = || {
+        format!(
+            "cannot read: larger than {} MiB, the limit for a list file",
+            MAX_LIST_BYTES >> 20
+        )
+    };
+    if meta.len() > MAX_LIST_BYTES {
+        return Err(too_big());
+    }
+    let mut bytes = Vec::with_capacity(meta.len() as usize);
+    std::fs::File::open(path)
+        .and_then(|f| f.take(MAX_LIST_BYTES + 1).read_to_end(&mut bytes))
+        .map_err(|e| format!("cannot read: {e}"))?;
+    if bytes.len() as u64 > MAX_LIST_BYTES {
+        return Err(too_big());
+    }
+    Ok(bytes)
+}
+
+/// Loads one list file (a regular file, see [`MAX_LIST_BYTES`]).
 pub fn load_file(path: &Path) -> Result<Loaded, ListError> {
-    let text = std::fs::read(path).map_err(|e| ListError {
-        diagnostics: vec![Diagnostic::error(
-            &path.display().to_string(),
-            0,
-            format!("cannot read: {e}"),
-        )],
+    let text = read_list_bytes(path).map_err(|message| ListError {
+        diagnostics: vec![Diagnostic::error(&path.display().to_string(), 0, message)],
     })?;
     let text = String::from_utf8(text).map_err(|e| ListError {
         diagnostics: vec![Diagnostic::error(
