@@ -7,6 +7,7 @@
 #   bash benches/run.sh            # 1,000,000-episode scenarios
 #   SIZES="1000000 10000000" bash benches/run.sh
 #   SCENARIOS="wide long" bash benches/run.sh
+#   SCENARIOS=providers bash benches/run.sh  # compare with 40 providers and 5 folds
 #   SCENARIOS=parquet bash benches/run.sh   # Parquet in and out; its floor is a
 #                                           # read-and-rewrite with the parquet crate
 #   SCENARIOS=oneid bash benches/run.sh     # one id holding every episode (365 days
@@ -106,6 +107,17 @@ for n in $SIZES; do
             --index charlson:charlson1987,charlson:quan2011,charlson:count,elixhauser:vanwalraven2009,elixhauser:count,hfrs:gilbert2018)
           row "compare, 6 index specifications" "$n" "$t" "$m" "$floor"
         fi
+        ;;
+      providers)
+        # The same extract with a ward column (5 sites x 8 wards = 40
+        # providers); every other column is as in the wide extract.
+        wards="$DATA/wards-$n.csv"
+        [ -f "$wards" ] || $BIN/synth --episodes "$n" --patients "$patients" --fields 20 --seed 11 \
+          --wards-per-site 8 -q -o "$wards"
+        read -r t m < <(best_of $MORBUS compare "$wards" --dx 'dx*' --outcome died_within_30_days \
+          --index charlson:charlson1987,charlson:quan2011,charlson:count,elixhauser:vanwalraven2009,elixhauser:count,hfrs:gilbert2018 \
+          --adjust age --adjust-cat sex --by ward --folds 5 --id patient_id)
+        row "compare, 6 specs, --by (40), --folds 5" "$n" "$t" "$m" "$floor"
         ;;
       parquet)
         # The same extract as typed Parquet (dates as dates; zstd), and the

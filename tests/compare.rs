@@ -885,3 +885,194 @@ fn header_only_and_empty_input_are_clear_errors() {
     assert_eq!(r.code, 1, "{}", r.stderr);
     assert!(r.stderr.contains("empty"), "{}", r.stderr);
 }
+
+/// The test extract with a provider column `site` (four invented names)
+/// added at the end.
+fn extract_with_sites(n: usize, seed: u64) -> String {
+    let names = ["Ashgrove", "Birchmead", "Cobble Lane", "Dunmore"];
+    let mut out = String::new();
+    for (i, line) in extract(n, seed, 50).lines().enumerate() {
+        out.push_str(line);
+        if i == 0 {
+            out.push_str(",site\n");
+        } else {
+            out.push(',');
+            out.push_str(names[(i * 7 + i / 3) % 4]);
+            out.push('\n');
+        }
+    }
+    out
+}
+
+#[test]
+fn providers_folds_and_reference_end_to_end() {
+    let input = write("sites.csv", &extract_with_sites(2400, 77));
+    let js = tmp("sites.json");
+    let report = tmp("sites.html");
+    let run = morbus(
+        &[
+            "compare",
+            input.to_str().unwrap(),
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--adjust",
+            "age",
+            "--by",
+            "site",
+            "--folds",
+            "3",
+            "--id",
+            "patient",
+            "--reference",
+            "charlson:quan2011",
+            "--overdispersion",
+            "multiplicative",
+            "--json",
+            js.to_str().unwrap(),
+            "--report",
+            report.to_str().unwrap(),
+            "-q",
+        ],
+        b"",
+    );
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    assert_no_nan("stdout", &run.stdout);
+    assert!(run.stdout.contains("Providers by 'site'"), "{}", run.stdout);
+    let j = json(&js);
+    let k = j["indices"].as_array().unwrap().len();
+    // --reference: k - 1 pairs, each with the reference first.
+    assert_eq!(j["pairs"].as_array().unwrap().len(), k - 1);
+    assert!(j["pairs"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .all(|p| p["a"] == "charlson_quan2011"));
+    assert_eq!(j["pairs_compared"]["tests_if_all_pairs"], k * (k - 1) / 2);
+    let p = &j["providers"];
+    let names: Vec<&str> = p["names"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_str().unwrap())
+        .collect();
+    assert_eq!(names, ["Ashgrove", "Birchmead", "Cobble Lane", "Dunmore"]);
+    let events = j["units"]["events"].as_u64().unwrap();
+    let observed: u64 = p["observed"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_u64().unwrap())
+        .sum();
+    assert_eq!(observed, events);
+    // A maximum-likelihood logistic model with an intercept reproduces the
+    // number of events: the expected counts of all providers add up to the
+    // observed total (the score equation of the intercept).
+    for s in p["specifications"].as_array().unwrap() {
+        let expected: f64 = s["providers"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|r| r["expected"].as_f64().unwrap())
+            .sum();
+        assert!(
+            (expected - events as f64).abs() < 1e-6 * events as f64,
+            "{}: {expected} vs {events}",
+            s["index"]
+        );
+        let d = &s["dispersion"];
+        assert!(d["phi"].as_f64().unwrap() >= 0.0);
+    }
+    // Cross-validation: every analysed unit in one fold; per-fold units add up.
+    let analysed = j["units"]["analysed"].as_u64().unwrap();
+    let cv = &j["cross_validation"];
+    let per_fold: u64 = cv["fold_units"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_u64().unwrap())
+        .sum();
+    assert_eq!(per_fold, analysed);
+    for ix in j["indices"].as_array().unwrap() {
+        let oos = &ix["out_of_sample"];
+        let groups: u64 = oos["calibration"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|g| g["units"].as_u64().unwrap())
+            .sum();
+        assert_eq!(groups, analysed);
+        let brier = oos["brier"].as_f64().unwrap();
+        assert!(brier > 0.0 && brier < 0.25, "{brier}");
+        assert!(ix["added_value"]["p_value"].as_f64().unwrap() <= 1.0);
+    }
+    let html = std::fs::read_to_string(&report).unwrap();
+    assert_no_nan("report", &html);
+    assert_eq!(html.matches("aria-label=\"funnel plot").count(), k);
+    assert_eq!(html.matches("aria-label=\"calibration,").count(), k);
+    // The same seed gives the same folds; another seed other folds.
+    let again = tmp("sites2.json");
+    let other = tmp("sites3.json");
+    for (path, seed) in [(&again, "20261203"), (&other, "5")] {
+        let r = morbus(
+            &[
+                "compare",
+                input.to_str().unwrap(),
+                "--dx",
+                "dx*",
+                "--outcome",
+                "died",
+                "--folds",
+                "3",
+                "--id",
+                "patient",
+                "--seed",
+                seed,
+                "--index",
+                "charlson",
+                "--json",
+                path.to_str().unwrap(),
+                "-q",
+            ],
+            b"",
+        );
+        assert_eq!(r.code, 0, "{}", r.stderr);
+    }
+    assert_eq!(j["cross_validation"]["seed"], 20261203);
+    let (a, b) = (json(&again), json(&other));
+    assert_ne!(
+        a["cross_validation"]["fold_units"],
+        b["cross_validation"]["fold_units"]
+    );
+}
+
+#[test]
+fn provider_and_fold_options_are_checked() {
+    let input = write("sites-usage.csv", &extract_with_sites(200, 3));
+    let base = [
+        "compare",
+        input.to_str().unwrap(),
+        "--dx",
+        "dx*",
+        "--outcome",
+        "died",
+        "-q",
+    ];
+    for (extra, needle) in [
+        (&["--folds", "1"][..], "--folds 1"),
+        (&["--overdispersion", "additive"][..], "needs --by"),
+        (
+            &["--reference", "nothing:here"][..],
+            "not among the indices",
+        ),
+        (&["--by", "site", "--min-expected=-1"][..], "--min-expected"),
+        (&["--by", "nowhere"][..], "nowhere"),
+    ] {
+        let mut args: Vec<&str> = base.to_vec();
+        args.extend_from_slice(extra);
+        let r = morbus(&args, b"");
+        assert_eq!(r.code, 2, "{extra:?}: {}", r.stderr);
+        assert!(r.stderr.contains(needle), "{extra:?}: {}", r.stderr);
+    }
+}

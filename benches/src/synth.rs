@@ -53,6 +53,11 @@ OPTIONS:
                         (default 2022-01-01)
     --days D            length of the admission window in days, 1-7305
                         (default 1095)
+    --wards-per-site K  wide layout: add a last column `ward` naming one of K
+                        invented wards of the episode's site (SITE-1..SITE-K),
+                        from a hash of the seed and episode number, so every
+                        other column is the same as without it (default: no
+                        ward column)
     --shuffle           shuffle the rows (episode ids keep their numbering, which
                         follows the admission date)
     --threads T         worker threads (default: available cores); the output
@@ -64,7 +69,7 @@ OPTIONS:
 
 COLUMNS:
     wide: episode_id,patient_id,site,admission_date,age,sex,dx1..dxF,
-          died_within_30_days
+          died_within_30_days[,ward]
     long: episode_id,patient_id,admission_date,age,position,code,
           present_on_admission,died_within_30_days
 
@@ -1612,10 +1617,13 @@ struct Config {
     threads: usize,
     output: Option<String>,
     quiet: bool,
+    /// Wards per site (0: no ward column).
+    wards: u64,
 }
 
 struct Ctx {
     seed: u64,
+    wards: u64,
     days: u32,
     fields: usize,
     long: bool,
@@ -1678,6 +1686,7 @@ impl Ctx {
             seed: cfg.seed,
             days: cfg.days,
             fields: cfg.fields,
+            wards: cfg.wards,
             long: cfg.long,
             mid: cfg.start + i64::from(cfg.days / 2),
             age_lo: 18.0 + half,
@@ -2564,6 +2573,9 @@ fn header(ctx: &Ctx) -> Vec<u8> {
             put_u64(&mut h, i as u64);
         }
         h.extend_from_slice(b",died_within_30_days");
+        if ctx.wards > 0 {
+            h.extend_from_slice(b",ward");
+        }
     }
     h.push(b'\n');
     h
@@ -2589,6 +2601,18 @@ fn put_wide(buf: &mut Vec<u8>, ctx: &Ctx, id: u64, ep: &Episode) {
     }
     buf.push(b',');
     buf.push(if ep.died { b'1' } else { b'0' });
+    if ctx.wards > 0 {
+        // SplitMix64 of the seed and episode number: no draw from the
+        // generator's streams, so the other columns do not change.
+        let mut z = ctx.seed ^ id.wrapping_mul(0x9E37_79B9_7F4A_7C15);
+        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        z ^= z >> 31;
+        buf.push(b',');
+        buf.extend_from_slice(SITES[ep.site].code.as_bytes());
+        buf.push(b'-');
+        put_u64(buf, 1 + z % ctx.wards);
+    }
     buf.push(b'\n');
 }
 
@@ -2948,6 +2972,7 @@ fn parse_args(args: &[String]) -> Result<Action, String> {
         threads: std::thread::available_parallelism().map_or(1, |n| n.get().min(16)),
         output: None,
         quiet: false,
+        wards: 0,
     };
     let mut i = 0;
     while i < args.len() {
@@ -2997,6 +3022,7 @@ fn parse_args(args: &[String]) -> Result<Action, String> {
             }
             "-o" | "--output" => cfg.output = Some(value()?),
             "--shuffle" => cfg.shuffle = true,
+            "--wards-per-site" => cfg.wards = num(name, &value()?)?,
             "-q" | "--quiet" => cfg.quiet = true,
             other => return Err(format!("unknown argument: {other} (see --help)")),
         }

@@ -22,10 +22,11 @@ import sys
 from typing import Any, Dict, List, Optional, Sequence, Tuple, Union
 
 from . import _history, _native
+from ._compare import compare
 from ._history import explain
 from ._native import Lists
 
-__all__ = ["score", "explain", "lists", "load_lists", "code_status", "Lists", "__version__"]
+__all__ = ["score", "explain", "compare", "lists", "load_lists", "code_status", "Lists", "__version__"]
 
 __version__: str = _native.version()
 

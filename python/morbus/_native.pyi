@@ -102,6 +102,39 @@ def explain(
     edition: str = ...,
 ) -> Tuple[ArrowStream, str]:
     """`morbus explain` on a frame: (the columns from `row` on, summary line)."""
+def compare_csv(
+    data: bytes,
+    *,
+    dx: Sequence[str],
+    outcome: str,
+    adjust: Sequence[str],
+    adjust_cat: Sequence[str],
+    by: Optional[str],
+    min_expected: float,
+    overdispersion: Optional[str],
+    folds: Optional[int],
+    seed: int,
+    reference: Optional[str],
+    layout: str,
+    id: Optional[str],
+    age: Optional[str],
+    index: Optional[Sequence[str]],
+    hierarchy: bool,
+    lists: Optional[Lists],
+    dx_sep: Optional[str],
+    date: Optional[str],
+    date_format: Optional[str],
+    lookback: Optional[str],
+    episode: Optional[str],
+    exclude_primary: bool,
+    primary: Optional[str],
+    poa: Optional[str],
+    poa_values: Sequence[str],
+    threads: int,
+    report: bool,
+) -> Tuple[str, str, Optional[str]]:
+    """`morbus compare` over CSV text: (the --json text, the plain-text
+    report, the HTML report when asked)."""
 def code_status(values: Sequence[str], edition: str = ...) -> List[str]:
     """Per value: "known", "extended", "unknown", "invalid" or "empty"."""
 def version() -> str: ...

@@ -31,6 +31,7 @@ use morbus::provenance::Provenance;
 use morbus::score::{ColumnKind, Engine, IndexSpec, ScoreOptions, Value, DEFAULT_INDICES};
 use morbus::Error;
 
+mod compare;
 mod history;
 
 const STREAM: &CStr = c"arrow_array_stream";
@@ -957,6 +958,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(debug_build, m)?)?;
     m.add_function(wrap_pyfunction!(history::score_history, m)?)?;
     m.add_function(wrap_pyfunction!(history::explain, m)?)?;
+    m.add_function(wrap_pyfunction!(compare::compare_csv, m)?)?;
     m.add_function(wrap_pyfunction!(code_status, m)?)?;
     Ok(())
 }

@@ -18,7 +18,20 @@ from the per-unit scores that ``morbus score`` writes for the same data:
   statsmodels);
 * score distributions: numpy (``mean``, ``std(ddof=1)``,
   ``percentile(method="linear")``);
-* prevalence: the 0/1 condition flags of ``morbus score --flags``.
+* prevalence: the 0/1 condition flags of ``morbus score --flags``;
+* providers (``--by site``): expected counts from statsmodels ``GLM``
+  (binomial family) fitted probabilities; exact Poisson limits from
+  ``scipy.stats.chi2.ppf`` (Garwood F. Biometrika 1936;28:437-42); funnel
+  limits from ``scipy.stats.poisson`` with the interpolation of
+  Spiegelhalter DJ. Stat Med 2005;24:1185-1202; over-dispersion
+  (Spiegelhalter DJ. Qual Saf Health Care 2005;14:347-51) with numpy's
+  percentiles; Spearman of the ratios with scipy;
+* likelihood-ratio tests: statsmodels log-likelihoods and
+  ``scipy.stats.chi2.sf``;
+* cross-validation (``--folds``): per fold, statsmodels ``Logit`` on the
+  other folds, scikit-learn ``roc_auc_score`` and ``brier_score_loss``;
+  calibration slope and intercept with statsmodels (``Logit`` on the
+  linear predictor; ``GLM`` with the linear predictor as offset).
 
 The binary is ``$MORBUS_BIN``, else ``target/debug/morbus`` or
 ``target/release/morbus`` under the repository root (or under
@@ -79,6 +92,8 @@ def synthetic_extract(path: Path, n: int = 4000, seed: int = 20261201) -> None:
     )
     rows = []
     patients = rng.integers(0, n // 3, size=n)
+    # Invented site names, drawn apart so the other columns keep their draws.
+    sites = np.random.default_rng(seed + 1).choice(["Site A", "Site B", "Site C", "Site D"], size=n)
     for e in range(n):
         age = int(rng.integers(20, 100))
         k = min(20, int(rng.exponential(3.0)))
@@ -89,7 +104,7 @@ def synthetic_extract(path: Path, n: int = 4000, seed: int = 20261201) -> None:
         sex = "F" if rng.random() < 0.52 else "M"
         date = f"2025-{rng.integers(1, 13):02d}-{rng.integers(1, 29):02d}"
         rows.append(
-            [f"E{e:06d}", f"P{patients[e]:05d}", "Site 1", date, str(age), sex]
+            [f"E{e:06d}", f"P{patients[e]:05d}", sites[e], date, str(age), sex]
             + dx
             + [""] * (20 - len(dx))
             + [outcome]
@@ -299,3 +314,235 @@ def test_distribution_and_prevalence_against_numpy(case):
             flags = a[f"{ix['list']}_{p['key']}"].astype(int)
             assert p["count"] == int(flags.sum()), (ix["name"], p["key"])
             assert p["share"] == pytest.approx(flags.mean(), abs=1e-15)
+
+
+
+# ---------------------------------------------------------------------------
+# Providers, likelihood-ratio tests and cross-validation.
+
+from scipy.stats import chi2, poisson  # noqa: E402
+from sklearn.metrics import brier_score_loss  # noqa: E402
+
+# (provider column, adjusted for age, extra options). Ages as providers with
+# no age term make the ratios over-dispersed, so the widened limits are
+# checked too; the sites of the demo extract are not over-dispersed.
+PROVIDER_RUNS = {
+    "poisson": ("site", True, ["--min-expected", "5"]),
+    "multiplicative": ("site", True, ["--min-expected", "5", "--overdispersion", "multiplicative"]),
+    "additive": ("site", True, ["--min-expected", "5", "--overdispersion", "additive"]),
+    "multiplicative-by-age": ("age", False, ["--min-expected", "2", "--overdispersion", "multiplicative"]),
+    "additive-by-age": ("age", False, ["--min-expected", "2", "--overdispersion", "additive"]),
+}
+
+
+@pytest.fixture(scope="module", params=list(PROVIDER_RUNS))
+def provider_case(request, extract, tmp_path_factory):
+    out = tmp_path_factory.mktemp("providers") / "compare.json"
+    base = [str(extract), "--dx", "dx*"]
+    column, with_age, extra = PROVIDER_RUNS[request.param]
+    run(
+        "compare", *base, "--outcome", OUTCOME, *(["--adjust", "age"] if with_age else []),
+        "--adjust-cat", "sex", "--by", column, "--folds", "5", "--id", "patient_id",
+        *extra, "--json", str(out), "-q",
+    )
+    result = json.loads(out.read_text())
+    specs = ",".join(ix["spec"] for ix in result["indices"])
+    scored = run("score", *base, "--index", specs, "-q").stdout
+    df = pd.read_csv(io.StringIO(scored), dtype=str, keep_default_na=False)
+    def present(col):
+        return ~df[col].str.strip().str.upper().isin(MISSING)
+    keep = present(OUTCOME) & present("sex") & (present("age") if with_age else True)
+    a = df[keep].reset_index(drop=True)
+    mode = request.param.split("-")[0]
+    return mode, result, a, column, with_age
+
+
+def design(a: pd.DataFrame, name: str | None, with_age: bool = True) -> pd.DataFrame:
+    X = pd.DataFrame(index=range(len(a)))
+    if name is not None:
+        X[name] = a[name].astype(float).to_numpy()
+    if with_age:
+        X["age"] = a["age"].astype(float).to_numpy()
+    for level in sorted(a["sex"].unique())[1:]:
+        X[f"sex={level}"] = (a["sex"] == level).astype(float).to_numpy()
+    return sm.add_constant(X, has_constant="add")
+
+
+def funnel_reference(e: float, p: float) -> float:
+    """Spiegelhalter, Stat Med 2005;24:1185-1202: r the smallest integer with
+    P(O <= r) >= p under Poisson(E) (scipy's ppf), a = (P(O <= r) - p) /
+    (P(O <= r) - P(O <= r - 1)), limit (r - a)/E, not below 0."""
+    r = poisson.ppf(p, e)
+    hi, lo = poisson.cdf(r, e), poisson.cdf(r - 1, e)
+    a = (hi - p) / (hi - lo)
+    return max(0.0, (r - a) / e)
+
+
+def test_providers_against_statsmodels_and_scipy(provider_case):
+    """References: statsmodels GLM (binomial) fitted probabilities for E;
+    scipy chi2.ppf for Garwood's exact limits; scipy poisson for the funnel
+    limits; numpy percentiles for the Winsorised over-dispersion."""
+    mode, result, a, column, with_age = provider_case
+    prov = result["providers"]
+    y = (a[OUTCOME] == "1").astype(int).to_numpy()
+    sites = a[column].str.strip().to_numpy()
+    has = ~np.isin(np.char.upper(sites.astype(str)), list(MISSING))
+    assert prov["units_without_provider"] == int((~has).sum())
+    names = sorted(set(sites[has]), key=lambda v: v.encode())
+    assert prov["names"] == names
+    for k, s in enumerate(names):
+        assert prov["units"][k] == int((sites == s).sum())
+        assert prov["observed"][k] == int(y[sites == s].sum())
+    checked = 0
+    for spec in prov["specifications"]:
+        fit = sm.GLM(y, design(a, spec["index"], with_age), family=sm.families.Binomial()).fit(
+            tol=1e-12
+        )
+        p = fit.fittedvalues if hasattr(fit.fittedvalues, "to_numpy") else fit.fittedvalues
+        p = np.asarray(p)
+        e = np.array([p[sites == s].sum() for s in names])
+        o = np.array(prov["observed"], dtype=float)
+        judged = e >= prov["min_expected"]
+        # Over-dispersion: z = (O - E)/sqrt(E), Winsorised at the 10th and
+        # 90th percentiles (numpy linear), phi = mean z^2.
+        z = (o - e) / np.sqrt(e)
+        zj = z[judged]
+        lo, hi = np.percentile(zj, [10, 90], method="linear")
+        phi = np.mean(np.clip(zj, lo, hi) ** 2)
+        i = len(zj)
+        w = e[judged]
+        tau2 = max(0.0, (i * phi - (i - 1)) / (w.sum() - (w ** 2).sum() / w.sum()))
+        if mode != "poisson":
+            d = spec["dispersion"]
+            assert d["phi"] == pytest.approx(phi, rel=1e-6)
+            assert d["tau2"] == pytest.approx(tau2, rel=1e-6, abs=1e-12)
+            assert d["p_value"] == pytest.approx(chi2.sf(i * phi, i - 1), rel=1e-6)
+        for k, row in enumerate(spec["providers"]):
+            assert row["expected"] == pytest.approx(e[k], rel=1e-6), (spec["index"], names[k])
+            assert row["ratio"] == pytest.approx(o[k] / e[k], rel=1e-6)
+            lo_ci = chi2.ppf(0.025, 2 * o[k]) / 2 if o[k] > 0 else 0.0
+            hi_ci = chi2.ppf(0.975, 2 * o[k] + 2) / 2
+            assert row["ci95"] == pytest.approx([lo_ci / e[k], hi_ci / e[k]], rel=1e-6)
+            widened = mode != "poisson" and spec["dispersion"]["widened"]
+            for key, (pl, pu) in (("limits95", (0.025, 0.975)), ("limits998", (0.001, 0.999))):
+                if widened:
+                    zq = norm.ppf(pu)
+                    sd = np.sqrt(phi / e[k]) if mode == "multiplicative" else np.sqrt(1 / e[k] + tau2)
+                    want = [max(0.0, 1 - zq * sd), 1 + zq * sd]
+                    assert row[key] == pytest.approx(want, rel=1e-5, abs=1e-9)
+                else:
+                    want = [funnel_reference(e[k], pl), funnel_reference(e[k], pu)]
+                    assert row[key] == pytest.approx(want, rel=1e-9, abs=1e-12)
+                ratio = o[k] / e[k]
+                pos = ("under" if ratio < want[0] else "over" if ratio > want[1] else "inside")
+                position = row["position95" if key == "limits95" else "position998"]
+                assert position == (pos if judged[k] else "not_judged"), (spec["index"], names[k])
+            checked += 1
+    assert checked >= 10
+    if mode != "poisson" and column == "age":
+        assert any(s["dispersion"]["widened"] for s in prov["specifications"]), "no widened case"
+    # Agreement: Spearman of the ratios over providers judged under both (scipy).
+    by_name = {s["index"]: s for s in prov["specifications"]}
+    for ag in prov["agreement"]:
+        ra, rb = by_name[ag["a"]]["providers"], by_name[ag["b"]]["providers"]
+        both = [k for k in range(len(names))
+                if ra[k]["position998"] != "not_judged" and rb[k]["position998"] != "not_judged"]
+        assert ag["judged"] == len(both)
+        assert ag["position_changes"] == sum(ra[k]["position998"] != rb[k]["position998"] for k in both)
+        if len(both) >= 2:
+            rho = spearmanr([ra[k]["ratio"] for k in both], [rb[k]["ratio"] for k in both]).statistic
+            assert ag["spearman"] == pytest.approx(rho, abs=1e-12)
+
+
+def test_likelihood_ratio_against_statsmodels(provider_case):
+    """Reference: statsmodels Logit log-likelihoods; scipy chi2.sf (1 df)."""
+    _, result, a, _, with_age = provider_case
+    y = (a[OUTCOME] == "1").astype(int).to_numpy()
+    base = sm.Logit(y, design(a, None, with_age)).fit(disp=0, method="newton", tol=1e-12, maxiter=100)
+    for ix in result["indices"]:
+        if ix["added_value"] is None:
+            continue
+        fit = sm.Logit(y, design(a, ix["name"], with_age)).fit(
+            disp=0, method="newton", tol=1e-12, maxiter=100
+        )
+        lr = 2 * (fit.llf - base.llf)
+        assert ix["added_value"]["statistic"] == pytest.approx(lr, rel=1e-6)
+        assert ix["added_value"]["p_value"] == pytest.approx(chi2.sf(lr, 1), rel=1e-5, abs=1e-300)
+
+
+def folds_reference(groups: list, k: int, seed: int) -> np.ndarray:
+    """The fold assignment morbus documents: distinct --id values in order of
+    first appearance among the analysed units, shuffled by Fisher-Yates with
+    SplitMix64 (seeded), dealt round-robin."""
+    mask = (1 << 64) - 1
+    index: dict = {}
+    group = [index.setdefault(g, len(index)) for g in groups]
+    order = list(range(len(index)))
+    state = seed
+
+    def rand():
+        nonlocal state
+        state = (state + 0x9E3779B97F4A7C15) & mask
+        z = state
+        z = ((z ^ (z >> 30)) * 0xBF58476D1CE4E5B9) & mask
+        z = ((z ^ (z >> 27)) * 0x94D049BB133111EB) & mask
+        return z ^ (z >> 31)
+
+    for i in range(len(order) - 1, 0, -1):
+        j = rand() % (i + 1)
+        order[i], order[j] = order[j], order[i]
+    fold_of_group = [0] * len(order)
+    for pos, g in enumerate(order):
+        fold_of_group[g] = pos % k
+    return np.array([fold_of_group[g] for g in group])
+
+
+def test_folds_against_scikit_learn_and_statsmodels(provider_case):
+    """References: per fold, statsmodels Logit fitted on the other folds;
+    scikit-learn roc_auc_score and brier_score_loss; calibration slope
+    (statsmodels Logit of y on the linear predictor) and intercept
+    (statsmodels GLM with the linear predictor as offset): Cox DR.
+    Biometrika 1958;45:562-5."""
+    mode, result, a, _, _ = provider_case
+    if mode != "poisson":
+        pytest.skip("the folds do not depend on --overdispersion; checked once")
+    cv = result["cross_validation"]
+    assert cv["grouped_by"] == "patient_id" and cv["folds"] == 5
+    fold = folds_reference(list(a["patient_id"]), 5, cv["seed"])
+    assert cv["fold_units"] == [int((fold == f).sum()) for f in range(5)]
+    # A patient's episodes stay in one fold.
+    assert (pd.Series(fold).groupby(a["patient_id"].to_numpy()).nunique() == 1).all()
+    y = (a[OUTCOME] == "1").astype(int).to_numpy()
+    checked = 0
+    for ix in result["indices"]:
+        oos = ix["out_of_sample"]
+        if oos is None:
+            continue
+        X = design(a, ix["name"]).to_numpy()
+        eta = np.zeros(len(y))
+        for f in range(5):
+            tr, te = fold != f, fold == f
+            fit = sm.Logit(y[tr], X[tr]).fit(disp=0, method="newton", tol=1e-12, maxiter=100)
+            eta[te] = X[te] @ fit.params
+            p_te = 1 / (1 + np.exp(-eta[te]))
+            got = oos["folds"][f]
+            assert got["units"] == int(te.sum())
+            assert got["c_statistic"] == pytest.approx(roc_auc_score(y[te], eta[te]), abs=1e-9)
+            assert got["brier"] == pytest.approx(brier_score_loss(y[te], p_te), rel=1e-6)
+        p = 1 / (1 + np.exp(-eta))
+        assert oos["c_statistic"] == pytest.approx(roc_auc_score(y, eta), abs=1e-9)
+        assert oos["brier"] == pytest.approx(brier_score_loss(y, p), rel=1e-6)
+        slope = sm.Logit(y, sm.add_constant(eta)).fit(disp=0, method="newton", tol=1e-12).params[1]
+        assert oos["calibration_slope"] == pytest.approx(slope, rel=1e-5)
+        intercept = sm.GLM(y, np.ones((len(y), 1)), family=sm.families.Binomial(),
+                           offset=eta).fit(tol=1e-12).params[0]
+        assert oos["calibration_intercept"] == pytest.approx(intercept, rel=1e-5, abs=1e-8)
+        # Tenths of predicted risk: ten groups of n/10 units in order of p.
+        order = np.argsort(eta, kind="stable")
+        n = len(y)
+        for g, grp in enumerate(oos["calibration"]):
+            idx = order[g * n // 10:(g + 1) * n // 10]
+            assert grp["units"] == len(idx)
+            assert grp["mean_predicted"] == pytest.approx(p[idx].mean(), rel=1e-6)
+        checked += 1
+    assert checked >= 3

@@ -91,12 +91,40 @@ struct CompareArgs {
     /// Categorical adjustment columns (e.g. sex), one indicator per level except the first.
     #[arg(long = "adjust-cat", value_name = "COLS")]
     adjust_cat: Vec<String>,
+    /// Provider column (e.g. a site): observed/expected ratios per provider under each
+    /// index, exact intervals, funnel limits at 95% and 99.8%, agreement between indices.
+    #[arg(long, value_name = "COL")]
+    by: Option<String>,
+    /// Providers with an expected count below this are listed but not judged.
+    #[arg(long, value_name = "N", default_value_t = morbus::compare::DEFAULT_MIN_EXPECTED)]
+    min_expected: f64,
+    /// Widen the funnel limits for over-dispersion (Spiegelhalter 2005, QSHC).
+    #[arg(long, value_enum, value_name = "MODE")]
+    overdispersion: Option<OverdispersionArg>,
+    /// Cross-validate each index's model in K folds formed by --id (a patient's episodes
+    /// stay together): c-statistic, calibration intercept and slope, Brier score.
+    #[arg(long, value_name = "K")]
+    folds: Option<usize>,
+    /// Seed of the fold assignment.
+    #[arg(long, value_name = "N", default_value_t = morbus::compare::DEFAULT_SEED)]
+    seed: u64,
+    /// Compare every index with this one (NAME or LIST:WEIGHTING) instead of all pairs.
+    #[arg(long, value_name = "SPEC")]
+    reference: Option<String>,
     /// Also write the results as JSON to this file.
     #[arg(long, value_name = "FILE")]
     json: Option<PathBuf>,
     /// Also write a self-contained HTML report with charts to this file.
     #[arg(long, value_name = "FILE")]
     report: Option<PathBuf>,
+}
+
+#[derive(Clone, Copy, ValueEnum, PartialEq, Eq)]
+enum OverdispersionArg {
+    /// Limits widened by the square root of the dispersion factor.
+    Multiplicative,
+    /// A between-provider variance added (random effects).
+    Additive,
 }
 
 #[derive(Args)]
@@ -346,8 +374,7 @@ Examples:
     #[command(after_help = "\
 Examples:
   morbus lists diff charlson code-lists/charlson.tsv
-  morbus lists diff charlson code-lists/charlson.tsv --json
-  morbus lists diff exported-lists/ my-lists/")]
+  morbus lists diff charlson code-lists/charlson.tsv --json")]
     Diff {
         /// List name, path to a list file, or directory of lists (before).
         a: String,
@@ -799,6 +826,15 @@ fn compare(a: CompareArgs) -> Result<(), Error> {
         outcome: a.outcome.trim().to_string(),
         adjust: split_columns(&a.adjust),
         adjust_categorical: split_columns(&a.adjust_cat),
+        by: a.by.as_ref().map(|b| b.trim().to_string()),
+        min_expected: a.min_expected,
+        overdispersion: a.overdispersion.map(|o| match o {
+            OverdispersionArg::Multiplicative => morbus::compare::Overdispersion::Multiplicative,
+            OverdispersionArg::Additive => morbus::compare::Overdispersion::Additive,
+        }),
+        folds: a.folds,
+        seed: a.seed,
+        reference: a.reference.clone(),
     };
     morbus::io::check_distinct(
         &[End::new("input", a.input.input.as_deref())],
@@ -818,12 +854,15 @@ fn compare(a: CompareArgs) -> Result<(), Error> {
     let mut wanted = vec![opts.outcome.clone()];
     wanted.extend(opts.adjust.iter().cloned());
     wanted.extend(opts.adjust_categorical.iter().cloned());
+    wanted.extend(opts.by.iter().cloned());
+    if opts.folds.is_some() {
+        wanted.extend(cfg.id.iter().cloned());
+    }
     let mut input = open_extract("compare", &a.input, &cfg, true, &wanted)?;
     let (result, summary) = morbus::compare::compare(&engine, &cfg, &opts, input.take_reader())
         .map_err(|e| input.translate(e))?;
     if let Some(file) = json_file {
-        let text = serde_json::to_string_pretty(&result)
-            .map_err(|e| Error::Usage(format!("cannot encode the results as JSON: {e}")))?;
+        let text = morbus::compare::json_text(&result)?;
         file.write_and_commit((text + "\n").as_bytes())?;
     }
     if let Some(file) = report_file {

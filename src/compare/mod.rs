@@ -29,6 +29,8 @@
 //! separated model, too few events for a variance) is `None` in the result
 //! with a note saying why.
 
+mod folds;
+mod providers;
 mod report;
 mod table;
 
@@ -45,6 +47,11 @@ use crate::score::{ColumnKind, Engine, IndexSpec, Value};
 use crate::stats::{self, StatsError};
 use crate::Error;
 
+pub use folds::{assign_folds, CalibrationGroup, FoldResult, OutOfSample, MAX_FOLDS};
+pub use providers::{
+    Agreement, Change, Dispersion, FunnelPoint, LargestChange, Overdispersion, Position,
+    ProviderRow, ProviderSpec, Providers, MAX_PROVIDERS,
+};
 pub use report::html_report;
 pub use table::text_table;
 
@@ -62,8 +69,13 @@ local coding practice, the lookback and the outcome chosen.";
 /// Most levels a categorical adjustment column may have.
 pub const MAX_LEVELS: usize = 50;
 
+/// Default of [`CompareOptions::min_expected`].
+pub const DEFAULT_MIN_EXPECTED: f64 = 5.0;
+/// Default of [`CompareOptions::seed`].
+pub const DEFAULT_SEED: u64 = 20_261_203;
+
 /// What to compare against what.
-#[derive(Clone, Debug, Default)]
+#[derive(Clone, Debug)]
 pub struct CompareOptions {
     /// The 0/1 outcome column.
     pub outcome: String,
@@ -71,6 +83,42 @@ pub struct CompareOptions {
     pub adjust: Vec<String>,
     /// Categorical adjustment columns (exact names).
     pub adjust_categorical: Vec<String>,
+    /// Provider column (`--by`): observed/expected ratios per provider.
+    pub by: Option<String>,
+    /// Providers with an expected count below this are listed, not judged.
+    pub min_expected: f64,
+    /// Funnel limits allowing for over-dispersion.
+    pub overdispersion: Option<Overdispersion>,
+    /// Cross-validation folds (`--folds`), formed by the `--id` column.
+    pub folds: Option<usize>,
+    /// Seed of the fold assignment.
+    pub seed: u64,
+    /// Compare every specification with this one only (a name such as
+    /// `charlson_quan2011` or a specification such as `charlson:quan2011`).
+    pub reference: Option<String>,
+}
+
+impl Default for CompareOptions {
+    fn default() -> Self {
+        CompareOptions {
+            outcome: String::new(),
+            adjust: Vec::new(),
+            adjust_categorical: Vec::new(),
+            by: None,
+            min_expected: DEFAULT_MIN_EXPECTED,
+            overdispersion: None,
+            folds: None,
+            seed: DEFAULT_SEED,
+            reference: None,
+        }
+    }
+}
+
+/// The comparison as the text of the `--json` file (and of Python's
+/// `morbus.compare`).
+pub fn json_text(c: &Comparison) -> Result<String, Error> {
+    serde_json::to_string_pretty(c)
+        .map_err(|e| Error::Usage(format!("cannot encode the results as JSON: {e}")))
 }
 
 /// Every (list, weighting) of a catalogue, in catalogue order: the default
@@ -112,11 +160,53 @@ pub struct Comparison {
     /// Notes about the adjustment-only model (why it is missing).
     pub adjustment_notes: Vec<String>,
     pub indices: Vec<IndexResult>,
-    /// Every pair of indices (a before b in index order).
+    /// Every pair of indices (a before b in index order), or with
+    /// `--reference` the reference (a) against each other index (b).
     pub pairs: Vec<PairResult>,
+    /// How many pairs were compared, and how many all pairs would be.
+    pub pairs_compared: PairsCompared,
+    /// With `--by`.
+    pub providers: Option<Providers>,
+    /// With `--folds`.
+    pub cross_validation: Option<CrossValidation>,
     /// Notes that concern the whole run.
     pub notes: Vec<String>,
     pub caution: String,
+}
+
+/// The pairs compared.
+#[derive(Clone, Debug, Serialize)]
+pub struct PairsCompared {
+    /// The `--reference` index, or `null` for all pairs.
+    pub reference: Option<String>,
+    /// Pairs compared (DeLong tests made, at most).
+    pub tests: usize,
+    /// Pairs among the indices that could be compared: k(k − 1)/2.
+    pub tests_if_all_pairs: usize,
+}
+
+/// How the folds were formed.
+#[derive(Clone, Debug, Serialize)]
+pub struct CrossValidation {
+    pub folds: usize,
+    pub seed: u64,
+    /// The `--id` column whose units stay together, or `null` (each unit
+    /// alone).
+    pub grouped_by: Option<String>,
+    /// Analysed units per fold.
+    pub fold_units: Vec<usize>,
+}
+
+/// Likelihood-ratio test of a score added to the adjustment terms.
+#[derive(Clone, Debug, Serialize)]
+pub struct AddedValue {
+    /// 2 (log L with the score − log L without).
+    pub statistic: f64,
+    pub df: usize,
+    pub p_value: f64,
+    /// `adjustment` (the adjustment-only model) or `intercept` (no
+    /// adjustment terms).
+    pub versus: String,
 }
 
 /// Which units were analysed, and why the others were not.
@@ -178,6 +268,10 @@ pub struct IndexResult {
     pub roc: Vec<[f64; 2]>,
     /// Outcome on the score plus the adjustment terms.
     pub model: Option<Model>,
+    /// Likelihood-ratio test of the score over the adjustment terms alone.
+    pub added_value: Option<AddedValue>,
+    /// With `--folds`: cross-validated figures.
+    pub out_of_sample: Option<OutOfSample>,
     pub notes: Vec<String>,
 }
 
@@ -329,6 +423,35 @@ pub fn compare(
     let mut extra = vec![opts.outcome.clone()];
     extra.extend(opts.adjust.iter().cloned());
     extra.extend(opts.adjust_categorical.iter().cloned());
+    if let Some(k) = opts.folds {
+        if !(2..=MAX_FOLDS).contains(&k) {
+            return Err(Error::Usage(format!(
+                "--folds {k}: give between 2 and {MAX_FOLDS} folds"
+            )));
+        }
+    }
+    if !(opts.min_expected >= 0.0 && opts.min_expected.is_finite()) {
+        return Err(Error::Usage(format!(
+            "--min-expected {}: give a number of at least 0",
+            opts.min_expected
+        )));
+    }
+    if opts.by.is_none() && opts.overdispersion.is_some() {
+        return Err(Error::Usage(
+            "--overdispersion needs --by (providers to compare)".into(),
+        ));
+    }
+    let by_col = opts.by.as_ref().map(|b| {
+        extra.push(b.clone());
+        extra.len() - 1
+    });
+    let id_col = match (&opts.folds, &cfg.id) {
+        (Some(_), Some(id)) => {
+            extra.push(id.clone());
+            Some(extra.len() - 1)
+        }
+        _ => None,
+    };
     // The extract is held in memory anyway (the history); keeping its bytes
     // lets the outcome and adjustment columns be read in a second pass.
     let mut data = Vec::new();
@@ -400,6 +523,15 @@ pub fn compare(
     let mut levels: Vec<BTreeMap<Vec<u8>, u32>> = vec![BTreeMap::new(); ncat];
     let mut row_num = vec![0.0; nnum];
     let mut row_cat: Vec<&[u8]> = vec![&[]; ncat];
+    // Provider and fold group of each analysed unit, numbered by appearance.
+    let mut provider_ids: std::collections::HashMap<Vec<u8>, u32> = Default::default();
+    let mut provider_of: Vec<Option<u32>> = Vec::new();
+    let mut group_ids: std::collections::HashMap<Vec<u8>, u32> = Default::default();
+    let mut group_of: Vec<Option<u32>> = Vec::new();
+    let number = |map: &mut std::collections::HashMap<Vec<u8>, u32>, v: &[u8]| -> u32 {
+        let next = map.len() as u32;
+        *map.entry(v.to_vec()).or_insert(next)
+    };
     'units: for (e, ep) in hist.episodes.iter().enumerate() {
         let outcome = match values_of.get(e, 0) {
             Some((v, _)) if is_missing(v) => None,
@@ -457,6 +589,22 @@ pub fn compare(
         }
         kept.push(e);
         y.push(outcome);
+        if let Some(c) = by_col {
+            provider_of.push(match values_of.get(e, c) {
+                Some((v, _)) if !is_missing(v) => Some(number(&mut provider_ids, v)),
+                _ => None,
+            });
+            if provider_ids.len() > MAX_PROVIDERS {
+                return Err(Error::Usage(format!(
+                    "--by column '{}' has more than {MAX_PROVIDERS} distinct values; is it an \
+                     identifier rather than a provider?",
+                    opts.by.as_deref().unwrap_or_default()
+                )));
+            }
+        }
+        if let Some(c) = id_col {
+            group_of.push(values_of.get(e, c).map(|(v, _)| number(&mut group_ids, v)));
+        }
         for k in 0..nnum {
             numeric[k].push(row_num[k]);
         }
@@ -598,6 +746,14 @@ pub fn compare(
             }
         })
         .collect();
+    // Folds: every analysed unit's fold, from its --id group.
+    let fold_of: Option<Vec<u32>> = opts.folds.map(|kf| {
+        if group_of.len() != n {
+            group_of = vec![None; n];
+        }
+        folds::assign_folds(&group_of, kf, opts.seed)
+    });
+    let want_eta = opts.by.is_some();
     let mut tasks = Vec::new();
     if !design.is_empty() {
         tasks.push(Task::Baseline);
@@ -609,8 +765,16 @@ pub fn compare(
     tasks.extend(live.iter().map(|&i| Task::Ranks(i)));
     tasks.extend(live.iter().map(|&i| Task::Roc(i)));
     tasks.extend((0..k).map(Task::Summary));
+    // The folds' fits run after the full-data fits, which start them.
+    let mut fold_tasks = Vec::new();
+    if let Some(kf) = opts.folds {
+        for &i in &live {
+            fold_tasks.extend((0..kf).map(|f| Task::Fold(i, f as u32)));
+        }
+    }
+    let full_fits: std::sync::OnceLock<Vec<Option<Vec<f64>>>> = std::sync::OnceLock::new();
     let refs: Vec<&[f64]> = live.iter().map(|&i| scores[i].as_slice()).collect();
-    let outputs = par_map(&tasks, cfg.threads, |t| match *t {
+    let run_task = |t: &Task| match *t {
         Task::Baseline => Output::Model(stats::logistic(&y, &design, &adjust_names)),
         Task::Model(i) => {
             let mut x = Vec::with_capacity(1 + design.len());
@@ -618,15 +782,48 @@ pub fn compare(
             x.extend(design.iter().cloned());
             let mut terms = vec![names[i].clone()];
             terms.extend(adjust_names.iter().cloned());
-            Output::Model(stats::logistic(&y, &x, &terms))
+            let fit = stats::logistic(&y, &x, &terms);
+            let eta = match (&fit, want_eta) {
+                (Ok(f), true) => f.linear_predictor(&x).ok(),
+                _ => None,
+            };
+            Output::Fitted(fit, eta)
+        }
+        Task::Fold(i, f) => {
+            let folds = fold_of.as_deref().unwrap_or_default();
+            // Started from the full-data estimates (a near start saves
+            // Newton iterations; the maximum is the same).
+            let start = full_fits.get().and_then(|f| f[i].as_deref());
+            let train: Vec<usize> = (0..n).filter(|&u| folds[u] != f).collect();
+            let test: Vec<usize> = (0..n).filter(|&u| folds[u] == f).collect();
+            let pick =
+                |col: &[f64], at: &[usize]| -> Vec<f64> { at.iter().map(|&u| col[u]).collect() };
+            let mut x = Vec::with_capacity(1 + design.len());
+            x.push(pick(&scores[i], &train));
+            x.extend(design.iter().map(|c| pick(c, &train)));
+            let ty: Vec<bool> = train.iter().map(|&u| y[u]).collect();
+            let mut terms = vec![names[i].clone()];
+            terms.extend(adjust_names.iter().cloned());
+            let fit = stats::logistic_from(&ty, &x, &terms, start);
+            drop(x);
+            Output::Fold(fit.and_then(|fit| {
+                let mut t = Vec::with_capacity(1 + design.len());
+                t.push(pick(&scores[i], &test));
+                t.extend(design.iter().map(|c| pick(c, &test)));
+                let eta = fit.linear_predictor(&t)?;
+                Ok(test.into_iter().zip(eta).collect())
+            }))
         }
         Task::DeLong => Output::DeLong(stats::delong(&refs, &y)),
         Task::Ranks(i) => Output::Ranks(stats::average_ranks(&scores[i])),
         Task::Roc(i) => Output::Roc(stats::roc_curve(&scores[i], &y)),
         Task::Summary(i) => Output::Summary(stats::Summary::of(&scores[i])),
-    });
+    };
+    let outputs = par_map(&tasks, cfg.threads, run_task);
     let mut baseline = None;
     let mut models: Vec<Option<Result<stats::LogisticFit, StatsError>>> = vec![None; k];
+    let mut etas: Vec<Option<Vec<f64>>> = vec![None; k];
+    let mut fold_etas: Vec<Vec<FoldResultOf>> = vec![Vec::new(); k];
     let mut joint_result = None;
     let mut ranks: Vec<Option<Result<Vec<f64>, StatsError>>> = vec![None; k];
     let mut rocs: Vec<Option<RocResult>> = vec![None; k];
@@ -634,7 +831,10 @@ pub fn compare(
     for (t, o) in tasks.iter().zip(outputs) {
         match (*t, o) {
             (Task::Baseline, Output::Model(m)) => baseline = Some(m),
-            (Task::Model(i), Output::Model(m)) => models[i] = Some(m),
+            (Task::Model(i), Output::Fitted(m, e)) => {
+                models[i] = Some(m);
+                etas[i] = e;
+            }
             (Task::DeLong, Output::DeLong(d)) => joint_result = Some(d),
             (Task::Ranks(i), Output::Ranks(r)) => ranks[i] = Some(r),
             (Task::Roc(i), Output::Roc(r)) => rocs[i] = Some(r),
@@ -642,6 +842,24 @@ pub fn compare(
                 sums[i] = Some(r.map_err(|e| Error::data(None, e.to_string()))?)
             }
             _ => {}
+        }
+    }
+    if !fold_tasks.is_empty() {
+        let starts = models
+            .iter()
+            .map(|m| match m {
+                Some(Ok(f)) => Some(f.coefficients.iter().map(|c| c.estimate).collect()),
+                _ => None,
+            })
+            .collect();
+        let _ = full_fits.set(starts);
+        for (t, o) in fold_tasks
+            .iter()
+            .zip(par_map(&fold_tasks, cfg.threads, run_task))
+        {
+            if let (Task::Fold(i, _), Output::Fold(r)) = (*t, o) {
+                fold_etas[i].push(r);
+            }
         }
     }
 
@@ -717,6 +935,8 @@ pub fn compare(
             c_statistic: None,
             roc,
             model: None,
+            added_value: None,
+            out_of_sample: None,
             notes: inotes,
         });
     }
@@ -766,23 +986,167 @@ pub fn compare(
     // Models.
     let mut adjustment_model = None;
     let mut adjustment_notes = Vec::new();
+    let mut base_ll: Option<(f64, &str)> = None;
     match baseline {
-        Some(Ok(f)) => adjustment_model = Some(model_of(&f)),
+        Some(Ok(f)) => {
+            base_ll = Some((f.log_likelihood, "adjustment"));
+            adjustment_model = Some(model_of(&f))
+        }
         Some(Err(e)) => adjustment_notes.push(model_note(&e)),
         None => {}
     }
+    let mut fitted: Vec<bool> = vec![false; k];
     for (i, m) in models.into_iter().enumerate() {
         match m {
-            Some(Ok(f)) => indices[i].model = Some(model_of(&f)),
+            Some(Ok(f)) => {
+                fitted[i] = true;
+                // Without adjustment terms the baseline is the intercept alone.
+                let base = if design.is_empty() {
+                    Some((f.null_log_likelihood, "intercept"))
+                } else {
+                    base_ll
+                };
+                if let Some((ll0, versus)) = base {
+                    let statistic = (2.0 * (f.log_likelihood - ll0)).max(0.0);
+                    if let Ok(p) = stats::chi_square_sf(statistic, 1.0) {
+                        indices[i].added_value = Some(AddedValue {
+                            statistic,
+                            df: 1,
+                            p_value: p,
+                            versus: versus.into(),
+                        });
+                    }
+                }
+                indices[i].model = Some(model_of(&f))
+            }
             Some(Err(e)) => indices[i].notes.push(model_note(&e)),
             None => {}
         }
     }
 
+    // Out-of-sample figures.
+    let cross_validation = match (&fold_of, opts.folds) {
+        (Some(fo), Some(kf)) => {
+            for (i, results) in fold_etas.into_iter().enumerate() {
+                if results.is_empty() {
+                    continue;
+                }
+                let mut eta = vec![0.0; n];
+                let mut failed = None;
+                for r in results {
+                    match r {
+                        Ok(v) => v.into_iter().for_each(|(u, e)| eta[u] = e),
+                        Err(e) => failed = Some(e),
+                    }
+                }
+                match failed {
+                    Some(e) => indices[i].notes.push(format!(
+                        "no cross-validated figures: a fold's model failed: {e}"
+                    )),
+                    None => indices[i].out_of_sample = Some(folds::evaluate(&y, &eta, fo, kf)),
+                }
+            }
+            let mut fold_units = vec![0usize; kf];
+            for &f in fo {
+                fold_units[f as usize] += 1;
+            }
+            if fold_units.contains(&0) {
+                notes.push(format!(
+                    "some of the {kf} folds are empty: there are fewer --id groups than folds"
+                ));
+            }
+            if cfg.id.is_none() {
+                notes.push(
+                    "--folds without --id: each unit is dealt to a fold on its own, so a \
+                     patient's episodes may be split between folds"
+                        .into(),
+                );
+            }
+            Some(CrossValidation {
+                folds: kf,
+                seed: opts.seed,
+                grouped_by: cfg.id.clone(),
+                fold_units,
+            })
+        }
+        _ => None,
+    };
+
+    // Which pairs: all, or the reference against each other index.
+    let reference = match &opts.reference {
+        None => None,
+        Some(r) => {
+            let r = r.trim();
+            match indices.iter().position(|ix| ix.name == r || ix.spec == r) {
+                Some(i) => Some(i),
+                None => {
+                    return Err(Error::Usage(format!(
+                        "--reference '{r}' is not among the indices compared: {}",
+                        indices
+                            .iter()
+                            .map(|ix| ix.name.as_str())
+                            .collect::<Vec<_>>()
+                            .join(", ")
+                    )))
+                }
+            }
+        }
+    };
+    let pair_list: Vec<(usize, usize)> = match reference {
+        None => (0..k)
+            .flat_map(|a| (a + 1..k).map(move |b| (a, b)))
+            .collect(),
+        Some(r) => (0..k).filter(|&b| b != r).map(|b| (r, b)).collect(),
+    };
+    let pairs_compared = PairsCompared {
+        reference: reference.map(|r| indices[r].name.clone()),
+        tests: pair_list
+            .iter()
+            .filter(|&&(a, b)| !constant[a] && !constant[b])
+            .count(),
+        tests_if_all_pairs: live.len() * live.len().saturating_sub(1) / 2,
+    };
+
+    // Providers.
+    let providers = opts.by.as_ref().map(|col| {
+        // Names in byte order.
+        let mut named: Vec<(Vec<u8>, u32)> = provider_ids.into_iter().collect();
+        named.sort();
+        let mut remap = vec![0u32; named.len()];
+        for (pos, (_, id)) in named.iter().enumerate() {
+            remap[*id as usize] = pos as u32;
+        }
+        let of_unit: Vec<Option<u32>> = provider_of
+            .iter()
+            .map(|p| p.map(|p| remap[p as usize]))
+            .collect();
+        let fitted_probs: Vec<(String, Option<Vec<f64>>)> = (0..k)
+            .map(|i| {
+                let probs = etas[i]
+                    .take()
+                    .filter(|_| fitted[i])
+                    .map(|e| e.into_iter().map(|v| 1.0 / (1.0 + (-v).exp())).collect());
+                (indices[i].name.clone(), probs)
+            })
+            .collect();
+        providers::providers(
+            &providers::ProviderInput {
+                column: col.clone(),
+                names: named.into_iter().map(|(v, _)| lossy(&v)).collect(),
+                of_unit: &of_unit,
+                min_expected: opts.min_expected,
+                overdispersion: opts.overdispersion,
+            },
+            &y,
+            &fitted_probs,
+            &pair_list,
+        )
+    });
+
     // Pairs.
     let mut pairs = Vec::new();
-    for a in 0..k {
-        for b in a + 1..k {
+    for &(a, b) in &pair_list {
+        {
             let mut p = PairResult {
                 a: indices[a].name.clone(),
                 b: indices[b].name.clone(),
@@ -862,6 +1226,9 @@ pub fn compare(
             adjustment_notes,
             indices,
             pairs,
+            pairs_compared,
+            providers,
+            cross_validation,
             notes,
             caution: CAUTION.to_string(),
         },
@@ -870,6 +1237,8 @@ pub fn compare(
 }
 
 type RocResult = Result<Vec<(f64, f64)>, StatsError>;
+/// Out-of-fold linear predictors of one fold: (unit, η).
+type FoldResultOf = Result<Vec<(usize, f64)>, StatsError>;
 
 /// One piece of the numerics.
 #[derive(Clone, Copy)]
@@ -877,6 +1246,8 @@ enum Task {
     /// The model on the adjustment terms alone.
     Baseline,
     Model(usize),
+    /// Index i's model without fold f, predicting fold f.
+    Fold(usize, u32),
     DeLong,
     /// Average ranks of a score (for Spearman's ρ).
     Ranks(usize),
@@ -886,6 +1257,10 @@ enum Task {
 
 enum Output {
     Model(Result<stats::LogisticFit, StatsError>),
+    /// A model with the linear predictor of every unit (when asked).
+    Fitted(Result<stats::LogisticFit, StatsError>, Option<Vec<f64>>),
+    /// Out-of-fold linear predictors: (unit, η).
+    Fold(Result<Vec<(usize, f64)>, StatsError>),
     DeLong(Result<stats::DeLongResult, StatsError>),
     Ranks(Result<Vec<f64>, StatsError>),
     Roc(RocResult),

@@ -6,19 +6,32 @@ use std::fmt::Write as _;
 use super::table::{fixed, p_value, pct};
 use super::{fmt_count, fmt_num, Comparison, IndexResult, Model};
 
-/// Series colours, chosen for contrast on white and against each other.
+/// Series colours: eight hues that stay apart under the common forms of
+/// colour-vision deficiency (blue against orange rather than red against
+/// green; light and dark members alternate), each dark enough on white.
 const PALETTE: &[&str] = &[
-    "#1b6f8a", "#c8553d", "#5b8c2a", "#7b4b94", "#c58f12", "#40505f", "#b8477a", "#2e8b6e",
+    "#2458a6", "#de7c00", "#1a1a1a", "#b43c8c", "#3f9fd6", "#8a6200", "#6b6b6b", "#1f8f72",
 ];
-/// Dash patterns used once the palette has gone round.
-const DASHES: &[&str] = &["", "6 3", "2 3", "8 3 2 3"];
+/// Line styles, varied with the colour (3 styles against 8 colours: 24
+/// distinct pairs), so that no two of the first 24 series look alike even
+/// without colour.
+const DASHES: &[&str] = &["", "7 3", "2 2.5"];
 
 fn colour(i: usize) -> &'static str {
     PALETTE[i % PALETTE.len()]
 }
 
 fn dash(i: usize) -> &'static str {
-    DASHES[(i / PALETTE.len()) % DASHES.len()]
+    DASHES[i % DASHES.len()]
+}
+
+/// A short line sample in series i's colour and style, for legends.
+fn line_key(i: usize) -> String {
+    format!(
+        r#"<svg class="linekey" width="30" height="10" viewBox="0 0 30 10" aria-hidden="true"><line x1="1" y1="5" x2="29" y2="5" stroke="{}" stroke-width="2.5" stroke-dasharray="{}"/></svg>"#,
+        colour(i),
+        dash(i)
+    )
 }
 
 /// Escapes text for HTML content and attribute values.
@@ -62,6 +75,13 @@ th:first-child, td:first-child, td.l, th.l { text-align: left; }
 td.sub { color: var(--muted); }
 tr.first td { border-top: 2px solid #c3c9d1; }
 .key { display:inline-block; width:12px; height:12px; border-radius:2px; margin-right:6px; vertical-align:-1px; }
+.linekey { margin-right:6px; vertical-align:1px; }
+td { white-space: nowrap; }
+td.l { white-space: normal; }
+@media (max-width: 900px) { main { padding: 20px 14px 36px; } table { font-size: 12.5px; } th, td { padding: 3px 6px; } }
+.scroll { max-width:100%; overflow-x:auto; }
+.panels { display:grid; grid-template-columns: repeat(auto-fill, minmax(300px, 1fr)); gap: 14px 18px; }
+.panels figure div.t { font-weight:600; font-size:13px; }
 .row { display:flex; flex-wrap:nowrap; gap: 22px; align-items:flex-start; }
 .row > figure { flex: none; }
 .row > div { flex: 1 1 auto; min-width: 0; }
@@ -131,14 +151,6 @@ fn roc_svg(c: &Comparison) -> String {
         x(1.0),
         y(1.0)
     );
-    let _ = write!(
-        s,
-        r#"<text class="tick" x="{:.1}" y="{:.1}" text-anchor="middle" transform="rotate(-45 {:.1} {:.1})">chance (c = 0.5)</text>"#,
-        x(0.72),
-        y(0.72) + 20.0,
-        x(0.72),
-        y(0.72) + 20.0
-    );
     for (i, ix) in c.indices.iter().enumerate() {
         if ix.roc.is_empty() {
             continue;
@@ -167,6 +179,16 @@ fn roc_svg(c: &Comparison) -> String {
             esc(&ix.name)
         );
     }
+    // The chance label last, below the diagonal and on a white halo, so that
+    // no curve is drawn over it.
+    let _ = write!(
+        s,
+        r##"<text class="tick" x="{:.1}" y="{:.1}" text-anchor="middle" transform="rotate(-45 {:.1} {:.1})" stroke="#fff" stroke-width="4" paint-order="stroke" stroke-linejoin="round">chance (c = 0.5)</text>"##,
+        x(0.8),
+        y(0.8) + 14.0,
+        x(0.8),
+        y(0.8) + 14.0
+    );
     let _ = write!(
         s,
         r#"<text class="tick" x="{:.1}" y="{:.1}" text-anchor="middle">false-positive rate (1 − specificity)</text>"#,
@@ -242,8 +264,11 @@ fn histogram_svg(i: usize, ix: &IndexResult) -> String {
     // x labels: about six, at bin starts (bin centres for one-point bins).
     let unit = bins.first().is_some_and(|b| b.to - b.from == 1.0);
     let every = (bins.len() as f64 / 6.0).ceil().max(1.0) as usize;
+    // Labelled bins are counted from the bin starting at 0, when there is
+    // one, so that 0 always has its tick.
+    let zero = bins.iter().position(|b| b.from == 0.0).unwrap_or(0);
     for (j, b) in bins.iter().enumerate() {
-        if j % every != 0 {
+        if j.abs_diff(zero) % every != 0 {
             continue;
         }
         let xx = if unit {
@@ -475,7 +500,7 @@ pub fn html_report(c: &Comparison) -> String {
     h.push_str("<h2>Discrimination</h2><div class=\"row\"><figure>");
     h.push_str(&roc_svg(c));
     h.push_str("<figcaption>Empirical ROC curve of each score; dashed grey: chance.</figcaption></figure><div>");
-    h.push_str("<table><thead><tr><th>index</th><th>c-statistic</th><th>95% CI</th><th>model c</th><th>model AIC</th></tr></thead><tbody>");
+    h.push_str("<table><thead><tr><th>index</th><th>c-statistic</th><th>95% CI</th><th>model c</th><th>model AIC</th><th>added value, χ² (1 df)</th></tr></thead><tbody>");
     for (i, ix) in c.indices.iter().enumerate() {
         let (cs, ci) = match &ix.c_statistic {
             Some(s) => (
@@ -489,25 +514,49 @@ pub fn html_report(c: &Comparison) -> String {
         let (mc, aic) = ix.model.as_ref().map_or(("–".into(), "–".into()), |m| {
             (fixed(m.c_statistic, 3), fixed(m.aic, 1))
         });
+        let lr = ix.added_value.as_ref().map_or("–".into(), |a| {
+            format!("{} (p {})", fixed(a.statistic, 1), p_value(a.p_value))
+        });
         let _ = write!(
             h,
-            "<tr><td><span class=\"key\" style=\"background:{}\"></span>{}</td><td>{cs}</td><td>{ci}</td><td>{mc}</td><td>{aic}</td></tr>",
-            colour(i),
+            "<tr><td>{}{}</td><td>{cs}</td><td>{ci}</td><td>{mc}</td><td>{aic}</td><td>{lr}</td></tr>",
+            line_key(i),
             esc(&ix.name)
         );
     }
     if let Some(m) = &c.adjustment_model {
         let _ = write!(
             h,
-            "<tr><td class=\"sub\">adjustment terms alone</td><td>–</td><td>–</td><td>{}</td><td>{}</td></tr>",
+            "<tr><td class=\"sub\">adjustment terms alone</td><td>–</td><td>–</td><td>{}</td><td>{}</td><td>–</td></tr>",
             fixed(m.c_statistic, 3),
             fixed(m.aic, 1)
         );
     }
-    h.push_str("</tbody></table><p class=\"lede\" style=\"font-size:13px\">95% confidence intervals by the method of DeLong et al. (1988). The c-statistic is the chance that a unit with the outcome scores higher than one without (ties count half). The model columns refer to the logistic model of the outcome on the score and the adjustment terms; a lower AIC is a better fit for the same units.</p></div></div>");
+    h.push_str("</tbody></table><p class=\"lede\" style=\"font-size:13px\">95% confidence intervals by the method of DeLong et al. (1988). The c-statistic is the chance that a unit with the outcome scores higher than one without (ties count half). The model columns refer to the logistic model of the outcome on the score and the adjustment terms; a lower AIC is a better fit for the same units. Added value: likelihood-ratio test of the model with the score against the model without it (the adjustment terms alone, or the intercept).</p></div></div>");
+
+    if let Some(cv) = &c.cross_validation {
+        out_of_sample_html(c, cv, &mut h);
+    }
 
     if !c.pairs.is_empty() {
-        h.push_str("<h3>Pairs of indices</h3><table><thead><tr><th>a</th><th class=\"l\">b</th><th>c(a) − c(b)</th><th>95% CI</th><th>p (DeLong)</th><th>Spearman ρ</th></tr></thead><tbody>");
+        let pc = &c.pairs_compared;
+        let _ = write!(
+            h,
+            "<h3>Pairs of indices</h3><p class=\"lede\" style=\"font-size:13px\">{}</p>",
+            match &pc.reference {
+                Some(r) => format!(
+                    "Each index against the reference <code>{}</code>: {} tests (all pairs would be {}).",
+                    esc(r),
+                    pc.tests,
+                    pc.tests_if_all_pairs
+                ),
+                None => format!(
+                    "All pairs: {} tests; p-values are not adjusted for their number.",
+                    pc.tests
+                ),
+            }
+        );
+        h.push_str("<table><thead><tr><th>a</th><th class=\"l\">b</th><th>c(a) − c(b)</th><th>95% CI</th><th>p (DeLong)</th><th>Spearman ρ</th></tr></thead><tbody>");
         for p in &c.pairs {
             let (d, ci, pv) =
                 p.delong
@@ -528,6 +577,10 @@ pub fn html_report(c: &Comparison) -> String {
             );
         }
         h.push_str("</tbody></table>");
+    }
+
+    if let Some(p) = &c.providers {
+        providers_html(p, &mut h);
     }
 
     // Models.
@@ -553,17 +606,18 @@ pub fn html_report(c: &Comparison) -> String {
     h.push_str("<h2>Score distributions</h2><table><thead><tr><th>index</th><th>mean</th><th>SD</th><th>min</th><th>Q1</th><th>median</th><th>Q3</th><th>max</th><th>score 0</th><th>distinct</th></tr></thead><tbody>");
     for ix in &c.indices {
         let d = &ix.distribution;
+        let qs = super::table::quantiles(d);
         let _ = write!(
             h,
             "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
             esc(&ix.name),
             fixed(d.mean, 2),
             d.sd.map_or("–".into(), |s| fixed(s, 2)),
-            fmt_num(d.min),
-            fmt_num(d.q1),
-            fmt_num(d.median),
-            fmt_num(d.q3),
-            fmt_num(d.max),
+            qs[0],
+            qs[1],
+            qs[2],
+            qs[3],
+            qs[4],
             pct(d.zero_share),
             d.distinct
         );
@@ -572,7 +626,7 @@ pub fn html_report(c: &Comparison) -> String {
     for (i, ix) in c.indices.iter().enumerate() {
         let _ = write!(
             h,
-            "<figure><div class=\"title\" style=\"font-weight:600;font-size:14px\"><span class=\"key\" style=\"background:{}\"></span>{}</div>{}<figcaption>share of units by score; mean {}, {} score 0</figcaption></figure>",
+            "<figure><div class=\"title\" style=\"font-weight:600;font-size:14px\"><span class=\"key\" style=\"background:{}\"></span>{}</div><div class=\"scroll\">{}</div><figcaption>share of units by score; mean {}, {} score 0</figcaption></figure>",
             colour(i),
             esc(&ix.name),
             histogram_svg(i, ix),
@@ -601,7 +655,9 @@ pub fn html_report(c: &Comparison) -> String {
         let present = ix.prevalence.len() - absent;
         if present > 0 {
             h.push_str("<figure>");
+            h.push_str("<div class=\"scroll\">");
             h.push_str(&prevalence_svg(ix, colour(i)));
+            h.push_str("</div>");
             if present > MAX_BARS {
                 let _ = write!(
                     h,
@@ -639,6 +695,14 @@ pub fn html_report(c: &Comparison) -> String {
             notes.push(format!("{} vs {}: {n}", p.a, p.b));
         }
     }
+    for ix in &c.indices {
+        for n in ix.out_of_sample.iter().flat_map(|o| &o.notes) {
+            notes.push(format!("{} (out of sample): {n}", ix.name));
+        }
+    }
+    if let Some(p) = &c.providers {
+        notes.extend(p.notes.iter().map(|n| format!("providers: {n}")));
+    }
     if !notes.is_empty() {
         h.push_str("<h2>Notes</h2><ul class=\"notes\">");
         for n in notes {
@@ -648,7 +712,419 @@ pub fn html_report(c: &Comparison) -> String {
     }
     h.push_str("<footer>Methods: c-statistic as the Mann–Whitney probability; confidence intervals and tests of correlated c-statistics by DeLong, DeLong &amp; Clarke-Pearson, Biometrics 1988;44:837-45; logistic regression by maximum likelihood (Newton–Raphson) with Wald standard errors; Spearman's rank correlation with average ranks for ties; quartiles by linear interpolation (Hyndman &amp; Fan type 7). Every figure was computed on the analysed units listed above. This page loads nothing from the network.</footer>");
     h.push_str("</main></body></html>\n");
-    h
+    // Every table scrolls sideways inside the page rather than being cut.
+    h.replace("<table>", "<div class=\"scroll\"><table>")
+        .replace("</table>", "</table></div>")
+}
+
+/// Axis ticks: round values from 0 to at least `max`.
+fn ticks(max: f64) -> Vec<f64> {
+    let step = super::nice_width(max / 4.0);
+    let mut v = Vec::new();
+    let mut t = 0.0;
+    while t <= max * 1.0001 + 1e-12 {
+        v.push(super::tidy(t));
+        t += step;
+    }
+    v
+}
+
+/// Axes of a small panel: gridlines, tick labels, titles.
+#[allow(clippy::too_many_arguments)]
+fn panel_axes(
+    s: &mut String,
+    (left, top, pw, ph): (f64, f64, f64, f64),
+    xmax: f64,
+    ymax: f64,
+    xlabel: &str,
+    ylabel: &str,
+    yfmt: &dyn Fn(f64) -> String,
+    xfmt: &dyn Fn(f64) -> String,
+) {
+    for t in ticks(ymax) {
+        let yy = top + ph - t / ymax * ph;
+        let _ = write!(
+            s,
+            r#"<line class="gridline" x1="{left}" y1="{yy:.1}" x2="{:.1}" y2="{yy:.1}"/><text class="tick" x="{:.1}" y="{:.1}" text-anchor="end">{}</text>"#,
+            left + pw,
+            left - 4.0,
+            yy + 4.0,
+            yfmt(t)
+        );
+    }
+    for t in ticks(xmax) {
+        let xx = left + t / xmax * pw;
+        let _ = write!(
+            s,
+            r#"<line class="gridline" x1="{xx:.1}" y1="{top}" x2="{xx:.1}" y2="{:.1}"/><text class="tick" x="{xx:.1}" y="{:.1}" text-anchor="middle">{}</text>"#,
+            top + ph,
+            top + ph + 14.0,
+            xfmt(t)
+        );
+    }
+    let _ = write!(
+        s,
+        r#"<rect x="{left}" y="{top}" width="{pw}" height="{ph}" fill="none" class="axis"/><text class="tick" x="{:.1}" y="{:.1}" text-anchor="middle">{}</text><text class="tick" x="12" y="{:.1}" text-anchor="middle" transform="rotate(-90 12 {:.1})">{}</text>"#,
+        left + pw / 2.0,
+        top + ph + 30.0,
+        esc(xlabel),
+        top + ph / 2.0,
+        top + ph / 2.0,
+        esc(ylabel)
+    );
+}
+
+/// One funnel panel: the providers' ratios against their expected counts,
+/// with the 95% (dashed) and 99.8% (solid) limits; providers outside the
+/// 99.8% limits are labelled. Axes are shared between panels.
+fn funnel_svg(p: &super::Providers, sp: &super::ProviderSpec, xmax: f64, ymax: f64) -> String {
+    let (w, h, left, top, right, bottom) = (320.0, 240.0, 44.0, 10.0, 12.0, 40.0);
+    let (pw, ph) = (w - left - right, h - top - bottom);
+    let x = |v: f64| left + (v / xmax).min(1.0) * pw;
+    let y = |v: f64| top + ph - (v / ymax).clamp(0.0, 1.0) * ph;
+    let mut s = String::new();
+    let _ = write!(
+        s,
+        r#"<svg xmlns="http://www.w3.org/2000/svg" width="{w}" height="{h}" viewBox="0 0 {w} {h}" role="img" aria-label="funnel plot, {}">"#,
+        esc(&sp.index)
+    );
+    panel_axes(
+        &mut s,
+        (left, top, pw, ph),
+        xmax,
+        ymax,
+        "expected events (E)",
+        "observed / expected",
+        &|t| fmt_num(t),
+        &|t| fmt_num(t),
+    );
+    let _ = write!(
+        s,
+        r##"<line x1="{left}" y1="{:.1}" x2="{:.1}" y2="{:.1}" stroke="#9aa3ae" stroke-width="1"/>"##,
+        y(1.0),
+        left + pw,
+        y(1.0)
+    );
+    for (k, style) in [(0usize, "5 3"), (1, "")] {
+        for side in 0..2 {
+            let mut d = String::new();
+            for f in &sp.funnel {
+                if f.expected > xmax {
+                    break;
+                }
+                let v = if k == 0 {
+                    f.limits95[side]
+                } else {
+                    f.limits998[side]
+                };
+                let _ = write!(
+                    d,
+                    "{}{:.1},{:.1}",
+                    if d.is_empty() { "M" } else { "L" },
+                    x(f.expected),
+                    y(v)
+                );
+            }
+            let _ = write!(
+                s,
+                r##"<path d="{d}" fill="none" stroke="#5d6675" stroke-width="1.3" stroke-dasharray="{style}"/>"##
+            );
+        }
+    }
+    for (k, r) in sp.providers.iter().enumerate() {
+        let Some(ratio) = r.ratio else { continue };
+        let judged = r.position998 != super::Position::NotJudged;
+        let outside = matches!(
+            r.position998,
+            super::Position::Over | super::Position::Under
+        );
+        let fill = match r.position998 {
+            super::Position::Over => "#de7c00",
+            super::Position::Under => "#2458a6",
+            super::Position::Inside => "#1a1a1a",
+            super::Position::NotJudged => "none",
+        };
+        let _ = write!(
+            s,
+            r##"<circle cx="{:.1}" cy="{:.1}" r="3.2" fill="{fill}" stroke="{}" stroke-width="1"><title>{}: O {} E {} O/E {} ({})</title></circle>"##,
+            x(r.expected),
+            y(ratio),
+            if judged { "#fff" } else { "#6b6b6b" },
+            esc(&p.names[k]),
+            p.observed[k],
+            fixed(r.expected, 1),
+            fixed(ratio, 2),
+            r.position998.word()
+        );
+        if outside {
+            let _ = write!(
+                s,
+                r##"<text class="tick" x="{:.1}" y="{:.1}" stroke="#fff" stroke-width="3" paint-order="stroke">{}</text>"##,
+                x(r.expected) + 5.0,
+                y(ratio) - 4.0,
+                esc(&p.names[k])
+            );
+        }
+    }
+    s.push_str("</svg>");
+    s
+}
+
+/// One calibration panel: observed share against mean predicted risk by
+/// tenths of predicted risk, with the line of perfect calibration.
+fn calibration_svg(ix: &IndexResult, i: usize, max: f64) -> String {
+    let (w, h, left, top, right, bottom) = (300.0, 240.0, 46.0, 10.0, 12.0, 40.0);
+    let (pw, ph) = (w - left - right, h - top - bottom);
+    let x = |v: f64| left + (v / max).min(1.0) * pw;
+    let y = |v: f64| top + ph - (v / max).min(1.0) * ph;
+    let mut s = String::new();
+    let _ = write!(
+        s,
+        r#"<svg xmlns="http://www.w3.org/2000/svg" width="{w}" height="{h}" viewBox="0 0 {w} {h}" role="img" aria-label="calibration, {}">"#,
+        esc(&ix.name)
+    );
+    panel_axes(
+        &mut s,
+        (left, top, pw, ph),
+        max,
+        max,
+        "mean predicted risk",
+        "observed share",
+        &pct_short,
+        &pct_short,
+    );
+    let _ = write!(
+        s,
+        r##"<line x1="{:.1}" y1="{:.1}" x2="{:.1}" y2="{:.1}" stroke="#9aa3ae" stroke-width="1.2" stroke-dasharray="5 4"/>"##,
+        x(0.0),
+        y(0.0),
+        x(max),
+        y(max)
+    );
+    if let Some(o) = &ix.out_of_sample {
+        let mut d = String::new();
+        for g in &o.calibration {
+            let _ = write!(
+                d,
+                "{}{:.1},{:.1}",
+                if d.is_empty() { "M" } else { "L" },
+                x(g.mean_predicted),
+                y(g.observed_share)
+            );
+        }
+        let _ = write!(
+            s,
+            r#"<path d="{d}" fill="none" stroke="{}" stroke-width="1.8" stroke-dasharray="{}"/>"#,
+            colour(i),
+            dash(i)
+        );
+        for g in &o.calibration {
+            let _ = write!(
+                s,
+                r##"<circle cx="{:.1}" cy="{:.1}" r="3" fill="{}" stroke="#fff"><title>{} units: predicted {}, observed {}</title></circle>"##,
+                x(g.mean_predicted),
+                y(g.observed_share),
+                colour(i),
+                fmt_count(g.units as u64),
+                pct(g.mean_predicted),
+                pct(g.observed_share)
+            );
+        }
+    }
+    s.push_str("</svg>");
+    s
+}
+
+fn out_of_sample_html(c: &Comparison, cv: &super::CrossValidation, h: &mut String) {
+    let _ = write!(
+        h,
+        "<h3>Out of sample</h3><p class=\"lede\" style=\"font-size:13px\">{} folds {} (seed {}; units per fold {}). Each index's model is fitted without one fold and predicts it; the figures come from the pooled out-of-fold predictions. The c-statistics above are in-sample.</p>",
+        cv.folds,
+        match &cv.grouped_by {
+            Some(g) => format!("formed by <code>{}</code> (its units stay in one fold)", esc(g)),
+            None => "of single units".into(),
+        },
+        cv.seed,
+        cv.fold_units
+            .iter()
+            .map(|&u| fmt_count(u as u64))
+            .collect::<Vec<_>>()
+            .join(", ")
+    );
+    h.push_str("<table><thead><tr><th>index</th><th>c (pooled)</th><th>c (mean of folds)</th><th>calibration intercept</th><th>calibration slope</th><th>Brier score</th></tr></thead><tbody>");
+    let opt = |v: Option<f64>, d: usize| v.map_or("–".to_string(), |v| fixed(v, d));
+    for (i, ix) in c.indices.iter().enumerate() {
+        let Some(o) = &ix.out_of_sample else { continue };
+        let _ = write!(
+            h,
+            "<tr><td>{}{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            line_key(i),
+            esc(&ix.name),
+            opt(o.c_statistic, 3),
+            opt(o.c_statistic_mean_of_folds, 3),
+            opt(o.calibration_intercept, 3),
+            opt(o.calibration_slope, 3),
+            fixed(o.brier, 4)
+        );
+    }
+    h.push_str("</tbody></table><p class=\"lede\" style=\"font-size:13px\">Calibration intercept: the correction to the log odds with the predictions as an offset (0 is calibrated in the large); calibration slope: the coefficient of the predicted log odds (1 is ideal, below 1 predictions too extreme); Cox, Biometrika 1958;45:562-5.</p>");
+    let max = c
+        .indices
+        .iter()
+        .filter_map(|ix| ix.out_of_sample.as_ref())
+        .flat_map(|o| o.calibration.iter())
+        .map(|g| g.mean_predicted.max(g.observed_share))
+        .fold(0.0f64, f64::max)
+        .max(1e-3)
+        * 1.05;
+    let max = super::nice_width(max / 4.0) * (max / super::nice_width(max / 4.0)).ceil();
+    h.push_str("<div class=\"panels\">");
+    for (i, ix) in c.indices.iter().enumerate() {
+        if ix.out_of_sample.is_none() {
+            continue;
+        }
+        let _ = write!(
+            h,
+            "<figure><div class=\"t\">{}{}</div>{}<figcaption>tenths of predicted risk; dashed: perfect calibration</figcaption></figure>",
+            line_key(i),
+            esc(&ix.name),
+            calibration_svg(ix, i, max)
+        );
+    }
+    h.push_str("</div>");
+}
+
+fn providers_html(p: &super::Providers, h: &mut String) {
+    let _ = write!(
+        h,
+        "<h2>Providers by <code>{}</code></h2><p class=\"lede\">Observed events (O) against the events expected (E) from each index's model, per provider; O/E with its exact Poisson 95% interval (Garwood, Biometrika 1936;28:437-42). Funnel limits at 95% (dashed) and 99.8% (solid) {}. Providers with E below {} are drawn hollow and not judged. Labelled: providers outside the 99.8% limits (orange over, blue under).</p>",
+        esc(&p.column),
+        match p.overdispersion {
+            None => "from the Poisson distribution with Spiegelhalter's interpolation (Stat Med 2005;24:1185-1202)".to_string(),
+            Some(m) => format!(
+                "allowing for over-dispersion, {} (Spiegelhalter, Qual Saf Health Care 2005;14:347-51), where it was found",
+                match m {
+                    super::Overdispersion::Multiplicative => "multiplicative",
+                    super::Overdispersion::Additive => "additive, with a between-provider variance",
+                }
+            ),
+        },
+        fmt_num(p.min_expected)
+    );
+    let xmax = p
+        .specifications
+        .iter()
+        .flat_map(|s| s.providers.iter().map(|r| r.expected))
+        .fold(0.0f64, f64::max)
+        * 1.08;
+    let judged_ratios = p.specifications.iter().flat_map(|s| {
+        s.providers
+            .iter()
+            .filter(|r| r.position998 != super::Position::NotJudged)
+            .filter_map(|r| r.ratio)
+    });
+    let top_ratio = judged_ratios.fold(1.5f64, f64::max) * 1.1;
+    let ymax = super::nice_width(top_ratio / 4.0)
+        * (top_ratio / super::nice_width(top_ratio / 4.0)).ceil();
+    if xmax > 0.0 {
+        h.push_str("<div class=\"panels\">");
+        for sp in &p.specifications {
+            let [under, inside, over, unjudged] = sp.positions_998;
+            let disp = sp.dispersion.as_ref().map_or(String::new(), |d| {
+                format!(
+                    "; φ {}, τ² {}{}",
+                    fixed(d.phi, 2),
+                    fixed(d.tau2, 4),
+                    if d.widened {
+                        ", limits widened"
+                    } else {
+                        ", limits not widened"
+                    }
+                )
+            });
+            let _ = write!(
+                h,
+                "<figure><div class=\"t\">{}</div>{}<figcaption>at 99.8%: {under} under, {inside} inside, {over} over, {unjudged} not judged{}</figcaption></figure>",
+                esc(&sp.index),
+                funnel_svg(p, sp, xmax, ymax),
+                esc(&disp)
+            );
+        }
+        h.push_str("</div>");
+    }
+    if !p.agreement.is_empty() {
+        h.push_str("<h3>Agreement between indices</h3><table><thead><tr><th>a</th><th class=\"l\">b</th><th>Spearman ρ of O/E</th><th>99.8% position differs</th><th class=\"l\">largest change of O/E</th></tr></thead><tbody>");
+        for a in &p.agreement {
+            let _ = write!(
+                h,
+                "<tr><td>{}</td><td class=\"l\">{}</td><td>{}</td><td>{} of {}</td><td class=\"l\">{}</td></tr>",
+                esc(&a.a),
+                esc(&a.b),
+                a.spearman.map_or("–".into(), |r| fixed(r, 3)),
+                a.position_changes,
+                a.judged,
+                a.largest_change.as_ref().map_or("–".into(), |l| format!(
+                    "{}: {} → {}",
+                    esc(&l.provider),
+                    fixed(l.ratio_a, 2),
+                    fixed(l.ratio_b, 2)
+                ))
+            );
+        }
+        h.push_str("</tbody></table>");
+    }
+    if p.changes.is_empty() {
+        h.push_str("<p>No judged provider changes its 99.8% position with the index chosen.</p>");
+    } else {
+        let _ = write!(
+            h,
+            "<h3>Providers whose position depends on the index ({})</h3><table><thead><tr><th>provider</th>",
+            p.changes.len()
+        );
+        for sp in &p.specifications {
+            let _ = write!(h, "<th class=\"l\">{}</th>", esc(&sp.index));
+        }
+        h.push_str("</tr></thead><tbody>");
+        for ch in &p.changes {
+            let _ = write!(h, "<tr><td>{}</td>", esc(&ch.provider));
+            for (pos, r) in ch.positions.iter().zip(&ch.ratios) {
+                let _ = write!(
+                    h,
+                    "<td class=\"l\">{} <span class=\"sub\">{}</span></td>",
+                    pos.word(),
+                    r.map_or("–".into(), |v| fixed(v, 2))
+                );
+            }
+            h.push_str("</tr>");
+        }
+        h.push_str("</tbody></table>");
+    }
+    h.push_str("<details><summary>Every provider under every index</summary><table><thead><tr><th>index</th><th class=\"l\">provider</th><th>units</th><th>O</th><th>E</th><th>O/E</th><th>95% CI</th><th>99.8% limits</th><th class=\"l\">at 95%</th><th class=\"l\">at 99.8%</th></tr></thead><tbody>");
+    for sp in &p.specifications {
+        for (k, r) in sp.providers.iter().enumerate() {
+            let pair = |v: Option<[f64; 2]>| {
+                v.map_or("–".to_string(), |[a, b]| {
+                    format!("{} – {}", fixed(a, 2), fixed(b, 2))
+                })
+            };
+            let _ = write!(
+                h,
+                "<tr{}><td>{}</td><td class=\"l\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td class=\"l\">{}</td><td class=\"l\">{}</td></tr>",
+                if k == 0 { " class=\"first\"" } else { "" },
+                if k == 0 { esc(&sp.index) } else { String::new() },
+                esc(&p.names[k]),
+                fmt_count(p.units[k]),
+                fmt_count(p.observed[k]),
+                fixed(r.expected, 1),
+                r.ratio.map_or("–".into(), |v| fixed(v, 2)),
+                pair(r.ci95),
+                pair(r.limits998),
+                r.position95.word(),
+                r.position998.word()
+            );
+        }
+    }
+    h.push_str("</tbody></table></details>");
 }
 
 #[cfg(test)]

@@ -1,6 +1,18 @@
 //! The plain-text layout of a comparison, as printed on standard output.
 
-use super::{fmt_count, fmt_num, Comparison, Model};
+use super::{fmt_count, Comparison, Distribution, Model};
+
+/// The five-number summary with one number of decimals for all five: none
+/// when every one is whole, else two.
+pub(crate) fn quantiles(d: &Distribution) -> [String; 5] {
+    let v = [d.min, d.q1, d.median, d.q3, d.max];
+    let places = if v.iter().all(|x| x.fract() == 0.0) {
+        0
+    } else {
+        2
+    };
+    v.map(|x| fixed(x, places))
+}
 
 /// Columns two spaces apart; `left[i]`: column i is left-aligned (others
 /// right-aligned).
@@ -224,21 +236,118 @@ pub fn text_table(c: &Comparison) -> String {
         ));
     }
 
+    if c.indices.iter().any(|i| i.added_value.is_some()) {
+        let versus = c
+            .indices
+            .iter()
+            .find_map(|i| i.added_value.as_ref())
+            .map_or("", |a| a.versus.as_str());
+        o.push_str(&format!(
+            "\nAdded value of each score: likelihood-ratio test of its model against the {} alone (1 df)\n",
+            if versus == "intercept" { "intercept" } else { "adjustment terms" }
+        ));
+        let rows: Vec<Vec<String>> = c
+            .indices
+            .iter()
+            .map(|i| match &i.added_value {
+                Some(a) => vec![i.name.clone(), fixed(a.statistic, 2), p_value(a.p_value)],
+                None => vec![i.name.clone(), "-".into(), "-".into()],
+            })
+            .collect();
+        o.push_str(&grid(&["index", "chi-square", "p"], &[true], &rows));
+    }
+
+    if let Some(cv) = &c.cross_validation {
+        o.push_str(&format!(
+            "\nOut of sample: {} folds {} (seed {}; units per fold {}); in-sample figures are above\n",
+            cv.folds,
+            match &cv.grouped_by {
+                Some(g) => format!("by '{g}' (its units stay in one fold)"),
+                None => "of single units".to_string(),
+            },
+            cv.seed,
+            cv.fold_units
+                .iter()
+                .map(|&u| fmt_count(u as u64))
+                .collect::<Vec<_>>()
+                .join(", ")
+        ));
+        let rows: Vec<Vec<String>> = c
+            .indices
+            .iter()
+            .map(|i| match &i.out_of_sample {
+                Some(s) => vec![
+                    i.name.clone(),
+                    s.c_statistic.map_or("-".into(), |v| fixed(v, 3)),
+                    s.c_statistic_mean_of_folds
+                        .map_or("-".into(), |v| fixed(v, 3)),
+                    s.calibration_intercept.map_or("-".into(), |v| fixed(v, 3)),
+                    s.calibration_slope.map_or("-".into(), |v| fixed(v, 3)),
+                    fixed(s.brier, 4),
+                ],
+                None => vec![
+                    i.name.clone(),
+                    "-".into(),
+                    "-".into(),
+                    "-".into(),
+                    "-".into(),
+                    "-".into(),
+                ],
+            })
+            .collect();
+        o.push_str(&grid(
+            &[
+                "index",
+                "c (pooled)",
+                "c (fold mean)",
+                "calibration intercept",
+                "calibration slope",
+                "Brier",
+            ],
+            &[true],
+            &rows,
+        ));
+        o.push_str(
+            "  Calibration by tenths of predicted risk: mean predicted / observed share (%)\n",
+        );
+        let rows: Vec<Vec<String>> = c
+            .indices
+            .iter()
+            .filter_map(|i| {
+                let s = i.out_of_sample.as_ref()?;
+                let mut r = vec![i.name.clone()];
+                r.extend(s.calibration.iter().map(|g| {
+                    format!(
+                        "{:.1}/{:.1}",
+                        100.0 * g.mean_predicted,
+                        100.0 * g.observed_share
+                    )
+                }));
+                Some(r)
+            })
+            .collect();
+        let head: Vec<String> = (1..=10).map(|g| format!("{g}")).collect();
+        let mut h: Vec<&str> = vec!["index"];
+        h.extend(head.iter().map(|s| s.as_str()));
+        o.push_str(&grid(&h, &[true], &rows));
+    }
+
     o.push_str("\nScore distribution\n");
     let rows: Vec<Vec<String>> = c
         .indices
         .iter()
         .map(|i| {
             let d = &i.distribution;
+            let [min, q1, median, q3, max] = quantiles(d);
             vec![
                 i.name.clone(),
                 fixed(d.mean, 2),
                 d.sd.map_or("-".into(), |s| fixed(s, 2)),
-                fmt_num(d.min),
-                fmt_num(d.q1),
-                fmt_num(d.median),
-                fmt_num(d.q3),
-                fmt_num(d.max),
+                min,
+                q1,
+                median,
+                q3,
+                max,
                 pct(d.zero_share),
             ]
         })
@@ -291,6 +400,17 @@ pub fn text_table(c: &Comparison) -> String {
         o.push_str(
             "\nPairs: difference in c-statistic (DeLong test) and Spearman correlation of the scores\n",
         );
+        let pc = &c.pairs_compared;
+        match &pc.reference {
+            Some(r) => o.push_str(&format!(
+                "  each index against the reference {r}: {} tests (all pairs would be {})\n",
+                pc.tests, pc.tests_if_all_pairs
+            )),
+            None => o.push_str(&format!(
+                "  all pairs: {} tests; p-values are not adjusted for their number (--reference SPEC compares with one index)\n",
+                pc.tests
+            )),
+        }
         let rows: Vec<Vec<String>> = c
             .pairs
             .iter()
@@ -317,6 +437,10 @@ pub fn text_table(c: &Comparison) -> String {
             &[true],
             &rows,
         ));
+    }
+
+    if let Some(p) = &c.providers {
+        providers_text(p, &mut o);
     }
 
     o.push_str("\nCondition prevalence among the analysed units (after the hierarchy)\n");
@@ -373,6 +497,14 @@ pub fn text_table(c: &Comparison) -> String {
             notes.push(format!("{} vs {}: {n}", p.a, p.b));
         }
     }
+    for i in &c.indices {
+        for n in i.out_of_sample.iter().flat_map(|s| &s.notes) {
+            notes.push(format!("{} (out of sample): {n}", i.name));
+        }
+    }
+    if let Some(p) = &c.providers {
+        notes.extend(p.notes.iter().map(|n| format!("providers: {n}")));
+    }
     if !notes.is_empty() {
         o.push_str("\nNotes\n");
         for n in notes {
@@ -384,4 +516,140 @@ pub fn text_table(c: &Comparison) -> String {
     o.push_str("\nCaution\n");
     o.push_str(&wrap(&c.caution, "  ", 98));
     o
+}
+
+fn ratio(v: Option<f64>) -> String {
+    v.map_or("-".into(), |r| fixed(r, 2))
+}
+
+fn providers_text(p: &super::Providers, o: &mut String) {
+    o.push_str(&format!(
+        "\nProviders by '{}': observed (O) and expected (E) events, O/E with its exact 95% interval\n",
+        p.column
+    ));
+    o.push_str(&format!(
+        "  (Garwood 1936); position against funnel limits at 99.8% ({}); E below {} not judged\n",
+        match p.overdispersion {
+            None => "Poisson, Spiegelhalter 2005".to_string(),
+            Some(m) => format!(
+                "{} over-dispersion, Spiegelhalter 2005 QSHC",
+                match m {
+                    super::Overdispersion::Multiplicative => "multiplicative",
+                    super::Overdispersion::Additive => "additive",
+                }
+            ),
+        },
+        super::fmt_num(p.min_expected)
+    ));
+    for s in &p.specifications {
+        let [under, inside, over, unjudged] = s.positions_998;
+        o.push_str(&format!(
+            "\n {}: {under} under, {inside} inside, {over} over the 99.8% limits, {unjudged} not judged\n",
+            s.index
+        ));
+        if let Some(d) = &s.dispersion {
+            o.push_str(&format!(
+                "  over-dispersion from {} providers: phi {} (test of none: p {}), tau-squared {}; limits {}\n",
+                d.providers,
+                fixed(d.phi, 3),
+                d.p_value.map_or("-".into(), p_value),
+                fixed(d.tau2, 5),
+                if d.widened { "widened" } else { "not widened (no over-dispersion found)" }
+            ));
+        }
+        let rows: Vec<Vec<String>> = s
+            .providers
+            .iter()
+            .enumerate()
+            .map(|(k, r)| {
+                vec![
+                    p.names[k].clone(),
+                    fmt_count(p.units[k]),
+                    fmt_count(p.observed[k]),
+                    fixed(r.expected, 1),
+                    ratio(r.ratio),
+                    r.ci95.map_or("-".into(), |[a, b]| {
+                        format!("{} to {}", fixed(a, 2), fixed(b, 2))
+                    }),
+                    r.limits998.map_or("-".into(), |[a, b]| {
+                        format!("{} to {}", fixed(a, 2), fixed(b, 2))
+                    }),
+                    r.position95.word().into(),
+                    r.position998.word().into(),
+                ]
+            })
+            .collect();
+        o.push_str(&grid(
+            &[
+                "provider",
+                "units",
+                "O",
+                "E",
+                "O/E",
+                "95% CI",
+                "99.8% limits",
+                "at 95%",
+                "at 99.8%",
+            ],
+            &[true, false, false, false, false, false, false, true, true],
+            &rows,
+        ));
+    }
+    if !p.agreement.is_empty() {
+        o.push_str("\n Agreement between indices (providers judged under both)\n");
+        let rows: Vec<Vec<String>> = p
+            .agreement
+            .iter()
+            .map(|a| {
+                vec![
+                    format!("{} vs {}", a.a, a.b),
+                    a.spearman.map_or("-".into(), |r| fixed(r, 3)),
+                    format!("{} of {}", a.position_changes, a.judged),
+                    a.largest_change.as_ref().map_or("-".into(), |l| {
+                        format!(
+                            "{} ({} to {})",
+                            l.provider,
+                            fixed(l.ratio_a, 2),
+                            fixed(l.ratio_b, 2)
+                        )
+                    }),
+                ]
+            })
+            .collect();
+        o.push_str(&grid(
+            &[
+                "pair (a vs b)",
+                "Spearman of O/E",
+                "99.8% position differs",
+                "largest change of O/E",
+            ],
+            &[true, false, false, true],
+            &rows,
+        ));
+    }
+    if p.changes.is_empty() {
+        o.push_str("\n No judged provider changes its 99.8% position with the index chosen.\n");
+    } else {
+        o.push_str(&format!(
+            "\n Providers whose 99.8% position depends on the index chosen ({})\n",
+            p.changes.len()
+        ));
+        let mut head: Vec<&str> = vec!["provider"];
+        head.extend(p.specifications.iter().map(|s| s.index.as_str()));
+        let rows: Vec<Vec<String>> = p
+            .changes
+            .iter()
+            .map(|c| {
+                let mut r = vec![c.provider.clone()];
+                r.extend(
+                    c.positions
+                        .iter()
+                        .zip(&c.ratios)
+                        .map(|(pos, rt)| format!("{} {}", pos.word(), ratio(*rt))),
+                );
+                r
+            })
+            .collect();
+        o.push_str(&grid(&head, &[true], &rows));
+    }
 }

@@ -253,6 +253,23 @@ fn probabilities(eta: f64) -> (f64, f64) {
 /// # Ok::<(), morbus::stats::StatsError>(())
 /// ```
 pub fn logistic(y: &[bool], x: &[Vec<f64>], names: &[String]) -> Result<LogisticFit, StatsError> {
+    logistic_from(y, x, names, None)
+}
+
+/// [`logistic`] with Newton–Raphson started at `start` (intercept first,
+/// on the scale of the predictors as given, e.g. the estimates of a fit on
+/// overlapping data) instead of the intercept-only fit. The maximum found
+/// is the same; a near start saves iterations. A start of the wrong length,
+/// or one at which the log-likelihood is not finite, is ignored.
+///
+/// # Errors
+/// As [`logistic`].
+pub fn logistic_from(
+    y: &[bool],
+    x: &[Vec<f64>],
+    names: &[String],
+    start: Option<&[f64]>,
+) -> Result<LogisticFit, StatsError> {
     let n = y.len();
     check_len("predictor names", x.len(), names.len())?;
     for (col, name) in x.iter().zip(names) {
@@ -315,10 +332,23 @@ pub fn logistic(y: &[bool], x: &[Vec<f64>], names: &[String]) -> Result<Logistic
         }
     }
 
-    // Newton–Raphson from the intercept-only fit.
+    // Newton–Raphson from the intercept-only fit, or from `start` moved to
+    // the standardised scale (b_j = β_j s_j, b_0 = β_0 + Σ β_j m_j).
     let mut b = vec![0.0; d];
     b[0] = (n_events as f64 / n_nonevents as f64).ln();
     let (mut ll, mut grad, mut info) = design.evaluate(&b, y);
+    if let Some(st) = start.filter(|st| st.len() == d && st.iter().all(|v| v.is_finite())) {
+        let mut w = vec![0.0; d];
+        w[0] = st[0];
+        for j in 1..d {
+            w[j] = st[j] / design.inv_sd[j - 1];
+            w[0] += st[j] * design.mean[j - 1];
+        }
+        let (ll_w, grad_w, info_w) = design.evaluate(&w, y);
+        if ll_w.is_finite() && ll_w >= ll {
+            (b, ll, grad, info) = (w, ll_w, grad_w, info_w);
+        }
+    }
     let mut iterations = 0;
     let mut converged = false;
     let mut last_step = vec![0.0; d];

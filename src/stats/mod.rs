@@ -13,6 +13,7 @@
 //! | logistic regression (Newton–Raphson) | [`logistic`] |
 //! | Spearman's rank correlation | [`spearman`], [`average_ranks`] |
 //! | descriptive summary (mean, SD, quartiles, share of zeros) | [`Summary::of`] |
+//! | incomplete gamma, chi-square and Poisson distributions, exact Poisson limits, funnel limits | [`gamma_p`], [`gamma_q`], [`gamma_p_inverse`], [`chi_square_quantile`], [`chi_square_sf`], [`poisson_cdf`], [`poisson_exact_limits`], [`funnel_limit`] |
 //! | normal distribution | [`erf`], [`erfc`], [`normal_cdf`], [`normal_sf`], [`normal_quantile`], [`two_sided_p`] |
 //!
 //! # Errors
@@ -49,6 +50,7 @@
 use std::fmt;
 
 mod delong;
+mod gamma;
 mod linalg;
 mod logistic;
 mod normal;
@@ -57,7 +59,11 @@ mod roc;
 mod summary;
 
 pub use delong::{delong, delong_test, DeLongResult, DeLongTest};
-pub use logistic::{logistic, Coefficient, LogisticFit, INTERCEPT_NAME};
+pub use gamma::{
+    chi_square_quantile, chi_square_sf, funnel_limit, gamma_p, gamma_p_inverse, gamma_q, ln_gamma,
+    poisson_cdf, poisson_exact_limits,
+};
+pub use logistic::{logistic, logistic_from, Coefficient, LogisticFit, INTERCEPT_NAME};
 pub use normal::{erf, erfc, normal_cdf, normal_quantile, normal_sf, two_sided_p, Z_975};
 pub use rank::{average_ranks, spearman};
 pub use roc::{auc, roc_curve};

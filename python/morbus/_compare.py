@@ -1,0 +1,167 @@
+"""``morbus.compare``: ``morbus compare`` on a data frame."""
+
+from __future__ import annotations
+
+import io
+import json
+import os
+import sys
+from typing import Any, Dict, Optional, Sequence, Union
+
+from . import _native
+
+_Names = Union[str, Sequence[str]]
+
+
+def _names(value: Optional[_Names]) -> list:
+    if value is None:
+        return []
+    if isinstance(value, str):
+        value = [value]
+    return [n.strip() for v in value for n in v.split(",") if n.strip()]
+
+
+def _csv_bytes(frame: Any) -> bytes:
+    """The frame as CSV text, written by pyarrow's CSV writer (columnar, no
+    Python object per value). Floating columns that hold whole numbers only
+    (a pandas integer column with missing values becomes float) are written
+    as integers, so that an outcome of 1.0 reads as 1."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    import pyarrow.csv as pacsv
+
+    pd = sys.modules.get("pandas")
+    pl = sys.modules.get("polars")
+    if pd is not None and isinstance(frame, pd.DataFrame):
+        table = pa.Table.from_pandas(frame, preserve_index=False)
+    elif pl is not None and isinstance(frame, pl.DataFrame):
+        table = frame.to_arrow()
+    elif hasattr(frame, "__arrow_c_stream__"):
+        table = pa.table(frame)
+    else:
+        raise TypeError(
+            "morbus.compare needs a pandas or polars DataFrame or an object exposing the "
+            f"Arrow C stream interface (__arrow_c_stream__), not {type(frame).__name__}"
+        )
+    columns = []
+    for col in table.columns:
+        if pa.types.is_floating(col.type):
+            valid = pc.drop_null(col)
+            if len(valid) == 0 or pc.all(pc.equal(valid, pc.floor(valid))).as_py():
+                if len(valid) == 0 or pc.max(pc.abs(valid)).as_py() < 2**53:
+                    col = pc.cast(col, pa.int64())
+        columns.append(col)
+    table = pa.table(columns, names=table.column_names)
+    out = io.BytesIO()
+    pacsv.write_csv(table, out, write_options=pacsv.WriteOptions(quoting_style="needed"))
+    return out.getvalue()
+
+
+def compare(
+    frame: Any,
+    *,
+    dx: _Names,
+    outcome: str,
+    adjust: Optional[_Names] = None,
+    adjust_cat: Optional[_Names] = None,
+    by: Optional[str] = None,
+    min_expected: float = 5.0,
+    overdispersion: Optional[str] = None,
+    folds: Optional[int] = None,
+    seed: int = 20261203,
+    reference: Optional[str] = None,
+    layout: str = "wide",
+    id: Optional[str] = None,
+    age: Optional[str] = None,
+    index: Optional[_Names] = None,
+    hierarchy: bool = True,
+    lists: Any = None,
+    dx_sep: Optional[str] = None,
+    date: Optional[str] = None,
+    date_format: Optional[str] = None,
+    lookback: Union[None, int, str] = None,
+    episode: Optional[str] = None,
+    exclude_primary: bool = False,
+    primary: Optional[str] = None,
+    poa: Optional[str] = None,
+    poa_values: Union[str, Sequence[str]] = ("Y", "W"),
+    threads: Optional[int] = None,
+    report: Union[None, str, "os.PathLike[str]"] = None,
+    text: bool = False,
+) -> Any:
+    """Compare index specifications on an outcome (``morbus compare``).
+
+    Takes the command line's options under the same names (``adjust_cat``
+    for ``--adjust-cat``, ``min_expected`` for ``--min-expected``) and
+    returns the results as a ``dict`` in the layout of the command line's
+    ``--json`` file (documented in the README), computed by the same library
+    function on the same data, so the numbers are the command line's.
+    ``report="page.html"`` also writes the HTML report; ``text=True``
+    returns ``(dict, plain-text report)``.
+
+    >>> import pandas as pd, morbus
+    >>> df = pd.DataFrame({
+    ...     "dx1": ["I21.9", "E11.9", None, "C78.0", "I50.0", None, "J44.9", "N18.5"],
+    ...     "age": [81, 64, 50, 77, 90, 45, 70, 59],
+    ...     "site": ["North", "North", "South", "South", "North", "South", "North", "South"],
+    ...     "died": [1, 0, 0, 1, 1, 0, 0, 1],
+    ... })
+    >>> r = morbus.compare(df, dx="dx1", outcome="died", index="charlson:count",
+    ...                    by="site", min_expected=0)
+    >>> r["units"]["analysed"], r["providers"]["names"]
+    (8, ['North', 'South'])
+    >>> sum(r["providers"]["observed"])
+    4
+
+    Errors raise ``KeyError`` (a missing column) or ``ValueError`` with the
+    command line's messages.
+    """
+    from . import _catalogue
+
+    data = _csv_bytes(frame)
+    if isinstance(poa_values, str):
+        poa_values = [poa_values]
+    try:
+        js, table, html = _native.compare_csv(
+            data,
+            dx=_names(dx),
+            outcome=outcome.strip(),
+            adjust=_names(adjust),
+            adjust_cat=_names(adjust_cat),
+            by=by.strip() if by else None,
+            min_expected=float(min_expected),
+            overdispersion=overdispersion,
+            folds=folds,
+            seed=int(seed),
+            reference=reference,
+            layout=layout,
+            id=id,
+            age=age,
+            index=_names(index) or None,
+            hierarchy=hierarchy,
+            lists=_catalogue(lists),
+            dx_sep=dx_sep,
+            date=date,
+            date_format=date_format,
+            lookback=None if lookback is None else str(lookback),
+            episode=episode,
+            exclude_primary=exclude_primary,
+            primary=primary,
+            poa=poa,
+            poa_values=list(poa_values),
+            threads=threads or 0,
+            report=report is not None,
+        )
+    except ValueError as e:
+        message = str(e)
+        if " not found; columns in the input: " in message:
+            raise KeyError(message) from None
+        raise
+    if report is not None:
+        path = os.fspath(report)
+        tmp = f"{path}.tmp-{os.getpid()}"
+        with open(tmp, "w", encoding="utf-8") as f:
+            f.write(html)
+        os.replace(tmp, path)
+    result: Dict[str, Any] = json.loads(js)
+    return (result, table) if text else result
