@@ -15,6 +15,8 @@
 //! - [`io`]: streaming delimited text in and out;
 //! - [`pipeline`]: `score` over an extract, wide or long, with its summary;
 //! - [`columnar`]: `score` over in-memory columns (Arrow arrays, data frames);
+//! - [`sql`]: a SQL script that scores a table inside a database (DuckDB,
+//!   PostgreSQL, SQLite) with the same lists and rules;
 //! - [`provenance`]: what produced an output (tool, lists, options, counts);
 //! - [`stats`]: the numerics of `compare` (c-statistics, DeLong, logistic
 //!   regression, rank correlation);
@@ -47,6 +49,7 @@ pub mod matcher;
 pub mod pipeline;
 pub mod provenance;
 pub mod score;
+pub mod sql;
 pub mod stats;
 
 pub use error::Error;
