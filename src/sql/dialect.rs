@@ -132,7 +132,7 @@ THEN CASE WHEN to_char({first}, 'YYYY-MM-DD') = {iso} THEN {first} - DATE '1970-
                 )
             }
             Dialect::Sqlite => format!(
-                "CASE WHEN date({iso}) = {iso} THEN CAST(julianday({iso}) - 2440587.5 AS INTEGER) END"
+                "CASE WHEN date(julianday({iso})) = {iso} THEN CAST(julianday({iso}) - 2440587.5 AS INTEGER) END"
             ),
         }
     }

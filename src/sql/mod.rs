@@ -953,7 +953,7 @@ unit stands alone), date and age as trimmed text.",
         );
         let iso = "substr(date_text, 1, 10)";
         let day = format!(
-            "CASE WHEN length(date_text) >= 10\n        AND (length(date_text) = 10 OR substr(date_text, 11, 1) IN ('T', ' '))\n        AND substr(date_text, 5, 1) = '-' AND substr(date_text, 8, 1) = '-'\n        AND {}\n       THEN {} END",
+            "CASE WHEN length(date_text) >= 10\n        AND (length(date_text) = 10 OR substr(date_text, 11, 1) IN ('T', ' '))\n        AND substr(date_text, 5, 1) = '-' AND substr(date_text, 8, 1) = '-'\n        AND substr(date_text, 1, 4) >= '1000'\n        AND {}\n       THEN {} END",
             d.only_chars(
                 "substr(date_text, 1, 4) || substr(date_text, 6, 2) || substr(date_text, 9, 2)",
                 "0-9"
@@ -970,8 +970,8 @@ unit stands alone), date and age as trimmed text.",
         );
         step(
             "row_facts",
-            "Step 11. Dates as day numbers (YYYY-MM-DD, a time after it ignored; anything\n\
-else, or no calendar date, is no date) and ages in whole years (a whole or\n\
+            "Step 11. Dates as day numbers (YYYY-MM-DD from year 1000 to 9999, a time\n\
+after it ignored; anything else, or no calendar date, is no date) and ages in whole years (a whole or\n\
 decimal number from 0 to 150, decimals truncated; anything else is no age).",
             format!(
                 "SELECT morbus_row, unit, patient,\n  {day} AS day,\n  {age} AS age_years\nFROM row_texts"
@@ -1060,10 +1060,13 @@ JOIN code_conditions AS c ON c.unit = f.unit"
         );
         step(
             "kept_conditions",
-            "Step 15. The conditions that count after the hierarchy.",
-            "SELECT c.unit, c.list_name, c.condition_key\nFROM unit_conditions AS c\n\
-LEFT JOIN superseded AS x\n  ON x.unit = c.unit AND x.list_name = c.list_name AND x.condition_key = c.condition_key\n\
-WHERE x.unit IS NULL"
+            "Step 15. The conditions that count after the hierarchy: those of the unit\n\
+that no superior condition removes.",
+            "SELECT unit, list_name, condition_key\nFROM (\n\
+  SELECT unit, list_name, condition_key, 0 AS removed FROM unit_conditions\n\
+  UNION ALL\n\
+  SELECT unit, list_name, condition_key, 1 AS removed FROM superseded\n\
+) AS c\nGROUP BY unit, list_name, condition_key\nHAVING MAX(removed) = 0"
                 .into(),
             false,
         );
