@@ -119,7 +119,8 @@ def main() -> None:
     if not wide.exists():
         sh(str(BIN / "synth"), "--episodes", str(N), "--patients", str(N * 3 // 10), "--fields", "20", "--seed", "11", "-q", "-o", str(wide))
     con = duckdb.connect()
-    print(f"duckdb {duckdb.__version__}, {con.execute('SELECT current_setting(\'threads\')').fetchone()[0]} threads, best of {RUNS}")
+    threads = con.execute("SELECT current_setting('threads')").fetchone()[0]
+    print(f"duckdb {duckdb.__version__}, {threads} threads, best of {RUNS}")
     rows = []
 
     def load():

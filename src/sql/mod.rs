@@ -253,8 +253,12 @@ pub fn generate(engine: &Engine, opts: &SqlOptions) -> Result<String, Error> {
     let mut query = String::new();
     let _ = writeln!(query, "WITH{}", if recursive { " RECURSIVE" } else { "" });
     for (i, s) in steps.iter().enumerate() {
-        for line in s.comment.lines() {
-            let _ = writeln!(query, "-- {line}");
+        for (k, line) in s.comment.lines().enumerate() {
+            if k == 0 {
+                let _ = writeln!(query, "-- Step {}. {}", i + 1, strip_step(line));
+            } else {
+                let _ = writeln!(query, "-- {line}");
+            }
         }
         let _ = writeln!(
             query,
@@ -267,7 +271,7 @@ pub fn generate(engine: &Engine, opts: &SqlOptions) -> Result<String, Error> {
         }
         let _ = writeln!(query, "){}", if i + 1 < steps.len() { "," } else { "" });
     }
-    query.push_str(&final_select(engine, opts, &cols));
+    query.push_str(&final_select(engine, opts, &cols, steps.len() + 1));
 
     out.push_str("\n-- The scores.\n");
     match &opts.output {
@@ -291,6 +295,18 @@ pub fn generate(engine: &Engine, opts: &SqlOptions) -> Result<String, Error> {
         }
     }
     Ok(out)
+}
+
+/// A step's comment without a "Step N." its author wrote (the steps are
+/// numbered as written out).
+fn strip_step(line: &str) -> &str {
+    match line.strip_prefix("Step ") {
+        Some(rest) => match rest.split_once(". ") {
+            Some((n, tail)) if n.chars().all(|c| c.is_ascii_alphanumeric()) => tail,
+            _ => line,
+        },
+        None => line,
+    }
 }
 
 fn table_names(t: &Tables, (hierarchy, age, bands): (bool, bool, bool)) -> Vec<&str> {
@@ -703,38 +719,13 @@ fn steps(
                 "SELECT r.*, MIN(r.morbus_row) OVER (PARTITION BY {}) AS morbus_unit\nFROM source_rows AS r",
                 by.join(", ")
             ),
-            false,
+            true,
         );
         "unit_rows".to_string()
     };
     let unit = if wide { "morbus_row" } else { "morbus_unit" };
 
     // 2. One value per diagnosis field.
-    let positions: Vec<String> = cols
-        .dx
-        .iter()
-        .enumerate()
-        .map(|(i, c)| {
-            format!(
-                "SELECT {} AS position, {} AS column_name",
-                i + 1,
-                literal(c)
-            )
-        })
-        .collect();
-    step(
-        "diagnosis_columns",
-        "Step 2. The diagnosis columns in reading order (position 1 is the primary\n\
-diagnosis in the wide layout).",
-        positions.join("\nUNION ALL "),
-        false,
-    );
-    let case: Vec<String> = cols
-        .dx
-        .iter()
-        .enumerate()
-        .map(|(i, c)| format!("    WHEN {} THEN CAST({} AS TEXT)", i + 1, q(c)))
-        .collect();
     let mut excluded_row = Vec::new();
     if !wide && cfg.exclude_primary {
         if let Some(p) = &cols.primary {
@@ -778,13 +769,33 @@ episodes' lookback)."
             cfg.poa_values.join(", ")
         ));
     }
+    let branches: Vec<String> = cols
+        .dx
+        .iter()
+        .enumerate()
+        .map(|(i, c)| {
+            format!(
+                "SELECT r.{unit} AS unit, {} AS position, CAST({} AS TEXT) AS field, {counts_now} AS counts_now\nFROM {rows} AS r WHERE CAST({} AS TEXT) <> ''",
+                i + 1,
+                q(c),
+                q(c)
+            )
+        })
+        .collect();
+    let list: Vec<String> = cols
+        .dx
+        .iter()
+        .enumerate()
+        .map(|(i, c)| format!("{} {c}", i + 1))
+        .collect();
+    fields_comment.push_str(&format!(
+        "\nPositions (reading order; position 1 is the primary diagnosis in the wide\nlayout): {}.",
+        list.join(", ")
+    ));
     step(
         "diagnosis_fields",
         &fields_comment,
-        format!(
-            "SELECT r.{unit} AS unit, c.position,\n  CASE c.position\n{}\n  END AS field,\n  {counts_now} AS counts_now\nFROM {rows} AS r\nCROSS JOIN diagnosis_columns AS c",
-            case.join("\n")
-        ),
+        branches.join("\nUNION ALL\n"),
         false,
     );
 
@@ -804,10 +815,10 @@ episodes' lookback)."
             "diagnosis_values",
             &format!("Step 4. The non-empty values.{primary_note}"),
             format!(
-                "SELECT unit, position, 1 AS part_number, field AS value,\n  {} AS counts_now\nFROM diagnosis_fields\nWHERE field IS NOT NULL AND field <> ''",
+                "SELECT unit, position, 1 AS part_number, field AS value,\n  {} AS counts_now\nFROM diagnosis_fields",
                 primary_rule.replace("part_number", "1")
             ),
-            false,
+            true,
         ),
         Some(sep) => {
             let sep = literal(&(sep as char).to_string());
@@ -832,7 +843,7 @@ FROM diagnosis_parts\nWHERE rest IS NOT NULL"
                     format!(
                         "SELECT unit, position, part_number, value,\n  {primary_rule} AS counts_now\nFROM diagnosis_parts"
                     ),
-                    false,
+                    true,
                 );
             } else {
                 step(
@@ -847,7 +858,7 @@ FROM diagnosis_parts\nWHERE rest IS NOT NULL"
                             .replace("f.counts_now AS", "counts_now AS"),
                         d.split_lateral("f.field", &sep, "p")
                     ),
-                    false,
+                    true,
                 );
             }
         }
@@ -872,7 +883,7 @@ is not a code.",
             d.position("value", "'-'"),
             d.chr(9)
         ),
-        false,
+        true,
     );
     step(
         "value_codes",
@@ -883,18 +894,16 @@ read in upper case.",
             "SELECT unit, counts_now, upper(letters) AS code_text\nFROM value_marks\nWHERE marks_ok = 1\n  AND length(letters) BETWEEN 1 AND 7\n  AND {}",
             d.only_chars("letters", "A-Za-z0-9")
         ),
-        false,
+        true,
     );
     step(
         "valid_codes",
         "Step 7. An X filler after the three-character category is dropped (I10X is\n\
 I10); the code must then be ICD-10-shaped: at least 3 characters, a letter,\n\
 a digit, then a digit or a letter.",
-        format!(
-            "SELECT unit, counts_now, code\nFROM (\n  SELECT unit, counts_now,\n    CASE WHEN length(code_text) > 3 AND rtrim(substr(code_text, 4), 'X') = ''\n         THEN substr(code_text, 1, 3) ELSE code_text END AS code\n  FROM value_codes\n) AS c\nWHERE length(code) >= 3\n  AND {}",
-            d.starts_with_classes("code", &["A-Z", "0-9", "0-9A-Z"])
-        ),
-        false,
+        "SELECT unit, counts_now, code\nFROM (\n  SELECT unit, counts_now,\n    CASE WHEN length(code_text) > 3 AND rtrim(substr(code_text, 4), 'X') = ''\n         THEN substr(code_text, 1, 3) ELSE code_text END AS code\n  FROM value_codes\n) AS c\nWHERE length(code) >= 3\n  AND substr(code, 1, 1) BETWEEN 'A' AND 'Z'\n  AND substr(code, 2, 1) BETWEEN '0' AND '9'\n  AND (substr(code, 3, 1) BETWEEN '0' AND '9' OR substr(code, 3, 1) BETWEEN 'A' AND 'Z')"
+            .to_string(),
+        true,
     );
 
     // 5. Matching.
@@ -912,10 +921,10 @@ a digit, then a digit or a letter.",
         "Step 9. The conditions each code claims: a prefix of the code equals a listed\n\
 prefix (I50 claims I509 and I5091).",
         format!(
-            "SELECT DISTINCT c.unit, p.list_name, p.condition_key, c.counts_now\nFROM valid_codes AS c\nJOIN prefix_lengths AS l ON l.prefix_length <= length(c.code)\nJOIN {} AS p ON p.prefix = substr(c.code, 1, l.prefix_length)",
+            "SELECT c.unit, p.list_name, p.condition_key, c.counts_now\nFROM valid_codes AS c\nJOIN prefix_lengths AS l ON l.prefix_length <= length(c.code)\nJOIN {} AS p ON p.prefix = substr(c.code, 1, l.prefix_length)",
             t.prefixes
         ),
-        false,
+        cfg.lookback.is_some(),
     );
 
     // 6. Dates, ages, patients.
@@ -983,7 +992,7 @@ decimal number from 0 to 150, decimals truncated; anything else is no age).",
                 "unit_facts",
                 "Step 12. Wide layout: each row is an episode.",
                 "SELECT unit, patient, day, age_years\nFROM row_facts".into(),
-                false,
+                true,
             );
         } else {
             step(
@@ -1004,18 +1013,25 @@ MIN(CASE WHEN day IS NOT NULL AND day_rank = 1 THEN day END) AS day,\n  \
 MIN(CASE WHEN age_years IS NOT NULL AND age_rank = 1 THEN age_years END) AS age_years\n\
 FROM ranked_facts\nGROUP BY unit"
                     .into(),
-                false,
+                true,
             );
         }
     }
 
     // 7. The unit's conditions: its own, and with a lookback its history's.
+    // With a hierarchy the next steps group by condition anyway, so the
+    // duplicates are left for them to remove.
+    let (distinct, union) = if hierarchy {
+        ("", "UNION ALL")
+    } else {
+        ("DISTINCT ", "UNION")
+    };
     match cfg.lookback {
         None => step(
             "unit_conditions",
             "Step 13. The conditions of each unit: those of its codes that count now.",
-            "SELECT DISTINCT unit, list_name, condition_key\nFROM code_conditions\nWHERE counts_now = 1".into(),
-            false,
+            format!("SELECT {distinct}unit, list_name, condition_key\nFROM code_conditions\nWHERE counts_now = 1"),
+            hierarchy,
         ),
         Some(days) => {
             let (window, rule) = if days == u32::MAX {
@@ -1036,12 +1052,12 @@ patient, has its own codes alone."
                 ),
                 format!(
                     "SELECT unit, list_name, condition_key\nFROM code_conditions\nWHERE counts_now = 1\n\
-UNION\n\
+{union}\n\
 SELECT e.unit, c.list_name, c.condition_key\nFROM unit_facts AS e\n\
 JOIN unit_facts AS f\n  ON f.patient = e.patient\n AND f.unit <> e.unit\n AND f.day <= e.day{window}\n\
 JOIN code_conditions AS c ON c.unit = f.unit"
                 ),
-                false,
+                hierarchy,
             );
         }
     }
@@ -1182,7 +1198,7 @@ that no superior condition removes.",
 
 /// The last SELECT: the table's rows (wide) or one row per unit (long),
 /// then the output columns in the engine's order.
-fn final_select(engine: &Engine, opts: &SqlOptions, cols: &Columns) -> String {
+fn final_select(engine: &Engine, opts: &SqlOptions, cols: &Columns, number: usize) -> String {
     let d = opts.dialect;
     let cfg = &opts.config;
     let wide = cfg.layout == Layout::Wide;
@@ -1219,7 +1235,10 @@ fn final_select(engine: &Engine, opts: &SqlOptions, cols: &Columns) -> String {
         )
     };
     let tables = Tables::new(&opts.output);
-    for c in engine.columns() {
+    // Age points and bands come from their tables by a join per column (a
+    // handful of rows each), not a subquery per row.
+    let mut joins = String::new();
+    for (i, c) in engine.columns().iter().enumerate() {
         let n = quote_ident(&c.name);
         let e = match c.kind {
             ColumnKind::Score { spec } => d.score_value(
@@ -1229,15 +1248,17 @@ fn final_select(engine: &Engine, opts: &SqlOptions, cols: &Columns) -> String {
             ColumnKind::ScoreWithAge { spec } => {
                 let s = &engine.specs()[spec];
                 let list = &engine.lists()[s.list].list;
-                let points = format!(
-                    "COALESCE((SELECT a.points FROM {} AS a\n              WHERE a.list_name = {} AND t.age_years >= a.from_age\n                AND (a.to_age IS NULL OR t.age_years <= a.to_age)), 0)",
+                let a = format!("age_points_{i}");
+                let _ = write!(
+                    joins,
+                    "\nLEFT JOIN {} AS {a}\n  ON {a}.list_name = {} AND t.age_years >= {a}.from_age\n AND ({a}.to_age IS NULL OR t.age_years <= {a}.to_age)",
                     tables.age_points,
                     literal(&list.name)
                 );
                 format!(
                     "CASE WHEN t.age_years IS NULL THEN NULL\n       ELSE {} END",
                     d.score_value(
-                        &format!("t.{} + {points}", quote_ident(&s.name)),
+                        &format!("t.{} + COALESCE({a}.points, 0)", quote_ident(&s.name)),
                         engine.decimals(spec)
                     )
                 )
@@ -1246,19 +1267,23 @@ fn final_select(engine: &Engine, opts: &SqlOptions, cols: &Columns) -> String {
                 let s = &engine.specs()[spec];
                 let list = &engine.lists()[s.list].list;
                 let x = format!("t.{}", quote_ident(&s.name));
-                format!(
-                    "(SELECT b.band FROM {} AS b\n   WHERE b.list_name = {} AND b.weighting = {}\n     AND (b.lower_bound IS NULL OR {x} > b.lower_bound OR (b.lower_inclusive = 1 AND {x} = b.lower_bound))\n     AND (b.upper_bound IS NULL OR {x} < b.upper_bound OR (b.upper_inclusive = 1 AND {x} = b.upper_bound)))",
+                let b = format!("band_{i}");
+                let _ = write!(
+                    joins,
+                    "\nLEFT JOIN {} AS {b}\n  ON {b}.list_name = {} AND {b}.weighting = {}\n AND ({b}.lower_bound IS NULL OR {x} > {b}.lower_bound OR ({b}.lower_inclusive = 1 AND {x} = {b}.lower_bound))\n AND ({b}.upper_bound IS NULL OR {x} < {b}.upper_bound OR ({b}.upper_inclusive = 1 AND {x} = {b}.upper_bound))",
                     tables.bands,
                     literal(&list.name),
                     literal(&list.weightings[s.weighting].name)
-                )
+                );
+                format!("{b}.band")
             }
             ColumnKind::Flag { .. } => format!("t.{n}"),
         };
         sel.push(format!("{e} AS {n}"));
     }
+    let from = from + &joins;
     format!(
-        "-- Step 20. The output: {}, then the score columns of `morbus score`.\nSELECT {}\n{from}\n{order}",
+        "-- Step {number}. The output: {}, then the score columns of `morbus score`.\nSELECT {}\n{from}\n{order}",
         if wide {
             "every row of the table with its own columns"
         } else {
