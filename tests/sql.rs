@@ -49,7 +49,7 @@ fn globs_need_the_tables_columns() {
     assert!(r.stderr.contains("--columns"), "{}", r.stderr);
     let r = sql(&["--dx", "dx*", "--columns", "id,dx1,dx2,age"]);
     assert_eq!(r.code, 0, "{}", r.stderr);
-    assert!(r.stdout.contains("WHEN 2 THEN CAST(r.\"dx2\" AS TEXT)"));
+    assert!(r.stdout.contains("2 AS position, CAST(r.\"dx2\" AS TEXT)"));
     assert!(!r.stdout.contains("\"age\" AS TEXT)"));
 }
 
