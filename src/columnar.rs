@@ -47,7 +47,7 @@ use crate::matcher::KeyHasher;
 use crate::pipeline::{
     check_collisions, disagreement, keep_first, Header, Layout, ScoreConfig, Summary,
 };
-use crate::score::{read_age, Engine, Unit, Value};
+use crate::score::{read_age, Engine, Unit, Value, MAX_AGE};
 use crate::Error;
 
 /// The columns a run uses, by position among the frame's columns.
@@ -110,7 +110,8 @@ pub enum Age<'a> {
     /// Text, read like a field of a delimited extract.
     Text(&'a [u8]),
     /// A number: whole years, decimals truncated (79.9 is 79), readable
-    /// from 0 to 150 like a text age; NaN counts as missing.
+    /// from 0 to [`crate::score::MAX_AGE`] (130) like a text age; NaN counts
+    /// as missing.
     Number(f64),
 }
 
@@ -130,7 +131,10 @@ pub enum AgeReading {
 /// assert_eq!(read_age_value(Age::Text(b" 80 ")), AgeReading::Years(80));
 /// assert_eq!(read_age_value(Age::Number(f64::NAN)), AgeReading::Missing);
 /// assert_eq!(read_age_value(Age::Number(-1.0)), AgeReading::Unreadable);
-/// assert_eq!(read_age_value(Age::Text(b"151")), AgeReading::Unreadable);
+/// assert_eq!(read_age_value(Age::Text(b"131")), AgeReading::Unreadable);
+/// assert_eq!(read_age_value(Age::Number(130.5)), AgeReading::Years(130));
+/// assert_eq!(read_age_value(Age::Number(131.0)), AgeReading::Unreadable);
+/// assert_eq!(read_age_value(Age::Number(4294967366.0)), AgeReading::Unreadable);
 /// ```
 pub fn read_age_value(age: Age<'_>) -> AgeReading {
     match age {
@@ -142,7 +146,7 @@ pub fn read_age_value(age: Age<'_>) -> AgeReading {
         },
         Age::Number(x) if x.is_nan() => AgeReading::Missing,
         Age::Number(x) => {
-            if (0.0..151.0).contains(&x) {
+            if (0.0..(MAX_AGE + 1) as f64).contains(&x) {
                 AgeReading::Years(x.trunc() as u32)
             } else {
                 AgeReading::Unreadable

@@ -18,7 +18,8 @@
 //! | `codes` | `read` (valid codes), `invalid` (count), `top_invalid` (up to 20 most frequent invalid values with their `count`) |
 //! | `excluded` | codes left out: `primary` (primary diagnosis), `not_on_admission` |
 //! | `ages` | `missing` and `unreadable` age fields; `null` without an age column |
-//! | `dates` | `missing` and `unreadable` dates; `null` without a date column |
+//! | `dates` | `missing` and `unreadable` dates (per episode), `unreadable_examples` (the first distinct unreadable values), `read` (date fields read), `day_month_either` (of those, dates that would also be valid with day and month swapped), `day_month_proven` (dates whose day is over 12), `max_unreadable_percent`; `null` without a date column |
+//! | `present_on_admission` | `columns` (as given), `values_counting` (the values that count; `BLANK` is an empty field), `rule` (the rule in words), `indicators` (every value read with its `count`; `""` is a blank), `unrecognised` (indicators outside the guidelines' values and `values_counting`); `null` without `--poa` |
 //!
 //! ```
 //! use morbus::lists::Catalogue;
@@ -64,6 +65,7 @@ pub struct Provenance {
     pub excluded: Excluded,
     pub ages: Option<Ages>,
     pub dates: Option<Dates>,
+    pub present_on_admission: Option<PresentOnAdmission>,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize)]
@@ -134,7 +136,25 @@ pub struct Lookback {
 pub struct Dates {
     pub missing: u64,
     pub unreadable: u64,
+    pub unreadable_examples: Vec<String>,
+    pub read: u64,
+    pub day_month_either: u64,
+    pub day_month_proven: u64,
+    pub max_unreadable_percent: f64,
 }
+
+/// The present-on-admission rule of a run and the indicators it read.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct PresentOnAdmission {
+    pub columns: String,
+    pub values_counting: Vec<String>,
+    pub rule: String,
+    pub indicators: Vec<InvalidValue>,
+    pub unrecognised: u64,
+}
+
+/// The present-on-admission rule in words.
+pub const POA_RULE: &str = "a code of the episode being scored counts only when its indicator is one of values_counting (BLANK: an empty field); earlier episodes' codes count regardless. Y, N, U, W, 1 and blank are the values of the ICD-10-CM Official Guidelines for Coding and Reporting, Appendix I; any other value is unrecognised and its code does not count";
 
 #[derive(Clone, Debug, PartialEq, Serialize)]
 pub struct Excluded {
@@ -292,6 +312,26 @@ impl Provenance {
             dates: cfg.date.as_ref().map(|_| Dates {
                 missing: summary.missing_dates,
                 unreadable: summary.unreadable_dates,
+                unreadable_examples: summary
+                    .unreadable_date_examples
+                    .iter()
+                    .map(|v| String::from_utf8_lossy(v).into_owned())
+                    .collect(),
+                read: summary.dates_read,
+                day_month_either: summary.dates_either_order,
+                day_month_proven: summary.dates_order_proven,
+                max_unreadable_percent: cfg.max_unreadable_dates,
+            }),
+            present_on_admission: cfg.poa.as_ref().map(|p| PresentOnAdmission {
+                columns: p.clone(),
+                values_counting: cfg.poa_values.clone(),
+                rule: POA_RULE.into(),
+                indicators: summary
+                    .poa_by_value()
+                    .into_iter()
+                    .map(|(value, count)| InvalidValue { value, count })
+                    .collect(),
+                unrecognised: summary.unrecognised_poa,
             }),
         }
     }

@@ -159,10 +159,25 @@ pub struct Engine {
     options: ScoreOptions,
 }
 
+/// The oldest age read, in whole years: a larger value is unreadable (an
+/// entry error or an overflowing number, not an age). Common practice: the
+/// oldest documented human lifespan is under 123 years.
+pub const MAX_AGE: u32 = 130;
+
 /// Age in whole years read from a field: `None` when empty or unreadable.
 ///
-/// Accepts whole or decimal non-negative numbers up to 150 (decimals are
-/// truncated: 79.9 is 79).
+/// Accepts whole or decimal non-negative numbers up to [`MAX_AGE`] (130;
+/// decimals are truncated: 79.9 is 79). The digits are read with checked
+/// arithmetic, so a value past the range of any integer type is unreadable,
+/// never wrapped.
+///
+/// ```
+/// use morbus::score::read_age;
+/// assert_eq!(read_age(b"79.9"), Some(79));
+/// assert_eq!(read_age(b"130"), Some(130));
+/// assert_eq!(read_age(b"131"), None);
+/// assert_eq!(read_age(b"4294967366"), None); // 2^32 + 70, not 70
+/// ```
 pub fn read_age(raw: &[u8]) -> Option<u32> {
     let t = raw.trim_ascii();
     if t.is_empty() || t.len() > 12 {
@@ -176,8 +191,11 @@ pub fn read_age(raw: &[u8]) -> Option<u32> {
     {
         return None;
     }
-    let v: u32 = int.iter().fold(0u32, |a, &b| a * 10 + (b - b'0') as u32);
-    (v <= 150).then_some(v)
+    let mut v: u32 = 0;
+    for &b in int {
+        v = v.checked_mul(10)?.checked_add((b - b'0') as u32)?;
+    }
+    (v <= MAX_AGE).then_some(v)
 }
 
 impl Engine {

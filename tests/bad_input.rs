@@ -557,7 +557,16 @@ fn cases() -> Vec<Case> {
         lines(r, b"\n"),
         with(
             wide(),
-            &["--id", "pid", "--date", "date", "--lookback", "all"],
+            &[
+                "--id",
+                "pid",
+                "--date",
+                "date",
+                "--lookback",
+                "all",
+                "--max-unreadable-dates",
+                "100",
+            ],
         ),
         Expect::Accepted(Accepted {
             // The episode of 2021-03-01 sees the one of 2021-01-05; the
@@ -1349,7 +1358,7 @@ fn unreadable_and_unwritable_files() {
             ]),
             1,
             format!(
-                "morbus: error: cannot write {}: ",
+                "morbus: error: cannot create {}: ",
                 dir.join("no/dir/p.json")
             ),
         ),

@@ -461,6 +461,9 @@ fn provenance_records_lookback_dates_and_exclusions() {
         "--exclude-primary",
         "--index",
         "charlson:count",
+        // one unreadable date in three: over the default 1%
+        "--max-unreadable-dates",
+        "50",
         "--provenance",
         &prov,
         "-o",
@@ -477,6 +480,11 @@ fn provenance_records_lookback_dates_and_exclusions() {
     assert_eq!(o["dx_columns"], serde_json::json!(["dx1", "dx2"]));
     assert_eq!(v["dates"]["missing"], 1);
     assert_eq!(v["dates"]["unreadable"], 1);
+    assert_eq!(
+        v["dates"]["unreadable_examples"],
+        serde_json::json!(["2024-13-40"])
+    );
+    assert_eq!(v["dates"]["max_unreadable_percent"], 50.0);
     // The first diagnosis column of each of the 4 episodes is left out.
     assert_eq!(v["excluded"]["primary"], 4);
     assert_eq!(v["ages"], serde_json::Value::Null);

@@ -677,9 +677,19 @@ fn problems_name_the_row_and_a_failed_run_leaves_no_valid_file() {
         r.stderr
     );
     assert!(r.stderr.contains("XYZ"), "{}", r.stderr);
+    // A run that failed leaves no output at all, not even its temporary
+    // file (see tests/nothing_lost.rs).
     assert!(
-        ParquetRecordBatchReaderBuilder::try_new(File::open(&out).unwrap()).is_err(),
-        "a run that failed must not leave a complete-looking Parquet file"
+        !out.exists(),
+        "a run that failed must leave no Parquet file"
+    );
+    assert!(
+        std::fs::read_dir(dir.path()).unwrap().all(|e| !e
+            .unwrap()
+            .file_name()
+            .to_string_lossy()
+            .ends_with(".tmp")),
+        "a temporary file was left"
     );
     // Without --strict every row comes out, the invalid code counted.
     let r = morbus(&["score", s(&input), "--dx", "dx1", "-o", s(&out)]);

@@ -141,8 +141,17 @@ def _polars_fetch(frame: Any):
     import polars as pl
 
     def fetch(indices: List[int]):
-        # aliases: a column may be used twice (as diagnosis and id)
-        return frame.select([pl.col(frame.columns[i]).alias(f"c{k}") for k, i in enumerate(indices)])
+        # aliases: a column may be used twice (as diagnosis and id). A column
+        # of dtype Null (no values at all) goes as all-null text: polars
+        # exports it with a buffer that the Arrow C data interface does not
+        # allow for that type, and all-null text reads as all missing.
+        def one(k: int, i: int):
+            c = pl.col(frame.columns[i])
+            if frame.schema[frame.columns[i]] == pl.Null:
+                c = c.cast(pl.String)
+            return c.alias(f"c{k}")
+
+        return frame.select([one(k, i) for k, i in enumerate(indices)])
 
     return fetch
 
@@ -192,7 +201,8 @@ def score(
     exclude_primary: bool = False,
     primary: Optional[str] = None,
     poa: Optional[str] = None,
-    poa_values: Union[str, Sequence[str]] = ("Y", "W"),
+    poa_values: Union[str, Sequence[str]] = ("Y", "W", "1", "blank"),
+    max_unreadable_dates: Union[int, float, str] = 1,
 ) -> Any:
     """Add comorbidity and frailty scores to an extract (``morbus score``).
 
@@ -258,9 +268,25 @@ def score(
       being scored out (wide: the first diagnosis column; long: the rows
       flagged by ``primary``, a column holding 1, y, yes, true, p or primary).
       It still counts when an earlier episode is in the window.
-    - ``poa`` (long layout): present-on-admission column; codes of the
-      episode being scored count only when it holds one of ``poa_values``
-      (default ``("Y", "W")``, case-insensitive).
+    - ``max_unreadable_dates``: the percentage of non-empty dates that may
+      be unreadable (default 1); more raises ``ValueError`` naming the first
+      unreadable values and the format tried.
+    - ``poa``: present-on-admission column (long layout), or columns paired
+      in order with the ``dx`` columns (wide layout: names or globs, e.g.
+      ``"poa*"``; the counts must match); codes of the episode being scored
+      count only when their indicator is one of ``poa_values`` (default
+      ``("Y", "W", "1", "blank")``, case-insensitive; ``"blank"`` is an empty
+      field), following the ICD-10-CM Official Guidelines for Coding and
+      Reporting, Appendix I: Y, W and exempt codes (1 or blank) count, N and
+      U do not; any other value is unrecognised (counted in the report; its
+      code does not count; ``strict`` raises). Earlier episodes' codes count
+      regardless.
+
+    >>> import pandas as pd, morbus
+    >>> wide = pd.DataFrame({"dx1": ["I21.9"], "dx2": ["I50.9"], "poa1": ["Y"], "poa2": ["N"]})
+    >>> morbus.score(wide, dx="dx*", poa="poa*",
+    ...              index="charlson:charlson1987")["charlson_charlson1987"].tolist()
+    [1]
 
     >>> import pandas as pd, morbus
     >>> df = pd.DataFrame({
@@ -310,7 +336,7 @@ def score(
                  hierarchy=bool(hierarchy), lists=cat, dx_sep=dx_sep, strict=bool(strict), threads=threads),
             _history.native_options(date=date, date_format=date_format, lookback=lookback, episode=episode,
                                     exclude_primary=exclude_primary, primary=primary, poa=poa,
-                                    poa_values=poa_values),
+                                    poa_values=poa_values, max_unreadable_dates=max_unreadable_dates),
             provenance,
         )
 

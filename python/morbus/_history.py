@@ -50,6 +50,12 @@ def poa_list(poa_values: Union[str, Sequence[str]]) -> List[str]:
     return items
 
 
+def percent_text(value: Union[int, float, str]) -> str:
+    if isinstance(value, bool) or not isinstance(value, (int, float, str)):
+        raise TypeError(f"max_unreadable_dates must be a percentage (a number), not {value!r}")
+    return str(value)
+
+
 def local_times(kind: str, fetch):
     """`fetch` with timestamps that carry a time zone turned into local
     wall-clock times (the episode date is the local date)."""
@@ -88,6 +94,7 @@ def native_options(
     primary,
     poa,
     poa_values,
+    max_unreadable_dates=1,
 ) -> dict:
     from . import _optional_name
 
@@ -102,6 +109,7 @@ def native_options(
         primary=_optional_name(primary, "primary"),
         poa=_optional_name(poa, "poa"),
         poa_values=poa_list(poa_values),
+        max_unreadable_dates=percent_text(max_unreadable_dates),
     )
 
 
@@ -154,7 +162,14 @@ def hstack(kind: str, left: Any, right_table: Any) -> Any:
     if kind == "polars":
         import polars as pl
 
-        return left.hstack(pl.from_arrow(right_table).get_columns())
+        right = pl.from_arrow(right_table)
+        if left.width == 0:
+            # explain without id: no unit columns (an empty polars frame has
+            # height 0 and cannot take columns of another height)
+            return right
+        return left.hstack(right.get_columns())
+    if left.num_columns == 0:
+        return right_table
     table = left
     for field, column in zip(right_table.schema, right_table.columns):
         table = table.append_column(field, column)
@@ -192,7 +207,8 @@ def explain(
     exclude_primary: bool = False,
     primary: Optional[str] = None,
     poa: Optional[str] = None,
-    poa_values: Union[str, Sequence[str]] = ("Y", "W"),
+    poa_values: Union[str, Sequence[str]] = ("Y", "W", "1", "blank"),
+    max_unreadable_dates: Union[int, float, str] = 1,
     report: bool = False,
 ) -> Any:
     """Show, code by code, how each episode's scores come about (``morbus explain``).
@@ -257,6 +273,7 @@ def explain(
         primary=primary,
         poa=poa,
         poa_values=poa_values,
+        max_unreadable_dates=max_unreadable_dates,
     )
     stream, summary = _native.explain(
         names,

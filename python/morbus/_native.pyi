@@ -67,6 +67,7 @@ def score_history(
     primary: Optional[str],
     poa: Optional[str],
     poa_values: Sequence[str],
+    max_unreadable_dates: Optional[str] = None,
 ) -> Tuple[ArrowStream, Optional[ArrowStream], str, str]:
     """`morbus.score` over the patient history: (scores, per output row the
     0-based frame row of the episode's first record (long layout), provenance
@@ -93,6 +94,7 @@ def explain(
     primary: Optional[str],
     poa: Optional[str],
     poa_values: Sequence[str],
+    max_unreadable_dates: Optional[str] = None,
 ) -> Tuple[ArrowStream, str]:
     """`morbus explain` on a frame: (the columns from `row` on, summary line)."""
 def version() -> str: ...

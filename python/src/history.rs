@@ -33,9 +33,12 @@ use morbus::io::{write_field, RecordScanner};
 use morbus::pipeline::dates::write_iso_date;
 use morbus::pipeline::explain::ExplainFormat;
 use morbus::pipeline::history::History;
-use morbus::pipeline::{DateFormat, Header, Layout, ScoreConfig, Summary};
+use morbus::pipeline::{
+    percent_from, poa_columns, poa_values_from, DateFormat, Header, Layout, ScoreConfig, Summary,
+    DEFAULT_MAX_UNREADABLE_DATES,
+};
 use morbus::provenance::Provenance;
-use morbus::score::{Engine, IndexSpec, ScoreOptions, Value, DEFAULT_INDICES};
+use morbus::score::{Engine, IndexSpec, ScoreOptions, Value, DEFAULT_INDICES, MAX_AGE};
 use morbus::Error;
 
 use crate::{
@@ -105,7 +108,7 @@ impl Col<'_> {
                 // An age: whole years, decimals truncated (as
                 // `morbus::columnar::read_age_value`); out of range it stays
                 // as written, which reads as unreadable.
-                Some(x) if role == Role::Age && (0.0..151.0).contains(&x) => {
+                Some(x) if role == Role::Age && (0.0..(MAX_AGE + 1) as f64).contains(&x) => {
                     out.extend_from_slice((x.trunc() as u32).to_string().as_bytes())
                 }
                 Some(x) if x.fract() == 0.0 && x.abs() < 1e15 => {
@@ -292,22 +295,22 @@ fn resolve(
     };
     let date_format = match hist.date_format.as_deref() {
         None => DateFormat::Iso,
-        Some(p) => DateFormat::from_pattern(p).ok_or_else(|| {
-            usage(format!(
-                "date_format '{p}' must hold %Y, %m (or %b) and %d, e.g. '%d/%m/%Y'"
-            ))
-        })?,
+        Some(p) => DateFormat::from_pattern_checked(p)
+            .map_err(|why| usage(format!("date_format '{p}' {why}")))?,
     };
     if hist.date.is_some() && lookback.is_none() && hist.episode.is_none() {
         return Err(usage("date= is used with lookback=DAYS (or 'all')"));
     }
-    let poa_values: Vec<String> = hist
-        .poa_values
-        .iter()
-        .flat_map(|v| v.split(','))
-        .map(|v| v.trim().to_ascii_uppercase())
-        .filter(|v| !v.is_empty())
-        .collect();
+    let poa_values = poa_values_from(&hist.poa_values);
+    if poa_values.is_empty() {
+        return Err(usage(
+            "poa_values is empty; name the values that count (e.g. 'Y,W,1,blank')",
+        ));
+    }
+    let max_unreadable_dates = match &hist.max_unreadable_dates {
+        None => DEFAULT_MAX_UNREADABLE_DATES,
+        Some(t) => percent_from(t).map_err(|why| usage(format!("max_unreadable_dates {why}")))?,
+    };
     let cfg = ScoreConfig {
         dx,
         dx_sep,
@@ -321,6 +324,7 @@ fn resolve(
         primary: hist.primary,
         poa: hist.poa,
         poa_values,
+        max_unreadable_dates,
         age,
         strict,
         threads,
@@ -352,7 +356,12 @@ fn resolve(
     let episode_col = one(&cfg.episode, "episode")?;
     let date_col = one(&cfg.date, "date")?;
     let primary_col = one(&cfg.primary, "primary-diagnosis")?;
-    let poa_col = one(&cfg.poa, "present-on-admission")?;
+    let poa_cols = match &cfg.poa {
+        Some(p) => {
+            poa_columns(&header, &dx_cols, p, layout, ("poa=", "dx=")).map_err(column_error)?
+        }
+        None => Vec::new(),
+    };
     if cfg.lookback.is_some() && (id_col.is_none() || date_col.is_none()) {
         return Err(usage("lookback= needs id= (the patient column) and date="));
     }
@@ -361,9 +370,9 @@ fn resolve(
             "exclude_primary=True in the long layout needs primary=COLUMN (the column flagging the primary-diagnosis row)",
         ));
     }
-    if layout == Layout::Wide && (primary_col.is_some() || poa_col.is_some()) {
+    if layout == Layout::Wide && primary_col.is_some() {
         return Err(usage(
-            "primary= and poa= are for the long layout (one code per row); in the wide layout exclude_primary=True leaves out the first diagnosis column",
+            "primary= is for the long layout (one code per row); in the wide layout exclude_primary=True leaves out the first diagnosis column",
         ));
     }
     if layout == Layout::Wide && episode_col.is_some() {
@@ -406,7 +415,6 @@ fn resolve(
         (episode_col, Role::Id, "episode", "episode"),
         (date_col, Role::Date, "date", "date"),
         (primary_col, Role::Flag, "primary", "primary-diagnosis"),
-        (poa_col, Role::Flag, "poa", "present-on-admission"),
     ] {
         if let Some(c) = col {
             used.push(Used {
@@ -418,6 +426,15 @@ fn resolve(
             indices.push(c);
         }
     }
+    for (k, &c) in poa_cols.iter().enumerate() {
+        used.push(Used {
+            name: header.names[c].clone(),
+            role: Role::Flag,
+            text_name: format!("poa{k}"),
+            what: "present-on-admission",
+        });
+        indices.push(c);
+    }
     let text_name = |col: Option<usize>, name: &str| col.map(|_| name.to_string());
     let text_cfg = ScoreConfig {
         dx: (0..dx_cols.len()).map(|k| format!("d{k}")).collect(),
@@ -426,7 +443,7 @@ fn resolve(
         episode: text_name(episode_col, "episode"),
         date: text_name(date_col, "date"),
         primary: text_name(primary_col, "primary"),
-        poa: text_name(poa_col, "poa"),
+        poa: (!poa_cols.is_empty()).then(|| "poa*".to_string()),
         ..cfg.clone()
     };
     Ok(Run {
@@ -449,6 +466,7 @@ struct HistoryArgs {
     primary: Option<String>,
     poa: Option<String>,
     poa_values: Vec<String>,
+    max_unreadable_dates: Option<String>,
 }
 
 /// The used columns as delimited text, and the line on which each row's
@@ -516,6 +534,10 @@ fn frame_error(run: &Run, starts: &[u64], e: Error) -> PyErr {
         if let Some(head) = m.strip_suffix("(expected the --date-format, by default YYYY-MM-DD)") {
             m = format!("{head}(expected the date_format, by default YYYY-MM-DD)");
         }
+        m = m
+            .replace("--poa-values", "poa_values")
+            .replace("--max-unreadable-dates", "max_unreadable_dates")
+            .replace("--date-format", "date_format");
         m
     };
     match e {
@@ -527,6 +549,10 @@ fn frame_error(run: &Run, starts: &[u64], e: Error) -> PyErr {
             line: Some(l),
             message,
         } => PyValueError::new_err(format!("row {}: {}", row(l), names(message))),
+        Error::Data {
+            line: None,
+            message,
+        } => PyValueError::new_err(names(message)),
         other => value_error(other),
     }
 }
@@ -588,7 +614,7 @@ fn fetch_text(
 /// [`crate::score`]: `first_rows` (long layout) holds, per output row, the
 /// 0-based frame row of the episode's first record.
 #[pyfunction]
-#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values))]
+#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values, max_unreadable_dates=None))]
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn score_history<'py>(
     py: Python<'py>,
@@ -613,6 +639,7 @@ pub(crate) fn score_history<'py>(
     primary: Option<String>,
     poa: Option<String>,
     poa_values: Vec<String>,
+    max_unreadable_dates: Option<String>,
 ) -> PyResult<(ArrowStream, Option<ArrowStream>, String, String)> {
     let builtin;
     let lists: &PyLists = match &lists {
@@ -631,6 +658,7 @@ pub(crate) fn score_history<'py>(
         primary,
         poa,
         poa_values,
+        max_unreadable_dates,
     };
     let mut run = resolve(
         names, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads, hist,
@@ -697,7 +725,7 @@ fn rows_stream(rows: Vec<i64>) -> ArrowStream {
 /// `source_row` are the command line's 1-based data rows, the frame row plus
 /// one) and the summary line.
 #[pyfunction]
-#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values))]
+#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values, max_unreadable_dates=None))]
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn explain<'py>(
     py: Python<'py>,
@@ -721,6 +749,7 @@ pub(crate) fn explain<'py>(
     primary: Option<String>,
     poa: Option<String>,
     poa_values: Vec<String>,
+    max_unreadable_dates: Option<String>,
 ) -> PyResult<(ArrowStream, String)> {
     let builtin;
     let lists: &PyLists = match &lists {
@@ -739,6 +768,7 @@ pub(crate) fn explain<'py>(
         primary,
         poa,
         poa_values,
+        max_unreadable_dates,
     };
     let mut run = resolve(
         names, dx, layout, id, age, index, false, hierarchy, lists, dx_sep, strict, threads, hist,

@@ -311,8 +311,11 @@ def test_date_format_and_missing_dates():
     assert prov["options"]["date_format"] == "%d/%m/%Y"
     assert prov["options"]["lookback"] is not None
     assert "dates missing: 1" in prov["report"]
-    # read as ISO, none of them is a date: every episode alone
-    out, prov = morbus.score(df, **kw, provenance=True)
+    # read as ISO, none of them is a date: the run stops (more than 1%
+    # unreadable); allowed, every episode is scored alone
+    with pytest.raises(ValueError, match=r"^3 of 3 episodes with a date \(100\.00%\) have an unreadable date"):
+        morbus.score(df, **kw)
+    out, prov = morbus.score(df, **kw, max_unreadable_dates=100, provenance=True)
     assert charlson(out) == [1, 1, 0, 1]
     assert "unreadable: 3" in prov["report"]
     with pytest.raises(ValueError, match=r"row 0: unreadable date '01/01/2024' \(expected the date_format"):
@@ -333,7 +336,9 @@ def test_errors_carry_the_command_line_messages():
         morbus.score(df, dx="dx*", id="pid", date="when", lookback=30)
     with pytest.raises(ValueError, match="episode= is for the long layout"):
         morbus.score(df, dx="dx*", id="pid", episode="pid")
-    with pytest.raises(ValueError, match="primary= and poa= are for the long layout"):
+    with pytest.raises(ValueError, match="primary= is for the long layout"):
+        morbus.score(df, dx="dx*", primary="dx2")
+    with pytest.raises(ValueError, match="column 'dx2' is named by both poa= and dx="):
         morbus.score(df, dx="dx*", poa="dx2")
     with pytest.raises(ValueError, match="exclude_primary=True in the long layout needs primary=COLUMN"):
         morbus.score(df, dx="dx1", layout="long", id="pid", exclude_primary=True)

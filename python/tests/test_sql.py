@@ -82,6 +82,7 @@ def messy_extract(path: Path, episodes: int = 3000, seed: int = 151) -> Path:
             ["episode_id", "patient_id", "admission_date", "age"]
             + [f"dx{i}" for i in range(1, 11)]
             + ["codes_list"]
+            + [f"poa{i}" for i in range(1, 11)]
         )
         for e in range(episodes):
             r = rng.random()
@@ -103,7 +104,10 @@ def messy_extract(path: Path, episodes: int = 3000, seed: int = 151) -> Path:
             n = min(10, int(rng.expovariate(1 / 3.5)))
             dx = [value() for _ in range(n)] + [""] * (10 - n)
             multi = ";".join(value() for _ in range(rng.randrange(0, 4)))
-            w.writerow([f"E{e:05d}", patient, date, synth.ages(rng)] + dx + [multi])
+            # Present-on-admission indicators: the guidelines' values, blanks,
+            # case and spaces, and values outside them.
+            poa = [rng.choice(["Y", "Y", "Y", "N", "U", "W", "1", "", " y ", "E", "yes"]) for _ in range(10)]
+            w.writerow([f"E{e:05d}", patient, date, synth.ages(rng)] + dx + [multi] + poa)
     return path
 
 
@@ -353,7 +357,9 @@ def score_cli(run_cli, path: Path, args: Sequence[str]) -> Tuple[List[str], List
     engines)."""
     key = (str(path), *args)
     if key not in _SCORED:
-        code, out, err = run_cli(["score", str(path), "--quiet", *args])
+        # The generated extract has unreadable dates on purpose; the SQL
+        # cannot stop a run over them, so neither does the comparison.
+        code, out, err = run_cli(["score", str(path), "--quiet", "--max-unreadable-dates", "100", *args])
         assert code == 0, err
         rows = list(csv.reader(out.splitlines()))
         _SCORED[key] = (rows[0], rows[1:])
@@ -404,6 +410,8 @@ WIDE_CASES = {
     "lookback_365_primary": ["--id", "patient_id", "--date", "admission_date", "--lookback", "365", "--exclude-primary", "--age", "age"],
     "lookback_all": ["--id", "patient_id", "--date", "admission_date", "--lookback", "all", "--flags"],
 }
+DX10 = ",".join(f"dx{i}" for i in range(1, 11))
+POA10 = ",".join(f"poa{i}" for i in range(1, 11))
 
 
 def score_columns(cols: List[str]) -> List[str]:
@@ -427,6 +435,26 @@ def test_messy_wide(engine, data, run_cli, case):
     cli = score_cli(run_cli, data["messy_wide"], args)
     script = sql_script(run_cli, engine.name, "messy_wide", args)
     check_equal(cli, engine.run(script), score_columns(cli[0]), engine.ordered)
+
+
+@pytest.mark.parametrize(
+    "extra",
+    [
+        ["--id", "patient_id", "--date", "admission_date", "--lookback", "365"],
+        ["--poa-values", "Y,W"],
+        ["--exclude-primary", "--dx-sep", ";"],
+    ],
+    ids=["lookback", "values_y_w", "primary_separator"],
+)
+def test_messy_wide_present_on_admission(engine, data, run_cli, extra):
+    """Wide layout: each diagnosis column paired with its indicator column
+    (poa1 with dx1, ...): by name, and by glob with --columns."""
+    args = ["--dx", DX10, "--poa", POA10, "--age", "age", *extra]
+    cli = score_cli(run_cli, data["messy_wide"], args)
+    check_equal(cli, engine.run(sql_script(run_cli, engine.name, "messy_wide", args)), score_columns(cli[0]), engine.ordered)
+    columns = ",".join(read_header(data["messy_wide"]))
+    globbed = ["--dx", "dx?,dx10", "--poa", "poa?,poa10", "--columns", columns, "--age", "age", *extra]
+    check_equal(cli, engine.run(sql_script(run_cli, engine.name, "messy_wide", globbed)), score_columns(cli[0]), engine.ordered)
 
 
 def test_messy_wide_separator_and_globs(engine, data, run_cli):

@@ -8,12 +8,18 @@ use morbus::lists::diff::CodeLine;
 use morbus::lists::{self, CodeList};
 use morbus::Error;
 
+/// A line of a list's text for the terminal: control characters escaped as
+/// everywhere else (see `morbus::pipeline::escaped`).
+pub fn shown(text: &str) -> String {
+    morbus::pipeline::escaped(text.as_bytes())
+}
+
 fn write_err(e: std::io::Error) -> Error {
     Error::io("cannot write output", e)
 }
 
 fn json_out<T: serde::Serialize>(v: &T) -> Result<(), Error> {
-    let mut out = std::io::stdout().lock();
+    let mut out = morbus::io::atomic::stdout();
     let text = serde_json::to_string_pretty(v)
         .map_err(|e| Error::Usage(format!("cannot write JSON: {e}")))?;
     writeln!(out, "{text}").map_err(write_err)
@@ -27,7 +33,7 @@ pub fn show(list: &CodeList, json: bool) -> Result<(), Error> {
     }
     let mut s = String::new();
     let mut line = |t: String| {
-        s.push_str(t.trim_end());
+        s.push_str(&shown(t.trim_end()));
         s.push('\n');
     };
     line(format!("list               {}", d.name));
@@ -123,8 +129,7 @@ pub fn show(list: &CodeList, json: bool) -> Result<(), Error> {
             line(format!("  {} {to}: +{}  [{}]", a.from, a.points, a.source));
         }
     }
-    std::io::stdout()
-        .lock()
+    morbus::io::atomic::stdout()
         .write_all(s.as_bytes())
         .map_err(write_err)
 }
@@ -132,7 +137,7 @@ pub fn show(list: &CodeList, json: bool) -> Result<(), Error> {
 /// `lists check`: every diagnostic on standard output; exit 2 on errors.
 pub fn check(path: &Path) -> Result<(), Error> {
     let report = lists::check_path(path);
-    let mut out = std::io::stdout().lock();
+    let mut out = morbus::io::atomic::stdout();
     for d in report.diagnostics() {
         writeln!(out, "{d}").map_err(write_err)?;
     }
@@ -169,7 +174,7 @@ pub fn check(path: &Path) -> Result<(), Error> {
         failed
     )
     .map_err(write_err)?;
-    drop(out);
+    out.flush().map_err(write_err)?;
     if errors > 0 {
         return Err(Error::Usage(format!(
             "{} has {errors} error(s) in code lists (shown above)",
@@ -198,7 +203,7 @@ pub fn diff(a: &CodeList, b: &CodeList, json: bool) -> Result<(), Error> {
     }
     let mut s = String::new();
     let mut line = |t: String| {
-        s.push_str(t.trim_end());
+        s.push_str(&shown(t.trim_end()));
         s.push('\n');
     };
     line(format!(
@@ -298,8 +303,7 @@ pub fn diff(a: &CodeList, b: &CodeList, json: bool) -> Result<(), Error> {
     for c in &d.sources_changed {
         line(format!("{}: '{}' -> '{}'", c.what, c.before, c.after));
     }
-    std::io::stdout()
-        .lock()
+    morbus::io::atomic::stdout()
         .write_all(s.as_bytes())
         .map_err(write_err)
 }

@@ -6,13 +6,22 @@ use std::path::PathBuf;
 
 use clap::{Args, Parser, Subcommand, ValueEnum};
 
-use morbus::io::{Extract, Table};
+use morbus::io::{AtomicFile, End, Extract, Table};
 use morbus::lists::{self, Catalogue, Loaded};
 use morbus::pipeline::explain::ExplainFormat;
 use morbus::pipeline::{self, DateFormat, Layout, ScoreConfig};
 use morbus::provenance::Provenance;
 use morbus::score::{Engine, IndexSpec, ScoreOptions, DEFAULT_INDICES};
 use morbus::Error;
+
+/// `eprintln!` that never panics: a closed or full standard error loses
+/// the message, not the run.
+macro_rules! say {
+    ($($arg:tt)*) => {{
+        use std::io::Write as _;
+        let _ = writeln!(std::io::stderr(), $($arg)*);
+    }};
+}
 
 mod list_cmds;
 mod progress;
@@ -120,11 +129,13 @@ struct SqlArgs {
     /// Long layout: column flagging the primary-diagnosis row (1, y, yes, true, p, primary).
     #[arg(long, value_name = "COL")]
     primary: Option<String>,
-    /// Long layout: present-on-admission indicator column.
-    #[arg(long, value_name = "COL")]
+    /// Present-on-admission indicator column (long layout), or columns paired in order
+    /// with the --dx columns (wide layout: names, or globs with --columns).
+    #[arg(long, value_name = "COLS")]
     poa: Option<String>,
-    /// Present-on-admission values that count, comma-separated.
-    #[arg(long, value_name = "VALUES", default_value = "Y,W")]
+    /// Present-on-admission values that count, comma-separated; `blank` stands for an
+    /// empty field (default as in `score`: Y, W and exempt codes, 1 or blank).
+    #[arg(long, value_name = "VALUES", default_value = "Y,W,1,blank")]
     poa_values: String,
     /// Index specifications LIST[:WEIGHTING], comma-separated or repeated.
     #[arg(long = "index", value_name = "SPEC")]
@@ -261,13 +272,20 @@ struct InputArgs {
     /// Long layout: column flagging the primary-diagnosis row (1, y, yes, true, p, primary).
     #[arg(long, value_name = "COL")]
     primary: Option<String>,
-    /// Long layout: present-on-admission indicator column; codes of the episode being
-    /// scored count only when it holds one of --poa-values.
-    #[arg(long, value_name = "COL")]
+    /// Present-on-admission indicator column (long layout), or columns paired in order
+    /// with the --dx columns (wide layout: names or globs, e.g. 'poa*'); codes of the
+    /// episode being scored count only when their indicator is one of --poa-values.
+    #[arg(long, value_name = "COLS")]
     poa: Option<String>,
-    /// Present-on-admission values that count, comma-separated.
-    #[arg(long, value_name = "VALUES", default_value = "Y,W")]
+    /// Present-on-admission values that count, comma-separated; `blank` stands for an
+    /// empty field. The default follows the ICD-10-CM reporting guidelines: Y, W and
+    /// exempt codes (1 or blank) count, N and U do not.
+    #[arg(long, value_name = "VALUES", default_value = "Y,W,1,blank")]
     poa_values: String,
+    /// Stop (exit 1) when more than this percentage of the non-empty episode dates
+    /// cannot be read with the date format.
+    #[arg(long, value_name = "PERCENT", default_value = "1")]
+    max_unreadable_dates: String,
     /// Index specifications LIST[:WEIGHTING], comma-separated or repeated.
     #[arg(long = "index", value_name = "SPEC")]
     index: Vec<String>,
@@ -388,6 +406,10 @@ pub fn run() -> i32 {
             return code;
         }
     };
+    #[cfg(unix)]
+    if let Err(e) = morbus::io::atomic::remove_temporaries_on_signals() {
+        say!("morbus: warning: cannot watch for interrupts ({e}); an interrupted run may leave a temporary file");
+    }
     let result = match cli.command {
         Command::Score(a) => score(*a),
         Command::Explain(a) => explain(*a),
@@ -397,8 +419,11 @@ pub fn run() -> i32 {
     };
     match result {
         Ok(()) => 0,
+        // The reader of standard output chose to stop (`| head`): the run
+        // ends quietly, as Unix tools do.
+        Err(_) if morbus::io::atomic::stdout_closed_by_reader() => 0,
         Err(e) => {
-            eprintln!("morbus: error: {e}");
+            say!("morbus: error: {e}");
             e.exit_code()
         }
     }
@@ -446,13 +471,13 @@ fn catalogue(dir: Option<&PathBuf>, quiet: bool, strict: bool) -> Result<Catalog
         }
         for l in loaded {
             for w in &l.warnings {
-                eprintln!("morbus: {w}");
+                say!("morbus: {w}");
             }
             let name = l.list.name.clone();
             let origin = l.list.origin.clone();
             if let Some(old) = cat.insert(l.list) {
                 if !quiet {
-                    eprintln!("morbus: list '{name}' from {origin} replaces the {old} list");
+                    say!("morbus: list '{name}' from {origin} replaces the {old} list");
                 }
             }
         }
@@ -505,12 +530,14 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
     };
     let date_format = match a.date_format.as_deref() {
         None => DateFormat::Iso,
-        Some(p) => DateFormat::from_pattern(p).ok_or_else(|| {
-            Error::Usage(format!(
-                "--date-format '{p}' must hold %Y, %m (or %b) and %d, e.g. '%d/%m/%Y'"
-            ))
-        })?,
+        Some(p) => DateFormat::from_pattern_checked(p)
+            .map_err(|why| Error::Usage(format!("--date-format '{p}' {why}")))?,
     };
+    if a.poa_values.trim().is_empty() {
+        return Err(Error::Usage(
+            "--poa-values is empty; name the values that count (e.g. Y,W,1,blank)".into(),
+        ));
+    }
     if a.date.is_some() && lookback.is_none() && a.episode.is_none() {
         return Err(Error::Usage(
             "--date is used with --lookback DAYS (or 'all')".into(),
@@ -524,12 +551,9 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
         exclude_primary: a.exclude_primary,
         primary: a.primary.clone(),
         poa: a.poa.clone(),
-        poa_values: a
-            .poa_values
-            .split(',')
-            .map(|v| v.trim().to_ascii_uppercase())
-            .filter(|v| !v.is_empty())
-            .collect(),
+        poa_values: pipeline::poa_values_from(std::slice::from_ref(&a.poa_values)),
+        max_unreadable_dates: pipeline::percent_from(&a.max_unreadable_dates)
+            .map_err(|why| Error::Usage(format!("--max-unreadable-dates {why}")))?,
         dx: a.dx.clone(),
         dx_sep: a
             .dx_sep
@@ -546,18 +570,31 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
     })
 }
 
+/// An optional file output for [`morbus::io::check_distinct`].
+fn file_end<'a>(role: &'a str, path: &'a Option<PathBuf>) -> Option<End<'a>> {
+    path.as_deref().map(|p| End::new(role, Some(p)))
+}
+
 fn score(a: ScoreArgs) -> Result<(), Error> {
     let (_cat, engine) = engine_for(&a.input, a.flags)?;
     let cfg = config_for(&a.input)?;
-    // Create the provenance file before the output and the run, so that an
-    // unwritable path fails before any work is done.
+    morbus::io::check_distinct(
+        &[End::new("input", a.input.input.as_deref())],
+        &[
+            Some(End::new("--output", a.output.as_deref())),
+            file_end("--provenance", &a.provenance),
+        ]
+        .into_iter()
+        .flatten()
+        .collect::<Vec<_>>(),
+    )?;
+    // Create the provenance file (a temporary file beside it) before the
+    // output and the run, so that an unwritable path fails before any work
+    // is done; it is written at the end, from the run's final counts.
     let provenance_file = a
         .provenance
-        .as_ref()
-        .map(|p| {
-            std::fs::File::create(p)
-                .map_err(|e| Error::io(format!("cannot write {}", p.display()), e))
-        })
+        .as_deref()
+        .map(morbus::io::AtomicFile::create)
         .transpose()?;
     let parquet_out = wants_parquet(a.output_format, a.output.as_deref());
     let run = || -> Result<pipeline::Summary, Error> {
@@ -593,17 +630,10 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         output.finish()?;
         Ok(summary)
     };
-    let summary = match run() {
-        Ok(s) => s,
-        Err(e) => {
-            // No provenance for a run that did not finish.
-            if let Some(p) = &a.provenance {
-                let _ = std::fs::remove_file(p);
-            }
-            return Err(e);
-        }
-    };
-    if let (Some(mut file), Some(path)) = (provenance_file, a.provenance.as_ref()) {
+    // A run that fails drops the provenance file's guard: no provenance for
+    // a run that did not finish.
+    let summary = run()?;
+    if let Some(file) = provenance_file {
         let shown = |p: &Option<PathBuf>| {
             p.as_ref()
                 .filter(|p| p.as_os_str() != "-")
@@ -611,11 +641,10 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         };
         let prov = Provenance::new(&engine, &cfg, &summary)
             .with_files(shown(&a.input.input), shown(&a.output));
-        file.write_all(prov.to_json().as_bytes())
-            .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))?;
+        file.write_and_commit(prov.to_json().as_bytes())?;
     }
     if !a.input.quiet {
-        eprintln!("{}", summary.report());
+        say!("{}", summary.report());
     }
     Ok(())
 }
@@ -629,6 +658,10 @@ fn explain(a: ExplainArgs) -> Result<(), Error> {
             "--json writes JSON lines; leave it out for a Parquet output".into(),
         ));
     }
+    morbus::io::check_distinct(
+        &[End::new("input", a.input.input.as_deref())],
+        &[End::new("--output", a.output.as_deref())],
+    )?;
     // explain keeps only the id and episode columns.
     let mut input = open_extract(&a.input, &cfg, true, &[])?;
     let mut output = input.open_output(
@@ -653,7 +686,7 @@ fn explain(a: ExplainArgs) -> Result<(), Error> {
     .map_err(|e| input.translate(e))?;
     output.finish()?;
     if !a.input.quiet {
-        eprintln!("{}", summary.report());
+        say!("{}", summary.report());
     }
     Ok(())
 }
@@ -697,60 +730,73 @@ fn compare(a: CompareArgs) -> Result<(), Error> {
         adjust: split_columns(&a.adjust),
         adjust_categorical: split_columns(&a.adjust_cat),
     };
+    morbus::io::check_distinct(
+        &[End::new("input", a.input.input.as_deref())],
+        &[
+            Some(End::new("standard output", None)),
+            file_end("--json", &a.json),
+            file_end("--report", &a.report),
+        ]
+        .into_iter()
+        .flatten()
+        .collect::<Vec<_>>(),
+    )?;
+    morbus::io::atomic::check_stdout_open()?;
+    // Created before the run: an unwritable path fails before any work.
+    let json_file = a.json.as_deref().map(AtomicFile::create).transpose()?;
+    let report_file = a.report.as_deref().map(AtomicFile::create).transpose()?;
     let mut wanted = vec![opts.outcome.clone()];
     wanted.extend(opts.adjust.iter().cloned());
     wanted.extend(opts.adjust_categorical.iter().cloned());
     let mut input = open_extract(&a.input, &cfg, true, &wanted)?;
     let (result, summary) = morbus::compare::compare(&engine, &cfg, &opts, input.take_reader())
         .map_err(|e| input.translate(e))?;
-    let write_file = |path: &PathBuf, text: &str| -> Result<(), Error> {
-        std::fs::write(path, text)
-            .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))
-    };
-    if let Some(p) = &a.json {
+    if let Some(file) = json_file {
         let text = serde_json::to_string_pretty(&result)
             .map_err(|e| Error::Usage(format!("cannot encode the results as JSON: {e}")))?;
-        write_file(p, &(text + "\n"))?;
+        file.write_and_commit((text + "\n").as_bytes())?;
     }
-    if let Some(p) = &a.report {
-        write_file(p, &morbus::compare::html_report(&result))?;
+    if let Some(file) = report_file {
+        file.write_and_commit(morbus::compare::html_report(&result).as_bytes())?;
     }
-    let mut out = std::io::stdout().lock();
+    let mut out = morbus::io::atomic::stdout();
     out.write_all(morbus::compare::text_table(&result).as_bytes())
         .and_then(|()| out.flush())
         .map_err(|e| Error::io("cannot write output", e))?;
     if !a.input.quiet {
         // compare writes no rows: leave that count out of the shared summary.
-        eprintln!("{}", summary.report().replacen(", 0 rows written", "", 1));
+        say!("{}", summary.report().replacen(", 0 rows written", "", 1));
     }
     Ok(())
 }
 
 fn list_table(cat: &Catalogue) -> Result<(), Error> {
-    let mut out = std::io::stdout().lock();
+    let mut out = morbus::io::atomic::stdout();
     let rows: Vec<[String; 8]> = cat
         .lists()
         .iter()
         .map(|l| {
             [
-                l.name.clone(),
-                l.version.clone(),
+                list_cmds::shown(&l.name),
+                list_cmds::shown(&l.version),
                 l.conditions.len().to_string(),
                 l.code_entries().to_string(),
-                l.weightings
-                    .iter()
-                    .map(|w| {
-                        if w.name == l.default_weighting {
-                            format!("{} (default)", w.name)
-                        } else {
-                            w.name.clone()
-                        }
-                    })
-                    .collect::<Vec<_>>()
-                    .join(", "),
+                list_cmds::shown(
+                    &l.weightings
+                        .iter()
+                        .map(|w| {
+                            if w.name == l.default_weighting {
+                                format!("{} (default)", w.name)
+                            } else {
+                                w.name.clone()
+                            }
+                        })
+                        .collect::<Vec<_>>()
+                        .join(", "),
+                ),
                 l.checksum[..12].to_string(),
-                l.origin.to_string(),
-                l.source.clone(),
+                list_cmds::shown(&l.origin.to_string()),
+                list_cmds::shown(&l.source),
             ]
         })
         .collect();
@@ -807,6 +853,11 @@ fn sql(a: SqlArgs) -> Result<(), Error> {
         LayoutArg::Long => Layout::Long,
     };
     let lookback = parse_lookback(a.lookback.as_deref())?;
+    if a.poa_values.trim().is_empty() {
+        return Err(Error::Usage(
+            "--poa-values is empty; name the values that count (e.g. Y,W,1,blank)".into(),
+        ));
+    }
     if a.date.is_some() && lookback.is_none() && a.episode.is_none() {
         return Err(Error::Usage(
             "--date is used with --lookback DAYS (or 'all')".into(),
@@ -827,12 +878,7 @@ fn sql(a: SqlArgs) -> Result<(), Error> {
         exclude_primary: a.exclude_primary,
         primary: a.primary.clone(),
         poa: a.poa.clone(),
-        poa_values: a
-            .poa_values
-            .split(',')
-            .map(|v| v.trim().to_ascii_uppercase())
-            .filter(|v| !v.is_empty())
-            .collect(),
+        poa_values: pipeline::poa_values_from(std::slice::from_ref(&a.poa_values)),
         age: a.age.clone(),
         ..ScoreConfig::default()
     };
@@ -917,6 +963,9 @@ fn parse_lookback(text: Option<&str>) -> Result<Option<u32>, Error> {
 }
 
 fn lists_command(a: ListsArgs) -> Result<(), Error> {
+    if !matches!(a.command, Some(ListsCommand::Export { .. })) {
+        morbus::io::atomic::check_stdout_open()?;
+    }
     match a.command {
         None => list_table(&catalogue(a.lists.as_ref(), false, false)?),
         Some(ListsCommand::Check { path }) => list_cmds::check(&path),
@@ -949,7 +998,7 @@ fn lists_command(a: ListsArgs) -> Result<(), Error> {
             let cat = catalogue(a.lists.as_ref(), false, false)?;
             let l = resolve_list(&name, &cat)?;
             let path = lists::export_to_dir(&l.list, &dir, force)?;
-            eprintln!(
+            say!(
                 "morbus: wrote list '{}' version {} ({} code entries, checksum {}) to {}",
                 l.list.name,
                 l.list.version,
@@ -972,7 +1021,7 @@ fn lists_command(a: ListsArgs) -> Result<(), Error> {
 fn resolve_list(arg: &str, cat: &Catalogue) -> Result<Loaded, Error> {
     let l = lists::resolve(arg, cat)?;
     for w in &l.warnings {
-        eprintln!("morbus: {w}");
+        say!("morbus: {w}");
     }
     Ok(l)
 }

@@ -36,6 +36,15 @@ pub struct BlockReader<R: Read> {
 /// Longest record the reader accepts ([`BlockReader::with_max_record`]).
 pub const MAX_RECORD_BYTES: usize = 256 << 20;
 
+/// A byte count as messages show it: `256 MiB`, or `4096 bytes`.
+fn size_text(bytes: usize) -> String {
+    if bytes >= 1 << 20 && bytes % (1 << 20) == 0 {
+        format!("{} MiB", bytes >> 20)
+    } else {
+        format!("{bytes} bytes")
+    }
+}
+
 #[derive(Clone, Copy, PartialEq)]
 enum Q {
     FieldStart,
@@ -207,11 +216,20 @@ impl<R: Read> BlockReader<R> {
                 return Ok(Some(self.emit(buf, false)));
             }
             if buf.len() > self.max_record {
+                // Suggest an open quote only where one is open.
+                let why = if ends_inside_quotes(&buf[skip..], self.delimiter) {
+                    "a quoted field opened in it is never closed"
+                } else {
+                    "no line break in it"
+                };
                 return Err(io::Error::new(
                     io::ErrorKind::InvalidData,
                     format!(
-                        "line {}: a record runs past {} bytes without ending; is a quote left open?",
-                        self.next_line, self.max_record
+                        "line {}: a record runs past {} without ending ({why}); {} is the limit \
+                         for one record",
+                        self.next_line,
+                        size_text(self.max_record),
+                        size_text(self.max_record)
                     ),
                 ));
             }
@@ -282,7 +300,26 @@ mod tests {
         }
         let e = err.expect("the open quote runs past the limit");
         assert_eq!(e.kind(), io::ErrorKind::InvalidData);
-        assert!(e.to_string().starts_with("line 3: "), "{e}");
+        assert_eq!(
+            e.to_string(),
+            "line 3: a record runs past 4096 bytes without ending (a quoted field opened in it is \
+             never closed); 4096 bytes is the limit for one record"
+        );
+        // Without a quote the message does not suggest one.
+        let long = [b"a,b\n1,".as_slice(), &[b'x'; 10_000]].concat();
+        let mut r = BlockReader::new(&long[..], b',', 1024).with_max_record(4096);
+        let e = loop {
+            match r.next_block() {
+                Ok(Some(_)) => {}
+                Ok(None) => panic!("the long record runs past the limit"),
+                Err(e) => break e,
+            }
+        };
+        assert_eq!(
+            e.to_string(),
+            "line 2: a record runs past 4096 bytes without ending (no line break in it); \
+             4096 bytes is the limit for one record"
+        );
         // The same text under the default limit reads to the end.
         let mut r = BlockReader::new(&text[..], b',', 1024);
         let mut n = 0;

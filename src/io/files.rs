@@ -38,7 +38,9 @@ pub fn open_input(path: Option<&Path>) -> Result<Input, Error> {
                     p.display()
                 )));
             }
-            let size = f.metadata().ok().map(|m| m.len());
+            // A FIFO or process substitution (`<(cat f.parquet)`) is a
+            // stream: no size, and a Parquet one is read whole like stdin.
+            let size = f.metadata().ok().filter(|m| m.is_file()).map(|m| m.len());
             (Box::new(f), size, p.display().to_string())
         }
     };
@@ -51,8 +53,15 @@ pub fn open_input(path: Option<&Path>) -> Result<Input, Error> {
         return parquet_input(path, buffered, size, name);
     }
     let reader: Box<dyn Read + Send> = if compressed {
-        Box::new(MultiGzDecoder::new(buffered))
+        let mut text = BufReader::with_capacity(1 << 16, MultiGzDecoder::new(buffered));
+        // The same message as a damaged stream found later in the run.
+        let head = text
+            .fill_buf()
+            .map_err(|e| Error::io("cannot read input", e))?;
+        refuse_wide_encodings(head, &name)?;
+        Box::new(text)
     } else {
+        refuse_wide_encodings(head, &name)?;
         Box::new(buffered)
     };
     Ok(Input {
@@ -65,6 +74,42 @@ pub fn open_input(path: Option<&Path>) -> Result<Input, Error> {
     })
 }
 
+/// The UTF-16 or UTF-32 encoding of text starting with `head`, recognised
+/// by its byte-order mark or, without one, by the NUL bytes that ASCII
+/// characters carry in those encodings.
+pub fn wide_encoding(head: &[u8]) -> Option<&'static str> {
+    const MARKS: [(&[u8], &str); 4] = [
+        (b"\xff\xfe\0\0", "UTF-32 (little-endian)"),
+        (b"\0\0\xfe\xff", "UTF-32 (big-endian)"),
+        (b"\xff\xfe", "UTF-16 (little-endian)"),
+        (b"\xfe\xff", "UTF-16 (big-endian)"),
+    ];
+    if let Some((_, name)) = MARKS.iter().find(|(m, _)| head.starts_with(m)) {
+        return Some(name);
+    }
+    // Without a mark: the first characters of a header are ASCII.
+    match head {
+        [a, 0, 0, 0, b, 0, 0, 0, ..] if *a != 0 && *b != 0 => Some("UTF-32 (little-endian)"),
+        [0, 0, 0, a, 0, 0, 0, b, ..] if *a != 0 && *b != 0 => Some("UTF-32 (big-endian)"),
+        [a, 0, b, 0, ..] if *a != 0 && *b != 0 => Some("UTF-16 (little-endian)"),
+        [0, a, 0, b, ..] if *a != 0 && *b != 0 => Some("UTF-16 (big-endian)"),
+        _ => None,
+    }
+}
+
+fn refuse_wide_encodings(head: &[u8], name: &str) -> Result<(), Error> {
+    match wide_encoding(head) {
+        None => Ok(()),
+        Some(encoding) => Err(Error::data(
+            None,
+            format!(
+                "{name} is {encoding} text; morbus reads UTF-8 (or ASCII) text: convert it \
+                 first (e.g. with iconv -t UTF-8)"
+            ),
+        )),
+    }
+}
+
 #[cfg(feature = "parquet")]
 fn parquet_input(
     path: Option<&Path>,
@@ -74,7 +119,7 @@ fn parquet_input(
 ) -> Result<Input, Error> {
     use crate::io::parquet::Source;
     let source = match path {
-        Some(p) if p.as_os_str() != "-" => Source::File(p.to_path_buf()),
+        Some(p) if p.as_os_str() != "-" && size.is_some() => Source::File(p.to_path_buf()),
         // Parquet keeps its index at the end: a stream is read whole.
         _ => {
             let mut all = Vec::new();
@@ -111,12 +156,17 @@ fn parquet_input(
 pub struct Output {
     pub writer: Writer,
     pub name: String,
+    /// A file output's temporary file, renamed into place by
+    /// [`Output::finish`]; removed when the output is dropped unfinished.
+    guard: Option<super::atomic::OutputGuard>,
 }
 
 /// Where an output's bytes go: delimited text (plain or gzip), or a
 /// Parquet file written from that text.
 pub enum Writer {
     Text(Box<dyn Write + Send>),
+    /// Gzip-compressed text: its trailer is written by [`Output::finish`].
+    Gzip(GzEncoder<BufWriter<Box<dyn Write + Send>>>),
     #[cfg(feature = "parquet")]
     Parquet(Box<crate::io::parquet::ParquetSink>),
 }
@@ -126,6 +176,7 @@ impl Write for Writer {
     fn write(&mut self, buf: &[u8]) -> io::Result<usize> {
         match self {
             Writer::Text(w) => w.write(buf),
+            Writer::Gzip(w) => w.write(buf),
             #[cfg(feature = "parquet")]
             Writer::Parquet(w) => w.write(buf),
         }
@@ -134,6 +185,7 @@ impl Write for Writer {
     fn write_all(&mut self, buf: &[u8]) -> io::Result<()> {
         match self {
             Writer::Text(w) => w.write_all(buf),
+            Writer::Gzip(w) => w.write_all(buf),
             #[cfg(feature = "parquet")]
             Writer::Parquet(w) => w.write_all(buf),
         }
@@ -141,6 +193,7 @@ impl Write for Writer {
     fn flush(&mut self) -> io::Result<()> {
         match self {
             Writer::Text(w) => w.flush(),
+            Writer::Gzip(w) => w.flush(),
             #[cfg(feature = "parquet")]
             Writer::Parquet(w) => w.flush(),
         }
@@ -148,15 +201,20 @@ impl Write for Writer {
 }
 
 impl Output {
-    /// Flushes a text output; writes the rest and the footer of a Parquet
-    /// output.
+    /// Flushes a text output, writes a gzip output's trailer, writes the
+    /// rest and the footer of a Parquet output; then renames a file output
+    /// into place (until then an existing file of its name is untouched).
     pub fn finish(self) -> Result<(), Error> {
+        let fail = |e| Error::io(format!("cannot write {}", self.name), e);
         match self.writer {
-            Writer::Text(mut w) => w
-                .flush()
-                .map_err(|e| Error::io(format!("cannot write {}", self.name), e)),
+            Writer::Text(mut w) => w.flush().map_err(fail)?,
+            Writer::Gzip(w) => w.finish().and_then(|mut w| w.flush()).map_err(fail)?,
             #[cfg(feature = "parquet")]
-            Writer::Parquet(w) => w.finish(),
+            Writer::Parquet(w) => w.finish()?,
+        }
+        match self.guard {
+            Some(g) => g.commit(),
+            None => Ok(()),
         }
     }
 }
@@ -169,18 +227,20 @@ pub fn is_parquet_path(path: &Path) -> bool {
 }
 
 /// Opens an output path (`-` or `None`: standard output); a name ending in
-/// `.gz` is written gzip-compressed.
+/// `.gz` is written gzip-compressed. A file is written to a temporary file
+/// beside it, renamed into place by [`Output::finish`] (see
+/// [`super::atomic`]).
 pub fn open_output(path: Option<&Path>) -> Result<Output, Error> {
-    let (raw, name) = raw_output(path)?;
-    let writer: Box<dyn Write + Send> =
-        if path.is_some_and(|p| p.extension().is_some_and(|x| x == "gz")) {
-            Box::new(GzEncoder::new(raw, Compression::fast()))
-        } else {
-            Box::new(raw)
-        };
+    let (raw, name, guard) = raw_output(path)?;
+    let writer = if path.is_some_and(|p| p.extension().is_some_and(|x| x == "gz")) {
+        Writer::Gzip(GzEncoder::new(raw, Compression::fast()))
+    } else {
+        Writer::Text(Box::new(raw))
+    };
     Ok(Output {
-        writer: Writer::Text(writer),
+        writer,
         name,
+        guard,
     })
 }
 
@@ -194,27 +254,80 @@ pub fn open_parquet_output(
     columns: crate::io::parquet::OutputColumns,
     passthrough: Option<crate::io::parquet::Source>,
 ) -> Result<Output, Error> {
-    let (raw, name) = raw_output(path)?;
+    let (raw, name, guard) = raw_output(path)?;
     let sink = crate::io::parquet::ParquetSink::new(Box::new(raw), delimiter, columns, passthrough);
     Ok(Output {
         writer: Writer::Parquet(Box::new(sink)),
         name,
+        guard,
     })
 }
 
-fn raw_output(path: Option<&Path>) -> Result<(BufWriter<Box<dyn Write + Send>>, String), Error> {
+type RawOutput = (
+    BufWriter<Box<dyn Write + Send>>,
+    String,
+    Option<super::atomic::OutputGuard>,
+);
+
+fn raw_output(path: Option<&Path>) -> Result<RawOutput, Error> {
     match path {
         Some(p) if p.as_os_str() != "-" => {
-            let f = File::create(p)
-                .map_err(|e| Error::io(format!("cannot create {}", p.display()), e))?;
+            let (f, guard) = super::atomic::create_output(p)?;
             Ok((
                 BufWriter::with_capacity(1 << 17, Box::new(f)),
                 p.display().to_string(),
+                guard,
             ))
         }
-        _ => Ok((
-            BufWriter::with_capacity(1 << 17, Box::new(io::stdout())),
-            "standard output".into(),
-        )),
+        _ => {
+            super::atomic::check_stdout_open()?;
+            Ok((
+                BufWriter::with_capacity(1 << 17, Box::new(super::atomic::stdout())),
+                "standard output".into(),
+                None,
+            ))
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::wide_encoding;
+
+    #[test]
+    fn wide_encodings_are_recognised() {
+        // Byte-order marks as the Unicode Standard defines them (U+FEFF in
+        // each encoding); the NUL patterns are those of ASCII letters.
+        let utf16le: Vec<u8> = "id,dx1\n"
+            .encode_utf16()
+            .flat_map(u16::to_le_bytes)
+            .collect();
+        let utf16be: Vec<u8> = "id,dx1\n"
+            .encode_utf16()
+            .flat_map(u16::to_be_bytes)
+            .collect();
+        let utf32le: Vec<u8> = "id,dx1"
+            .chars()
+            .flat_map(|c| (c as u32).to_le_bytes())
+            .collect();
+        let utf32be: Vec<u8> = "id,dx1"
+            .chars()
+            .flat_map(|c| (c as u32).to_be_bytes())
+            .collect();
+        assert_eq!(wide_encoding(&utf16le), Some("UTF-16 (little-endian)"));
+        assert_eq!(wide_encoding(&utf16be), Some("UTF-16 (big-endian)"));
+        assert_eq!(wide_encoding(&utf32le), Some("UTF-32 (little-endian)"));
+        assert_eq!(wide_encoding(&utf32be), Some("UTF-32 (big-endian)"));
+        assert_eq!(wide_encoding(b"\xff\xfeid"), Some("UTF-16 (little-endian)"));
+        assert_eq!(wide_encoding(b"\xfe\xffid"), Some("UTF-16 (big-endian)"));
+        assert_eq!(
+            wide_encoding(b"\xff\xfe\0\0i\0\0\0"),
+            Some("UTF-32 (little-endian)")
+        );
+        assert_eq!(wide_encoding(b"\0\0\xfe\xff"), Some("UTF-32 (big-endian)"));
+        assert_eq!(wide_encoding(b"\xef\xbb\xbfid,dx1\n"), None);
+        assert_eq!(wide_encoding(b"id,dx1\n"), None);
+        assert_eq!(wide_encoding(b""), None);
+        assert_eq!(wide_encoding(b"a\0b"), None);
     }
 }

@@ -3,6 +3,7 @@
 //! each record while keeping its raw bytes for byte-identical pass-through;
 //! Parquet in and out ([`parquet`]) through the same text.
 
+pub mod atomic;
 mod blocks;
 mod extract;
 mod files;
@@ -10,6 +11,7 @@ mod files;
 pub mod parquet;
 mod records;
 
+pub use atomic::{check_distinct, write_atomically, AtomicFile, End};
 pub use blocks::{line_ends, Block, BlockReader};
 pub use extract::{Extract, Table};
 #[cfg(feature = "parquet")]

@@ -1062,14 +1062,15 @@ pub fn read_columns(names: &[String], cfg: &ScoreConfig, extra: &[String]) -> Op
         names: names.to_vec(),
     };
     let mut cols = header.columns(&cfg.dx, "diagnosis").ok()?;
-    let singles = [
-        &cfg.age,
-        &cfg.id,
-        &cfg.episode,
-        &cfg.date,
-        &cfg.primary,
-        &cfg.poa,
-    ];
+    if let Some(poa) = &cfg.poa {
+        // Names or globs, like the diagnosis columns (wide layout).
+        cols.extend(
+            header
+                .columns(std::slice::from_ref(poa), "present-on-admission")
+                .ok()?,
+        );
+    }
+    let singles = [&cfg.age, &cfg.id, &cfg.episode, &cfg.date, &cfg.primary];
     for name in singles.into_iter().flatten().chain(extra) {
         cols.push(header.column(name, "input").ok()?);
     }

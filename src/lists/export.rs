@@ -31,7 +31,9 @@ pub fn leading_comments(text: &str) -> Vec<&str> {
 pub fn original_text(list: &CodeList) -> Option<String> {
     match &list.origin {
         Origin::Builtin(_) => builtin::text(&list.name).map(str::to_string),
-        Origin::File(p) => std::fs::read_to_string(p).ok(),
+        Origin::File(p) => super::read_list_bytes(p)
+            .ok()
+            .and_then(|b| String::from_utf8(b).ok()),
     }
 }
 
@@ -70,20 +72,32 @@ pub fn export_text(list: &CodeList, original: Option<&str>) -> String {
 }
 
 /// Writes `DIR/NAME.tsv` (creating `DIR` if needed) and returns its path.
-/// An existing file is only replaced when `overwrite` is set.
+/// An existing file, or a symbolic link of that name (even one to nothing),
+/// is only replaced when `overwrite` is set; a link to a file then has that
+/// file replaced, a link to nothing is replaced by the file. The file is
+/// written atomically (see [`crate::io::atomic`]).
 pub fn export_to_dir(list: &CodeList, dir: &Path, overwrite: bool) -> Result<PathBuf, Error> {
     let path = dir.join(format!("{}.tsv", list.name));
-    if path.exists() && !overwrite {
+    let existing = std::fs::symlink_metadata(&path).ok();
+    if existing.is_some() && !overwrite {
+        let what = if path.exists() {
+            "already exists"
+        } else {
+            "is a symbolic link to a file that does not exist"
+        };
         return Err(Error::Usage(format!(
-            "{} already exists; remove it or use --force to replace it",
+            "{} {what}; remove it or use --force to replace it",
             path.display()
         )));
     }
     std::fs::create_dir_all(dir)
         .map_err(|e| Error::io(format!("cannot create {}", dir.display()), e))?;
+    if existing.is_some_and(|m| m.file_type().is_symlink()) && !path.exists() {
+        std::fs::remove_file(&path)
+            .map_err(|e| Error::io(format!("cannot replace {}", path.display()), e))?;
+    }
     let text = export_text(list, original_text(list).as_deref());
-    std::fs::write(&path, text)
-        .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))?;
+    crate::io::write_atomically(&path, text.as_bytes())?;
     Ok(path)
 }
 

@@ -266,14 +266,49 @@ pub struct Loaded {
     pub warnings: Vec<Diagnostic>,
 }
 
-/// Loads one list file.
+/// The largest list file read (64 MiB; the built-in lists are a few
+/// kilobytes): a larger file is refused rather than read without limit.
+pub const MAX_LIST_BYTES: u64 = 64 << 20;
+
+/// The bytes of a list file: a regular file (symbolic links followed) of at
+/// most [`MAX_LIST_BYTES`]. A FIFO or device is refused before it is opened
+/// (a FIFO would wait for a writer, `/dev/zero` never ends).
+pub(crate) fn read_list_bytes(path: &Path) -> Result<Vec<u8>, String> {
+    use std::io::Read;
+    let meta = std::fs::metadata(path).map_err(|e| format!("cannot read: {e}"))?;
+    if meta.is_dir() {
+        return Err("cannot read: it is a directory, not a list file".into());
+    }
+    if !meta.is_file() {
+        return Err(
+            "cannot read: not a regular file (a FIFO, device or socket); a list is read \
+             from a file"
+                .into(),
+        );
+    }
+    let too_big = || {
+        format!(
+            "cannot read: larger than {} MiB, the limit for a list file",
+            MAX_LIST_BYTES >> 20
+        )
+    };
+    if meta.len() > MAX_LIST_BYTES {
+        return Err(too_big());
+    }
+    let mut bytes = Vec::with_capacity(meta.len() as usize);
+    std::fs::File::open(path)
+        .and_then(|f| f.take(MAX_LIST_BYTES + 1).read_to_end(&mut bytes))
+        .map_err(|e| format!("cannot read: {e}"))?;
+    if bytes.len() as u64 > MAX_LIST_BYTES {
+        return Err(too_big());
+    }
+    Ok(bytes)
+}
+
+/// Loads one list file (a regular file, see [`MAX_LIST_BYTES`]).
 pub fn load_file(path: &Path) -> Result<Loaded, ListError> {
-    let text = std::fs::read(path).map_err(|e| ListError {
-        diagnostics: vec![Diagnostic::error(
-            &path.display().to_string(),
-            0,
-            format!("cannot read: {e}"),
-        )],
+    let text = read_list_bytes(path).map_err(|message| ListError {
+        diagnostics: vec![Diagnostic::error(&path.display().to_string(), 0, message)],
     })?;
     let text = String::from_utf8(text).map_err(|e| ListError {
         diagnostics: vec![Diagnostic::error(

@@ -10,7 +10,7 @@ use std::fmt;
 use super::canonical::checksum;
 use super::{
     parse_scaled, AgePoints, Band, Bound, CodeEntry, CodeList, Condition, ListError, Loaded,
-    Origin, Supersedes, Weighting,
+    Origin, Supersedes, Weighting, SCALE,
 };
 use crate::code::{read_list_code, Code};
 
@@ -599,6 +599,8 @@ pub fn parse(text: &str, origin: Origin) -> Result<Loaded, ListError> {
         }
     }
 
+    check_sum_range(&mut cx, &final_weightings, &age_points);
+
     let name = name.unwrap_or_default();
     if name.is_empty() && !cx.diags.iter().any(|d| d.severity == Severity::Error) {
         cx.err(0, "no 'list' record");
@@ -738,4 +740,69 @@ fn find_cycle(n: usize, edges: &[Supersedes]) -> Option<Vec<usize>> {
         }
     }
     None
+}
+
+/// Refuses a weighting whose score could leave the exact-decimal range:
+/// every score is an `i64` count of `1/SCALE` points, so the sum of the
+/// weighting's positive weights plus the largest positive age points (and
+/// likewise the negative ones) must fit in it. With that checked at load
+/// time no sum of a run can wrap.
+fn check_sum_range(cx: &mut Ctx, weightings: &[Weighting], age_points: &[AgePoints]) {
+    let max_age = age_points
+        .iter()
+        .map(|a| a.points)
+        .max()
+        .unwrap_or(0)
+        .max(0) as i128;
+    let min_age = age_points
+        .iter()
+        .map(|a| a.points)
+        .min()
+        .unwrap_or(0)
+        .min(0) as i128;
+    for w in weightings {
+        let up: i128 = w
+            .weights
+            .iter()
+            .filter(|&&v| v > 0)
+            .map(|&v| v as i128)
+            .sum::<i128>()
+            + max_age;
+        let down: i128 = w
+            .weights
+            .iter()
+            .filter(|&&v| v < 0)
+            .map(|&v| v as i128)
+            .sum::<i128>()
+            + min_age;
+        let (side, total) = if up > i64::MAX as i128 {
+            ("positive", up)
+        } else if down < i64::MIN as i128 {
+            ("negative", down)
+        } else {
+            continue;
+        };
+        let mut shown = Vec::new();
+        let mut t = total.unsigned_abs();
+        // The total in points, exactly (it may exceed the i64 range).
+        let unit = SCALE as u128;
+        let frac = t % unit;
+        t /= unit;
+        if total < 0 {
+            shown.push(b'-');
+        }
+        shown.extend_from_slice(t.to_string().as_bytes());
+        if frac > 0 {
+            let f = format!(".{frac:04}");
+            shown.extend_from_slice(f.trim_end_matches('0').as_bytes());
+        }
+        cx.err(
+            w.line,
+            format!(
+                "weighting '{}': its {side} weights and age points can sum to {} points, past the exact-decimal range of a score (±922337203685477 points); use smaller weights",
+                w.name,
+                String::from_utf8_lossy(&shown)
+            ),
+        );
+    }
 }

@@ -23,25 +23,99 @@ impl fmt::Display for DateFormat {
 }
 
 impl DateFormat {
-    /// Parses a `--date-format` value; `None` if it lacks `%Y`, `%m`/`%b` or
-    /// `%d`, or holds another `%` directive.
+    /// Parses a `--date-format` value; `None` if it is not a valid pattern
+    /// (see [`DateFormat::from_pattern_checked`] for the reason).
     pub fn from_pattern(p: &str) -> Option<DateFormat> {
+        DateFormat::from_pattern_checked(p).ok()
+    }
+
+    /// Parses a `--date-format` value, or says why it is refused: it lacks
+    /// `%Y`, `%m`/`%b` or `%d`, names one of them twice (`%d/%m/%d`: which
+    /// day would count?), or holds another `%` directive.
+    ///
+    /// ```
+    /// use morbus::pipeline::DateFormat;
+    /// assert!(DateFormat::from_pattern_checked("%d/%m/%Y").is_ok());
+    /// assert_eq!(
+    ///     DateFormat::from_pattern_checked("%d/%m/%d/%Y").unwrap_err(),
+    ///     "names %d twice; give each of %Y, %m (or %b) and %d once"
+    /// );
+    /// ```
+    pub fn from_pattern_checked(p: &str) -> Result<DateFormat, String> {
         if p == "%Y-%m-%d" || p.eq_ignore_ascii_case("iso") {
-            return Some(DateFormat::Iso);
+            return Ok(DateFormat::Iso);
         }
+        let missing = || "must hold %Y, %m (or %b) and %d, e.g. '%d/%m/%Y'".to_string();
         let mut it = p.chars();
-        let (mut y, mut m, mut d) = (false, false, false);
+        let (mut y, mut m, mut d) = (None::<char>, None::<char>, None::<char>);
         while let Some(c) = it.next() {
             if c == '%' {
-                match it.next() {
-                    Some('Y') => y = true,
-                    Some('m') | Some('b') => m = true,
-                    Some('d') => d = true,
-                    _ => return None,
+                let dir = it.next();
+                let slot = match dir {
+                    Some('Y') => &mut y,
+                    Some('m') | Some('b') => &mut m,
+                    Some('d') => &mut d,
+                    Some(other) => {
+                        return Err(format!(
+                            "holds %{other}, which morbus does not read; it {}",
+                            missing()
+                        ))
+                    }
+                    None => return Err(format!("ends with a lone %; it {}", missing())),
+                };
+                let dir = dir.unwrap_or('%');
+                if let Some(before) = slot.replace(dir) {
+                    let what = if before == dir {
+                        format!("names %{dir} twice")
+                    } else {
+                        format!("names the month twice (%{before} and %{dir})")
+                    };
+                    return Err(format!("{what}; give each of %Y, %m (or %b) and %d once"));
                 }
             }
         }
-        (y && m && d).then(|| DateFormat::Pattern(p.to_string()))
+        if y.is_some() && m.is_some() && d.is_some() {
+            Ok(DateFormat::Pattern(p.to_string()))
+        } else {
+            Err(missing())
+        }
+    }
+
+    /// Whether the pattern writes both the day and the month as numbers,
+    /// so that a value such as `03/04/2024` reads either way round.
+    pub fn day_month_numeric(&self) -> bool {
+        match self {
+            DateFormat::Iso => false,
+            DateFormat::Pattern(p) => p.contains("%d") && p.contains("%m"),
+        }
+    }
+
+    /// Reads a date as [`DateFormat::parse`] does, and says what the value
+    /// tells about the day/month order of the pattern.
+    ///
+    /// ```
+    /// use morbus::pipeline::dates::{DateFormat, DayMonth};
+    /// let f = DateFormat::from_pattern("%d/%m/%Y").unwrap();
+    /// assert_eq!(f.read(b"25/03/2024").unwrap().1, DayMonth::Proven);
+    /// assert_eq!(f.read(b"03/04/2024").unwrap().1, DayMonth::Either);
+    /// assert_eq!(f.read(b"04/04/2024").unwrap().1, DayMonth::Same);
+    /// ```
+    pub fn read(&self, text: &[u8]) -> Option<(i32, DayMonth)> {
+        match self {
+            DateFormat::Iso => self.parse(text).map(|d| (d, DayMonth::Same)),
+            DateFormat::Pattern(p) => {
+                let (y, m, d) = pattern_parts(p.as_bytes(), text)?;
+                let day = days_from_civil(y as i32, m, d)?;
+                let order = if !self.day_month_numeric() || d == m {
+                    DayMonth::Same
+                } else if d > 12 {
+                    DayMonth::Proven
+                } else {
+                    DayMonth::Either
+                };
+                Some((day, order))
+            }
+        }
     }
 
     /// Days since 1970-01-01, or `None` if the text is not a valid date.
@@ -68,6 +142,20 @@ impl DateFormat {
     }
 }
 
+/// What a date value tells about the order of day and month in a pattern
+/// that writes both as numbers.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum DayMonth {
+    /// The other order would not be a date (the day is over 12): the value
+    /// proves the pattern's order. Values of other patterns, and values
+    /// whose day equals their month, say nothing.
+    Proven,
+    /// Swapping day and month would give another valid date.
+    Either,
+    /// Nothing to tell.
+    Same,
+}
+
 fn digits(t: &[u8]) -> Option<u32> {
     if t.is_empty() || !t.iter().all(u8::is_ascii_digit) {
         return None;
@@ -80,11 +168,27 @@ const MONTHS: [&[u8; 3]; 12] = [
 ];
 
 fn parse_pattern(p: &[u8], t: &[u8]) -> Option<i32> {
+    let (y, m, d) = pattern_parts(p, t)?;
+    days_from_civil(y as i32, m, d)
+}
+
+/// Whether the pattern has a numeric directive (`%Y`, `%m`, `%d`) at byte
+/// `i`.
+fn directive_at(p: &[u8], i: usize) -> bool {
+    p.get(i) == Some(&b'%') && matches!(p.get(i + 1), Some(b'Y' | b'm' | b'd'))
+}
+
+/// Year, month and day of a value read with a pattern (not yet validated
+/// as a date). `%m` and `%d` take one or two digits when a separator
+/// stands on both sides of them; next to another numeric directive (`%Y%m%d`)
+/// they take exactly two, so that `2024011` is not read as 2024-01-01.
+fn pattern_parts(p: &[u8], t: &[u8]) -> Option<(u32, u32, u32)> {
     let (mut y, mut m, mut d) = (None, None, None);
     let (mut i, mut j) = (0, 0);
     while i < p.len() {
         if p[i] == b'%' && i + 1 < p.len() {
             let dir = p[i + 1];
+            let packed = (i >= 2 && directive_at(p, i - 2)) || directive_at(p, i + 2);
             i += 2;
             match dir {
                 b'Y' => {
@@ -97,6 +201,9 @@ fn parse_pattern(p: &[u8], t: &[u8]) -> Option<i32> {
                         .take(2)
                         .take_while(|c| c.is_ascii_digit())
                         .count();
+                    if packed && n < 2 {
+                        return None;
+                    }
                     let v = digits(&t[j..j + n])?;
                     j += n;
                     if dir == b'm' {
@@ -124,7 +231,7 @@ fn parse_pattern(p: &[u8], t: &[u8]) -> Option<i32> {
     if j < t.len() && !matches!(t[j], b'T' | b' ') {
         return None;
     }
-    days_from_civil(y? as i32, m?, d?)
+    Some((y?, m?, d?))
 }
 
 fn is_leap(y: i32) -> bool {
@@ -260,5 +367,54 @@ mod tests {
         );
         assert!(DateFormat::from_pattern("%d/%m").is_none());
         assert!(DateFormat::from_pattern("%Y-%j").is_none());
+    }
+
+    #[test]
+    fn a_directive_given_twice_is_refused() {
+        for (p, why) in [
+            ("%d/%m/%d/%Y", "names %d twice"),
+            ("%Y%Y%m%d", "names %Y twice"),
+            ("%d %b %m %Y", "names the month twice (%b and %m)"),
+            ("%d-%m-%m-%Y", "names %m twice"),
+        ] {
+            let e = DateFormat::from_pattern_checked(p).unwrap_err();
+            assert_eq!(
+                e,
+                format!("{why}; give each of %Y, %m (or %b) and %d once"),
+                "{p}"
+            );
+        }
+        assert!(DateFormat::from_pattern_checked("%d/%m/%Y %%").is_err());
+    }
+
+    #[test]
+    fn packed_directives_take_two_digits() {
+        let f = DateFormat::from_pattern("%Y%m%d").unwrap();
+        assert_eq!(f.parse(b"20240115"), DateFormat::Iso.parse(b"2024-01-15"));
+        // Seven digits: the day has one digit where two are needed.
+        assert_eq!(f.parse(b"2024011"), None);
+        assert_eq!(f.parse(b"202401"), None);
+        assert_eq!(f.parse(b"2024115"), None);
+        let f = DateFormat::from_pattern("%d%m%Y").unwrap();
+        assert_eq!(f.parse(b"15012024"), DateFormat::Iso.parse(b"2024-01-15"));
+        assert_eq!(f.parse(b"1512024"), None);
+        // A separator on both sides still allows one digit.
+        let f = DateFormat::from_pattern("%Y%m/%d").unwrap();
+        assert_eq!(f.parse(b"202401/5"), DateFormat::Iso.parse(b"2024-01-05"));
+        assert_eq!(f.parse(b"20241/05"), None);
+    }
+
+    #[test]
+    fn day_month_evidence() {
+        let f = DateFormat::from_pattern("%m/%d/%Y").unwrap();
+        assert_eq!(f.read(b"12/25/2024").map(|r| r.1), Some(DayMonth::Proven));
+        assert_eq!(f.read(b"02/03/2024").map(|r| r.1), Some(DayMonth::Either));
+        assert_eq!(f.read(b"25/12/2024"), None);
+        let f = DateFormat::from_pattern("%d-%b-%Y").unwrap();
+        assert_eq!(f.read(b"03-Apr-2024").map(|r| r.1), Some(DayMonth::Same));
+        assert_eq!(
+            DateFormat::Iso.read(b"2024-03-04").map(|r| r.1),
+            Some(DayMonth::Same)
+        );
     }
 }

@@ -161,7 +161,7 @@ fn read_block(
         };
         let pid = id(p.id, &mut b.ids);
         let ekey = id(p.episode, &mut b.ids);
-        let date = match p.read_date(cfg, &rec.fields) {
+        let date = match p.read_date(cfg, &rec.fields, &mut b.summary) {
             Ok(Some(d)) => DateRead::Day(d),
             Ok(None) => DateRead::Missing,
             Err(raw) => {
@@ -232,6 +232,32 @@ fn read_block(
     });
     b.err = r.err();
     b
+}
+
+/// Stops a run whose share of unreadable dates (among episodes with a
+/// non-empty date) is over `--max-unreadable-dates`: the format is likely
+/// the wrong one, and every such episode would be scored alone.
+fn check_unreadable_dates(
+    cfg: &ScoreConfig,
+    summary: &Summary,
+    episodes: u64,
+) -> Result<(), Error> {
+    let unreadable = summary.unreadable_dates;
+    let non_empty = episodes - summary.missing_dates;
+    if unreadable == 0 || (unreadable as f64) * 100.0 <= cfg.max_unreadable_dates * non_empty as f64
+    {
+        return Ok(());
+    }
+    let share = unreadable as f64 * 100.0 / non_empty as f64;
+    Err(Error::data(
+        None,
+        format!(
+            "{unreadable} of {non_empty} episodes with a date ({share:.2}%) have an unreadable date, more than the {}% allowed by --max-unreadable-dates; e.g. {} (expected {}); give the dates' format with --date-format, or raise --max-unreadable-dates",
+            cfg.max_unreadable_dates,
+            summary.date_examples(),
+            cfg.date_format
+        ),
+    ))
 }
 
 impl History {
@@ -394,14 +420,18 @@ impl History {
             },
         )?;
         summary.dx_columns = plan.dx_names();
-        for ep in &episodes {
-            if ep.date.is_none() && plan.date.is_some() {
-                if ep.date_unreadable {
-                    summary.unreadable_dates += 1;
-                } else {
-                    summary.missing_dates += 1;
+        if plan.date.is_some() {
+            summary.date_format = Some(cfg.date_format.to_string());
+            for ep in &episodes {
+                if ep.date.is_none() {
+                    if ep.date_unreadable {
+                        summary.unreadable_dates += 1;
+                    } else {
+                        summary.missing_dates += 1;
+                    }
                 }
             }
+            check_unreadable_dates(cfg, &summary, episodes.len() as u64)?;
         }
         let hist = History {
             plan,

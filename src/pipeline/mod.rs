@@ -36,10 +36,99 @@ pub enum Layout {
     Long,
 }
 
-/// Present-on-admission indicator values that count by default: `Y` (yes)
-/// and `W` (clinically undetermined), following the US present-on-admission
-/// reporting convention (common practice).
-pub const DEFAULT_POA_VALUES: &[&str] = &["Y", "W"];
+/// The token that stands for an empty present-on-admission field in
+/// `--poa-values` (any case).
+pub const POA_BLANK: &str = "BLANK";
+
+/// Present-on-admission values that count by default: `Y` (present), `W`
+/// (clinically undetermined), and exempt codes, reported blank or `1`.
+/// Taken from memory from the ICD-10-CM Official Guidelines for Coding and
+/// Reporting, Appendix I (present-on-admission reporting guidelines).
+pub const DEFAULT_POA_VALUES: &[&str] = &["Y", "W", "1", POA_BLANK];
+
+/// Every present-on-admission value of the ICD-10-CM Official Guidelines for
+/// Coding and Reporting, Appendix I (from memory): `Y`, `N` (not present),
+/// `U` (documentation insufficient), `W`, and exempt codes (`1` or blank).
+/// A value outside these and `--poa-values` is unrecognised: counted, shown,
+/// and a `--strict` stop.
+pub const KNOWN_POA_VALUES: &[&str] = &["Y", "N", "U", "W", "1", POA_BLANK];
+
+/// The share of non-empty episode dates, in percent, that may be
+/// unreadable before a run stops (`--max-unreadable-dates`).
+pub const DEFAULT_MAX_UNREADABLE_DATES: f64 = 1.0;
+
+/// What a present-on-admission field says about its code.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum PoaReading {
+    /// One of the values that count.
+    Present,
+    /// A value of the guidelines that does not count.
+    NotPresent,
+    /// Neither: counted and shown; the code does not count.
+    Unrecognised,
+}
+
+/// Reads a present-on-admission field against the values that count
+/// (upper-cased, [`POA_BLANK`] for an empty field): the one place that
+/// decides it.
+///
+/// ```
+/// use morbus::pipeline::{read_poa, PoaReading, DEFAULT_POA_VALUES};
+/// let counting: Vec<String> = DEFAULT_POA_VALUES.iter().map(|v| v.to_string()).collect();
+/// assert_eq!(read_poa(&counting, b"y"), PoaReading::Present);
+/// assert_eq!(read_poa(&counting, b" "), PoaReading::Present);
+/// assert_eq!(read_poa(&counting, b"1"), PoaReading::Present);
+/// assert_eq!(read_poa(&counting, b"N"), PoaReading::NotPresent);
+/// assert_eq!(read_poa(&counting, b"U"), PoaReading::NotPresent);
+/// assert_eq!(read_poa(&counting, b"E"), PoaReading::Unrecognised);
+/// assert_eq!(read_poa(&counting, b"blank"), PoaReading::Unrecognised);
+/// ```
+pub fn read_poa(counting: &[String], raw: &[u8]) -> PoaReading {
+    let v = raw.trim_ascii();
+    let is = |p: &str| {
+        if p == POA_BLANK {
+            v.is_empty()
+        } else {
+            p.as_bytes().eq_ignore_ascii_case(v)
+        }
+    };
+    if counting.iter().any(|p| is(p)) {
+        PoaReading::Present
+    } else if KNOWN_POA_VALUES.iter().any(|p| is(p)) {
+        PoaReading::NotPresent
+    } else {
+        PoaReading::Unrecognised
+    }
+}
+
+/// Reads a percentage option (`1`, `0.5`, `2%`): from 0 to 100.
+///
+/// ```
+/// use morbus::pipeline::percent_from;
+/// assert_eq!(percent_from("0.5%"), Ok(0.5));
+/// assert!(percent_from("101").is_err());
+/// ```
+pub fn percent_from(text: &str) -> Result<f64, String> {
+    let t = text.trim();
+    let t = t.strip_suffix('%').unwrap_or(t).trim();
+    match t.parse::<f64>() {
+        Ok(v) if (0.0..=100.0).contains(&v) => Ok(v),
+        _ => Err(format!(
+            "takes a percentage from 0 to 100 (e.g. 1 or 0.5), not '{text}'"
+        )),
+    }
+}
+
+/// The values of a `--poa-values` option: comma-separated, trimmed,
+/// upper-cased (`blank` becomes [`POA_BLANK`]).
+pub fn poa_values_from(items: &[String]) -> Vec<String> {
+    items
+        .iter()
+        .flat_map(|v| v.split(','))
+        .map(|v| v.trim().to_ascii_uppercase())
+        .filter(|v| !v.is_empty())
+        .collect()
+}
 
 /// Options of a scoring run over delimited text.
 #[derive(Clone, Debug)]
@@ -62,10 +151,16 @@ pub struct ScoreConfig {
     pub exclude_primary: bool,
     /// Long layout: column flagging the primary-diagnosis row.
     pub primary: Option<String>,
-    /// Long layout: present-on-admission indicator column.
+    /// Present-on-admission indicator column (long layout), or columns
+    /// (wide layout: names and globs, paired in order with the diagnosis
+    /// columns).
     pub poa: Option<String>,
-    /// Indicator values that count (upper-cased).
+    /// Indicator values that count (upper-cased; [`POA_BLANK`] for an empty
+    /// field).
     pub poa_values: Vec<String>,
+    /// Percent of non-empty episode dates that may be unreadable; more
+    /// stops the run (exit 1).
+    pub max_unreadable_dates: f64,
     /// Age column (whole years).
     pub age: Option<String>,
     /// Field delimiter (default `,`).
@@ -105,6 +200,7 @@ impl Default for ScoreConfig {
             primary: None,
             poa: None,
             poa_values: DEFAULT_POA_VALUES.iter().map(|s| s.to_string()).collect(),
+            max_unreadable_dates: DEFAULT_MAX_UNREADABLE_DATES,
             age: None,
             delimiter: b',',
             strict: false,
@@ -116,6 +212,13 @@ impl Default for ScoreConfig {
 
 /// Distinct invalid values remembered for the summary.
 const INVALID_VALUES_KEPT: usize = 10_000;
+
+/// Distinct present-on-admission values counted one by one (the rest are
+/// counted together as `…`).
+const POA_VALUES_KEPT: usize = 1_000;
+
+/// Unreadable date values kept as examples.
+pub const DATE_EXAMPLES: usize = 3;
 
 /// What a run read, wrote and could not read.
 #[derive(Clone, Debug, Default, PartialEq, Eq)]
@@ -142,6 +245,24 @@ pub struct Summary {
     /// Episodes whose date could not be read (scored from their own codes
     /// alone).
     pub unreadable_dates: u64,
+    /// The first distinct unreadable date values, in input order (at most
+    /// [`DATE_EXAMPLES`]).
+    pub unreadable_date_examples: Vec<Vec<u8>>,
+    /// Date fields read (non-empty and readable).
+    pub dates_read: u64,
+    /// Dates read whose day and month could be swapped into another valid
+    /// date (patterns writing both as numbers).
+    pub dates_either_order: u64,
+    /// Dates read whose day is over 12, proving the pattern's order.
+    pub dates_order_proven: u64,
+    /// The date format of the run, when dates were read.
+    pub date_format: Option<String>,
+    /// Present-on-admission indicators read (one per non-empty diagnosis
+    /// field), by value as written (trimmed; empty for a blank).
+    pub poa_indicators: HashMap<Vec<u8>, u64>,
+    /// Indicators that are neither a value of the guidelines nor one of
+    /// `--poa-values`.
+    pub unrecognised_poa: u64,
     /// Rows whose id field is empty or blank (long layout, or lookback): in
     /// the long layout they are grouped by the field as written, like any
     /// id (so all empty ones form one unit); with a lookback each is scored
@@ -167,7 +288,7 @@ pub const INVALID_VALUE_BYTES: usize = 64;
 
 /// An invalid value as remembered: trimmed, and cut when too long.
 fn kept_value(value: &[u8]) -> std::borrow::Cow<'_, [u8]> {
-    let v = value.trim_ascii();
+    let v = trim_blanks(value);
     if v.len() <= INVALID_VALUE_BYTES {
         return std::borrow::Cow::Borrowed(v);
     }
@@ -186,15 +307,32 @@ fn kept_value(value: &[u8]) -> std::borrow::Cow<'_, [u8]> {
 /// [`INVALID_VALUE_BYTES`] bytes with its length said when longer.
 pub fn shown(value: &[u8]) -> String {
     let mut out = escaped(&kept_value(value));
-    let n = value.trim_ascii().len();
+    let n = trim_blanks(value).len();
     if n > INVALID_VALUE_BYTES {
         out.push_str(&format!(" ({n} bytes)"));
     }
     out
 }
 
-/// Lossy UTF-8 with control characters escaped.
-fn escaped(value: &[u8]) -> String {
+/// A value without the spaces and tabs around it: what the code reader
+/// ignores (see [`crate::code`]). A carriage return or any other control
+/// character is kept, and shown escaped (`'I21\r'`), since it makes the
+/// value an invalid code.
+fn trim_blanks(value: &[u8]) -> &[u8] {
+    let start = value
+        .iter()
+        .position(|b| !matches!(b, b' ' | b'\t'))
+        .unwrap_or(value.len());
+    let end = value
+        .iter()
+        .rposition(|b| !matches!(b, b' ' | b'\t'))
+        .map_or(start, |e| e + 1);
+    &value[start..end]
+}
+
+/// Lossy UTF-8 with control characters escaped: how text from an input or
+/// a list is shown on a terminal, everywhere (`\r`, `\u{1b}`).
+pub fn escaped(value: &[u8]) -> String {
     let mut out = String::new();
     for c in String::from_utf8_lossy(value).chars() {
         if c.is_control() {
@@ -225,8 +363,21 @@ impl Summary {
         self.excluded_not_on_admission += later.excluded_not_on_admission;
         self.missing_ids += later.missing_ids;
         self.disagreeing_units += later.disagreeing_units;
+        self.dates_read += later.dates_read;
+        self.dates_either_order += later.dates_either_order;
+        self.dates_order_proven += later.dates_order_proven;
+        self.unrecognised_poa += later.unrecognised_poa;
+        for v in later.unreadable_date_examples {
+            self.unreadable_date_example(&v);
+        }
+        for (v, n) in later.poa_indicators {
+            self.add_poa(&v, n);
+        }
         if self.dx_columns.is_empty() {
             self.dx_columns = later.dx_columns;
+        }
+        if self.date_format.is_none() {
+            self.date_format = later.date_format;
         }
         for (v, n) in later.invalid_values {
             self.add_invalid(v, n);
@@ -241,6 +392,62 @@ impl Summary {
         } else if self.invalid_values.len() < INVALID_VALUES_KEPT {
             self.invalid_values.insert(v.into_owned(), 1);
         }
+    }
+
+    /// Remembers an unreadable date value, when fewer than
+    /// [`DATE_EXAMPLES`] distinct ones are kept.
+    pub(crate) fn unreadable_date_example(&mut self, value: &[u8]) {
+        if self.unreadable_date_examples.len() < DATE_EXAMPLES
+            && !self.unreadable_date_examples.iter().any(|v| v == value)
+        {
+            self.unreadable_date_examples
+                .push(kept_value(value).into_owned());
+        }
+    }
+
+    /// Counts `n` present-on-admission indicators of one value.
+    pub(crate) fn add_poa(&mut self, value: &[u8], n: u64) {
+        let v = value.trim_ascii();
+        if let Some(c) = self.poa_indicators.get_mut(v) {
+            *c += n;
+        } else if self.poa_indicators.len() < POA_VALUES_KEPT {
+            self.poa_indicators.insert(kept_value(v).into_owned(), n);
+        } else {
+            *self
+                .poa_indicators
+                .entry("…".as_bytes().to_vec())
+                .or_default() += n;
+        }
+    }
+
+    /// Present-on-admission indicators by value, most frequent first (ties
+    /// by value); a blank is an empty string.
+    pub fn poa_by_value(&self) -> Vec<(String, u64)> {
+        let mut v: Vec<(String, u64)> = self
+            .poa_indicators
+            .iter()
+            .map(|(k, c)| (escaped(k), *c))
+            .collect();
+        v.sort_by(|a, b| b.1.cmp(&a.1).then_with(|| a.0.cmp(&b.0)));
+        v
+    }
+
+    /// Whether the dates read leave the day/month order of the pattern
+    /// open: at least half of them read either way round and none proves
+    /// the order.
+    pub fn day_month_unproven(&self) -> bool {
+        self.dates_read > 0
+            && self.dates_order_proven == 0
+            && self.dates_either_order * 2 >= self.dates_read
+    }
+
+    /// The unreadable date examples as shown: `'05/01/2021', 'x'`.
+    pub fn date_examples(&self) -> String {
+        self.unreadable_date_examples
+            .iter()
+            .map(|v| format!("'{}'", escaped(v)))
+            .collect::<Vec<_>>()
+            .join(", ")
     }
 
     /// Adds `n` occurrences of an invalid value to the remembered ones
@@ -292,10 +499,57 @@ impl Summary {
             ));
         }
         if self.missing_dates + self.unreadable_dates > 0 {
+            let examples = if self.unreadable_date_examples.is_empty() {
+                String::new()
+            } else {
+                format!(
+                    " (e.g. {}; expected {})",
+                    self.date_examples(),
+                    self.date_format.as_deref().unwrap_or("%Y-%m-%d")
+                )
+            };
             s.push_str(&format!(
-                "; dates missing: {}, unreadable: {} (those episodes scored from their own codes alone)",
+                "; dates missing: {}, unreadable: {}{examples} (those episodes scored from their own codes alone)",
                 self.missing_dates, self.unreadable_dates
             ));
+        }
+        if self.day_month_unproven() {
+            s.push_str(&format!(
+                "; warning: {} of {} dates read would also be valid dates with day and month swapped, and none proves the order of {} (a day over 12): check --date-format",
+                self.dates_either_order,
+                self.dates_read,
+                self.date_format.as_deref().unwrap_or("the date format")
+            ));
+        }
+        if !self.poa_indicators.is_empty() {
+            let shown: Vec<String> = self
+                .poa_by_value()
+                .into_iter()
+                .take(10)
+                .map(|(v, c)| {
+                    if v.is_empty() {
+                        format!("blank {c}")
+                    } else {
+                        format!("'{v}' {c}")
+                    }
+                })
+                .collect();
+            let more = self.poa_indicators.len().saturating_sub(10);
+            let more = if more > 0 {
+                format!(" and {more} more values")
+            } else {
+                String::new()
+            };
+            s.push_str(&format!(
+                "; present-on-admission indicators: {}{more}",
+                shown.join(", ")
+            ));
+            if self.unrecognised_poa > 0 {
+                s.push_str(&format!(
+                    "; unrecognised present-on-admission indicators: {} (their codes count as not present on admission)",
+                    self.unrecognised_poa
+                ));
+            }
         }
         if self.disagreeing_units > 0 {
             s.push_str(&format!(
@@ -344,7 +598,11 @@ impl Header {
     /// hint when the header looks split by another delimiter.
     fn available(&self) -> String {
         const SHOWN: usize = 40;
-        let mut s = self.names[..self.names.len().min(SHOWN)].join(", ");
+        let mut s = self.names[..self.names.len().min(SHOWN)]
+            .iter()
+            .map(|n| escaped(n.as_bytes()))
+            .collect::<Vec<_>>()
+            .join(", ");
         if self.names.len() > SHOWN {
             s.push_str(&format!(", and {} more", self.names.len() - SHOWN));
         }
@@ -478,7 +736,9 @@ pub(crate) struct Plan {
     pub episode: Option<usize>,
     pub date: Option<usize>,
     pub primary: Option<usize>,
-    pub poa: Option<usize>,
+    /// Present-on-admission columns: one (long layout) or one per
+    /// diagnosis column (wide layout); empty without `--poa`.
+    pub poa: Vec<usize>,
     pub ncols: usize,
     pub crlf: bool,
 }
@@ -490,6 +750,51 @@ pub(crate) enum RowIssue {
     UnreadableAge(Vec<u8>),
     MissingAge,
     UnreadableDate(Vec<u8>),
+    UnrecognisedPoa { column: usize, value: Vec<u8> },
+}
+
+/// Resolves the present-on-admission columns (`poa`: names and globs)
+/// against the diagnosis columns: one column in the long layout; in the wide
+/// layout as many as the diagnosis columns, paired in order. `options`
+/// names the two options in messages (`("--poa", "--dx")`).
+pub fn poa_columns(
+    header: &Header,
+    dx: &[usize],
+    poa: &str,
+    layout: Layout,
+    options: (&str, &str),
+) -> Result<Vec<usize>, Error> {
+    let cols = header.columns(&[poa.to_string()], "present-on-admission")?;
+    let names = |cs: &[usize]| {
+        cs.iter()
+            .map(|&c| header.names[c].as_str())
+            .collect::<Vec<_>>()
+            .join(", ")
+    };
+    if let Some(&c) = cols.iter().find(|c| dx.contains(c)) {
+        return Err(Error::Usage(format!(
+            "column '{}' is named by both {} and {}",
+            header.names[c], options.0, options.1
+        )));
+    }
+    match layout {
+        Layout::Long if cols.len() != 1 => Err(Error::Usage(format!(
+            "{} '{poa}' names {} columns ({}); in the long layout it is one column",
+            options.0,
+            cols.len(),
+            names(&cols)
+        ))),
+        Layout::Wide if cols.len() != dx.len() => Err(Error::Usage(format!(
+            "{} '{poa}' names {} present-on-admission columns ({}) but {} names {} diagnosis columns ({}); in the wide layout they pair in order, one each",
+            options.0,
+            cols.len(),
+            names(&cols),
+            options.1,
+            dx.len(),
+            names(dx)
+        ))),
+        _ => Ok(cols),
+    }
 }
 
 fn unclosed_quote(line: u64) -> Error {
@@ -522,7 +827,10 @@ impl Plan {
         let episode = one(&cfg.episode, "episode")?;
         let date = one(&cfg.date, "date")?;
         let primary = one(&cfg.primary, "primary-diagnosis")?;
-        let poa = one(&cfg.poa, "present-on-admission")?;
+        let poa = match &cfg.poa {
+            Some(p) => poa_columns(&header, &dx, p, cfg.layout, ("--poa", "--dx"))?,
+            None => Vec::new(),
+        };
         if cfg.layout == Layout::Long && id.is_none() {
             return Err(Error::Usage("--layout long needs --id COL".into()));
         }
@@ -536,9 +844,9 @@ impl Plan {
                 "--exclude-primary in the long layout needs --primary COL (the column flagging the primary-diagnosis row)".into(),
             ));
         }
-        if cfg.layout == Layout::Wide && (primary.is_some() || poa.is_some()) {
+        if cfg.layout == Layout::Wide && primary.is_some() {
             return Err(Error::Usage(
-                "--primary and --poa are for the long layout (one code per row); in the wide layout --exclude-primary leaves out the first diagnosis column".into(),
+                "--primary is for the long layout (one code per row); in the wide layout --exclude-primary leaves out the first diagnosis column".into(),
             ));
         }
         if cfg.layout == Layout::Wide && episode.is_some() {
@@ -607,33 +915,58 @@ impl Plan {
         Ok(())
     }
 
-    /// The exclusion that applies to a long-layout row when its episode is
-    /// the one being scored.
-    pub fn row_exclusion(&self, cfg: &ScoreConfig, fields: &Fields<'_>) -> Option<Exclusion> {
-        if cfg.exclude_primary {
-            if let Some(c) = self.primary {
-                if is_flag_set(fields.get(c)) {
-                    return Some(Exclusion::Primary);
+    /// Whether a long-layout row is flagged as the primary diagnosis (and
+    /// `--exclude-primary` is on).
+    fn primary_row(&self, cfg: &ScoreConfig, fields: &Fields<'_>) -> bool {
+        cfg.exclude_primary && self.primary.is_some_and(|c| is_flag_set(fields.get(c)))
+    }
+
+    /// The present-on-admission exclusion of the codes of diagnosis column
+    /// `k` (its indicator is counted).
+    #[inline]
+    fn poa_exclusion(
+        &self,
+        cfg: &ScoreConfig,
+        fields: &Fields<'_>,
+        k: usize,
+        summary: &mut Summary,
+    ) -> Result<Option<Exclusion>, RowIssue> {
+        let c = match cfg.layout {
+            Layout::Wide => self.poa.get(k),
+            Layout::Long => self.poa.first(),
+        };
+        let Some(&c) = c else {
+            return Ok(None);
+        };
+        let raw = fields.get(c);
+        match read_poa(&cfg.poa_values, raw) {
+            PoaReading::Present => {
+                summary.add_poa(raw, 1);
+                Ok(None)
+            }
+            PoaReading::NotPresent => {
+                summary.add_poa(raw, 1);
+                Ok(Some(Exclusion::NotPresentOnAdmission))
+            }
+            PoaReading::Unrecognised => {
+                if cfg.strict {
+                    return Err(RowIssue::UnrecognisedPoa {
+                        column: c,
+                        value: raw.to_vec(),
+                    });
                 }
+                summary.add_poa(raw, 1);
+                summary.unrecognised_poa += 1;
+                Ok(Some(Exclusion::NotPresentOnAdmission))
             }
         }
-        if let Some(c) = self.poa {
-            let v = fields.get(c).trim_ascii();
-            if !cfg
-                .poa_values
-                .iter()
-                .any(|p| p.as_bytes().eq_ignore_ascii_case(v))
-            {
-                return Some(Exclusion::NotPresentOnAdmission);
-            }
-        }
-        None
     }
 
     /// Reads every diagnosis value of a record, calling `sink` with the
     /// value as written, its code and the exclusion that applies when the
     /// record's episode is the one being scored. Invalid values are counted
-    /// (or, with `--strict`, returned as an issue).
+    /// (or, with `--strict`, returned as an issue), and so are the
+    /// present-on-admission indicators of non-empty diagnosis fields.
     #[inline]
     pub fn read_codes(
         &self,
@@ -642,10 +975,7 @@ impl Plan {
         summary: &mut Summary,
         mut sink: impl FnMut(&[u8], Code, Option<Exclusion>),
     ) -> Result<(), RowIssue> {
-        let row_exclusion = match cfg.layout {
-            Layout::Long => self.row_exclusion(cfg, fields),
-            Layout::Wide => None,
-        };
+        let primary_row = cfg.layout == Layout::Long && self.primary_row(cfg, fields);
         let mut first = true;
         for (k, &c) in self.dx.iter().enumerate() {
             let v = fields.get(c);
@@ -655,6 +985,14 @@ impl Plan {
                 }
                 continue;
             }
+            let field_exclusion = if primary_row {
+                // The primary row is left out whatever its indicator; the
+                // indicator is still counted.
+                self.poa_exclusion(cfg, fields, k, summary)?;
+                Some(Exclusion::Primary)
+            } else {
+                self.poa_exclusion(cfg, fields, k, summary)?
+            };
             let mut one = |part: &[u8], first: &mut bool| -> Result<(), RowIssue> {
                 let is_first = std::mem::replace(first, false) && k == 0;
                 match crate::code::read_code(part) {
@@ -664,7 +1002,7 @@ impl Plan {
                         {
                             Some(Exclusion::Primary)
                         } else {
-                            row_exclusion
+                            field_exclusion
                         };
                         sink(part, code, excl);
                     }
@@ -725,11 +1063,15 @@ impl Plan {
     }
 
     /// The date of a record as days since 1970-01-01 (`None`: missing or
-    /// unreadable; counting is left to the caller, once per episode).
+    /// unreadable; counting missing and unreadable dates is left to the
+    /// caller, once per episode). Dates read, what they say about the
+    /// day/month order, and the first unreadable values are counted here:
+    /// the one place that reads a date field.
     pub fn read_date(
         &self,
         cfg: &ScoreConfig,
         fields: &Fields<'_>,
+        summary: &mut Summary,
     ) -> Result<Option<i32>, Option<Vec<u8>>> {
         let Some(c) = self.date else {
             return Ok(None);
@@ -738,10 +1080,21 @@ impl Plan {
         if raw.is_empty() {
             return Err(None);
         }
-        cfg.date_format
-            .parse(raw)
-            .map(Some)
-            .ok_or_else(|| Some(raw.to_vec()))
+        match cfg.date_format.read(raw) {
+            Some((day, order)) => {
+                summary.dates_read += 1;
+                match order {
+                    dates::DayMonth::Proven => summary.dates_order_proven += 1,
+                    dates::DayMonth::Either => summary.dates_either_order += 1,
+                    dates::DayMonth::Same => {}
+                }
+                Ok(Some(day))
+            }
+            None => {
+                summary.unreadable_date_example(raw);
+                Err(Some(raw.to_vec()))
+            }
+        }
     }
 
     /// The `--strict` failure for a row whose id field is empty.
@@ -774,6 +1127,14 @@ impl Plan {
                 shown(&v),
                 cfg_date_hint()
             ),
+            RowIssue::UnrecognisedPoa { column, value } => {
+                let v = value.trim_ascii();
+                format!(
+                    "unrecognised present-on-admission value '{}' (not Y, N, U, W, 1, blank or one of --poa-values) in column '{}'",
+                    shown(v),
+                    self.header.names[column]
+                )
+            }
         };
         Error::Strict { line, message }
     }
@@ -920,6 +1281,15 @@ mod summary_tests {
             disagreeing_units: 13,
             invalid_values: [(b"N/A".to_vec(), 4)].into_iter().collect(),
             dx_columns: vec!["dx1".into()],
+            unreadable_date_examples: vec![b"05/01/2021".to_vec()],
+            dates_read: 14,
+            dates_either_order: 15,
+            dates_order_proven: 16,
+            date_format: Some("%d/%m/%Y".into()),
+            poa_indicators: [(b"Y".to_vec(), 17), (Vec::new(), 18)]
+                .into_iter()
+                .collect(),
+            unrecognised_poa: 19,
         };
         let mut total = one.clone();
         total.merge(one.clone());
@@ -938,6 +1308,12 @@ mod summary_tests {
         doubled.missing_ids *= 2;
         doubled.disagreeing_units *= 2;
         doubled.invalid_values.insert(b"N/A".to_vec(), 8);
+        doubled.dates_read *= 2;
+        doubled.dates_either_order *= 2;
+        doubled.dates_order_proven *= 2;
+        doubled.unrecognised_poa *= 2;
+        doubled.poa_indicators.insert(b"Y".to_vec(), 34);
+        doubled.poa_indicators.insert(Vec::new(), 36);
         assert_eq!(total, doubled);
     }
 }

@@ -30,7 +30,8 @@ pub use dialect::{literal, quote_ident, quote_name, Dialect};
 
 use crate::lists::prefixes::points_text;
 use crate::lists::{prefix_rows, Bound};
-use crate::pipeline::{Header, Layout, Plan, ScoreConfig};
+use crate::pipeline::{Header, Layout, Plan, ScoreConfig, POA_BLANK};
+use crate::score::MAX_AGE;
 use crate::score::{ColumnKind, Engine};
 use crate::Error;
 
@@ -73,7 +74,9 @@ struct Columns {
     date: Option<String>,
     age: Option<String>,
     primary: Option<String>,
-    poa: Option<String>,
+    /// Present-on-admission columns: one (long layout) or one per diagnosis
+    /// column, paired in order (wide layout).
+    poa: Vec<String>,
     /// The table's columns when known.
     all: Option<Vec<String>>,
 }
@@ -96,19 +99,24 @@ fn resolve_columns(opts: &SqlOptions) -> Result<Columns, Error> {
                     names.push(item.to_string());
                 }
             }
-            for c in [
-                &cfg.id,
-                &cfg.episode,
-                &cfg.date,
-                &cfg.age,
-                &cfg.primary,
-                &cfg.poa,
-            ]
-            .into_iter()
-            .flatten()
+            for c in [&cfg.id, &cfg.episode, &cfg.date, &cfg.age, &cfg.primary]
+                .into_iter()
+                .flatten()
             {
                 if !names.contains(c) {
                     names.push(c.clone());
+                }
+            }
+            for item in cfg.poa.iter().flat_map(|s| s.split(',')) {
+                let item = item.trim();
+                if item.contains(['*', '?', '[']) {
+                    return Err(Error::Usage(format!(
+                        "--poa pattern '{item}' needs the table's columns: give --columns COLS \
+or name the present-on-admission columns"
+                    )));
+                }
+                if !item.is_empty() && !names.iter().any(|n| n == item) {
+                    names.push(item.to_string());
                 }
             }
             names
@@ -123,7 +131,11 @@ fn resolve_columns(opts: &SqlOptions) -> Result<Columns, Error> {
         date: name(plan.date),
         age: name(plan.age),
         primary: name(plan.primary),
-        poa: name(plan.poa),
+        poa: plan
+            .poa
+            .iter()
+            .map(|&i| plan.header.names[i].clone())
+            .collect(),
         all: opts.columns.clone(),
     })
 }
@@ -379,13 +391,13 @@ fn header(out: &mut String, engine: &Engine, opts: &SqlOptions, cols: &Columns) 
         ("date", &cols.date),
         ("age", &cols.age),
         ("primary", &cols.primary),
-        ("present on admission", &cols.poa),
     ] {
         if let Some(v) = v {
             opt(k, v.clone());
         }
     }
-    if cols.poa.is_some() {
+    if !cols.poa.is_empty() {
+        opt("present on admission", cols.poa.join(", "));
         opt("present-on-admission values", cfg.poa_values.join(","));
     }
     if let Some(l) = cfg.lookback {
@@ -735,25 +747,47 @@ fn steps(
             ));
         }
     }
-    if let Some(p) = &cols.poa {
-        let values: Vec<String> = cfg.poa_values.iter().map(|v| literal(v)).collect();
-        let values = if values.is_empty() {
-            "NULL".to_string()
+    // Present on admission (src/pipeline/mod.rs, `read_poa`): a field's codes
+    // count now when its indicator is one of --poa-values (`BLANK`: empty);
+    // any other value, known or not, leaves them out.
+    let poa_counts = |col: &str| -> String {
+        let t = d.trim_ascii(&format!("CAST({} AS TEXT)", q(col)));
+        let values: Vec<String> = cfg
+            .poa_values
+            .iter()
+            .filter(|v| v.as_str() != POA_BLANK)
+            .map(|v| literal(v))
+            .collect();
+        let mut terms = Vec::new();
+        if !values.is_empty() {
+            terms.push(format!(
+                "upper(COALESCE({t}, '')) IN ({})",
+                values.join(", ")
+            ));
+        }
+        if cfg.poa_values.iter().any(|v| v == POA_BLANK) {
+            terms.push(format!("COALESCE({t}, '') = ''"));
+        }
+        if terms.is_empty() {
+            "1 = 0".to_string()
         } else {
-            values.join(", ")
+            terms.join(" OR ")
+        }
+    };
+    let counts_now = |k: usize| -> String {
+        let mut excluded = excluded_row.clone();
+        let poa = match cfg.layout {
+            Layout::Wide => cols.poa.get(k),
+            Layout::Long => cols.poa.first(),
         };
-        excluded_row.push(format!(
-            "COALESCE(upper({}), '') NOT IN ({values})",
-            d.trim_ascii(&format!("CAST({} AS TEXT)", q(p)))
-        ));
-    }
-    let counts_now = if excluded_row.is_empty() {
-        "1".to_string()
-    } else {
-        format!(
-            "CASE WHEN {} THEN 0 ELSE 1 END",
-            excluded_row.join("\n         OR ")
-        )
+        if let Some(p) = poa {
+            excluded.push(format!("NOT ({})", poa_counts(p)));
+        }
+        if excluded.is_empty() {
+            "1".to_string()
+        } else {
+            format!("CASE WHEN {} THEN 0 ELSE 1 END", excluded.join(" OR "))
+        }
     };
     let mut fields_comment =
         "Step 3. One diagnosis field per row and column. `counts_now` is 0 for a code\n\
@@ -763,9 +797,10 @@ episodes' lookback)."
     if !wide && cfg.exclude_primary {
         fields_comment.push_str("\nRule: --exclude-primary leaves out rows flagged 1, y, yes, true, p or primary (any case).");
     }
-    if cols.poa.is_some() {
+    if !cols.poa.is_empty() {
         fields_comment.push_str(&format!(
-            "\nRule: present on admission: only rows whose indicator is one of {} count now.",
+            "\nRule: present on admission: a field's codes count now only when its indicator\n({}) is one of {} (BLANK: empty).",
+            cols.poa.join(", "),
             cfg.poa_values.join(", ")
         ));
     }
@@ -775,9 +810,10 @@ episodes' lookback)."
         .enumerate()
         .map(|(i, c)| {
             format!(
-                "SELECT r.{unit} AS unit, {} AS position, CAST({} AS TEXT) AS field, {counts_now} AS counts_now\nFROM {rows} AS r WHERE CAST({} AS TEXT) <> ''",
+                "SELECT r.{unit} AS unit, {} AS position, CAST({} AS TEXT) AS field, {} AS counts_now\nFROM {rows} AS r WHERE CAST({} AS TEXT) <> ''",
                 i + 1,
                 q(c),
+                counts_now(i),
                 q(c)
             )
         })
@@ -972,7 +1008,7 @@ unit stands alone), date and age as trimmed text.",
         let int_part =
             "substr(age_text, 1, ".to_string() + &d.position("age_text || '.'", "'.'") + " - 1)";
         let age = format!(
-            "CASE WHEN age_text <> '' AND length(age_text) <= 12 AND {}\n       THEN CASE WHEN {} <= 150 THEN CAST({} AS INTEGER) END END",
+            "CASE WHEN age_text <> '' AND length(age_text) <= 12 AND {}\n       THEN CASE WHEN {} <= {MAX_AGE} THEN CAST({} AS INTEGER) END END",
             d.is_decimal_number("age_text"),
             d.to_bigint(&int_part),
             d.to_bigint(&int_part)
@@ -981,7 +1017,7 @@ unit stands alone), date and age as trimmed text.",
             "row_facts",
             "Step 11. Dates as day numbers (YYYY-MM-DD from year 1000 to 9999, a time\n\
 after it ignored; anything else, or no calendar date, is no date) and ages in whole years (a whole or\n\
-decimal number from 0 to 150, decimals truncated; anything else is no age).",
+decimal number from 0 to the engine's maximum age, decimals truncated; anything else is no age).",
             format!(
                 "SELECT morbus_row, unit, patient,\n  {day} AS day,\n  {age} AS age_years\nFROM row_texts"
             ),
