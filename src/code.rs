@@ -201,15 +201,38 @@ pub fn read_list_code(text: &str) -> Option<Code> {
     }
 }
 
-/// Position alphabet for range expansion, as the code shape allows: the
-/// first character runs over `A-Z`, the second over `0-9`, every later one
-/// over `0-9` then `A-Z`.
-fn successor(code: &mut [u8]) -> bool {
+/// Which positions of a range may hold a letter between its ends: bit `i`
+/// is set when one of the two ends has a letter at position `i` (0-based).
+///
+/// The rule of `code-lists/FORMAT.md`: from the third character on, a range
+/// claims a code with a letter in some position only when one of the range's
+/// ends has a letter in that position. So `C77-C80` claims `C77`, `C78`,
+/// `C79`, `C80` but not the ICD-10-CM letter categories `C7A` and `C7B` that
+/// lie between its ends in character order; `C7A-C7B` claims both. (Which
+/// ICD-10-CM categories have a letter third character: ICD-10-CM tabular
+/// list; the rule itself is this project's.) The first character is always a
+/// letter and the second always a digit.
+#[inline]
+fn letter_positions(first: &[u8], last: &[u8]) -> u8 {
+    let mut mask = 0u8;
+    for i in 0..first.len().min(last.len()).min(MAX_CODE_LEN) {
+        if first[i].is_ascii_uppercase() || last[i].is_ascii_uppercase() {
+            mask |= 1 << i;
+        }
+    }
+    mask
+}
+
+/// Position alphabet for range expansion, as the code shape and the letter
+/// rule allow: the first character runs over `A-Z`, the second over `0-9`,
+/// every later one over `0-9`, then `A-Z` where `letters` has its bit set.
+fn successor(code: &mut [u8], letters: u8) -> bool {
     for i in (0..code.len()).rev() {
         let (lo, hi) = match i {
             0 => (b'A', b'Z'),
             1 => (b'0', b'9'),
-            _ => (b'0', b'Z'),
+            _ if letters & (1 << i) != 0 => (b'0', b'Z'),
+            _ => (b'0', b'9'),
         };
         let c = code[i];
         if c < hi {
@@ -222,11 +245,13 @@ fn successor(code: &mut [u8]) -> bool {
 }
 
 /// Expands an inclusive range of equal-length codes into every code between
-/// them, calling `f` for each. Stops (returning false) after `limit` codes.
+/// them that the range claims (see [`range_claims`]), calling `f` for each,
+/// in increasing order. Stops (returning false) after `limit` codes.
 pub fn expand_range(first: &Code, last: &Code, limit: usize, mut f: impl FnMut(Code)) -> bool {
     debug_assert_eq!(first.len(), last.len());
     let mut cur = *first;
     let n = cur.len();
+    let letters = letter_positions(first.as_bytes(), last.as_bytes());
     let mut count = 0;
     loop {
         if count == limit {
@@ -234,10 +259,32 @@ pub fn expand_range(first: &Code, last: &Code, limit: usize, mut f: impl FnMut(C
         }
         f(cur);
         count += 1;
-        if cur.as_bytes() >= last.as_bytes() || !successor(&mut cur.bytes[..n]) {
+        if cur.as_bytes() >= last.as_bytes() || !successor(&mut cur.bytes[..n], letters) {
             return true;
         }
     }
+}
+
+/// Whether the range `first`-`last` (equal lengths) claims some code that
+/// starts with `prefix` (at most as long as the ends), i.e. whether `prefix`
+/// is the beginning of one of the codes [`expand_range`] yields. A prefix
+/// with a letter in a position (from the third) where neither end has one is
+/// never claimed: `C77-C80` does not claim `C7A`.
+pub fn range_claims(first: &Code, last: &Code, prefix: &[u8]) -> bool {
+    let n = prefix.len();
+    if n > first.len() || n > last.len() {
+        return false;
+    }
+    let (lo, hi) = (&first.as_bytes()[..n], &last.as_bytes()[..n]);
+    if prefix < lo || prefix > hi {
+        return false;
+    }
+    let letters = letter_positions(first.as_bytes(), last.as_bytes());
+    prefix
+        .iter()
+        .enumerate()
+        .skip(2)
+        .all(|(i, c)| !c.is_ascii_uppercase() || letters & (1 << i) != 0)
 }
 
 #[cfg(test)]
@@ -320,27 +367,77 @@ mod tests {
         let b = read_list_code("C26").unwrap();
         let mut v = vec![];
         assert!(expand_range(&a, &b, 1000, |c| v.push(c.as_str().to_string())));
-        // Character order puts digits before letters, so C00-C26 also claims
-        // letter-third-character categories such as C0A (none exist in WHO
-        // ICD-10; ICD-10-CM has a few, e.g. C4A).
-        assert_eq!(v.len(), 2 * 36 + 7);
+        // Numeric ends claim no letter-third-character category in between
+        // (C0A, C1Z): the letter rule of FORMAT.md.
+        assert_eq!(v.len(), 27);
         assert_eq!(v[0], "C00");
-        assert!(v.contains(&"C0A".to_string()));
+        assert!(!v.contains(&"C0A".to_string()));
         assert_eq!(v.last().unwrap(), "C26");
         let a = read_list_code("I42.5").unwrap();
         let b = read_list_code("I42.9").unwrap();
         let mut v = vec![];
         expand_range(&a, &b, 1000, |c| v.push(c.as_str().to_string()));
         assert_eq!(v, ["I425", "I426", "I427", "I428", "I429"]);
-        // Letters in later positions (ICD-10-CM style) are part of the alphabet.
+        // The first character spans letters; the third stays numeric.
         let a = read_list_code("V01").unwrap();
         let b = read_list_code("X59").unwrap();
         let mut n = 0;
         expand_range(&a, &b, 100_000, |_| n += 1);
-        // V01..V9Z, W00..W9Z, X00..X59 over a 36-character third position.
-        assert_eq!(n, (360 - 1) + 360 + (5 * 36 + 10));
+        // V01..V99, W00..W99, X00..X59.
+        assert_eq!(n, 99 + 100 + 60);
         let mut n = 0;
         assert!(!expand_range(&a, &b, 10, |_| n += 1));
         assert_eq!(n, 10);
+        // An end with a letter in the third position lets the range claim
+        // letter categories there: C7A-C80 claims C7A..C7Z, then C80.
+        let a = read_list_code("C7A").unwrap();
+        let b = read_list_code("C80").unwrap();
+        let mut v = vec![];
+        expand_range(&a, &b, 1000, |c| v.push(c.as_str().to_string()));
+        assert_eq!(v.len(), 27);
+        assert_eq!(v[..2], ["C7A", "C7B"]);
+        assert_eq!(v.last().unwrap(), "C80");
+    }
+
+    #[test]
+    fn range_claims_follows_the_expansion() {
+        let r = |a: &str, b: &str| (read_list_code(a).unwrap(), read_list_code(b).unwrap());
+        let (a, b) = r("C77", "C80");
+        assert!(range_claims(&a, &b, b"C78"));
+        assert!(range_claims(&a, &b, b"C7"));
+        assert!(!range_claims(&a, &b, b"C7A"));
+        assert!(!range_claims(&a, &b, b"C81"));
+        assert!(!range_claims(&a, &b, b"C781"));
+        let (a, b) = r("C7A", "C80");
+        assert!(range_claims(&a, &b, b"C7B"));
+        // Every code the expansion yields is claimed, and every 3-character
+        // code in the character interval that it skips is not.
+        for (x, y) in [
+            ("C00", "C26"),
+            ("C45", "C58"),
+            ("I425", "I429"),
+            ("S000", "S099"),
+        ] {
+            let (a, b) = r(x, y);
+            let mut yielded = std::collections::BTreeSet::new();
+            expand_range(&a, &b, 100_000, |c| {
+                yielded.insert(c.as_str().to_string());
+            });
+            for c in &yielded {
+                assert!(range_claims(&a, &b, c.as_bytes()), "{c}");
+            }
+            let mut all = a;
+            loop {
+                let text = all.as_str().to_string();
+                assert_eq!(
+                    range_claims(&a, &b, text.as_bytes()),
+                    yielded.contains(&text),
+                    "{text}"
+                );
+                if all.as_bytes() >= b.as_bytes() || !successor(&mut all.bytes[..a.len()], 0xFF) {
+                    break;
+                }
+            }
+        }
     }
 }

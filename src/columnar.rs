@@ -196,6 +196,7 @@ struct Reader<'e> {
     engine: &'e Engine,
     dx_sep: Option<u8>,
     strict: bool,
+    edition: crate::editions::Edition,
     has_age: bool,
     dx_names: Vec<String>,
     summary: Summary,
@@ -210,7 +211,22 @@ impl Reader<'_> {
             }
             let mut one = |part: &[u8]| -> Result<(), Error> {
                 match self.engine.add_raw(bits, part) {
-                    Reading::Valid(_) => self.summary.codes_read += 1,
+                    Reading::Valid(code) => {
+                        let e = self.summary.valid_code(&code, self.edition);
+                        if e == crate::editions::Existence::Unknown && self.strict {
+                            return Err(Error::Strict {
+                                line: None,
+                                message: format!(
+                                    "row {row}: {}",
+                                    crate::pipeline::unknown_code_message(
+                                        &String::from_utf8_lossy(part),
+                                        name,
+                                        self.edition
+                                    )
+                                ),
+                            });
+                        }
+                    }
                     Reading::Empty => {}
                     Reading::Invalid => {
                         if self.strict {
@@ -308,6 +324,7 @@ impl<'e> Scorer<'e> {
                 engine,
                 dx_sep: cfg.dx_sep,
                 strict: cfg.strict,
+                edition: cfg.edition,
                 has_age: plan.age.is_some(),
                 dx_names: plan.dx.iter().map(|&i| header.names[i].clone()).collect(),
                 summary: Summary {

@@ -9,6 +9,7 @@
 //!
 //! The pieces, each in its own module:
 //! - [`code`]: reading an ICD-10 code from a field;
+//! - [`editions`]: which codes exist in WHO ICD-10 and ICD-10-CM;
 //! - [`lists`]: the code lists (format parser, built-ins, catalogue);
 //! - [`matcher`]: from a code to the conditions it claims;
 //! - [`score`]: conditions, hierarchies, weightings, output values;
@@ -42,6 +43,7 @@
 pub mod code;
 pub mod columnar;
 pub mod compare;
+pub mod editions;
 pub mod error;
 pub mod io;
 pub mod lists;

@@ -15,7 +15,7 @@
 //! | `options` | `layout` (`wide`/`long`), `dx` (names and patterns as given), `dx_columns` (the columns read), `dx_separator`, `delimiter`, `id_column`, `episode_column`, `date_column`, `date_format`, `lookback` (`null`, or `days`: a number, `null` for the whole history), `exclude_primary`, `primary_column`, `poa_column`, `poa_values`, `age_column`, `hierarchy`, `flags`, `strict` |
 //! | `columns` | the output columns added, in order |
 //! | `rows` | `read`, `written`, `units` (episodes in wide, ids in long), `missing_ids` (rows with an empty id field), `disagreeing_units` (long-layout units whose rows give different dates or ages; the first is used) |
-//! | `codes` | `read` (valid codes), `invalid` (count), `top_invalid` (up to 20 most frequent invalid values with their `count`) |
+//! | `codes` | `read` (valid, that is well-shaped, codes), `invalid` (count of malformed values: not ICD-10-shaped), `top_invalid` (up to 20 most frequent invalid values with their `count`), `edition` (`who`, `cm` or `any`: where codes were looked up), `edition_sources` (the code sets: edition, release, package), `unknown` (well-shaped codes in no selected edition, stem included), `top_unknown`, `extended` (codes not in the selected editions whose three- or four-character stem is), `top_extended` (normalised codes with their `count`) |
 //! | `excluded` | codes left out: `primary` (primary diagnosis), `not_on_admission` |
 //! | `ages` | `missing` and `unreadable` age fields; `null` without an age column |
 //! | `dates` | `missing` and `unreadable` dates (per episode), `unreadable_examples` (the first distinct unreadable values), `read` (date fields read), `day_month_either` (of those, dates that would also be valid with day and month swapped), `day_month_proven` (dates whose day is over 12), `max_unreadable_percent`; `null` without a date column |
@@ -180,6 +180,12 @@ pub struct Codes {
     pub read: u64,
     pub invalid: u64,
     pub top_invalid: Vec<InvalidValue>,
+    pub edition: String,
+    pub edition_sources: Vec<String>,
+    pub unknown: u64,
+    pub top_unknown: Vec<InvalidValue>,
+    pub extended: u64,
+    pub top_extended: Vec<InvalidValue>,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize)]
@@ -297,6 +303,25 @@ impl Provenance {
                 invalid: summary.invalid_codes,
                 top_invalid: summary
                     .top_invalid(TOP_INVALID)
+                    .into_iter()
+                    .map(|(value, count)| InvalidValue { value, count })
+                    .collect(),
+                edition: cfg.edition.name().into(),
+                edition_sources: cfg
+                    .edition
+                    .sources()
+                    .into_iter()
+                    .map(String::from)
+                    .collect(),
+                unknown: summary.unknown_codes,
+                top_unknown: summary
+                    .top_unknown(TOP_INVALID)
+                    .into_iter()
+                    .map(|(value, count)| InvalidValue { value, count })
+                    .collect(),
+                extended: summary.extended_codes,
+                top_extended: summary
+                    .top_extended(TOP_INVALID)
                     .into_iter()
                     .map(|(value, count)| InvalidValue { value, count })
                     .collect(),

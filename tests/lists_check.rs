@@ -301,3 +301,45 @@ fn a_file_that_is_not_text_is_an_error() {
     assert_eq!(r.code, 2);
     assert!(r.stdout.contains("error: not UTF-8 text"), "{}", r.stdout);
 }
+
+#[test]
+fn ranges_around_icd10cm_letter_categories_are_warnings() {
+    // ICD-10-CM has the letter categories C7A, C7B (between C77 and C80) and
+    // C4A (between C45 and C58): ICD-10-CM tabular list, from memory; the
+    // compiled ICD-10-CM set is checked against simple-icd-10-cm in
+    // python/tests/test_editions.py. A list that names no edition may be
+    // used on ICD-10-CM data: its author decides explicitly.
+    let text = with(&[
+        "code\tC77-C80\talpha\tInvented",
+        "code\tC45-C58\tbeta\tInvented",
+        "code\tC4A\tbeta\tInvented",
+    ]);
+    let (code, out, path, _d) = check(&text);
+    assert_eq!(code, 0, "{out}");
+    assert!(
+        out.contains(&format!(
+            "{path}:14: warning: range 'C77-C80' lies around the ICD-10-CM letter categories C7A, C7B but does not claim them (letter rule, FORMAT.md); name each that belongs to 'alpha' as an entry of its own"
+        )),
+        "{out}"
+    );
+    // C4A is named by line 16: no warning for C45-C58.
+    assert!(!out.contains(&format!("{path}:15:")), "{out}");
+    assert!(out.contains("0 error(s), 1 warning(s)"), "{out}");
+    // A range with a letter end claims its letters: nothing to warn about.
+    let (_, out, path, _d) = check(&with(&["code\tC7A-C80\talpha\tInvented"]));
+    assert!(!out.contains(&format!("{path}:14:")), "{out}");
+    // A list for ICD-10-CM is warned; one for WHO ICD-10 only is not (WHO
+    // has no letter categories).
+    let cm = with(&["code\tC77-C80\talpha\tInvented"]).replace(
+        "source\tInvented for tests",
+        "edition\tICD-10-CM\nsource\tInvented for tests",
+    );
+    let (_, out, _, _d) = check(&cm);
+    assert!(
+        out.contains("lies around the ICD-10-CM letter categories C7A, C7B"),
+        "{out}"
+    );
+    let who = cm.replace("edition\tICD-10-CM", "edition\tICD-10 (WHO)");
+    let (_, out, _, _d) = check(&who);
+    assert!(out.contains("0 error(s), 0 warning(s)"), "{out}");
+}

@@ -196,6 +196,78 @@ fn diff_reports_weights_hierarchy_and_version() {
 }
 
 #[test]
+fn diff_of_two_directories_pairs_lists_by_name() {
+    // Two directories as `lists export` writes them: `own_index` in both
+    // (edited in b), `charlson` only in a, `hfrs` only in b.
+    let dir = TempDir::new("diffdirs");
+    let (a, b) = (dir.join("a"), dir.join("b"));
+    for d in [&a, &b] {
+        std::fs::create_dir(d).unwrap();
+    }
+    std::fs::write(format!("{a}/own_index.tsv"), OWN).unwrap();
+    let edited = OWN
+        .replace("version\t0.3", "version\t0.4")
+        .replace("code\tJ44\tlung", "code\tJ43\tlung");
+    std::fs::write(format!("{b}/own_index.tsv"), edited).unwrap();
+    assert_eq!(morbus(&["lists", "export", "charlson", &a]).code, 0);
+    assert_eq!(morbus(&["lists", "export", "hfrs", &b]).code, 0);
+    // A project file beside the lists is not a list (FORMAT.md).
+    std::fs::write(format!("{b}/VERSIONS.tsv"), "not a list\n").unwrap();
+
+    let r = morbus(&["lists", "diff", &a, &b]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let out = &r.stdout;
+    assert!(out.contains("--- a: own_index 0.3"), "{out}");
+    assert!(out.contains("version: 0.3 -> 0.4"), "{out}");
+    assert!(out.contains("    - J44  (a line 13)"), "{out}");
+    assert!(out.contains("    + J43  (b line 13)"), "{out}");
+    assert!(out.contains("only in a: - charlson "), "{out}");
+    assert!(out.contains("only in b: + hfrs "), "{out}");
+    assert!(!out.contains("VERSIONS"), "{out}");
+
+    let r = morbus(&["lists", "diff", &a, &b, "--json"]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let v: serde_json::Value = serde_json::from_str(&r.stdout).unwrap();
+    assert_eq!(v["lists"].as_array().unwrap().len(), 1);
+    assert_eq!(v["lists"][0]["a"]["name"], "own_index");
+    assert_eq!(v["only_in_a"][0]["name"], "charlson");
+    assert_eq!(v["only_in_b"][0]["name"], "hfrs");
+
+    let r = morbus(&["lists", "diff", &a, &a]);
+    assert_eq!(r.code, 0);
+    assert!(
+        r.stdout
+            .contains("no differences: the same 2 lists with the same content"),
+        "{}",
+        r.stdout
+    );
+
+    // A directory and a list: a usage error naming both.
+    let r = morbus(&["lists", "diff", &a, "charlson"]);
+    assert_eq!(r.code, 2);
+    assert!(
+        r.stderr.contains(&format!(
+            "'{a}' is a directory but 'charlson' is not: compare two directories (lists paired by name) or two lists"
+        )),
+        "{}",
+        r.stderr
+    );
+    // A broken list in a directory: exit 2 with its error.
+    std::fs::write(
+        format!("{b}/own_index.tsv"),
+        OWN.replace("I50.1-I50.9", "I50.9-I50.1"),
+    )
+    .unwrap();
+    let r = morbus(&["lists", "diff", &a, &b]);
+    assert_eq!(r.code, 2);
+    assert!(
+        r.stderr.contains("own_index.tsv:12: error: range"),
+        "{}",
+        r.stderr
+    );
+}
+
+#[test]
 fn a_user_defined_index_scores_from_files_alone() {
     let lists = TempDir::new("ownscore");
     lists.write("own_index.tsv", OWN);

@@ -503,3 +503,79 @@ fn code_reading_edge_cases_score_like_clean_codes() {
     assert_eq!(clean, messy);
     assert!(matches!(read_code(b"I2"), Reading::Invalid));
 }
+
+#[test]
+fn labels_follow_the_cited_publications() {
+    // Condition labels as the publications print them (from memory):
+    // Quan et al., Med Care 2005;43:1130-9, Tables 1 and 2 (American
+    // spelling); Gilbert et al., Lancet 2018;391:1775-82, table of the 109
+    // ICD-10 codes (A41 printed "Other septicaemia").
+    let label = |l: &str, key: &str| {
+        let list = list(l);
+        list.conditions[list.condition_index(key).expect(key)]
+            .label
+            .clone()
+    };
+    assert_eq!(
+        label("charlson", "metastatic_solid_tumour"),
+        "Metastatic solid tumor"
+    );
+    assert_eq!(
+        label("charlson", "any_malignancy"),
+        "Any malignancy, including lymphoma and leukemia, except malignant neoplasm of skin"
+    );
+    assert_eq!(
+        label("elixhauser", "solid_tumour_without_metastasis"),
+        "Solid tumor without metastasis"
+    );
+    assert_eq!(
+        label("elixhauser", "blood_loss_anaemia"),
+        "Blood loss anemia"
+    );
+    assert_eq!(
+        label("elixhauser", "deficiency_anaemia"),
+        "Deficiency anemia"
+    );
+    assert_eq!(label("hfrs", "other_sepsis"), "Other septicaemia (A41)");
+}
+
+#[test]
+fn hfrs_secondary_position_notes_are_recorded_not_applied() {
+    // The categories ICD-10 reserves for secondary diagnosis positions
+    // (supplementary agent, resistance and nosocomial codes, external
+    // causes: WHO ICD-10 Volume 2 rules for morbidity coding, from memory)
+    // among the 109 of Gilbert et al., Lancet 2018;391:1775-82.
+    let hfrs = list("hfrs");
+    let mut noted: Vec<String> = hfrs
+        .conditions
+        .iter()
+        .enumerate()
+        .filter(|(_, c)| !c.notes.is_empty())
+        .map(|(ci, _)| {
+            hfrs.codes
+                .iter()
+                .find(|e| e.condition == ci)
+                .unwrap()
+                .first
+                .to_string()
+        })
+        .collect();
+    noted.sort();
+    assert_eq!(
+        noted,
+        ["B95", "B96", "U80", "W01", "W06", "W10", "W18", "W19", "X59", "Y84", "Y95"]
+    );
+    for c in hfrs.conditions.iter().filter(|c| !c.notes.is_empty()) {
+        assert!(
+            c.notes[0]
+                .text
+                .starts_with("secondary diagnosis positions only"),
+            "{}",
+            c.key
+        );
+    }
+    // Not applied: W19 (unspecified fall, 3.2 points; Gilbert et al. 2018,
+    // from memory) scores alone, as the only (first) code of an episode.
+    assert_eq!(score("hfrs", &["W19"], true), 3.2);
+    assert_eq!(score("hfrs", &["B96.2"], true), 2.9);
+}

@@ -25,12 +25,33 @@ from . import _history, _native
 from ._history import explain
 from ._native import Lists
 
-__all__ = ["score", "explain", "lists", "load_lists", "Lists", "__version__"]
+__all__ = ["score", "explain", "lists", "load_lists", "code_status", "Lists", "__version__"]
 
 __version__: str = _native.version()
 
 
 _Names = Union[str, Sequence[str]]
+
+
+def code_status(values: Union[str, Sequence[str]], edition: str = "any") -> List[str]:
+    """Look diagnosis values up as :func:`score` reads and counts them.
+
+    For each value: ``"known"`` (a code of the edition), ``"extended"`` (not
+    a code of the edition, but its category is: a national variant),
+    ``"unknown"`` (ICD-10-shaped, but neither the code nor its category is
+    in the edition), ``"invalid"`` (not ICD-10-shaped) or ``"empty"``.
+    ``edition``: ``"who"`` (WHO ICD-10 2019), ``"cm"`` (ICD-10-CM, April 2026
+    release) or ``"any"`` (either).
+
+    >>> import morbus
+    >>> morbus.code_status(["I50.9", "I5O.9", "I50.99", "N/A", ""], edition="who")
+    ['known', 'unknown', 'extended', 'invalid', 'empty']
+    >>> morbus.code_status("C7A.1", edition="cm"), morbus.code_status("C7A.1", edition="who")
+    (['known'], ['unknown'])
+    """
+    if isinstance(values, str):
+        values = [values]
+    return _native.code_status(list(values), edition)
 
 
 def load_lists(path: Union[str, "os.PathLike[str]"]) -> Lists:
@@ -203,6 +224,7 @@ def score(
     poa: Optional[str] = None,
     poa_values: Union[str, Sequence[str]] = ("Y", "W", "1", "blank"),
     max_unreadable_dates: Union[int, float, str] = 1,
+    edition: str = "any",
 ) -> Any:
     """Add comorbidity and frailty scores to an extract (``morbus score``).
 
@@ -232,8 +254,17 @@ def score(
     - ``lists``: a directory of code lists, or a :class:`Lists` from
       :func:`load_lists`, adding to or replacing the built-ins.
     - ``dx_sep``: split a diagnosis field holding several codes at this
-      character. ``strict``: raise on the first invalid code or unreadable
-      age instead of counting it.
+      character. ``strict``: raise on the first invalid or unknown code or
+      unreadable age instead of counting it.
+    - ``edition``: ``"who"`` (WHO ICD-10 2019), ``"cm"`` (ICD-10-CM, April
+      2026 release) or ``"any"`` (default: either). Every well-shaped code is
+      looked up: one in neither the edition nor under one of its categories
+      is *unknown* (e.g. ``I5O.9``, letter O for zero), one whose category
+      is in the edition but not the code itself is *extended* (a national
+      variant). Both still score by prefix; both are counted in the
+      provenance (``codes.unknown``, ``codes.extended``, with the most
+      frequent values) and the summary line; ``strict`` stops on unknown
+      codes, not on extended ones. :func:`code_status` looks values up.
     - ``threads``: threads for the wide layout (default: one per core; the
       result does not depend on it).
     - ``provenance=True``: return ``(frame, provenance)``, where
@@ -333,7 +364,8 @@ def score(
         return _score_history(
             frame,
             dict(dx=dx_items, layout=layout, id=id, age=age, index=index_items, flags=bool(flags),
-                 hierarchy=bool(hierarchy), lists=cat, dx_sep=dx_sep, strict=bool(strict), threads=threads),
+                 hierarchy=bool(hierarchy), lists=cat, dx_sep=dx_sep, strict=bool(strict), threads=threads,
+                 edition=edition),
             _history.native_options(date=date, date_format=date_format, lookback=lookback, episode=episode,
                                     exclude_primary=exclude_primary, primary=primary, poa=poa,
                                     poa_values=poa_values, max_unreadable_dates=max_unreadable_dates),
@@ -367,6 +399,7 @@ def score(
         dx_sep=dx_sep,
         strict=bool(strict),
         threads=threads,
+        edition=edition,
     )
     import pyarrow as pa
 

@@ -210,6 +210,7 @@ def explain(
     poa_values: Union[str, Sequence[str]] = ("Y", "W", "1", "blank"),
     max_unreadable_dates: Union[int, float, str] = 1,
     report: bool = False,
+    edition: str = "any",
 ) -> Any:
     """Show, code by code, how each episode's scores come about (``morbus explain``).
 
@@ -233,7 +234,9 @@ def explain(
       adds the age points with ``age=``), whose code columns are null.
 
     ``weight`` is ``int64`` when every weighting has whole-number points,
-    else ``float64``. ``report=True`` returns ``(frame, summary line)``.
+    else ``float64``. ``report=True`` returns ``(frame, summary line)``;
+    the summary line counts invalid, unknown and extended codes as
+    :func:`score` describes (``edition``).
 
     >>> import pandas as pd, morbus
     >>> df = pd.DataFrame({
@@ -288,6 +291,7 @@ def explain(
         dx_sep=dx_sep,
         strict=bool(strict),
         threads=threads,
+        edition=edition,
         **opts,
     )
     import pyarrow as pa

@@ -43,6 +43,7 @@ def score(
     dx_sep: Optional[str],
     strict: bool,
     threads: int,
+    edition: str = ...,
 ) -> Tuple[ArrowStream, Optional[ArrowStream], str, str]: ...
 def score_history(
     names: Sequence[str],
@@ -68,6 +69,7 @@ def score_history(
     poa: Optional[str],
     poa_values: Sequence[str],
     max_unreadable_dates: Optional[str] = None,
+    edition: str = ...,
 ) -> Tuple[ArrowStream, Optional[ArrowStream], str, str]:
     """`morbus.score` over the patient history: (scores, per output row the
     0-based frame row of the episode's first record (long layout), provenance
@@ -95,7 +97,10 @@ def explain(
     poa: Optional[str],
     poa_values: Sequence[str],
     max_unreadable_dates: Optional[str] = None,
+    edition: str = ...,
 ) -> Tuple[ArrowStream, str]:
     """`morbus explain` on a frame: (the columns from `row` on, summary line)."""
+def code_status(values: Sequence[str], edition: str = ...) -> List[str]:
+    """Per value: "known", "extended", "unknown", "invalid" or "empty"."""
 def version() -> str: ...
 def debug_build() -> bool: ...

@@ -327,6 +327,7 @@ fn resolve(
         max_unreadable_dates,
         age,
         strict,
+        edition: hist.edition,
         threads,
         ..ScoreConfig::default()
     };
@@ -467,6 +468,7 @@ struct HistoryArgs {
     poa: Option<String>,
     poa_values: Vec<String>,
     max_unreadable_dates: Option<String>,
+    edition: morbus::pipeline::Edition,
 }
 
 /// The used columns as delimited text, and the line on which each row's
@@ -614,7 +616,7 @@ fn fetch_text(
 /// [`crate::score`]: `first_rows` (long layout) holds, per output row, the
 /// 0-based frame row of the episode's first record.
 #[pyfunction]
-#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values, max_unreadable_dates=None))]
+#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values, max_unreadable_dates=None, edition="any"))]
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn score_history<'py>(
     py: Python<'py>,
@@ -640,6 +642,7 @@ pub(crate) fn score_history<'py>(
     poa: Option<String>,
     poa_values: Vec<String>,
     max_unreadable_dates: Option<String>,
+    edition: &str,
 ) -> PyResult<(ArrowStream, Option<ArrowStream>, String, String)> {
     let builtin;
     let lists: &PyLists = match &lists {
@@ -659,6 +662,7 @@ pub(crate) fn score_history<'py>(
         poa,
         poa_values,
         max_unreadable_dates,
+        edition: crate::parse_edition(edition)?,
     };
     let mut run = resolve(
         names, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads, hist,
@@ -725,7 +729,7 @@ fn rows_stream(rows: Vec<i64>) -> ArrowStream {
 /// `source_row` are the command line's 1-based data rows, the frame row plus
 /// one) and the summary line.
 #[pyfunction]
-#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values, max_unreadable_dates=None))]
+#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, hierarchy, lists, dx_sep, strict, threads, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values, max_unreadable_dates=None, edition="any"))]
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn explain<'py>(
     py: Python<'py>,
@@ -750,6 +754,7 @@ pub(crate) fn explain<'py>(
     poa: Option<String>,
     poa_values: Vec<String>,
     max_unreadable_dates: Option<String>,
+    edition: &str,
 ) -> PyResult<(ArrowStream, String)> {
     let builtin;
     let lists: &PyLists = match &lists {
@@ -769,6 +774,7 @@ pub(crate) fn explain<'py>(
         poa,
         poa_values,
         max_unreadable_dates,
+        edition: crate::parse_edition(edition)?,
     };
     let mut run = resolve(
         names, dx, layout, id, age, index, false, hierarchy, lists, dx_sep, strict, threads, hist,

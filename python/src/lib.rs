@@ -26,7 +26,7 @@ use pyo3::types::{PyCapsule, PyDict, PyList};
 
 use morbus::columnar::{self, Age, Rows, Scorer};
 use morbus::lists::{Catalogue, CodeList, SCALE};
-use morbus::pipeline::{Header, Layout, ScoreConfig, Summary};
+use morbus::pipeline::{Edition, Header, Layout, ScoreConfig, Summary};
 use morbus::provenance::Provenance;
 use morbus::score::{ColumnKind, Engine, IndexSpec, ScoreOptions, Value, DEFAULT_INDICES};
 use morbus::Error;
@@ -748,7 +748,7 @@ fn missing_column(cfg: &ScoreConfig, header: &Header) -> bool {
 /// stream, the run's provenance as JSON (that of `morbus score --provenance`)
 /// and its summary line.
 #[pyfunction]
-#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads))]
+#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads, edition="any"))]
 #[allow(clippy::too_many_arguments)]
 fn score<'py>(
     py: Python<'py>,
@@ -765,6 +765,7 @@ fn score<'py>(
     dx_sep: Option<String>,
     strict: bool,
     threads: usize,
+    edition: &str,
 ) -> PyResult<(ArrowStream, Option<ArrowStream>, String, String)> {
     let builtin;
     let lists: &PyLists = match &lists {
@@ -817,6 +818,7 @@ fn score<'py>(
         id,
         age,
         strict,
+        edition: parse_edition(edition)?,
         threads,
         ..ScoreConfig::default()
     };
@@ -915,6 +917,34 @@ fn debug_build() -> bool {
     cfg!(debug_assertions)
 }
 
+/// `edition=`: `"who"`, `"cm"` or `"any"`.
+pub(crate) fn parse_edition(text: &str) -> PyResult<Edition> {
+    Edition::parse(text).ok_or_else(|| {
+        PyValueError::new_err(format!(
+            "edition must be 'who', 'cm' or 'any', not '{text}'"
+        ))
+    })
+}
+
+/// Whether each value is an ICD-10 code of the editions: `"known"`,
+/// `"extended"` (the code is not in them but its category is), `"unknown"`
+/// (well-shaped, but neither the code nor its category is in them),
+/// `"invalid"` (not ICD-10-shaped) or `"empty"`, as `morbus score` counts
+/// diagnosis values.
+#[pyfunction]
+#[pyo3(signature = (values, edition="any"))]
+fn code_status(values: Vec<String>, edition: &str) -> PyResult<Vec<&'static str>> {
+    let edition = parse_edition(edition)?;
+    Ok(values
+        .iter()
+        .map(|v| match morbus::code::read_code(v.as_bytes()) {
+            morbus::code::Reading::Empty => "empty",
+            morbus::code::Reading::Invalid => "invalid",
+            morbus::code::Reading::Valid(c) => morbus::editions::existence(&c, edition).name(),
+        })
+        .collect())
+}
+
 #[pymodule]
 fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<PyLists>()?;
@@ -927,5 +957,6 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(debug_build, m)?)?;
     m.add_function(wrap_pyfunction!(history::score_history, m)?)?;
     m.add_function(wrap_pyfunction!(history::explain, m)?)?;
+    m.add_function(wrap_pyfunction!(code_status, m)?)?;
     Ok(())
 }

@@ -60,6 +60,9 @@ pub fn show(list: &CodeList, json: bool) -> Result<(), Error> {
             c.label,
             c.source
         ));
+        for n in &c.notes {
+            line(format!("       {:<kw$}  note: {n}", ""));
+        }
     }
     line(String::new());
     line("codes per condition (as written -> normalised, line)".into());
@@ -201,6 +204,57 @@ pub fn diff(a: &CodeList, b: &CodeList, json: bool) -> Result<(), Error> {
     if json {
         return json_out(&d);
     }
+    let s = diff_text(&d);
+    morbus::io::atomic::stdout()
+        .write_all(s.as_bytes())
+        .map_err(write_err)
+}
+
+/// `lists diff DIR_A DIR_B`: each list of both directories paired by name
+/// (the report of a two-list diff each), then the lists on one side only.
+pub fn diff_dirs(d: &lists::DirDiff, json: bool) -> Result<(), Error> {
+    if json {
+        return json_out(d);
+    }
+    let mut s = format!("=== a: {}\n=== b: {}\n", d.a, d.b);
+    if !d.has_changes() {
+        s.push_str(&format!(
+            "no differences: the same {} lists with the same content\n",
+            d.lists.len()
+        ));
+    }
+    for l in &d.lists {
+        s.push('\n');
+        s.push_str(&diff_text(l));
+    }
+    if !d.only_in_a.is_empty() || !d.only_in_b.is_empty() {
+        s.push('\n');
+    }
+    for o in &d.only_in_a {
+        s.push_str(&format!(
+            "only in a: - {} {}, {}, checksum {}\n",
+            o.name,
+            o.version,
+            o.origin,
+            &o.checksum[..12]
+        ));
+    }
+    for o in &d.only_in_b {
+        s.push_str(&format!(
+            "only in b: + {} {}, {}, checksum {}\n",
+            o.name,
+            o.version,
+            o.origin,
+            &o.checksum[..12]
+        ));
+    }
+    morbus::io::atomic::stdout()
+        .write_all(s.as_bytes())
+        .map_err(write_err)
+}
+
+/// The text report of a two-list diff.
+fn diff_text(d: &lists::ListDiff) -> String {
     let mut s = String::new();
     let mut line = |t: String| {
         s.push_str(&shown(t.trim_end()));
@@ -303,7 +357,5 @@ pub fn diff(a: &CodeList, b: &CodeList, json: bool) -> Result<(), Error> {
     for c in &d.sources_changed {
         line(format!("{}: '{}' -> '{}'", c.what, c.before, c.after));
     }
-    morbus::io::atomic::stdout()
-        .write_all(s.as_bytes())
-        .map_err(write_err)
+    s
 }

@@ -2,14 +2,14 @@
 //! summary and maps errors to exit codes (see [`morbus::error`]).
 
 use std::io::{IsTerminal, Write};
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 use clap::{Args, Parser, Subcommand, ValueEnum};
 
 use morbus::io::{AtomicFile, End, Extract, Table};
 use morbus::lists::{self, Catalogue, Loaded};
 use morbus::pipeline::explain::ExplainFormat;
-use morbus::pipeline::{self, DateFormat, Layout, ScoreConfig};
+use morbus::pipeline::{self, DateFormat, Edition, Layout, ScoreConfig};
 use morbus::provenance::Provenance;
 use morbus::score::{Engine, IndexSpec, ScoreOptions, DEFAULT_INDICES};
 use morbus::Error;
@@ -231,6 +231,17 @@ enum LayoutArg {
     Long,
 }
 
+/// `--edition`.
+#[derive(Clone, Copy, ValueEnum)]
+enum EditionArg {
+    /// WHO ICD-10, 2019 edition.
+    Who,
+    /// ICD-10-CM, April 2026 release (fiscal year 2026).
+    Cm,
+    /// Either (a code is known when one of the two has it).
+    Any,
+}
+
 /// Options shared by every command that reads an extract.
 #[derive(Args, Clone)]
 struct InputArgs {
@@ -298,7 +309,13 @@ struct InputArgs {
     /// Directory of code lists (*.tsv) that add to or replace the built-ins.
     #[arg(long, value_name = "DIR")]
     lists: Option<PathBuf>,
-    /// Stop (exit 3) at the first warning, with its line: an invalid code, a missing or
+    /// ICD-10 editions a code is looked up in: a well-shaped code in none of them (nor its
+    /// category or subcategory) is counted as unknown, one whose category or subcategory
+    /// is in one of them as extended (a national variant). Both still score by prefix.
+    #[arg(long, value_enum, default_value = "any")]
+    edition: EditionArg,
+    /// Stop (exit 3) at the first warning, with its line: an invalid code, an unknown code
+    /// (see --edition; extended codes do not stop), a missing or
     /// unreadable age or date, a row with an empty --id, or a warning of a list loaded
     /// with --lists. Input that cannot be read at all (wrong field count, a quote never
     /// closed) fails with exit 1, with or without --strict.
@@ -384,11 +401,13 @@ enum ListsCommand {
         path: PathBuf,
     },
     /// What changed from list A to list B: conditions, codes per condition,
-    /// hierarchy, weights, bands, age points, version and sources.
+    /// hierarchy, weights, bands, age points, version and sources. A and B may
+    /// both be directories (as `lists export` writes): lists are paired by name,
+    /// and lists present on one side only are reported.
     Diff {
-        /// List name or path to a list file (before).
+        /// List name, path to a list file, or directory of lists (before).
         a: String,
-        /// List name or path to a list file (after).
+        /// List name, path to a list file, or directory of lists (after).
         b: String,
         /// Print JSON instead of text.
         #[arg(long)]
@@ -565,6 +584,11 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
         age: a.age.clone(),
         delimiter: one_char(&a.delimiter, "--delimiter")?,
         strict: a.strict,
+        edition: match a.edition {
+            EditionArg::Who => Edition::Who,
+            EditionArg::Cm => Edition::Cm,
+            EditionArg::Any => Edition::Any,
+        },
         threads: a.threads,
         ..ScoreConfig::default()
     })
@@ -1009,6 +1033,20 @@ fn lists_command(a: ListsArgs) -> Result<(), Error> {
             Ok(())
         }
         Some(ListsCommand::Diff { a: la, b: lb, json }) => {
+            let (da, db) = (Path::new(&la).is_dir(), Path::new(&lb).is_dir());
+            if da && db {
+                let (d, warnings) = lists::diff_dirs(Path::new(&la), Path::new(&lb))?;
+                for w in &warnings {
+                    eprintln!("{w}");
+                }
+                return list_cmds::diff_dirs(&d, json);
+            }
+            if da || db {
+                let (dir, other) = if da { (&la, &lb) } else { (&lb, &la) };
+                return Err(Error::Usage(format!(
+                    "'{dir}' is a directory but '{other}' is not: compare two directories (lists paired by name) or two lists"
+                )));
+            }
             let cat = catalogue(a.lists.as_ref(), false, false)?;
             let left = resolve_list(&la, &cat)?;
             let right = resolve_list(&lb, &cat)?;

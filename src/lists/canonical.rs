@@ -63,6 +63,11 @@ pub fn canonical_text(list: &CodeList) -> String {
     for c in &list.conditions {
         rec(&["condition", &c.key, &c.label, &c.source]);
     }
+    for c in &list.conditions {
+        for n in &c.notes {
+            rec(&["condition_note", &c.key, &n.text, &n.source]);
+        }
+    }
     for (ci, c) in list.conditions.iter().enumerate() {
         let mut codes: Vec<_> = list.codes.iter().filter(|e| e.condition == ci).collect();
         codes.sort_by_key(|e| (e.first, e.last));

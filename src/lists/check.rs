@@ -57,13 +57,77 @@ impl CheckReport {
     }
 }
 
+/// Whether a list is (also) written for ICD-10-CM: it names no edition, or
+/// an `edition` record has the word `CM` (`ICD-10-CM`).
+fn targets_cm(list: &CodeList) -> bool {
+    list.editions.is_empty()
+        || list.editions.iter().any(|e| {
+            e.split(|c: char| !c.is_ascii_alphanumeric())
+                .any(|w| w == "CM")
+        })
+}
+
+/// Warnings for ranges that lie around ICD-10-CM letter categories (`C7A`
+/// between `C77` and `C80`) without claiming them (the letter rule of
+/// FORMAT.md), when no entry of the list names them either: the author of
+/// a list for ICD-10-CM decides explicitly. Lists that name only other
+/// editions (WHO ICD-10 has no letter categories) get none.
+pub fn letter_category_warnings(list: &CodeList) -> Vec<Diagnostic> {
+    let mut out = Vec::new();
+    if !targets_cm(list) {
+        return out;
+    }
+    let letters = crate::editions::letter_categories(crate::editions::Edition::Cm);
+    let named = |cat: &[u8]| {
+        list.codes.iter().any(|e| {
+            let last = e.last.unwrap_or(e.first);
+            if e.first.len() <= 3 {
+                crate::code::range_claims(&e.first, &last, &cat[..e.first.len()])
+            } else {
+                crate::code::range_claims(&e.first, &last, cat)
+            }
+        })
+    };
+    for e in &list.codes {
+        let Some(last) = e.last else { continue };
+        let (lo, hi) = (&e.first.as_bytes()[..3], &last.as_bytes()[..3]);
+        let around: Vec<String> = letters
+            .iter()
+            .filter(|c| lo <= &c[..] && &c[..] <= hi)
+            .filter(|c| !crate::code::range_claims(&e.first, &last, &c[..]) && !named(&c[..]))
+            .map(|c| String::from_utf8_lossy(c).into_owned())
+            .collect();
+        if around.is_empty() {
+            continue;
+        }
+        let condition = list
+            .conditions
+            .get(e.condition)
+            .map_or("", |c| c.key.as_str());
+        out.push(Diagnostic::warning(
+            &list.origin.to_string(),
+            e.line,
+            format!(
+                "range '{}' lies around the ICD-10-CM letter categories {} but does not claim them (letter rule, FORMAT.md); name each that belongs to '{condition}' as an entry of its own",
+                e.text,
+                around.join(", "),
+            ),
+        ));
+    }
+    out
+}
+
 fn check_file(path: &Path) -> FileCheck {
     match load_file(path) {
-        Ok(l) => FileCheck {
-            path: path.to_path_buf(),
-            list: Some(l.list),
-            diagnostics: l.warnings,
-        },
+        Ok(mut l) => {
+            let extra = letter_category_warnings(&l.list);
+            l.warnings.extend(extra);
+            FileCheck {
+                path: path.to_path_buf(),
+                list: Some(l.list),
+                diagnostics: l.warnings,
+            }
+        }
         Err(e) => FileCheck {
             path: path.to_path_buf(),
             list: None,

@@ -35,6 +35,8 @@ pub struct ConditionInfo {
     pub label: String,
     pub source: String,
     pub line: usize,
+    /// `condition_note` texts (recorded, not applied by scoring).
+    pub notes: Vec<String>,
     pub codes: Vec<CodeInfo>,
 }
 
@@ -124,6 +126,7 @@ pub fn describe(list: &CodeList) -> Description {
                 label: c.label.clone(),
                 source: c.source.clone(),
                 line: c.line,
+                notes: c.notes.iter().map(|n| n.text.clone()).collect(),
                 codes,
             }
         })

@@ -292,6 +292,18 @@ pub fn diff(a: &CodeList, b: &CodeList) -> ListDiff {
     for ca in &a.conditions {
         if let Some(cb) = b.conditions.iter().find(|c| c.key == ca.key) {
             labels_changed.extend(change(format!("label of {}", ca.key), &ca.label, &cb.label));
+            let notes = |c: &super::Condition| {
+                c.notes
+                    .iter()
+                    .map(|n| n.text.as_str())
+                    .collect::<Vec<_>>()
+                    .join(" | ")
+            };
+            labels_changed.extend(change(
+                format!("notes of {}", ca.key),
+                &notes(ca),
+                &notes(cb),
+            ));
             sources.extend(change(
                 format!("source of condition {}", ca.key),
                 &ca.source,
@@ -476,6 +488,44 @@ age_points\t65\t*\t1\tInvented\n";
     }
 
     #[test]
+    fn condition_notes_are_content() {
+        let b = BASE.to_string() + "condition_note\ttwo\tsecondary positions only\tInvented\n";
+        let (la, lb) = (load(BASE), load(&b));
+        assert_eq!(lb.conditions[1].notes[0].text, "secondary positions only");
+        assert_ne!(la.checksum, lb.checksum);
+        let d = diff(&la, &lb);
+        assert_eq!(d.labels_changed.len(), 1);
+        assert_eq!(d.labels_changed[0].what, "notes of two");
+        assert_eq!(d.labels_changed[0].after, "secondary positions only");
+        // The canonical text carries the note: it loads back the same.
+        let back = load(&crate::lists::canonical_text(&lb));
+        assert_eq!(back.checksum, lb.checksum);
+        assert_eq!(
+            back.conditions[1].notes,
+            lb.conditions[1]
+                .notes
+                .iter()
+                .map(|n| crate::lists::ConditionNote {
+                    line: back.conditions[1].notes[0].line,
+                    ..n.clone()
+                })
+                .collect::<Vec<_>>()
+        );
+        // A note for an undeclared condition, or without text, is an error.
+        for bad in [
+            "condition_note\tnine\tx\tInvented\n",
+            "condition_note\ttwo\t\tInvented\n",
+        ] {
+            let e = parse(&(BASE.to_string() + bad), Origin::File("t.tsv".into())).unwrap_err();
+            assert!(
+                e.diagnostics[0].message.contains("condition_note"),
+                "{:?}",
+                e.diagnostics
+            );
+        }
+    }
+
+    #[test]
     fn identical_lists_have_no_changes() {
         let d = diff(&load(BASE), &load(BASE));
         assert!(d.same_content());
@@ -569,4 +619,81 @@ age_points\t65\t*\t1\tInvented\n";
         assert_eq!(d.sources_changed[0].what, "source of code I252 of one");
         assert!(d.has_changes());
     }
+}
+
+/// `lists diff` of two directories of lists: the lists of both paired by
+/// name, and those present on one side only.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct DirDiff {
+    /// The directories as given.
+    pub a: String,
+    pub b: String,
+    /// One report per list name present on both sides, by name.
+    pub lists: Vec<ListDiff>,
+    /// Lists present only in `a` (removed) and only in `b` (added).
+    pub only_in_a: Vec<OneSide>,
+    pub only_in_b: Vec<OneSide>,
+}
+
+/// A list present on one side of a directory diff.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct OneSide {
+    pub name: String,
+    pub version: String,
+    pub origin: String,
+    pub checksum: String,
+}
+
+impl DirDiff {
+    /// Whether any list differs or is present on one side only.
+    pub fn has_changes(&self) -> bool {
+        !self.only_in_a.is_empty()
+            || !self.only_in_b.is_empty()
+            || self.lists.iter().any(|d| d.has_changes())
+    }
+}
+
+/// Loads every list of two directories (any error in either fails, as
+/// [`super::load_dir`]) and pairs them by list name.
+pub fn diff_dirs(
+    a: &std::path::Path,
+    b: &std::path::Path,
+) -> Result<(DirDiff, Vec<super::Diagnostic>), super::ListError> {
+    let left = super::load_dir(a)?;
+    let right = super::load_dir(b)?;
+    let mut warnings = Vec::new();
+    for l in left.iter().chain(&right) {
+        warnings.extend(l.warnings.iter().cloned());
+    }
+    let one = |l: &CodeList| OneSide {
+        name: l.name.clone(),
+        version: l.version.clone(),
+        origin: l.origin.to_string(),
+        checksum: l.checksum.clone(),
+    };
+    let mut names: Vec<&str> = left
+        .iter()
+        .chain(&right)
+        .map(|l| l.list.name.as_str())
+        .collect();
+    names.sort_unstable();
+    names.dedup();
+    let mut out = DirDiff {
+        a: a.display().to_string(),
+        b: b.display().to_string(),
+        lists: Vec::new(),
+        only_in_a: Vec::new(),
+        only_in_b: Vec::new(),
+    };
+    for name in names {
+        let l = left.iter().find(|l| l.list.name == name).map(|l| &l.list);
+        let r = right.iter().find(|l| l.list.name == name).map(|l| &l.list);
+        match (l, r) {
+            (Some(l), Some(r)) => out.lists.push(diff(l, r)),
+            (Some(l), None) => out.only_in_a.push(one(l)),
+            (None, Some(r)) => out.only_in_b.push(one(r)),
+            (None, None) => {}
+        }
+    }
+    Ok((out, warnings))
 }

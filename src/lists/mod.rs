@@ -28,7 +28,7 @@ pub use canonical::{canonical_text, checksum};
 pub use check::{check_path, CheckReport};
 pub use decimal::{format_scaled, parse_scaled, SCALE, SCALE_DECIMALS};
 pub use describe::{describe, Description};
-pub use diff::{diff, ListDiff};
+pub use diff::{diff, diff_dirs, DirDiff, ListDiff};
 pub use export::{export_text, export_to_dir};
 pub use parse::{parse, Diagnostic, Severity};
 pub use prefixes::{export_prefixes_to_dir, prefix_rows, prefixes_csv, PrefixRow};
@@ -58,6 +58,18 @@ pub struct Condition {
     pub label: String,
     pub source: String,
     pub line: usize,
+    /// `condition_note` records: notes on how the source applies the
+    /// condition (e.g. a category counted in secondary diagnosis positions
+    /// only). Recorded and shown; scoring does not use them.
+    pub notes: Vec<ConditionNote>,
+}
+
+/// One `condition_note` record.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ConditionNote {
+    pub text: String,
+    pub source: String,
+    pub line: usize,
 }
 
 /// One `code` record: a code or an inclusive range of equal-length codes.
@@ -83,7 +95,8 @@ impl CodeEntry {
         }
     }
 
-    /// Whether a code is claimed by this entry (prefix match).
+    /// Whether a code is claimed by this entry (prefix match; a range
+    /// follows the letter rule of [`crate::code::range_claims`]).
     pub fn claims(&self, code: &Code) -> bool {
         let n = self.first.len();
         if code.len() < n {
@@ -92,7 +105,7 @@ impl CodeEntry {
         let p = &code.as_bytes()[..n];
         match &self.last {
             None => p == self.first.as_bytes(),
-            Some(l) => p >= self.first.as_bytes() && p <= l.as_bytes(),
+            Some(l) => crate::code::range_claims(&self.first, l, p),
         }
     }
 }

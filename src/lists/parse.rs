@@ -159,7 +159,9 @@ fn parse_code_field(text: &str) -> Result<(Code, Option<Code>), String> {
     }
 }
 
-/// Whether two code entries claim at least one common code.
+/// Whether two code entries claim at least one common code (the letter rule
+/// of [`crate::code::range_claims`] included: `C7A` and `C77-C80` do not
+/// overlap).
 fn overlaps(a: &CodeEntry, b: &CodeEntry) -> bool {
     let (short, long) = if a.first.len() <= b.first.len() {
         (a, b)
@@ -167,11 +169,17 @@ fn overlaps(a: &CodeEntry, b: &CodeEntry) -> bool {
         (b, a)
     };
     let n = short.first.len();
-    let s_lo = short.first.as_bytes();
-    let s_hi = short.last.as_ref().unwrap_or(&short.first).as_bytes();
-    let l_lo = &long.first.as_bytes()[..n];
-    let l_hi = &long.last.as_ref().unwrap_or(&long.first).as_bytes()[..n];
-    l_lo <= s_hi && s_lo <= l_hi
+    let s_hi = short.last.unwrap_or(short.first);
+    let l_hi = long.last.unwrap_or(long.first);
+    let claims_short = |p: &[u8]| crate::code::range_claims(&short.first, &s_hi, p);
+    let claims_long = |p: &[u8]| crate::code::range_claims(&long.first, &l_hi, p);
+    // A code shared by both has a prefix of `n` characters that both claim.
+    // When one side is a single code that prefix is known; for two ranges,
+    // the ends of the shared stretch are ends of the two ranges.
+    claims_long(short.first.as_bytes())
+        || claims_long(s_hi.as_bytes())
+        || claims_short(&long.first.as_bytes()[..n])
+        || claims_short(&l_hi.as_bytes()[..n])
 }
 
 /// Parses and validates a list. Warnings come back with the list; any error
@@ -192,6 +200,7 @@ pub fn parse(text: &str, origin: Origin) -> Result<Loaded, ListError> {
     let mut cond_index: HashMap<String, usize> = HashMap::new();
     let mut raw_codes: Vec<(String, String, String, usize)> = Vec::new();
     let mut raw_hier: Vec<(String, String, String, usize)> = Vec::new();
+    let mut raw_notes: Vec<(String, String, String, usize)> = Vec::new();
     let mut raw_weights: Vec<(String, String, String, String, usize)> = Vec::new();
     let mut raw_bands: Vec<(String, String, String, String, String, usize)> = Vec::new();
     let mut weightings: Vec<RawWeighting> = Vec::new();
@@ -293,8 +302,13 @@ pub fn parse(text: &str, origin: Origin) -> Result<Loaded, ListError> {
                         label: f(2).to_string(),
                         source: f(3).to_string(),
                         line,
+                        notes: Vec::new(),
                     });
                 }
+            }
+            "condition_note" => {
+                max_fields(&mut cx, 4);
+                raw_notes.push((f(1).to_string(), f(2).to_string(), f(3).to_string(), line));
             }
             "code" => {
                 max_fields(&mut cx, 4);
@@ -446,6 +460,27 @@ pub fn parse(text: &str, origin: Origin) -> Result<Loaded, ListError> {
     for (c, has) in conditions.iter().zip(&has_codes) {
         if !has {
             cx.warn(c.line, format!("condition '{}' has no codes", c.key));
+        }
+    }
+
+    // Notes on conditions.
+    for (key, text, src, line) in raw_notes {
+        match cond_index.get(&key) {
+            None => cx.err(
+                line,
+                format!("condition_note for undeclared condition '{key}'"),
+            ),
+            Some(_) if text.is_empty() => cx.err(line, "condition_note without text"),
+            Some(&ci) => {
+                if src.is_empty() {
+                    cx.warn(line, format!("condition_note of '{key}' has no source"));
+                }
+                conditions[ci].notes.push(super::ConditionNote {
+                    text,
+                    source: src,
+                    line,
+                });
+            }
         }
     }
 

@@ -20,6 +20,7 @@ use std::collections::HashMap;
 use std::io::{Read, Write};
 
 use crate::code::{Code, Reading};
+pub use crate::editions::{Edition, Existence};
 use crate::io::{Block, Fields, RecordRef};
 use crate::score::{read_age, Engine};
 use crate::Error;
@@ -169,6 +170,10 @@ pub struct ScoreConfig {
     /// age or date, a row without an id (long layout, lookback), a quote
     /// left open.
     pub strict: bool,
+    /// The ICD-10 editions codes are looked up in: a well-shaped code in
+    /// none of them is *unknown*, one whose stem is in one is *extended*
+    /// (both counted; unknown codes stop a `--strict` run).
+    pub edition: Edition,
     /// Preferred block size in bytes.
     pub block_size: usize,
     /// Worker threads for the wide layout without lookback (0: one per core;
@@ -204,6 +209,7 @@ impl Default for ScoreConfig {
             age: None,
             delimiter: b',',
             strict: false,
+            edition: Edition::Any,
             block_size: 1 << 20,
             threads: 0,
         }
@@ -229,11 +235,25 @@ pub struct Summary {
     pub rows_written: u64,
     /// Non-empty diagnosis values that were valid codes.
     pub codes_read: u64,
-    /// Non-empty diagnosis values that were not ICD-10-shaped.
+    /// Non-empty diagnosis values that were not ICD-10-shaped (malformed).
     pub invalid_codes: u64,
     /// Invalid values and their counts (at most 10,000 distinct kept, each
     /// cut to [`INVALID_VALUE_BYTES`]).
     pub invalid_values: HashMap<Vec<u8>, u64>,
+    /// Valid (well-shaped) codes that no selected edition has, nor their
+    /// three- or four-character stem (counted in `codes_read` too).
+    pub unknown_codes: u64,
+    /// Unknown codes (normalised) and their counts (at most 10,000 distinct).
+    pub unknown_values: HashMap<Code, u64>,
+    /// Valid codes that no selected edition has but whose three- or
+    /// four-character stem one has: national variants (counted in
+    /// `codes_read` too).
+    pub extended_codes: u64,
+    /// Extended codes (normalised) and their counts (at most 10,000 distinct).
+    pub extended_values: HashMap<Code, u64>,
+    /// The editions the codes were looked up in (set by the first code that
+    /// is not known; for the summary's wording).
+    pub edition: Edition,
     /// Age fields that were empty.
     pub missing_ages: u64,
     /// Age fields that held something other than an age.
@@ -354,6 +374,17 @@ impl Summary {
         self.rows_written += later.rows_written;
         self.codes_read += later.codes_read;
         self.invalid_codes += later.invalid_codes;
+        self.unknown_codes += later.unknown_codes;
+        self.extended_codes += later.extended_codes;
+        if self.unknown_codes + self.extended_codes == later.unknown_codes + later.extended_codes {
+            self.edition = later.edition;
+        }
+        for (c, n) in later.unknown_values {
+            add_kept(&mut self.unknown_values, c, n);
+        }
+        for (c, n) in later.extended_values {
+            add_kept(&mut self.extended_values, c, n);
+        }
         self.missing_ages += later.missing_ages;
         self.unreadable_ages += later.unreadable_ages;
         self.units += later.units;
@@ -382,6 +413,38 @@ impl Summary {
         for (v, n) in later.invalid_values {
             self.add_invalid(v, n);
         }
+    }
+
+    /// Counts a valid code and looks it up in `edition`; returns whether
+    /// it is known, extended or unknown (the latter two counted).
+    #[inline]
+    pub fn valid_code(&mut self, code: &Code, edition: Edition) -> Existence {
+        self.codes_read += 1;
+        let e = crate::editions::existence(code, edition);
+        match e {
+            Existence::Known => {}
+            Existence::Unknown => {
+                self.unknown_codes += 1;
+                self.edition = edition;
+                add_kept(&mut self.unknown_values, *code, 1);
+            }
+            Existence::Extended => {
+                self.extended_codes += 1;
+                self.edition = edition;
+                add_kept(&mut self.extended_values, *code, 1);
+            }
+        }
+        e
+    }
+
+    /// The most frequent unknown codes (normalised), most frequent first.
+    pub fn top_unknown(&self, n: usize) -> Vec<(String, u64)> {
+        top_codes(&self.unknown_values, n)
+    }
+
+    /// The most frequent extended codes (normalised), most frequent first.
+    pub fn top_extended(&self, n: usize) -> Vec<(String, u64)> {
+        top_codes(&self.extended_values, n)
     }
 
     pub(crate) fn invalid(&mut self, value: &[u8]) {
@@ -475,7 +538,7 @@ impl Summary {
     /// The summary as printed on standard error.
     pub fn report(&self) -> String {
         let mut s = format!(
-            "morbus: {} rows read, {} rows written, {} units scored, {} codes read, {} invalid codes",
+            "morbus: {} rows read, {} rows written, {} units scored, {} codes read, {} invalid codes (not ICD-10-shaped)",
             self.rows_read, self.rows_written, self.units, self.codes_read, self.invalid_codes
         );
         if self.invalid_codes > 0 {
@@ -490,6 +553,22 @@ impl Summary {
             s.push_str(&format!(
                 "; most frequent invalid values: {}",
                 top.join(", ")
+            ));
+        }
+        if self.unknown_codes > 0 {
+            s.push_str(&format!(
+                "; {} unknown codes (well-shaped, but neither they nor their category are in {}; scored by prefix all the same): {}",
+                self.unknown_codes,
+                self.edition.describe(),
+                shown_top(&self.top_unknown(5))
+            ));
+        }
+        if self.extended_codes > 0 {
+            s.push_str(&format!(
+                "; {} extended codes (not in {}, though their category is: national variants; scored by prefix): {}",
+                self.extended_codes,
+                self.edition.describe(),
+                shown_top(&self.top_extended(5))
             ));
         }
         if self.missing_ages + self.unreadable_ages > 0 {
@@ -574,6 +653,30 @@ impl Summary {
         }
         s
     }
+}
+
+/// Adds `n` to a code's count, keeping at most [`INVALID_VALUES_KEPT`]
+/// distinct codes.
+fn add_kept(map: &mut HashMap<Code, u64>, code: Code, n: u64) {
+    if let Some(c) = map.get_mut(&code) {
+        *c += n;
+    } else if map.len() < INVALID_VALUES_KEPT {
+        map.insert(code, n);
+    }
+}
+
+fn top_codes(map: &HashMap<Code, u64>, n: usize) -> Vec<(String, u64)> {
+    let mut v: Vec<(String, u64)> = map.iter().map(|(k, c)| (k.to_string(), *c)).collect();
+    v.sort_by(|a, b| b.1.cmp(&a.1).then_with(|| a.0.cmp(&b.0)));
+    v.truncate(n);
+    v
+}
+
+fn shown_top(top: &[(String, u64)]) -> String {
+    top.iter()
+        .map(|(v, c)| format!("'{v}' ({c})"))
+        .collect::<Vec<_>>()
+        .join(", ")
 }
 
 /// The header of an extract.
@@ -746,11 +849,22 @@ pub(crate) struct Plan {
 /// A record-level failure, turned into an [`Error`] with the line number by
 /// the caller.
 pub(crate) enum RowIssue {
-    InvalidCode { column: usize, value: Vec<u8> },
+    InvalidCode {
+        column: usize,
+        value: Vec<u8>,
+    },
+    UnknownCode {
+        column: usize,
+        value: Vec<u8>,
+        edition: Edition,
+    },
     UnreadableAge(Vec<u8>),
     MissingAge,
     UnreadableDate(Vec<u8>),
-    UnrecognisedPoa { column: usize, value: Vec<u8> },
+    UnrecognisedPoa {
+        column: usize,
+        value: Vec<u8>,
+    },
 }
 
 /// Resolves the present-on-admission columns (`poa`: names and globs)
@@ -997,7 +1111,15 @@ impl Plan {
                 let is_first = std::mem::replace(first, false) && k == 0;
                 match crate::code::read_code(part) {
                     Reading::Valid(code) => {
-                        summary.codes_read += 1;
+                        if summary.valid_code(&code, cfg.edition) == Existence::Unknown
+                            && cfg.strict
+                        {
+                            return Err(RowIssue::UnknownCode {
+                                column: k,
+                                value: part.to_vec(),
+                                edition: cfg.edition,
+                            });
+                        }
                         let excl = if cfg.layout == Layout::Wide && cfg.exclude_primary && is_first
                         {
                             Some(Exclusion::Primary)
@@ -1115,6 +1237,11 @@ impl Plan {
                 shown(&value),
                 self.dx_name(column)
             ),
+            RowIssue::UnknownCode {
+                column,
+                value,
+                edition,
+            } => unknown_code_message(&shown(&value), self.dx_name(column), edition),
             RowIssue::UnreadableAge(v) => {
                 format!("unreadable age '{}'", shown(&v))
             }
@@ -1138,6 +1265,14 @@ impl Plan {
         };
         Error::Strict { line, message }
     }
+}
+
+/// The `--strict` message for an unknown code.
+pub fn unknown_code_message(value: &str, column: &str, edition: Edition) -> String {
+    format!(
+        "unknown code '{value}' in column '{column}' (well-shaped, but neither it nor its category is in {}; --edition chooses the editions)",
+        edition.describe()
+    )
 }
 
 fn cfg_date_hint() -> &'static str {
@@ -1261,7 +1396,15 @@ mod tests {
 
 #[cfg(test)]
 mod summary_tests {
-    use super::Summary;
+    use super::{Edition, Summary};
+    use crate::code::{read_code, Code, Reading};
+
+    fn code(s: &str) -> Code {
+        match read_code(s.as_bytes()) {
+            Reading::Valid(c) => c,
+            r => panic!("{s}: {r:?}"),
+        }
+    }
 
     #[test]
     fn merge_adds_every_count() {
@@ -1280,6 +1423,11 @@ mod summary_tests {
             missing_ids: 12,
             disagreeing_units: 13,
             invalid_values: [(b"N/A".to_vec(), 4)].into_iter().collect(),
+            unknown_codes: 14,
+            unknown_values: [(code("I5O9"), 14)].into_iter().collect(),
+            extended_codes: 15,
+            extended_values: [(code("I2140"), 15)].into_iter().collect(),
+            edition: Edition::Who,
             dx_columns: vec!["dx1".into()],
             unreadable_date_examples: vec![b"05/01/2021".to_vec()],
             dates_read: 14,
@@ -1308,6 +1456,10 @@ mod summary_tests {
         doubled.missing_ids *= 2;
         doubled.disagreeing_units *= 2;
         doubled.invalid_values.insert(b"N/A".to_vec(), 8);
+        doubled.unknown_codes *= 2;
+        doubled.extended_codes *= 2;
+        doubled.unknown_values.insert(code("I5O9"), 28);
+        doubled.extended_values.insert(code("I2140"), 30);
         doubled.dates_read *= 2;
         doubled.dates_either_order *= 2;
         doubled.dates_order_proven *= 2;
@@ -1315,5 +1467,9 @@ mod summary_tests {
         doubled.poa_indicators.insert(b"Y".to_vec(), 34);
         doubled.poa_indicators.insert(Vec::new(), 36);
         assert_eq!(total, doubled);
+        // The edition comes from the part that first met a code not known.
+        let mut from_later = Summary::default();
+        from_later.merge(one.clone());
+        assert_eq!(from_later.edition, Edition::Who);
     }
 }
