@@ -17,6 +17,8 @@
 //! - [`pipeline`]: `score` over an extract, wide or long, with its summary;
 //! - [`columnar`]: `score` over in-memory columns (Arrow arrays, data frames);
 //! - [`frame`]: `score` and `explain` over a data frame's typed columns (the bindings);
+//! - [`sql`]: a SQL script that scores a table inside a database (DuckDB,
+//!   PostgreSQL, SQLite) with the same lists and rules;
 //! - [`provenance`]: what produced an output (tool, lists, options, counts);
 //! - [`stats`]: the numerics of `compare` (c-statistics, DeLong, logistic
 //!   regression, rank correlation);
@@ -51,6 +53,7 @@ pub mod matcher;
 pub mod pipeline;
 pub mod provenance;
 pub mod score;
+pub mod sql;
 pub mod stats;
 
 pub use error::Error;

@@ -56,8 +56,119 @@ enum Command {
     /// Compare index specifications on one extract: prevalence, distributions,
     /// c-statistics, logistic models, pairwise tests.
     Compare(Box<CompareArgs>),
+    /// Write a SQL script that scores a table inside a database (DuckDB, PostgreSQL,
+    /// SQLite) with the same lists and rules as `score`.
+    Sql(Box<SqlArgs>),
     /// Code lists: the table of available lists, or show, export, check, diff.
     Lists(ListsArgs),
+}
+
+#[derive(Clone, Copy, ValueEnum, PartialEq, Eq)]
+enum DialectArg {
+    /// DuckDB.
+    Duckdb,
+    /// PostgreSQL.
+    Postgres,
+    /// SQLite (3.35 or later).
+    Sqlite,
+}
+
+#[derive(Clone, Copy, ValueEnum, PartialEq, Eq)]
+enum CreateKind {
+    /// CREATE VIEW NAME (the list tables are kept, named NAME_code_prefixes, ...).
+    View,
+    /// CREATE TABLE NAME AS (the temporary list tables are dropped afterwards).
+    Table,
+}
+
+#[derive(Args)]
+#[command(after_help = "\
+The script scores the rows of --table as `morbus score` scores the same rows exported to a \
+file: same lists (created as tables by the script, from the catalogue including --lists DIR), \
+same code reading, exclusions, lookback, hierarchies, weights, age points and bands. A header \
+comment records the morbus version, every list's version and checksum, and the options.
+
+Dates are read from a date or timestamp column, or from text starting YYYY-MM-DD. In the wide \
+layout the output is every row of the table with its columns, then the score columns; without \
+--columns, SQLite needs a table (its rowid) rather than a view.
+
+Example: morbus sql --dialect postgres --table episodes --dx dx1,dx2,dx3 --age age \
+--id patient_id --date admitted --lookback 365 --create view scored_episodes | psql")]
+struct SqlArgs {
+    /// The SQL engine the script is for.
+    #[arg(long, value_enum)]
+    dialect: DialectArg,
+    /// The table or view to score (schema.name allowed).
+    #[arg(long, value_name = "NAME")]
+    table: String,
+    /// Diagnosis columns: names, comma-separated; globs such as 'dx*' need --columns.
+    #[arg(long, value_name = "COLS", required = true)]
+    dx: Vec<String>,
+    /// The table's columns in order, comma-separated: lets --dx use globs, checks every
+    /// column named, and lists the columns by name in the wide output.
+    #[arg(long, value_name = "COLS")]
+    columns: Option<String>,
+    /// Split a diagnosis field holding several codes at this character.
+    #[arg(long, value_name = "CHAR")]
+    dx_sep: Option<String>,
+    /// Layout of the table.
+    #[arg(long, value_enum, default_value = "wide")]
+    layout: LayoutArg,
+    /// Id column: the patient (for --lookback) or the unit of a long table.
+    #[arg(long, value_name = "COL")]
+    id: Option<String>,
+    /// Long layout: episode column grouping code rows into episodes.
+    #[arg(long, value_name = "COL")]
+    episode: Option<String>,
+    /// Episode date column (for --lookback): a date, a timestamp or YYYY-MM-DD text.
+    #[arg(long, value_name = "COL")]
+    date: Option<String>,
+    /// Score each episode from the same patient's episodes dated within DAYS before it
+    /// (inclusive) and itself; `all` for the whole history.
+    #[arg(long, value_name = "DAYS")]
+    lookback: Option<String>,
+    /// Leave out the primary diagnosis of the episode being scored (wide: the first
+    /// diagnosis column; long: the rows flagged by --primary).
+    #[arg(long)]
+    exclude_primary: bool,
+    /// Long layout: column flagging the primary-diagnosis row (1, y, yes, true, p, primary).
+    #[arg(long, value_name = "COL")]
+    primary: Option<String>,
+    /// Present-on-admission indicator column (long layout), or columns paired in order
+    /// with the --dx columns (wide layout: names, or globs with --columns).
+    #[arg(long, value_name = "COLS")]
+    poa: Option<String>,
+    /// Present-on-admission values that count, comma-separated; `blank` stands for an
+    /// empty field (default as in `score`: Y, W and exempt codes, 1 or blank).
+    #[arg(long, value_name = "VALUES", default_value = "Y,W,1,blank")]
+    poa_values: String,
+    /// Index specifications LIST[:WEIGHTING], comma-separated or repeated.
+    #[arg(long = "index", value_name = "SPEC")]
+    index: Vec<String>,
+    /// Age column (whole years): adds `<list>_<weighting>_age` for lists with age points.
+    #[arg(long, value_name = "COL")]
+    age: Option<String>,
+    /// Add a 0/1 column `<list>_<condition>` per condition.
+    #[arg(long)]
+    flags: bool,
+    /// Switch the lists' hierarchies off.
+    #[arg(long)]
+    no_hierarchy: bool,
+    /// Directory of code lists (*.tsv) that add to or replace the built-ins.
+    #[arg(long, value_name = "DIR")]
+    lists: Option<PathBuf>,
+    /// Create a view or a table NAME instead of ending with the query.
+    #[arg(long, num_args = 2, value_names = ["view|table", "NAME"])]
+    create: Option<Vec<String>>,
+    /// Drop an existing view or table NAME (and a view's list tables) first.
+    #[arg(long)]
+    replace: bool,
+    /// Write the script to this file instead of standard output.
+    #[arg(long, short, value_name = "PATH")]
+    output: Option<PathBuf>,
+    /// Do not print messages on standard error.
+    #[arg(long, short)]
+    quiet: bool,
 }
 
 #[derive(Args)]
@@ -312,6 +423,14 @@ struct ScoreArgs {
     provenance: Option<PathBuf>,
 }
 
+#[derive(Clone, Copy, ValueEnum, PartialEq, Eq)]
+enum ExportFormat {
+    /// The list file (canonical text), loadable with --lists.
+    List,
+    /// A flat CSV table of code prefixes with their conditions and weights.
+    Prefixes,
+}
+
 /// Without a subcommand: a table of the available lists.
 #[derive(Args)]
 #[command(after_help = "\
@@ -343,19 +462,25 @@ Examples:
         #[arg(long)]
         json: bool,
     },
-    /// Write an editable copy DIR/NAME.tsv that `--lists DIR` loads back.
+    /// Write an editable copy DIR/NAME.tsv that `--lists DIR` loads back, or with
+    /// `--format prefixes` the flat table DIR/NAME-prefixes.csv for SQL.
     #[command(after_help = "\
 Examples:
   morbus lists export charlson my-lists/ --force
-  morbus lists export elixhauser my-lists/ --force")]
+  morbus lists export elixhauser my-lists/ --force
+  morbus lists export charlson sql-lists/ --format prefixes --force")]
     Export {
         /// List name (or path to a list file).
         name: String,
         /// Directory to write to (created if needed).
         dir: PathBuf,
-        /// Replace DIR/NAME.tsv if it exists.
+        /// Replace the file if it exists.
         #[arg(long)]
         force: bool,
+        /// `list` (the editable list file) or `prefixes` (CSV: list, version, condition,
+        /// label, prefix, entry, points per weighting; one row per code prefix).
+        #[arg(long, value_enum, default_value = "list")]
+        format: ExportFormat,
     },
     /// Validate a list file, or every list of a directory: prints each error
     /// and warning with file and line; exits 2 on errors.
@@ -472,6 +597,7 @@ pub fn run() -> i32 {
         Command::Score(a) => score(*a),
         Command::Explain(a) => explain(*a),
         Command::Compare(a) => compare(*a),
+        Command::Sql(a) => sql(*a),
         Command::Lists(a) => lists_command(a),
     };
     match result {
@@ -944,6 +1070,133 @@ fn list_table(cat: &Catalogue) -> Result<(), Error> {
     Ok(())
 }
 
+fn sql(a: SqlArgs) -> Result<(), Error> {
+    let cat = catalogue(a.lists.as_ref(), a.quiet, false)?;
+    let specs = if a.index.is_empty() {
+        IndexSpec::parse_many(DEFAULT_INDICES)?
+    } else {
+        IndexSpec::parse_many(&a.index.join(","))?
+    };
+    let options = ScoreOptions {
+        hierarchy: !a.no_hierarchy,
+        flags: a.flags,
+        age: a.age.is_some(),
+    };
+    let engine = Engine::new(&cat, &specs, options)?;
+    let layout = match a.layout {
+        LayoutArg::Wide => Layout::Wide,
+        LayoutArg::Long => Layout::Long,
+    };
+    let lookback = parse_lookback(a.lookback.as_deref())?;
+    if a.poa_values.trim().is_empty() {
+        return Err(Error::Usage(
+            "--poa-values is empty; name the values that count (e.g. Y,W,1,blank)".into(),
+        ));
+    }
+    if a.date.is_some() && lookback.is_none() && a.episode.is_none() {
+        return Err(Error::Usage(
+            "--date is used with --lookback DAYS (or 'all')".into(),
+        ));
+    }
+    let config = ScoreConfig {
+        dx: a.dx.clone(),
+        dx_sep: a
+            .dx_sep
+            .as_deref()
+            .map(|s| one_char(s, "--dx-sep"))
+            .transpose()?,
+        layout,
+        id: a.id.clone(),
+        episode: a.episode.clone(),
+        date: a.date.clone(),
+        lookback,
+        exclude_primary: a.exclude_primary,
+        primary: a.primary.clone(),
+        poa: a.poa.clone(),
+        poa_values: pipeline::poa_values_from(std::slice::from_ref(&a.poa_values)),
+        age: a.age.clone(),
+        ..ScoreConfig::default()
+    };
+    let output = match a.create.as_deref() {
+        None => morbus::sql::SqlOutput::Query,
+        Some([kind, name]) => match kind.as_str() {
+            "view" => morbus::sql::SqlOutput::View(name.clone()),
+            "table" => morbus::sql::SqlOutput::Table(name.clone()),
+            other => {
+                return Err(Error::Usage(format!(
+                    "--create takes 'view NAME' or 'table NAME', not '{other}'"
+                )))
+            }
+        },
+        Some(_) => {
+            return Err(Error::Usage(
+                "--create takes 'view NAME' or 'table NAME'".into(),
+            ))
+        }
+    };
+    if a.replace && output == morbus::sql::SqlOutput::Query {
+        return Err(Error::Usage(
+            "--replace goes with --create view|table NAME".into(),
+        ));
+    }
+    let columns = a.columns.as_deref().map(|c| {
+        c.split(',')
+            .map(|n| n.trim().to_string())
+            .filter(|n| !n.is_empty())
+            .collect::<Vec<_>>()
+    });
+    let opts = morbus::sql::SqlOptions {
+        dialect: match a.dialect {
+            DialectArg::Duckdb => morbus::sql::Dialect::DuckDb,
+            DialectArg::Postgres => morbus::sql::Dialect::Postgres,
+            DialectArg::Sqlite => morbus::sql::Dialect::Sqlite,
+        },
+        table: a.table.clone(),
+        config,
+        columns,
+        output,
+        replace: a.replace,
+    };
+    let script = morbus::sql::generate(&engine, &opts)?;
+    match &a.output {
+        None => {
+            let mut out = std::io::stdout().lock();
+            out.write_all(script.as_bytes())
+                .and_then(|_| out.flush())
+                .map_err(|e| Error::io("cannot write output", e))
+        }
+        Some(path) => {
+            let dir = path.parent().filter(|p| !p.as_os_str().is_empty());
+            let name = path
+                .file_name()
+                .map(|n| n.to_string_lossy().into_owned())
+                .unwrap_or_default();
+            let tmp = dir.map_or_else(
+                || PathBuf::from(format!(".{name}.tmp")),
+                |d| d.join(format!(".{name}.tmp")),
+            );
+            std::fs::write(&tmp, script.as_bytes())
+                .and_then(|_| std::fs::rename(&tmp, path))
+                .map_err(|e| {
+                    let _ = std::fs::remove_file(&tmp);
+                    Error::io(format!("cannot write {}", path.display()), e)
+                })
+        }
+    }
+}
+
+fn parse_lookback(text: Option<&str>) -> Result<Option<u32>, Error> {
+    match text {
+        None => Ok(None),
+        Some("all") => Ok(Some(u32::MAX)),
+        Some(t) => Ok(Some(t.trim().parse::<u32>().map_err(|_| {
+            Error::Usage(format!(
+                "--lookback takes a whole number of days or 'all', not '{t}'"
+            ))
+        })?)),
+    }
+}
+
 fn lists_command(a: ListsArgs) -> Result<(), Error> {
     if !matches!(a.command, Some(ListsCommand::Export { .. })) {
         morbus::io::atomic::check_stdout_open()?;
@@ -956,7 +1209,27 @@ fn lists_command(a: ListsArgs) -> Result<(), Error> {
             let l = resolve_list(&name, &cat)?;
             list_cmds::show(&l.list, json)
         }
-        Some(ListsCommand::Export { name, dir, force }) => {
+        Some(ListsCommand::Export {
+            name,
+            dir,
+            force,
+            format: ExportFormat::Prefixes,
+        }) => {
+            let cat = catalogue(a.lists.as_ref(), false, false)?;
+            let l = resolve_list(&name, &cat)?;
+            let path = lists::export_prefixes_to_dir(&l.list, &dir, force)?;
+            eprintln!(
+                "morbus: wrote the code prefixes of list '{}' version {} (checksum {}) to {}",
+                l.list.name,
+                l.list.version,
+                &l.list.checksum[..12],
+                path.display()
+            );
+            Ok(())
+        }
+        Some(ListsCommand::Export {
+            name, dir, force, ..
+        }) => {
             let cat = catalogue(a.lists.as_ref(), false, false)?;
             let l = resolve_list(&name, &cat)?;
             let path = lists::export_to_dir(&l.list, &dir, force)?;

@@ -17,6 +17,7 @@ pub mod describe;
 pub mod diff;
 pub mod export;
 pub mod parse;
+pub mod prefixes;
 
 use std::collections::BTreeMap;
 use std::fmt;
@@ -30,6 +31,7 @@ pub use describe::{describe, Description};
 pub use diff::{diff, diff_dirs, DirDiff, ListDiff};
 pub use export::{export_text, export_to_dir};
 pub use parse::{parse, Diagnostic, Severity};
+pub use prefixes::{export_prefixes_to_dir, prefix_rows, prefixes_csv, PrefixRow};
 
 /// Where a list came from.
 #[derive(Clone, Debug, PartialEq, Eq)]
