@@ -50,7 +50,7 @@ use crate::io::{write_field, RecordScanner};
 use crate::lists::SCALE;
 use crate::pipeline::dates::write_iso_date;
 use crate::pipeline::explain::ExplainFormat;
-use crate::pipeline::history::History;
+use crate::pipeline::history::{History, Windows};
 use crate::pipeline::{DateFormat, Header, Layout, ScoreConfig, Summary};
 use crate::score::{ColumnKind, Engine, Value};
 use crate::Error;
@@ -830,8 +830,11 @@ fn score_history(
     crate::pipeline::check_collisions(&kept, engine)?;
     let (text_cfg, text, starts) = history_text(cfg, cols, used);
     let run = || -> Result<Scored, Error> {
-        let (hist, mut summary) = History::read(engine, &text_cfg, &text[..], false)?;
-        let windows = hist.windows(text_cfg.lookback);
+        let windows = Windows::new(engine, &text_cfg)?;
+        let (mut hist, mut summary) =
+            History::read(engine, &text_cfg, &text[..], Default::default())?;
+        hist.resolve(&windows);
+        let hist = hist;
         let n = hist.episodes.len();
         let mut out = Output::new(engine, n);
         let mut first = Vec::with_capacity(n);
@@ -839,7 +842,7 @@ fn score_history(
         let mut scratch = bits.clone();
         let mut values: Vec<Value> = Vec::new();
         for (e, ep) in hist.episodes.iter().enumerate() {
-            hist.resolve_into(engine, &windows, e, &mut bits, &mut scratch);
+            hist.final_into(engine, e, &mut bits, &mut scratch);
             engine.values(&bits, ep.age, &mut values);
             out.push(&values);
             first.push(ep.row - 1);

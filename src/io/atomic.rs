@@ -30,7 +30,8 @@ use std::sync::{Mutex, MutexGuard};
 
 use crate::Error;
 
-/// Temporary files of the outputs being written, removed on a signal.
+/// Temporary files of the outputs being written, and working files of a run
+/// (the spilled rows of a long lookback), removed on a signal.
 static PENDING: Mutex<Vec<PathBuf>> = Mutex::new(Vec::new());
 static SERIAL: AtomicU64 = AtomicU64::new(0);
 static STDOUT_BROKEN: AtomicBool = AtomicBool::new(false);
@@ -84,6 +85,20 @@ impl Drop for OutputGuard {
             list.retain(|p| p != &self.temp);
         }
     }
+}
+
+/// Registers a working file of the run (not an output) so that a signal
+/// removes it like an output's temporary file; [`remove_working_file`]
+/// removes it and forgets it.
+pub(crate) fn register_working_file(path: &Path) {
+    pending().push(path.to_path_buf());
+}
+
+/// Removes a working file registered with [`register_working_file`].
+pub(crate) fn remove_working_file(path: &Path) {
+    let mut list = pending();
+    let _ = std::fs::remove_file(path);
+    list.retain(|p| p != path);
 }
 
 /// Opens `path` for writing: a temporary file beside it with its guard, or

@@ -1,7 +1,9 @@
 //! The wide layout's raw rows, held between reading the history and writing
 //! the output: in memory up to a budget, then in a temporary file that is
 //! read back in input order, a round of rows at a time. The file is removed
-//! when the store is dropped (after a successful run or a failed one).
+//! when the store is dropped (after a successful run or a failed one), and
+//! on SIGINT, SIGTERM or SIGHUP with the outputs' temporary files
+//! (`io::atomic`).
 
 use std::fs::File;
 use std::io::{Read, Seek, SeekFrom, Write};
@@ -26,7 +28,7 @@ struct TempFile {
 
 impl Drop for TempFile {
     fn drop(&mut self) {
-        let _ = std::fs::remove_file(&self.path);
+        crate::io::atomic::remove_working_file(&self.path);
     }
 }
 
@@ -90,6 +92,7 @@ impl RowStore {
                         e,
                     )
                 })?;
+            crate::io::atomic::register_working_file(&path);
             self.file = Some(TempFile { file, path, len: 0 });
         }
         let t = self.file.as_mut().expect("created above");
