@@ -502,13 +502,16 @@ fn interrupted(signal: &str, number: i32, extra: &[&str]) {
         .spawn()
         .unwrap();
     let mut stdin = child.stdin.take().unwrap();
-    let text = dated_extract(20_000);
+    // Rows reach the spill file a block (about 1 MiB) at a time: give the
+    // spilling run several blocks before the pipe goes quiet.
+    let spills = extra.contains(&"--temp-dir");
+    let text = dated_extract(if spills { 150_000 } else { 20_000 });
     stdin.write_all(text.as_bytes()).unwrap();
     stdin.flush().unwrap();
     // The run is certainly under way once both temporary files exist; it
     // then waits for the rest of the input, which never comes.
     // With `--temp-dir .` the spilled rows' working file is a third.
-    let expected = if extra.contains(&"--temp-dir") { 3 } else { 2 };
+    let expected = if spills { 3 } else { 2 };
     let mut tries = 0;
     while entries(d).iter().filter(|n| n.ends_with(".tmp")).count() < expected {
         tries += 1;
