@@ -1160,28 +1160,12 @@ fn sql(a: SqlArgs) -> Result<(), Error> {
     let script = morbus::sql::generate(&engine, &opts)?;
     match &a.output {
         None => {
-            let mut out = std::io::stdout().lock();
+            let mut out = morbus::io::atomic::stdout();
             out.write_all(script.as_bytes())
-                .and_then(|_| out.flush())
+                .and_then(|()| out.flush())
                 .map_err(|e| Error::io("cannot write output", e))
         }
-        Some(path) => {
-            let dir = path.parent().filter(|p| !p.as_os_str().is_empty());
-            let name = path
-                .file_name()
-                .map(|n| n.to_string_lossy().into_owned())
-                .unwrap_or_default();
-            let tmp = dir.map_or_else(
-                || PathBuf::from(format!(".{name}.tmp")),
-                |d| d.join(format!(".{name}.tmp")),
-            );
-            std::fs::write(&tmp, script.as_bytes())
-                .and_then(|_| std::fs::rename(&tmp, path))
-                .map_err(|e| {
-                    let _ = std::fs::remove_file(&tmp);
-                    Error::io(format!("cannot write {}", path.display()), e)
-                })
-        }
+        Some(path) => morbus::io::atomic::write_atomically(path, script.as_bytes()),
     }
 }
 
