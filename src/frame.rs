@@ -143,6 +143,8 @@ pub struct Explained {
     pub code: Vec<Option<String>>,
     pub condition: Vec<Option<String>>,
     pub weight: Vec<f64>,
+    /// The age points of a `total_with_age` row (empty elsewhere).
+    pub age_points: Vec<Option<f64>>,
     /// Whether every weight is a whole number (no index with decimals).
     pub whole_weights: bool,
     pub status: Vec<String>,
@@ -929,7 +931,7 @@ fn explained(csv: &[u8], skip: usize, whole: bool) -> Result<Explained, Error> {
         if std::mem::replace(&mut first, false) {
             return Ok(());
         }
-        if rec.fields.len() != skip + 9 {
+        if rec.fields.len() != skip + 10 {
             return Err(bad("a record of another width"));
         }
         let f = |k: usize| rec.fields.get(skip + k);
@@ -966,6 +968,17 @@ fn explained(csv: &[u8], skip: usize, whole: bool) -> Result<Explained, Error> {
             .ok_or_else(|| bad("a weight that is not a number"))?;
         ex.weight.push(w);
         ex.status.push(text(f(8)));
+        let a = f(9);
+        ex.age_points.push(if a.is_empty() {
+            None
+        } else {
+            Some(
+                std::str::from_utf8(a)
+                    .ok()
+                    .and_then(|a| a.parse::<f64>().ok())
+                    .ok_or_else(|| bad("age points that are not a number"))?,
+            )
+        });
         Ok(())
     })?;
     Ok(ex)

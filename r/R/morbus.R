@@ -304,7 +304,8 @@ score <- function(data, dx, index = NULL, age = NULL, id = NULL, date = NULL,
 #'   long layout its first row), `index`, `source_row` and `source_date`
 #'   (the row and date the code came from), `code_as_written`, `code`,
 #'   `condition`, `weight` (integer, or double for weightings with
-#'   decimals) and `status`.
+#'   decimals), `status` and `age_points` (the age points of a
+#'   `total_with_age` row, missing elsewhere).
 #' @examples
 #' episodes <- read.csv(system.file("extdata", "episodes.csv", package = "morbus"))
 #' why <- explain(episodes[1:3, ], dx = "dx*", index = "charlson:charlson1987")

@@ -550,36 +550,40 @@ pub unsafe extern "C" fn morbus_r_explain(data: SEXP, names: SEXP, opts: SEXP, d
             Err(e) => return error(e),
         };
         let mut p = Protected(0);
-        let weight = if ex.whole_weights {
-            int_vec(ex.weight.iter().map(|&w| Some(w as i64)))
-        } else {
-            real_vec(ex.weight.iter().map(|&w| Some(w)))
+        // Each column is protected as soon as it is made: making the next
+        // one may run R's garbage collector.
+        let number = |v: &[Option<f64>]| {
+            if ex.whole_weights {
+                int_vec(v.iter().map(|w| w.map(|w| w as i64)))
+            } else {
+                real_vec(v.iter().copied())
+            }
         };
-        let items: Vec<(&str, SEXP)> = vec![
-            ("row", int_vec(ex.row.iter().map(|&r| Some(r)))),
-            ("index", strings(ex.index.iter().map(Some))),
-            ("source_row", int_vec(ex.source_row.iter().copied())),
+        let weights: Vec<Option<f64>> = ex.weight.iter().map(|&w| Some(w)).collect();
+        let items: Vec<(String, SEXP)> = vec![
+            ("row", p.one(int_vec(ex.row.iter().map(|&r| Some(r))))),
+            ("index", p.one(strings(ex.index.iter().map(Some)))),
+            ("source_row", p.one(int_vec(ex.source_row.iter().copied()))),
             (
                 "source_date",
-                real_vec(ex.source_date.iter().map(|d| d.map(|d| d as f64))),
+                p.one(real_vec(ex.source_date.iter().map(|d| d.map(|d| d as f64)))),
             ),
             (
                 "code_as_written",
-                strings(ex.code_as_written.iter().map(|s| s.as_deref())),
+                p.one(strings(ex.code_as_written.iter().map(|s| s.as_deref()))),
             ),
-            ("code", strings(ex.code.iter().map(|s| s.as_deref()))),
+            ("code", p.one(strings(ex.code.iter().map(|s| s.as_deref())))),
             (
                 "condition",
-                strings(ex.condition.iter().map(|s| s.as_deref())),
+                p.one(strings(ex.condition.iter().map(|s| s.as_deref()))),
             ),
-            ("weight", weight),
-            ("status", strings(ex.status.iter().map(Some))),
-        ];
-        // Each column is protected until the list holds it.
-        let items: Vec<(String, SEXP)> = items
-            .into_iter()
-            .map(|(n, v)| (n.to_string(), p.one(v)))
-            .collect();
+            ("weight", p.one(number(&weights))),
+            ("status", p.one(strings(ex.status.iter().map(Some)))),
+            ("age_points", p.one(number(&ex.age_points))),
+        ]
+        .into_iter()
+        .map(|(n, v)| (n.to_string(), v))
+        .collect();
         let cols = p.one(named_list(items));
         let report = p.one(string(&summary.report()));
         named_list(vec![("columns".into(), cols), ("report".into(), report)])
