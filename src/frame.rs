@@ -845,9 +845,9 @@ fn score_history(
         let mut values: Vec<Value> = Vec::new();
         for (e, ep) in hist.episodes.iter().enumerate() {
             hist.final_into(engine, e, &mut bits, &mut scratch);
-            engine.values(&bits, ep.age, &mut values);
+            engine.values(&bits, ep.age(), &mut values);
             out.push(&values);
-            first.push(ep.row - 1);
+            first.push(hist.row(e) - 1);
         }
         summary.rows_written += n as u64;
         summary.units += n as u64;

@@ -14,7 +14,7 @@
 //! | `indices` | every index scored: `spec` (`LIST:WEIGHTING`), `list`, `weighting`, `column` |
 //! | `options` | `layout` (`wide`/`long`), `dx` (names and patterns as given), `dx_columns` (the columns read), `dx_separator`, `delimiter`, `id_column`, `episode_column`, `date_column`, `date_format`, `lookback` (`null`, or an object: `days`, a number or `null` for the whole history, for every list not named; `lists`, list name to `{"days": ...}` for `--lookback LIST=DAYS`; `window`, `current-and-earlier` or `earlier-only`), `exclude_primary`, `primary_column`, `poa_column`, `poa_values`, `age_column`, `hierarchy`, `flags`, `strict` |
 //! | `columns` | the output columns added, in order |
-//! | `rows` | `read`, `written`, `units` (episodes in wide, ids in long), `missing_ids` (rows with an empty id field), `disagreeing_units` (long-layout units whose rows give different dates, ages or values of a kept column; the first is used) |
+//! | `rows` | `read`, `written`, `units` (episodes in wide, ids in long), `missing_ids` (rows with an empty id field), `disagreeing_units` (long-layout units whose rows give different dates, ages or values of a kept column; the first is used), `spilled_records` and `spilled_bytes` (a lookback whose history was over half of `--memory`: the episodes and rows written to partition files, and the bytes of temporary files written; 0 when it fitted) |
 //! | `codes` | `read` (valid, that is well-shaped, codes), `invalid` (count of malformed values: not ICD-10-shaped), `top_invalid` (up to 20 most frequent invalid values with their `count`), `edition` (`who`, `cm` or `any`: where codes were looked up), `edition_sources` (the code sets: edition, release, package), `unknown` (well-shaped codes in no selected edition, stem included), `top_unknown`, `extended` (codes not in the selected editions whose three- or four-character stem is), `top_extended` (normalised codes with their `count`) |
 //! | `excluded` | codes left out: `primary` (primary diagnosis), `not_on_admission` |
 //! | `ages` | `missing` and `unreadable` age fields; `null` without an age column |
@@ -187,6 +187,10 @@ pub struct Rows {
     pub missing_ids: u64,
     /// Long-layout units whose rows give different dates or ages.
     pub disagreeing_units: u64,
+    /// A history over half of `--memory`: episodes and rows written to
+    /// partition files, and the bytes of temporary files written (0: none).
+    pub spilled_records: u64,
+    pub spilled_bytes: u64,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize)]
@@ -324,6 +328,8 @@ impl Provenance {
                 units: summary.units,
                 missing_ids: summary.missing_ids,
                 disagreeing_units: summary.disagreeing_units,
+                spilled_records: summary.spilled_records,
+                spilled_bytes: summary.spilled_bytes,
             },
             codes: Codes {
                 read: summary.codes_read,

@@ -513,6 +513,9 @@ proptest! {
         earlier_only in any::<bool>(),
         exclude_primary in any::<bool>(),
         threads in 1usize..3,
+        // In memory; spilled to partitions from the start; spilled after
+        // some blocks of 256 bytes (episodes read so far carried over).
+        spill in prop_oneof![Just(None), Just(Some(0u64)), Just(Some(3_000u64))],
     ) {
         let mut lookback_lists = Vec::new();
         if let Some(d) = hfrs {
@@ -532,6 +535,8 @@ proptest! {
             window: if earlier_only { WindowScope::EarlierOnly } else { WindowScope::CurrentAndEarlier },
             exclude_primary,
             threads,
+            memory: spill.unwrap_or(1 << 30),
+            block_size: if spill.is_some() { 256 } else { 1 << 20 },
             ..ScoreConfig::default()
         };
         let (csv_text, k) = history_csv(&eps);
@@ -539,6 +544,11 @@ proptest! {
         let got = score_rows(&out, 2 + k);
         let want = history_reference(&eps, &cfg);
         prop_assert_eq!(summary.units as usize, eps.len());
+        match spill {
+            None => prop_assert_eq!(summary.spilled_records, 0),
+            Some(0) => prop_assert!(summary.spilled_records > 0),
+            Some(_) => {}
+        }
         prop_assert_eq!(got, want);
     }
 }

@@ -1,12 +1,14 @@
-//! The wide layout's input rows, kept for a history run's output, wait in a
-//! temporary file beyond half of `--memory`: the output is identical to the
-//! in-memory run's, and the file is gone after success and after failure.
+//! Beyond half of `--memory` a history run spills: the episodes are
+//! partitioned by patient into temporary files, resolved a partition at a
+//! time and merged back in input order. The output (every layout, CSV and
+//! Parquet, in and out) and the summary are the in-memory run's, and the
+//! files are gone after success, failure and a signal (`tests/nothing_lost.rs`).
 
 mod common;
 
 use common::{code_pool, morbus, Rng, TempDir};
 use morbus::lists::Catalogue;
-use morbus::pipeline::{score_stream, Layout, ScoreConfig};
+use morbus::pipeline::{score_stream, Layout, ScoreConfig, Summary, WindowScope};
 use morbus::score::{Engine, IndexSpec, ScoreOptions};
 
 /// An invented wide history: 500 patients over two years, CRLF line ends
@@ -57,6 +59,226 @@ fn files_in(dir: &std::path::Path) -> usize {
     std::fs::read_dir(dir).unwrap().count()
 }
 
+/// A summary without what was spilled (the rest must equal the in-memory
+/// run's).
+fn unspilled(s: Summary) -> Summary {
+    Summary {
+        spilled_records: 0,
+        spilled_bytes: 0,
+        ..s
+    }
+}
+
+/// An invented long extract: 300 patients, episodes of 1-4 rows (rows of an
+/// episode often far apart), a primary flag and a present-on-admission
+/// indicator per row, a ward column (kept), some rows giving another date,
+/// age or ward than their episode's first, missing and unreadable dates,
+/// missing ids.
+fn long_history(rows: usize, seed: u64, clean: bool) -> String {
+    // Clean: known codes, dates and ids only (for --strict, which stops at
+    // the first unknown code, unreadable date or missing id).
+    let pool = if clean {
+        [
+            "I21.0", "I50.0", "E11.9", "C34.1", "F03", "J44.9", "N18.5", "K70.3",
+        ]
+        .map(String::from)
+        .to_vec()
+    } else {
+        code_pool()
+    };
+    let mut rng = Rng::new(seed);
+    let mut out = String::from("pid,stay,date,age,ward,primary,poa,dx\n");
+    let mut open: Vec<(usize, usize, String, u32, String)> = Vec::new();
+    let mut stays = 0;
+    for _ in 0..rows {
+        let reuse = !open.is_empty() && rng.chance(55);
+        let (p, stay, mut date, mut age, mut ward) = if reuse {
+            open[rng.below(open.len())].clone()
+        } else {
+            stays += 1;
+            let d = format!(
+                "{}-{:02}-{:02}",
+                2022 + rng.below(3),
+                1 + rng.below(12),
+                1 + rng.below(28)
+            );
+            let e = (
+                rng.below(300),
+                stays,
+                d,
+                20 + rng.below(70) as u32,
+                format!("w{}", rng.below(5)),
+            );
+            open.push(e.clone());
+            if open.len() > 400 {
+                open.swap_remove(rng.below(400));
+            }
+            e
+        };
+        if rng.chance(3) {
+            date = "2023-07-01".into();
+        }
+        if !clean && rng.chance(2) {
+            date = "sometime".into();
+        }
+        if !clean && rng.chance(2) {
+            date.clear();
+        }
+        if rng.chance(3) {
+            age += 1;
+        }
+        if rng.chance(3) {
+            ward = "elsewhere".into();
+        }
+        let pid = if !clean && rng.chance(1) {
+            String::new()
+        } else {
+            format!("p{p}")
+        };
+        let primary = if rng.chance(30) { "1" } else { "0" };
+        let poa = ["Y", "N", "", "W"][rng.below(4)];
+        let code = pool[rng.below(pool.len())].as_str();
+        out.push_str(&format!(
+            "{pid},s{stay},{date},{age},{ward},{primary},{poa},{code}\n"
+        ));
+    }
+    out
+}
+
+/// Runs `cfg` over `input` with the history in memory and spilled (a few
+/// limits, one and two threads): the same output and summary.
+fn same_spilled(engine: &Engine, cfg: &ScoreConfig, input: &str, what: &str) {
+    let temp = TempDir::new("spill-same");
+    let base = ScoreConfig {
+        block_size: 4 << 10,
+        temp_dir: Some(temp.path().to_path_buf()),
+        ..cfg.clone()
+    };
+    let run = |cfg: &ScoreConfig| {
+        let mut out = Vec::new();
+        let s = score_stream(engine, cfg, input.as_bytes(), &mut out);
+        (out, s.map_err(|e| e.to_string()))
+    };
+    let expect_error = cfg.strict || cfg.max_unreadable_dates < 1.0;
+    let (reference, summary) = run(&ScoreConfig {
+        memory: 1 << 30,
+        ..base.clone()
+    });
+    if let Ok(s) = &summary {
+        assert_eq!(s.spilled_records, 0, "{what}");
+    }
+    assert_eq!(summary.is_err(), expect_error, "{what}: {summary:?}");
+    // 0: everything spills after the first block; 40 KiB and 160 KiB:
+    // after some blocks, episodes read so far carried into the partitions.
+    for (memory, threads) in [(0, 1), (0, 2), (40 << 10, 2), (160 << 10, 1)] {
+        let cfg = ScoreConfig {
+            memory,
+            threads,
+            ..base.clone()
+        };
+        let (out, s) = run(&cfg);
+        assert!(
+            out == reference,
+            "{what}, memory {memory}: output differs\n{}\n---\n{}",
+            String::from_utf8_lossy(&out[..out.len().min(2000)]),
+            String::from_utf8_lossy(&reference[..reference.len().min(2000)])
+        );
+        match (&s, &summary) {
+            (Ok(s), Ok(want)) => {
+                assert!(
+                    memory > 0 || s.spilled_records > 0,
+                    "{what}: nothing spilled"
+                );
+                assert_eq!(&unspilled(s.clone()), want, "{what}, memory {memory}");
+            }
+            (Err(a), Err(b)) => assert_eq!(a, b, "{what}, memory {memory}"),
+            (a, b) => panic!("{what}, memory {memory}: {a:?} against {b:?}"),
+        }
+        assert_eq!(
+            files_in(temp.path()),
+            0,
+            "{what}: temporary file left behind"
+        );
+    }
+}
+
+#[test]
+fn every_layout_spilled_equals_in_memory() {
+    let engine = engine();
+    let long = long_history(6_000, 7, false);
+    let wide = history(3_000);
+    let long_cfg = ScoreConfig {
+        layout: Layout::Long,
+        dx: vec!["dx".into()],
+        id: Some("pid".into()),
+        date: Some("date".into()),
+        age: Some("age".into()),
+        lookback: Some(365),
+        max_unreadable_dates: 100.0,
+        ..ScoreConfig::default()
+    };
+    same_spilled(&engine, &long_cfg, &long, "long, by id");
+    let episodes = ScoreConfig {
+        episode: Some("stay".into()),
+        ..long_cfg.clone()
+    };
+    same_spilled(&engine, &episodes, &long, "long, by episode");
+    let kept = ScoreConfig {
+        keep: vec!["ward".into()],
+        ..episodes.clone()
+    };
+    same_spilled(&engine, &kept, &long, "long, --keep");
+    let rules = ScoreConfig {
+        primary: Some("primary".into()),
+        exclude_primary: true,
+        poa: Some("poa".into()),
+        lookback: None,
+        lookback_lists: vec![("hfrs".into(), 730), ("charlson".into(), u32::MAX)],
+        window: WindowScope::EarlierOnly,
+        ..kept.clone()
+    };
+    same_spilled(
+        &engine,
+        &rules,
+        &long,
+        "long, exclusions and windows per list",
+    );
+    // Without a lookback (--episode alone) the long layout is held too.
+    let no_lookback = ScoreConfig {
+        lookback: None,
+        ..episodes.clone()
+    };
+    same_spilled(&engine, &no_lookback, &long, "long, no lookback");
+    let wide_cfg = ScoreConfig {
+        dx: vec!["dx*".into()],
+        id: Some("pid".into()),
+        date: Some("date".into()),
+        lookback: Some(730),
+        exclude_primary: true,
+        ..ScoreConfig::default()
+    };
+    same_spilled(&engine, &wide_cfg, &wide, "wide");
+    let earlier = ScoreConfig {
+        window: WindowScope::EarlierOnly,
+        lookback: Some(u32::MAX),
+        ..wide_cfg.clone()
+    };
+    same_spilled(&engine, &earlier, &wide, "wide, earlier only");
+    // Stops: the first disagreement in input order (--strict), too many
+    // unreadable dates; the same message either way.
+    let strict = ScoreConfig {
+        strict: true,
+        ..kept.clone()
+    };
+    let clean = long_history(6_000, 8, true);
+    same_spilled(&engine, &strict, &clean, "long, --strict");
+    let dates = ScoreConfig {
+        max_unreadable_dates: 0.0,
+        ..episodes.clone()
+    };
+    same_spilled(&engine, &dates, &long, "long, unreadable dates");
+}
+
 #[test]
 fn spilled_rows_give_the_in_memory_output() {
     let input = history(40_000);
@@ -87,10 +309,11 @@ fn spilled_rows_give_the_in_memory_output() {
         };
         let (out, s) = run(&cfg);
         assert!(out == reference, "memory {memory}, threads {threads}");
-        assert_eq!(s, summary);
+        assert_eq!(s.spilled_records > 0, memory < 1 << 30, "memory {memory}");
+        assert_eq!(unspilled(s), summary);
         assert_eq!(files_in(temp.path()), 0, "temporary file left behind");
     }
-    // The long layout keeps no rows; the limit changes nothing.
+    // A long layout of two rows, spilled or not.
     let long = "pid,date,dx\np1,2024-01-01,I21.0\np1,2024-02-01,I50.0\n";
     let cfg = ScoreConfig {
         layout: Layout::Long,
@@ -146,6 +369,10 @@ fn the_command_line_spills_and_cleans_up_after_failure() {
     assert_eq!(spilled.code, 0, "{}", spilled.stderr);
     assert_eq!(spilled.stdout, in_memory.stdout);
     assert_eq!(files_in(&temp), 0);
+    // The summary says what was spilled.
+    let said = "the history was over half of --memory and went to temporary files";
+    assert!(spilled.stderr.contains(said), "{}", spilled.stderr);
+    assert!(!in_memory.stderr.contains(said), "{}", in_memory.stderr);
     // A record with a field too many at the end: exit 1, no file left.
     let bad = dir.write("bad.csv", &format!("{good}p1,2024-01-01,x,I21.0,,,extra\n"));
     let mut a = args("1KiB");
@@ -167,4 +394,195 @@ fn the_command_line_spills_and_cleans_up_after_failure() {
         "{}",
         r.stderr
     );
+}
+
+/// `text` (CSV) as Parquet: the `date` column as dates, the others as text
+/// (empty fields as nulls).
+#[cfg(feature = "parquet")]
+fn to_parquet(text: &str, path: &std::path::Path) {
+    use arrow_array::builder::{Date32Builder, StringBuilder};
+    use arrow_array::{ArrayRef, RecordBatch};
+    use std::sync::Arc;
+    let mut rdr = csv::Reader::from_reader(text.as_bytes());
+    let header: Vec<String> = rdr.headers().unwrap().iter().map(String::from).collect();
+    let rows: Vec<csv::StringRecord> = rdr.records().map(Result::unwrap).collect();
+    let mut arrays: Vec<(String, ArrayRef)> = Vec::new();
+    for (k, name) in header.iter().enumerate() {
+        let a: ArrayRef = if name == "date" {
+            let mut b = Date32Builder::new();
+            for r in &rows {
+                b.append_option(morbus::pipeline::DateFormat::Iso.parse(r[k].as_bytes()));
+            }
+            Arc::new(b.finish())
+        } else {
+            let mut b = StringBuilder::new();
+            for r in &rows {
+                if r[k].is_empty() {
+                    b.append_null()
+                } else {
+                    b.append_value(&r[k])
+                }
+            }
+            Arc::new(b.finish())
+        };
+        arrays.push((name.clone(), a));
+    }
+    let batch = RecordBatch::try_from_iter(arrays).unwrap();
+    let mut w = parquet::arrow::ArrowWriter::try_new(
+        std::fs::File::create(path).unwrap(),
+        batch.schema(),
+        None,
+    )
+    .unwrap();
+    w.write(&batch).unwrap();
+    w.close().unwrap();
+}
+
+#[cfg(feature = "parquet")]
+#[test]
+fn parquet_in_and_out_spilled_equal_in_memory() {
+    let dir = TempDir::new("spill-parquet");
+    let temp = dir.path().join("tmp");
+    std::fs::create_dir(&temp).unwrap();
+    // Dates that Parquet holds as dates: the unreadable ones left out.
+    let wide: String = history(4_000).replace("\r\n", "\n");
+    let long: String = long_history(4_000, 9, false)
+        .lines()
+        .filter(|l| !l.contains("sometime"))
+        .map(|l| format!("{l}\n"))
+        .collect();
+    let cases: [(&str, &String, &[&str]); 2] = [
+        (
+            "wide",
+            &wide,
+            &[
+                "--dx",
+                "dx*",
+                "--id",
+                "pid",
+                "--date",
+                "date",
+                "--lookback",
+                "365",
+            ],
+        ),
+        (
+            "long",
+            &long,
+            &[
+                "--layout",
+                "long",
+                "--dx",
+                "dx",
+                "--id",
+                "pid",
+                "--episode",
+                "stay",
+                "--keep",
+                "ward",
+                "--date",
+                "date",
+                "--age",
+                "age",
+                "--lookback",
+                "730",
+            ],
+        ),
+    ];
+    for (name, text, opts) in cases {
+        let csv_in = dir.write(&format!("{name}.csv"), text);
+        let pq_in = dir.path().join(format!("{name}.parquet"));
+        to_parquet(text, &pq_in);
+        let pq_in = pq_in.display().to_string();
+        let run = |input: &str, memory: &str, out: Option<&str>| {
+            let mut a: Vec<String> = vec!["score".into(), input.into(), "-q".into()];
+            a.extend(opts.iter().map(|s| s.to_string()));
+            a.extend([
+                "--memory".into(),
+                memory.into(),
+                "--temp-dir".into(),
+                temp.display().to_string(),
+            ]);
+            if let Some(o) = out {
+                a.extend(["-o".into(), o.into()]);
+            }
+            let r = morbus(&a.iter().map(String::as_str).collect::<Vec<_>>());
+            assert_eq!(r.code, 0, "{name} {input} {memory}: {}", r.stderr);
+            assert_eq!(files_in(&temp), 0, "{name}: temporary file left behind");
+            r.stdout
+        };
+        // Parquet in, CSV out: spilled or not, and as from the CSV.
+        let from_csv = run(&csv_in, "1GiB", None);
+        assert_eq!(run(&pq_in, "1GiB", None), from_csv, "{name}: Parquet in");
+        assert_eq!(
+            run(&pq_in, "0", None),
+            from_csv,
+            "{name}: Parquet in, spilled"
+        );
+        assert_eq!(run(&csv_in, "0", None), from_csv, "{name}: CSV in, spilled");
+        // Parquet out: the same file, spilled or not.
+        for input in [&csv_in, &pq_in] {
+            let a = dir.join(&format!("{name}-a.parquet"));
+            let b = dir.join(&format!("{name}-b.parquet"));
+            run(input, "1GiB", Some(&a));
+            run(input, "0", Some(&b));
+            let (a, b) = (std::fs::read(&a).unwrap(), std::fs::read(&b).unwrap());
+            assert!(a == b, "{name} {input}: Parquet outputs differ");
+        }
+    }
+}
+
+#[test]
+fn a_spilled_failure_leaves_no_file() {
+    // --strict and a row of an episode giving another date, late in the
+    // extract: the partitions are written, the run stops with exit 3.
+    let dir = TempDir::new("spill-fail");
+    let temp = dir.path().join("tmp");
+    std::fs::create_dir(&temp).unwrap();
+    let mut text = long_history(3_000, 10, true);
+    let first = text.lines().nth(1).unwrap().to_string();
+    let f: Vec<&str> = first.split(',').collect();
+    text.push_str(&format!(
+        "{},{},2001-01-01,{},{},0,Y,I21.0\n",
+        f[0], f[1], f[3], f[4]
+    ));
+    let input = dir.write("in.csv", &text);
+    let args = |memory: &str| {
+        vec![
+            "score".to_string(),
+            input.clone(),
+            "--layout".into(),
+            "long".into(),
+            "--dx".into(),
+            "dx".into(),
+            "--id".into(),
+            "pid".into(),
+            "--episode".into(),
+            "stay".into(),
+            "--date".into(),
+            "date".into(),
+            "--lookback".into(),
+            "365".into(),
+            "--strict".into(),
+            "--memory".into(),
+            memory.into(),
+            "--temp-dir".into(),
+            temp.display().to_string(),
+            "-o".into(),
+            dir.join("out.csv"),
+        ]
+    };
+    let run = |a: &[String]| morbus(&a.iter().map(String::as_str).collect::<Vec<_>>());
+    let in_memory = run(&args("1GiB"));
+    let spilled = run(&args("0"));
+    assert_eq!(in_memory.code, 3, "{}", in_memory.stderr);
+    assert_eq!(spilled.code, 3, "{}", spilled.stderr);
+    assert_eq!(spilled.stderr, in_memory.stderr);
+    assert!(
+        spilled.stderr.contains("another date"),
+        "{}",
+        spilled.stderr
+    );
+    assert_eq!(files_in(&temp), 0);
+    assert!(!std::path::Path::new(&dir.join("out.csv")).exists());
 }

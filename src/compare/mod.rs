@@ -583,7 +583,7 @@ pub fn compare(
             units.missing_adjustment += 1;
             continue 'units;
         }
-        if needs_age && ep.age.is_none() {
+        if needs_age && ep.age().is_none() {
             units.missing_age += 1;
             continue;
         }
@@ -707,7 +707,7 @@ pub fn compare(
     let mut values: Vec<Value> = Vec::new();
     for &e in &kept {
         let bits = &resolved[e * w..(e + 1) * w];
-        engine.values(bits, hist.episodes[e].age, &mut values);
+        engine.values(bits, hist.episodes[e].age(), &mut values);
         for (s, slot) in scores.iter_mut().zip(&slots) {
             let v = match values[slot.column] {
                 Value::Score { scaled, .. } => scaled as f64 / SCALE as f64,

@@ -87,14 +87,22 @@ impl Drop for OutputGuard {
     }
 }
 
-/// Registers a working file of the run (not an output) so that a signal
-/// removes it like an output's temporary file; [`remove_working_file`]
-/// removes it and forgets it.
-pub(crate) fn register_working_file(path: &Path) {
-    pending().push(path.to_path_buf());
+/// Creates a new working file of the run (not an output; read and write)
+/// and registers it, under the lock, so that a signal removes it like an
+/// output's temporary file: the signal either finds it registered or comes
+/// before it exists. [`remove_working_file`] removes it and forgets it.
+pub(crate) fn create_working_file(path: &Path) -> io::Result<File> {
+    let mut list = pending();
+    let file = OpenOptions::new()
+        .read(true)
+        .write(true)
+        .create_new(true)
+        .open(path)?;
+    list.push(path.to_path_buf());
+    Ok(file)
 }
 
-/// Removes a working file registered with [`register_working_file`].
+/// Removes a working file registered with [`create_working_file`].
 pub(crate) fn remove_working_file(path: &Path) {
     let mut list = pending();
     let _ = std::fs::remove_file(path);

@@ -197,7 +197,7 @@ pub fn explain_stream(
 
         let mut prefix: Vec<String> = Vec::new();
         if id_name.is_some() {
-            prefix.push(String::from_utf8_lossy(&hist.patients[ep.patient as usize]).into_owned());
+            prefix.push(String::from_utf8_lossy(hist.patient_id(ep.patient)).into_owned());
         }
         if episode_name.is_some() {
             prefix.push(String::from_utf8_lossy(hist.key(e)).into_owned());
@@ -205,7 +205,7 @@ pub fn explain_stream(
         for j in 0..p.keep.len() {
             prefix.push(String::from_utf8_lossy(hist.kept(e, j)).into_owned());
         }
-        prefix.push(ep.row.to_string());
+        prefix.push(hist.row(e).to_string());
 
         for (si, spec) in engine.specs().iter().enumerate() {
             let sel = &engine.lists()[spec.list];
@@ -262,8 +262,8 @@ pub fn explain_stream(
                         format_scaled(weighting.weights[c], decimals, &mut weight);
                         let mut cells = prefix.clone();
                         cells.push(format!("{}:{}", list.name, weighting.name));
-                        cells.push(src_ep.row.to_string());
-                        cells.push(iso(src_ep.date));
+                        cells.push(hist.row(src as usize).to_string());
+                        cells.push(iso(src_ep.date()));
                         cells.push(String::from_utf8_lossy(&rec.written).trim().to_string());
                         cells.push(rec.code.to_string());
                         cells.push(list.conditions[c].key.clone());
@@ -281,7 +281,7 @@ pub fn explain_stream(
                 cells.push(format!("{}:{}", list.name, weighting.name));
                 cells.extend([
                     String::new(),
-                    iso(ep.date),
+                    iso(ep.date()),
                     String::new(),
                     String::new(),
                     String::new(),
@@ -298,8 +298,10 @@ pub fn explain_stream(
                 emit(&mut out, &cells);
             };
             total_row(score, "total".into(), None);
-            if let (Some(age), true) = (ep.age, engine.options().age && !list.age_points.is_empty())
-            {
+            if let (Some(age), true) = (
+                ep.age(),
+                engine.options().age && !list.age_points.is_empty(),
+            ) {
                 let points = list.points_for_age(age);
                 total_row(
                     score + points,

@@ -15,12 +15,12 @@
 //! ([`History::resolve`]): linear in the episodes, however many one patient
 //! has.
 
-use std::collections::HashMap;
-use std::hash::BuildHasherDefault;
 use std::io::{Read, Write};
 
 use super::dates;
+use super::ids::Ids;
 use super::parallel::run_blocks;
+use super::partition::Spill;
 use super::rows_store::{Loaded, RowStore};
 use super::{
     check_collisions, disagreement, keep_first, Exclusion, Layout, Plan, RowIssue, ScoreConfig,
@@ -28,24 +28,54 @@ use super::{
 };
 use crate::code::Code;
 use crate::io::{write_field, RecordScanner};
-use crate::matcher::KeyHasher;
 use crate::score::{Engine, Value};
 use crate::Error;
 
-type ByteMap<V> = HashMap<Box<[u8]>, V, BuildHasherDefault<KeyHasher>>;
-
-/// One episode of the extract.
-#[derive(Clone, Debug)]
+/// One episode of the extract, packed into 12 bytes.
+#[derive(Clone, Copy, Debug)]
 pub struct Episode {
     pub patient: u32,
+    /// Days since 1970-01-01; [`NO_DATE`] when missing or unreadable.
+    date: i32,
+    /// Whole years (0 to 130); [`NO_AGE`] when missing.
+    age: u8,
+    /// [`UNREADABLE_DATE`], [`DISAGREES`], [`NO_ID`].
+    flags: u8,
+}
+
+const NO_DATE: i32 = i32::MIN;
+const NO_AGE: u8 = u8::MAX;
+/// The episode's date was unreadable (not merely missing).
+const UNREADABLE_DATE: u8 = 1;
+/// A later row of the episode gave another date, age or kept value (long
+/// layout).
+const DISAGREES: u8 = 2;
+/// The episode's patient is a row without an id, nobody's history.
+const NO_ID: u8 = 4;
+
+impl Episode {
     /// Days since 1970-01-01; `None` when missing or unreadable.
-    pub date: Option<i32>,
-    pub age: Option<u32>,
-    /// Data row number (1-based) of the episode's first record.
-    pub row: u64,
-    date_unreadable: bool,
-    /// A later row of the episode gave another date or age (long layout).
-    disagrees: bool,
+    pub fn date(&self) -> Option<i32> {
+        (self.date != NO_DATE).then_some(self.date)
+    }
+
+    /// Whole years; `None` when missing.
+    pub fn age(&self) -> Option<u32> {
+        (self.age != NO_AGE).then_some(self.age as u32)
+    }
+
+    fn set_date(&mut self, d: Option<i32>) {
+        self.date = d.unwrap_or(NO_DATE);
+    }
+
+    fn set_age(&mut self, a: Option<u32>) {
+        // `read_age` gives 0 to 130.
+        self.age = a.map_or(NO_AGE, |a| a.min(NO_AGE as u32 - 1) as u8);
+    }
+
+    fn flag(&self, f: u8) -> bool {
+        self.flags & f != 0
+    }
 }
 
 /// One code of an episode (kept for `explain`).
@@ -62,10 +92,14 @@ pub struct History {
     pub(crate) plan: Plan,
     /// The header's raw bytes.
     pub header_raw: Vec<u8>,
-    pub patients: Vec<Box<[u8]>>,
+    /// Patient ids, numbered by first appearance (`Episode::patient`).
+    pub(crate) patients: Ids,
     pub episodes: Vec<Episode>,
+    /// Each episode's data row number (1-based, its first record); empty
+    /// while every episode `e` is row `e + 1` (the wide layout read whole).
+    rows: Vec<u64>,
     /// Long layout with `--episode`: each episode's value.
-    keys: Vec<Box<[u8]>>,
+    keys: Ids,
     /// Kept columns (`ScoreConfig::keep`): per episode, one value per
     /// column (the first non-empty one of its rows).
     kept: Vec<Option<Box<[u8]>>>,
@@ -73,14 +107,336 @@ pub struct History {
     own_all: Vec<u64>,
     /// Empty when no exclusion rule is on (then it equals `own_all`).
     own_current: Vec<u64>,
-    /// Wide layout: each row's raw bytes, as (block, start, end) into the
-    /// blocks' own buffers (kept as read: no copy into one arena).
-    row_spans: Vec<(u32, u32, u32)>,
+    /// Wide layout: each episode's raw row ends at `raw_ends[e]` in its
+    /// block of `raw_blocks` (starting where the previous one ended, or at
+    /// 0 for a block's first); block `b` starts at episode `raw_first[b]`.
+    raw_ends: Vec<u32>,
+    raw_first: Vec<u32>,
     raw_blocks: RowStore,
     /// Every code, when asked for.
     pub codes: Vec<CodeRecord>,
     /// `own_all` holds each episode's windowed set ([`History::resolve`]).
     resolved: bool,
+}
+
+/// How a row's date read.
+#[derive(Clone, Copy)]
+pub(crate) enum DateRead {
+    Day(i32),
+    Missing,
+    Unreadable,
+}
+
+/// One data row (or, when a run starts spilling, one episode read so far)
+/// on its way into a [`Builder`].
+pub(crate) struct RowIn<'a> {
+    /// Data row number (1-based).
+    pub row: u64,
+    /// Line of the record (long layout only, for messages; else 0).
+    pub line: u64,
+    /// An id column was given but this row's id is empty.
+    pub no_id: bool,
+    /// The episode's rows already disagreed (an episode carried over).
+    pub disagrees: bool,
+    pub date: DateRead,
+    pub age: Option<u32>,
+    pub pid: &'a [u8],
+    pub ekey: &'a [u8],
+    /// Kept values: spans into `kept_bytes`, one per kept column.
+    pub kept_bytes: &'a [u8],
+    pub kept: &'a [(usize, usize)],
+    /// Condition sets: every code, and (with an exclusion rule) the codes
+    /// the rules keep.
+    pub all: &'a [u64],
+    pub cur: &'a [u64],
+}
+
+/// Episodes being read: merges rows into episodes (the long layout's rows
+/// by patient and episode value), whether they come straight from the
+/// input or back from a partition file.
+pub(crate) struct Builder {
+    layout: Layout,
+    strict: bool,
+    words: usize,
+    exclusions: bool,
+    nkeep: usize,
+    long_episodes: bool,
+    patients: Ids,
+    episodes: Vec<Episode>,
+    rows: Vec<u64>,
+    keys: Ids,
+    kept: Vec<Option<Box<[u8]>>>,
+    own_all: Vec<u64>,
+    own_current: Vec<u64>,
+    /// Long layout: the (patient, episode value) of each episode, numbered
+    /// like the episodes.
+    episode_index: Ids,
+    key: Vec<u8>,
+}
+
+impl Builder {
+    pub fn new(cfg: &ScoreConfig, plan: &Plan, words: usize) -> Builder {
+        Builder {
+            layout: cfg.layout,
+            strict: cfg.strict,
+            words,
+            exclusions: cfg.exclude_primary || cfg.poa.is_some(),
+            nkeep: plan.keep.len(),
+            long_episodes: plan.episode.is_some(),
+            patients: Ids::default(),
+            episodes: Vec::new(),
+            rows: Vec::new(),
+            keys: Ids::default(),
+            kept: Vec::new(),
+            own_all: Vec::new(),
+            own_current: Vec::new(),
+            episode_index: Ids::default(),
+            key: Vec::new(),
+        }
+    }
+
+    pub fn episodes(&self) -> usize {
+        self.episodes.len()
+    }
+
+    /// Bytes held, and those the resolution will add (the window order).
+    pub fn heap_bytes(&self) -> usize {
+        self.episodes.capacity() * std::mem::size_of::<Episode>()
+            + self.rows.capacity() * 8
+            + self.kept.capacity() * 16
+            + (self.own_all.capacity() + self.own_current.capacity()) * 8
+            + self.patients.heap_bytes()
+            + self.keys.heap_bytes()
+            + self.episode_index.heap_bytes()
+            + self.episodes.len() * 4
+            + self.patients.len() * 4
+    }
+
+    /// Episode `e` as a row to carry over into a partition (`raw` is its
+    /// raw row, if any, given by the caller).
+    pub fn carried<'a>(
+        &'a self,
+        e: usize,
+        kept: &'a mut Vec<(usize, usize)>,
+        kept_bytes: &'a mut Vec<u8>,
+    ) -> RowIn<'a> {
+        let w = self.words;
+        let ep = &self.episodes[e];
+        kept.clear();
+        kept_bytes.clear();
+        for j in 0..self.nkeep {
+            let s = kept_bytes.len();
+            if let Some(v) = &self.kept[e * self.nkeep + j] {
+                kept_bytes.extend_from_slice(v);
+            }
+            kept.push((s, kept_bytes.len()));
+        }
+        RowIn {
+            row: self.rows.get(e).copied().unwrap_or(e as u64 + 1),
+            line: 0,
+            no_id: ep.flag(NO_ID),
+            disagrees: ep.flag(DISAGREES),
+            date: match ep.date() {
+                Some(d) => DateRead::Day(d),
+                None if ep.flag(UNREADABLE_DATE) => DateRead::Unreadable,
+                None => DateRead::Missing,
+            },
+            age: ep.age(),
+            pid: self.patients.get(ep.patient),
+            ekey: if self.long_episodes {
+                self.keys.get(e as u32)
+            } else {
+                &[]
+            },
+            kept_bytes,
+            kept,
+            all: &self.own_all[e * w..(e + 1) * w],
+            cur: if self.exclusions {
+                &self.own_current[e * w..(e + 1) * w]
+            } else {
+                &[]
+            },
+        }
+    }
+
+    /// Adds a row: a new episode, or (long layout) more of an episode seen
+    /// before. Returns the episode's number.
+    pub fn add_row(
+        &mut self,
+        plan: &Plan,
+        r: &RowIn<'_>,
+        summary: &mut Summary,
+    ) -> Result<u32, Error> {
+        let words = self.words;
+        let e = match self.layout {
+            // Every wide row is an episode.
+            Layout::Wide => self.fresh(r),
+            // In the long layout one per (patient, episode value), or per
+            // patient.
+            Layout::Long => {
+                self.key.clear();
+                self.key
+                    .extend_from_slice(&(r.pid.len() as u32).to_le_bytes());
+                self.key.extend_from_slice(r.pid);
+                self.key.extend_from_slice(r.ekey);
+                let key = std::mem::take(&mut self.key);
+                let (x, new) = self.episode_index.intern(&key);
+                self.key = key;
+                if new {
+                    let x2 = self.fresh(r);
+                    debug_assert_eq!(x, x2);
+                    if self.long_episodes {
+                        self.keys.push(r.ekey);
+                    }
+                }
+                x
+            }
+        };
+        let nkeep = self.nkeep;
+        let ep = &mut self.episodes[e as usize];
+        if r.disagrees {
+            ep.flags |= DISAGREES;
+        }
+        // The first readable date and age of an episode's rows count; a
+        // later row giving another one is counted (and stops a --strict
+        // run).
+        let day = match r.date {
+            DateRead::Day(d) => Some(d),
+            DateRead::Unreadable => {
+                if ep.date().is_none() {
+                    ep.flags |= UNREADABLE_DATE;
+                }
+                None
+            }
+            DateRead::Missing => None,
+        };
+        let iso = |d: i32| {
+            let mut t = Vec::new();
+            dates::write_iso_date(d as i64, &mut t);
+            String::from_utf8_lossy(&t).into_owned()
+        };
+        let mut date = ep.date();
+        let other_date =
+            keep_first(&mut date, day).map(|(first, d)| disagreement("date", iso(d), iso(first)));
+        ep.set_date(date);
+        let mut age = ep.age();
+        let other_age = keep_first(&mut age, r.age).map(|(first, a)| disagreement("age", a, first));
+        ep.set_age(age);
+        let mut other_kept = None;
+        for j in 0..nkeep {
+            let (s, t) = r.kept[j];
+            let v = &r.kept_bytes[s..t];
+            if v.trim_ascii().is_empty() {
+                continue;
+            }
+            match &self.kept[e as usize * nkeep + j] {
+                None => self.kept[e as usize * nkeep + j] = Some(v.into()),
+                Some(first) if **first != *v && other_kept.is_none() => {
+                    let name = &plan.header.names[plan.keep[j]];
+                    other_kept = Some(disagreement(
+                        &format!("value of column '{name}'"),
+                        String::from_utf8_lossy(v),
+                        String::from_utf8_lossy(first),
+                    ));
+                }
+                Some(_) => {}
+            }
+        }
+        if let Some(message) = other_date.or(other_age).or(other_kept) {
+            if self.strict {
+                return Err(Error::Strict {
+                    line: Some(r.line),
+                    message,
+                });
+            }
+            let ep = &mut self.episodes[e as usize];
+            let mut counted = ep.flag(DISAGREES);
+            summary.count_disagreeing(&mut counted);
+            ep.flags |= DISAGREES;
+        }
+        let dst = e as usize * words;
+        for k in 0..words {
+            self.own_all[dst + k] |= r.all[k];
+        }
+        if self.exclusions {
+            for k in 0..words {
+                self.own_current[dst + k] |= r.cur[k];
+            }
+        }
+        Ok(e)
+    }
+
+    /// A new episode for row `r`, of its patient (rows without an id get a
+    /// patient of their own).
+    fn fresh(&mut self, r: &RowIn<'_>) -> u32 {
+        let patient = if r.no_id {
+            self.patients.push(r.pid)
+        } else {
+            self.patients.intern(r.pid).0
+        };
+        let e = self.episodes.len();
+        self.episodes.push(Episode {
+            patient,
+            date: NO_DATE,
+            age: NO_AGE,
+            flags: if r.no_id { NO_ID } else { 0 },
+        });
+        // Row numbers are kept only once one is not implied by the order.
+        if self.rows.is_empty() && r.row != e as u64 + 1 {
+            self.rows.extend(1..=e as u64);
+        }
+        if !self.rows.is_empty() || r.row != e as u64 + 1 {
+            self.rows.push(r.row);
+        }
+        self.own_all.resize(self.own_all.len() + self.words, 0);
+        if self.exclusions {
+            self.own_current
+                .resize(self.own_current.len() + self.words, 0);
+        }
+        self.kept.resize(self.kept.len() + self.nkeep, None);
+        e as u32
+    }
+
+    /// The history of the episodes read: their missing and unreadable
+    /// dates counted into `summary`.
+    pub fn finish(
+        self,
+        plan: Plan,
+        header_raw: Vec<u8>,
+        raw: (Vec<u32>, Vec<u32>, RowStore),
+        codes: Vec<CodeRecord>,
+        summary: &mut Summary,
+    ) -> History {
+        if plan.date.is_some() {
+            for ep in &self.episodes {
+                if ep.date().is_none() {
+                    if ep.flag(UNREADABLE_DATE) {
+                        summary.unreadable_dates += 1;
+                    } else {
+                        summary.missing_dates += 1;
+                    }
+                }
+            }
+        }
+        let (raw_ends, raw_first, raw_blocks) = raw;
+        History {
+            plan,
+            header_raw,
+            patients: self.patients,
+            episodes: self.episodes,
+            rows: self.rows,
+            keys: self.keys,
+            kept: self.kept,
+            words: self.words,
+            own_all: self.own_all,
+            own_current: self.own_current,
+            raw_ends,
+            raw_first,
+            raw_blocks,
+            codes,
+            resolved: false,
+        }
+    }
 }
 
 /// What a [`History`] keeps besides the condition sets.
@@ -204,14 +560,6 @@ fn count_out(
             }
         }
     }
-}
-
-/// How a row's date read.
-#[derive(Clone, Copy)]
-enum DateRead {
-    Day(i32),
-    Missing,
-    Unreadable,
 }
 
 /// One data row as a worker read it.
@@ -371,7 +719,7 @@ fn read_block(
 /// Stops a run whose share of unreadable dates (among episodes with a
 /// non-empty date) is over `--max-unreadable-dates`: the format is likely
 /// the wrong one, and every such episode would be scored alone.
-fn check_unreadable_dates(
+pub(crate) fn check_unreadable_dates(
     cfg: &ScoreConfig,
     summary: &Summary,
     episodes: u64,
@@ -394,241 +742,230 @@ fn check_unreadable_dates(
     ))
 }
 
+/// A history as read: in memory, or (when it would not fit in the memory
+/// limit) spread over partition files.
+// Made once per run: the size of the variants does not matter.
+#[allow(clippy::large_enum_variant)]
+pub(crate) enum ReadHistory {
+    Memory(History),
+    Spilled(Spill, Plan, Vec<u8>),
+}
+
+/// Reads the whole extract, parsing blocks on every core and merging them
+/// in input order. With `spill_at`, once the history holds more than that
+/// many bytes everything read so far and every later row goes to partition
+/// files instead ([`Spill`]).
+pub(crate) fn read_history(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    input: impl Read + Send,
+    needs: Needs,
+    spill_at: Option<usize>,
+) -> Result<(ReadHistory, Summary), Error> {
+    let keep_codes = needs.codes;
+    let words = engine.words();
+    let exclusions = cfg.exclude_primary || cfg.poa.is_some();
+    let mut summary = Summary::default();
+    let mut builder: Option<Builder> = None;
+    let mut spill: Option<Spill> = None;
+    let mut raw_ends: Vec<u32> = Vec::new();
+    let mut raw_first: Vec<u32> = Vec::new();
+    let temp_dir = cfg.temp_dir.clone().unwrap_or_else(std::env::temp_dir);
+    let mut raw_blocks = RowStore::new((cfg.memory / 2) as usize, &temp_dir);
+    let keep_rows = needs.rows && cfg.layout == Layout::Wide;
+    let mut codes: Vec<CodeRecord> = Vec::new();
+    let mut rows_seen = 0u64;
+    let (mut kept_spans, mut kept_bytes) = (Vec::new(), Vec::new());
+
+    let (plan, header_raw) = run_blocks(
+        cfg,
+        input,
+        |block, rec| Ok((Plan::from_header(cfg, block, rec)?, rec.raw.to_vec())),
+        |h, block, start, scanner| {
+            read_block(
+                engine,
+                cfg,
+                &h.0,
+                block,
+                start,
+                scanner,
+                (keep_codes, exclusions, needs.rows),
+            )
+        },
+        |h, b: BlockRows, _| {
+            let plan = &h.0;
+            let nkeep = plan.keep.len();
+            let raw_of = |i: usize| -> &[u8] {
+                if !keep_rows {
+                    return &[];
+                }
+                let s = if i == 0 { 0 } else { b.raw_ends[i - 1] };
+                &b.raw[s..b.raw_ends[i]]
+            };
+            let row_in = |i: usize, r: &RowRead, row: u64| RowIn {
+                row,
+                line: r.line,
+                no_id: r.no_id,
+                disagrees: false,
+                date: r.date,
+                age: r.age,
+                pid: &b.ids[r.pid.0..r.pid.1],
+                ekey: &b.ids[r.ekey.0..r.ekey.1],
+                kept_bytes: &b.ids,
+                kept: &b.keep[i * nkeep..(i + 1) * nkeep],
+                all: &b.all[i * words..(i + 1) * words],
+                cur: if exclusions {
+                    &b.cur[i * words..(i + 1) * words]
+                } else {
+                    &[]
+                },
+            };
+            // Over the limit with this block: everything read so far, and
+            // every row from now on, goes to partitions.
+            let coming = b.rows.len() * (16 + words * 8) + b.raw.len();
+            let hb = match spill {
+                None => Some(&*builder.get_or_insert_with(|| Builder::new(cfg, plan, words))),
+                Some(_) => None,
+            };
+            if let Some(hb) = hb.filter(|hb| {
+                spill_at
+                    .is_some_and(|limit| hb.heap_bytes() + raw_ends.capacity() * 4 + coming > limit)
+            }) {
+                let mut sp = Spill::new(cfg, &temp_dir, words, nkeep, exclusions, keep_rows)?;
+                let n = hb.episodes();
+                let mut e = 0;
+                for bi in 0..raw_first.len() {
+                    let loaded = raw_blocks.load(bi as u32, bi as u32)?;
+                    let end = raw_first.get(bi + 1).map_or(n, |&f| f as usize);
+                    let mut s = 0;
+                    while e < end {
+                        let t = raw_ends[e];
+                        let raw = loaded.slice(bi as u32, s, t);
+                        sp.write(&hb.carried(e, &mut kept_spans, &mut kept_bytes), raw)?;
+                        s = t;
+                        e += 1;
+                    }
+                }
+                while e < n {
+                    sp.write(&hb.carried(e, &mut kept_spans, &mut kept_bytes), &[])?;
+                    e += 1;
+                }
+                builder = None;
+                raw_blocks = RowStore::new(0, &temp_dir);
+                raw_ends = Vec::new();
+                raw_first = Vec::new();
+                spill = Some(sp);
+            }
+            if let Some(sp) = spill.as_mut() {
+                for (i, r) in b.rows.iter().enumerate() {
+                    rows_seen += 1;
+                    sp.write(&row_in(i, r, rows_seen), raw_of(i))?;
+                }
+                summary.merge(b.summary);
+                return b.err.map_or(Ok(()), Err);
+            }
+            let Some(hb) = builder.as_mut() else {
+                return Err(Error::data(None, "internal error: no history being built"));
+            };
+            let first = hb.episodes() as u32;
+            let mut block_episode = Vec::with_capacity(b.rows.len());
+            for (i, r) in b.rows.iter().enumerate() {
+                rows_seen += 1;
+                block_episode.push(hb.add_row(plan, &row_in(i, r, rows_seen), &mut summary)?);
+            }
+            if keep_rows && !b.rows.is_empty() {
+                raw_blocks.push(b.raw)?;
+                raw_first.push(first);
+                raw_ends.extend(b.raw_ends.iter().map(|&x| x as u32));
+            }
+            for mut c in b.codes {
+                c.episode = block_episode[c.episode as usize];
+                codes.push(c);
+            }
+            summary.merge(b.summary);
+            b.err.map_or(Ok(()), Err)
+        },
+    )?;
+    summary.dx_columns = plan.dx_names();
+    if plan.date.is_some() {
+        summary.date_format = Some(cfg.date_format.to_string());
+    }
+    if let Some(sp) = spill {
+        return Ok((ReadHistory::Spilled(sp, plan, header_raw), summary));
+    }
+    let builder = builder.unwrap_or_else(|| Builder::new(cfg, &plan, words));
+    let hist = builder.finish(
+        plan,
+        header_raw,
+        (raw_ends, raw_first, raw_blocks),
+        codes,
+        &mut summary,
+    );
+    if hist.plan.date.is_some() {
+        check_unreadable_dates(cfg, &summary, hist.episodes.len() as u64)?;
+    }
+    Ok((ReadHistory::Memory(hist), summary))
+}
+
 impl History {
-    /// Reads the whole extract, parsing blocks on every core and merging
-    /// them in input order.
+    /// Reads the whole extract into memory, parsing blocks on every core and
+    /// merging them in input order.
     pub fn read(
         engine: &Engine,
         cfg: &ScoreConfig,
         input: impl Read + Send,
         needs: Needs,
     ) -> Result<(History, Summary), Error> {
-        let keep_codes = needs.codes;
-        let words = engine.words();
-        let exclusions = cfg.exclude_primary || cfg.poa.is_some();
-        let mut summary = Summary::default();
-        let mut patients: Vec<Box<[u8]>> = Vec::new();
-        let mut episodes: Vec<Episode> = Vec::new();
-        let mut keys: Vec<Box<[u8]>> = Vec::new();
-        let mut kept: Vec<Option<Box<[u8]>>> = Vec::new();
-        let mut own_all: Vec<u64> = Vec::new();
-        let mut own_current: Vec<u64> = Vec::new();
-        let mut row_spans: Vec<(u32, u32, u32)> = Vec::new();
-        let temp_dir = cfg.temp_dir.clone().unwrap_or_else(std::env::temp_dir);
-        let mut raw_blocks = RowStore::new((cfg.memory / 2) as usize, &temp_dir);
-        let keep_rows = needs.rows && cfg.layout == Layout::Wide;
-        let mut codes: Vec<CodeRecord> = Vec::new();
-        let mut patient_index: ByteMap<u32> = ByteMap::default();
-        let mut episode_index: ByteMap<u32> = ByteMap::default();
-        let mut key = Vec::new();
-        let mut rows_seen = 0u64;
-
-        let (plan, header_raw) = run_blocks(
-            cfg,
-            input,
-            |block, rec| Ok((Plan::from_header(cfg, block, rec)?, rec.raw.to_vec())),
-            |h, block, start, scanner| {
-                read_block(
-                    engine,
-                    cfg,
-                    &h.0,
-                    block,
-                    start,
-                    scanner,
-                    (keep_codes, exclusions, needs.rows),
-                )
-            },
-            |h, b: BlockRows, _| {
-                let long_episodes = h.0.episode.is_some();
-                let nkeep = h.0.keep.len();
-                let mut block_episode = Vec::with_capacity(b.rows.len());
-                for (i, r) in b.rows.iter().enumerate() {
-                    rows_seen += 1;
-                    let pid = &b.ids[r.pid.0..r.pid.1];
-                    // A new episode's patient; rows without an id get a
-                    // patient of their own.
-                    let mut fresh =
-                        |episodes: &mut Vec<Episode>,
-                         own_all: &mut Vec<u64>,
-                         own_current: &mut Vec<u64>| {
-                            let patient = match patient_index.get(pid) {
-                                Some(&x) if !r.no_id => x,
-                                _ => {
-                                    let x = patients.len() as u32;
-                                    if !r.no_id {
-                                        patient_index.insert(pid.into(), x);
-                                    }
-                                    patients.push(pid.into());
-                                    x
-                                }
-                            };
-                            episodes.push(Episode {
-                                patient,
-                                date: None,
-                                age: None,
-                                row: rows_seen,
-                                date_unreadable: false,
-                                disagrees: false,
-                            });
-                            own_all.resize(own_all.len() + words, 0);
-                            if exclusions {
-                                own_current.resize(own_current.len() + words, 0);
-                            }
-                            kept.resize(kept.len() + nkeep, None);
-                            (episodes.len() - 1) as u32
-                        };
-                    // Every wide row is an episode; in the long layout one
-                    // per (patient, episode value), or per patient.
-                    let e = match cfg.layout {
-                        Layout::Wide => fresh(&mut episodes, &mut own_all, &mut own_current),
-                        Layout::Long => {
-                            let ekey = &b.ids[r.ekey.0..r.ekey.1];
-                            key.clear();
-                            key.extend_from_slice(&(pid.len() as u32).to_le_bytes());
-                            key.extend_from_slice(pid);
-                            key.extend_from_slice(ekey);
-                            match episode_index.get(&key[..]) {
-                                Some(&x) => x,
-                                None => {
-                                    let x = fresh(&mut episodes, &mut own_all, &mut own_current);
-                                    episode_index.insert(key.as_slice().into(), x);
-                                    if long_episodes {
-                                        keys.push(ekey.into());
-                                    }
-                                    x
-                                }
-                            }
-                        }
-                    };
-                    block_episode.push(e);
-                    let ep = &mut episodes[e as usize];
-                    // The first readable date and age of an episode's rows
-                    // count; a later row giving another one is counted (and
-                    // stops a --strict run).
-                    let day = match r.date {
-                        DateRead::Day(d) => Some(d),
-                        DateRead::Unreadable => {
-                            ep.date_unreadable |= ep.date.is_none();
-                            None
-                        }
-                        DateRead::Missing => None,
-                    };
-                    let iso = |d: i32| {
-                        let mut t = Vec::new();
-                        dates::write_iso_date(d as i64, &mut t);
-                        String::from_utf8_lossy(&t).into_owned()
-                    };
-                    let other_date = keep_first(&mut ep.date, day)
-                        .map(|(first, d)| disagreement("date", iso(d), iso(first)));
-                    let other_age = keep_first(&mut ep.age, r.age)
-                        .map(|(first, a)| disagreement("age", a, first));
-                    let mut other_kept = None;
-                    for j in 0..nkeep {
-                        let (s, t) = b.keep[i * nkeep + j];
-                        let v = &b.ids[s..t];
-                        if v.trim_ascii().is_empty() {
-                            continue;
-                        }
-                        match &kept[e as usize * nkeep + j] {
-                            None => kept[e as usize * nkeep + j] = Some(v.into()),
-                            Some(first) if **first != *v && other_kept.is_none() => {
-                                let name = &h.0.header.names[h.0.keep[j]];
-                                other_kept = Some(disagreement(
-                                    &format!("value of column '{name}'"),
-                                    String::from_utf8_lossy(v),
-                                    String::from_utf8_lossy(first),
-                                ));
-                            }
-                            Some(_) => {}
-                        }
-                    }
-                    if let Some(message) = other_date.or(other_age).or(other_kept) {
-                        if cfg.strict {
-                            return Err(Error::Strict {
-                                line: Some(r.line),
-                                message,
-                            });
-                        }
-                        summary.count_disagreeing(&mut ep.disagrees);
-                    }
-                    let (dst, src) = (e as usize * words, i * words);
-                    for k in 0..words {
-                        own_all[dst + k] |= b.all[src + k];
-                    }
-                    if exclusions {
-                        for k in 0..words {
-                            own_current[dst + k] |= b.cur[src + k];
-                        }
-                    }
-                }
-                if keep_rows {
-                    let bi = raw_blocks.push(b.raw)?;
-                    let mut start = 0u32;
-                    row_spans.extend(b.raw_ends.iter().map(|&x| {
-                        let span = (bi, start, x as u32);
-                        start = x as u32;
-                        span
-                    }));
-                }
-                for mut c in b.codes {
-                    c.episode = block_episode[c.episode as usize];
-                    codes.push(c);
-                }
-                summary.merge(b.summary);
-                b.err.map_or(Ok(()), Err)
-            },
-        )?;
-        summary.dx_columns = plan.dx_names();
-        if plan.date.is_some() {
-            summary.date_format = Some(cfg.date_format.to_string());
-            for ep in &episodes {
-                if ep.date.is_none() {
-                    if ep.date_unreadable {
-                        summary.unreadable_dates += 1;
-                    } else {
-                        summary.missing_dates += 1;
-                    }
-                }
-            }
-            check_unreadable_dates(cfg, &summary, episodes.len() as u64)?;
+        match read_history(engine, cfg, input, needs, None)? {
+            (ReadHistory::Memory(h), s) => Ok((h, s)),
+            (ReadHistory::Spilled(..), _) => Err(Error::data(
+                None,
+                "internal error: a history read in memory was spilled",
+            )),
         }
-        let hist = History {
-            plan,
-            header_raw,
-            patients,
-            episodes,
-            keys,
-            kept,
-            words,
-            own_all,
-            own_current,
-            row_spans,
-            raw_blocks,
-            codes,
-            resolved: false,
-        };
-        Ok((hist, summary))
+    }
+
+    /// Episode `e`'s data row number (1-based, its first record).
+    pub fn row(&self, e: usize) -> u64 {
+        self.rows.get(e).copied().unwrap_or(e as u64 + 1)
+    }
+
+    /// Patient `p`'s id as written.
+    pub fn patient_id(&self, p: u32) -> &[u8] {
+        self.patients.get(p)
     }
 
     /// Episodes in window order: per patient, dated episodes by date, then
     /// undated ones; input order breaks ties.
     pub fn window_order(&self) -> Vec<u32> {
-        // One packed key per episode: patient (32 bits), then 1 bit
-        // "undated", then the date shifted to be non-negative.
-        let mut keyed: Vec<(u64, u32)> = self
-            .episodes
-            .iter()
-            .enumerate()
-            .map(|(e, ep)| {
-                let day = match ep.date {
-                    Some(d) => (d as i64 - i32::MIN as i64) as u64,
-                    None => 1 << 32,
-                };
-                (((ep.patient as u64) << 33) | day, e as u32)
-            })
-            .collect();
-        keyed.sort_unstable();
-        keyed.into_iter().map(|(_, e)| e).collect()
+        // Episodes grouped by patient (a counting sort: patients are
+        // numbered by first appearance, episodes come in input order), then
+        // each patient's sorted by date, undated last (a stable sort keeps
+        // input order among ties).
+        let np = self.patients.len();
+        let mut start = vec![0u32; np + 1];
+        for ep in &self.episodes {
+            start[ep.patient as usize + 1] += 1;
+        }
+        for p in 0..np {
+            start[p + 1] += start[p];
+        }
+        let mut order = vec![0u32; self.episodes.len()];
+        for (e, ep) in self.episodes.iter().enumerate() {
+            let at = &mut start[ep.patient as usize];
+            order[*at as usize] = e as u32;
+            *at += 1;
+        }
+        // `start[p]` is now where patient p's episodes end.
+        let mut from = 0usize;
+        for &end in &start[..np] {
+            let seg = &mut order[from..end as usize];
+            if seg.len() > 1 {
+                seg.sort_by_key(|&e| self.episodes[e as usize].date().map_or(i64::MAX, i64::from));
+            }
+            from = end as usize;
+        }
+        order
     }
 
     /// Replaces every episode's own condition set by the set its windows
@@ -660,7 +997,7 @@ impl History {
         let own_all = &mut self.own_all;
         let own_current = &self.own_current;
         let episodes = &self.episodes;
-        let date = |e: u32| episodes[e as usize].date.map_or(0, i64::from);
+        let date = |e: u32| episodes[e as usize].date().map_or(0, i64::from);
         let mut i = 0;
         while i < n {
             let patient = episodes[sorted[i] as usize].patient;
@@ -688,7 +1025,7 @@ impl History {
             }
             let dated = seg
                 .iter()
-                .take_while(|&&e| episodes[e as usize].date.is_some())
+                .take_while(|&&e| episodes[e as usize].date().is_some())
                 .count();
             for g in &windows.groups {
                 let own = |e: u32| &own_all[e as usize * w..(e as usize + 1) * w];
@@ -762,7 +1099,7 @@ impl History {
         days: Option<u32>,
         scope: WindowScope,
     ) -> Vec<u32> {
-        let (Some(days), Some(d)) = (days, self.episodes[e].date) else {
+        let (Some(days), Some(d)) = (days, self.episodes[e].date()) else {
             return Vec::new();
         };
         let d = d as i64;
@@ -778,7 +1115,7 @@ impl History {
             if ep.patient != patient {
                 break;
             }
-            let Some(x) = ep.date else { break };
+            let Some(x) = ep.date() else { break };
             let x = x as i64;
             let counts = f as usize != e
                 && x >= d - days as i64
@@ -796,7 +1133,11 @@ impl History {
 
     /// Long layout with `--episode`: episode `e`'s value.
     pub fn key(&self, e: usize) -> &[u8] {
-        self.keys.get(e).map_or(&[][..], |k| &k[..])
+        if e < self.keys.len() {
+            self.keys.get(e as u32)
+        } else {
+            &[]
+        }
     }
 
     pub fn words(&self) -> usize {
@@ -814,33 +1155,40 @@ impl History {
     pub fn rows_spilled(&self) -> bool {
         self.raw_blocks.spilled()
     }
+
+    /// The block of `raw_blocks` holding episode `e`'s raw row.
+    fn raw_block(&self, e: usize) -> u32 {
+        (self.raw_first.partition_point(|&f| f as usize <= e) - 1) as u32
+    }
+
+    /// Episode `e`'s raw row (wide layout), from `rows` (loaded blocks
+    /// including its own).
+    fn raw_row<'a>(&self, e: usize, rows: &'a Loaded<'_>) -> &'a [u8] {
+        let b = self.raw_block(e);
+        let s = if e > self.raw_first[b as usize] as usize {
+            self.raw_ends[e - 1]
+        } else {
+            0
+        };
+        rows.slice(b, s, self.raw_ends[e])
+    }
 }
 
-/// Scores from the patient history and writes the output: wide, every row
-/// in input order; long, one row per episode in order of first appearance.
-pub fn score_history(
+/// The output's header line.
+pub(crate) fn header_line(
     engine: &Engine,
     cfg: &ScoreConfig,
-    input: impl Read + Send,
-    output: &mut dyn Write,
-) -> Result<Summary, Error> {
-    let windows = Windows::new(engine, cfg)?;
-    let needs = Needs {
-        codes: false,
-        rows: true,
-    };
-    let (mut hist, mut summary) = History::read(engine, cfg, input, needs)?;
-    hist.resolve(&windows);
-    let hist = hist;
-    let p = &hist.plan;
+    p: &Plan,
+    header_raw: &[u8],
+) -> Result<Vec<u8>, Error> {
     let d = cfg.delimiter;
-    let mut out = Vec::with_capacity(cfg.block_size + 4096);
+    let mut out = Vec::new();
     let eol: &[u8] = if p.crlf { b"\r\n" } else { b"\n" };
     match cfg.layout {
         Layout::Wide => {
             let names: Vec<&str> = p.header.names.iter().map(String::as_str).collect();
             check_collisions(&names, engine)?;
-            out.extend_from_slice(&hist.header_raw);
+            out.extend_from_slice(header_raw);
         }
         Layout::Long => {
             let mut keep = vec![p.header.names[p.id.unwrap_or(0)].as_str()];
@@ -870,38 +1218,116 @@ pub fn score_history(
         write_field(c.name.as_bytes(), d, &mut out);
     }
     out.extend_from_slice(eol);
+    Ok(out)
+}
+
+/// Work space for formatting episodes.
+pub(crate) struct Formatter {
+    bits: Vec<u64>,
+    scratch: Vec<u64>,
+    values: Vec<Value>,
+}
+
+impl Formatter {
+    pub fn new(words: usize) -> Formatter {
+        Formatter {
+            bits: vec![0; words],
+            scratch: vec![0; words],
+            values: Vec::new(),
+        }
+    }
+
+    /// Appends episode `e`'s output line (after [`History::resolve`]):
+    /// wide, its raw row (from `rows`) and values; long, its id, episode
+    /// value, kept values and values.
+    pub fn episode(
+        &mut self,
+        engine: &Engine,
+        cfg: &ScoreConfig,
+        hist: &History,
+        e: usize,
+        rows: &Loaded<'_>,
+        out: &mut Vec<u8>,
+    ) {
+        let p = &hist.plan;
+        let d = cfg.delimiter;
+        let ep = &hist.episodes[e];
+        hist.final_into(engine, e, &mut self.bits, &mut self.scratch);
+        engine.values(&self.bits, ep.age(), &mut self.values);
+        match cfg.layout {
+            Layout::Wide => out.extend_from_slice(hist.raw_row(e, rows)),
+            Layout::Long => {
+                write_field(hist.patient_id(ep.patient), d, out);
+                if p.episode.is_some() {
+                    out.push(d);
+                    write_field(hist.key(e), d, out);
+                }
+                for j in 0..p.keep.len() {
+                    out.push(d);
+                    write_field(hist.kept(e, j), d, out);
+                }
+            }
+        }
+        engine.write_values(&self.values, d, out);
+        out.extend_from_slice(if p.crlf { b"\r\n" } else { b"\n" });
+    }
+}
+
+impl History {
+    /// Raw rows loaded for episodes `range` (wide layout; none in the long
+    /// layout).
+    pub(crate) fn load_rows(
+        &self,
+        cfg: &ScoreConfig,
+        range: std::ops::Range<usize>,
+    ) -> Result<Loaded<'_>, Error> {
+        match cfg.layout {
+            Layout::Wide if !range.is_empty() => self
+                .raw_blocks
+                .load(self.raw_block(range.start), self.raw_block(range.end - 1)),
+            _ => Ok(self.raw_blocks.none()),
+        }
+    }
+}
+
+/// Scores from the patient history and writes the output: wide, every row
+/// in input order; long, one row per episode in order of first appearance.
+/// A history over half of `--memory` is partitioned by patient into
+/// temporary files and scored a partition at a time
+/// ([`super::partition`]).
+pub fn score_history(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    input: impl Read + Send,
+    output: &mut dyn Write,
+) -> Result<Summary, Error> {
+    let windows = Windows::new(engine, cfg)?;
+    let needs = Needs {
+        codes: false,
+        rows: true,
+    };
+    let spill_at = (cfg.memory / 2) as usize;
     let write_err = |e| Error::io("cannot write output", e);
-    output.write_all(&out).map_err(write_err)?;
+    let (mut hist, mut summary) = match read_history(engine, cfg, input, needs, Some(spill_at))? {
+        (ReadHistory::Memory(h), s) => (h, s),
+        (ReadHistory::Spilled(sp, plan, header_raw), mut summary) => {
+            let head = header_line(engine, cfg, &plan, &header_raw)?;
+            sp.finish(engine, cfg, &windows, (plan, &head), &mut summary, output)?;
+            output.flush().map_err(write_err)?;
+            return Ok(summary);
+        }
+    };
+    hist.resolve(&windows);
+    let hist = hist;
+    let head = header_line(engine, cfg, &hist.plan, &hist.header_raw)?;
+    output.write_all(&head).map_err(write_err)?;
     // Episodes are formatted on every core, a round of chunks at a time, and
     // written in order.
     let format_chunk = |range: std::ops::Range<usize>, rows: &Loaded<'_>| -> Vec<u8> {
         let mut out = Vec::with_capacity(range.len() * 128);
-        let mut bits = vec![0u64; hist.words()];
-        let mut scratch = bits.clone();
-        let mut values: Vec<Value> = Vec::new();
+        let mut f = Formatter::new(hist.words());
         for e in range {
-            let ep = &hist.episodes[e];
-            hist.final_into(engine, e, &mut bits, &mut scratch);
-            engine.values(&bits, ep.age, &mut values);
-            match cfg.layout {
-                Layout::Wide => {
-                    let (b, s, t) = hist.row_spans[e];
-                    out.extend_from_slice(rows.slice(b, s, t));
-                }
-                Layout::Long => {
-                    write_field(&hist.patients[ep.patient as usize], d, &mut out);
-                    if p.episode.is_some() {
-                        out.push(d);
-                        write_field(hist.key(e), d, &mut out);
-                    }
-                    for j in 0..p.keep.len() {
-                        out.push(d);
-                        write_field(hist.kept(e, j), d, &mut out);
-                    }
-                }
-            }
-            engine.write_values(&values, d, &mut out);
-            out.extend_from_slice(eol);
+            f.episode(engine, cfg, &hist, e, rows, &mut out);
         }
         out
     };
@@ -914,15 +1340,10 @@ pub fn score_history(
             .map(|t| (start + t * CHUNK).min(n)..(start + (t + 1) * CHUNK).min(n))
             .filter(|r| !r.is_empty())
             .collect();
+        let end = (start + threads * CHUNK).min(n);
         // The raw rows of this round, read back if they wait on disk.
-        let rows = match cfg.layout {
-            Layout::Wide => hist.raw_blocks.load(
-                hist.row_spans[start].0,
-                hist.row_spans[(start + threads * CHUNK).min(n) - 1].0,
-            )?,
-            Layout::Long => hist.raw_blocks.none(),
-        };
-        start = (start + threads * CHUNK).min(n);
+        let rows = hist.load_rows(cfg, start..end)?;
+        start = end;
         let rows = &rows;
         let parts: Option<Vec<Vec<u8>>> = std::thread::scope(|s| {
             let handles: Vec<_> = chunks

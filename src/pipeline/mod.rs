@@ -13,7 +13,9 @@
 pub mod dates;
 pub mod explain;
 pub mod history;
+mod ids;
 mod parallel;
+mod partition;
 pub mod rows_store;
 mod stream;
 
@@ -447,6 +449,12 @@ pub struct Summary {
     pub disagreeing_units: u64,
     /// Codes of episodes being scored left out as their primary diagnosis.
     pub excluded_primary: u64,
+    /// Lookback over the memory limit: episodes (and rows read after the
+    /// limit was reached) written to partition files, and the bytes of
+    /// temporary files written for them (partitions and scored lines);
+    /// 0 when the history fitted in memory.
+    pub spilled_records: u64,
+    pub spilled_bytes: u64,
     /// Codes of episodes being scored left out as not present on admission.
     pub excluded_not_on_admission: u64,
     /// The diagnosis columns read, as resolved from the names and patterns
@@ -524,6 +532,8 @@ impl Summary {
     /// The diagnosis columns are `self`'s (or `later`'s when `self` has none).
     pub fn merge(&mut self, later: Summary) {
         self.rows_read += later.rows_read;
+        self.spilled_records += later.spilled_records;
+        self.spilled_bytes += later.spilled_bytes;
         self.rows_written += later.rows_written;
         self.codes_read += later.codes_read;
         self.invalid_codes += later.invalid_codes;
@@ -791,6 +801,13 @@ impl Summary {
         }
         if self.missing_ids > 0 {
             s.push_str(&format!("; rows without an id: {}", self.missing_ids));
+        }
+        if self.spilled_records > 0 {
+            s.push_str(&format!(
+                "; the history was over half of --memory and went to temporary files, partitioned by patient: {} episodes and rows, {:.1} MB written",
+                self.spilled_records,
+                self.spilled_bytes as f64 / 1e6
+            ));
         }
         if self.excluded_primary > 0 {
             s.push_str(&format!(
@@ -1583,6 +1600,8 @@ mod summary_tests {
             excluded_not_on_admission: 11,
             missing_ids: 12,
             disagreeing_units: 13,
+            spilled_records: 19,
+            spilled_bytes: 20,
             invalid_values: [(b"N/A".to_vec(), 4)].into_iter().collect(),
             unknown_codes: 14,
             unknown_values: [(code("I5O9"), 14)].into_iter().collect(),
@@ -1616,6 +1635,8 @@ mod summary_tests {
         doubled.excluded_not_on_admission *= 2;
         doubled.missing_ids *= 2;
         doubled.disagreeing_units *= 2;
+        doubled.spilled_records *= 2;
+        doubled.spilled_bytes *= 2;
         doubled.invalid_values.insert(b"N/A".to_vec(), 8);
         doubled.unknown_codes *= 2;
         doubled.extended_codes *= 2;

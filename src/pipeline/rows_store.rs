@@ -81,18 +81,12 @@ impl RowStore {
                 std::process::id(),
                 SERIAL.fetch_add(1, Ordering::Relaxed)
             ));
-            let file = std::fs::OpenOptions::new()
-                .read(true)
-                .write(true)
-                .create_new(true)
-                .open(&path)
-                .map_err(|e| {
-                    Error::io(
-                        format!("cannot create a temporary file in {}", self.dir.display()),
-                        e,
-                    )
-                })?;
-            crate::io::atomic::register_working_file(&path);
+            let file = crate::io::atomic::create_working_file(&path).map_err(|e| {
+                Error::io(
+                    format!("cannot create a temporary file in {}", self.dir.display()),
+                    e,
+                )
+            })?;
             self.file = Some(TempFile { file, path, len: 0 });
         }
         let t = self.file.as_mut().expect("created above");
