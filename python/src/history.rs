@@ -697,9 +697,9 @@ pub(crate) fn score_history<'py>(
             let mut values: Vec<Value> = Vec::new();
             for (e, ep) in hist.episodes.iter().enumerate() {
                 hist.final_into(engine, e, &mut bits, &mut scratch);
-                engine.values(&bits, ep.age, &mut values);
+                engine.values(&bits, ep.age(), &mut values);
                 out.push(engine, &values);
-                first.push(ep.row as i64 - 1);
+                first.push(hist.row(e) as i64 - 1);
             }
             summary.rows_written += n as u64;
             summary.units += n as u64;
