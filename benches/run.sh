@@ -14,6 +14,12 @@
 #                                           # and all) against the ordinary extract
 #   SIZES=10000000 SCENARIOS=history-ratio bash benches/run.sh
 #                                           # 365-day lookback against plain scoring
+#   SIZES=30000000 SCENARIOS=spill bash benches/run.sh
+#                                           # 730-day lookback within --memory
+#                                           # (SPILL_MEMORY, default 1GiB) against
+#                                           # the same run held in memory; the
+#                                           # partitions go to $DATA, the output
+#                                           # to /dev/null
 set -euo pipefail
 cd "$(dirname "$0")/.."
 RUNS=${RUNS:-3}
@@ -94,6 +100,13 @@ for n in $SIZES; do
         row "score, wide, no lookback" "$n" "$plain" "$pm" "$floor"
         read -r t m < <(best_of $MORBUS score "$wide" --dx 'dx*' --id patient_id --date admission_date --lookback 365 -q -o "$DATA/out.csv")
         row "365-day lookback (ratio: to above)" "$n" "$t" "$m" "$plain"
+        ;;
+      spill)
+        lb=(--dx 'dx*' --id patient_id --date admission_date --lookback 730 -q -o /dev/null)
+        read -r base bm < <(best_of $MORBUS score "$wide" "${lb[@]}" --memory 64GiB)
+        row "730-day lookback, in memory" "$n" "$base" "$bm" "$floor"
+        read -r t m < <(best_of $MORBUS score "$wide" "${lb[@]}" --memory "${SPILL_MEMORY:-1GiB}" --temp-dir "$DATA")
+        row "730-day lookback, --memory ${SPILL_MEMORY:-1GiB} (ratio: to above)" "$n" "$t" "$m" "$base"
         ;;
       explain)
         if [ "$n" -le 1000000 ]; then

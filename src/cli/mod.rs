@@ -380,9 +380,11 @@ struct InputArgs {
     /// Do not print the summary or the progress line on standard error.
     #[arg(long, short)]
     quiet: bool,
-    /// Memory budget of a run that holds the extract (--lookback, --episode, --keep):
+    /// Memory limit of a run that holds the extract (--lookback, --episode, --keep):
     /// the wide layout's input rows, kept for the output, take at most half of it in
-    /// memory and the rest waits in a temporary file (e.g. 512MiB, 2GiB).
+    /// memory and the rest waits in a temporary file; a `score` history over the other
+    /// half is partitioned by patient into temporary files and scored a partition at a
+    /// time, with the same output (e.g. 512MiB, 2GiB).
     #[arg(long, value_name = "LIMIT", default_value = "1GiB")]
     memory: String,
     /// Directory for temporary files (default: the system's).

@@ -168,7 +168,9 @@ pub struct ScoreConfig {
     pub keep: Vec<String>,
     /// Memory budget in bytes of a run that holds the extract (`--memory`):
     /// the wide layout's raw rows take at most half of it in memory, the
-    /// rest waits in a temporary file.
+    /// rest waits in a temporary file; a `score` history over the other
+    /// half is partitioned by patient into temporary files
+    /// (`pipeline/partition.rs`).
     pub memory: u64,
     /// Directory of temporary files (`None`: the system's).
     pub temp_dir: Option<std::path::PathBuf>,
