@@ -831,7 +831,7 @@ pub(crate) fn read_history(
                 spill_at
                     .is_some_and(|limit| hb.heap_bytes() + raw_ends.capacity() * 4 + coming > limit)
             }) {
-                let mut sp = Spill::new(cfg, &temp_dir, words, nkeep, exclusions, keep_rows)?;
+                let mut sp = Spill::new(&temp_dir, words, nkeep, exclusions, keep_rows)?;
                 let n = hb.episodes();
                 let mut e = 0;
                 for bi in 0..raw_first.len() {

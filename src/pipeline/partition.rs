@@ -112,7 +112,6 @@ fn put_bytes(rec: &mut Vec<u8>, b: &[u8]) {
 impl Spill {
     /// Creates the partition files in `dir`.
     pub fn new(
-        _cfg: &ScoreConfig,
         dir: &Path,
         words: usize,
         nkeep: usize,
