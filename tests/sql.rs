@@ -357,3 +357,42 @@ fn a_date_column_brings_the_unreadable_dates_stop() {
         .stdout
         .contains("CREATE FUNCTION \"s\".\"scored_stop\"(message TEXT)"));
 }
+
+#[test]
+fn order_by_is_checked_and_postgres_without_it_warns() {
+    let r = sql(&["--dx", "dx1", "--columns", "id,dx1", "--order-by", "row_no"]);
+    assert_eq!(r.code, 2);
+    assert!(
+        r.stderr
+            .contains("--order-by column 'row_no' not found; columns in the input: id, dx1"),
+        "{}",
+        r.stderr
+    );
+    let r = sql(&["--dx", "dx1", "--order-by", "id,dx1"]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    assert!(r
+        .stdout
+        .contains("ROW_NUMBER() OVER (ORDER BY t.\"id\", t.\"dx1\") AS morbus_row"));
+    let pg = [
+        "sql",
+        "--dialect",
+        "postgres",
+        "--table",
+        "t",
+        "--dx",
+        "dx1",
+    ];
+    let r = morbus(&pg);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    assert!(
+        r.stderr.contains("PostgreSQL keeps no row order"),
+        "{}",
+        r.stderr
+    );
+    assert!(r.stdout.contains("ROW_NUMBER() OVER (ORDER BY t.ctid)"));
+    let mut with = pg.to_vec();
+    with.extend(["--order-by", "id"]);
+    let r = morbus(&with);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    assert!(r.stderr.is_empty(), "{}", r.stderr);
+}

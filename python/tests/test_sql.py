@@ -141,7 +141,8 @@ def read_header(path: Path) -> List[str]:
 
 class Engine:
     name = ""
-    #: Whether a loaded table gives its rows back in load order.
+    #: Whether the scripts' rows come back in the order of the file loaded
+    #: (all three: PostgreSQL's scripts are given --order-by).
     ordered = True
 
     def load(self, table: str, path: Path) -> None:
@@ -233,7 +234,6 @@ class Postgres(Engine):
     `stop`. As root, the server runs as the `postgres` user (or `nobody`)."""
 
     name = "postgres"
-    ordered = False
 
     def __init__(self) -> None:
         bindir = postgres_bin()
@@ -368,11 +368,18 @@ def score_cli(run_cli, path: Path, args: Sequence[str]) -> Tuple[List[str], List
     return _SCORED[key]
 
 
-def sql_script(run_cli, dialect: str, table: str, args: Sequence[str]) -> str:
+def sql_script(run_cli, dialect: str, table: str, args: Sequence[str], order: bool = True) -> str:
     # As in `score_cli`: the comparisons of scores let every date be
     # unreadable (the stop itself is tested in test_unreadable_dates_*).
     if "--max-unreadable-dates" not in args:
         args = [*args, "--max-unreadable-dates", "100"]
+    # PostgreSQL keeps no load order (a COPY may store a later row on an
+    # earlier page): its scripts are given the columns of the extract's
+    # order, whose episode ids are in file order, so that every comparison
+    # is row by row. Without --order-by it numbers rows by ctid (tested in
+    # test_order_by_gives_the_extract_order).
+    if order and dialect == "postgres" and "--order-by" not in args and table != "typed":
+        args = [*args, "--order-by", "episode_id,position" if "long" in table else "episode_id"]
     code, out, err = run_cli(["sql", "--dialect", dialect, "--table", table, *args])
     assert code == 0, err
     return out
@@ -728,3 +735,45 @@ def test_date_format(engine, data, run_cli, tmp_path, pattern):
     assert code == 1
     got = run_error(engine, sql_script(run_cli, engine.name, name, [*args, "--max-unreadable-dates", "0.1"]))
     assert got is not None and err.removeprefix("morbus: error: ") in got
+
+
+# ---------------------------------------------------------------------------
+# Row order: without --order-by, the table's own order (load order here, in
+# all three engines: every comparison above is row by row); with it, the
+# order of the columns named, whatever order the table holds its rows in.
+
+
+def shuffled_copy(src: Path, path: Path, seed: int = 77) -> Path:
+    with open(src, newline="", encoding="utf-8") as f:
+        rows = list(csv.reader(f))
+    body = rows[1:]
+    random.Random(seed).shuffle(body)
+    with open(path, "w", newline="", encoding="utf-8") as g:
+        csv.writer(g).writerows([rows[0], *body])
+    return path
+
+
+@pytest.mark.parametrize(
+    "dataset,args,order",
+    [
+        ("messy_wide", ["--dx", DX10, "--id", "patient_id", "--date", "admission_date", "--lookback", "365", "--age", "age"], "episode_id"),
+        (
+            "messy_long",
+            ["--layout", "long", "--id", "patient_id", "--episode", "episode_id", "--dx", "code", "--date", "admission_date", "--lookback", "all"],
+            "episode_id,position",
+        ),
+    ],
+    ids=["wide", "long"],
+)
+def test_order_by_gives_the_extract_order(engine, data, run_cli, tmp_path, dataset, args, order):
+    """The rows loaded in a shuffled order; --order-by names the columns that
+    give the extract's order (its episode ids are in file order): the output
+    equals `score` on the original file row by row."""
+    name = f"{dataset}_shuffled"
+    engine.load(name, shuffled_copy(data[dataset], tmp_path / f"{name}.csv"))
+    cli = score_cli(run_cli, data[dataset], args)
+    got = engine.run(sql_script(run_cli, engine.name, name, [*args, "--order-by", order]))
+    check_equal(cli, got, score_columns(cli[0]), ordered=True)
+    # Without it the rows come in the shuffled table's order: not the file's.
+    plain = engine.run(sql_script(run_cli, engine.name, name, args, order=False))
+    assert [r[0] for r in plain[1]] != [r[0] for r in cli[1]]

@@ -88,9 +88,12 @@ file: same lists (created as tables by the script, from the catalogue including 
 same code reading, exclusions, lookback, hierarchies, weights, age points and bands. A header \
 comment records the morbus version, every list's version and checksum, and the options.
 
-Dates are read from a date or timestamp column, or from text starting YYYY-MM-DD. In the wide \
-layout the output is every row of the table with its columns, then the score columns; without \
---columns, SQLite needs a table (its rowid) rather than a view.
+Dates are read from a date or timestamp column, from text starting YYYY-MM-DD, or from text \
+in the --date-format pattern; more than --max-unreadable-dates percent unreadable stops the \
+query with the message `score` gives. In the wide layout the output is every row of the table \
+with its columns, then the score columns, in the table's order (--order-by COLS for an \
+explicit one); without --columns, SQLite needs a table (its rowid), and without --order-by, \
+PostgreSQL needs a table (its ctid) rather than a view.
 
 Example: morbus sql --dialect postgres --table episodes --dx dx1,dx2,dx3 --age age \
 --id patient_id --date admitted --lookback 365 --create view scored_episodes | psql")]
@@ -180,6 +183,11 @@ struct SqlArgs {
     /// Drop an existing view or table NAME (and a view's list tables) first.
     #[arg(long)]
     replace: bool,
+    /// Columns that put the rows in the extract's order, comma-separated (e.g. episode_id):
+    /// rows are numbered and the output ordered by them. Without it: SQLite's rowid,
+    /// PostgreSQL's ctid (a table, not a view), DuckDB's scan order.
+    #[arg(long, value_name = "COLS")]
+    order_by: Option<String>,
     /// Write the script to this file instead of standard output.
     #[arg(long, short, value_name = "PATH")]
     output: Option<PathBuf>,
@@ -1204,8 +1212,25 @@ no summary (run `morbus score --edition {e}` on a sample to see those counts)"
         columns,
         output,
         replace: a.replace,
+        order_by: a
+            .order_by
+            .as_deref()
+            .map(|c| {
+                c.split(',')
+                    .map(|n| n.trim().to_string())
+                    .filter(|n| !n.is_empty())
+                    .collect()
+            })
+            .unwrap_or_default(),
     };
     let script = morbus::sql::generate(&engine, &opts)?;
+    if opts.dialect == morbus::sql::Dialect::Postgres && opts.order_by.is_empty() && !a.quiet {
+        eprintln!(
+            "morbus: warning: PostgreSQL keeps no row order: without --order-by the rows are \
+numbered and given in the order they are stored (ctid), which need not be the order they were \
+loaded in; give --order-by COLS (e.g. episode_id) for the extract's order"
+        );
+    }
     match &a.output {
         None => {
             let mut out = morbus::io::atomic::stdout();

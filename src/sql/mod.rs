@@ -64,6 +64,11 @@ pub struct SqlOptions {
     pub output: SqlOutput,
     /// Drop an existing output (and its list tables) first.
     pub replace: bool,
+    /// Columns that put the rows in the extract's order (`--order-by`):
+    /// the rows are numbered, and the output ordered, by them. Empty: the
+    /// order the table gives (SQLite's rowid, PostgreSQL's ctid, DuckDB's
+    /// scan order).
+    pub order_by: Vec<String>,
 }
 
 /// The columns a script reads, resolved.
@@ -207,6 +212,7 @@ struct Step {
 ///     columns: None,
 ///     output: SqlOutput::Query,
 ///     replace: false,
+///     order_by: Vec::new(),
 /// };
 /// let script = generate(&engine, &opts).unwrap();
 /// assert!(script.contains("AS \"charlson_quan2011\""));
@@ -216,6 +222,14 @@ pub fn generate(engine: &Engine, opts: &SqlOptions) -> Result<String, Error> {
     // The lists' windows, checked as `score` checks them.
     let windows = crate::pipeline::history::Windows::new(engine, cfg)?;
     let cols = resolve_columns(opts)?;
+    if let Some(all) = &cols.all {
+        if let Some(c) = opts.order_by.iter().find(|c| !all.contains(c)) {
+            return Err(Error::Usage(format!(
+                "--order-by column '{c}' not found; columns in the input: {}",
+                all.join(", ")
+            )));
+        }
+    }
     if let Some(all) = &cols.all {
         let names: Vec<&str> = match cfg.layout {
             Layout::Wide => all.iter().map(String::as_str).collect(),
@@ -711,17 +725,43 @@ fn steps(
     };
 
     // 1. Rows, numbered in the table's order.
+    let (over, order_rule) = if !opts.order_by.is_empty() {
+        let by: Vec<String> = opts
+            .order_by
+            .iter()
+            .map(|c| format!("t.{}", quote_ident(c)))
+            .collect();
+        (
+            format!("ORDER BY {}", by.join(", ")),
+            format!("in the order of {} (--order-by)", opts.order_by.join(", ")),
+        )
+    } else if d == Dialect::Postgres {
+        (
+            "ORDER BY t.ctid".to_string(),
+            "in the order they are stored (ctid: the load order of a table\nloaded and not updated since)".to_string(),
+        )
+    } else {
+        (
+            String::new(),
+            "in the order the table gives them".to_string(),
+        )
+    };
     let numbering = match (wide, row_source(opts, cols)) {
-        (true, RowSource::Rowid) => "t.rowid AS morbus_row, t.*".to_string(),
-        (true, RowSource::Composite) => {
-            "ROW_NUMBER() OVER () AS morbus_row, t AS morbus_source, t.*".to_string()
+        (true, RowSource::Rowid) if opts.order_by.is_empty() => {
+            "t.rowid AS morbus_row, t.*".to_string()
         }
-        _ => "ROW_NUMBER() OVER () AS morbus_row, t.*".to_string(),
+        (true, RowSource::Rowid) => {
+            format!("ROW_NUMBER() OVER ({over}) AS morbus_row, t.rowid AS morbus_rowid, t.*")
+        }
+        (true, RowSource::Composite) => {
+            format!("ROW_NUMBER() OVER ({over}) AS morbus_row, t AS morbus_source, t.*")
+        }
+        _ => format!("ROW_NUMBER() OVER ({over}) AS morbus_row, t.*"),
     };
     step(
         "source_rows",
         &format!(
-            "Step 1. The rows of {}, numbered in the order the table gives them\n\
+            "Step 1. The rows of {}, numbered {order_rule}\n\
 (computed once, so that every later step sees the same numbers).",
             opts.table
         ),
@@ -1362,12 +1402,19 @@ fn final_select(engine: &Engine, opts: &SqlOptions, cols: &Columns, number: usiz
             }
         }
         match row_source(opts, cols) {
-            RowSource::Rowid => (
+            RowSource::Rowid if opts.order_by.is_empty() => (
                 format!(
                     "FROM {} AS r\nJOIN unit_totals AS t ON t.unit = r.rowid",
                     quote_name(&opts.table)
                 ),
                 "ORDER BY r.rowid",
+            ),
+            RowSource::Rowid => (
+                format!(
+                    "FROM {} AS r\nJOIN source_rows AS n ON n.morbus_rowid = r.rowid\nJOIN unit_totals AS t ON t.unit = n.morbus_row",
+                    quote_name(&opts.table)
+                ),
+                "ORDER BY n.morbus_row",
             ),
             _ => (
                 "FROM source_rows AS r\nJOIN unit_totals AS t ON t.unit = r.morbus_row".to_string(),
