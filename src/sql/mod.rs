@@ -909,7 +909,7 @@ episodes' lookback)."
             "diagnosis_values",
             &format!("Step 4. The non-empty values.{primary_note}"),
             format!(
-                "SELECT unit, position, 1 AS part_number, field AS value,\n  {} AS counts_now\nFROM diagnosis_fields",
+                "SELECT unit, field AS value,\n  {} AS counts_now\nFROM diagnosis_fields",
                 primary_rule.replace("part_number", "1")
             ),
             true,
@@ -935,7 +935,7 @@ FROM diagnosis_parts\nWHERE rest IS NOT NULL"
                     "diagnosis_values",
                     &format!("Step 4b. The parts.{primary_note}"),
                     format!(
-                        "SELECT unit, position, part_number, value,\n  {primary_rule} AS counts_now\nFROM diagnosis_parts"
+                        "SELECT unit, value,\n  {primary_rule} AS counts_now\nFROM diagnosis_parts"
                     ),
                     true,
                 );
@@ -944,7 +944,7 @@ FROM diagnosis_parts\nWHERE rest IS NOT NULL"
                     "diagnosis_values",
                     &format!("Step 4. Each field split at {sep} into its parts.{primary_note}"),
                     format!(
-                        "SELECT f.unit, f.position, p.part_number, p.part AS value,\n  {} AS counts_now\nFROM diagnosis_fields AS f\n{}\nWHERE f.field IS NOT NULL AND f.field <> ''",
+                        "SELECT f.unit, p.part AS value,\n  {} AS counts_now\nFROM diagnosis_fields AS f\n{}\nWHERE f.field IS NOT NULL AND f.field <> ''",
                         primary_rule
                             .replace("position", "f.position")
                             .replace("part_number", "p.part_number")
@@ -965,13 +965,20 @@ FROM diagnosis_parts\nWHERE rest IS NOT NULL"
             format!("replace({acc}, {m}, '')")
         });
     step(
+        "distinct_values",
+        "Step 5. Each distinct value once: codes are read and matched per value, not\n\
+per field (an extract repeats the same few thousand values).",
+        "SELECT DISTINCT value\nFROM diagnosis_values".into(),
+        false,
+    );
+    step(
         "value_marks",
         "Step 5. Code reading, marks (as src/code.rs): dots, spaces, tabs, the dagger\n\
 and asterisk marks (U+2020, +, *) are dropped anywhere; a '-' only at the end\n\
 (followed by nothing but '-', spaces and tabs); a value longer than 64 bytes\n\
 is not a code.",
         format!(
-            "SELECT unit, counts_now,\n  {strip} AS letters,\n  CASE WHEN {} <= 64\n        AND ({} = 0 OR rtrim(substr(value, {}), '-' || ' ' || {}) = '')\n       THEN 1 ELSE 0 END AS marks_ok\nFROM diagnosis_values",
+            "SELECT value,\n  {strip} AS letters,\n  CASE WHEN {} <= 64\n        AND ({} = 0 OR rtrim(substr(value, {}), '-' || ' ' || {}) = '')\n       THEN 1 ELSE 0 END AS marks_ok\nFROM distinct_values",
             d.byte_length("value"),
             d.position("value", "'-'"),
             d.position("value", "'-'"),
@@ -985,7 +992,7 @@ is not a code.",
 an invalid code and scores nothing; nothing at all is an empty field),\n\
 read in upper case.",
         format!(
-            "SELECT unit, counts_now, upper(letters) AS code_text\nFROM value_marks\nWHERE marks_ok = 1\n  AND length(letters) BETWEEN 1 AND 7\n  AND {}",
+            "SELECT value, upper(letters) AS code_text\nFROM value_marks\nWHERE marks_ok = 1\n  AND length(letters) BETWEEN 1 AND 7\n  AND {}",
             d.only_chars("letters", "A-Za-z0-9")
         ),
         true,
@@ -995,7 +1002,7 @@ read in upper case.",
         "Step 7. An X filler after the three-character category is dropped (I10X is\n\
 I10); the code must then be ICD-10-shaped: at least 3 characters, a letter,\n\
 a digit, then a digit or a letter.",
-        "SELECT unit, counts_now, code\nFROM (\n  SELECT unit, counts_now,\n    CASE WHEN length(code_text) > 3 AND rtrim(substr(code_text, 4), 'X') = ''\n         THEN substr(code_text, 1, 3) ELSE code_text END AS code\n  FROM value_codes\n) AS c\nWHERE length(code) >= 3\n  AND substr(code, 1, 1) BETWEEN 'A' AND 'Z'\n  AND substr(code, 2, 1) BETWEEN '0' AND '9'\n  AND (substr(code, 3, 1) BETWEEN '0' AND '9' OR substr(code, 3, 1) BETWEEN 'A' AND 'Z')"
+        "SELECT value, code\nFROM (\n  SELECT value,\n    CASE WHEN length(code_text) > 3 AND rtrim(substr(code_text, 4), 'X') = ''\n         THEN substr(code_text, 1, 3) ELSE code_text END AS code\n  FROM value_codes\n) AS c\nWHERE length(code) >= 3\n  AND substr(code, 1, 1) BETWEEN 'A' AND 'Z'\n  AND substr(code, 2, 1) BETWEEN '0' AND '9'\n  AND (substr(code, 3, 1) BETWEEN '0' AND '9' OR substr(code, 3, 1) BETWEEN 'A' AND 'Z')"
             .to_string(),
         true,
     );
@@ -1011,13 +1018,20 @@ a digit, then a digit or a letter.",
         false,
     );
     step(
-        "code_conditions",
-        "Step 9. The conditions each code claims: a prefix of the code equals a listed\n\
-prefix (I50 claims I509 and I5091).",
+        "value_conditions",
+        "Step 9. The conditions each value's code claims: a prefix of the code equals a\n\
+listed prefix (I50 claims I509 and I5091).",
         format!(
-            "SELECT c.unit, p.list_name, p.condition_key, c.counts_now\nFROM valid_codes AS c\nJOIN prefix_lengths AS l ON l.prefix_length <= length(c.code)\nJOIN {} AS p ON p.prefix = substr(c.code, 1, l.prefix_length)",
+            "SELECT c.value, p.list_name, p.condition_key\nFROM valid_codes AS c\nJOIN prefix_lengths AS l ON l.prefix_length <= length(c.code)\nJOIN {} AS p ON p.prefix = substr(c.code, 1, l.prefix_length)",
             t.prefixes
         ),
+        true,
+    );
+    step(
+        "code_conditions",
+        "Step 9b. The conditions of each unit's fields, through their values.",
+        "SELECT v.unit, c.list_name, c.condition_key, v.counts_now\nFROM diagnosis_values AS v\nJOIN value_conditions AS c ON c.value = v.value"
+            .into(),
         cfg.uses_history(),
     );
 
