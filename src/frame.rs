@@ -55,35 +55,7 @@ use crate::pipeline::{DateFormat, Header, Layout, ScoreConfig, Summary};
 use crate::score::{ColumnKind, Engine, Value};
 use crate::Error;
 
-/// What a column holds, as a whole.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum Kind {
-    Text,
-    /// Whole numbers.
-    Integer,
-    /// Floating-point numbers.
-    Number,
-    /// True/false.
-    Logical,
-    /// Dates (days since 1970-01-01).
-    Date,
-    /// Anything else (the binding names it in [`Columns::type_name`]).
-    Other,
-}
-
-/// One value of a column.
-#[derive(Clone, Copy, Debug, PartialEq)]
-pub enum Field<'a> {
-    /// Missing (`NA`, `None`, null).
-    Null,
-    Text(&'a [u8]),
-    Integer(i64),
-    /// NaN counts as missing.
-    Number(f64),
-    Logical(bool),
-    /// Days since 1970-01-01.
-    Date(i64),
-}
+pub use crate::rows::{Field, Kind};
 
 /// A data frame as the scorer reads it. Columns are numbered as in the
 /// [`Header`] given with it; rows from 0.
