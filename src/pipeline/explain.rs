@@ -2,7 +2,7 @@
 //! where the code came from and whether it counted, and a total row per
 //! episode and index.
 
-use std::io::{Read, Write};
+use std::io::Write;
 
 use super::history::{CodeRecord, History, Needs, Windows};
 use super::{Exclusion, ScoreConfig, Summary, WindowScope};
@@ -235,12 +235,12 @@ pub fn explain_history(
     Ok(())
 }
 
-/// Runs `explain` over an extract.
-pub fn explain_stream(
+/// Runs `explain` over an extract (text, or typed rows).
+pub fn explain_stream<'a>(
     engine: &Engine,
     cfg: &ScoreConfig,
     format: ExplainFormat,
-    input: impl Read + Send,
+    input: impl Into<super::history::Input<'a>>,
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
     let windows = Windows::new(engine, cfg)?;

@@ -910,10 +910,10 @@ impl History {
 
 /// Scores from the patient history and writes the output: wide, every row
 /// in input order; long, one row per episode in order of first appearance.
-pub fn score_history(
+pub fn score_history<'a>(
     engine: &Engine,
     cfg: &ScoreConfig,
-    input: impl Read + Send,
+    input: impl Into<Input<'a>>,
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
     let windows = Windows::new(engine, cfg)?;

@@ -1552,18 +1552,39 @@ pub fn score_stream(
 }
 
 /// [`score_stream`], calling `progress` as blocks are written.
-pub fn score_stream_observed(
+///
+/// Typed rows ([`history::Input::Rows`]) are for runs that
+/// [read rows typed](reads_rows_typed).
+pub fn score_stream_observed<'a>(
     engine: &Engine,
     cfg: &ScoreConfig,
-    input: impl Read + Send,
+    input: impl Into<history::Input<'a>>,
     output: &mut dyn Write,
     progress: &mut dyn FnMut(Progress),
 ) -> Result<Summary, Error> {
-    if cfg.uses_history() || cfg.episode.is_some() || !cfg.keep.is_empty() {
-        history::score_history(engine, cfg, input, output)
-    } else {
-        stream::score_plain(engine, cfg, input, output, progress)
+    if reads_history(cfg) {
+        return history::score_history(engine, cfg, input, output);
     }
+    match input.into() {
+        history::Input::Text(input) => stream::score_plain(engine, cfg, input, output, progress),
+        history::Input::Rows(_) => Err(Error::Usage(
+            "typed rows are read by runs with a history only (--lookback, --episode, --keep)"
+                .into(),
+        )),
+    }
+}
+
+/// Whether `score` reads the extract into a history (lookback, episodes,
+/// kept columns) rather than streaming it.
+pub fn reads_history(cfg: &ScoreConfig) -> bool {
+    cfg.uses_history() || cfg.episode.is_some() || !cfg.keep.is_empty()
+}
+
+/// Whether `score` can read the extract as typed rows (a Parquet input's
+/// record batches): a history run whose output does not copy the input's
+/// rows (the long layout). Other runs read text.
+pub fn reads_rows_typed(cfg: &ScoreConfig) -> bool {
+    reads_history(cfg) && cfg.layout == Layout::Long
 }
 
 #[cfg(test)]
