@@ -921,6 +921,13 @@ pub fn score_history<'a>(
         codes: false,
         rows: true,
     };
+    let input = input.into();
+    if matches!(input, Input::Rows(_)) && cfg.layout == Layout::Wide {
+        // The wide output copies each input row's text.
+        return Err(Error::Usage(
+            "the wide layout's output copies the input's rows as text: give it text (typed rows are for the long layout and explain)".into(),
+        ));
+    }
     let (mut hist, mut summary) = History::read(engine, cfg, input, needs)?;
     hist.resolve(&windows);
     let hist = hist;

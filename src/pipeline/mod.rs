@@ -18,7 +18,7 @@ pub mod rows_store;
 mod stream;
 
 use std::collections::HashMap;
-use std::io::{Read, Write};
+use std::io::Write;
 
 use crate::code::{Code, Reading};
 pub use crate::editions::{Edition, Existence};
@@ -1542,10 +1542,10 @@ pub(crate) fn check_collisions(names: &[&str], engine: &Engine) -> Result<(), Er
 /// Scores an extract read from `input`, writing the enriched extract to
 /// `output`: streaming when no lookback is asked for, from the patient
 /// history otherwise.
-pub fn score_stream(
+pub fn score_stream<'a>(
     engine: &Engine,
     cfg: &ScoreConfig,
-    input: impl Read + Send,
+    input: impl Into<history::Input<'a>>,
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
     score_stream_observed(engine, cfg, input, output, &mut |_| {})
