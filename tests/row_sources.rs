@@ -543,8 +543,9 @@ fn check_scores(engine: &Engine, t: &Table, pq: &Path, what: &str, cfg: &ScoreCo
     let names: Vec<&str> = engine.columns().iter().map(|c| c.name.as_str()).collect();
     assert_eq!(head, names, "{what}");
 
-    // Parquet, as the command line reads it: typed rows for the long
-    // layout, text for the wide one (whose output copies the rows).
+    // Parquet, as the command line reads it for a CSV output: typed rows
+    // for the long layout, text for the wide one (whose output copies the
+    // rows).
     let mut pq_out = Vec::new();
     let pq_summary = match cfg.layout {
         Layout::Long => score_stream(engine, cfg, typed_rows(pq), &mut pq_out),
@@ -566,6 +567,17 @@ fn check_scores(engine: &Engine, t: &Table, pq: &Path, what: &str, cfg: &ScoreCo
             records(out).iter().map(|r| r[..k].to_vec()).collect()
         };
         assert_eq!(ids(&pq_out), ids(&text_out), "{what}: Parquet units");
+    }
+
+    if cfg.layout == Layout::Wide {
+        // Typed, as a Parquet output of a Parquet input reads it: the
+        // output holds the scores only (the input's columns are copied by
+        // the Parquet writer).
+        let mut typed_out = Vec::new();
+        let typed_summary = score_stream(engine, cfg, typed_rows(pq), &mut typed_out).unwrap();
+        assert_eq!(records(&typed_out)[0], head, "{what}: typed wide header");
+        assert_eq!(score_cells(&typed_out, n).1, text_rows, "{what}: typed wide");
+        assert_eq!(typed_summary, text_summary, "{what}: typed wide summary");
     }
 
     // The frame.

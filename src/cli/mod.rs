@@ -831,7 +831,10 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         )?;
         let show = !a.input.quiet && std::io::stderr().is_terminal();
         let mut bar = progress::ProgressLine::new(input.size).with_rows(input.rows);
-        let rows = if pipeline::reads_rows_typed(&cfg) {
+        // A wide Parquet output of a Parquet input copies the input's own
+        // columns from the file: the pipeline only adds the scores.
+        let copied = parquet_out && input.is_parquet();
+        let rows = if pipeline::reads_rows_typed(&cfg, copied) {
             input.take_input()?
         } else {
             input.take_reader().into()

@@ -122,8 +122,9 @@ impl Extract {
     }
 
     /// The input for a run that reads it through the history reader
-    /// without copying its rows to the output (`explain`, the long layout
-    /// with a history; see [`crate::pipeline::reads_rows_typed`]): a
+    /// without copying its rows as text (`explain`, history runs of the long
+    /// layout or with a Parquet output; see
+    /// [`crate::pipeline::reads_rows_typed`]): a
     /// Parquet input's typed rows ([`parquet::ParquetRows`]: no text is made
     /// of them), or the text (once; later calls give nothing).
     pub fn take_input(&mut self) -> Result<Input<'static>, Error> {
@@ -138,6 +139,14 @@ impl Extract {
             return Ok(Input::Rows(Box::new(rows)));
         }
         Ok(Input::Text(self.take_reader()))
+    }
+
+    /// Whether the input is a Parquet file.
+    pub fn is_parquet(&self) -> bool {
+        #[cfg(feature = "parquet")]
+        return self.parquet.is_some();
+        #[cfg(not(feature = "parquet"))]
+        false
     }
 
     /// An error of the run, with rows instead of lines for a Parquet input.

@@ -922,12 +922,10 @@ pub fn score_history<'a>(
         rows: true,
     };
     let input = input.into();
-    if matches!(input, Input::Rows(_)) && cfg.layout == Layout::Wide {
-        // The wide output copies each input row's text.
-        return Err(Error::Usage(
-            "the wide layout's output copies the input's rows as text: give it text (typed rows are for the long layout and explain)".into(),
-        ));
-    }
+    // Typed rows in the wide layout: there is no row text to copy; the
+    // output holds the score columns only, and the caller puts the input's
+    // own columns in front (a Parquet output copies them from the input).
+    let scores_only = matches!(input, Input::Rows(_)) && cfg.layout == Layout::Wide;
     let (mut hist, mut summary) = History::read(engine, cfg, input, needs)?;
     hist.resolve(&windows);
     let hist = hist;
@@ -939,7 +937,9 @@ pub fn score_history<'a>(
         Layout::Wide => {
             let names: Vec<&str> = p.header.names.iter().map(String::as_str).collect();
             check_collisions(&names, engine)?;
-            out.extend_from_slice(&hist.header_raw);
+            if !scores_only {
+                out.extend_from_slice(&hist.header_raw);
+            }
         }
         Layout::Long => {
             let mut keep = vec![p.header.names[p.id.unwrap_or(0)].as_str()];
@@ -964,8 +964,10 @@ pub fn score_history<'a>(
             }
         }
     }
-    for c in engine.columns() {
-        out.push(d);
+    for (i, c) in engine.columns().iter().enumerate() {
+        if i > 0 || !scores_only {
+            out.push(d);
+        }
         write_field(c.name.as_bytes(), d, &mut out);
     }
     out.extend_from_slice(eol);
@@ -983,6 +985,7 @@ pub fn score_history<'a>(
             hist.final_into(engine, e, &mut bits, &mut scratch);
             engine.values(&bits, ep.age, &mut values);
             match cfg.layout {
+                Layout::Wide if scores_only => {}
                 Layout::Wide => {
                     let (b, s, t) = hist.row_spans[e];
                     out.extend_from_slice(rows.slice(b, s, t));
@@ -999,7 +1002,12 @@ pub fn score_history<'a>(
                     }
                 }
             }
+            let at = out.len();
             engine.write_values(&values, d, &mut out);
+            if scores_only && out.len() > at {
+                // No column before the first score.
+                out.remove(at);
+            }
             out.extend_from_slice(eol);
         }
         out
@@ -1015,6 +1023,7 @@ pub fn score_history<'a>(
             .collect();
         // The raw rows of this round, read back if they wait on disk.
         let rows = match cfg.layout {
+            Layout::Wide if scores_only => hist.raw_blocks.none(),
             Layout::Wide => hist.raw_blocks.load(
                 hist.row_spans[start].0,
                 hist.row_spans[(start + threads * CHUNK).min(n) - 1].0,

@@ -1553,8 +1553,10 @@ pub fn score_stream<'a>(
 
 /// [`score_stream`], calling `progress` as blocks are written.
 ///
-/// Typed rows ([`history::Input::Rows`]) are for runs that
-/// [read rows typed](reads_rows_typed).
+/// Typed rows ([`history::Input::Rows`]) are read by runs with a history
+/// ([`reads_history`]); in the wide layout their output holds the score
+/// columns only (there is no row text to copy: the caller puts the input's
+/// columns in front, as a Parquet output of a Parquet input does).
 pub fn score_stream_observed<'a>(
     engine: &Engine,
     cfg: &ScoreConfig,
@@ -1582,9 +1584,11 @@ pub fn reads_history(cfg: &ScoreConfig) -> bool {
 
 /// Whether `score` can read the extract as typed rows (a Parquet input's
 /// record batches): a history run whose output does not copy the input's
-/// rows (the long layout). Other runs read text.
-pub fn reads_rows_typed(cfg: &ScoreConfig) -> bool {
-    reads_history(cfg) && cfg.layout == Layout::Long
+/// rows as text: the long layout, or (`copied_elsewhere`) a wide output
+/// whose input columns are copied by the output itself (a Parquet output
+/// of a Parquet input). Other runs read text.
+pub fn reads_rows_typed(cfg: &ScoreConfig, copied_elsewhere: bool) -> bool {
+    reads_history(cfg) && (cfg.layout == Layout::Long || copied_elsewhere)
 }
 
 #[cfg(test)]
