@@ -19,7 +19,7 @@ use std::io::{Read, Write};
 
 use super::dates;
 use super::ids::Ids;
-use super::parallel::run_blocks;
+use super::parallel::{run_batches, run_blocks};
 use super::partition::Spill;
 use super::rows_store::{Loaded, RowStore};
 use super::{
@@ -28,8 +28,24 @@ use super::{
 };
 use crate::code::Code;
 use crate::io::{write_field, RecordScanner};
+use crate::rows::{Batch, BatchRow, Row, RowSource};
 use crate::score::{Engine, Value};
 use crate::Error;
+
+/// Where a history's rows come from.
+pub enum Input<'a> {
+    /// Delimited text (a file, standard input, a buffer), read in blocks.
+    Text(Box<dyn Read + Send + 'a>),
+    /// Typed rows (a data frame, a Parquet file's record batches), read
+    /// batch by batch without any text in between.
+    Rows(Box<dyn RowSource<'a> + 'a>),
+}
+
+impl<'a, R: Read + Send + 'a> From<R> for Input<'a> {
+    fn from(r: R) -> Input<'a> {
+        Input::Text(Box::new(r))
+    }
+}
 
 /// One episode of the extract, packed into 12 bytes.
 #[derive(Clone, Copy, Debug)]
@@ -592,7 +608,141 @@ struct BlockRows {
     codes: Vec<CodeRecord>,
 }
 
-/// Reads the data records of one block.
+impl BlockRows {
+    fn new() -> BlockRows {
+        BlockRows {
+            summary: Summary::default(),
+            err: None,
+            rows: Vec::new(),
+            ids: Vec::new(),
+            keep: Vec::new(),
+            all: Vec::new(),
+            cur: Vec::new(),
+            raw: Vec::new(),
+            raw_ends: Vec::new(),
+            codes: Vec::new(),
+        }
+    }
+}
+
+/// What a block reader keeps of each row besides its conditions.
+#[derive(Clone, Copy)]
+struct Keeps {
+    codes: bool,
+    /// Two condition sets (an exclusion rule is on).
+    exclusions: bool,
+    /// The wide layout's raw rows.
+    rows: bool,
+}
+
+/// Reads one row, whatever its source, into `b`: the one reader of the
+/// history's rows. `line` gives the row's place for messages (the line of
+/// a text record, the 1-based row of a typed source); `raw` is the text
+/// record's bytes.
+#[allow(clippy::too_many_arguments)]
+fn read_row(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    p: &Plan,
+    b: &mut BlockRows,
+    row: &impl Row,
+    mut line: impl FnMut() -> u64,
+    raw: Option<&[u8]>,
+    keeps: Keeps,
+) -> Result<(), Error> {
+    let words = engine.words();
+    let id_text = |c: usize| row.field(c).text_or_empty();
+    let no_id = p.id.is_some_and(|c| id_text(c).trim_ascii().is_empty());
+    if no_id {
+        if cfg.strict {
+            return Err(p.missing_id(line()));
+        }
+        b.summary.missing_ids += 1;
+    }
+    let id = |c: Option<usize>, ids: &mut Vec<u8>| {
+        let s = ids.len();
+        if let Some(c) = c {
+            ids.extend_from_slice(&id_text(c));
+        }
+        (s, ids.len())
+    };
+    let pid = id(p.id, &mut b.ids);
+    let ekey = id(p.episode, &mut b.ids);
+    for &c in &p.keep {
+        let span = id(Some(c), &mut b.ids);
+        b.keep.push(span);
+    }
+    let date = match p.read_date(cfg, row, &mut b.summary) {
+        Ok(Some(d)) => DateRead::Day(d),
+        Ok(None) => DateRead::Missing,
+        Err(raw) => {
+            if cfg.strict {
+                return Err(match raw {
+                    Some(v) => p.issue_at(RowIssue::UnreadableDate(v), line()),
+                    None => Error::Strict {
+                        line: Some(line()),
+                        message: "missing date".into(),
+                    },
+                });
+            }
+            if raw.is_some() {
+                DateRead::Unreadable
+            } else {
+                DateRead::Missing
+            }
+        }
+    };
+    let age = p
+        .read_age(cfg, row, &mut b.summary)
+        .map_err(|i| p.issue_at(i, line()))?;
+    let index = b.rows.len();
+    b.all.resize(b.all.len() + words, 0);
+    if keeps.exclusions {
+        b.cur.resize(b.cur.len() + words, 0);
+    }
+    let base = index * words;
+    let (all, cur, codes) = (&mut b.all, &mut b.cur, &mut b.codes);
+    let mut excluded = (0u64, 0u64);
+    p.read_codes(cfg, row, &mut b.summary, |written, code, excl| {
+        engine.add_code(&mut all[base..base + words], &code);
+        match excl {
+            None if keeps.exclusions => engine.add_code(&mut cur[base..base + words], &code),
+            None => {}
+            Some(Exclusion::Primary) => excluded.0 += 1,
+            Some(Exclusion::NotPresentOnAdmission) => excluded.1 += 1,
+        }
+        if keeps.codes {
+            codes.push(CodeRecord {
+                episode: index as u32,
+                written: written.into(),
+                code,
+                exclusion: excl,
+            });
+        }
+    })
+    .map_err(|i| p.issue_at(i, line()))?;
+    b.summary.excluded_primary += excluded.0;
+    b.summary.excluded_not_on_admission += excluded.1;
+    if let (true, Layout::Wide, Some(raw)) = (keeps.rows, cfg.layout, raw) {
+        b.raw.extend_from_slice(raw);
+        b.raw_ends.push(b.raw.len());
+    }
+    let line = match cfg.layout {
+        Layout::Long => line(),
+        Layout::Wide => 0,
+    };
+    b.rows.push(RowRead {
+        no_id,
+        pid,
+        ekey,
+        date,
+        age,
+        line,
+    });
+    Ok(())
+}
+
+/// Reads the data records of one block of text.
 fn read_block(
     engine: &Engine,
     cfg: &ScoreConfig,
@@ -600,119 +750,50 @@ fn read_block(
     block: &crate::io::Block,
     start: usize,
     scanner: &mut RecordScanner,
-    (keep_codes, exclusions, keep_rows): (bool, bool, bool),
+    keeps: Keeps,
 ) -> BlockRows {
-    let words = engine.words();
-    let mut b = BlockRows {
-        summary: Summary::default(),
-        err: None,
-        rows: Vec::new(),
-        ids: Vec::new(),
-        keep: Vec::new(),
-        all: Vec::new(),
-        cur: Vec::new(),
-        raw: Vec::new(),
-        raw_ends: Vec::new(),
-        codes: Vec::new(),
-    };
+    let mut b = BlockRows::new();
     // Lines counted incrementally: O(block) per block.
     let mut lines = super::LineCursor::new(block);
     let r = scanner.scan_from(&block.data, start, block.last, |rec| -> Result<(), Error> {
         b.summary.rows_read += 1;
         p.check_width(block, &rec)?;
-        let issue = |i: RowIssue| p.issue(i, block, &rec);
-        let mut line = || lines.line_at(block, rec.offset);
-        let no_id =
-            p.id.is_some_and(|c| rec.fields.get(c).trim_ascii().is_empty());
-        if no_id {
-            if cfg.strict {
-                return Err(p.missing_id(line()));
-            }
-            b.summary.missing_ids += 1;
-        }
-        let id = |c: Option<usize>, ids: &mut Vec<u8>| {
-            let s = ids.len();
-            if let Some(c) = c {
-                ids.extend_from_slice(rec.fields.get(c));
-            }
-            (s, ids.len())
-        };
-        let pid = id(p.id, &mut b.ids);
-        let ekey = id(p.episode, &mut b.ids);
-        for &c in &p.keep {
-            let span = id(Some(c), &mut b.ids);
-            b.keep.push(span);
-        }
-        let date = match p.read_date(cfg, &rec.fields, &mut b.summary) {
-            Ok(Some(d)) => DateRead::Day(d),
-            Ok(None) => DateRead::Missing,
-            Err(raw) => {
-                if cfg.strict {
-                    return Err(match raw {
-                        Some(v) => issue(RowIssue::UnreadableDate(v)),
-                        None => Error::Strict {
-                            line: Some(line()),
-                            message: "missing date".into(),
-                        },
-                    });
-                }
-                if raw.is_some() {
-                    DateRead::Unreadable
-                } else {
-                    DateRead::Missing
-                }
-            }
-        };
-        let age = p
-            .read_age(cfg, &rec.fields, &mut b.summary)
-            .map_err(issue)?;
-        let row = b.rows.len();
-        b.all.resize(b.all.len() + words, 0);
-        if exclusions {
-            b.cur.resize(b.cur.len() + words, 0);
-        }
-        let base = row * words;
-        let (all, cur, codes) = (&mut b.all, &mut b.cur, &mut b.codes);
-        let mut excluded = (0u64, 0u64);
-        p.read_codes(cfg, &rec.fields, &mut b.summary, |written, code, excl| {
-            engine.add_code(&mut all[base..base + words], &code);
-            match excl {
-                None if exclusions => engine.add_code(&mut cur[base..base + words], &code),
-                None => {}
-                Some(Exclusion::Primary) => excluded.0 += 1,
-                Some(Exclusion::NotPresentOnAdmission) => excluded.1 += 1,
-            }
-            if keep_codes {
-                codes.push(CodeRecord {
-                    episode: row as u32,
-                    written: written.into(),
-                    code,
-                    exclusion: excl,
-                });
-            }
-        })
-        .map_err(issue)?;
-        b.summary.excluded_primary += excluded.0;
-        b.summary.excluded_not_on_admission += excluded.1;
-        if keep_rows && cfg.layout == Layout::Wide {
-            b.raw.extend_from_slice(rec.raw);
-            b.raw_ends.push(b.raw.len());
-        }
-        let line = match cfg.layout {
-            Layout::Long => line(),
-            Layout::Wide => 0,
-        };
-        b.rows.push(RowRead {
-            no_id,
-            pid,
-            ekey,
-            date,
-            age,
+        let line = || lines.line_at(block, rec.offset);
+        read_row(
+            engine,
+            cfg,
+            p,
+            &mut b,
+            &rec.fields,
             line,
-        });
-        Ok(())
+            Some(rec.raw),
+            keeps,
+        )
     });
     b.err = r.err();
+    b
+}
+
+/// Reads the rows of one typed batch, whose first row is data row `first`
+/// (1-based) of its source.
+fn read_batch(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    p: &Plan,
+    batch: &dyn Batch,
+    first: u64,
+    keeps: Keeps,
+) -> BlockRows {
+    let mut b = BlockRows::new();
+    for i in 0..batch.len() {
+        b.summary.rows_read += 1;
+        let row = BatchRow { batch, row: i };
+        let line = || first + i as u64;
+        if let Err(e) = read_row(engine, cfg, p, &mut b, &row, line, None, keeps) {
+            b.err = Some(e);
+            break;
+        }
+    }
     b
 }
 
@@ -755,13 +836,14 @@ pub(crate) enum ReadHistory {
 /// in input order. With `spill_at`, once the history holds more than that
 /// many bytes everything read so far and every later row goes to partition
 /// files instead ([`Spill`]).
-pub(crate) fn read_history(
+pub(crate) fn read_history<'a>(
     engine: &Engine,
     cfg: &ScoreConfig,
-    input: impl Read + Send,
+    input: impl Into<Input<'a>>,
     needs: Needs,
     spill_at: Option<usize>,
 ) -> Result<(ReadHistory, Summary), Error> {
+    let input = input.into();
     let keep_codes = needs.codes;
     let words = engine.words();
     let exclusions = cfg.exclude_primary || cfg.poa.is_some();
@@ -772,120 +854,129 @@ pub(crate) fn read_history(
     let mut raw_first: Vec<u32> = Vec::new();
     let temp_dir = cfg.temp_dir.clone().unwrap_or_else(std::env::temp_dir);
     let mut raw_blocks = RowStore::new((cfg.memory / 2) as usize, &temp_dir);
-    let keep_rows = needs.rows && cfg.layout == Layout::Wide;
+    // Typed rows have no raw text to keep.
+    let keep_rows = needs.rows && cfg.layout == Layout::Wide && matches!(input, Input::Text(_));
     let mut codes: Vec<CodeRecord> = Vec::new();
     let mut rows_seen = 0u64;
     let (mut kept_spans, mut kept_bytes) = (Vec::new(), Vec::new());
-
-    let (plan, header_raw) = run_blocks(
-        cfg,
-        input,
-        |block, rec| Ok((Plan::from_header(cfg, block, rec)?, rec.raw.to_vec())),
-        |h, block, start, scanner| {
-            read_block(
-                engine,
-                cfg,
-                &h.0,
-                block,
-                start,
-                scanner,
-                (keep_codes, exclusions, needs.rows),
-            )
-        },
-        |h, b: BlockRows, _| {
-            let plan = &h.0;
-            let nkeep = plan.keep.len();
-            let raw_of = |i: usize| -> &[u8] {
-                if !keep_rows {
-                    return &[];
-                }
-                let s = if i == 0 { 0 } else { b.raw_ends[i - 1] };
-                &b.raw[s..b.raw_ends[i]]
-            };
-            let row_in = |i: usize, r: &RowRead, row: u64| RowIn {
-                row,
-                line: r.line,
-                no_id: r.no_id,
-                disagrees: false,
-                date: r.date,
-                age: r.age,
-                pid: &b.ids[r.pid.0..r.pid.1],
-                ekey: &b.ids[r.ekey.0..r.ekey.1],
-                kept_bytes: &b.ids,
-                kept: &b.keep[i * nkeep..(i + 1) * nkeep],
-                all: &b.all[i * words..(i + 1) * words],
-                cur: if exclusions {
-                    &b.cur[i * words..(i + 1) * words]
-                } else {
-                    &[]
-                },
-            };
-            // Over the limit with this block: everything read so far, and
-            // every row from now on, goes to partitions.
-            let coming = b.rows.len() * (16 + words * 8) + b.raw.len();
-            let hb = match spill {
-                None => Some(&*builder.get_or_insert_with(|| Builder::new(cfg, plan, words))),
-                Some(_) => None,
-            };
-            if let Some(hb) = hb.filter(|hb| {
-                spill_at
-                    .is_some_and(|limit| hb.heap_bytes() + raw_ends.capacity() * 4 + coming > limit)
-            }) {
-                let mut sp = Spill::new(&temp_dir, words, nkeep, exclusions, keep_rows)?;
-                let n = hb.episodes();
-                let mut e = 0;
-                for bi in 0..raw_first.len() {
-                    let loaded = raw_blocks.load(bi as u32, bi as u32)?;
-                    let end = raw_first.get(bi + 1).map_or(n, |&f| f as usize);
-                    let mut s = 0;
-                    while e < end {
-                        let t = raw_ends[e];
-                        let raw = loaded.slice(bi as u32, s, t);
-                        sp.write(&hb.carried(e, &mut kept_spans, &mut kept_bytes), raw)?;
-                        s = t;
-                        e += 1;
-                    }
-                }
-                while e < n {
-                    sp.write(&hb.carried(e, &mut kept_spans, &mut kept_bytes), &[])?;
+    let keeps = Keeps {
+        codes: keep_codes,
+        exclusions,
+        rows: needs.rows,
+    };
+    // Merges the rows of each block (or batch), in input order.
+    let mut consume = |h: &(Plan, Vec<u8>), b: BlockRows| -> Result<(), Error> {
+        let plan = &h.0;
+        let nkeep = plan.keep.len();
+        let raw_of = |i: usize| -> &[u8] {
+            if !keep_rows {
+                return &[];
+            }
+            let s = if i == 0 { 0 } else { b.raw_ends[i - 1] };
+            &b.raw[s..b.raw_ends[i]]
+        };
+        let row_in = |i: usize, r: &RowRead, row: u64| RowIn {
+            row,
+            line: r.line,
+            no_id: r.no_id,
+            disagrees: false,
+            date: r.date,
+            age: r.age,
+            pid: &b.ids[r.pid.0..r.pid.1],
+            ekey: &b.ids[r.ekey.0..r.ekey.1],
+            kept_bytes: &b.ids,
+            kept: &b.keep[i * nkeep..(i + 1) * nkeep],
+            all: &b.all[i * words..(i + 1) * words],
+            cur: if exclusions {
+                &b.cur[i * words..(i + 1) * words]
+            } else {
+                &[]
+            },
+        };
+        // Over the limit with this block: everything read so far, and
+        // every row from now on, goes to partitions.
+        let coming = b.rows.len() * (16 + words * 8) + b.raw.len();
+        let hb = match spill {
+            None => Some(&*builder.get_or_insert_with(|| Builder::new(cfg, plan, words))),
+            Some(_) => None,
+        };
+        if let Some(hb) = hb.filter(|hb| {
+            spill_at.is_some_and(|limit| hb.heap_bytes() + raw_ends.capacity() * 4 + coming > limit)
+        }) {
+            let mut sp = Spill::new(&temp_dir, words, nkeep, exclusions, keep_rows)?;
+            let n = hb.episodes();
+            let mut e = 0;
+            for bi in 0..raw_first.len() {
+                let loaded = raw_blocks.load(bi as u32, bi as u32)?;
+                let end = raw_first.get(bi + 1).map_or(n, |&f| f as usize);
+                let mut s = 0;
+                while e < end {
+                    let t = raw_ends[e];
+                    let raw = loaded.slice(bi as u32, s, t);
+                    sp.write(&hb.carried(e, &mut kept_spans, &mut kept_bytes), raw)?;
+                    s = t;
                     e += 1;
                 }
-                builder = None;
-                raw_blocks = RowStore::new(0, &temp_dir);
-                raw_ends = Vec::new();
-                raw_first = Vec::new();
-                spill = Some(sp);
             }
-            if let Some(sp) = spill.as_mut() {
-                for (i, r) in b.rows.iter().enumerate() {
-                    rows_seen += 1;
-                    sp.write(&row_in(i, r, rows_seen), raw_of(i))?;
-                }
-                summary.merge(b.summary);
-                return b.err.map_or(Ok(()), Err);
+            while e < n {
+                sp.write(&hb.carried(e, &mut kept_spans, &mut kept_bytes), &[])?;
+                e += 1;
             }
-            let Some(hb) = builder.as_mut() else {
-                return Err(Error::data(None, "internal error: no history being built"));
-            };
-            let first = hb.episodes() as u32;
-            let mut block_episode = Vec::with_capacity(b.rows.len());
+            builder = None;
+            raw_blocks = RowStore::new(0, &temp_dir);
+            raw_ends = Vec::new();
+            raw_first = Vec::new();
+            spill = Some(sp);
+        }
+        if let Some(sp) = spill.as_mut() {
             for (i, r) in b.rows.iter().enumerate() {
                 rows_seen += 1;
-                block_episode.push(hb.add_row(plan, &row_in(i, r, rows_seen), &mut summary)?);
-            }
-            if keep_rows && !b.rows.is_empty() {
-                raw_blocks.push(b.raw)?;
-                raw_first.push(first);
-                raw_ends.extend(b.raw_ends.iter().map(|&x| x as u32));
-            }
-            for mut c in b.codes {
-                c.episode = block_episode[c.episode as usize];
-                codes.push(c);
+                sp.write(&row_in(i, r, rows_seen), raw_of(i))?;
             }
             summary.merge(b.summary);
-            b.err.map_or(Ok(()), Err)
-        },
-    )?;
+            return b.err.map_or(Ok(()), Err);
+        }
+        let Some(hb) = builder.as_mut() else {
+            return Err(Error::data(None, "internal error: no history being built"));
+        };
+        let first = hb.episodes() as u32;
+        let mut block_episode = Vec::with_capacity(b.rows.len());
+        for (i, r) in b.rows.iter().enumerate() {
+            rows_seen += 1;
+            block_episode.push(hb.add_row(plan, &row_in(i, r, rows_seen), &mut summary)?);
+        }
+        if keep_rows && !b.rows.is_empty() {
+            raw_blocks.push(b.raw)?;
+            raw_first.push(first);
+            raw_ends.extend(b.raw_ends.iter().map(|&x| x as u32));
+        }
+        for mut c in b.codes {
+            c.episode = block_episode[c.episode as usize];
+            codes.push(c);
+        }
+        summary.merge(b.summary);
+        b.err.map_or(Ok(()), Err)
+    };
+    let (plan, header_raw) = match input {
+        Input::Text(input) => run_blocks(
+            cfg,
+            input,
+            |block, rec| Ok((Plan::from_header(cfg, block, rec)?, rec.raw.to_vec())),
+            |h, block, start, scanner| read_block(engine, cfg, &h.0, block, start, scanner, keeps),
+            |h, b, _| consume(h, b),
+        )?,
+        Input::Rows(source) => {
+            let naming = source.naming();
+            run_batches(
+                cfg,
+                source,
+                |header| Ok((Plan::new(cfg, header, false)?, Vec::new())),
+                |h, batch, first| read_batch(engine, cfg, &h.0, batch, first, keeps),
+                |h, b, _| consume(h, b),
+            )
+            .map_err(|e| naming.name(e))?
+        }
+    };
     summary.dx_columns = plan.dx_names();
     if plan.date.is_some() {
         summary.date_format = Some(cfg.date_format.to_string());
@@ -910,10 +1001,10 @@ pub(crate) fn read_history(
 impl History {
     /// Reads the whole extract into memory, parsing blocks on every core and
     /// merging them in input order.
-    pub fn read(
+    pub fn read<'a>(
         engine: &Engine,
         cfg: &ScoreConfig,
-        input: impl Read + Send,
+        input: impl Into<Input<'a>>,
         needs: Needs,
     ) -> Result<(History, Summary), Error> {
         match read_history(engine, cfg, input, needs, None)? {
@@ -1180,6 +1271,7 @@ pub(crate) fn header_line(
     cfg: &ScoreConfig,
     p: &Plan,
     header_raw: &[u8],
+    scores_only: bool,
 ) -> Result<Vec<u8>, Error> {
     let d = cfg.delimiter;
     let mut out = Vec::new();
@@ -1188,7 +1280,9 @@ pub(crate) fn header_line(
         Layout::Wide => {
             let names: Vec<&str> = p.header.names.iter().map(String::as_str).collect();
             check_collisions(&names, engine)?;
-            out.extend_from_slice(header_raw);
+            if !scores_only {
+                out.extend_from_slice(header_raw);
+            }
         }
         Layout::Long => {
             let mut keep = vec![p.header.names[p.id.unwrap_or(0)].as_str()];
@@ -1213,8 +1307,10 @@ pub(crate) fn header_line(
             }
         }
     }
-    for c in engine.columns() {
-        out.push(d);
+    for (i, c) in engine.columns().iter().enumerate() {
+        if i > 0 || !scores_only {
+            out.push(d);
+        }
         write_field(c.name.as_bytes(), d, &mut out);
     }
     out.extend_from_slice(eol);
@@ -1254,7 +1350,9 @@ impl Formatter {
         let ep = &hist.episodes[e];
         hist.final_into(engine, e, &mut self.bits, &mut self.scratch);
         engine.values(&self.bits, ep.age(), &mut self.values);
+        let scores_only = cfg.layout == Layout::Wide && hist.raw_ends.is_empty();
         match cfg.layout {
+            Layout::Wide if scores_only => {}
             Layout::Wide => out.extend_from_slice(hist.raw_row(e, rows)),
             Layout::Long => {
                 write_field(hist.patient_id(ep.patient), d, out);
@@ -1268,7 +1366,12 @@ impl Formatter {
                 }
             }
         }
+        let at = out.len();
         engine.write_values(&self.values, d, out);
+        if scores_only && out.len() > at {
+            // No column before the first score.
+            out.remove(at);
+        }
         out.extend_from_slice(if p.crlf { b"\r\n" } else { b"\n" });
     }
 }
@@ -1282,7 +1385,7 @@ impl History {
         range: std::ops::Range<usize>,
     ) -> Result<Loaded<'_>, Error> {
         match cfg.layout {
-            Layout::Wide if !range.is_empty() => self
+            Layout::Wide if !range.is_empty() && !self.raw_ends.is_empty() => self
                 .raw_blocks
                 .load(self.raw_block(range.start), self.raw_block(range.end - 1)),
             _ => Ok(self.raw_blocks.none()),
@@ -1295,10 +1398,10 @@ impl History {
 /// A history over half of `--memory` is partitioned by patient into
 /// temporary files and scored a partition at a time
 /// ([`super::partition`]).
-pub fn score_history(
+pub fn score_history<'a>(
     engine: &Engine,
     cfg: &ScoreConfig,
-    input: impl Read + Send,
+    input: impl Into<Input<'a>>,
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
     let windows = Windows::new(engine, cfg)?;
@@ -1306,12 +1409,17 @@ pub fn score_history(
         codes: false,
         rows: true,
     };
+    let input = input.into();
+    // Typed rows in the wide layout: there is no row text to copy; the
+    // output holds the score columns only, and the caller puts the input's
+    // own columns in front (a Parquet output copies them from the input).
+    let scores_only = matches!(input, Input::Rows(_)) && cfg.layout == Layout::Wide;
     let spill_at = (cfg.memory / 2) as usize;
     let write_err = |e| Error::io("cannot write output", e);
     let (mut hist, mut summary) = match read_history(engine, cfg, input, needs, Some(spill_at))? {
         (ReadHistory::Memory(h), s) => (h, s),
         (ReadHistory::Spilled(sp, plan, header_raw), mut summary) => {
-            let head = header_line(engine, cfg, &plan, &header_raw)?;
+            let head = header_line(engine, cfg, &plan, &header_raw, scores_only)?;
             sp.finish(engine, cfg, &windows, (plan, &head), &mut summary, output)?;
             output.flush().map_err(write_err)?;
             return Ok(summary);
@@ -1319,7 +1427,7 @@ pub fn score_history(
     };
     hist.resolve(&windows);
     let hist = hist;
-    let head = header_line(engine, cfg, &hist.plan, &hist.header_raw)?;
+    let head = header_line(engine, cfg, &hist.plan, &hist.header_raw, scores_only)?;
     output.write_all(&head).map_err(write_err)?;
     // Episodes are formatted on every core, a round of chunks at a time, and
     // written in order.
