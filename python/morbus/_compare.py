@@ -79,7 +79,8 @@ def compare(
     dx_sep: Optional[str] = None,
     date: Optional[str] = None,
     date_format: Optional[str] = None,
-    lookback: Union[None, int, str] = None,
+    lookback: Union[None, int, str, Dict[str, Union[int, str]]] = None,
+    window: Optional[str] = None,
     episode: Optional[str] = None,
     exclude_primary: bool = False,
     primary: Optional[str] = None,
@@ -88,6 +89,7 @@ def compare(
     threads: Optional[int] = None,
     report: Union[None, str, "os.PathLike[str]"] = None,
     text: bool = False,
+    edition: str = "any",
 ) -> Any:
     """Compare index specifications on an outcome (``morbus compare``).
 
@@ -116,15 +118,19 @@ def compare(
     Errors raise ``KeyError`` (a missing column) or ``ValueError`` with the
     command line's messages.
     """
-    from . import _catalogue
+    from . import _catalogue, _options
 
+    options = _options(
+        dx=dx, layout=layout, id=id, age=age, index=index, hierarchy=hierarchy, dx_sep=dx_sep,
+        threads=threads, date=date, date_format=date_format, lookback=lookback, window=window,
+        episode=episode, exclude_primary=exclude_primary, primary=primary, poa=poa,
+        poa_values=poa_values, edition=edition,
+    )
     data = _csv_bytes(frame)
-    if isinstance(poa_values, str):
-        poa_values = [poa_values]
     try:
         js, table, html = _native.compare_csv(
             data,
-            dx=_names(dx),
+            options,
             outcome=outcome.strip(),
             adjust=_names(adjust),
             adjust_cat=_names(adjust_cat),
@@ -134,23 +140,8 @@ def compare(
             folds=folds,
             seed=int(seed),
             reference=reference,
-            layout=layout,
-            id=id,
-            age=age,
-            index=_names(index) or None,
-            hierarchy=hierarchy,
-            lists=_catalogue(lists),
-            dx_sep=dx_sep,
-            date=date,
-            date_format=date_format,
-            lookback=None if lookback is None else str(lookback),
-            episode=episode,
-            exclude_primary=exclude_primary,
-            primary=primary,
-            poa=poa,
-            poa_values=list(poa_values),
-            threads=threads or 0,
             report=report is not None,
+            lists=_catalogue(lists),
         )
     except ValueError as e:
         message = str(e)
