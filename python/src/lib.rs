@@ -724,7 +724,7 @@ fn frame_view<'a>(batch: &'a RecordBatch, names: &[String], used: &[usize]) -> P
 /// The score columns as an Arrow batch: whole-number scores `Int64`,
 /// scores with decimals `Float64`, bands text, flags `Int8`; only the age
 /// variants and bands may be null.
-fn score_batch(engine: &Engine, columns: &[ScoreColumn], rows: usize) -> RecordBatch {
+fn score_batch(engine: &Engine, columns: Vec<ScoreColumn>, rows: usize) -> RecordBatch {
     let mut fields = Vec::new();
     let mut arrays: Vec<ArrayRef> = Vec::new();
     for (c, col) in engine.columns().iter().zip(columns) {
@@ -733,9 +733,9 @@ fn score_batch(engine: &Engine, columns: &[ScoreColumn], rows: usize) -> RecordB
             ColumnKind::ScoreWithAge { .. } | ColumnKind::Band { .. }
         );
         let a: ArrayRef = match col {
-            ScoreColumn::Int(v) => Arc::new(Int64Array::from(v.clone())),
-            ScoreColumn::Float(v) => Arc::new(Float64Array::from(v.clone())),
-            ScoreColumn::Flag(v) => Arc::new(Int8Array::from(v.clone())),
+            ScoreColumn::Int(v) => Arc::new(Int64Array::from(v)),
+            ScoreColumn::Float(v) => Arc::new(Float64Array::from(v)),
+            ScoreColumn::Flag(v) => Arc::new(Int8Array::from(v)),
             ScoreColumn::Band { names, values } => Arc::new(
                 values
                     .iter()
@@ -804,7 +804,7 @@ fn score<'py>(
         .detach(|| frame::score(&engine, &cfg, &header, &view, 0))
         .map_err(python_error)?;
     let rows = scored.first_rows.as_ref().map_or(view.rows, Vec::len);
-    let result = score_batch(&engine, &scored.columns, rows);
+    let result = score_batch(&engine, scored.columns, rows);
     let schema = result.schema();
     let first_rows = scored
         .first_rows
