@@ -831,17 +831,20 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         )?;
         let show = !a.input.quiet && std::io::stderr().is_terminal();
         let mut bar = progress::ProgressLine::new(input.size).with_rows(input.rows);
-        let result = pipeline::score_stream_observed(
-            &engine,
-            &cfg,
-            input.take_reader(),
-            &mut output.writer,
-            &mut |p| {
+        // A wide Parquet output of a Parquet input copies the input's own
+        // columns from the file: the pipeline only adds the scores.
+        let copied = parquet_out && input.is_parquet();
+        let rows = if pipeline::reads_rows_typed(&cfg, copied) {
+            input.take_input()?
+        } else {
+            input.take_reader().into()
+        };
+        let result =
+            pipeline::score_stream_observed(&engine, &cfg, rows, &mut output.writer, &mut |p| {
                 if show {
                     bar.update(p)
                 }
-            },
-        );
+            });
         if show {
             bar.finish();
         }
@@ -900,7 +903,7 @@ fn explain(a: ExplainArgs) -> Result<(), Error> {
         &engine,
         &cfg,
         format,
-        input.take_reader(),
+        input.take_input()?,
         &mut output.writer,
     )
     .map_err(|e| input.translate(e))?;
