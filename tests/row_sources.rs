@@ -576,7 +576,11 @@ fn check_scores(engine: &Engine, t: &Table, pq: &Path, what: &str, cfg: &ScoreCo
         let mut typed_out = Vec::new();
         let typed_summary = score_stream(engine, cfg, typed_rows(pq), &mut typed_out).unwrap();
         assert_eq!(records(&typed_out)[0], head, "{what}: typed wide header");
-        assert_eq!(score_cells(&typed_out, n).1, text_rows, "{what}: typed wide");
+        assert_eq!(
+            score_cells(&typed_out, n).1,
+            text_rows,
+            "{what}: typed wide"
+        );
         assert_eq!(typed_summary, text_summary, "{what}: typed wide summary");
     }
 

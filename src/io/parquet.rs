@@ -941,9 +941,26 @@ fn kept_column(text: ArrayRef, input: &Option<DataType>) -> ArrayRef {
     let exact = match ArrayFormatter::try_new(typed.as_ref(), &FORMAT) {
         Ok(back) => {
             let strings = text.as_string::<i32>();
+            // A floating-point value read as a typed row is written without
+            // a fraction when it has none (3.0 as `3`): the same number.
+            let same_number = |i: usize, text: &str| match typed.data_type() {
+                DataType::Float64 => text.parse::<f64>().ok().is_some_and(|x| {
+                    x == typed
+                        .as_primitive::<arrow_array::types::Float64Type>()
+                        .value(i)
+                }),
+                DataType::Float32 => text.parse::<f32>().ok().is_some_and(|x| {
+                    x == typed
+                        .as_primitive::<arrow_array::types::Float32Type>()
+                        .value(i)
+                }),
+                _ => false,
+            };
             (0..typed.len()).all(|i| {
                 strings.is_null(i) == typed.is_null(i)
-                    && (strings.is_null(i) || back.value(i).to_string() == strings.value(i))
+                    && (strings.is_null(i)
+                        || back.value(i).to_string() == strings.value(i)
+                        || same_number(i, strings.value(i)))
             })
         }
         Err(_) => false,
@@ -1375,6 +1392,20 @@ mod tests {
     use crate::lists::Catalogue;
     use crate::score::{IndexSpec, ScoreOptions};
     use arrow_array::{Int64Array, StringArray};
+
+    #[test]
+    fn a_floating_point_id_written_without_its_fraction_keeps_its_type() {
+        // Typed rows give an id 3.0 as `3`; the output casts it back.
+        let text: ArrayRef = Arc::new(StringArray::from(vec![Some("3"), Some("4.5"), None]));
+        let back = kept_column(text.clone(), &Some(DataType::Float64));
+        assert_eq!(back.data_type(), &DataType::Float64);
+        let v = back.as_primitive::<arrow_array::types::Float64Type>();
+        assert_eq!((v.value(0), v.value(1), v.is_null(2)), (3.0, 4.5, true));
+        // Text that is not the same number stays text.
+        let odd: ArrayRef = Arc::new(StringArray::from(vec![Some("3"), Some("x")]));
+        let kept = kept_column(odd, &Some(DataType::Float64));
+        assert_eq!(kept.data_type(), &DataType::Utf8);
+    }
 
     #[test]
     fn rows_of_lines_after_values_with_line_breaks() {
