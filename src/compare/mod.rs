@@ -528,9 +528,16 @@ pub fn compare(
     let mut provider_of: Vec<Option<u32>> = Vec::new();
     let mut group_ids: std::collections::HashMap<Vec<u8>, u32> = Default::default();
     let mut group_of: Vec<Option<u32>> = Vec::new();
+    // Looked up before inserting: a key is copied once per distinct value.
     let number = |map: &mut std::collections::HashMap<Vec<u8>, u32>, v: &[u8]| -> u32 {
-        let next = map.len() as u32;
-        *map.entry(v.to_vec()).or_insert(next)
+        match map.get(v) {
+            Some(&id) => id,
+            None => {
+                let id = map.len() as u32;
+                map.insert(v.to_vec(), id);
+                id
+            }
+        }
     };
     'units: for (e, ep) in hist.episodes.iter().enumerate() {
         let outcome = match values_of.get(e, 0) {
@@ -765,54 +772,73 @@ pub fn compare(
     tasks.extend(live.iter().map(|&i| Task::Ranks(i)));
     tasks.extend(live.iter().map(|&i| Task::Roc(i)));
     tasks.extend((0..k).map(Task::Summary));
-    // The folds' fits run after the full-data fits, which start them.
-    let mut fold_tasks = Vec::new();
-    if let Some(kf) = opts.folds {
-        for &i in &live {
-            fold_tasks.extend((0..kf).map(|f| Task::Fold(i, f as u32)));
-        }
-    }
-    let full_fits: std::sync::OnceLock<Vec<Option<Vec<f64>>>> = std::sync::OnceLock::new();
     let refs: Vec<&[f64]> = live.iter().map(|&i| scores[i].as_slice()).collect();
+    let nfolds = opts.folds.unwrap_or(0);
     let run_task = |t: &Task| match *t {
-        Task::Baseline => Output::Model(stats::logistic(&y, &design, &adjust_names)),
-        Task::Model(i) => {
-            let mut x = Vec::with_capacity(1 + design.len());
-            x.push(scores[i].clone());
-            x.extend(design.iter().cloned());
-            let mut terms = vec![names[i].clone()];
-            terms.extend(adjust_names.iter().cloned());
-            let fit = stats::logistic(&y, &x, &terms);
-            let eta = match (&fit, want_eta) {
-                (Ok(f), true) => f.linear_predictor(&x).ok(),
-                _ => None,
-            };
-            Output::Fitted(fit, eta)
+        Task::Baseline => {
+            let cols: Vec<&[f64]> = design.iter().map(Vec::as_slice).collect();
+            let (pat, _) = stats::Patterns::group(&y, &cols);
+            Output::Model(stats::logistic_patterns(&pat, &adjust_names, None))
         }
-        Task::Fold(i, f) => {
-            let folds = fold_of.as_deref().unwrap_or_default();
-            // Started from the full-data estimates (a near start saves
-            // Newton iterations; the maximum is the same).
-            let start = full_fits.get().and_then(|f| f[i].as_deref());
-            let train: Vec<usize> = (0..n).filter(|&u| folds[u] != f).collect();
-            let test: Vec<usize> = (0..n).filter(|&u| folds[u] == f).collect();
-            let pick =
-                |col: &[f64], at: &[usize]| -> Vec<f64> { at.iter().map(|&u| col[u]).collect() };
-            let mut x = Vec::with_capacity(1 + design.len());
-            x.push(pick(&scores[i], &train));
-            x.extend(design.iter().map(|c| pick(c, &train)));
-            let ty: Vec<bool> = train.iter().map(|&u| y[u]).collect();
+        Task::Model(i) => {
+            // The units grouped by their values of the score and the
+            // adjustment terms: every fit below runs on the groups.
+            let mut cols: Vec<&[f64]> = Vec::with_capacity(1 + design.len());
+            cols.push(&scores[i]);
+            cols.extend(design.iter().map(Vec::as_slice));
+            let (pat, of_unit) = stats::Patterns::group(&y, &cols);
             let mut terms = vec![names[i].clone()];
             terms.extend(adjust_names.iter().cloned());
-            let fit = stats::logistic_from(&ty, &x, &terms, start);
-            drop(x);
-            Output::Fold(fit.and_then(|fit| {
-                let mut t = Vec::with_capacity(1 + design.len());
-                t.push(pick(&scores[i], &test));
-                t.extend(design.iter().map(|c| pick(c, &test)));
-                let eta = fit.linear_predictor(&t)?;
-                Ok(test.into_iter().zip(eta).collect())
-            }))
+            let fit = stats::logistic_patterns(&pat, &terms, None);
+            let Ok(full) = &fit else {
+                return Output::Fitted(fit, None, None);
+            };
+            let eta = if want_eta {
+                full.linear_predictor(&pat.columns)
+                    .ok()
+                    .map(|e| of_unit.iter().map(|&j| e[j as usize]).collect())
+            } else {
+                None
+            };
+            let out_of_fold = fold_of.as_deref().map(|folds| {
+                // Per fold, its units and events in each pattern; a fold's
+                // model is fitted on the totals less that fold's counts,
+                // started from the full-data estimates (the same maximum,
+                // fewer Newton iterations).
+                let np = pat.len();
+                let mut fold_units = vec![0.0; nfolds * np];
+                let mut fold_events = vec![0.0; nfolds * np];
+                for (u, (&f, &j)) in folds.iter().zip(&of_unit).enumerate() {
+                    let at = f as usize * np + j as usize;
+                    fold_units[at] += 1.0;
+                    if y[u] {
+                        fold_events[at] += 1.0;
+                    }
+                }
+                let start: Vec<f64> = full.coefficients.iter().map(|c| c.estimate).collect();
+                let mut fold_eta: Vec<Vec<f64>> = Vec::with_capacity(nfolds);
+                let mut train = pat.clone();
+                for f in 0..nfolds {
+                    let range = f * np..(f + 1) * np;
+                    for (j, (fu, fe)) in fold_units[range.clone()]
+                        .iter()
+                        .zip(&fold_events[range])
+                        .enumerate()
+                    {
+                        train.units[j] = pat.units[j] - fu;
+                        train.events[j] = pat.events[j] - fe;
+                    }
+                    let fit = stats::logistic_patterns(&train, &terms, Some(&start))?;
+                    fold_eta.push(fit.linear_predictor(&pat.columns)?);
+                }
+                let eta: Vec<f64> = folds
+                    .iter()
+                    .zip(&of_unit)
+                    .map(|(&f, &j)| fold_eta[f as usize][j as usize])
+                    .collect();
+                Ok(folds::evaluate(&y, &eta, folds, nfolds))
+            });
+            Output::Fitted(fit, eta, out_of_fold)
         }
         Task::DeLong => Output::DeLong(stats::delong(&refs, &y)),
         Task::Ranks(i) => Output::Ranks(stats::average_ranks(&scores[i])),
@@ -823,7 +849,7 @@ pub fn compare(
     let mut baseline = None;
     let mut models: Vec<Option<Result<stats::LogisticFit, StatsError>>> = vec![None; k];
     let mut etas: Vec<Option<Vec<f64>>> = vec![None; k];
-    let mut fold_etas: Vec<Vec<FoldResultOf>> = vec![Vec::new(); k];
+    let mut fold_etas: Vec<Option<Result<OutOfSample, StatsError>>> = vec![None; k];
     let mut joint_result = None;
     let mut ranks: Vec<Option<Result<Vec<f64>, StatsError>>> = vec![None; k];
     let mut rocs: Vec<Option<RocResult>> = vec![None; k];
@@ -831,9 +857,10 @@ pub fn compare(
     for (t, o) in tasks.iter().zip(outputs) {
         match (*t, o) {
             (Task::Baseline, Output::Model(m)) => baseline = Some(m),
-            (Task::Model(i), Output::Fitted(m, e)) => {
+            (Task::Model(i), Output::Fitted(m, e, f)) => {
                 models[i] = Some(m);
                 etas[i] = e;
+                fold_etas[i] = f;
             }
             (Task::DeLong, Output::DeLong(d)) => joint_result = Some(d),
             (Task::Ranks(i), Output::Ranks(r)) => ranks[i] = Some(r),
@@ -842,24 +869,6 @@ pub fn compare(
                 sums[i] = Some(r.map_err(|e| Error::data(None, e.to_string()))?)
             }
             _ => {}
-        }
-    }
-    if !fold_tasks.is_empty() {
-        let starts = models
-            .iter()
-            .map(|m| match m {
-                Some(Ok(f)) => Some(f.coefficients.iter().map(|c| c.estimate).collect()),
-                _ => None,
-            })
-            .collect();
-        let _ = full_fits.set(starts);
-        for (t, o) in fold_tasks
-            .iter()
-            .zip(par_map(&fold_tasks, cfg.threads, run_task))
-        {
-            if let (Task::Fold(i, _), Output::Fold(r)) = (*t, o) {
-                fold_etas[i].push(r);
-            }
         }
     }
 
@@ -1027,23 +1036,13 @@ pub fn compare(
     // Out-of-sample figures.
     let cross_validation = match (&fold_of, opts.folds) {
         (Some(fo), Some(kf)) => {
-            for (i, results) in fold_etas.into_iter().enumerate() {
-                if results.is_empty() {
-                    continue;
-                }
-                let mut eta = vec![0.0; n];
-                let mut failed = None;
-                for r in results {
-                    match r {
-                        Ok(v) => v.into_iter().for_each(|(u, e)| eta[u] = e),
-                        Err(e) => failed = Some(e),
-                    }
-                }
-                match failed {
-                    Some(e) => indices[i].notes.push(format!(
+            for (i, result) in fold_etas.into_iter().enumerate() {
+                match result {
+                    None => {}
+                    Some(Err(e)) => indices[i].notes.push(format!(
                         "no cross-validated figures: a fold's model failed: {e}"
                     )),
-                    None => indices[i].out_of_sample = Some(folds::evaluate(&y, &eta, fo, kf)),
+                    Some(Ok(oos)) => indices[i].out_of_sample = Some(oos),
                 }
             }
             let mut fold_units = vec![0usize; kf];
@@ -1237,17 +1236,14 @@ pub fn compare(
 }
 
 type RocResult = Result<Vec<(f64, f64)>, StatsError>;
-/// Out-of-fold linear predictors of one fold: (unit, η).
-type FoldResultOf = Result<Vec<(usize, f64)>, StatsError>;
 
 /// One piece of the numerics.
 #[derive(Clone, Copy)]
 enum Task {
     /// The model on the adjustment terms alone.
     Baseline,
+    /// Index i's model, with its cross-validation fits when asked.
     Model(usize),
-    /// Index i's model without fold f, predicting fold f.
-    Fold(usize, u32),
     DeLong,
     /// Average ranks of a score (for Spearman's ρ).
     Ranks(usize),
@@ -1257,10 +1253,13 @@ enum Task {
 
 enum Output {
     Model(Result<stats::LogisticFit, StatsError>),
-    /// A model with the linear predictor of every unit (when asked).
-    Fitted(Result<stats::LogisticFit, StatsError>, Option<Vec<f64>>),
-    /// Out-of-fold linear predictors: (unit, η).
-    Fold(Result<Vec<(usize, f64)>, StatsError>),
+    /// A model with the linear predictor of every unit (when asked) and the
+    /// out-of-fold figures (with `--folds`).
+    Fitted(
+        Result<stats::LogisticFit, StatsError>,
+        Option<Vec<f64>>,
+        Option<Result<OutOfSample, StatsError>>,
+    ),
     DeLong(Result<stats::DeLongResult, StatsError>),
     Ranks(Result<Vec<f64>, StatsError>),
     Roc(RocResult),
