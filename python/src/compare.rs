@@ -17,7 +17,7 @@ fn usage(msg: impl Into<String>) -> PyErr {
 
 /// Runs the comparison over CSV text; returns `(json, text, html or None)`.
 #[pyfunction]
-#[pyo3(signature = (data, *, dx, outcome, adjust, adjust_cat, by, min_expected, overdispersion, folds, seed, reference, layout, id, age, index, hierarchy, lists, dx_sep, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values, threads, report))]
+#[pyo3(signature = (data, *, dx, outcome, adjust, adjust_cat, adjust_spline, by, cluster, min_expected, overdispersion, folds, seed, reference, layout, id, age, index, hierarchy, lists, dx_sep, date, date_format, lookback, episode, exclude_primary, primary, poa, poa_values, threads, report))]
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn compare_csv<'py>(
     py: Python<'py>,
@@ -26,7 +26,9 @@ pub(crate) fn compare_csv<'py>(
     outcome: String,
     adjust: Vec<String>,
     adjust_cat: Vec<String>,
+    adjust_spline: Vec<String>,
     by: Option<String>,
+    cluster: Option<String>,
     min_expected: f64,
     overdispersion: Option<String>,
     folds: Option<usize>,
@@ -141,6 +143,12 @@ pub(crate) fn compare_csv<'py>(
         outcome,
         adjust,
         adjust_categorical: adjust_cat,
+        splines: adjust_spline
+            .iter()
+            .map(|s| compare::parse_spline(s))
+            .collect::<Result<_, _>>()
+            .map_err(value_error)?,
+        cluster,
         by,
         min_expected,
         overdispersion,

@@ -59,13 +59,14 @@ mod roc;
 mod spline;
 mod summary;
 
-pub use delong::{delong, delong_test, DeLongResult, DeLongTest};
+pub use delong::{delong, delong_clustered, delong_test, DeLongResult, DeLongTest};
 pub use gamma::{
     chi_square_quantile, chi_square_sf, funnel_limit, gamma_p, gamma_p_inverse, gamma_q, ln_gamma,
     poisson_cdf, poisson_exact_limits,
 };
 pub use logistic::{
-    logistic, logistic_from, logistic_patterns, Coefficient, LogisticFit, Patterns, INTERCEPT_NAME,
+    cluster_robust_covariance, logistic, logistic_from, logistic_patterns, ClusterCovariance,
+    Coefficient, LogisticFit, Patterns, INTERCEPT_NAME,
 };
 pub use normal::{erf, erfc, normal_cdf, normal_quantile, normal_sf, two_sided_p, Z_975};
 pub use rank::{average_ranks, spearman};
