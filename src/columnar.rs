@@ -47,7 +47,7 @@ use crate::matcher::KeyHasher;
 use crate::pipeline::{
     check_collisions, disagreement, keep_first, Header, Layout, ScoreConfig, Summary,
 };
-use crate::score::{read_age, Engine, Unit, Value, MAX_AGE};
+use crate::score::{Engine, Unit, Value};
 use crate::Error;
 
 /// The columns a run uses, by position among the frame's columns.
@@ -102,66 +102,8 @@ pub fn plan(engine: &Engine, cfg: &ScoreConfig, header: &Header) -> Result<Plan,
     Ok(Plan { dx, age, id })
 }
 
-/// An age as a frame holds it.
-#[derive(Clone, Copy, Debug, PartialEq)]
-pub enum Age<'a> {
-    /// Null, or no age column.
-    Missing,
-    /// Text, read like a field of a delimited extract.
-    Text(&'a [u8]),
-    /// A number: whole years, decimals truncated (79.9 is 79), readable
-    /// from 0 to [`crate::score::MAX_AGE`] (130) like a text age; NaN counts
-    /// as missing.
-    Number(f64),
-}
-
-/// What an age value gives.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum AgeReading {
-    Years(u32),
-    Missing,
-    Unreadable,
-}
-
-/// Reads an age value with the rules of [`read_age`].
-///
-/// ```
-/// use morbus::columnar::{read_age_value, Age, AgeReading};
-/// assert_eq!(read_age_value(Age::Number(79.9)), AgeReading::Years(79));
-/// assert_eq!(read_age_value(Age::Text(b" 80 ")), AgeReading::Years(80));
-/// assert_eq!(read_age_value(Age::Number(f64::NAN)), AgeReading::Missing);
-/// assert_eq!(read_age_value(Age::Number(-1.0)), AgeReading::Unreadable);
-/// assert_eq!(read_age_value(Age::Text(b"131")), AgeReading::Unreadable);
-/// assert_eq!(read_age_value(Age::Number(130.5)), AgeReading::Years(130));
-/// assert_eq!(read_age_value(Age::Number(131.0)), AgeReading::Unreadable);
-/// assert_eq!(read_age_value(Age::Number(4294967366.0)), AgeReading::Unreadable);
-/// ```
-pub fn read_age_value(age: Age<'_>) -> AgeReading {
-    match age {
-        Age::Missing => AgeReading::Missing,
-        Age::Text(t) => match read_age(t) {
-            Some(a) => AgeReading::Years(a),
-            None if t.trim_ascii().is_empty() => AgeReading::Missing,
-            None => AgeReading::Unreadable,
-        },
-        Age::Number(x) if x.is_nan() => AgeReading::Missing,
-        Age::Number(x) => {
-            if (0.0..(MAX_AGE + 1) as f64).contains(&x) {
-                AgeReading::Years(x.trunc() as u32)
-            } else {
-                AgeReading::Unreadable
-            }
-        }
-    }
-}
-
-fn age_text(age: Age<'_>) -> String {
-    match age {
-        Age::Missing => String::new(),
-        Age::Text(t) => String::from_utf8_lossy(t).into_owned(),
-        Age::Number(x) => x.to_string(),
-    }
-}
+use crate::rows::age_text;
+pub use crate::rows::{read_age_value, Age, AgeReading};
 
 /// A batch of rows, as the scorer reads it.
 pub trait Rows {

@@ -1,6 +1,5 @@
 //! `score` and `explain` over the typed columns of a data frame, for the
-//! language bindings (the R package; the Python package's dated-history path
-//! in `python/src/history.rs` follows the same route).
+//! language bindings (the R package, the Python package).
 //!
 //! A binding describes its frame through [`Columns`]: for every column its
 //! [`Kind`] and, row by row, its [`Field`]s (text read in place, numbers,
@@ -12,11 +11,13 @@
 //!   `--episode`, `--exclude-primary`, `--primary`, `--poa`), score the rows
 //!   with [`crate::columnar::Scorer`], on several threads for a large wide
 //!   frame;
-//! - with them, write the columns the run uses (and only those) as delimited
-//!   text and read that with the library's own history reader
-//!   ([`History`], the one behind `morbus score --lookback` and
-//!   `morbus explain`); line numbers are mapped back to frame rows and the
-//!   reader's column names back to the frame's.
+//! - with them, hand the frame's rows, typed as they are, to the library's
+//!   own history reader ([`History`], the one behind `morbus score
+//!   --lookback` and `morbus explain`) as a [`RowSource`] of
+//!   [`crate::rows`]: no text is made of the frame. Codes, indicators,
+//!   dates and ages are read by the same functions as a text record's
+//!   fields; messages name the frame's rows and columns. `explain`'s
+//!   records come back typed from the history's codes.
 //!
 //! Results come back typed, one vector per output column ([`Scored`],
 //! [`Explained`]). Rows in messages are numbered from `first_row` (0 for
@@ -46,44 +47,15 @@
 use std::borrow::Cow;
 
 use crate::columnar::{self, Age, Rows, Scorer};
-use crate::io::{write_field, RecordScanner};
-use crate::lists::SCALE;
-use crate::pipeline::dates::write_iso_date;
-use crate::pipeline::explain::ExplainFormat;
-use crate::pipeline::history::{History, Windows};
+use crate::lists::{SCALE, SCALE_DECIMALS};
+use crate::pipeline::explain::explain_history;
+use crate::pipeline::history::{History, Input, Needs, Windows};
 use crate::pipeline::{DateFormat, Header, Layout, ScoreConfig, Summary};
+use crate::rows::{Batch, RowNaming, RowSource};
 use crate::score::{ColumnKind, Engine, Value};
 use crate::Error;
 
-/// What a column holds, as a whole.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum Kind {
-    Text,
-    /// Whole numbers.
-    Integer,
-    /// Floating-point numbers.
-    Number,
-    /// True/false.
-    Logical,
-    /// Dates (days since 1970-01-01).
-    Date,
-    /// Anything else (the binding names it in [`Columns::type_name`]).
-    Other,
-}
-
-/// One value of a column.
-#[derive(Clone, Copy, Debug, PartialEq)]
-pub enum Field<'a> {
-    /// Missing (`NA`, `None`, null).
-    Null,
-    Text(&'a [u8]),
-    Integer(i64),
-    /// NaN counts as missing.
-    Number(f64),
-    Logical(bool),
-    /// Days since 1970-01-01.
-    Date(i64),
-}
+pub use crate::rows::{Field, Kind};
 
 /// A data frame as the scorer reads it. Columns are numbered as in the
 /// [`Header`] given with it; rows from 0.
@@ -309,7 +281,6 @@ struct Used {
     role: Role,
     what: &'static str,
     name: String,
-    text_name: String,
 }
 
 fn all_null(cols: &impl Columns, col: usize) -> bool {
@@ -375,21 +346,19 @@ fn resolve(cfg: &ScoreConfig, header: &Header) -> Result<Vec<Used>, Error> {
     let dx = header.columns(&cfg.dx, "diagnosis")?;
     let mut used: Vec<Used> = dx
         .iter()
-        .enumerate()
-        .map(|(k, &c)| Used {
+        .map(|&c| Used {
             col: c,
             role: Role::Dx,
             what: "diagnosis",
             name: header.names[c].clone(),
-            text_name: format!("d{k}"),
         })
         .collect();
-    for (name, role, what, text_name) in [
-        (&cfg.age, Role::Age, "age", "age"),
-        (&cfg.id, Role::Id, "id", "id"),
-        (&cfg.episode, Role::Id, "episode", "episode"),
-        (&cfg.date, Role::Date, "date", "date"),
-        (&cfg.primary, Role::Flag, "primary-diagnosis", "primary"),
+    for (name, role, what) in [
+        (&cfg.age, Role::Age, "age"),
+        (&cfg.id, Role::Id, "id"),
+        (&cfg.episode, Role::Id, "episode"),
+        (&cfg.date, Role::Date, "date"),
+        (&cfg.primary, Role::Flag, "primary-diagnosis"),
     ] {
         if let Some(n) = name {
             let c = header.column(n, what)?;
@@ -398,7 +367,6 @@ fn resolve(cfg: &ScoreConfig, header: &Header) -> Result<Vec<Used>, Error> {
                 role,
                 what,
                 name: n.clone(),
-                text_name: text_name.into(),
             });
         }
     }
@@ -406,13 +374,12 @@ fn resolve(cfg: &ScoreConfig, header: &Header) -> Result<Vec<Used>, Error> {
     // column, paired in order (wide).
     if let Some(p) = &cfg.poa {
         let cols = crate::pipeline::poa_columns(header, &dx, p, cfg.layout, ("--poa", "--dx"))?;
-        for (k, c) in cols.into_iter().enumerate() {
+        for c in cols {
             used.push(Used {
                 col: c,
                 role: Role::Flag,
                 what: "present-on-admission",
                 name: header.names[c].clone(),
-                text_name: format!("poa{k}"),
             });
         }
     }
@@ -521,28 +488,8 @@ fn thread_count(asked: usize) -> usize {
 /// Id keys of a non-text id column (whole numbers as their digits).
 fn id_keys(cols: &impl Columns, col: usize) -> Vec<Option<Cow<'_, [u8]>>> {
     (0..cols.rows())
-        .map(|r| field_text(cols.field(col, r)))
+        .map(|r| cols.field(col, r).text())
         .collect()
-}
-
-/// A field as the text the command line would read for it (`None`: null).
-fn field_text(f: Field<'_>) -> Option<Cow<'_, [u8]>> {
-    match f {
-        Field::Null => None,
-        Field::Text(t) => Some(Cow::Borrowed(t)),
-        Field::Integer(i) => Some(Cow::Owned(i.to_string().into_bytes())),
-        Field::Number(x) if x.is_nan() => None,
-        Field::Number(x) if x.fract() == 0.0 && x.abs() < 1e15 => {
-            Some(Cow::Owned((x as i64).to_string().into_bytes()))
-        }
-        Field::Number(x) => Some(Cow::Owned(x.to_string().into_bytes())),
-        Field::Logical(b) => Some(Cow::Borrowed(if b { b"true" } else { b"false" })),
-        Field::Date(d) => {
-            let mut out = Vec::with_capacity(10);
-            write_iso_date(d, &mut out);
-            Some(Cow::Owned(out))
-        }
-    }
 }
 
 /// Rows `start..start + len` of a frame as [`Rows`].
@@ -670,138 +617,79 @@ impl Output {
     }
 }
 
-/// The options over the text written for the history reader.
-fn text_config(cfg: &ScoreConfig, used: &[Used], typed_dates: bool) -> ScoreConfig {
-    let name = |role: Role, n: &str| {
-        used.iter()
-            .find(|u| u.role == role && u.text_name == n)
-            .map(|u| u.text_name.clone())
-    };
-    ScoreConfig {
-        dx: used
-            .iter()
-            .filter(|u| u.role == Role::Dx)
-            .map(|u| u.text_name.clone())
-            .collect(),
-        age: name(Role::Age, "age"),
-        id: name(Role::Id, "id"),
-        episode: name(Role::Id, "episode"),
-        date: name(Role::Date, "date"),
-        primary: name(Role::Flag, "primary"),
-        poa: used
-            .iter()
-            .any(|u| u.text_name.starts_with("poa"))
-            .then(|| "poa*".to_string()),
-        delimiter: b',',
-        date_format: if typed_dates {
-            DateFormat::Iso
-        } else {
-            cfg.date_format.clone()
-        },
-        ..cfg.clone()
+/// The rows of a frame for the history reader, in batches.
+struct FrameRows<'a, C: Columns> {
+    cols: &'a C,
+    names: &'a [String],
+    next: usize,
+    first_row: u64,
+}
+
+/// Rows of a frame per batch handed to the history reader.
+const FRAME_BATCH: usize = 8192;
+
+impl<'a, C: Columns> RowSource<'a> for FrameRows<'a, C> {
+    fn header(&self) -> Header {
+        Header {
+            names: self.names.to_vec(),
+        }
+    }
+    fn next_batch(&mut self) -> Result<Option<Box<dyn Batch + 'a>>, Error> {
+        let n = self.cols.rows();
+        if self.next >= n {
+            return Ok(None);
+        }
+        let start = self.next;
+        let len = FRAME_BATCH.min(n - start);
+        self.next += len;
+        Ok(Some(Box::new(FramePart {
+            cols: self.cols,
+            start,
+            len,
+        })))
+    }
+    fn naming(&self) -> RowNaming {
+        RowNaming {
+            first: self.first_row,
+            of: None,
+        }
     }
 }
 
-/// The used columns as delimited text, and the line on which each row's
-/// record starts (a quoted field may hold line breaks).
-fn to_text(cols: &impl Columns, used: &[Used]) -> (Vec<u8>, Vec<u64>) {
-    let mut out = Vec::new();
-    for (k, u) in used.iter().enumerate() {
-        if k > 0 {
-            out.push(b',');
-        }
-        out.extend_from_slice(u.text_name.as_bytes());
-    }
-    out.push(b'\n');
-    let n = cols.rows();
-    let mut starts = Vec::with_capacity(n);
-    let mut line = 2u64;
-    for row in 0..n {
-        starts.push(line);
-        let begin = out.len();
-        for (k, u) in used.iter().enumerate() {
-            if k > 0 {
-                out.push(b',');
-            }
-            match (u.role, cols.field(u.col, row)) {
-                // An age: whole years, decimals truncated (as
-                // `columnar::read_age_value`); out of range it stays as
-                // written, which reads as unreadable.
-                (Role::Age, Field::Number(x)) if (0.0..151.0).contains(&x) => {
-                    out.extend_from_slice((x.trunc() as u32).to_string().as_bytes())
-                }
-                (_, f) => {
-                    if let Some(t) = field_text(f) {
-                        write_field(&t, b',', &mut out)
-                    }
-                }
-            }
-        }
-        if out.len() == begin {
-            // A record of one empty field: an empty line would be skipped.
-            out.extend_from_slice(b"\"\"");
-        }
-        line += out[begin..].iter().filter(|&&b| b == b'\n').count() as u64 + 1;
-        out.push(b'\n');
-    }
-    (out, starts)
+/// Rows `start..start + len` of a frame as a [`Batch`].
+struct FramePart<'a, C: Columns> {
+    cols: &'a C,
+    start: usize,
+    len: usize,
 }
 
-/// A reader error with frame rows and names instead of text lines and
-/// names.
-fn frame_error(used: &[Used], starts: &[u64], first_row: u64, e: Error) -> Error {
-    let row =
-        |line: u64| starts.partition_point(|&s| s <= line).saturating_sub(1) as u64 + first_row;
-    let names = |mut m: String| {
-        'found: for u in used {
-            for (from, to) in [
-                (
-                    format!("in column '{}'", u.text_name),
-                    format!("in column '{}'", u.name),
-                ),
-                (
-                    format!("(column '{}' is empty)", u.text_name),
-                    format!("(column '{}' is empty)", u.name),
-                ),
-            ] {
-                if let Some(head) = m.strip_suffix(&from) {
-                    m = format!("{head}{to}");
-                    break 'found;
-                }
-            }
-        }
-        m
-    };
-    match e {
-        Error::Strict {
-            line: Some(l),
-            message,
-        } => Error::Strict {
-            line: None,
-            message: format!("row {}: {}", row(l), names(message)),
-        },
-        Error::Data {
-            line: Some(l),
-            message,
-        } => Error::Data {
-            line: None,
-            message: format!("row {}: {}", row(l), names(message)),
-        },
-        other => other,
+impl<C: Columns> Batch for FramePart<'_, C> {
+    fn len(&self) -> usize {
+        self.len
+    }
+    #[inline]
+    fn field(&self, col: usize, row: usize) -> Field<'_> {
+        self.cols.field(col, self.start + row)
     }
 }
 
-fn history_text(
+/// Reads a frame's history: its rows go to the history reader as typed
+/// rows, named in messages from `first_row`.
+fn read_history(
+    engine: &Engine,
     cfg: &ScoreConfig,
+    header: &Header,
     cols: &impl Columns,
-    used: &[Used],
-) -> (ScoreConfig, Vec<u8>, Vec<u64>) {
-    let typed_dates = used
-        .iter()
-        .any(|u| u.role == Role::Date && cols.kind(u.col) == Kind::Date);
-    let text_cfg = text_config(cfg, used, typed_dates);
-    let (text, starts) = to_text(cols, used);
-    (text_cfg, text, starts)
+    first_row: u64,
+    needs: Needs,
+) -> Result<(History, Summary), Error> {
+    let rows = FrameRows {
+        cols,
+        names: &header.names,
+        next: 0,
+        first_row,
+    };
+    History::read(engine, cfg, Input::Rows(Box::new(rows)), needs)
 }
 
 fn score_history(
@@ -830,11 +718,10 @@ fn score_history(
             .collect(),
     };
     crate::pipeline::check_collisions(&kept, engine)?;
-    let (text_cfg, text, starts) = history_text(cfg, cols, used);
     let run = || -> Result<Scored, Error> {
-        let windows = Windows::new(engine, &text_cfg)?;
+        let windows = Windows::new(engine, cfg)?;
         let (mut hist, mut summary) =
-            History::read(engine, &text_cfg, &text[..], Default::default())?;
+            read_history(engine, cfg, header, cols, first_row, Needs::default())?;
         hist.resolve(&windows);
         let hist = hist;
         let n = hist.episodes.len();
@@ -851,11 +738,6 @@ fn score_history(
         }
         summary.rows_written += n as u64;
         summary.units += n as u64;
-        summary.dx_columns = used
-            .iter()
-            .filter(|u| u.role == Role::Dx)
-            .map(|u| u.name.clone())
-            .collect();
         if cfg.layout == Layout::Wide && n != cols.rows() {
             return Err(Error::data(
                 None,
@@ -868,7 +750,7 @@ fn score_history(
             summary,
         })
     };
-    run().map_err(|e| frame_error(used, &starts, first_row, e))
+    run()
 }
 
 /// `morbus explain` over a frame: one row per (episode, matched code,
@@ -892,96 +774,60 @@ pub fn explain(
         },
         false,
     )?;
-    let (text_cfg, text, starts) = history_text(cfg, cols, &used);
     let whole = (0..engine.specs().len()).all(|s| engine.decimals(s) == 0);
-    let skip = usize::from(text_cfg.id.is_some()) + usize::from(text_cfg.episode.is_some());
-    let run = || -> Result<(Explained, Summary), Error> {
-        let mut csv = Vec::new();
-        let summary = crate::pipeline::explain_stream(
-            engine,
-            &text_cfg,
-            ExplainFormat::Csv,
-            &text[..],
-            &mut csv,
-        )?;
-        Ok((explained(&csv, skip, whole)?, summary))
+    let windows = Windows::new(engine, cfg)?;
+    let needs = Needs {
+        codes: true,
+        rows: false,
     };
-    let (mut ex, mut summary) = run().map_err(|e| frame_error(&used, &starts, first_row, e))?;
-    summary.dx_columns = used
-        .iter()
-        .filter(|u| u.role == Role::Dx)
-        .map(|u| u.name.clone())
-        .collect();
-    ex.whole_weights = whole;
-    Ok((ex, summary))
-}
-
-/// The CSV written by `explain_stream` as typed columns, leaving out the
-/// first `skip` (id, episode) columns; empty cells are `None`.
-fn explained(csv: &[u8], skip: usize, whole: bool) -> Result<Explained, Error> {
+    let (mut hist, mut summary) = read_history(engine, cfg, header, cols, first_row, needs)?;
+    let sorted = hist.resolve(&windows);
+    let hist = hist;
     let mut ex = Explained {
         whole_weights: whole,
         ..Explained::default()
     };
-    let bad = |what: &str| Error::data(None, format!("internal error: explain wrote {what}"));
-    let text = |b: &[u8]| String::from_utf8_lossy(b).into_owned();
-    let opt = |b: &[u8]| (!b.is_empty()).then(|| text(b));
-    let mut first = true;
-    RecordScanner::new(b',').scan(csv, true, |rec| -> Result<(), Error> {
-        if std::mem::replace(&mut first, false) {
-            return Ok(());
-        }
-        if rec.fields.len() != skip + 10 {
-            return Err(bad("a record of another width"));
-        }
-        let f = |k: usize| rec.fields.get(skip + k);
-        let int = |b: &[u8]| -> Result<Option<i64>, Error> {
-            if b.is_empty() {
-                return Ok(None);
+    let number = |scaled: i64, decimals: u32| {
+        // The value the command line writes: `decimals` places, the rest
+        // cut (weights and totals have no more).
+        let unit = 10i64.pow(SCALE_DECIMALS - decimals.min(SCALE_DECIMALS));
+        (scaled / unit * unit) as f64 / SCALE as f64
+    };
+    explain_history(engine, &windows, &hist, &sorted, |r| {
+        let ep = &hist.episodes[r.episode];
+        let spec = &engine.specs()[r.spec];
+        let list = &engine.lists()[spec.list].list;
+        ex.row.push(ep.row as i64);
+        ex.index.push(format!(
+            "{}:{}",
+            list.name, list.weightings[spec.weighting].name
+        ));
+        ex.source_date.push(r.date(&hist).map(i64::from));
+        match (r.source, r.condition) {
+            (Some((src, rec)), Some(c)) => {
+                ex.source_row.push(Some(hist.episodes[src].row as i64));
+                ex.code_as_written.push(Some(
+                    String::from_utf8_lossy(&rec.written).trim().to_string(),
+                ));
+                ex.code.push(Some(rec.code.to_string()));
+                ex.condition.push(Some(list.conditions[c].key.clone()));
             }
-            std::str::from_utf8(b)
-                .ok()
-                .and_then(|s| s.parse().ok())
-                .map(Some)
-                .ok_or_else(|| bad("a row number that is not one"))
-        };
-        ex.row
-            .push(int(f(0))?.ok_or_else(|| bad("a record without its row"))?);
-        ex.index.push(text(f(1)));
-        ex.source_row.push(int(f(2))?);
-        let d = f(3);
-        ex.source_date.push(if d.is_empty() {
-            None
-        } else {
-            Some(
-                DateFormat::Iso
-                    .parse(d)
-                    .ok_or_else(|| bad("a date that is not one"))? as i64,
-            )
-        });
-        ex.code_as_written.push(opt(f(4)));
-        ex.code.push(opt(f(5)));
-        ex.condition.push(opt(f(6)));
-        let w = std::str::from_utf8(f(7))
-            .ok()
-            .and_then(|w| w.parse::<f64>().ok())
-            .ok_or_else(|| bad("a weight that is not a number"))?;
-        ex.weight.push(w);
-        ex.status.push(text(f(8)));
-        let a = f(9);
-        ex.age_points.push(if a.is_empty() {
-            None
-        } else {
-            Some(
-                std::str::from_utf8(a)
-                    .ok()
-                    .and_then(|a| a.parse::<f64>().ok())
-                    .ok_or_else(|| bad("age points that are not a number"))?,
-            )
-        });
+            _ => {
+                ex.source_row.push(None);
+                ex.code_as_written.push(None);
+                ex.code.push(None);
+                ex.condition.push(None);
+            }
+        }
+        ex.weight.push(number(r.weight, r.decimals));
+        ex.status.push(r.status);
+        ex.age_points
+            .push(r.age_points.map(|a| number(a, r.decimals)));
         Ok(())
     })?;
-    Ok(ex)
+    summary.units += hist.episodes.len() as u64;
+    summary.rows_written = summary.units;
+    Ok((ex, summary))
 }
 
 #[cfg(test)]

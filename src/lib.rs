@@ -15,6 +15,8 @@
 //! - [`score`]: conditions, hierarchies, weightings, output values;
 //! - [`io`]: streaming delimited text in and out;
 //! - [`pipeline`]: `score` over an extract, wide or long, with its summary;
+//! - [`rows`]: the row model every source implements (text records, typed
+//!   columns of frames and Arrow batches) and how values are read;
 //! - [`columnar`]: `score` over in-memory columns (Arrow arrays, data frames);
 //! - [`frame`]: `score` and `explain` over a data frame's typed columns (the bindings);
 //! - [`sql`]: a SQL script that scores a table inside a database (DuckDB,
@@ -52,6 +54,7 @@ pub mod lists;
 pub mod matcher;
 pub mod pipeline;
 pub mod provenance;
+pub mod rows;
 pub mod score;
 pub mod sql;
 pub mod stats;

@@ -346,6 +346,8 @@ fn parquet_out_keeps_the_input_columns_and_types_the_scores() {
         b.extend_from_slice(opts);
         let reference = morbus(&b);
         let names = csv_header(&reference.stdout);
+        // The same summary (with a history, the Parquet rows are read typed).
+        assert_eq!(r.stderr, reference.stderr, "{opts:?}");
 
         let (got, _) = read_parquet(&out);
         assert_eq!(got.num_rows(), input.num_rows());

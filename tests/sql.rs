@@ -109,7 +109,10 @@ fn the_header_carries_version_lists_and_options() {
             "{name} missing from\n{header}"
         );
     }
-    assert!(header.contains("--   lookback: all"));
+    assert!(header.contains("--   lookback (days): all"));
+    assert!(header.contains("--   window: current-and-earlier"));
+    assert!(header.contains("--   date format: %Y-%m-%d"));
+    assert!(header.contains("--   max unreadable dates: 1%"));
     assert!(header.contains("--   diagnosis columns: dx1, dx2"));
     // The same options give the same script.
     let again = sql(&[
@@ -210,4 +213,186 @@ fn prefixes_export_writes_a_flat_csv() {
     let r = morbus(&["lists", "export", "charlson", d, "--format", "prefixes"]);
     assert_eq!(r.code, 2);
     assert!(r.stderr.contains("--force"), "{}", r.stderr);
+}
+
+#[test]
+fn history_options_are_checked_as_in_score() {
+    // A window for a list the run does not score.
+    let r = sql(&[
+        "--dx",
+        "dx1",
+        "--index",
+        "charlson",
+        "--id",
+        "pid",
+        "--date",
+        "day",
+        "--lookback",
+        "hfrs=365",
+    ]);
+    assert_eq!(r.code, 2, "{}", r.stderr);
+    assert!(
+        r.stderr.contains("names list 'hfrs', which is not scored"),
+        "{}",
+        r.stderr
+    );
+    let r = sql(&["--dx", "dx1", "--window", "earlier-only"]);
+    assert_eq!(r.code, 2);
+    assert!(r.stderr.contains("--window is used with --lookback"));
+    let r = sql(&[
+        "--dx",
+        "dx1",
+        "--id",
+        "pid",
+        "--date",
+        "day",
+        "--lookback",
+        "30",
+        "--window",
+        "later",
+    ]);
+    assert_eq!(r.code, 2);
+    assert!(r.stderr.contains("'current-and-earlier' or 'earlier-only'"));
+    let r = sql(&[
+        "--dx",
+        "dx1",
+        "--id",
+        "pid",
+        "--date",
+        "day",
+        "--lookback",
+        "30",
+        "--date-format",
+        "%d/%m",
+    ]);
+    assert_eq!(r.code, 2);
+    assert!(
+        r.stderr.contains("--date-format '%d/%m' must hold %Y"),
+        "{}",
+        r.stderr
+    );
+    let r = sql(&["--dx", "dx1", "--max-unreadable-dates", "150"]);
+    assert_eq!(r.code, 2);
+    assert!(r
+        .stderr
+        .contains("--max-unreadable-dates takes a percentage"));
+}
+
+#[test]
+fn edition_is_refused_with_its_reason() {
+    // `score --edition` changes the summary's counts only, never a score:
+    // the SQL, which writes no summary, says so rather than ignore it.
+    let r = sql(&["--dx", "dx1", "--edition", "who"]);
+    assert_eq!(r.code, 2, "{}", r.stderr);
+    assert!(
+        r.stderr.contains("never changes a score") && r.stderr.contains("no summary"),
+        "{}",
+        r.stderr
+    );
+}
+
+#[test]
+fn a_date_column_brings_the_unreadable_dates_stop() {
+    let with = sql(&[
+        "--dx",
+        "dx1",
+        "--id",
+        "pid",
+        "--date",
+        "day",
+        "--lookback",
+        "30",
+        "--max-unreadable-dates",
+        "2.5",
+    ]);
+    assert_eq!(with.code, 0, "{}", with.stderr);
+    assert!(with
+        .stdout
+        .contains("c.unreadable * 100.0 > 2.5 * c.non_empty"));
+    assert!(with
+        .stdout
+        .contains("more than the 2.5% allowed by --max-unreadable-dates"));
+    assert!(with.stdout.contains("WHERE g.passed = 1"));
+    let without = sql(&["--dx", "dx1"]);
+    assert!(!without.stdout.contains("date_guard"));
+    // PostgreSQL: the function that raises the message, temporary for a
+    // query, named after a view and kept with it.
+    let pg = morbus(&[
+        "sql",
+        "--dialect",
+        "postgres",
+        "--table",
+        "t",
+        "--dx",
+        "dx1",
+        "--id",
+        "pid",
+        "--date",
+        "day",
+        "--lookback",
+        "30",
+    ]);
+    assert!(pg
+        .stdout
+        .contains("CREATE OR REPLACE FUNCTION pg_temp.\"morbus_stop\"(message TEXT)"));
+    let pg = morbus(&[
+        "sql",
+        "--dialect",
+        "postgres",
+        "--table",
+        "t",
+        "--dx",
+        "dx1",
+        "--id",
+        "pid",
+        "--date",
+        "day",
+        "--lookback",
+        "30",
+        "--create",
+        "view",
+        "s.scored",
+    ]);
+    assert!(pg
+        .stdout
+        .contains("CREATE FUNCTION \"s\".\"scored_stop\"(message TEXT)"));
+}
+
+#[test]
+fn order_by_is_checked_and_postgres_without_it_warns() {
+    let r = sql(&["--dx", "dx1", "--columns", "id,dx1", "--order-by", "row_no"]);
+    assert_eq!(r.code, 2);
+    assert!(
+        r.stderr
+            .contains("--order-by column 'row_no' not found; columns in the input: id, dx1"),
+        "{}",
+        r.stderr
+    );
+    let r = sql(&["--dx", "dx1", "--order-by", "id,dx1"]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    assert!(r
+        .stdout
+        .contains("ROW_NUMBER() OVER (ORDER BY t.\"id\", t.\"dx1\") AS morbus_row"));
+    let pg = [
+        "sql",
+        "--dialect",
+        "postgres",
+        "--table",
+        "t",
+        "--dx",
+        "dx1",
+    ];
+    let r = morbus(&pg);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    assert!(
+        r.stderr.contains("PostgreSQL keeps no row order"),
+        "{}",
+        r.stderr
+    );
+    assert!(r.stdout.contains("ROW_NUMBER() OVER (ORDER BY t.ctid)"));
+    let mut with = pg.to_vec();
+    with.extend(["--order-by", "id"]);
+    let r = morbus(&with);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    assert!(r.stderr.is_empty(), "{}", r.stderr);
 }

@@ -141,7 +141,8 @@ def read_header(path: Path) -> List[str]:
 
 class Engine:
     name = ""
-    #: Whether a loaded table gives its rows back in load order.
+    #: Whether the scripts' rows come back in the order of the file loaded
+    #: (all three: PostgreSQL's scripts are given --order-by).
     ordered = True
 
     def load(self, table: str, path: Path) -> None:
@@ -233,7 +234,6 @@ class Postgres(Engine):
     `stop`. As root, the server runs as the `postgres` user (or `nobody`)."""
 
     name = "postgres"
-    ordered = False
 
     def __init__(self) -> None:
         bindir = postgres_bin()
@@ -359,14 +359,27 @@ def score_cli(run_cli, path: Path, args: Sequence[str]) -> Tuple[List[str], List
     if key not in _SCORED:
         # The generated extract has unreadable dates on purpose; the SQL
         # cannot stop a run over them, so neither does the comparison.
-        code, out, err = run_cli(["score", str(path), "--quiet", "--max-unreadable-dates", "100", *args])
+        if "--max-unreadable-dates" not in args:
+            args = ["--max-unreadable-dates", "100", *args]
+        code, out, err = run_cli(["score", str(path), "--quiet", *args])
         assert code == 0, err
         rows = list(csv.reader(out.splitlines()))
         _SCORED[key] = (rows[0], rows[1:])
     return _SCORED[key]
 
 
-def sql_script(run_cli, dialect: str, table: str, args: Sequence[str]) -> str:
+def sql_script(run_cli, dialect: str, table: str, args: Sequence[str], order: bool = True) -> str:
+    # As in `score_cli`: the comparisons of scores let every date be
+    # unreadable (the stop itself is tested in test_unreadable_dates_*).
+    if "--max-unreadable-dates" not in args:
+        args = [*args, "--max-unreadable-dates", "100"]
+    # PostgreSQL keeps no load order (a COPY may store a later row on an
+    # earlier page): its scripts are given the columns of the extract's
+    # order, whose episode ids are in file order, so that every comparison
+    # is row by row. Without --order-by it numbers rows by ctid (tested in
+    # test_order_by_gives_the_extract_order).
+    if order and dialect == "postgres" and "--order-by" not in args and table != "typed":
+        args = [*args, "--order-by", "episode_id,position" if "long" in table else "episode_id"]
     code, out, err = run_cli(["sql", "--dialect", dialect, "--table", table, *args])
     assert code == 0, err
     return out
@@ -409,6 +422,14 @@ WIDE_CASES = {
     "flags_no_hierarchy": ["--flags", "--no-hierarchy", "--index", "charlson:charlson1987,elixhauser:count,hfrs"],
     "lookback_365_primary": ["--id", "patient_id", "--date", "admission_date", "--lookback", "365", "--exclude-primary", "--age", "age"],
     "lookback_all": ["--id", "patient_id", "--date", "admission_date", "--lookback", "all", "--flags"],
+    # One window per list; elixhauser, named nowhere, is scored from the episode alone.
+    "lookback_per_list": ["--id", "patient_id", "--date", "admission_date", "--lookback", "charlson=365,hfrs=730", "--flags"],
+    # Earlier days only: the episode's own codes and its day's other episodes left out.
+    "lookback_earlier_only": ["--id", "patient_id", "--date", "admission_date", "--lookback", "365", "--window", "earlier-only", "--age", "age"],
+    # Both: a window for every list but hfrs, earlier days only, the primary left out.
+    "lookback_default_and_list_earlier_only": [
+        "--id", "patient_id", "--date", "admission_date", "--lookback", "90,hfrs=all", "--window", "earlier-only", "--exclude-primary", "--flags",
+    ],
 }
 DX10 = ",".join(f"dx{i}" for i in range(1, 11))
 POA10 = ",".join(f"poa{i}" for i in range(1, 11))
@@ -484,6 +505,11 @@ LONG_CASES = {
         "--date", "admission_date", "--lookback", "all", "--poa", "present_on_admission", "--poa-values", "Y,W,1",
     ],
     "episodes_no_lookback": ["--layout", "long", "--id", "patient_id", "--episode", "episode_id", "--dx", "code"],
+    "episodes_per_list_earlier_only": [
+        "--layout", "long", "--id", "patient_id", "--episode", "episode_id", "--dx", "code",
+        "--date", "admission_date", "--lookback", "hfrs=730,elixhauser=all", "--window", "earlier-only",
+        "--poa", "present_on_admission", "--flags",
+    ],
 }
 
 
@@ -579,3 +605,175 @@ def test_prefix_export_matches_the_script(run_cli, tmp_path):
     # transcribed from memory).
     assert len({r["condition"] for r in rows}) == 109
     assert all(len(r["prefix"]) == 3 for r in rows)
+
+
+# ---------------------------------------------------------------------------
+# Unreadable dates: the query stops where `score` stops, with its message.
+
+
+def score_outcome(run_cli, path: Path, args: Sequence[str]) -> Tuple[int, str]:
+    code, _, err = run_cli(["score", str(path), "--quiet", *args])
+    return code, err.strip()
+
+
+def run_error(engine: Engine, script: str) -> Optional[str]:
+    """The engine's error message when the script fails, else None."""
+    try:
+        engine.run(script)
+    except Exception as err:  # each engine raises its own error type
+        text = str(err)
+        # SQLite's message is inside a quoted JSON path, its quotes doubled.
+        return text.replace("''", "'") if engine.name == "sqlite" else text
+    return None
+
+
+UNREADABLE_CASES = {
+    # 26 of the 2,948 episodes with a date have an unreadable one (0.88 %).
+    "wide": ("messy_wide", ["--dx", DX10, "--id", "patient_id", "--date", "admission_date", "--lookback", "365"]),
+    # The long copy: an episode's date is unreadable when none of its rows has a readable one.
+    "long": (
+        "messy_long",
+        ["--layout", "long", "--id", "patient_id", "--episode", "episode_id", "--dx", "code", "--date", "admission_date", "--lookback", "all"],
+    ),
+    # No lookback: `score` still reads the dates of a long layout's episodes and stops.
+    "long_no_lookback": ("messy_long", ["--layout", "long", "--id", "patient_id", "--episode", "episode_id", "--dx", "code", "--date", "admission_date"]),
+}
+
+
+@pytest.mark.parametrize("case", sorted(UNREADABLE_CASES))
+@pytest.mark.parametrize("threshold", ["0.5", "0.88", "0.89", "5"])
+def test_unreadable_dates_stop_as_score_stops(engine, data, run_cli, case, threshold):
+    """Over --max-unreadable-dates (0.5, and 0.88 just under the share of
+    0.8819 %) `score` exits 1 and the script stops with the same message;
+    at or under it (0.89, 5) both give the same scores."""
+    dataset, args = UNREADABLE_CASES[case]
+    args = [*args, "--max-unreadable-dates", threshold]
+    code, err = score_outcome(run_cli, data[dataset], args)
+    script = sql_script(run_cli, engine.name, dataset, args)
+    over = threshold in ("0.5", "0.88")
+    if over:
+        assert code == 1, err
+        message = err.removeprefix("morbus: error: ")
+        assert "have an unreadable date, more than the" in message
+        got = run_error(engine, script)
+        assert got is not None, "the script gave scores where `score` stops"
+        assert message in got, f"{message!r} not in {got!r}"
+    else:
+        assert code == 0, err
+        cli = score_cli(run_cli, data[dataset], args)
+        check_equal(cli, engine.run(script), score_columns(cli[0]), engine.ordered)
+
+
+def test_unreadable_dates_stop_a_view_when_read(engine, data, run_cli):
+    """A view is checked each time it is read: created without error, it
+    stops when queried."""
+    dataset, args = UNREADABLE_CASES["wide"]
+    args = [*args, "--max-unreadable-dates", "0.5", "--create", "view", "checked_view", "--replace"]
+    engine.run(sql_script(run_cli, engine.name, dataset, args))
+    got = run_error(engine, "SELECT * FROM checked_view;")
+    assert got is not None and "more than the 0.5% allowed by --max-unreadable-dates" in got
+
+
+# ---------------------------------------------------------------------------
+# --date-format: the same pattern reading in SQL.
+
+
+def reformat_dates(src: Path, path: Path, pattern: str, seed: int = 5) -> Path:
+    """The messy extract with its ISO dates rewritten by `pattern` (the
+    junk values kept): %d and %m with and without a leading zero where the
+    pattern allows it, %b in mixed case, some with a time after them."""
+    rng = random.Random(seed)
+    months = ["jan", "feb", "mar", "apr", "may", "jun", "jul", "aug", "sep", "oct", "nov", "dec"]
+    with open(src, newline="", encoding="utf-8") as f, open(path, "w", newline="", encoding="utf-8") as g:
+        r = csv.reader(f)
+        w = csv.writer(g)
+        header = next(r)
+        w.writerow(header)
+        k = header.index("admission_date")
+        for row in r:
+            v = row[k]
+            try:
+                day = dt.date.fromisoformat(v[:10])
+            except ValueError:
+                w.writerow(row)
+                continue
+            packed = "%Y%m%d" in pattern
+            pad = packed or rng.random() < 0.5
+            text = (
+                pattern.replace("%Y", f"{day.year:04d}")
+                .replace("%m", f"{day.month:02d}" if pad else str(day.month))
+                .replace("%d", f"{day.day:02d}" if pad or rng.random() < 0.5 else str(day.day))
+                .replace("%b", rng.choice([str.lower, str.upper, str.title])(months[day.month - 1]))
+            )
+            if len(v) > 10:
+                text += rng.choice(["T10:30:00", " 10:30"])
+            elif rng.random() < 0.01:
+                text += "x"  # something after the date that is not a time: unreadable
+            row[k] = text
+            w.writerow(row)
+    return path
+
+
+@pytest.mark.parametrize("pattern", ["%d/%m/%Y", "%d %b %Y", "%Y%m%d", "%m.%d.%Y"])
+def test_date_format(engine, data, run_cli, tmp_path, pattern):
+    """`--date-format` read in SQL as `score` reads it (one or two digits
+    between separators, two when packed, month names in any case, a time
+    after T or a space): every score equal, with a lookback that depends on
+    the dates."""
+    name = "dates_" + "".join(c for c in pattern if c.isalpha()).lower()
+    path = reformat_dates(data["messy_wide"], tmp_path / f"{name}.csv", pattern)
+    engine.load(name, path)
+    args = ["--dx", DX10, "--id", "patient_id", "--date", "admission_date", "--lookback", "365", "--date-format", pattern, "--flags"]
+    cli = score_cli(run_cli, path, args)
+    check_equal(cli, engine.run(sql_script(run_cli, engine.name, name, args)), score_columns(cli[0]), engine.ordered)
+    # The dates were read: without the lookback the scores are others.
+    alone = score_cli(run_cli, path, ["--dx", DX10, "--flags"])
+    assert alone[1] != [r[: len(alone[0])] for r in cli[1]]
+    # The share of unreadable dates is the same in both: over a threshold
+    # below it, both stop with the same message.
+    code, err = score_outcome(run_cli, path, [*args, "--max-unreadable-dates", "0.1"])
+    assert code == 1
+    got = run_error(engine, sql_script(run_cli, engine.name, name, [*args, "--max-unreadable-dates", "0.1"]))
+    assert got is not None and err.removeprefix("morbus: error: ") in got
+
+
+# ---------------------------------------------------------------------------
+# Row order: without --order-by, the table's own order (load order here, in
+# all three engines: every comparison above is row by row); with it, the
+# order of the columns named, whatever order the table holds its rows in.
+
+
+def shuffled_copy(src: Path, path: Path, seed: int = 77) -> Path:
+    with open(src, newline="", encoding="utf-8") as f:
+        rows = list(csv.reader(f))
+    body = rows[1:]
+    random.Random(seed).shuffle(body)
+    with open(path, "w", newline="", encoding="utf-8") as g:
+        csv.writer(g).writerows([rows[0], *body])
+    return path
+
+
+@pytest.mark.parametrize(
+    "dataset,args,order",
+    [
+        ("messy_wide", ["--dx", DX10, "--id", "patient_id", "--date", "admission_date", "--lookback", "365", "--age", "age"], "episode_id"),
+        (
+            "messy_long",
+            ["--layout", "long", "--id", "patient_id", "--episode", "episode_id", "--dx", "code", "--date", "admission_date", "--lookback", "all"],
+            "episode_id,position",
+        ),
+    ],
+    ids=["wide", "long"],
+)
+def test_order_by_gives_the_extract_order(engine, data, run_cli, tmp_path, dataset, args, order):
+    """The rows loaded in a shuffled order; --order-by names the columns that
+    give the extract's order (its episode ids are in file order): the output
+    equals `score` on the original file row by row."""
+    name = f"{dataset}_shuffled"
+    engine.load(name, shuffled_copy(data[dataset], tmp_path / f"{name}.csv"))
+    cli = score_cli(run_cli, data[dataset], args)
+    got = engine.run(sql_script(run_cli, engine.name, name, [*args, "--order-by", order]))
+    check_equal(cli, got, score_columns(cli[0]), ordered=True)
+    # Without it the rows come in the shuffled table's order: not the file's.
+    plain = engine.run(sql_script(run_cli, engine.name, name, args, order=False))
+    assert [r[0] for r in plain[1]] != [r[0] for r in cli[1]]

@@ -88,9 +88,12 @@ file: same lists (created as tables by the script, from the catalogue including 
 same code reading, exclusions, lookback, hierarchies, weights, age points and bands. A header \
 comment records the morbus version, every list's version and checksum, and the options.
 
-Dates are read from a date or timestamp column, or from text starting YYYY-MM-DD. In the wide \
-layout the output is every row of the table with its columns, then the score columns; without \
---columns, SQLite needs a table (its rowid) rather than a view.
+Dates are read from a date or timestamp column, from text starting YYYY-MM-DD, or from text \
+in the --date-format pattern; more than --max-unreadable-dates percent unreadable stops the \
+query with the message `score` gives. In the wide layout the output is every row of the table \
+with its columns, then the score columns, in the table's order (--order-by COLS for an \
+explicit one); without --columns, SQLite needs a table (its rowid), and without --order-by, \
+PostgreSQL needs a table (its ctid) rather than a view.
 
 Example: morbus sql --dialect postgres --table episodes --dx dx1,dx2,dx3 --age age \
 --id patient_id --date admitted --lookback 365 --create view scored_episodes | psql")]
@@ -123,10 +126,27 @@ struct SqlArgs {
     /// Episode date column (for --lookback): a date, a timestamp or YYYY-MM-DD text.
     #[arg(long, value_name = "COL")]
     date: Option<String>,
+    /// Date pattern with %Y %m %d %b, e.g. '%d/%m/%Y' (default: YYYY-MM-DD); read in SQL
+    /// exactly as `score` reads it.
+    #[arg(long, value_name = "PATTERN")]
+    date_format: Option<String>,
+    /// Stop the query (with morbus's message) when more than this percentage of the
+    /// non-empty episode dates cannot be read, as `score` stops a run.
+    #[arg(long, value_name = "PERCENT", default_value = "1")]
+    max_unreadable_dates: String,
     /// Score each episode from the same patient's episodes dated within DAYS before it
-    /// (inclusive) and itself; `all` for the whole history.
+    /// (inclusive) and itself; `all` for the whole history. One window per list with
+    /// LIST=DAYS pairs (`charlson=365,hfrs=730`), as in `score`.
     #[arg(long, value_name = "DAYS")]
     lookback: Option<String>,
+    /// Which episodes of a lookback window count: `current-and-earlier` or `earlier-only`
+    /// (as in `score`).
+    #[arg(long, value_name = "SCOPE", default_value = "current-and-earlier")]
+    window: String,
+    /// Not taken: `score --edition` changes only the summary's counts of unknown and
+    /// extended codes, never a score, and the SQL writes no summary.
+    #[arg(long, value_name = "EDITION", hide = true)]
+    edition: Option<String>,
     /// Leave out the primary diagnosis of the episode being scored (wide: the first
     /// diagnosis column; long: the rows flagged by --primary).
     #[arg(long)]
@@ -163,6 +183,11 @@ struct SqlArgs {
     /// Drop an existing view or table NAME (and a view's list tables) first.
     #[arg(long)]
     replace: bool,
+    /// Columns that put the rows in the extract's order, comma-separated (e.g. episode_id):
+    /// rows are numbered and the output ordered by them. Without it: SQLite's rowid,
+    /// PostgreSQL's ctid (a table, not a view), DuckDB's scan order.
+    #[arg(long, value_name = "COLS")]
+    order_by: Option<String>,
     /// Write the script to this file instead of standard output.
     #[arg(long, short, value_name = "PATH")]
     output: Option<PathBuf>,
@@ -839,17 +864,20 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         )?;
         let show = !a.input.quiet && std::io::stderr().is_terminal();
         let mut bar = progress::ProgressLine::new(input.size).with_rows(input.rows);
-        let result = pipeline::score_stream_observed(
-            &engine,
-            &cfg,
-            input.take_reader(),
-            &mut output.writer,
-            &mut |p| {
+        // A wide Parquet output of a Parquet input copies the input's own
+        // columns from the file: the pipeline only adds the scores.
+        let copied = parquet_out && input.is_parquet();
+        let rows = if pipeline::reads_rows_typed(&cfg, copied) {
+            input.take_input()?
+        } else {
+            input.take_reader().into()
+        };
+        let result =
+            pipeline::score_stream_observed(&engine, &cfg, rows, &mut output.writer, &mut |p| {
                 if show {
                     bar.update(p)
                 }
-            },
-        );
+            });
         if show {
             bar.finish();
         }
@@ -908,7 +936,7 @@ fn explain(a: ExplainArgs) -> Result<(), Error> {
         &engine,
         &cfg,
         format,
-        input.take_reader(),
+        input.take_input()?,
         &mut output.writer,
     )
     .map_err(|e| input.translate(e))?;
@@ -1102,13 +1130,39 @@ fn sql(a: SqlArgs) -> Result<(), Error> {
         LayoutArg::Wide => Layout::Wide,
         LayoutArg::Long => Layout::Long,
     };
-    let lookback = parse_lookback(a.lookback.as_deref())?;
+    if let Some(e) = &a.edition {
+        return Err(Error::Usage(format!(
+            "--edition {e} is not taken by `morbus sql`: in `score` it only sorts well-shaped codes \
+into known, extended and unknown for the summary, and never changes a score; the SQL writes \
+no summary (run `morbus score --edition {e}` on a sample to see those counts)"
+        )));
+    }
+    let (lookback, lookback_lists) = match a.lookback.as_deref() {
+        None => (None, Vec::new()),
+        Some(t) => pipeline::parse_lookback(t, "--lookback")?,
+    };
+    let window = pipeline::WindowScope::parse(&a.window).ok_or_else(|| {
+        Error::Usage(format!(
+            "--window takes 'current-and-earlier' or 'earlier-only', not '{}'",
+            a.window
+        ))
+    })?;
+    if window != pipeline::WindowScope::default() && a.lookback.is_none() {
+        return Err(Error::Usage(
+            "--window is used with --lookback DAYS (or 'all')".into(),
+        ));
+    }
+    let date_format = match a.date_format.as_deref() {
+        None => DateFormat::Iso,
+        Some(p) => DateFormat::from_pattern_checked(p)
+            .map_err(|why| Error::Usage(format!("--date-format '{p}' {why}")))?,
+    };
     if a.poa_values.trim().is_empty() {
         return Err(Error::Usage(
             "--poa-values is empty; name the values that count (e.g. Y,W,1,blank)".into(),
         ));
     }
-    if a.date.is_some() && lookback.is_none() && a.episode.is_none() {
+    if a.date.is_some() && a.lookback.is_none() && a.episode.is_none() {
         return Err(Error::Usage(
             "--date is used with --lookback DAYS (or 'all')".into(),
         ));
@@ -1125,6 +1179,11 @@ fn sql(a: SqlArgs) -> Result<(), Error> {
         episode: a.episode.clone(),
         date: a.date.clone(),
         lookback,
+        lookback_lists,
+        window,
+        date_format,
+        max_unreadable_dates: pipeline::percent_from(&a.max_unreadable_dates)
+            .map_err(|why| Error::Usage(format!("--max-unreadable-dates {why}")))?,
         exclude_primary: a.exclude_primary,
         primary: a.primary.clone(),
         poa: a.poa.clone(),
@@ -1171,8 +1230,25 @@ fn sql(a: SqlArgs) -> Result<(), Error> {
         columns,
         output,
         replace: a.replace,
+        order_by: a
+            .order_by
+            .as_deref()
+            .map(|c| {
+                c.split(',')
+                    .map(|n| n.trim().to_string())
+                    .filter(|n| !n.is_empty())
+                    .collect()
+            })
+            .unwrap_or_default(),
     };
     let script = morbus::sql::generate(&engine, &opts)?;
+    if opts.dialect == morbus::sql::Dialect::Postgres && opts.order_by.is_empty() && !a.quiet {
+        eprintln!(
+            "morbus: warning: PostgreSQL keeps no row order: without --order-by the rows are \
+numbered and given in the order they are stored (ctid), which need not be the order they were \
+loaded in; give --order-by COLS (e.g. episode_id) for the extract's order"
+        );
+    }
     match &a.output {
         None => {
             let mut out = morbus::io::atomic::stdout();
@@ -1181,18 +1257,6 @@ fn sql(a: SqlArgs) -> Result<(), Error> {
                 .map_err(|e| Error::io("cannot write output", e))
         }
         Some(path) => morbus::io::atomic::write_atomically(path, script.as_bytes()),
-    }
-}
-
-fn parse_lookback(text: Option<&str>) -> Result<Option<u32>, Error> {
-    match text {
-        None => Ok(None),
-        Some("all") => Ok(Some(u32::MAX)),
-        Some(t) => Ok(Some(t.trim().parse::<u32>().map_err(|_| {
-            Error::Usage(format!(
-                "--lookback takes a whole number of days or 'all', not '{t}'"
-            ))
-        })?)),
     }
 }
 

@@ -9,6 +9,8 @@
 //! - [`Extract::open_output`] gives a text output, or a Parquet one typed
 //!   for the table written ([`Table`]); a wide Parquet output of a Parquet
 //!   input copies the input's own columns from it.
+//! - [`Extract::take_input`] gives a run that reads through the history
+//!   reader without copying rows a Parquet input's typed rows instead.
 //! - [`Extract::translate`] turns the pipeline's line numbers into rows for
 //!   a Parquet input.
 
@@ -16,6 +18,7 @@ use std::io::Read;
 use std::path::Path;
 
 use super::files::{open_input, open_output, Output};
+use crate::pipeline::history::Input;
 use crate::pipeline::ScoreConfig;
 use crate::score::Engine;
 use crate::Error;
@@ -39,6 +42,14 @@ pub enum Table {
     Explain,
 }
 
+#[cfg(feature = "parquet")]
+struct ParquetInput {
+    source: Source,
+    schema: SchemaRef,
+    lines: Arc<Mutex<RowLines>>,
+    columns: Option<Vec<usize>>,
+}
+
 /// An extract opened for a run.
 pub struct Extract {
     reader: Box<dyn Read + Send>,
@@ -49,9 +60,9 @@ pub struct Extract {
     /// The input as named in messages.
     pub name: String,
     /// A Parquet input: where it is, its columns (the footer is read once
-    /// here) and the map of its text's lines to rows.
+    /// here), the map of its text's lines to rows, and the columns read.
     #[cfg(feature = "parquet")]
-    parquet: Option<(Source, SchemaRef, Arc<Mutex<RowLines>>)>,
+    parquet: Option<ParquetInput>,
 }
 
 impl Extract {
@@ -86,7 +97,12 @@ impl Extract {
                 size: None,
                 rows,
                 name: input.name,
-                parquet: Some((source, schema, lines)),
+                parquet: Some(ParquetInput {
+                    source,
+                    schema,
+                    lines,
+                    columns,
+                }),
             });
         }
         let _ = (cfg, only_read, extra);
@@ -105,11 +121,43 @@ impl Extract {
         std::mem::replace(&mut self.reader, Box::new(std::io::empty()))
     }
 
+    /// The input for a run that reads it through the history reader
+    /// without copying its rows as text (`explain`, history runs of the long
+    /// layout or with a Parquet output; see
+    /// [`crate::pipeline::reads_rows_typed`]): a
+    /// Parquet input's typed rows ([`parquet::ParquetRows`]: no text is made
+    /// of them), or the text (once; later calls give nothing).
+    pub fn take_input(&mut self) -> Result<Input<'static>, Error> {
+        #[cfg(feature = "parquet")]
+        if let Some(p) = &self.parquet {
+            let rows = parquet::ParquetRows::from_source(
+                p.source.clone(),
+                p.columns.as_deref(),
+                &self.name,
+            )?;
+            self.reader = Box::new(std::io::empty());
+            return Ok(Input::Rows(Box::new(rows)));
+        }
+        Ok(Input::Text(self.take_reader()))
+    }
+
+    /// Whether the input is a Parquet file.
+    pub fn is_parquet(&self) -> bool {
+        #[cfg(feature = "parquet")]
+        return self.parquet.is_some();
+        #[cfg(not(feature = "parquet"))]
+        false
+    }
+
     /// An error of the run, with rows instead of lines for a Parquet input.
     pub fn translate(&self, e: Error) -> Error {
         #[cfg(feature = "parquet")]
-        if let Some((_, _, lines)) = &self.parquet {
-            return lines.lock().expect("row map lock").translate(e, &self.name);
+        if let Some(p) = &self.parquet {
+            return p
+                .lines
+                .lock()
+                .expect("row map lock")
+                .translate(e, &self.name);
         }
         e
     }
@@ -139,12 +187,10 @@ impl Extract {
         cfg: &ScoreConfig,
     ) -> Result<Output, Error> {
         let input = self.parquet.as_ref();
-        let schema = input.map(|(_, schema, _)| schema.as_ref());
+        let schema = input.map(|p| p.schema.as_ref());
         // A wide score's rows are the input's rows: its columns are copied.
         let copies = table == Table::Scores && cfg.layout == Layout::Wide;
-        let copied = input
-            .filter(|_| copies)
-            .map(|(source, _, _)| source.clone());
+        let copied = input.filter(|_| copies).map(|p| p.source.clone());
         let columns = match table {
             Table::Scores => {
                 if let Some(s) = schema.filter(|_| copies) {

@@ -941,9 +941,26 @@ fn kept_column(text: ArrayRef, input: &Option<DataType>) -> ArrayRef {
     let exact = match ArrayFormatter::try_new(typed.as_ref(), &FORMAT) {
         Ok(back) => {
             let strings = text.as_string::<i32>();
+            // A floating-point value read as a typed row is written without
+            // a fraction when it has none (3.0 as `3`): the same number.
+            let same_number = |i: usize, text: &str| match typed.data_type() {
+                DataType::Float64 => text.parse::<f64>().ok().is_some_and(|x| {
+                    x == typed
+                        .as_primitive::<arrow_array::types::Float64Type>()
+                        .value(i)
+                }),
+                DataType::Float32 => text.parse::<f32>().ok().is_some_and(|x| {
+                    x == typed
+                        .as_primitive::<arrow_array::types::Float32Type>()
+                        .value(i)
+                }),
+                _ => false,
+            };
             (0..typed.len()).all(|i| {
                 strings.is_null(i) == typed.is_null(i)
-                    && (strings.is_null(i) || back.value(i).to_string() == strings.value(i))
+                    && (strings.is_null(i)
+                        || back.value(i).to_string() == strings.value(i)
+                        || same_number(i, strings.value(i)))
             })
         }
         Err(_) => false,
@@ -1088,12 +1105,307 @@ pub fn check_copied_names(input: &Schema, engine: &Engine) -> Result<(), Error> 
     crate::pipeline::check_collisions(&names, engine)
 }
 
+/// A Parquet input's rows, typed, for the history reader
+/// ([`crate::rows::RowSource`]): record batches decoded from the file and
+/// read in place, without any text in between. Text, binary and dictionary
+/// columns give their bytes; integers, floating-point numbers and booleans
+/// their values; dates and timestamps their day (a timestamp with a time
+/// zone on its date in that zone). Other types (decimals, lists, ...) give
+/// the text of Arrow's formatter, as the text path did, so that they read
+/// (or fail to read) as before.
+pub struct ParquetRows {
+    source: Source,
+    batches: ParquetRecordBatchReader,
+    names: Vec<String>,
+    /// The input as named in messages.
+    name: String,
+}
+
+impl ParquetRows {
+    /// The rows of `source`; `columns` (indices of the file's top-level
+    /// columns) keeps only those, in file order. `name` names the input in
+    /// messages (`row 4 of NAME: ...`).
+    pub fn from_source(
+        source: Source,
+        columns: Option<&[usize]>,
+        name: &str,
+    ) -> Result<ParquetRows, Error> {
+        let mut builder = source.builder()?.with_batch_size(BATCH_ROWS);
+        if let Some(cols) = columns {
+            let mask = ProjectionMask::roots(builder.parquet_schema(), cols.iter().copied());
+            builder = builder.with_projection(mask);
+        }
+        let names = builder
+            .schema()
+            .fields()
+            .iter()
+            .enumerate()
+            .filter(|(k, _)| columns.is_none_or(|c| c.contains(k)))
+            .map(|(_, f)| f.name().clone())
+            .collect();
+        let batches = source.build(builder)?;
+        Ok(ParquetRows {
+            source,
+            batches,
+            names,
+            name: name.to_string(),
+        })
+    }
+}
+
+impl crate::rows::RowSource<'static> for ParquetRows {
+    fn header(&self) -> crate::pipeline::Header {
+        crate::pipeline::Header {
+            names: self.names.clone(),
+        }
+    }
+
+    fn next_batch(&mut self) -> Result<Option<Box<dyn crate::rows::Batch>>, Error> {
+        let Some(batch) = self.source.next_batch(&mut self.batches)? else {
+            return Ok(None);
+        };
+        // The decoder's arrays of a damaged file may upset their reading
+        // too: the whole step is guarded.
+        let names = &self.names;
+        let typed = guarded(|| ArrowBatch::new(&batch, names))
+            .unwrap_or_else(|m| Err(self.source.damaged(&m)))?;
+        Ok(Some(Box::new(typed)))
+    }
+
+    fn naming(&self) -> crate::rows::RowNaming {
+        crate::rows::RowNaming {
+            first: 1,
+            of: Some(self.name.clone()),
+        }
+    }
+}
+
+/// A record batch's columns, typed for reading row by row.
+struct ArrowBatch {
+    rows: usize,
+    columns: Vec<ArrowColumn>,
+}
+
+/// One column of a record batch as the row model reads it.
+enum ArrowColumn {
+    Utf8(arrow_array::StringArray),
+    LargeUtf8(arrow_array::LargeStringArray),
+    Utf8View(arrow_array::StringViewArray),
+    Binary(arrow_array::BinaryArray),
+    LargeBinary(arrow_array::LargeBinaryArray),
+    /// Signed and unsigned integers up to 32 bits, and 64-bit signed ones.
+    Int(arrow_array::Int64Array),
+    Float(arrow_array::Float64Array),
+    Bool(arrow_array::BooleanArray),
+    /// Dates and timestamps: the day (days since 1970-01-01).
+    Days(Vec<Option<i64>>),
+    /// A dictionary: each row's key into its values.
+    Dictionary(Vec<Option<usize>>, Box<ArrowColumn>),
+    /// Any other type, as Arrow's formatter writes it.
+    Formatted(Vec<Option<String>>),
+}
+
+impl ArrowBatch {
+    fn new(batch: &RecordBatch, names: &[String]) -> Result<ArrowBatch, Error> {
+        let columns = batch
+            .columns()
+            .iter()
+            .zip(names)
+            .map(|(a, name)| ArrowColumn::new(a, name))
+            .collect::<Result<Vec<_>, Error>>()?;
+        Ok(ArrowBatch {
+            rows: batch.num_rows(),
+            columns,
+        })
+    }
+}
+
+/// Days since 1970-01-01 of a timestamp column's values: in its time zone
+/// when it has one (a named zone or an offset), else as written.
+fn timestamp_days(array: &dyn Array, name: &str) -> Result<Vec<Option<i64>>, Error> {
+    use arrow_array::temporal_conversions::as_datetime_with_timezone;
+    use arrow_array::timezone::Tz;
+    use arrow_array::types::{
+        ArrowTimestampType, TimestampMicrosecondType, TimestampMillisecondType,
+        TimestampNanosecondType, TimestampSecondType,
+    };
+    use arrow_schema::TimeUnit;
+    fn days<T: ArrowTimestampType>(
+        array: &dyn Array,
+        tz: Option<Tz>,
+        per_day: i64,
+    ) -> Vec<Option<i64>> {
+        let a = array.as_primitive::<T>();
+        (0..a.len())
+            .map(|i| {
+                if a.is_null(i) {
+                    return None;
+                }
+                let v = a.value(i);
+                match tz {
+                    None => Some(v.div_euclid(per_day)),
+                    Some(tz) => as_datetime_with_timezone::<T>(v, tz)
+                        .map(|t| t.naive_local().and_utc().timestamp().div_euclid(86_400)),
+                }
+            })
+            .collect()
+    }
+    let DataType::Timestamp(unit, zone) = array.data_type() else {
+        unreachable!("a timestamp column");
+    };
+    let tz = match zone {
+        None => None,
+        Some(z) => Some(z.parse::<Tz>().map_err(|e| {
+            Error::data(
+                None,
+                format!("column '{name}' has a time zone that cannot be read ({z}): {e}"),
+            )
+        })?),
+    };
+    Ok(match unit {
+        TimeUnit::Second => days::<TimestampSecondType>(array, tz, 86_400),
+        TimeUnit::Millisecond => days::<TimestampMillisecondType>(array, tz, 86_400_000),
+        TimeUnit::Microsecond => days::<TimestampMicrosecondType>(array, tz, 86_400_000_000),
+        TimeUnit::Nanosecond => days::<TimestampNanosecondType>(array, tz, 86_400_000_000_000),
+    })
+}
+
+impl ArrowColumn {
+    fn new(array: &ArrayRef, name: &str) -> Result<ArrowColumn, Error> {
+        use arrow_array::types::{Date32Type, Date64Type};
+        let cast = |to: &DataType| {
+            arrow_cast::cast(array, to)
+                .map_err(|e| Error::data(None, format!("column '{name}' cannot be read: {e}")))
+        };
+        Ok(match array.data_type() {
+            DataType::Utf8 => ArrowColumn::Utf8(array.as_string::<i32>().clone()),
+            DataType::LargeUtf8 => ArrowColumn::LargeUtf8(array.as_string::<i64>().clone()),
+            DataType::Utf8View => ArrowColumn::Utf8View(array.as_string_view().clone()),
+            DataType::Binary => ArrowColumn::Binary(array.as_binary::<i32>().clone()),
+            DataType::LargeBinary => ArrowColumn::LargeBinary(array.as_binary::<i64>().clone()),
+            DataType::Int8
+            | DataType::Int16
+            | DataType::Int32
+            | DataType::Int64
+            | DataType::UInt8
+            | DataType::UInt16
+            | DataType::UInt32 => ArrowColumn::Int(
+                cast(&DataType::Int64)?
+                    .as_primitive::<arrow_array::types::Int64Type>()
+                    .clone(),
+            ),
+            DataType::Float16 | DataType::Float32 | DataType::Float64 => ArrowColumn::Float(
+                cast(&DataType::Float64)?
+                    .as_primitive::<arrow_array::types::Float64Type>()
+                    .clone(),
+            ),
+            DataType::Boolean => ArrowColumn::Bool(array.as_boolean().clone()),
+            DataType::Date32 => {
+                let a = array.as_primitive::<Date32Type>();
+                ArrowColumn::Days(a.iter().map(|d| d.map(i64::from)).collect())
+            }
+            DataType::Date64 => {
+                let a = array.as_primitive::<Date64Type>();
+                ArrowColumn::Days(
+                    a.iter()
+                        .map(|d| d.map(|ms| ms.div_euclid(86_400_000)))
+                        .collect(),
+                )
+            }
+            DataType::Timestamp(..) => ArrowColumn::Days(timestamp_days(array.as_ref(), name)?),
+            DataType::Dictionary(..) => {
+                let d = array.as_any_dictionary();
+                let keys = d.normalized_keys();
+                let values = ArrowColumn::new(d.values(), name)?;
+                ArrowColumn::Dictionary(
+                    (0..array.len())
+                        .map(|i| array.is_valid(i).then(|| keys[i]))
+                        .collect(),
+                    Box::new(values),
+                )
+            }
+            _ => {
+                use std::fmt::Write as _;
+                let f = ArrayFormatter::try_new(array.as_ref(), &FORMAT).map_err(|e| {
+                    Error::data(
+                        None,
+                        format!(
+                            "column '{name}' holds {} values, which cannot be read: {e}",
+                            array.data_type()
+                        ),
+                    )
+                })?;
+                ArrowColumn::Formatted(
+                    (0..array.len())
+                        .map(|i| {
+                            array.is_valid(i).then(|| {
+                                let mut t = String::new();
+                                let _ = write!(t, "{}", f.value(i));
+                                t
+                            })
+                        })
+                        .collect(),
+                )
+            }
+        })
+    }
+
+    #[inline]
+    fn field(&self, row: usize) -> crate::rows::Field<'_> {
+        use crate::rows::Field;
+        match self {
+            ArrowColumn::Utf8(a) if a.is_valid(row) => Field::Text(a.value(row).as_bytes()),
+            ArrowColumn::LargeUtf8(a) if a.is_valid(row) => Field::Text(a.value(row).as_bytes()),
+            ArrowColumn::Utf8View(a) if a.is_valid(row) => Field::Text(a.value(row).as_bytes()),
+            ArrowColumn::Binary(a) if a.is_valid(row) => Field::Text(a.value(row)),
+            ArrowColumn::LargeBinary(a) if a.is_valid(row) => Field::Text(a.value(row)),
+            ArrowColumn::Int(a) if a.is_valid(row) => Field::Integer(a.value(row)),
+            ArrowColumn::Float(a) if a.is_valid(row) => Field::Number(a.value(row)),
+            ArrowColumn::Bool(a) if a.is_valid(row) => Field::Logical(a.value(row)),
+            ArrowColumn::Days(d) => d[row].map_or(Field::Null, Field::Date),
+            ArrowColumn::Dictionary(keys, values) => {
+                keys[row].map_or(Field::Null, |k| values.field(k))
+            }
+            ArrowColumn::Formatted(t) => t[row]
+                .as_deref()
+                .map_or(Field::Null, |t| Field::Text(t.as_bytes())),
+            _ => Field::Null,
+        }
+    }
+}
+
+impl crate::rows::Batch for ArrowBatch {
+    fn len(&self) -> usize {
+        self.rows
+    }
+    #[inline]
+    fn field(&self, col: usize, row: usize) -> crate::rows::Field<'_> {
+        self.columns
+            .get(col)
+            .map_or(crate::rows::Field::Null, |c| c.field(row))
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
     use crate::lists::Catalogue;
     use crate::score::{IndexSpec, ScoreOptions};
     use arrow_array::{Int64Array, StringArray};
+
+    #[test]
+    fn a_floating_point_id_written_without_its_fraction_keeps_its_type() {
+        // Typed rows give an id 3.0 as `3`; the output casts it back.
+        let text: ArrayRef = Arc::new(StringArray::from(vec![Some("3"), Some("4.5"), None]));
+        let back = kept_column(text.clone(), &Some(DataType::Float64));
+        assert_eq!(back.data_type(), &DataType::Float64);
+        let v = back.as_primitive::<arrow_array::types::Float64Type>();
+        assert_eq!((v.value(0), v.value(1), v.is_null(2)), (3.0, 4.5, true));
+        // Text that is not the same number stays text.
+        let odd: ArrayRef = Arc::new(StringArray::from(vec![Some("3"), Some("x")]));
+        let kept = kept_column(odd, &Some(DataType::Float64));
+        assert_eq!(kept.data_type(), &DataType::Utf8);
+    }
 
     #[test]
     fn rows_of_lines_after_values_with_line_breaks() {

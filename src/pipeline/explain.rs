@@ -2,9 +2,9 @@
 //! where the code came from and whether it counted, and a total row per
 //! episode and index.
 
-use std::io::{Read, Write};
+use std::io::Write;
 
-use super::history::{History, Needs, Windows};
+use super::history::{CodeRecord, History, Needs, Windows};
 use super::{Exclusion, ScoreConfig, Summary, WindowScope};
 use crate::io::write_field;
 use crate::lists::format_scaled;
@@ -85,12 +85,162 @@ fn json_str(s: &str) -> String {
     serde_json::to_string(s).unwrap_or_else(|_| "\"\"".into())
 }
 
-/// Runs `explain` over an extract.
-pub fn explain_stream(
+/// One record of `explain`, typed: a matched code of an episode's window,
+/// or a total of an episode and index.
+#[derive(Clone, Debug)]
+pub struct Record<'h> {
+    /// The episode explained.
+    pub episode: usize,
+    /// The index specification (into [`Engine::specs`]).
+    pub spec: usize,
+    /// A code row: the episode the code comes from and the code as read.
+    pub source: Option<(usize, &'h CodeRecord)>,
+    /// A code row: the condition (into the list's conditions).
+    pub condition: Option<usize>,
+    /// The condition's weight (code rows) or the total, scaled by
+    /// [`crate::lists::SCALE`].
+    pub weight: i64,
+    /// Decimals of the index's weights.
+    pub decimals: u32,
+    /// `counted`, `repeated`, `superseded_by:KEY`, `excluded:...`, `total`,
+    /// `total_with_age:AGE`.
+    pub status: String,
+    /// The age points of a `total_with_age` record.
+    pub age_points: Option<i64>,
+}
+
+impl Record<'_> {
+    /// The date shown with the record: the source episode's (code rows),
+    /// the episode's own (totals).
+    pub fn date(&self, hist: &History) -> Option<i32> {
+        match self.source {
+            Some((src, _)) => hist.episodes[src].date,
+            None => hist.episodes[self.episode].date,
+        }
+    }
+}
+
+/// Explains every episode of a resolved history (`sorted`: its window
+/// order), handing the records to `sink` episode by episode, in input
+/// order: per index, the current episode's codes, then those of the
+/// window's other episodes (most recent first), then the totals.
+pub fn explain_history(
+    engine: &Engine,
+    windows: &Windows,
+    hist: &History,
+    sorted: &[u32],
+    mut sink: impl FnMut(Record<'_>) -> Result<(), Error>,
+) -> Result<(), Error> {
+    let resolved = hist.final_sets(engine);
+    let mut pos = vec![0u32; sorted.len()];
+    for (i, &e) in sorted.iter().enumerate() {
+        pos[e as usize] = i as u32;
+    }
+    let w = hist.words();
+    // Codes per episode, in input order.
+    let mut by_episode: Vec<Vec<usize>> = vec![Vec::new(); hist.episodes.len()];
+    for (i, c) in hist.codes.iter().enumerate() {
+        by_episode[c.episode as usize].push(i);
+    }
+    let mut order: Vec<u32> = Vec::new();
+    for (e, ep) in hist.episodes.iter().enumerate() {
+        let final_bits = &resolved[e * w..(e + 1) * w];
+        for (si, spec) in engine.specs().iter().enumerate() {
+            let sel = &engine.lists()[spec.list];
+            let list = &sel.list;
+            let weighting = &list.weightings[spec.weighting];
+            let decimals = weighting.decimals;
+            // The current episode first, then the window's others, most
+            // recent first.
+            let days = windows.per_list[spec.list];
+            order.clear();
+            order.push(e as u32);
+            order.extend(hist.window_members(sorted, &pos, e, days, windows.scope));
+            let current_left_out = days.is_some() && windows.scope == WindowScope::EarlierOnly;
+            let mut counted = vec![false; list.conditions.len()];
+            let mut total = 0i64;
+            for &src in &order {
+                for &ci in &by_episode[src as usize] {
+                    let rec = &hist.codes[ci];
+                    let mut hits: Vec<usize> = Vec::new();
+                    engine.matcher().for_each_hit(&rec.code, |id| {
+                        let id = id as usize;
+                        if id >= sel.offset && id < sel.offset + list.conditions.len() {
+                            hits.push(id - sel.offset);
+                        }
+                    });
+                    hits.sort_unstable();
+                    hits.dedup();
+                    for c in hits {
+                        let status = if src as usize == e && current_left_out {
+                            Status::CurrentEpisode
+                        } else if src as usize == e && rec.exclusion.is_some() {
+                            Status::Excluded(rec.exclusion.unwrap_or(Exclusion::Primary))
+                        } else if !Engine::has(final_bits, sel.offset + c) {
+                            let sup = list
+                                .hierarchy
+                                .iter()
+                                .find(|h| {
+                                    h.inferior == c
+                                        && Engine::has(final_bits, sel.offset + h.superior)
+                                })
+                                .or_else(|| list.hierarchy.iter().find(|h| h.inferior == c))
+                                .map(|h| list.conditions[h.superior].key.clone())
+                                .unwrap_or_default();
+                            Status::SupersededBy(sup)
+                        } else if counted[c] {
+                            Status::Repeated
+                        } else {
+                            counted[c] = true;
+                            total += weighting.weights[c];
+                            Status::Counted
+                        };
+                        sink(Record {
+                            episode: e,
+                            spec: si,
+                            source: Some((src as usize, rec)),
+                            condition: Some(c),
+                            weight: weighting.weights[c],
+                            decimals,
+                            status: status.label(),
+                            age_points: None,
+                        })?;
+                    }
+                }
+            }
+            debug_assert_eq!(total, engine.score(final_bits, si));
+            let score = engine.score(final_bits, si);
+            let total_row = |scaled: i64, status: String, age_points: Option<i64>| Record {
+                episode: e,
+                spec: si,
+                source: None,
+                condition: None,
+                weight: scaled,
+                decimals,
+                status,
+                age_points,
+            };
+            sink(total_row(score, "total".into(), None))?;
+            if let (Some(age), true) = (ep.age, engine.options().age && !list.age_points.is_empty())
+            {
+                let points = list.points_for_age(age);
+                sink(total_row(
+                    score + points,
+                    format!("total_with_age:{age}"),
+                    Some(points),
+                ))?;
+            }
+        }
+    }
+    Ok(())
+}
+
+/// Runs `explain` over an extract (text, or typed rows).
+pub fn explain_stream<'a>(
     engine: &Engine,
     cfg: &ScoreConfig,
     format: ExplainFormat,
-    input: impl Read + Send,
+    input: impl Into<super::history::Input<'a>>,
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
     let windows = Windows::new(engine, cfg)?;
@@ -105,20 +255,8 @@ pub fn explain_stream(
     )?;
     let sorted = hist.resolve(&windows);
     let hist = hist;
-    let resolved = hist.final_sets(engine);
-    let mut pos = vec![0u32; sorted.len()];
-    for (i, &e) in sorted.iter().enumerate() {
-        pos[e as usize] = i as u32;
-    }
-    let w = hist.words();
     let p = &hist.plan;
     let d = cfg.delimiter;
-
-    // Codes per episode, in input order.
-    let mut by_episode: Vec<Vec<usize>> = vec![Vec::new(); hist.episodes.len()];
-    for (i, c) in hist.codes.iter().enumerate() {
-        by_episode[c.episode as usize].push(i);
-    }
 
     let id_name = p.id.map(|c| p.header.names[c].clone());
     let episode_name = p.episode.map(|c| p.header.names[c].clone());
@@ -191,129 +329,67 @@ pub fn explain_stream(
         emit(&mut out, &h);
     }
 
-    let mut order: Vec<u32> = Vec::new();
-    for (e, ep) in hist.episodes.iter().enumerate() {
-        let final_bits = &resolved[e * w..(e + 1) * w];
-
-        let mut prefix: Vec<String> = Vec::new();
-        if id_name.is_some() {
-            prefix.push(String::from_utf8_lossy(&hist.patients[ep.patient as usize]).into_owned());
-        }
-        if episode_name.is_some() {
-            prefix.push(String::from_utf8_lossy(hist.key(e)).into_owned());
-        }
-        for j in 0..p.keep.len() {
-            prefix.push(String::from_utf8_lossy(hist.kept(e, j)).into_owned());
-        }
-        prefix.push(ep.row.to_string());
-
-        for (si, spec) in engine.specs().iter().enumerate() {
-            let sel = &engine.lists()[spec.list];
-            let list = &sel.list;
-            let weighting = &list.weightings[spec.weighting];
-            let decimals = weighting.decimals;
-            // The current episode first, then the window's others, most
-            // recent first.
-            let days = windows.per_list[spec.list];
-            order.clear();
-            order.push(e as u32);
-            order.extend(hist.window_members(&sorted, &pos, e, days, windows.scope));
-            let current_left_out = days.is_some() && windows.scope == WindowScope::EarlierOnly;
-            let mut counted = vec![false; list.conditions.len()];
-            let mut total = 0i64;
-            for &src in &order {
-                let src_ep = &hist.episodes[src as usize];
-                for &ci in &by_episode[src as usize] {
-                    let rec = &hist.codes[ci];
-                    let mut hits: Vec<usize> = Vec::new();
-                    engine.matcher().for_each_hit(&rec.code, |id| {
-                        let id = id as usize;
-                        if id >= sel.offset && id < sel.offset + list.conditions.len() {
-                            hits.push(id - sel.offset);
-                        }
-                    });
-                    hits.sort_unstable();
-                    hits.dedup();
-                    for c in hits {
-                        let status = if src as usize == e && current_left_out {
-                            Status::CurrentEpisode
-                        } else if src as usize == e && rec.exclusion.is_some() {
-                            Status::Excluded(rec.exclusion.unwrap_or(Exclusion::Primary))
-                        } else if !Engine::has(final_bits, sel.offset + c) {
-                            let sup = list
-                                .hierarchy
-                                .iter()
-                                .find(|h| {
-                                    h.inferior == c
-                                        && Engine::has(final_bits, sel.offset + h.superior)
-                                })
-                                .or_else(|| list.hierarchy.iter().find(|h| h.inferior == c))
-                                .map(|h| list.conditions[h.superior].key.clone())
-                                .unwrap_or_default();
-                            Status::SupersededBy(sup)
-                        } else if counted[c] {
-                            Status::Repeated
-                        } else {
-                            counted[c] = true;
-                            total += weighting.weights[c];
-                            Status::Counted
-                        };
-                        let mut weight = Vec::new();
-                        format_scaled(weighting.weights[c], decimals, &mut weight);
-                        let mut cells = prefix.clone();
-                        cells.push(format!("{}:{}", list.name, weighting.name));
-                        cells.push(src_ep.row.to_string());
-                        cells.push(iso(src_ep.date));
-                        cells.push(String::from_utf8_lossy(&rec.written).trim().to_string());
-                        cells.push(rec.code.to_string());
-                        cells.push(list.conditions[c].key.clone());
-                        cells.push(String::from_utf8_lossy(&weight).into_owned());
-                        cells.push(status.label());
-                        cells.push(String::new());
-                        emit(&mut out, &cells);
-                    }
-                }
+    let mut prefix: Vec<String> = Vec::new();
+    let mut prefix_of = usize::MAX;
+    let scaled_text = |scaled: i64, decimals: u32| {
+        let mut t = Vec::new();
+        format_scaled(scaled, decimals, &mut t);
+        String::from_utf8_lossy(&t).into_owned()
+    };
+    explain_history(engine, &windows, &hist, &sorted, |r| {
+        let e = r.episode;
+        if prefix_of != e {
+            if out.len() > 1 << 20 {
+                output.write_all(&out).map_err(write_err)?;
+                out.clear();
             }
-            debug_assert_eq!(total, engine.score(final_bits, si));
-            let score = engine.score(final_bits, si);
-            let mut total_row = |scaled: i64, status: String, age_points: Option<i64>| {
-                let mut cells = prefix.clone();
-                cells.push(format!("{}:{}", list.name, weighting.name));
-                cells.extend([
-                    String::new(),
-                    iso(ep.date),
-                    String::new(),
-                    String::new(),
-                    String::new(),
-                ]);
-                let mut t = Vec::new();
-                format_scaled(scaled, decimals, &mut t);
-                cells.push(String::from_utf8_lossy(&t).into_owned());
-                cells.push(status);
-                let mut a = Vec::new();
-                if let Some(points) = age_points {
-                    format_scaled(points, decimals, &mut a);
-                }
-                cells.push(String::from_utf8_lossy(&a).into_owned());
-                emit(&mut out, &cells);
-            };
-            total_row(score, "total".into(), None);
-            if let (Some(age), true) = (ep.age, engine.options().age && !list.age_points.is_empty())
-            {
-                let points = list.points_for_age(age);
-                total_row(
-                    score + points,
-                    format!("total_with_age:{age}"),
-                    Some(points),
+            prefix_of = e;
+            let ep = &hist.episodes[e];
+            prefix.clear();
+            if id_name.is_some() {
+                prefix.push(
+                    String::from_utf8_lossy(&hist.patients[ep.patient as usize]).into_owned(),
                 );
             }
+            if episode_name.is_some() {
+                prefix.push(String::from_utf8_lossy(hist.key(e)).into_owned());
+            }
+            for j in 0..p.keep.len() {
+                prefix.push(String::from_utf8_lossy(hist.kept(e, j)).into_owned());
+            }
+            prefix.push(ep.row.to_string());
         }
-        summary.units += 1;
-        if out.len() > 1 << 20 {
-            output.write_all(&out).map_err(write_err)?;
-            out.clear();
+        let spec = &engine.specs()[r.spec];
+        let list = &engine.lists()[spec.list].list;
+        let weighting = &list.weightings[spec.weighting];
+        let mut cells = prefix.clone();
+        cells.push(format!("{}:{}", list.name, weighting.name));
+        match (r.source, r.condition) {
+            (Some((src, rec)), Some(c)) => {
+                cells.push(hist.episodes[src].row.to_string());
+                cells.push(iso(r.date(&hist)));
+                cells.push(String::from_utf8_lossy(&rec.written).trim().to_string());
+                cells.push(rec.code.to_string());
+                cells.push(list.conditions[c].key.clone());
+            }
+            _ => cells.extend([
+                String::new(),
+                iso(r.date(&hist)),
+                String::new(),
+                String::new(),
+                String::new(),
+            ]),
         }
-    }
+        cells.push(scaled_text(r.weight, r.decimals));
+        cells.push(r.status);
+        cells.push(
+            r.age_points
+                .map_or_else(String::new, |a| scaled_text(a, r.decimals)),
+        );
+        emit(&mut out, &cells);
+        Ok(())
+    })?;
+    summary.units += hist.episodes.len() as u64;
     summary.rows_written = summary.units;
     output.write_all(&out).map_err(write_err)?;
     output.flush().map_err(write_err)?;

@@ -20,7 +20,7 @@ use std::hash::BuildHasherDefault;
 use std::io::{Read, Write};
 
 use super::dates;
-use super::parallel::run_blocks;
+use super::parallel::{run_batches, run_blocks};
 use super::rows_store::{Loaded, RowStore};
 use super::{
     check_collisions, disagreement, keep_first, Exclusion, Layout, Plan, RowIssue, ScoreConfig,
@@ -29,10 +29,26 @@ use super::{
 use crate::code::Code;
 use crate::io::{write_field, RecordScanner};
 use crate::matcher::KeyHasher;
+use crate::rows::{Batch, BatchRow, Row, RowSource};
 use crate::score::{Engine, Value};
 use crate::Error;
 
 type ByteMap<V> = HashMap<Box<[u8]>, V, BuildHasherDefault<KeyHasher>>;
+
+/// Where a history's rows come from.
+pub enum Input<'a> {
+    /// Delimited text (a file, standard input, a buffer), read in blocks.
+    Text(Box<dyn Read + Send + 'a>),
+    /// Typed rows (a data frame, a Parquet file's record batches), read
+    /// batch by batch without any text in between.
+    Rows(Box<dyn RowSource<'a> + 'a>),
+}
+
+impl<'a, R: Read + Send + 'a> From<R> for Input<'a> {
+    fn from(r: R) -> Input<'a> {
+        Input::Text(Box::new(r))
+    }
+}
 
 /// One episode of the extract.
 #[derive(Clone, Debug)]
@@ -244,7 +260,141 @@ struct BlockRows {
     codes: Vec<CodeRecord>,
 }
 
-/// Reads the data records of one block.
+impl BlockRows {
+    fn new() -> BlockRows {
+        BlockRows {
+            summary: Summary::default(),
+            err: None,
+            rows: Vec::new(),
+            ids: Vec::new(),
+            keep: Vec::new(),
+            all: Vec::new(),
+            cur: Vec::new(),
+            raw: Vec::new(),
+            raw_ends: Vec::new(),
+            codes: Vec::new(),
+        }
+    }
+}
+
+/// What a block reader keeps of each row besides its conditions.
+#[derive(Clone, Copy)]
+struct Keeps {
+    codes: bool,
+    /// Two condition sets (an exclusion rule is on).
+    exclusions: bool,
+    /// The wide layout's raw rows.
+    rows: bool,
+}
+
+/// Reads one row, whatever its source, into `b`: the one reader of the
+/// history's rows. `line` gives the row's place for messages (the line of
+/// a text record, the 1-based row of a typed source); `raw` is the text
+/// record's bytes.
+#[allow(clippy::too_many_arguments)]
+fn read_row(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    p: &Plan,
+    b: &mut BlockRows,
+    row: &impl Row,
+    mut line: impl FnMut() -> u64,
+    raw: Option<&[u8]>,
+    keeps: Keeps,
+) -> Result<(), Error> {
+    let words = engine.words();
+    let id_text = |c: usize| row.field(c).text_or_empty();
+    let no_id = p.id.is_some_and(|c| id_text(c).trim_ascii().is_empty());
+    if no_id {
+        if cfg.strict {
+            return Err(p.missing_id(line()));
+        }
+        b.summary.missing_ids += 1;
+    }
+    let id = |c: Option<usize>, ids: &mut Vec<u8>| {
+        let s = ids.len();
+        if let Some(c) = c {
+            ids.extend_from_slice(&id_text(c));
+        }
+        (s, ids.len())
+    };
+    let pid = id(p.id, &mut b.ids);
+    let ekey = id(p.episode, &mut b.ids);
+    for &c in &p.keep {
+        let span = id(Some(c), &mut b.ids);
+        b.keep.push(span);
+    }
+    let date = match p.read_date(cfg, row, &mut b.summary) {
+        Ok(Some(d)) => DateRead::Day(d),
+        Ok(None) => DateRead::Missing,
+        Err(raw) => {
+            if cfg.strict {
+                return Err(match raw {
+                    Some(v) => p.issue_at(RowIssue::UnreadableDate(v), line()),
+                    None => Error::Strict {
+                        line: Some(line()),
+                        message: "missing date".into(),
+                    },
+                });
+            }
+            if raw.is_some() {
+                DateRead::Unreadable
+            } else {
+                DateRead::Missing
+            }
+        }
+    };
+    let age = p
+        .read_age(cfg, row, &mut b.summary)
+        .map_err(|i| p.issue_at(i, line()))?;
+    let index = b.rows.len();
+    b.all.resize(b.all.len() + words, 0);
+    if keeps.exclusions {
+        b.cur.resize(b.cur.len() + words, 0);
+    }
+    let base = index * words;
+    let (all, cur, codes) = (&mut b.all, &mut b.cur, &mut b.codes);
+    let mut excluded = (0u64, 0u64);
+    p.read_codes(cfg, row, &mut b.summary, |written, code, excl| {
+        engine.add_code(&mut all[base..base + words], &code);
+        match excl {
+            None if keeps.exclusions => engine.add_code(&mut cur[base..base + words], &code),
+            None => {}
+            Some(Exclusion::Primary) => excluded.0 += 1,
+            Some(Exclusion::NotPresentOnAdmission) => excluded.1 += 1,
+        }
+        if keeps.codes {
+            codes.push(CodeRecord {
+                episode: index as u32,
+                written: written.into(),
+                code,
+                exclusion: excl,
+            });
+        }
+    })
+    .map_err(|i| p.issue_at(i, line()))?;
+    b.summary.excluded_primary += excluded.0;
+    b.summary.excluded_not_on_admission += excluded.1;
+    if let (true, Layout::Wide, Some(raw)) = (keeps.rows, cfg.layout, raw) {
+        b.raw.extend_from_slice(raw);
+        b.raw_ends.push(b.raw.len());
+    }
+    let line = match cfg.layout {
+        Layout::Long => line(),
+        Layout::Wide => 0,
+    };
+    b.rows.push(RowRead {
+        no_id,
+        pid,
+        ekey,
+        date,
+        age,
+        line,
+    });
+    Ok(())
+}
+
+/// Reads the data records of one block of text.
 fn read_block(
     engine: &Engine,
     cfg: &ScoreConfig,
@@ -252,119 +402,50 @@ fn read_block(
     block: &crate::io::Block,
     start: usize,
     scanner: &mut RecordScanner,
-    (keep_codes, exclusions, keep_rows): (bool, bool, bool),
+    keeps: Keeps,
 ) -> BlockRows {
-    let words = engine.words();
-    let mut b = BlockRows {
-        summary: Summary::default(),
-        err: None,
-        rows: Vec::new(),
-        ids: Vec::new(),
-        keep: Vec::new(),
-        all: Vec::new(),
-        cur: Vec::new(),
-        raw: Vec::new(),
-        raw_ends: Vec::new(),
-        codes: Vec::new(),
-    };
+    let mut b = BlockRows::new();
     // Lines counted incrementally: O(block) per block.
     let mut lines = super::LineCursor::new(block);
     let r = scanner.scan_from(&block.data, start, block.last, |rec| -> Result<(), Error> {
         b.summary.rows_read += 1;
         p.check_width(block, &rec)?;
-        let issue = |i: RowIssue| p.issue(i, block, &rec);
-        let mut line = || lines.line_at(block, rec.offset);
-        let no_id =
-            p.id.is_some_and(|c| rec.fields.get(c).trim_ascii().is_empty());
-        if no_id {
-            if cfg.strict {
-                return Err(p.missing_id(line()));
-            }
-            b.summary.missing_ids += 1;
-        }
-        let id = |c: Option<usize>, ids: &mut Vec<u8>| {
-            let s = ids.len();
-            if let Some(c) = c {
-                ids.extend_from_slice(rec.fields.get(c));
-            }
-            (s, ids.len())
-        };
-        let pid = id(p.id, &mut b.ids);
-        let ekey = id(p.episode, &mut b.ids);
-        for &c in &p.keep {
-            let span = id(Some(c), &mut b.ids);
-            b.keep.push(span);
-        }
-        let date = match p.read_date(cfg, &rec.fields, &mut b.summary) {
-            Ok(Some(d)) => DateRead::Day(d),
-            Ok(None) => DateRead::Missing,
-            Err(raw) => {
-                if cfg.strict {
-                    return Err(match raw {
-                        Some(v) => issue(RowIssue::UnreadableDate(v)),
-                        None => Error::Strict {
-                            line: Some(line()),
-                            message: "missing date".into(),
-                        },
-                    });
-                }
-                if raw.is_some() {
-                    DateRead::Unreadable
-                } else {
-                    DateRead::Missing
-                }
-            }
-        };
-        let age = p
-            .read_age(cfg, &rec.fields, &mut b.summary)
-            .map_err(issue)?;
-        let row = b.rows.len();
-        b.all.resize(b.all.len() + words, 0);
-        if exclusions {
-            b.cur.resize(b.cur.len() + words, 0);
-        }
-        let base = row * words;
-        let (all, cur, codes) = (&mut b.all, &mut b.cur, &mut b.codes);
-        let mut excluded = (0u64, 0u64);
-        p.read_codes(cfg, &rec.fields, &mut b.summary, |written, code, excl| {
-            engine.add_code(&mut all[base..base + words], &code);
-            match excl {
-                None if exclusions => engine.add_code(&mut cur[base..base + words], &code),
-                None => {}
-                Some(Exclusion::Primary) => excluded.0 += 1,
-                Some(Exclusion::NotPresentOnAdmission) => excluded.1 += 1,
-            }
-            if keep_codes {
-                codes.push(CodeRecord {
-                    episode: row as u32,
-                    written: written.into(),
-                    code,
-                    exclusion: excl,
-                });
-            }
-        })
-        .map_err(issue)?;
-        b.summary.excluded_primary += excluded.0;
-        b.summary.excluded_not_on_admission += excluded.1;
-        if keep_rows && cfg.layout == Layout::Wide {
-            b.raw.extend_from_slice(rec.raw);
-            b.raw_ends.push(b.raw.len());
-        }
-        let line = match cfg.layout {
-            Layout::Long => line(),
-            Layout::Wide => 0,
-        };
-        b.rows.push(RowRead {
-            no_id,
-            pid,
-            ekey,
-            date,
-            age,
+        let line = || lines.line_at(block, rec.offset);
+        read_row(
+            engine,
+            cfg,
+            p,
+            &mut b,
+            &rec.fields,
             line,
-        });
-        Ok(())
+            Some(rec.raw),
+            keeps,
+        )
     });
     b.err = r.err();
+    b
+}
+
+/// Reads the rows of one typed batch, whose first row is data row `first`
+/// (1-based) of its source.
+fn read_batch(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    p: &Plan,
+    batch: &dyn Batch,
+    first: u64,
+    keeps: Keeps,
+) -> BlockRows {
+    let mut b = BlockRows::new();
+    for i in 0..batch.len() {
+        b.summary.rows_read += 1;
+        let row = BatchRow { batch, row: i };
+        let line = || first + i as u64;
+        if let Err(e) = read_row(engine, cfg, p, &mut b, &row, line, None, keeps) {
+            b.err = Some(e);
+            break;
+        }
+    }
     b
 }
 
@@ -395,12 +476,12 @@ fn check_unreadable_dates(
 }
 
 impl History {
-    /// Reads the whole extract, parsing blocks on every core and merging
-    /// them in input order.
-    pub fn read(
+    /// Reads the whole extract, reading blocks of text or batches of typed
+    /// rows on every core and merging them in input order.
+    pub fn read<'a>(
         engine: &Engine,
         cfg: &ScoreConfig,
-        input: impl Read + Send,
+        input: impl Into<Input<'a>>,
         needs: Needs,
     ) -> Result<(History, Summary), Error> {
         let keep_codes = needs.codes;
@@ -423,161 +504,172 @@ impl History {
         let mut key = Vec::new();
         let mut rows_seen = 0u64;
 
-        let (plan, header_raw) = run_blocks(
-            cfg,
-            input,
-            |block, rec| Ok((Plan::from_header(cfg, block, rec)?, rec.raw.to_vec())),
-            |h, block, start, scanner| {
-                read_block(
-                    engine,
-                    cfg,
-                    &h.0,
-                    block,
-                    start,
-                    scanner,
-                    (keep_codes, exclusions, needs.rows),
-                )
-            },
-            |h, b: BlockRows, _| {
-                let long_episodes = h.0.episode.is_some();
-                let nkeep = h.0.keep.len();
-                let mut block_episode = Vec::with_capacity(b.rows.len());
-                for (i, r) in b.rows.iter().enumerate() {
-                    rows_seen += 1;
-                    let pid = &b.ids[r.pid.0..r.pid.1];
-                    // A new episode's patient; rows without an id get a
-                    // patient of their own.
-                    let mut fresh =
-                        |episodes: &mut Vec<Episode>,
-                         own_all: &mut Vec<u64>,
-                         own_current: &mut Vec<u64>| {
-                            let patient = match patient_index.get(pid) {
-                                Some(&x) if !r.no_id => x,
-                                _ => {
-                                    let x = patients.len() as u32;
-                                    if !r.no_id {
-                                        patient_index.insert(pid.into(), x);
-                                    }
-                                    patients.push(pid.into());
-                                    x
-                                }
-                            };
-                            episodes.push(Episode {
-                                patient,
-                                date: None,
-                                age: None,
-                                row: rows_seen,
-                                date_unreadable: false,
-                                disagrees: false,
-                            });
-                            own_all.resize(own_all.len() + words, 0);
-                            if exclusions {
-                                own_current.resize(own_current.len() + words, 0);
+        let keeps = Keeps {
+            codes: keep_codes,
+            exclusions,
+            rows: needs.rows,
+        };
+        // Merges the rows of each block (or batch), in input order.
+        let mut consume = |h: &(Plan, Vec<u8>), b: BlockRows| -> Result<(), Error> {
+            let long_episodes = h.0.episode.is_some();
+            let nkeep = h.0.keep.len();
+            let mut block_episode = Vec::with_capacity(b.rows.len());
+            for (i, r) in b.rows.iter().enumerate() {
+                rows_seen += 1;
+                let pid = &b.ids[r.pid.0..r.pid.1];
+                // A new episode's patient; rows without an id get a
+                // patient of their own.
+                let mut fresh = |episodes: &mut Vec<Episode>,
+                                 own_all: &mut Vec<u64>,
+                                 own_current: &mut Vec<u64>| {
+                    let patient = match patient_index.get(pid) {
+                        Some(&x) if !r.no_id => x,
+                        _ => {
+                            let x = patients.len() as u32;
+                            if !r.no_id {
+                                patient_index.insert(pid.into(), x);
                             }
-                            kept.resize(kept.len() + nkeep, None);
-                            (episodes.len() - 1) as u32
-                        };
-                    // Every wide row is an episode; in the long layout one
-                    // per (patient, episode value), or per patient.
-                    let e = match cfg.layout {
-                        Layout::Wide => fresh(&mut episodes, &mut own_all, &mut own_current),
-                        Layout::Long => {
-                            let ekey = &b.ids[r.ekey.0..r.ekey.1];
-                            key.clear();
-                            key.extend_from_slice(&(pid.len() as u32).to_le_bytes());
-                            key.extend_from_slice(pid);
-                            key.extend_from_slice(ekey);
-                            match episode_index.get(&key[..]) {
-                                Some(&x) => x,
-                                None => {
-                                    let x = fresh(&mut episodes, &mut own_all, &mut own_current);
-                                    episode_index.insert(key.as_slice().into(), x);
-                                    if long_episodes {
-                                        keys.push(ekey.into());
-                                    }
-                                    x
-                                }
-                            }
+                            patients.push(pid.into());
+                            x
                         }
                     };
-                    block_episode.push(e);
-                    let ep = &mut episodes[e as usize];
-                    // The first readable date and age of an episode's rows
-                    // count; a later row giving another one is counted (and
-                    // stops a --strict run).
-                    let day = match r.date {
-                        DateRead::Day(d) => Some(d),
-                        DateRead::Unreadable => {
-                            ep.date_unreadable |= ep.date.is_none();
-                            None
-                        }
-                        DateRead::Missing => None,
-                    };
-                    let iso = |d: i32| {
-                        let mut t = Vec::new();
-                        dates::write_iso_date(d as i64, &mut t);
-                        String::from_utf8_lossy(&t).into_owned()
-                    };
-                    let other_date = keep_first(&mut ep.date, day)
-                        .map(|(first, d)| disagreement("date", iso(d), iso(first)));
-                    let other_age = keep_first(&mut ep.age, r.age)
-                        .map(|(first, a)| disagreement("age", a, first));
-                    let mut other_kept = None;
-                    for j in 0..nkeep {
-                        let (s, t) = b.keep[i * nkeep + j];
-                        let v = &b.ids[s..t];
-                        if v.trim_ascii().is_empty() {
-                            continue;
-                        }
-                        match &kept[e as usize * nkeep + j] {
-                            None => kept[e as usize * nkeep + j] = Some(v.into()),
-                            Some(first) if **first != *v && other_kept.is_none() => {
-                                let name = &h.0.header.names[h.0.keep[j]];
-                                other_kept = Some(disagreement(
-                                    &format!("value of column '{name}'"),
-                                    String::from_utf8_lossy(v),
-                                    String::from_utf8_lossy(first),
-                                ));
-                            }
-                            Some(_) => {}
-                        }
-                    }
-                    if let Some(message) = other_date.or(other_age).or(other_kept) {
-                        if cfg.strict {
-                            return Err(Error::Strict {
-                                line: Some(r.line),
-                                message,
-                            });
-                        }
-                        summary.count_disagreeing(&mut ep.disagrees);
-                    }
-                    let (dst, src) = (e as usize * words, i * words);
-                    for k in 0..words {
-                        own_all[dst + k] |= b.all[src + k];
-                    }
+                    episodes.push(Episode {
+                        patient,
+                        date: None,
+                        age: None,
+                        row: rows_seen,
+                        date_unreadable: false,
+                        disagrees: false,
+                    });
+                    own_all.resize(own_all.len() + words, 0);
                     if exclusions {
-                        for k in 0..words {
-                            own_current[dst + k] |= b.cur[src + k];
+                        own_current.resize(own_current.len() + words, 0);
+                    }
+                    kept.resize(kept.len() + nkeep, None);
+                    (episodes.len() - 1) as u32
+                };
+                // Every wide row is an episode; in the long layout one
+                // per (patient, episode value), or per patient.
+                let e = match cfg.layout {
+                    Layout::Wide => fresh(&mut episodes, &mut own_all, &mut own_current),
+                    Layout::Long => {
+                        let ekey = &b.ids[r.ekey.0..r.ekey.1];
+                        key.clear();
+                        key.extend_from_slice(&(pid.len() as u32).to_le_bytes());
+                        key.extend_from_slice(pid);
+                        key.extend_from_slice(ekey);
+                        match episode_index.get(&key[..]) {
+                            Some(&x) => x,
+                            None => {
+                                let x = fresh(&mut episodes, &mut own_all, &mut own_current);
+                                episode_index.insert(key.as_slice().into(), x);
+                                if long_episodes {
+                                    keys.push(ekey.into());
+                                }
+                                x
+                            }
                         }
                     }
+                };
+                block_episode.push(e);
+                let ep = &mut episodes[e as usize];
+                // The first readable date and age of an episode's rows
+                // count; a later row giving another one is counted (and
+                // stops a --strict run).
+                let day = match r.date {
+                    DateRead::Day(d) => Some(d),
+                    DateRead::Unreadable => {
+                        ep.date_unreadable |= ep.date.is_none();
+                        None
+                    }
+                    DateRead::Missing => None,
+                };
+                let iso = |d: i32| {
+                    let mut t = Vec::new();
+                    dates::write_iso_date(d as i64, &mut t);
+                    String::from_utf8_lossy(&t).into_owned()
+                };
+                let other_date = keep_first(&mut ep.date, day)
+                    .map(|(first, d)| disagreement("date", iso(d), iso(first)));
+                let other_age =
+                    keep_first(&mut ep.age, r.age).map(|(first, a)| disagreement("age", a, first));
+                let mut other_kept = None;
+                for j in 0..nkeep {
+                    let (s, t) = b.keep[i * nkeep + j];
+                    let v = &b.ids[s..t];
+                    if v.trim_ascii().is_empty() {
+                        continue;
+                    }
+                    match &kept[e as usize * nkeep + j] {
+                        None => kept[e as usize * nkeep + j] = Some(v.into()),
+                        Some(first) if **first != *v && other_kept.is_none() => {
+                            let name = &h.0.header.names[h.0.keep[j]];
+                            other_kept = Some(disagreement(
+                                &format!("value of column '{name}'"),
+                                String::from_utf8_lossy(v),
+                                String::from_utf8_lossy(first),
+                            ));
+                        }
+                        Some(_) => {}
+                    }
                 }
-                if keep_rows {
-                    let bi = raw_blocks.push(b.raw)?;
-                    let mut start = 0u32;
-                    row_spans.extend(b.raw_ends.iter().map(|&x| {
-                        let span = (bi, start, x as u32);
-                        start = x as u32;
-                        span
-                    }));
+                if let Some(message) = other_date.or(other_age).or(other_kept) {
+                    if cfg.strict {
+                        return Err(Error::Strict {
+                            line: Some(r.line),
+                            message,
+                        });
+                    }
+                    summary.count_disagreeing(&mut ep.disagrees);
                 }
-                for mut c in b.codes {
-                    c.episode = block_episode[c.episode as usize];
-                    codes.push(c);
+                let (dst, src) = (e as usize * words, i * words);
+                for k in 0..words {
+                    own_all[dst + k] |= b.all[src + k];
                 }
-                summary.merge(b.summary);
-                b.err.map_or(Ok(()), Err)
-            },
-        )?;
+                if exclusions {
+                    for k in 0..words {
+                        own_current[dst + k] |= b.cur[src + k];
+                    }
+                }
+            }
+            if keep_rows {
+                let bi = raw_blocks.push(b.raw)?;
+                let mut start = 0u32;
+                row_spans.extend(b.raw_ends.iter().map(|&x| {
+                    let span = (bi, start, x as u32);
+                    start = x as u32;
+                    span
+                }));
+            }
+            for mut c in b.codes {
+                c.episode = block_episode[c.episode as usize];
+                codes.push(c);
+            }
+            summary.merge(b.summary);
+            b.err.map_or(Ok(()), Err)
+        };
+        let (plan, header_raw) = match input.into() {
+            Input::Text(input) => run_blocks(
+                cfg,
+                input,
+                |block, rec| Ok((Plan::from_header(cfg, block, rec)?, rec.raw.to_vec())),
+                |h, block, start, scanner| {
+                    read_block(engine, cfg, &h.0, block, start, scanner, keeps)
+                },
+                |h, b, _| consume(h, b),
+            )?,
+            Input::Rows(source) => {
+                let naming = source.naming();
+                run_batches(
+                    cfg,
+                    source,
+                    |header| Ok((Plan::new(cfg, header, false)?, Vec::new())),
+                    |h, batch, first| read_batch(engine, cfg, &h.0, batch, first, keeps),
+                    |h, b, _| consume(h, b),
+                )
+                .map_err(|e| naming.name(e))?
+            }
+        };
         summary.dx_columns = plan.dx_names();
         if plan.date.is_some() {
             summary.date_format = Some(cfg.date_format.to_string());
@@ -818,10 +910,10 @@ impl History {
 
 /// Scores from the patient history and writes the output: wide, every row
 /// in input order; long, one row per episode in order of first appearance.
-pub fn score_history(
+pub fn score_history<'a>(
     engine: &Engine,
     cfg: &ScoreConfig,
-    input: impl Read + Send,
+    input: impl Into<Input<'a>>,
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
     let windows = Windows::new(engine, cfg)?;
@@ -829,6 +921,11 @@ pub fn score_history(
         codes: false,
         rows: true,
     };
+    let input = input.into();
+    // Typed rows in the wide layout: there is no row text to copy; the
+    // output holds the score columns only, and the caller puts the input's
+    // own columns in front (a Parquet output copies them from the input).
+    let scores_only = matches!(input, Input::Rows(_)) && cfg.layout == Layout::Wide;
     let (mut hist, mut summary) = History::read(engine, cfg, input, needs)?;
     hist.resolve(&windows);
     let hist = hist;
@@ -840,7 +937,9 @@ pub fn score_history(
         Layout::Wide => {
             let names: Vec<&str> = p.header.names.iter().map(String::as_str).collect();
             check_collisions(&names, engine)?;
-            out.extend_from_slice(&hist.header_raw);
+            if !scores_only {
+                out.extend_from_slice(&hist.header_raw);
+            }
         }
         Layout::Long => {
             let mut keep = vec![p.header.names[p.id.unwrap_or(0)].as_str()];
@@ -865,8 +964,10 @@ pub fn score_history(
             }
         }
     }
-    for c in engine.columns() {
-        out.push(d);
+    for (i, c) in engine.columns().iter().enumerate() {
+        if i > 0 || !scores_only {
+            out.push(d);
+        }
         write_field(c.name.as_bytes(), d, &mut out);
     }
     out.extend_from_slice(eol);
@@ -884,6 +985,7 @@ pub fn score_history(
             hist.final_into(engine, e, &mut bits, &mut scratch);
             engine.values(&bits, ep.age, &mut values);
             match cfg.layout {
+                Layout::Wide if scores_only => {}
                 Layout::Wide => {
                     let (b, s, t) = hist.row_spans[e];
                     out.extend_from_slice(rows.slice(b, s, t));
@@ -900,7 +1002,12 @@ pub fn score_history(
                     }
                 }
             }
+            let at = out.len();
             engine.write_values(&values, d, &mut out);
+            if scores_only && out.len() > at {
+                // No column before the first score.
+                out.remove(at);
+            }
             out.extend_from_slice(eol);
         }
         out
@@ -916,6 +1023,7 @@ pub fn score_history(
             .collect();
         // The raw rows of this round, read back if they wait on disk.
         let rows = match cfg.layout {
+            Layout::Wide if scores_only => hist.raw_blocks.none(),
             Layout::Wide => hist.raw_blocks.load(
                 hist.row_spans[start].0,
                 hist.row_spans[(start + threads * CHUNK).min(n) - 1].0,

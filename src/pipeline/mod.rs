@@ -18,12 +18,13 @@ pub mod rows_store;
 mod stream;
 
 use std::collections::HashMap;
-use std::io::{Read, Write};
+use std::io::Write;
 
 use crate::code::{Code, Reading};
 pub use crate::editions::{Edition, Existence};
 use crate::io::{Block, Fields, RecordRef};
-use crate::score::{read_age, Engine};
+use crate::rows::{read_age_value, Age, AgeReading, Field, Row};
+use crate::score::Engine;
 use crate::Error;
 pub use dates::DateFormat;
 pub use explain::explain_stream;
@@ -1192,8 +1193,11 @@ impl Plan {
 
     /// Whether a long-layout row is flagged as the primary diagnosis (and
     /// `--exclude-primary` is on).
-    fn primary_row(&self, cfg: &ScoreConfig, fields: &Fields<'_>) -> bool {
-        cfg.exclude_primary && self.primary.is_some_and(|c| is_flag_set(fields.get(c)))
+    fn primary_row(&self, cfg: &ScoreConfig, row: &impl Row) -> bool {
+        cfg.exclude_primary
+            && self
+                .primary
+                .is_some_and(|c| is_flag_set(&row.field(c).text_or_empty()))
     }
 
     /// The present-on-admission exclusion of the codes of diagnosis column
@@ -1202,7 +1206,7 @@ impl Plan {
     fn poa_exclusion(
         &self,
         cfg: &ScoreConfig,
-        fields: &Fields<'_>,
+        row: &impl Row,
         k: usize,
         summary: &mut Summary,
     ) -> Result<Option<Exclusion>, RowIssue> {
@@ -1213,7 +1217,7 @@ impl Plan {
         let Some(&c) = c else {
             return Ok(None);
         };
-        let raw = fields.get(c);
+        let raw = &row.field(c).text_or_empty()[..];
         match read_poa(&cfg.poa_values, raw) {
             PoaReading::Present => {
                 summary.add_poa(raw, 1);
@@ -1246,14 +1250,17 @@ impl Plan {
     pub fn read_codes(
         &self,
         cfg: &ScoreConfig,
-        fields: &Fields<'_>,
+        row: &impl Row,
         summary: &mut Summary,
         mut sink: impl FnMut(&[u8], Code, Option<Exclusion>),
     ) -> Result<(), RowIssue> {
-        let primary_row = cfg.layout == Layout::Long && self.primary_row(cfg, fields);
+        let primary_row = cfg.layout == Layout::Long && self.primary_row(cfg, row);
         let mut first = true;
         for (k, &c) in self.dx.iter().enumerate() {
-            let v = fields.get(c);
+            // Text as it is; a typed value (a column of numbers in a
+            // Parquet file) by its text, which is then checked as a code.
+            let v = row.field(c).text_or_empty();
+            let v = &v[..];
             if v.is_empty() {
                 if k == 0 {
                     first = false;
@@ -1263,10 +1270,10 @@ impl Plan {
             let field_exclusion = if primary_row {
                 // The primary row is left out whatever its indicator; the
                 // indicator is still counted.
-                self.poa_exclusion(cfg, fields, k, summary)?;
+                self.poa_exclusion(cfg, row, k, summary)?;
                 Some(Exclusion::Primary)
             } else {
-                self.poa_exclusion(cfg, fields, k, summary)?
+                self.poa_exclusion(cfg, row, k, summary)?
             };
             let mut one = |part: &[u8], first: &mut bool| -> Result<(), RowIssue> {
                 let is_first = std::mem::replace(first, false) && k == 0;
@@ -1315,31 +1322,43 @@ impl Plan {
         Ok(())
     }
 
-    /// The age of a record (`None`: missing or unreadable, counted).
+    /// The age of a record (`None`: missing or unreadable, counted): text
+    /// and numbers by [`read_age_value`]; any other value (a date, true or
+    /// false) is unreadable.
     pub fn read_age(
         &self,
         cfg: &ScoreConfig,
-        fields: &Fields<'_>,
+        row: &impl Row,
         summary: &mut Summary,
     ) -> Result<Option<u32>, RowIssue> {
         let Some(c) = self.age else {
             return Ok(None);
         };
-        let raw = fields.get(c);
-        match read_age(raw) {
-            Some(a) => Ok(Some(a)),
-            None => {
-                if raw.trim_ascii().is_empty() {
-                    if cfg.strict {
-                        return Err(RowIssue::MissingAge);
-                    }
-                    summary.missing_ages += 1;
-                } else {
-                    if cfg.strict {
-                        return Err(RowIssue::UnreadableAge(raw.to_vec()));
-                    }
-                    summary.unreadable_ages += 1;
+        let field = row.field(c);
+        let age = match field {
+            Field::Null => Age::Missing,
+            Field::Text(t) => Age::Text(t),
+            Field::Integer(i) => Age::Number(i as f64),
+            Field::Number(x) => Age::Number(x),
+            Field::Logical(_) | Field::Date(_) => Age::Text(b"?"),
+        };
+        match read_age_value(age) {
+            AgeReading::Years(a) => Ok(Some(a)),
+            AgeReading::Missing => {
+                if cfg.strict {
+                    return Err(RowIssue::MissingAge);
                 }
+                summary.missing_ages += 1;
+                Ok(None)
+            }
+            AgeReading::Unreadable => {
+                if cfg.strict {
+                    return Err(RowIssue::UnreadableAge(match age {
+                        Age::Number(x) => x.to_string().into_bytes(),
+                        _ => field.text_or_empty().into_owned(),
+                    }));
+                }
+                summary.unreadable_ages += 1;
                 Ok(None)
             }
         }
@@ -1350,18 +1369,35 @@ impl Plan {
     /// caller, once per episode). Dates read, what they say about the
     /// day/month order, and the first unreadable values are counted here:
     /// the one place that reads a date field.
+    ///
+    /// A typed date (a frame's or Parquet file's date column) is its day,
+    /// counted as a date read, when its year is one a text date can have
+    /// (1000 to 9999); other typed values are read by their text with the
+    /// date format.
     pub fn read_date(
         &self,
         cfg: &ScoreConfig,
-        fields: &Fields<'_>,
+        row: &impl Row,
         summary: &mut Summary,
     ) -> Result<Option<i32>, Option<Vec<u8>>> {
         let Some(c) = self.date else {
             return Ok(None);
         };
-        let raw = fields.get(c).trim_ascii();
+        let field = row.field(c);
+        if let Field::Date(d) = field {
+            if let Some(day) = crate::rows::typed_day(d) {
+                summary.dates_read += 1;
+                return Ok(Some(day));
+            }
+        }
+        let text = field.text_or_empty();
+        let raw = text.trim_ascii();
         if raw.is_empty() {
             return Err(None);
+        }
+        if let Field::Date(_) = field {
+            summary.unreadable_date_example(raw);
+            return Err(Some(raw.to_vec()));
         }
         match cfg.date_format.read(raw) {
             Some((day, order)) => {
@@ -1391,7 +1427,13 @@ impl Plan {
 
     /// Turns a record issue into an error with the record's line.
     pub fn issue(&self, issue: RowIssue, block: &Block, rec: &RecordRef<'_>) -> Error {
-        let line = Some(line_of(block, rec.offset));
+        self.issue_at(issue, line_of(block, rec.offset))
+    }
+
+    /// Turns a row issue into an error at `line` (the line of a text
+    /// record, the 1-based row of a typed source).
+    pub fn issue_at(&self, issue: RowIssue, line: u64) -> Error {
+        let line = Some(line);
         let message = match issue {
             RowIssue::InvalidCode { column, value } => format!(
                 "invalid code '{}' in column '{}'",
@@ -1500,28 +1542,53 @@ pub(crate) fn check_collisions(names: &[&str], engine: &Engine) -> Result<(), Er
 /// Scores an extract read from `input`, writing the enriched extract to
 /// `output`: streaming when no lookback is asked for, from the patient
 /// history otherwise.
-pub fn score_stream(
+pub fn score_stream<'a>(
     engine: &Engine,
     cfg: &ScoreConfig,
-    input: impl Read + Send,
+    input: impl Into<history::Input<'a>>,
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
     score_stream_observed(engine, cfg, input, output, &mut |_| {})
 }
 
 /// [`score_stream`], calling `progress` as blocks are written.
-pub fn score_stream_observed(
+///
+/// Typed rows ([`history::Input::Rows`]) are read by runs with a history
+/// ([`reads_history`]); in the wide layout their output holds the score
+/// columns only (there is no row text to copy: the caller puts the input's
+/// columns in front, as a Parquet output of a Parquet input does).
+pub fn score_stream_observed<'a>(
     engine: &Engine,
     cfg: &ScoreConfig,
-    input: impl Read + Send,
+    input: impl Into<history::Input<'a>>,
     output: &mut dyn Write,
     progress: &mut dyn FnMut(Progress),
 ) -> Result<Summary, Error> {
-    if cfg.uses_history() || cfg.episode.is_some() || !cfg.keep.is_empty() {
-        history::score_history(engine, cfg, input, output)
-    } else {
-        stream::score_plain(engine, cfg, input, output, progress)
+    if reads_history(cfg) {
+        return history::score_history(engine, cfg, input, output);
     }
+    match input.into() {
+        history::Input::Text(input) => stream::score_plain(engine, cfg, input, output, progress),
+        history::Input::Rows(_) => Err(Error::Usage(
+            "typed rows are read by runs with a history only (--lookback, --episode, --keep)"
+                .into(),
+        )),
+    }
+}
+
+/// Whether `score` reads the extract into a history (lookback, episodes,
+/// kept columns) rather than streaming it.
+pub fn reads_history(cfg: &ScoreConfig) -> bool {
+    cfg.uses_history() || cfg.episode.is_some() || !cfg.keep.is_empty()
+}
+
+/// Whether `score` can read the extract as typed rows (a Parquet input's
+/// record batches): a history run whose output does not copy the input's
+/// rows as text: the long layout, or (`copied_elsewhere`) a wide output
+/// whose input columns are copied by the output itself (a Parquet output
+/// of a Parquet input). Other runs read text.
+pub fn reads_rows_typed(cfg: &ScoreConfig, copied_elsewhere: bool) -> bool {
+    reads_history(cfg) && (cfg.layout == Layout::Long || copied_elsewhere)
 }
 
 #[cfg(test)]

@@ -137,6 +137,76 @@ THEN CASE WHEN to_char({first}, 'YYYY-MM-DD') = {iso} THEN {first} - DATE '1970-
         }
     }
 
+    /// Whether `expr` starts with the characters of `shape` in turn: a
+    /// digit, any one character, or a literal character.
+    pub fn starts_with_shape(&self, expr: &str, shape: &[ShapeChar]) -> String {
+        let mut pattern = String::new();
+        for c in shape {
+            match (self, c) {
+                (_, ShapeChar::Digit) => pattern.push_str("[0-9]"),
+                (Dialect::Sqlite, ShapeChar::Any) => pattern.push('?'),
+                (_, ShapeChar::Any) => pattern.push('.'),
+                (Dialect::Sqlite, ShapeChar::Literal(ch)) => match ch {
+                    '*' | '?' | '[' => {
+                        pattern.push('[');
+                        pattern.push(*ch);
+                        pattern.push(']');
+                    }
+                    _ => pattern.push(*ch),
+                },
+                (_, ShapeChar::Literal(ch)) => {
+                    if ch.is_ascii_punctuation() {
+                        pattern.push('\\');
+                    }
+                    pattern.push(*ch);
+                }
+            }
+        }
+        let pattern = pattern.replace('\'', "''");
+        match self {
+            Dialect::DuckDb => format!("regexp_matches({expr}, '^{pattern}')"),
+            Dialect::Postgres => format!("{expr} ~ '^{pattern}'"),
+            Dialect::Sqlite => format!("{expr} GLOB '{pattern}*'"),
+        }
+    }
+
+    /// An expression that stops the query with `message` (a text
+    /// expression), typed as a whole number so that it can stand in a CASE
+    /// beside one: DuckDB's `error()`; in PostgreSQL the function the script
+    /// creates ([`Dialect::stop_function`], named `function`); SQLite has no
+    /// function that raises a message of one's own, so a JSON path made of
+    /// the message is read (`JSON path error near '<message>'`).
+    pub fn stop(&self, message: &str, function: &str) -> String {
+        match self {
+            Dialect::DuckDb => format!("CAST(error({message}) AS INTEGER)"),
+            Dialect::Postgres => format!("{function}({message})"),
+            Dialect::Sqlite => format!("CAST(json_extract('{{}}', {message}) AS INTEGER)"),
+        }
+    }
+
+    /// The statement creating the function [`Dialect::stop`] calls
+    /// (PostgreSQL only; `None` elsewhere).
+    pub fn stop_function(&self, function: &str, replace: bool) -> Option<String> {
+        match self {
+            Dialect::Postgres => Some(format!(
+                "CREATE {}FUNCTION {function}(message TEXT) RETURNS INTEGER LANGUAGE plpgsql AS $morbus$\n\
+BEGIN\n    RAISE EXCEPTION '%', message;\nEND\n$morbus$;",
+                if replace { "OR REPLACE " } else { "" }
+            )),
+            _ => None,
+        }
+    }
+
+    /// A number as text with two decimals.
+    pub fn two_decimals(&self, expr: &str) -> String {
+        match self {
+            Dialect::Postgres => {
+                format!("CAST(round(CAST({expr} AS NUMERIC), 2) AS TEXT)")
+            }
+            _ => format!("printf('%.2f', {expr})"),
+        }
+    }
+
     /// A text of digits as a whole number (NULL where it cannot be read).
     pub fn to_bigint(&self, expr: &str) -> String {
         match self {
@@ -198,6 +268,17 @@ generate_subscripts(string_split({value}, {sep}), 1) AS part_number) AS {alias}"
             ),
         }
     }
+}
+
+/// One character of a shape ([`Dialect::starts_with_shape`]).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum ShapeChar {
+    /// An ASCII digit.
+    Digit,
+    /// Any one character.
+    Any,
+    /// This character.
+    Literal(char),
 }
 
 /// A double-quoted identifier; a dotted name (`schema.table`) is quoted

@@ -26,11 +26,11 @@ mod dialect;
 
 use std::fmt::Write as _;
 
-pub use dialect::{literal, quote_ident, quote_name, Dialect};
+pub use dialect::{literal, quote_ident, quote_name, Dialect, ShapeChar};
 
 use crate::lists::prefixes::points_text;
 use crate::lists::{prefix_rows, Bound};
-use crate::pipeline::{Header, Layout, Plan, ScoreConfig, POA_BLANK};
+use crate::pipeline::{Header, Layout, Plan, ScoreConfig, WindowScope, POA_BLANK};
 use crate::score::MAX_AGE;
 use crate::score::{ColumnKind, Engine};
 use crate::Error;
@@ -64,6 +64,11 @@ pub struct SqlOptions {
     pub output: SqlOutput,
     /// Drop an existing output (and its list tables) first.
     pub replace: bool,
+    /// Columns that put the rows in the extract's order (`--order-by`):
+    /// the rows are numbered, and the output ordered, by them. Empty: the
+    /// order the table gives (SQLite's rowid, PostgreSQL's ctid, DuckDB's
+    /// scan order).
+    pub order_by: Vec<String>,
 }
 
 /// The columns a script reads, resolved.
@@ -147,6 +152,8 @@ struct Tables {
     weights: String,
     age_points: String,
     bands: String,
+    /// The function that stops a query with a message (PostgreSQL).
+    stop: String,
     temporary: bool,
 }
 
@@ -169,6 +176,11 @@ impl Tables {
             weights: t("weights"),
             age_points: t("age_points"),
             bands: t("bands"),
+            stop: if temporary {
+                format!("pg_temp.{}", quote_ident(&format!("{base}stop")))
+            } else {
+                quote_name(&format!("{base}stop"))
+            },
             temporary,
         }
     }
@@ -200,19 +212,24 @@ struct Step {
 ///     columns: None,
 ///     output: SqlOutput::Query,
 ///     replace: false,
+///     order_by: Vec::new(),
 /// };
 /// let script = generate(&engine, &opts).unwrap();
 /// assert!(script.contains("AS \"charlson_quan2011\""));
 /// ```
 pub fn generate(engine: &Engine, opts: &SqlOptions) -> Result<String, Error> {
     let cfg = &opts.config;
-    if cfg.date_format != crate::pipeline::DateFormat::Iso {
-        return Err(Error::Usage(
-            "the SQL reads dates as dates, timestamps or YYYY-MM-DD text; --date-format is not supported"
-                .into(),
-        ));
-    }
+    // The lists' windows, checked as `score` checks them.
+    let windows = crate::pipeline::history::Windows::new(engine, cfg)?;
     let cols = resolve_columns(opts)?;
+    if let Some(all) = &cols.all {
+        if let Some(c) = opts.order_by.iter().find(|c| !all.contains(c)) {
+            return Err(Error::Usage(format!(
+                "--order-by column '{c}' not found; columns in the input: {}",
+                all.join(", ")
+            )));
+        }
+    }
     if let Some(all) = &cols.all {
         let names: Vec<&str> = match cfg.layout {
             Layout::Wide => all.iter().map(String::as_str).collect(),
@@ -260,7 +277,17 @@ pub fn generate(engine: &Engine, opts: &SqlOptions) -> Result<String, Error> {
         (hierarchy, age_points, bands),
     );
 
-    let steps = steps(engine, opts, &cols, &tables, hierarchy);
+    let guard = cols.date.is_some();
+    let stop_function = d
+        .stop_function(&tables.stop, opts.replace || tables.temporary)
+        .filter(|_| guard);
+    if let Some(f) = &stop_function {
+        out.push_str("\n-- Stops the query with a message (too many unreadable dates).\n");
+        out.push_str(f);
+        out.push('\n');
+    }
+
+    let steps = steps(engine, opts, &cols, &tables, hierarchy, &windows.per_list);
     let recursive = steps.iter().any(|s| s.name == "diagnosis_parts");
     let mut query = String::new();
     let _ = writeln!(query, "WITH{}", if recursive { " RECURSIVE" } else { "" });
@@ -303,6 +330,9 @@ pub fn generate(engine: &Engine, opts: &SqlOptions) -> Result<String, Error> {
             out.push_str("\n-- The list tables are no longer needed.\n");
             for t in table_names(&tables, (hierarchy, age_points, bands)) {
                 let _ = writeln!(out, "DROP TABLE {};", d.temp_qualified(t));
+            }
+            if stop_function.is_some() {
+                let _ = writeln!(out, "DROP FUNCTION {}(TEXT);", tables.stop);
             }
         }
     }
@@ -400,14 +430,15 @@ fn header(out: &mut String, engine: &Engine, opts: &SqlOptions, cols: &Columns) 
         opt("present on admission", cols.poa.join(", "));
         opt("present-on-admission values", cfg.poa_values.join(","));
     }
-    if let Some(l) = cfg.lookback {
+    if let Some(l) = crate::pipeline::lookback_text(cfg) {
+        opt("lookback (days)", l);
+        opt("window", cfg.window.name().into());
+    }
+    if cols.date.is_some() {
+        opt("date format", cfg.date_format.to_string());
         opt(
-            "lookback",
-            if l == u32::MAX {
-                "all".into()
-            } else {
-                format!("{l} days")
-            },
+            "max unreadable dates",
+            format!("{}%", cfg.max_unreadable_dates),
         );
     }
     if cfg.exclude_primary {
@@ -676,6 +707,7 @@ fn steps(
     cols: &Columns,
     t: &Tables,
     hierarchy: bool,
+    windows: &[Option<u32>],
 ) -> Vec<Step> {
     let cfg = &opts.config;
     let d = opts.dialect;
@@ -693,17 +725,43 @@ fn steps(
     };
 
     // 1. Rows, numbered in the table's order.
+    let (over, order_rule) = if !opts.order_by.is_empty() {
+        let by: Vec<String> = opts
+            .order_by
+            .iter()
+            .map(|c| format!("t.{}", quote_ident(c)))
+            .collect();
+        (
+            format!("ORDER BY {}", by.join(", ")),
+            format!("in the order of {} (--order-by)", opts.order_by.join(", ")),
+        )
+    } else if d == Dialect::Postgres {
+        (
+            "ORDER BY t.ctid".to_string(),
+            "in the order they are stored (ctid: the load order of a table\nloaded and not updated since)".to_string(),
+        )
+    } else {
+        (
+            String::new(),
+            "in the order the table gives them".to_string(),
+        )
+    };
     let numbering = match (wide, row_source(opts, cols)) {
-        (true, RowSource::Rowid) => "t.rowid AS morbus_row, t.*".to_string(),
-        (true, RowSource::Composite) => {
-            "ROW_NUMBER() OVER () AS morbus_row, t AS morbus_source, t.*".to_string()
+        (true, RowSource::Rowid) if opts.order_by.is_empty() => {
+            "t.rowid AS morbus_row, t.*".to_string()
         }
-        _ => "ROW_NUMBER() OVER () AS morbus_row, t.*".to_string(),
+        (true, RowSource::Rowid) => {
+            format!("ROW_NUMBER() OVER ({over}) AS morbus_row, t.rowid AS morbus_rowid, t.*")
+        }
+        (true, RowSource::Composite) => {
+            format!("ROW_NUMBER() OVER ({over}) AS morbus_row, t AS morbus_source, t.*")
+        }
+        _ => format!("ROW_NUMBER() OVER ({over}) AS morbus_row, t.*"),
     };
     step(
         "source_rows",
         &format!(
-            "Step 1. The rows of {}, numbered in the order the table gives them\n\
+            "Step 1. The rows of {}, numbered {order_rule}\n\
 (computed once, so that every later step sees the same numbers).",
             opts.table
         ),
@@ -851,7 +909,7 @@ episodes' lookback)."
             "diagnosis_values",
             &format!("Step 4. The non-empty values.{primary_note}"),
             format!(
-                "SELECT unit, position, 1 AS part_number, field AS value,\n  {} AS counts_now\nFROM diagnosis_fields",
+                "SELECT unit, field AS value,\n  {} AS counts_now\nFROM diagnosis_fields",
                 primary_rule.replace("part_number", "1")
             ),
             true,
@@ -877,7 +935,7 @@ FROM diagnosis_parts\nWHERE rest IS NOT NULL"
                     "diagnosis_values",
                     &format!("Step 4b. The parts.{primary_note}"),
                     format!(
-                        "SELECT unit, position, part_number, value,\n  {primary_rule} AS counts_now\nFROM diagnosis_parts"
+                        "SELECT unit, value,\n  {primary_rule} AS counts_now\nFROM diagnosis_parts"
                     ),
                     true,
                 );
@@ -886,7 +944,7 @@ FROM diagnosis_parts\nWHERE rest IS NOT NULL"
                     "diagnosis_values",
                     &format!("Step 4. Each field split at {sep} into its parts.{primary_note}"),
                     format!(
-                        "SELECT f.unit, f.position, p.part_number, p.part AS value,\n  {} AS counts_now\nFROM diagnosis_fields AS f\n{}\nWHERE f.field IS NOT NULL AND f.field <> ''",
+                        "SELECT f.unit, p.part AS value,\n  {} AS counts_now\nFROM diagnosis_fields AS f\n{}\nWHERE f.field IS NOT NULL AND f.field <> ''",
                         primary_rule
                             .replace("position", "f.position")
                             .replace("part_number", "p.part_number")
@@ -907,13 +965,20 @@ FROM diagnosis_parts\nWHERE rest IS NOT NULL"
             format!("replace({acc}, {m}, '')")
         });
     step(
+        "distinct_values",
+        "Step 5. Each distinct value once: codes are read and matched per value, not\n\
+per field (an extract repeats the same few thousand values).",
+        "SELECT DISTINCT value\nFROM diagnosis_values".into(),
+        false,
+    );
+    step(
         "value_marks",
         "Step 5. Code reading, marks (as src/code.rs): dots, spaces, tabs, the dagger\n\
 and asterisk marks (U+2020, +, *) are dropped anywhere; a '-' only at the end\n\
 (followed by nothing but '-', spaces and tabs); a value longer than 64 bytes\n\
 is not a code.",
         format!(
-            "SELECT unit, counts_now,\n  {strip} AS letters,\n  CASE WHEN {} <= 64\n        AND ({} = 0 OR rtrim(substr(value, {}), '-' || ' ' || {}) = '')\n       THEN 1 ELSE 0 END AS marks_ok\nFROM diagnosis_values",
+            "SELECT value,\n  {strip} AS letters,\n  CASE WHEN {} <= 64\n        AND ({} = 0 OR rtrim(substr(value, {}), '-' || ' ' || {}) = '')\n       THEN 1 ELSE 0 END AS marks_ok\nFROM distinct_values",
             d.byte_length("value"),
             d.position("value", "'-'"),
             d.position("value", "'-'"),
@@ -927,7 +992,7 @@ is not a code.",
 an invalid code and scores nothing; nothing at all is an empty field),\n\
 read in upper case.",
         format!(
-            "SELECT unit, counts_now, upper(letters) AS code_text\nFROM value_marks\nWHERE marks_ok = 1\n  AND length(letters) BETWEEN 1 AND 7\n  AND {}",
+            "SELECT value, upper(letters) AS code_text\nFROM value_marks\nWHERE marks_ok = 1\n  AND length(letters) BETWEEN 1 AND 7\n  AND {}",
             d.only_chars("letters", "A-Za-z0-9")
         ),
         true,
@@ -937,7 +1002,7 @@ read in upper case.",
         "Step 7. An X filler after the three-character category is dropped (I10X is\n\
 I10); the code must then be ICD-10-shaped: at least 3 characters, a letter,\n\
 a digit, then a digit or a letter.",
-        "SELECT unit, counts_now, code\nFROM (\n  SELECT unit, counts_now,\n    CASE WHEN length(code_text) > 3 AND rtrim(substr(code_text, 4), 'X') = ''\n         THEN substr(code_text, 1, 3) ELSE code_text END AS code\n  FROM value_codes\n) AS c\nWHERE length(code) >= 3\n  AND substr(code, 1, 1) BETWEEN 'A' AND 'Z'\n  AND substr(code, 2, 1) BETWEEN '0' AND '9'\n  AND (substr(code, 3, 1) BETWEEN '0' AND '9' OR substr(code, 3, 1) BETWEEN 'A' AND 'Z')"
+        "SELECT value, code\nFROM (\n  SELECT value,\n    CASE WHEN length(code_text) > 3 AND rtrim(substr(code_text, 4), 'X') = ''\n         THEN substr(code_text, 1, 3) ELSE code_text END AS code\n  FROM value_codes\n) AS c\nWHERE length(code) >= 3\n  AND substr(code, 1, 1) BETWEEN 'A' AND 'Z'\n  AND substr(code, 2, 1) BETWEEN '0' AND '9'\n  AND (substr(code, 3, 1) BETWEEN '0' AND '9' OR substr(code, 3, 1) BETWEEN 'A' AND 'Z')"
             .to_string(),
         true,
     );
@@ -953,22 +1018,30 @@ a digit, then a digit or a letter.",
         false,
     );
     step(
-        "code_conditions",
-        "Step 9. The conditions each code claims: a prefix of the code equals a listed\n\
-prefix (I50 claims I509 and I5091).",
+        "value_conditions",
+        "Step 9. The conditions each value's code claims: a prefix of the code equals a\n\
+listed prefix (I50 claims I509 and I5091).",
         format!(
-            "SELECT c.unit, p.list_name, p.condition_key, c.counts_now\nFROM valid_codes AS c\nJOIN prefix_lengths AS l ON l.prefix_length <= length(c.code)\nJOIN {} AS p ON p.prefix = substr(c.code, 1, l.prefix_length)",
+            "SELECT c.value, p.list_name, p.condition_key\nFROM valid_codes AS c\nJOIN prefix_lengths AS l ON l.prefix_length <= length(c.code)\nJOIN {} AS p ON p.prefix = substr(c.code, 1, l.prefix_length)",
             t.prefixes
         ),
-        cfg.lookback.is_some(),
+        true,
+    );
+    step(
+        "code_conditions",
+        "Step 9b. The conditions of each unit's fields, through their values.",
+        "SELECT v.unit, c.list_name, c.condition_key, v.counts_now\nFROM diagnosis_values AS v\nJOIN value_conditions AS c ON c.value = v.value"
+            .into(),
+        cfg.uses_history(),
     );
 
     // 6. Dates, ages, patients.
-    let need_facts = cfg.lookback.is_some() || cols.age.is_some();
+    let history = cfg.uses_history();
+    let need_facts = history || cols.age.is_some() || cols.date.is_some();
     if need_facts {
         let mut sel = vec![format!("r.morbus_row, r.{unit} AS unit")];
         match &cols.id {
-            Some(id) if cfg.lookback.is_some() => sel.push(format!(
+            Some(id) if history => sel.push(format!(
                 "CASE WHEN {} = '' THEN NULL ELSE CAST({} AS TEXT) END AS patient",
                 d.trim_ascii(&format!("CAST({} AS TEXT)", q(id))),
                 q(id)
@@ -976,7 +1049,7 @@ prefix (I50 claims I509 and I5091).",
             _ => sel.push("CAST(NULL AS TEXT) AS patient".into()),
         }
         match &cols.date {
-            Some(c) if cfg.lookback.is_some() => sel.push(format!(
+            Some(c) => sel.push(format!(
                 "{} AS date_text",
                 d.trim_ascii(&format!("CAST({} AS TEXT)", q(c)))
             )),
@@ -996,6 +1069,32 @@ unit stands alone), date and age as trimmed text.",
             format!("SELECT {}\nFROM {rows} AS r", sel.join(",\n  ")),
             false,
         );
+        let (date_source, date_rule) = match &cfg.date_format {
+            crate::pipeline::DateFormat::Iso => (
+                "row_texts".to_string(),
+                "YYYY-MM-DD from year 1000 to 9999, a time\nafter it ignored".to_string(),
+            ),
+            crate::pipeline::DateFormat::Pattern(p) => {
+                step(
+                    "row_dates",
+                    &format!(
+                        "Step 10b. --date-format {p}: each date rewritten as YYYY-MM-DD (%m and %d\n\
+take one or two digits between separators, exactly two next to another\n\
+number; %b is an English month abbreviation in any case; after the date\n\
+only a time, after 'T' or a space, may follow); anything else is no date."
+                    ),
+                    format!(
+                        "SELECT morbus_row, unit, patient, age_text, date_text AS given_text,\n  {} AS date_text\nFROM row_texts",
+                        pattern_iso(d, p, "date_text")
+                    ),
+                    false,
+                );
+                (
+                    "row_dates".to_string(),
+                    format!("{p}, read as YYYY-MM-DD from year 1000 to 9999"),
+                )
+            }
+        };
         let iso = "substr(date_text, 1, 10)";
         let day = format!(
             "CASE WHEN length(date_text) >= 10\n        AND (length(date_text) = 10 OR substr(date_text, 11, 1) IN ('T', ' '))\n        AND substr(date_text, 5, 1) = '-' AND substr(date_text, 8, 1) = '-'\n        AND substr(date_text, 1, 4) >= '1000'\n        AND {}\n       THEN {} END",
@@ -1013,13 +1112,21 @@ unit stands alone), date and age as trimmed text.",
             d.to_bigint(&int_part),
             d.to_bigint(&int_part)
         );
+        // The date as written (before a --date-format rewrote it).
+        let given = match cfg.date_format {
+            crate::pipeline::DateFormat::Iso => "date_text",
+            crate::pipeline::DateFormat::Pattern(_) => "given_text",
+        };
         step(
             "row_facts",
-            "Step 11. Dates as day numbers (YYYY-MM-DD from year 1000 to 9999, a time\n\
-after it ignored; anything else, or no calendar date, is no date) and ages in whole years (a whole or\n\
-decimal number from 0 to the engine's maximum age, decimals truncated; anything else is no age).",
+            &format!(
+                "Step 11. Dates as day numbers ({date_rule}; anything else, or no\n\
+calendar date, is no date; `date_given` is 1 when the field is not empty) and ages in whole\n\
+years (a whole or decimal number from 0 to the engine's maximum age, decimals\n\
+truncated; anything else is no age)."
+            ),
             format!(
-                "SELECT morbus_row, unit, patient,\n  {day} AS day,\n  {age} AS age_years\nFROM row_texts"
+                "SELECT morbus_row, unit, patient,\n  {day} AS day,\n  {given} AS date_written,\n  CASE WHEN COALESCE({given}, '') = '' THEN 0 ELSE 1 END AS date_given,\n  {age} AS age_years\nFROM {date_source}"
             ),
             false,
         );
@@ -1027,14 +1134,14 @@ decimal number from 0 to the engine's maximum age, decimals truncated; anything 
             step(
                 "unit_facts",
                 "Step 12. Wide layout: each row is an episode.",
-                "SELECT unit, patient, day, age_years\nFROM row_facts".into(),
+                "SELECT unit, patient, day, date_given, age_years\nFROM row_facts".into(),
                 true,
             );
         } else {
             step(
                 "ranked_facts",
                 "Step 12a. Long layout: the rows of a unit with a date (an age) in row order.",
-                "SELECT unit, patient, day, age_years,\n  \
+                "SELECT unit, patient, day, date_given, age_years,\n  \
 ROW_NUMBER() OVER (PARTITION BY unit, CASE WHEN day IS NULL THEN 0 ELSE 1 END ORDER BY morbus_row) AS day_rank,\n  \
 ROW_NUMBER() OVER (PARTITION BY unit, CASE WHEN age_years IS NULL THEN 0 ELSE 1 END ORDER BY morbus_row) AS age_rank\n\
 FROM row_facts"
@@ -1046,11 +1153,15 @@ FROM row_facts"
                 "Step 12b. A unit takes the first readable date and age among its rows.",
                 "SELECT unit, MIN(patient) AS patient,\n  \
 MIN(CASE WHEN day IS NOT NULL AND day_rank = 1 THEN day END) AS day,\n  \
+MAX(date_given) AS date_given,\n  \
 MIN(CASE WHEN age_years IS NOT NULL AND age_rank = 1 THEN age_years END) AS age_years\n\
 FROM ranked_facts\nGROUP BY unit"
                     .into(),
                 true,
             );
+        }
+        if cols.date.is_some() {
+            date_guard(&mut step, d, cfg, &t.stop);
         }
     }
 
@@ -1062,40 +1173,96 @@ FROM ranked_facts\nGROUP BY unit"
     } else {
         ("DISTINCT ", "UNION")
     };
-    match cfg.lookback {
-        None => step(
+    if !cfg.uses_history() {
+        step(
             "unit_conditions",
             "Step 13. The conditions of each unit: those of its codes that count now.",
             format!("SELECT {distinct}unit, list_name, condition_key\nFROM code_conditions\nWHERE counts_now = 1"),
             hierarchy,
-        ),
-        Some(days) => {
-            let (window, rule) = if days == u32::MAX {
+        );
+    } else {
+        let earlier_only = cfg.window == WindowScope::EarlierOnly;
+        let names = |pick: &dyn Fn(Option<u32>) -> bool| -> Vec<String> {
+            engine
+                .lists()
+                .iter()
+                .zip(windows)
+                .filter(|(_, w)| pick(**w))
+                .map(|(l, _)| literal(&l.list.name))
+                .collect()
+        };
+        let unwindowed = names(&|w| w.is_none());
+        let mut groups: Vec<u32> = Vec::new();
+        for w in windows.iter().flatten() {
+            if !groups.contains(w) {
+                groups.push(*w);
+            }
+        }
+        let mut branches = Vec::new();
+        let mut rules = Vec::new();
+        // The unit's own codes.
+        if !earlier_only {
+            branches.push(
+                "SELECT unit, list_name, condition_key\nFROM code_conditions\nWHERE counts_now = 1"
+                    .to_string(),
+            );
+            rules.push("an episode's own codes that count now".to_string());
+        } else if !unwindowed.is_empty() {
+            branches.push(format!(
+                "SELECT unit, list_name, condition_key\nFROM code_conditions\nWHERE counts_now = 1 AND list_name IN ({})",
+                unwindowed.join(", ")
+            ));
+            rules.push(format!(
+                "an episode's own codes that count now, for the lists without a window ({})",
+                unwindowed.join(", ")
+            ));
+        }
+        for days in &groups {
+            let lists = names(&|w| w == Some(*days));
+            let only = if lists.len() == engine.lists().len() {
+                String::new()
+            } else {
+                format!(" AND c.list_name IN ({})", lists.join(", "))
+            };
+            let (bound, span) = if *days == u32::MAX {
                 (String::new(), "the whole history".to_string())
+            } else if earlier_only {
+                (
+                    format!("\n AND f.day >= e.day - {days}"),
+                    format!("dated in [date - {days}, date - 1]"),
+                )
             } else {
                 (
                     format!("\n AND f.day >= e.day - {days}"),
-                    format!("dated in [date - {days}, date], both ends inclusive"),
+                    format!("dated in [date - {days}, date]"),
                 )
             };
-            step(
-                "unit_conditions",
-                &format!(
-                    "Step 13. Lookback: an episode's conditions are those of its own codes that\n\
-count now, and every code of the same patient's other episodes {rule}\n\
-(same day included, later never). An episode without a date, or without a\n\
-patient, has its own codes alone."
-                ),
-                format!(
-                    "SELECT unit, list_name, condition_key\nFROM code_conditions\nWHERE counts_now = 1\n\
-{union}\n\
-SELECT e.unit, c.list_name, c.condition_key\nFROM unit_facts AS e\n\
-JOIN unit_facts AS f\n  ON f.patient = e.patient\n AND f.unit <> e.unit\n AND f.day <= e.day{window}\n\
-JOIN code_conditions AS c ON c.unit = f.unit"
-                ),
-                hierarchy,
-            );
+            let (day, scope) = if earlier_only {
+                ("f.day < e.day", "earlier days only")
+            } else {
+                ("f.day <= e.day", "the same day included, later never")
+            };
+            rules.push(format!(
+                "every code of the same patient's other episodes {span} ({scope}) for {}",
+                lists.join(", ")
+            ));
+            branches.push(format!(
+                "SELECT e.unit, c.list_name, c.condition_key\nFROM unit_facts AS e\n\
+JOIN unit_facts AS f\n  ON f.patient = e.patient\n AND f.unit <> e.unit\n AND {day}{bound}\n\
+JOIN code_conditions AS c ON c.unit = f.unit{only}"
+            ));
         }
+        step(
+            "unit_conditions",
+            &format!(
+                "Step 13. Lookback (--window {}): an episode's conditions are {}.\n\
+An episode without a date, or without a patient, has no other episodes.",
+                cfg.window.name(),
+                rules.join(";\n")
+            ),
+            branches.join(&format!("\n{union}\n")),
+            hierarchy,
+        );
     }
 
     // 8. Hierarchy.
@@ -1249,12 +1416,19 @@ fn final_select(engine: &Engine, opts: &SqlOptions, cols: &Columns, number: usiz
             }
         }
         match row_source(opts, cols) {
-            RowSource::Rowid => (
+            RowSource::Rowid if opts.order_by.is_empty() => (
                 format!(
                     "FROM {} AS r\nJOIN unit_totals AS t ON t.unit = r.rowid",
                     quote_name(&opts.table)
                 ),
                 "ORDER BY r.rowid",
+            ),
+            RowSource::Rowid => (
+                format!(
+                    "FROM {} AS r\nJOIN source_rows AS n ON n.morbus_rowid = r.rowid\nJOIN unit_totals AS t ON t.unit = n.morbus_row",
+                    quote_name(&opts.table)
+                ),
+                "ORDER BY n.morbus_row",
             ),
             _ => (
                 "FROM source_rows AS r\nJOIN unit_totals AS t ON t.unit = r.morbus_row".to_string(),
@@ -1317,7 +1491,12 @@ fn final_select(engine: &Engine, opts: &SqlOptions, cols: &Columns, number: usiz
         };
         sel.push(format!("{e} AS {n}"));
     }
-    let from = from + &joins;
+    let mut from = from + &joins;
+    if cols.date.is_some() {
+        // The guard is read before any row comes out: a query over too many
+        // unreadable dates stops instead of giving scores.
+        from.push_str("\nCROSS JOIN date_guard AS g\nWHERE g.passed = 1");
+    }
     format!(
         "-- Step {number}. The output: {}, then the score columns of `morbus score`.\nSELECT {}\n{from}\n{order}",
         if wide {
@@ -1326,5 +1505,205 @@ fn final_select(engine: &Engine, opts: &SqlOptions, cols: &Columns, number: usiz
             "one row per unit, in order of first appearance"
         },
         sel.join(",\n  ")
+    )
+}
+
+/// The steps that stop the query as `morbus score` stops a run: when more
+/// than `--max-unreadable-dates` percent of the units with a non-empty date
+/// have no readable one, with the engine's message
+/// (`pipeline::history::check_unreadable_dates`).
+fn date_guard(
+    step: &mut impl FnMut(&'static str, &str, String, bool),
+    d: Dialect,
+    cfg: &ScoreConfig,
+    stop: &str,
+) {
+    step(
+        "date_counts",
+        "Step 12c. Units with a date field that is not empty, and those of them\n\
+with no readable date.",
+        "SELECT COALESCE(SUM(CASE WHEN day IS NULL AND date_given = 1 THEN 1 ELSE 0 END), 0) AS unreadable,\n  \
+COALESCE(SUM(date_given), 0) AS non_empty\nFROM unit_facts"
+            .into(),
+        false,
+    );
+    step(
+        "date_examples",
+        "Step 12d. The first three distinct unreadable dates, in row order.",
+        "SELECT MAX(CASE WHEN example_rank = 1 THEN example END) AS example_1,\n  \
+MAX(CASE WHEN example_rank = 2 THEN example END) AS example_2,\n  \
+MAX(CASE WHEN example_rank = 3 THEN example END) AS example_3\n\
+FROM (\n  SELECT example, ROW_NUMBER() OVER (ORDER BY first_row) AS example_rank\n  FROM (\n    \
+SELECT date_written AS example, MIN(morbus_row) AS first_row\n    FROM row_facts\n    \
+WHERE day IS NULL AND date_given = 1\n    GROUP BY date_written\n  ) AS v\n) AS e\nWHERE example_rank <= 3"
+            .into(),
+        false,
+    );
+    let max = cfg.max_unreadable_dates;
+    let quoted = |x: &str| format!("'''' || {x} || ''''");
+    let message = format!(
+        "CAST(c.unreadable AS TEXT) || ' of ' || CAST(c.non_empty AS TEXT)\n    \
+|| ' episodes with a date (' || {} || '%) have an unreadable date, more than the {max}% allowed by --max-unreadable-dates; e.g. '\n    \
+|| {} || COALESCE(', ' || {}, '') || COALESCE(', ' || {}, '')\n    \
+|| {}",
+        d.two_decimals("c.unreadable * 100.0 / c.non_empty"),
+        quoted("x.example_1"),
+        quoted("x.example_2"),
+        quoted("x.example_3"),
+        literal(&format!(
+            " (expected {}); give the dates' format with --date-format, or raise --max-unreadable-dates",
+            cfg.date_format
+        )),
+    );
+    step(
+        "date_guard",
+        &format!(
+            "Step 12e. --max-unreadable-dates {max}: more than {max}% of the units with a date\n\
+unreadable stops the query with morbus's message (the dates' format is likely\n\
+another, and each such episode would be scored alone)."
+        ),
+        format!(
+            "SELECT CASE WHEN c.unreadable > 0 AND c.unreadable * 100.0 > {max} * c.non_empty\n  \
+THEN {}\n  ELSE 1 END AS passed\nFROM date_counts AS c\nCROSS JOIN date_examples AS x",
+            d.stop(&message, stop)
+        ),
+        false,
+    );
+}
+
+/// A `--date-format` pattern as SQL: the date text `t` rewritten as
+/// `YYYY-MM-DD` (not yet checked as a calendar date), or NULL where the
+/// pattern does not read it, as `pipeline::dates` reads it: `%Y` four
+/// digits, `%m` and `%d` one or two digits (greedy; exactly two next to
+/// another numeric directive), `%b` an English month abbreviation in any
+/// case, other characters literally, and after the pattern nothing or a
+/// time after `T` or a space. Each choice of one or two digits is one
+/// alternative of a CASE (at most four); at most one of them can match.
+fn pattern_iso(d: Dialect, pattern: &str, t: &str) -> String {
+    #[derive(Clone, Copy, PartialEq)]
+    enum Part {
+        Year,
+        Month(bool),
+        Day(bool),
+        MonthName,
+        Literal(char),
+    }
+    let chars: Vec<char> = pattern.chars().collect();
+    let numeric_at =
+        |i: usize| chars.get(i) == Some(&'%') && matches!(chars.get(i + 1), Some('Y' | 'm' | 'd'));
+    let mut parts = Vec::new();
+    let mut i = 0;
+    while i < chars.len() {
+        if chars[i] == '%' && i + 1 < chars.len() {
+            let packed = (i >= 2 && numeric_at(i - 2)) || numeric_at(i + 2);
+            parts.push(match chars[i + 1] {
+                'Y' => Part::Year,
+                'm' => Part::Month(packed),
+                'd' => Part::Day(packed),
+                'b' => Part::MonthName,
+                other => Part::Literal(other),
+            });
+            i += 2;
+        } else {
+            parts.push(Part::Literal(chars[i]));
+            i += 1;
+        }
+    }
+    // The directives that may take one digit.
+    let free: Vec<usize> = parts
+        .iter()
+        .enumerate()
+        .filter(|(_, p)| matches!(p, Part::Month(false) | Part::Day(false)))
+        .map(|(k, _)| k)
+        .collect();
+    let months = [
+        "jan", "feb", "mar", "apr", "may", "jun", "jul", "aug", "sep", "oct", "nov", "dec",
+    ];
+    let month_case = |pos: usize| {
+        let whens: Vec<String> = months
+            .iter()
+            .enumerate()
+            .map(|(k, m)| format!("WHEN '{m}' THEN '{:02}'", k + 1))
+            .collect();
+        format!("CASE lower(substr({t}, {pos}, 3)) {} END", whens.join(" "))
+    };
+    let mut alternatives = Vec::new();
+    for choice in 0..(1usize << free.len()) {
+        let mut shape = Vec::new();
+        let mut checks = Vec::new();
+        let (mut year, mut month, mut day) = (String::new(), String::new(), String::new());
+        let mut pos = 1usize;
+        for (k, part) in parts.iter().enumerate() {
+            let width = match free.iter().position(|&f| f == k) {
+                Some(bit) if choice & (1 << bit) != 0 => 1,
+                _ => 2,
+            };
+            let number = |pos: usize, width: usize| {
+                if width == 1 {
+                    format!("'0' || substr({t}, {pos}, 1)")
+                } else {
+                    format!("substr({t}, {pos}, 2)")
+                }
+            };
+            match *part {
+                Part::Year => {
+                    shape.extend([ShapeChar::Digit; 4]);
+                    year = format!("substr({t}, {pos}, 4)");
+                    pos += 4;
+                }
+                Part::Month(_) | Part::Day(_) => {
+                    shape.extend(std::iter::repeat_n(ShapeChar::Digit, width));
+                    if width == 1 {
+                        // Greedy: one digit only when no second follows.
+                        checks.push(format!(
+                            "NOT ({})",
+                            d.starts_with_shape(
+                                &format!("substr({t}, {}, 1)", pos + 1),
+                                &[ShapeChar::Digit]
+                            )
+                        ));
+                    }
+                    let n = number(pos, width);
+                    if matches!(part, Part::Month(_)) {
+                        month = n;
+                    } else {
+                        day = n;
+                    }
+                    pos += width;
+                }
+                Part::MonthName => {
+                    shape.extend([ShapeChar::Any; 3]);
+                    checks.push(format!("{} IS NOT NULL", month_case(pos)));
+                    month = month_case(pos);
+                    pos += 3;
+                }
+                Part::Literal(c) => {
+                    shape.push(ShapeChar::Literal(c));
+                    pos += 1;
+                }
+            }
+        }
+        let end = pos - 1;
+        let mut all = vec![d.starts_with_shape(t, &shape)];
+        all.extend(checks);
+        all.push(format!(
+            "(length({t}) = {end} OR substr({t}, {pos}, 1) IN ('T', ' '))"
+        ));
+        alternatives.push(format!(
+            "WHEN {}
+         THEN {year} || '-' || {month} || '-' || {day}",
+            all.join(
+                "
+          AND "
+            )
+        ));
+    }
+    format!(
+        "CASE {}
+    END",
+        alternatives.join(
+            "
+    "
+        )
     )
 }

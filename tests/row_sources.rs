@@ -1,0 +1,755 @@
+//! One row model, three sources: the same generated extract gives the same
+//! scores, `explain` records and summary counts whether it is read as
+//! delimited text, as a data frame's typed columns (`frame::Columns`, what
+//! the R package hands over) or as a Parquet file's record batches, for the
+//! wide and long layouts, `--episode`, lookback of 365 days and of the
+//! whole history, `--window earlier-only` and a window per list, with the
+//! primary-diagnosis and present-on-admission rules on.
+//!
+//! The text path is the reference (checked against hand-worked histories
+//! in tests/history.rs and tests/properties.rs); this test proves that the
+//! typed sources read every value as the text reader does. The extract is
+//! invented and seeded: messy and invalid codes, missing and unreadable
+//! dates and ages, several episodes per patient (some on the same day),
+//! and, in the long layout, rows of one episode that disagree on its age.
+//! It comes in two forms: every column text, and typed columns (integer
+//! ids, dates as dates, ages as floating-point numbers, primary flags as
+//! true/false) with the same values written as text for the CSV.
+
+#![cfg(feature = "parquet")]
+
+use std::fs::File;
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+
+use arrow_array::{
+    ArrayRef, BooleanArray, Date32Array, Float64Array, Int64Array, RecordBatch, StringArray,
+};
+use morbus::frame::{self, Columns, Explained, Field, Kind, ScoreColumn};
+use morbus::io::parquet::{ParquetRows, ParquetText, Source};
+use morbus::lists::Catalogue;
+use morbus::pipeline::explain::ExplainFormat;
+use morbus::pipeline::history::Input;
+use morbus::pipeline::{
+    explain_stream, score_stream, Header, Layout, ScoreConfig, Summary, WindowScope,
+};
+use morbus::score::{Engine, IndexSpec, ScoreOptions};
+use morbus::Error;
+use parquet::arrow::ArrowWriter;
+use parquet::file::properties::WriterProperties;
+
+/// A column of the generated extract.
+#[derive(Clone)]
+enum Col {
+    Text(Vec<Option<String>>),
+    Int(Vec<Option<i64>>),
+    Num(Vec<Option<f64>>),
+    Bool(Vec<Option<bool>>),
+    Date(Vec<Option<i64>>),
+}
+
+struct Table {
+    names: Vec<String>,
+    cols: Vec<Col>,
+}
+
+impl Columns for Table {
+    fn rows(&self) -> usize {
+        match &self.cols[0] {
+            Col::Text(v) => v.len(),
+            Col::Int(v) => v.len(),
+            Col::Num(v) => v.len(),
+            Col::Bool(v) => v.len(),
+            Col::Date(v) => v.len(),
+        }
+    }
+    fn kind(&self, col: usize) -> Kind {
+        match &self.cols[col] {
+            Col::Text(_) => Kind::Text,
+            Col::Int(_) => Kind::Integer,
+            Col::Num(_) => Kind::Number,
+            Col::Bool(_) => Kind::Logical,
+            Col::Date(_) => Kind::Date,
+        }
+    }
+    fn field(&self, col: usize, row: usize) -> Field<'_> {
+        match &self.cols[col] {
+            Col::Text(v) => v[row]
+                .as_deref()
+                .map_or(Field::Null, |t| Field::Text(t.as_bytes())),
+            Col::Int(v) => v[row].map_or(Field::Null, Field::Integer),
+            Col::Num(v) => v[row].map_or(Field::Null, Field::Number),
+            Col::Bool(v) => v[row].map_or(Field::Null, Field::Logical),
+            Col::Date(v) => v[row].map_or(Field::Null, Field::Date),
+        }
+    }
+}
+
+impl Table {
+    fn header(&self) -> Header {
+        Header {
+            names: self.names.clone(),
+        }
+    }
+
+    /// The same values as CSV text (nulls and NaN empty, dates ISO,
+    /// numbers in Rust's shortest form).
+    fn csv(&self) -> Vec<u8> {
+        let mut w = csv::Writer::from_writer(Vec::new());
+        w.write_record(&self.names).unwrap();
+        for r in 0..self.rows() {
+            let rec: Vec<String> = self
+                .cols
+                .iter()
+                .map(|c| match c {
+                    Col::Text(v) => v[r].clone().unwrap_or_default(),
+                    Col::Int(v) => v[r].map_or(String::new(), |x| x.to_string()),
+                    // NaN is a missing number (as in R and pandas).
+                    Col::Num(v) => v[r]
+                        .filter(|x| !x.is_nan())
+                        .map_or(String::new(), |x| x.to_string()),
+                    Col::Bool(v) => v[r].map_or(String::new(), |x| x.to_string()),
+                    Col::Date(v) => v[r].map_or(String::new(), |d| {
+                        let mut t = Vec::new();
+                        morbus::pipeline::dates::write_iso_date(d, &mut t);
+                        String::from_utf8(t).unwrap()
+                    }),
+                })
+                .collect();
+            w.write_record(&rec).unwrap();
+        }
+        w.into_inner().unwrap()
+    }
+
+    /// The same values as Parquet with typed columns, in row groups of 37
+    /// rows (so that batches and groups do not line up with episodes).
+    fn parquet(&self, path: &Path) {
+        let arrays: Vec<(String, ArrayRef)> = self
+            .names
+            .iter()
+            .zip(&self.cols)
+            .map(|(n, c)| {
+                let a: ArrayRef = match c {
+                    Col::Text(v) => Arc::new(StringArray::from(v.clone())),
+                    Col::Int(v) => Arc::new(Int64Array::from(v.clone())),
+                    Col::Num(v) => Arc::new(Float64Array::from(v.clone())),
+                    Col::Bool(v) => Arc::new(BooleanArray::from(v.clone())),
+                    Col::Date(v) => Arc::new(Date32Array::from(
+                        v.iter().map(|d| d.map(|d| d as i32)).collect::<Vec<_>>(),
+                    )),
+                };
+                (n.clone(), a)
+            })
+            .collect();
+        let batch = RecordBatch::try_from_iter(arrays).unwrap();
+        let props = WriterProperties::builder()
+            .set_max_row_group_row_count(Some(37))
+            .build();
+        let mut w =
+            ArrowWriter::try_new(File::create(path).unwrap(), batch.schema(), Some(props)).unwrap();
+        w.write(&batch).unwrap();
+        w.close().unwrap();
+    }
+}
+
+/// A small seeded generator (64-bit linear congruential).
+struct Rng(u64);
+
+impl Rng {
+    fn next(&mut self) -> u64 {
+        self.0 = self
+            .0
+            .wrapping_mul(6364136223846793005)
+            .wrapping_add(1442695040888963407);
+        self.0 >> 33
+    }
+    fn below(&mut self, n: u64) -> u64 {
+        self.next() % n
+    }
+    fn pick<'a>(&mut self, items: &[&'a str]) -> &'a str {
+        items[self.below(items.len() as u64) as usize]
+    }
+}
+
+/// Codes as extracts hold them: valid codes of many conditions, written
+/// with dots or without, lower case, padded, with filler; invalid values.
+const CODES: &[&str] = &[
+    "I21.9",
+    "i21.9",
+    "I50.0",
+    " I50 ",
+    "E11.2",
+    "E11.9",
+    "E112",
+    "C78.0",
+    "C18.7",
+    "F00.1",
+    "R41.0",
+    "J44.9",
+    "N18.5",
+    "I10",
+    "E66.9",
+    "K70.3",
+    "R29.6",
+    "W19",
+    "Z99.1",
+    "G30.9",
+    "I63.9",
+    "B20",
+    "F32.9",
+    "I48",
+    "C34.1",
+    "E11.2-",
+    "I2l.9",
+    "??",
+    "Q",
+    "not a code",
+    "",
+];
+const POA: &[&str] = &["Y", "Y", "y", "N", "U", "W", "1", "", "E"];
+const TEXT_DATES_BAD: &[&str] = &["", "2021-13-45", "yesterday", "03/04/2021"];
+const TEXT_AGES: &[&str] = &["80", "79.5", "", "abc", "150", " 67 ", "-3", "45"];
+const NUM_AGES: &[Option<f64>] = &[
+    Some(80.0),
+    Some(79.5),
+    None,
+    Some(-3.0),
+    Some(150.0),
+    Some(67.0),
+    Some(45.0),
+    // Last: left out of the wide extract.
+    Some(f64::NAN),
+];
+
+/// Day 19000 is 2022-01-08.
+const BASE_DAY: i64 = 19_000;
+
+fn iso(d: i64) -> String {
+    let mut t = Vec::new();
+    morbus::pipeline::dates::write_iso_date(d, &mut t);
+    String::from_utf8(t).unwrap()
+}
+
+/// The wide extract: one row per episode. `typed`: integer ids, dates as
+/// dates (an unreadable one becomes missing), ages as numbers.
+fn wide(typed: bool) -> Table {
+    let mut r = Rng(20_261_203);
+    let mut patient = Vec::new();
+    let mut date_text = Vec::new();
+    let mut date_day = Vec::new();
+    let mut age_text = Vec::new();
+    let mut age_num = Vec::new();
+    let mut dx: Vec<Vec<Option<String>>> = vec![Vec::new(); 4];
+    let mut poa: Vec<Vec<Option<String>>> = vec![Vec::new(); 4];
+    for p in 0..60i64 {
+        let episodes = 1 + r.below(6);
+        let mut day = BASE_DAY + r.below(300) as i64;
+        for _ in 0..episodes {
+            patient.push(p);
+            // Some on the same day, some a few days, some a year or more on.
+            day += [0, 0, 3, 40, 200, 364, 366, 800][r.below(8) as usize];
+            if r.below(10) == 0 {
+                let bad = r.pick(TEXT_DATES_BAD);
+                date_text.push((!bad.is_empty()).then(|| bad.to_string()));
+                date_day.push(None);
+            } else {
+                date_text.push(Some(iso(day)));
+                date_day.push(Some(day));
+            }
+            let a = r.pick(TEXT_AGES);
+            age_text.push((!a.is_empty()).then(|| a.to_string()));
+            // No NaN here: the wide layout's Parquet route still reads
+            // text (its output copies the rows), where a NaN is the text
+            // "NaN", an unreadable age; typed sources read it as missing.
+            age_num.push(NUM_AGES[r.below(NUM_AGES.len() as u64 - 1) as usize]);
+            for k in 0..4 {
+                let c = if k > 0 && r.below(3) == 0 {
+                    ""
+                } else {
+                    r.pick(CODES)
+                };
+                dx[k].push((!c.is_empty()).then(|| c.to_string()));
+                let i = r.pick(POA);
+                poa[k].push((!i.is_empty()).then(|| i.to_string()));
+            }
+        }
+    }
+    let mut names = vec!["patient".to_string(), "admitted".into(), "age".into()];
+    let mut cols = if typed {
+        vec![
+            Col::Int(patient.iter().map(|&p| Some(1000 + p)).collect()),
+            Col::Date(date_day),
+            Col::Num(age_num),
+        ]
+    } else {
+        vec![
+            Col::Text(patient.iter().map(|p| Some(format!("P{p:03}"))).collect()),
+            Col::Text(date_text),
+            Col::Text(age_text),
+        ]
+    };
+    for (k, d) in dx.into_iter().enumerate() {
+        names.push(format!("dx{}", k + 1));
+        cols.push(Col::Text(d));
+    }
+    for (k, i) in poa.into_iter().enumerate() {
+        names.push(format!("poa{}", k + 1));
+        cols.push(Col::Text(i));
+    }
+    Table { names, cols }
+}
+
+/// The long extract: one row per code; an episode's rows share its date,
+/// and some give another age.
+fn long(typed: bool) -> Table {
+    let mut r = Rng(5_150_001);
+    let (mut patient, mut episode, mut date_text, mut date_day) =
+        (Vec::new(), Vec::new(), Vec::new(), Vec::new());
+    let (mut age_text, mut age_num, mut code, mut primary_text, mut primary_bool, mut poa) = (
+        Vec::new(),
+        Vec::new(),
+        Vec::new(),
+        Vec::new(),
+        Vec::new(),
+        Vec::new(),
+    );
+    let mut n = 0;
+    for p in 0..50i64 {
+        let episodes = 1 + r.below(5);
+        let mut day = BASE_DAY + r.below(300) as i64;
+        for _ in 0..episodes {
+            n += 1;
+            day += [0, 2, 30, 180, 365, 700][r.below(6) as usize];
+            let bad_date = r.below(12) == 0;
+            let bad = r.pick(TEXT_DATES_BAD);
+            let a = r.below(TEXT_AGES.len() as u64) as usize;
+            for k in 0..1 + r.below(4) {
+                patient.push(p);
+                episode.push(Some(format!("E{n:04}")));
+                if bad_date {
+                    date_text.push((!bad.is_empty()).then(|| bad.to_string()));
+                    date_day.push(None);
+                } else {
+                    date_text.push(Some(iso(day)));
+                    date_day.push(Some(day));
+                }
+                // Now and then a row of the episode gives another age.
+                let a = if r.below(8) == 0 { (a + 1) % 8 } else { a };
+                age_text.push((!TEXT_AGES[a].is_empty()).then(|| TEXT_AGES[a].to_string()));
+                age_num.push(NUM_AGES[a]);
+                let c = r.pick(CODES);
+                code.push((!c.is_empty()).then(|| c.to_string()));
+                primary_text.push(Some(if k == 0 { "1" } else { "0" }.to_string()));
+                primary_bool.push(Some(k == 0));
+                let i = r.pick(POA);
+                poa.push((!i.is_empty()).then(|| i.to_string()));
+            }
+        }
+    }
+    let names = [
+        "patient", "episode", "admitted", "age", "code", "primary", "poa",
+    ]
+    .map(String::from)
+    .to_vec();
+    let cols = if typed {
+        vec![
+            Col::Int(patient.iter().map(|&p| Some(7000 + p)).collect()),
+            Col::Text(episode),
+            Col::Date(date_day),
+            Col::Num(age_num),
+            Col::Text(code),
+            Col::Bool(primary_bool),
+            Col::Text(poa),
+        ]
+    } else {
+        vec![
+            Col::Text(patient.iter().map(|p| Some(format!("Q{p:02}"))).collect()),
+            Col::Text(episode),
+            Col::Text(date_text),
+            Col::Text(age_text),
+            Col::Text(code),
+            Col::Text(primary_text),
+            Col::Text(poa),
+        ]
+    };
+    Table { names, cols }
+}
+
+fn engine() -> Engine {
+    let specs =
+        IndexSpec::parse_many("charlson:quan2011,elixhauser:vanwalraven2009,hfrs:gilbert2018")
+            .unwrap();
+    let options = ScoreOptions {
+        age: true,
+        ..ScoreOptions::default()
+    };
+    Engine::new(&Catalogue::builtin(), &specs, options).unwrap()
+}
+
+/// The runs compared, by name.
+fn configs(layout: Layout) -> Vec<(&'static str, ScoreConfig)> {
+    let base = ScoreConfig {
+        layout,
+        id: Some("patient".into()),
+        date: Some("admitted".into()),
+        age: Some("age".into()),
+        exclude_primary: true,
+        poa: Some(match layout {
+            Layout::Wide => "poa*".into(),
+            Layout::Long => "poa".into(),
+        }),
+        poa_values: morbus::pipeline::DEFAULT_POA_VALUES
+            .iter()
+            .map(|v| v.to_string())
+            .collect(),
+        max_unreadable_dates: 100.0,
+        dx: vec![match layout {
+            Layout::Wide => "dx*".into(),
+            Layout::Long => "code".into(),
+        }],
+        primary: (layout == Layout::Long).then(|| "primary".into()),
+        episode: (layout == Layout::Long).then(|| "episode".into()),
+        ..ScoreConfig::default()
+    };
+    let mut out = vec![
+        (
+            "lookback 365",
+            ScoreConfig {
+                lookback: Some(365),
+                ..base.clone()
+            },
+        ),
+        (
+            "lookback all, earlier only",
+            ScoreConfig {
+                lookback: Some(u32::MAX),
+                window: WindowScope::EarlierOnly,
+                ..base.clone()
+            },
+        ),
+        (
+            "a window per list",
+            ScoreConfig {
+                lookback_lists: vec![("charlson".into(), 365), ("hfrs".into(), 730)],
+                ..base.clone()
+            },
+        ),
+    ];
+    if layout == Layout::Long {
+        // Without --episode: one unit per patient, dated by its first row.
+        out.push((
+            "long without episodes, lookback all",
+            ScoreConfig {
+                episode: None,
+                lookback: Some(u32::MAX),
+                ..base.clone()
+            },
+        ));
+    }
+    out
+}
+
+fn records(csv_text: &[u8]) -> Vec<Vec<String>> {
+    csv::ReaderBuilder::new()
+        .has_headers(false)
+        .from_reader(csv_text)
+        .records()
+        .map(|r| r.unwrap().iter().map(String::from).collect())
+        .collect()
+}
+
+/// The score columns of a CSV output (the last `n` columns), row by row.
+fn score_cells(out: &[u8], n: usize) -> (Vec<String>, Vec<Vec<String>>) {
+    let recs = records(out);
+    let w = recs[0].len();
+    let head = recs[0][w - n..].to_vec();
+    let rows = recs[1..].iter().map(|r| r[w - n..].to_vec()).collect();
+    (head, rows)
+}
+
+/// A frame's score columns as the command line writes them.
+fn frame_cells(columns: &[ScoreColumn], rows: usize) -> Vec<Vec<String>> {
+    (0..rows)
+        .map(|r| {
+            columns
+                .iter()
+                .map(|c| match c {
+                    ScoreColumn::Int(v) => v[r].map_or(String::new(), |x| x.to_string()),
+                    // Compared as numbers: the text has the list's decimals.
+                    ScoreColumn::Float(v) => v[r].map_or(String::new(), |x| format!("{x:.4}")),
+                    ScoreColumn::Band { names, values } => {
+                        values[r].map_or(String::new(), |b| names[b as usize].clone())
+                    }
+                    ScoreColumn::Flag(v) => v[r].map_or(String::new(), |x| x.to_string()),
+                })
+                .collect()
+        })
+        .collect()
+}
+
+fn same_decimals(text: &[Vec<String>], columns: &[ScoreColumn]) -> Vec<Vec<String>> {
+    text.iter()
+        .map(|row| {
+            row.iter()
+                .zip(columns)
+                .map(|(v, c)| match c {
+                    ScoreColumn::Float(_) if !v.is_empty() => {
+                        format!("{:.4}", v.parse::<f64>().unwrap())
+                    }
+                    _ => v.clone(),
+                })
+                .collect()
+        })
+        .collect()
+}
+
+struct Files {
+    _dir: TempDir,
+    path: PathBuf,
+}
+
+struct TempDir(PathBuf);
+
+impl Drop for TempDir {
+    fn drop(&mut self) {
+        let _ = std::fs::remove_dir_all(&self.0);
+    }
+}
+
+fn parquet_file(t: &Table, stem: &str) -> Files {
+    let dir =
+        std::env::temp_dir().join(format!("morbus-row-sources-{stem}-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let path = dir.join(format!("{stem}.parquet"));
+    t.parquet(&path);
+    Files {
+        _dir: TempDir(dir),
+        path,
+    }
+}
+
+fn typed_rows(path: &Path) -> Input<'static> {
+    Input::Rows(Box::new(
+        ParquetRows::from_source(Source::File(path.to_path_buf()), None, "in.parquet").unwrap(),
+    ))
+}
+
+/// Scores and summary through the three sources agree.
+fn check_scores(engine: &Engine, t: &Table, pq: &Path, what: &str, cfg: &ScoreConfig) {
+    let n = engine.columns().len();
+    let mut text_out = Vec::new();
+    let text_summary = score_stream(engine, cfg, &t.csv()[..], &mut text_out).unwrap();
+    let (head, text_rows) = score_cells(&text_out, n);
+    let names: Vec<&str> = engine.columns().iter().map(|c| c.name.as_str()).collect();
+    assert_eq!(head, names, "{what}");
+
+    // Parquet, as the command line reads it for a CSV output: typed rows
+    // for the long layout, text for the wide one (whose output copies the
+    // rows).
+    let mut pq_out = Vec::new();
+    let pq_summary = match cfg.layout {
+        Layout::Long => score_stream(engine, cfg, typed_rows(pq), &mut pq_out),
+        Layout::Wide => score_stream(
+            engine,
+            cfg,
+            ParquetText::open(pq, b',', None).unwrap(),
+            &mut pq_out,
+        ),
+    }
+    .unwrap();
+    let (_, pq_rows) = score_cells(&pq_out, n);
+    assert_eq!(pq_rows, text_rows, "{what}: Parquet scores");
+    assert_eq!(pq_summary, text_summary, "{what}: Parquet summary");
+    if cfg.layout == Layout::Long {
+        // The units and their ids, in the same order.
+        let ids = |out: &[u8]| -> Vec<Vec<String>> {
+            let k = 1 + usize::from(cfg.episode.is_some());
+            records(out).iter().map(|r| r[..k].to_vec()).collect()
+        };
+        assert_eq!(ids(&pq_out), ids(&text_out), "{what}: Parquet units");
+    }
+
+    if cfg.layout == Layout::Wide {
+        // Typed, as a Parquet output of a Parquet input reads it: the
+        // output holds the scores only (the input's columns are copied by
+        // the Parquet writer).
+        let mut typed_out = Vec::new();
+        let typed_summary = score_stream(engine, cfg, typed_rows(pq), &mut typed_out).unwrap();
+        assert_eq!(records(&typed_out)[0], head, "{what}: typed wide header");
+        assert_eq!(
+            score_cells(&typed_out, n).1,
+            text_rows,
+            "{what}: typed wide"
+        );
+        assert_eq!(typed_summary, text_summary, "{what}: typed wide summary");
+    }
+
+    // The frame.
+    let scored = frame::score(engine, cfg, &t.header(), t, 1).unwrap();
+    assert_eq!(
+        frame_cells(&scored.columns, text_rows.len()),
+        same_decimals(&text_rows, &scored.columns),
+        "{what}: frame scores"
+    );
+    assert_eq!(scored.summary, text_summary, "{what}: frame summary");
+    if let Some(first) = &scored.first_rows {
+        let text_ids: Vec<String> = records(&text_out)[1..]
+            .iter()
+            .map(|r| r[0].clone())
+            .collect();
+        let frame_ids: Vec<String> = first
+            .iter()
+            .map(|&row| match t.field(0, row as usize) {
+                Field::Text(b) => String::from_utf8(b.to_vec()).unwrap(),
+                Field::Integer(i) => i.to_string(),
+                other => panic!("id {other:?}"),
+            })
+            .collect();
+        assert_eq!(frame_ids, text_ids, "{what}: frame units");
+    }
+    // Not a vacuous comparison: the extract exercises every rule.
+    let s = &text_summary;
+    assert!(s.invalid_codes > 0, "{what}: {s:?}");
+    assert!(s.missing_ages + s.unreadable_ages > 0, "{what}");
+    assert!(
+        s.excluded_primary > 0 && s.excluded_not_on_admission > 0,
+        "{what}"
+    );
+    assert!(s.unrecognised_poa > 0, "{what}");
+    assert!(s.missing_dates > 0, "{what}");
+}
+
+/// A frame's explain records as the command line's CSV writes them.
+fn explained_cells(ex: &Explained) -> Vec<Vec<String>> {
+    let opt = |v: &Option<String>| v.clone().unwrap_or_default();
+    let num = |x: f64| format!("{x:.4}");
+    (0..ex.row.len())
+        .map(|i| {
+            vec![
+                ex.row[i].to_string(),
+                ex.index[i].clone(),
+                ex.source_row[i].map_or(String::new(), |r| r.to_string()),
+                ex.source_date[i].map_or(String::new(), iso),
+                opt(&ex.code_as_written[i]),
+                opt(&ex.code[i]),
+                opt(&ex.condition[i]),
+                num(ex.weight[i]),
+                ex.status[i].clone(),
+                ex.age_points[i].map_or(String::new(), num),
+            ]
+        })
+        .collect()
+}
+
+/// `explain` through the three sources agrees.
+fn check_explain(engine: &Engine, t: &Table, pq: &Path, what: &str, cfg: &ScoreConfig) {
+    let mut text_out = Vec::new();
+    let text_summary =
+        explain_stream(engine, cfg, ExplainFormat::Csv, &t.csv()[..], &mut text_out).unwrap();
+    let mut pq_out = Vec::new();
+    let pq_summary =
+        explain_stream(engine, cfg, ExplainFormat::Csv, typed_rows(pq), &mut pq_out).unwrap();
+    assert!(
+        pq_out == text_out,
+        "{what}: Parquet explain differs from the text's"
+    );
+    assert_eq!(pq_summary, text_summary, "{what}: Parquet explain summary");
+
+    let (ex, frame_summary) = frame::explain(engine, cfg, &t.header(), t, 1).unwrap();
+    assert_eq!(frame_summary, text_summary, "{what}: frame explain summary");
+    let recs = records(&text_out);
+    let skip = 1 + usize::from(cfg.episode.is_some());
+    let text_cells: Vec<Vec<String>> = recs[1..]
+        .iter()
+        .map(|r| {
+            let mut c = r[skip..].to_vec();
+            for k in [7, 9] {
+                if !c[k].is_empty() {
+                    c[k] = format!("{:.4}", c[k].parse::<f64>().unwrap());
+                }
+            }
+            c
+        })
+        .collect();
+    assert!(
+        text_cells.len() > 100,
+        "{what}: {} records",
+        text_cells.len()
+    );
+    assert_eq!(explained_cells(&ex), text_cells, "{what}: frame explain");
+}
+
+#[test]
+fn wide_extracts_read_alike_from_text_frames_and_parquet() {
+    let engine = engine();
+    for typed in [false, true] {
+        let t = wide(typed);
+        let pq = parquet_file(&t, if typed { "wide-typed" } else { "wide-text" });
+        for (name, cfg) in configs(Layout::Wide) {
+            let what = format!("wide, typed {typed}, {name}");
+            check_scores(&engine, &t, &pq.path, &what, &cfg);
+            check_explain(&engine, &t, &pq.path, &what, &cfg);
+        }
+    }
+}
+
+#[test]
+fn long_extracts_read_alike_from_text_frames_and_parquet() {
+    let engine = engine();
+    for typed in [false, true] {
+        let t = long(typed);
+        let pq = parquet_file(&t, if typed { "long-typed" } else { "long-text" });
+        for (name, cfg) in configs(Layout::Long) {
+            let what = format!("long, typed {typed}, {name}");
+            check_scores(&engine, &t, &pq.path, &what, &cfg);
+            check_explain(&engine, &t, &pq.path, &what, &cfg);
+        }
+    }
+}
+
+/// With --strict the first problem stops every source at the same row:
+/// the text names its line, a frame its row, a Parquet file its row and
+/// name.
+#[test]
+fn strict_stops_name_the_same_row_in_every_source() {
+    let engine = engine();
+    let t = long(false);
+    let pq = parquet_file(&t, "long-strict");
+    let (_, base) = configs(Layout::Long).remove(0);
+    let cfg = ScoreConfig {
+        strict: true,
+        ..base
+    };
+    let text = score_stream(&engine, &cfg, &t.csv()[..], &mut Vec::new()).unwrap_err();
+    let Error::Strict {
+        line: Some(line),
+        message,
+    } = text
+    else {
+        panic!("{text:?}")
+    };
+    // Header on line 1, one line per record.
+    let row = line - 1;
+    let framed = frame::score(&engine, &cfg, &t.header(), &t, 1).unwrap_err();
+    assert_eq!(
+        framed.to_string(),
+        format!("row {row}: {message} (--strict)")
+    );
+    let parquet = score_stream(&engine, &cfg, typed_rows(&pq.path), &mut Vec::new()).unwrap_err();
+    assert_eq!(
+        parquet.to_string(),
+        format!("row {row} of in.parquet: {message} (--strict)")
+    );
+}
+
+/// The summary type is compared whole above; make sure it carries the
+/// counts this test relies on.
+#[test]
+fn the_generated_extracts_disagree_within_episodes() {
+    let engine = engine();
+    let t = long(false);
+    let (_, cfg) = configs(Layout::Long).remove(0);
+    let s: Summary = score_stream(&engine, &cfg, &t.csv()[..], &mut Vec::new()).unwrap();
+    assert!(s.disagreeing_units > 0, "{s:?}");
+    assert!(s.unreadable_dates > 0, "{s:?}");
+}
