@@ -64,7 +64,9 @@ def compare(
     outcome: str,
     adjust: Optional[_Names] = None,
     adjust_cat: Optional[_Names] = None,
+    adjust_spline: Optional[_Names] = None,
     by: Optional[str] = None,
+    cluster: Optional[str] = None,
     min_expected: float = 5.0,
     overdispersion: Optional[str] = None,
     folds: Optional[int] = None,
@@ -94,7 +96,9 @@ def compare(
     """Compare index specifications on an outcome (``morbus compare``).
 
     Takes the command line's options under the same names (``adjust_cat``
-    for ``--adjust-cat``, ``min_expected`` for ``--min-expected``) and
+    for ``--adjust-cat``, ``adjust_spline`` for ``--adjust-spline`` as
+    ``"age:4"`` or a list of them, ``min_expected`` for ``--min-expected``,
+    ``cluster`` for ``--cluster``) and
     returns the results as a ``dict`` in the layout of the command line's
     ``--json`` file (documented in the README), computed by the same library
     function on the same data, so the numbers are the command line's.
@@ -114,6 +118,10 @@ def compare(
     (8, ['North', 'South'])
     >>> sum(r["providers"]["observed"])
     4
+    >>> r = morbus.compare(df, dx="dx1", outcome="died", index="charlson:count",
+    ...                    adjust_spline="age:3", cluster="site")
+    >>> r["splines"][0]["terms"], r["clusters"]["clusters"]
+    (['age', 'age_spline1'], 2)
 
     Errors raise ``KeyError`` (a missing column) or ``ValueError`` with the
     command line's messages.
@@ -134,7 +142,9 @@ def compare(
             outcome=outcome.strip(),
             adjust=_names(adjust),
             adjust_cat=_names(adjust_cat),
+            adjust_spline=_names(adjust_spline),
             by=by.strip() if by else None,
+            cluster=cluster.strip() if cluster else None,
             min_expected=float(min_expected),
             overdispersion=overdispersion,
             folds=folds,

@@ -14,7 +14,7 @@ use crate::{python_error, with_lists, Options, PyLists};
 
 /// Runs the comparison over CSV text; returns `(json, text, html or None)`.
 #[pyfunction]
-#[pyo3(signature = (data, options, *, outcome, adjust, adjust_cat, by, min_expected, overdispersion, folds, seed, reference, report, lists=None))]
+#[pyo3(signature = (data, options, *, outcome, adjust, adjust_cat, adjust_spline, by, cluster, min_expected, overdispersion, folds, seed, reference, report, lists=None))]
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn compare_csv<'py>(
     py: Python<'py>,
@@ -23,7 +23,9 @@ pub(crate) fn compare_csv<'py>(
     outcome: String,
     adjust: Vec<String>,
     adjust_cat: Vec<String>,
+    adjust_spline: Vec<String>,
     by: Option<String>,
+    cluster: Option<String>,
     min_expected: f64,
     overdispersion: Option<String>,
     folds: Option<usize>,
@@ -56,6 +58,12 @@ pub(crate) fn compare_csv<'py>(
         outcome,
         adjust,
         adjust_categorical: adjust_cat,
+        splines: adjust_spline
+            .iter()
+            .map(|s| compare::parse_spline(s))
+            .collect::<Result<_, _>>()
+            .map_err(python_error)?,
+        cluster,
         by,
         min_expected,
         overdispersion,
