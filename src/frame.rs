@@ -97,6 +97,12 @@ pub struct Scored {
     /// Long layout: for each output row, the 0-based frame row where its
     /// unit first appears (to take the id and episode values from).
     pub first_rows: Option<Vec<u64>>,
+    /// Long layout with `keep`: per kept column, for each output row, the
+    /// 0-based frame row whose value the unit carries (its first row with a
+    /// non-empty value; `None`: no row has one), to take the value, typed,
+    /// from the frame. Units whose rows disagree are counted in the
+    /// summary, as on the command line.
+    pub kept_rows: Vec<Vec<Option<u64>>>,
     pub summary: Summary,
 }
 
@@ -120,6 +126,10 @@ pub struct Explained {
     /// Whether every weight is a whole number (no index with decimals).
     pub whole_weights: bool,
     pub status: Vec<String>,
+    /// With `label`: for each record, the 0-based frame row of the label
+    /// value of its episode (the episode's row; long layout: its first row
+    /// with a non-empty value; `None`: none has one).
+    pub label_rows: Vec<Option<u64>>,
 }
 
 /// The options of a `score` or `explain` call as a binding receives them
@@ -138,8 +148,13 @@ pub struct Request {
     pub episode: Option<String>,
     pub date: Option<String>,
     pub date_format: Option<String>,
-    /// Days, or `all`.
+    /// Days, or `all`, or `LIST=DAYS` pairs (`charlson=365,hfrs=730`; a bare
+    /// number beside them is the window of the lists not named), as
+    /// `--lookback` takes them.
     pub lookback: Option<String>,
+    /// `current-and-earlier` (default when `None`) or `earlier-only`, as
+    /// `--window`.
+    pub window: Option<String>,
     pub exclude_primary: bool,
     pub primary: Option<String>,
     pub poa: Option<String>,
@@ -157,6 +172,14 @@ pub struct Request {
     pub no_hierarchy: bool,
     pub strict: bool,
     pub threads: usize,
+    /// `who`, `cm` or `any` (default when `None`), as `--edition`.
+    pub edition: Option<String>,
+    /// Long layout of `score`: columns carried into each output row (the
+    /// unit's first non-empty value), as `--keep`; see [`Scored::kept_rows`].
+    pub keep: Vec<String>,
+    /// `explain`: the column naming each episode, as `explain --label`; see
+    /// [`Explained::label_rows`].
+    pub label: Option<String>,
 }
 
 impl Request {
@@ -165,18 +188,33 @@ impl Request {
         &self,
         catalogue: &crate::lists::Catalogue,
     ) -> Result<(Engine, ScoreConfig), Error> {
-        use crate::score::{IndexSpec, ScoreOptions, DEFAULT_INDICES};
+        use crate::score::{IndexSpec, DEFAULT_INDICES};
         let specs = if self.index.iter().all(|s| s.trim().is_empty()) {
             IndexSpec::parse_many(DEFAULT_INDICES)?
         } else {
             IndexSpec::parse_many(&self.index.join(","))?
         };
-        let options = ScoreOptions {
+        let engine = self.engine(catalogue, &specs)?;
+        Ok((engine, self.config()?))
+    }
+
+    /// The engine of the run for index specifications chosen by the caller
+    /// (`compare` takes every list when none is given).
+    pub fn engine(
+        &self,
+        catalogue: &crate::lists::Catalogue,
+        specs: &[crate::score::IndexSpec],
+    ) -> Result<Engine, Error> {
+        let options = crate::score::ScoreOptions {
             hierarchy: !self.no_hierarchy,
             flags: self.flags,
             age: self.age.is_some(),
         };
-        let engine = Engine::new(catalogue, &specs, options)?;
+        Ok(Engine::new(catalogue, specs, options)?)
+    }
+
+    /// The run's options, with the command line's checks and messages.
+    pub fn config(&self) -> Result<ScoreConfig, Error> {
         let layout = match self.layout.as_str() {
             "" | "wide" => Layout::Wide,
             "long" => Layout::Long,
@@ -189,21 +227,57 @@ impl Request {
         if layout == Layout::Long && self.id.is_none() {
             return Err(Error::Usage("--layout long needs --id COL".into()));
         }
-        let lookback = match self.lookback.as_deref().map(str::trim) {
-            None => None,
-            Some("all") => Some(u32::MAX),
-            Some(t) => Some(t.parse::<u32>().map_err(|_| {
+        let (lookback, lookback_lists) = match self.lookback.as_deref() {
+            None => (None, Vec::new()),
+            Some(t) => crate::pipeline::parse_lookback(t, "--lookback")?,
+        };
+        let window = match self.window.as_deref() {
+            None => crate::pipeline::WindowScope::default(),
+            Some(w) => crate::pipeline::WindowScope::parse(w).ok_or_else(|| {
                 Error::Usage(format!(
-                    "--lookback takes a whole number of days or 'all', not '{t}'"
+                    "--window takes 'current-and-earlier' or 'earlier-only', not '{w}'"
                 ))
-            })?),
+            })?,
+        };
+        if self.window.is_some() && self.lookback.is_none() {
+            return Err(Error::Usage(
+                "--window is used with --lookback DAYS (or 'all')".into(),
+            ));
+        }
+        let edition = match self.edition.as_deref() {
+            None => crate::pipeline::Edition::default(),
+            Some(t) => crate::pipeline::Edition::parse(t).ok_or_else(|| {
+                Error::Usage(format!("--edition is 'who', 'cm' or 'any', not '{t}'"))
+            })?,
+        };
+        if !self.keep.is_empty() && layout == Layout::Wide {
+            return Err(Error::Usage(
+                "--keep is for the long layout; a wide output keeps every input column already"
+                    .into(),
+            ));
+        }
+        if !self.keep.is_empty() && self.label.is_some() {
+            return Err(Error::Usage(
+                "--keep is for score and --label for explain; give one of them".into(),
+            ));
+        }
+        let keep: Vec<String> = match &self.label {
+            Some(l) => vec![l.clone()],
+            None => self
+                .keep
+                .iter()
+                .flat_map(|k| k.split(','))
+                .map(str::trim)
+                .filter(|k| !k.is_empty())
+                .map(String::from)
+                .collect(),
         };
         let date_format = match self.date_format.as_deref() {
             None => DateFormat::Iso,
             Some(p) => DateFormat::from_pattern_checked(p)
                 .map_err(|why| Error::Usage(format!("--date-format '{p}' {why}")))?,
         };
-        if self.date.is_some() && lookback.is_none() && self.episode.is_none() {
+        if self.date.is_some() && self.lookback.is_none() && self.episode.is_none() {
             return Err(Error::Usage(
                 "--date is used with --lookback DAYS (or 'all')".into(),
             ));
@@ -238,6 +312,8 @@ impl Request {
             date: self.date.clone(),
             date_format,
             lookback,
+            lookback_lists,
+            window,
             exclude_primary: self.exclude_primary,
             primary: self.primary.clone(),
             poa: self.poa.clone(),
@@ -250,15 +326,18 @@ impl Request {
             age: self.age.clone(),
             strict: self.strict,
             threads: self.threads,
+            edition,
+            keep,
             ..ScoreConfig::default()
         };
-        Ok((engine, cfg))
+        Ok(cfg)
     }
 }
 
 /// Whether a run needs the dated-history reader.
 fn needs_history(cfg: &ScoreConfig) -> bool {
-    cfg.lookback.is_some()
+    cfg.uses_history()
+        || !cfg.keep.is_empty()
         || cfg.episode.is_some()
         || cfg.date.is_some()
         || cfg.exclude_primary
@@ -273,6 +352,8 @@ enum Role {
     Id,
     Date,
     Flag,
+    /// Carried into the output (`keep`, `label`): any kind.
+    Keep,
 }
 
 /// A used column: frame position, role, name for messages, text name.
@@ -299,6 +380,7 @@ fn check_kind(cols: &impl Columns, u: &Used, typed_date_format: bool) -> Result<
             kind,
             Kind::Text | Kind::Integer | Kind::Number | Kind::Logical
         ),
+        Role::Keep => kind != Kind::Other,
     };
     if ok {
         if u.role == Role::Date && kind == Kind::Date && typed_date_format {
@@ -330,11 +412,15 @@ fn check_kind(cols: &impl Columns, u: &Used, typed_date_format: bool) -> Result<
             u.what, u.name
         ),
         Role::Date => format!(
-            "date column '{}' holds {t} values; dates must be text or dates",
+            "date column '{}' holds {t} values; dates must be text, dates or date-times",
             u.name
         ),
         Role::Flag => format!(
             "{} column '{}' holds {t} values; it must hold text, numbers or true/false",
+            u.what, u.name
+        ),
+        Role::Keep => format!(
+            "{} column '{}' holds {t} values; it must hold text, numbers, true/false or dates",
             u.what, u.name
         ),
     }))
@@ -383,7 +469,26 @@ fn resolve(cfg: &ScoreConfig, header: &Header) -> Result<Vec<Used>, Error> {
             });
         }
     }
+    for n in &cfg.keep {
+        let c = header.column(n, "kept")?;
+        used.push(Used {
+            col: c,
+            role: Role::Keep,
+            what: "kept",
+            name: n.clone(),
+        });
+    }
     Ok(used)
+}
+
+/// The frame columns a run reads (each once, in frame order), resolved
+/// with the command line's checks and messages: a binding fetches these
+/// and no others.
+pub fn used_columns(cfg: &ScoreConfig, header: &Header) -> Result<Vec<usize>, Error> {
+    let mut cols: Vec<usize> = resolve(cfg, header)?.iter().map(|u| u.col).collect();
+    cols.sort_unstable();
+    cols.dedup();
+    Ok(cols)
 }
 
 /// Scores a frame: every row (wide) or every unit (long) of it.
@@ -454,6 +559,7 @@ pub fn score(
             Ok(Scored {
                 columns: out.finish(engine),
                 first_rows: None,
+                kept_rows: Vec::new(),
                 summary: summary.unwrap_or_default(),
             })
         }
@@ -469,6 +575,7 @@ pub fn score(
             Ok(Scored {
                 columns: out.finish(engine),
                 first_rows: Some(firsts),
+                kept_rows: Vec::new(),
                 summary: scorer.into_summary(),
             })
         }
@@ -673,6 +780,97 @@ impl<C: Columns> Batch for FramePart<'_, C> {
     }
 }
 
+/// The units of a frame in order of first appearance, as the history
+/// reader forms them: every row (wide), or the rows sharing the id and
+/// episode values (long; values compared as the text the reader sees).
+/// Returns each row's unit and each unit's first row.
+fn units(cfg: &ScoreConfig, cols: &impl Columns, used: &[Used]) -> (Vec<u32>, Vec<u64>) {
+    let n = cols.rows();
+    if cfg.layout == Layout::Wide {
+        return ((0..n as u32).collect(), (0..n as u64).collect());
+    }
+    let col = |what: &str| {
+        used.iter()
+            .find(|u| u.role == Role::Id && u.what == what)
+            .map(|u| u.col)
+    };
+    let (id, episode) = (col("id"), col("episode"));
+    let text = |c: Option<usize>, r: usize| -> Vec<u8> {
+        c.and_then(|c| cols.field(c, r).text())
+            .map(Cow::into_owned)
+            .unwrap_or_default()
+    };
+    let mut index: std::collections::HashMap<(Vec<u8>, Vec<u8>), u32> =
+        std::collections::HashMap::new();
+    let mut of_row = Vec::with_capacity(n);
+    let mut first = Vec::new();
+    for r in 0..n {
+        let next = first.len() as u32;
+        let u = *index.entry((text(id, r), text(episode, r))).or_insert(next);
+        if u == next {
+            first.push(r as u64);
+        }
+        of_row.push(u);
+    }
+    (of_row, first)
+}
+
+/// Per kept column (`keep`, `label`), per unit, the frame row whose value
+/// the unit carries: its first row with a non-empty value (the value the
+/// history reader keeps, checked against it by the caller).
+fn kept_rows(
+    cols: &impl Columns,
+    used: &[Used],
+    of_row: &[u32],
+    units: usize,
+) -> Vec<Vec<Option<u64>>> {
+    used.iter()
+        .filter(|u| u.role == Role::Keep)
+        .map(|u| {
+            let mut rows = vec![None; units];
+            for (r, &e) in of_row.iter().enumerate() {
+                let slot = &mut rows[e as usize];
+                if slot.is_none()
+                    && cols
+                        .field(u.col, r)
+                        .text()
+                        .is_some_and(|t| !t.trim_ascii().is_empty())
+                {
+                    *slot = Some(r as u64);
+                }
+            }
+            rows
+        })
+        .collect()
+}
+
+/// Refuses kept columns named twice or already in the output.
+fn check_kept(used: &[Used], engine: &Engine, label: bool) -> Result<(), Error> {
+    let mut out: Vec<&str> = used
+        .iter()
+        .filter(|u| u.role == Role::Id)
+        .map(|u| u.name.as_str())
+        .collect();
+    for u in used.iter().filter(|u| u.role == Role::Keep) {
+        if out.contains(&u.name.as_str()) {
+            return Err(Error::Usage(if label {
+                format!(
+                    "--label column '{}' is already a column of explain's output",
+                    u.name
+                )
+            } else {
+                format!("column '{}' is already in the output; keep it once", u.name)
+            }));
+        }
+        out.push(&u.name);
+    }
+    if label {
+        Ok(())
+    } else {
+        crate::pipeline::check_collisions(&out, engine)
+    }
+}
+
 /// Reads a frame's history: its rows go to the history reader as typed
 /// rows, named in messages from `first_row`.
 fn read_history(
@@ -709,15 +907,13 @@ fn score_history(
         },
         false,
     )?;
-    let kept: Vec<&str> = match cfg.layout {
-        Layout::Wide => header.names.iter().map(String::as_str).collect(),
-        Layout::Long => used
-            .iter()
-            .filter(|u| u.role == Role::Id)
-            .map(|u| u.name.as_str())
-            .collect(),
-    };
-    crate::pipeline::check_collisions(&kept, engine)?;
+    match cfg.layout {
+        Layout::Wide => {
+            let names: Vec<&str> = header.names.iter().map(String::as_str).collect();
+            crate::pipeline::check_collisions(&names, engine)?;
+        }
+        Layout::Long => check_kept(used, engine, false)?,
+    }
     let run = || -> Result<Scored, Error> {
         let windows = Windows::new(engine, cfg)?;
         let (mut hist, mut summary) =
@@ -736,6 +932,30 @@ fn score_history(
             out.push(&values);
             first.push(hist.row(e) - 1);
         }
+        let kept_rows = if cfg.keep.is_empty() {
+            Vec::new()
+        } else {
+            let (of_row, unit_first) = units(cfg, cols, used);
+            let kept = kept_rows(cols, used, &of_row, unit_first.len());
+            // The rows found carry the values the history reader kept.
+            let agree = unit_first == first
+                && kept.iter().enumerate().all(|(j, rows)| {
+                    rows.iter().enumerate().all(|(e, r)| {
+                        let text = r.and_then(|r| {
+                            let k = used.iter().filter(|u| u.role == Role::Keep).nth(j);
+                            k.and_then(|u| cols.field(u.col, r as usize).text())
+                        });
+                        text.as_deref().unwrap_or(b"") == hist.kept(e, j)
+                    })
+                });
+            if !agree {
+                return Err(Error::data(
+                    None,
+                    "internal error: the kept values' rows do not match the history's units",
+                ));
+            }
+            kept
+        };
         summary.rows_written += n as u64;
         summary.units += n as u64;
         if cfg.layout == Layout::Wide && n != cols.rows() {
@@ -747,6 +967,7 @@ fn score_history(
         Ok(Scored {
             columns: out.finish(engine),
             first_rows: (cfg.layout == Layout::Long).then_some(first),
+            kept_rows,
             summary,
         })
     };
@@ -774,6 +995,7 @@ pub fn explain(
         },
         false,
     )?;
+    check_kept(&used, engine, true)?;
     let whole = (0..engine.specs().len()).all(|s| engine.decimals(s) == 0);
     let windows = Windows::new(engine, cfg)?;
     let needs = Needs {
@@ -824,6 +1046,18 @@ pub fn explain(
             .push(r.age_points.map(|a| number(a, r.decimals)));
         Ok(())
     })?;
+    if !cfg.keep.is_empty() {
+        let (of_row, unit_first) = units(cfg, cols, &used);
+        let label = kept_rows(cols, &used, &of_row, unit_first.len())
+            .into_iter()
+            .next()
+            .unwrap_or_default();
+        ex.label_rows = ex
+            .row
+            .iter()
+            .map(|&r| label[of_row[r as usize - 1] as usize])
+            .collect();
+    }
     summary.units += hist.episodes.len() as u64;
     summary.rows_written = summary.units;
     Ok((ex, summary))
@@ -1006,6 +1240,97 @@ mod tests {
         assert_eq!(
             err.to_string(),
             "row 2: invalid code '??' in column 'code' (--strict)"
+        );
+    }
+
+    #[test]
+    fn kept_rows_name_each_units_first_non_empty_value() {
+        // Long layout, units by (pid, ep): unit (a, 1) has rows 0 and 2,
+        // its first row's ward empty: it carries row 2's; unit (b, 1) has
+        // no ward at all; unit (a, 2) carries row 3's.
+        let e = engine("charlson:count", false);
+        let h = header(&["pid", "ep", "ward", "code"]);
+        let req = Request {
+            dx: vec!["code".into()],
+            layout: "long".into(),
+            id: Some("pid".into()),
+            episode: Some("ep".into()),
+            keep: vec!["ward".into()],
+            ..Request::default()
+        };
+        let cfg = req.config().unwrap();
+        let f = Frame {
+            kinds: vec![Kind::Text, Kind::Integer, Kind::Integer, Kind::Text],
+            rows: vec![
+                vec![t("a"), Field::Integer(1), Field::Null, t("I21")],
+                vec![t("b"), Field::Integer(1), Field::Null, t("I50")],
+                vec![t("a"), Field::Integer(1), Field::Integer(40), t("I50")],
+                vec![t("a"), Field::Integer(2), Field::Integer(41), t("")],
+            ],
+        };
+        let s = score(&e, &cfg, &h, &f, 0).unwrap();
+        assert_eq!(s.first_rows, Some(vec![0, 1, 3]));
+        assert_eq!(s.kept_rows, vec![vec![Some(2), None, Some(3)]]);
+        assert_eq!(
+            s.columns[0],
+            ScoreColumn::Int(vec![Some(2), Some(1), Some(0)])
+        );
+        assert_eq!(used_columns(&cfg, &h).unwrap(), vec![0, 1, 2, 3]);
+        // A wide frame keeps every column already.
+        let wide = Request {
+            layout: "wide".into(),
+            ..req.clone()
+        };
+        assert!(wide
+            .config()
+            .unwrap_err()
+            .to_string()
+            .starts_with("--keep is for the long layout"));
+    }
+
+    #[test]
+    fn per_list_windows_and_earlier_only_from_a_request() {
+        // Patient 7: I21 (myocardial infarction; Charlson 1987: 1) on day
+        // 0, R41 and nothing else on day 400 (no Charlson condition).
+        // Hand-worked: Charlson over 365 days sees nothing from day 0 at
+        // day 400 (0); over 'all' it does (1); earlier-only leaves day 0's
+        // own code out (0 on day 0).
+        let e = engine("charlson:charlson1987", false);
+        let h = header(&["pid", "when", "dx1"]);
+        let f = Frame {
+            kinds: vec![Kind::Integer, Kind::Date, Kind::Text],
+            rows: vec![
+                vec![Field::Integer(7), Field::Date(19_000), t("I21.9")],
+                vec![Field::Integer(7), Field::Date(19_400), t("R41.0")],
+            ],
+        };
+        let run = |lookback: &str, window: Option<&str>| {
+            let req = Request {
+                dx: vec!["dx1".into()],
+                id: Some("pid".into()),
+                date: Some("when".into()),
+                lookback: Some(lookback.into()),
+                window: window.map(String::from),
+                ..Request::default()
+            };
+            let cfg = req.config().unwrap();
+            score(&e, &cfg, &h, &f, 0).unwrap().columns[0].clone()
+        };
+        let int = |v: Vec<i64>| ScoreColumn::Int(v.into_iter().map(Some).collect());
+        assert_eq!(run("charlson=365", None), int(vec![1, 0]));
+        assert_eq!(run("charlson=all", None), int(vec![1, 1]));
+        assert_eq!(run("all", Some("earlier-only")), int(vec![0, 1]));
+        let bad = Request {
+            lookback: Some("hfrs=30".into()),
+            dx: vec!["dx1".into()],
+            id: Some("pid".into()),
+            date: Some("when".into()),
+            ..Request::default()
+        };
+        let err = score(&e, &bad.config().unwrap(), &h, &f, 0).unwrap_err();
+        assert!(
+            err.to_string().contains("--lookback names list 'hfrs'"),
+            "{err}"
         );
     }
 }

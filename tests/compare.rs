@@ -708,6 +708,10 @@ fn report_for_tests() -> PathBuf {
             "age",
             "--adjust-cat",
             "sex",
+            "--adjust-spline",
+            "age:4",
+            "--cluster",
+            "patient",
             "--report",
             report.to_str().unwrap(),
             "-q",
@@ -716,6 +720,156 @@ fn report_for_tests() -> PathBuf {
     );
     assert_eq!(run.code, 0, "{}", run.stderr);
     report
+}
+
+#[test]
+fn spline_knots_and_clusters_are_shown() {
+    // The knots of `--adjust-spline` are the type-7 quantiles of the
+    // analysed ages at Harrell's 0.05, 0.35, 0.65, 0.95 (Harrell 2015,
+    // Table 2.3, from memory), computed here from the same data; they are
+    // printed in the table, the JSON and the report, with the clusters.
+    let data = extract(1500, 31, 40);
+    let input = write("spline.csv", &data);
+    let out = tmp("spline.json");
+    let report = tmp("spline.html");
+    let run = morbus(
+        &[
+            "compare",
+            input.to_str().unwrap(),
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--index",
+            "charlson,elixhauser",
+            "--adjust-spline",
+            "age",
+            "--cluster",
+            "patient",
+            "--json",
+            out.to_str().unwrap(),
+            "--report",
+            report.to_str().unwrap(),
+            "-q",
+        ],
+        b"",
+    );
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let mut ages: Vec<f64> = data
+        .lines()
+        .skip(1)
+        .filter(|l| !l.ends_with(','))
+        .map(|l| l.split(',').nth(3).unwrap().parse().unwrap())
+        .collect();
+    ages.sort_by(f64::total_cmp);
+    let q = |p: f64| {
+        let h = (ages.len() - 1) as f64 * p;
+        let i = h.floor() as usize;
+        ages[i] + (h - h.floor()) * (ages[(i + 1).min(ages.len() - 1)] - ages[i])
+    };
+    let j = json(&out);
+    let knots: Vec<f64> = j["splines"][0]["knots"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_f64().unwrap())
+        .collect();
+    assert_eq!(knots.len(), 4);
+    for (k, p) in knots.iter().zip([0.05, 0.35, 0.65, 0.95]) {
+        assert!((k - q(p)).abs() < 1e-9, "{knots:?}");
+    }
+    let terms: Vec<&str> = j["indices"][0]["model"]["terms"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|t| t["name"].as_str().unwrap())
+        .collect();
+    assert_eq!(
+        terms,
+        [
+            "(Intercept)",
+            "charlson_quan2011",
+            "age",
+            "age_spline1",
+            "age_spline2"
+        ]
+    );
+    let patients: std::collections::HashSet<&str> = data
+        .lines()
+        .skip(1)
+        .filter(|l| !l.ends_with(','))
+        .map(|l| l.split(',').nth(1).unwrap())
+        .collect();
+    assert_eq!(j["clusters"]["clusters"], patients.len());
+    assert!(j["indices"][0]["c_statistic"]["cluster_ci95"].is_array());
+    assert!(
+        j["indices"][0]["model"]["terms"][1]["cluster_std_error"]
+            .as_f64()
+            .unwrap()
+            > 0.0
+    );
+    assert!(j["pairs"][0]["delong"]["cluster"]["p_value"].is_number());
+    let first = fmt_knot(knots[0]);
+    assert!(
+        run.stdout.contains("restricted cubic spline, 4 knots at"),
+        "{}",
+        run.stdout
+    );
+    assert!(run.stdout.contains(&first), "{}", run.stdout);
+    assert!(run.stdout.contains("95% CI (clusters)"));
+    let html = std::fs::read_to_string(&report).unwrap();
+    assert!(html.contains("restricted cubic spline with 4 knots at"));
+    assert!(html.contains(&first));
+    assert!(html.contains("<th>cluster SE</th>"));
+    // Knots from too few distinct values are refused, not merged.
+    let flat: String = data
+        .lines()
+        .enumerate()
+        .map(|(i, l)| {
+            if i == 0 {
+                format!("{l}\n")
+            } else {
+                let mut f: Vec<&str> = l.split(',').collect();
+                f[3] = if i % 50 == 0 { "40" } else { "70" };
+                format!("{}\n", f.join(","))
+            }
+        })
+        .collect();
+    let run = morbus(
+        &[
+            "compare",
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--adjust-spline",
+            "age:3",
+            "-q",
+        ],
+        flat.as_bytes(),
+    );
+    assert_eq!(run.code, 1, "{}", run.stderr);
+    assert!(run.stderr.contains("use fewer knots"), "{}", run.stderr);
+    let run = morbus(
+        &[
+            "compare",
+            "--dx",
+            "dx*",
+            "--outcome",
+            "died",
+            "--adjust-spline",
+            "age:9",
+            "-q",
+        ],
+        flat.as_bytes(),
+    );
+    assert_eq!(run.code, 2, "{}", run.stderr);
+}
+
+/// A knot as the table prints it (up to 4 decimals, no trailing zeros).
+fn fmt_knot(v: f64) -> String {
+    let s = format!("{v:.4}");
+    s.trim_end_matches('0').trim_end_matches('.').to_string()
 }
 
 #[test]

@@ -227,6 +227,7 @@ def score(
     poa_values: Union[str, Sequence[str]] = ("Y", "W", "1", "blank"),
     max_unreadable_dates: Union[int, float, str] = 1,
     edition: str = "any",
+    keep: Optional[_Names] = None,
 ) -> Any:
     """Add comorbidity and frailty scores to an extract (``morbus score``).
 
@@ -353,13 +354,67 @@ def score(
     >>> prov["codes"]["read"], prov["lists"][0]["name"]
     (4, 'charlson')
     """
-    kind = _kind(frame)
+    kind, frame, names, fetch = _history.frame_source(frame)
+    if keep is not None and not isinstance(keep, (str, list, tuple)):
+        raise TypeError("keep must be a column name or a list of column names")
+    options = _options(
+        dx=dx, layout=layout, id=id, age=age, index=index, flags=flags, hierarchy=hierarchy,
+        dx_sep=dx_sep, strict=strict, threads=threads, date=date, date_format=date_format,
+        lookback=lookback, window=window, episode=episode, exclude_primary=exclude_primary,
+        primary=primary, poa=poa, poa_values=poa_values, max_unreadable_dates=max_unreadable_dates,
+        edition=edition, keep=keep,
+    )
+    import pyarrow as pa
+
+    scores_stream, first_stream, kept_stream, prov_json, report = _native.score(
+        names, fetch, options, _catalogue(lists)
+    )
+    scores = pa.table(scores_stream)
+    if first_stream is None:
+        out = _attach(kind, frame, scores)
+    else:
+        first = pa.table(first_stream).column(0)
+        kept = pa.table(kept_stream) if kept_stream is not None else None
+        out = _history.score_long(kind, frame, names, options, first, kept, scores)
+    if not provenance:
+        return out
+    prov = json.loads(prov_json)
+    prov["report"] = report
+    return out, prov
+
+
+def _options(
+    *,
+    dx: _Names,
+    layout: str = "wide",
+    id: Optional[str] = None,
+    age: Optional[str] = None,
+    index: Optional[_Names] = None,
+    flags: bool = False,
+    hierarchy: bool = True,
+    dx_sep: Optional[str] = None,
+    strict: bool = False,
+    threads: Optional[int] = None,
+    date: Optional[str] = None,
+    date_format: Optional[str] = None,
+    lookback: Union[None, int, str, Dict[str, Union[int, str]]] = None,
+    window: Optional[str] = None,
+    episode: Optional[str] = None,
+    exclude_primary: bool = False,
+    primary: Optional[str] = None,
+    poa: Optional[str] = None,
+    poa_values: Union[str, Sequence[str]] = ("Y", "W", "1", "blank"),
+    max_unreadable_dates: Union[int, float, str] = 1,
+    edition: str = "any",
+    keep: Optional[_Names] = None,
+    label: Optional[str] = None,
+) -> Dict[str, Any]:
+    """The options of a call as the extension takes them (one dict for
+    `score`, `explain` and `compare`); the library checks them with the
+    command line's rules and messages."""
     dx_items = _as_list(dx, "dx")
     if dx_items is None:
         raise TypeError("dx must name the diagnosis columns")
-    index_items = _as_list(index, "index")
-    id = _optional_name(id, "id")
-    age = _optional_name(age, "age")
     if not isinstance(layout, str):
         raise TypeError("layout must be 'wide' or 'long'")
     if dx_sep is not None and not isinstance(dx_sep, str):
@@ -368,63 +423,37 @@ def score(
         threads = 0
     elif isinstance(threads, bool) or not isinstance(threads, int) or threads < 1:
         raise ValueError(f"threads must be a positive whole number, not {threads!r}")
-    cat = _catalogue(lists)
-    if _history.wants_history(date, lookback, episode, exclude_primary, primary, poa, window):
-        return _score_history(
-            frame,
-            dict(dx=dx_items, layout=layout, id=id, age=age, index=index_items, flags=bool(flags),
-                 hierarchy=bool(hierarchy), lists=cat, dx_sep=dx_sep, strict=bool(strict), threads=threads,
-                 edition=edition),
-            _history.native_options(date=date, date_format=date_format, lookback=lookback, window=window,
-                                    episode=episode,
-                                    exclude_primary=exclude_primary, primary=primary, poa=poa,
-                                    poa_values=poa_values, max_unreadable_dates=max_unreadable_dates),
-            provenance,
-        )
-
-    if kind == "pandas":
-        names = [str(c) for c in frame.columns]
-        fetch = _pandas_fetch(frame, names)
-    elif kind == "polars":
-        names = list(frame.columns)
-        fetch = _polars_fetch(frame)
-    else:
-        import pyarrow as pa
-
-        frame = frame if isinstance(frame, pa.Table) else pa.table(frame)
-        names = list(frame.column_names)
-        fetch = _arrow_fetch(frame)
-
-    scores_stream, first_stream, prov_json, report = _native.score(
-        names,
-        fetch,
+    if date_format is not None and not isinstance(date_format, str):
+        raise TypeError("date_format must be a pattern string such as '%d/%m/%Y'")
+    if window is not None and not isinstance(window, str):
+        raise TypeError("window must be 'current-and-earlier' or 'earlier-only'")
+    if not isinstance(edition, str):
+        raise TypeError("edition must be 'who', 'cm' or 'any'")
+    return dict(
         dx=dx_items,
         layout=layout,
-        id=id,
-        age=age,
-        index=index_items,
+        id=_optional_name(id, "id"),
+        age=_optional_name(age, "age"),
+        index=_as_list(index, "index"),
         flags=bool(flags),
         hierarchy=bool(hierarchy),
-        lists=cat,
         dx_sep=dx_sep,
         strict=bool(strict),
         threads=threads,
+        date=_optional_name(date, "date"),
+        date_format=date_format,
+        lookback=_history.lookback_text(lookback),
+        window=window,
+        episode=_optional_name(episode, "episode"),
+        exclude_primary=bool(exclude_primary),
+        primary=_optional_name(primary, "primary"),
+        poa=_optional_name(poa, "poa"),
+        poa_values=_history.poa_list(poa_values),
+        max_unreadable_dates=_history.percent_text(max_unreadable_dates),
         edition=edition,
+        keep=[k.strip() for item in (_as_list(keep, "keep") or []) for k in item.split(",") if k.strip()],
+        label=_optional_name(label, "label"),
     )
-    import pyarrow as pa
-
-    scores = pa.table(scores_stream)
-    if first_stream is None:
-        out = _attach(kind, frame, scores)
-    else:
-        assert id is not None  # the long layout needs it (checked by the engine)
-        first = pa.table(first_stream).column(0)
-        out = _long(kind, frame, names.index(id), first, scores)
-    if not provenance:
-        return out
-    prov = json.loads(prov_json)
-    prov["report"] = report
-    return out, prov
 
 
 def _polars(table: Any) -> Any:
@@ -433,25 +462,6 @@ def _polars(table: Any) -> Any:
     out = pl.from_arrow(table)
     assert isinstance(out, pl.DataFrame)
     return out
-
-
-def _score_history(frame: Any, common: Dict[str, Any], history: Dict[str, Any], provenance: bool) -> Any:
-    """`score` over the patient history (see `morbus._history`)."""
-    import pyarrow as pa
-
-    kind, frame, names, fetch = _history.frame_source(frame)
-    scores_stream, first_stream, prov_json, report = _native.score_history(names, fetch, **common, **history)
-    scores = pa.table(scores_stream)
-    if first_stream is None:
-        out = _attach(kind, frame, scores)
-    else:
-        first = pa.table(first_stream).column(0)
-        out = _history.score_long(kind, frame, names, common["id"], history["episode"], first, scores)
-    if not provenance:
-        return out
-    prov = json.loads(prov_json)
-    prov["report"] = report
-    return out, prov
 
 
 def _attach(kind: str, frame: Any, scores: Any) -> Any:
@@ -466,22 +476,3 @@ def _attach(kind: str, frame: Any, scores: Any) -> Any:
     for field, column in zip(scores.schema, scores.columns):
         table = table.append_column(field, column)
     return table
-
-
-def _long(kind: str, frame: Any, id_index: int, first: Any, scores: Any) -> Any:
-    """One row per unit: the id (taken from the row where it first appears)
-    and the scores."""
-    if kind == "pandas":
-        import pandas as pd
-
-        ids = frame.iloc[first.to_numpy(), id_index].reset_index(drop=True)
-        return pd.concat([ids.to_frame(), _to_pandas(scores)], axis=1)
-    if kind == "polars":
-        import polars as pl
-
-        ids = frame.get_column(frame.columns[id_index]).gather(first.to_numpy())
-        return pl.DataFrame([ids]).hstack(_polars(scores).get_columns())
-    import pyarrow as pa
-
-    ids = frame.column(id_index).take(first)
-    return pa.table([ids] + scores.columns, schema=pa.schema([frame.schema.field(id_index)] + list(scores.schema)))

@@ -64,7 +64,9 @@ def compare(
     outcome: str,
     adjust: Optional[_Names] = None,
     adjust_cat: Optional[_Names] = None,
+    adjust_spline: Optional[_Names] = None,
     by: Optional[str] = None,
+    cluster: Optional[str] = None,
     min_expected: float = 5.0,
     overdispersion: Optional[str] = None,
     folds: Optional[int] = None,
@@ -79,7 +81,8 @@ def compare(
     dx_sep: Optional[str] = None,
     date: Optional[str] = None,
     date_format: Optional[str] = None,
-    lookback: Union[None, int, str] = None,
+    lookback: Union[None, int, str, Dict[str, Union[int, str]]] = None,
+    window: Optional[str] = None,
     episode: Optional[str] = None,
     exclude_primary: bool = False,
     primary: Optional[str] = None,
@@ -88,11 +91,14 @@ def compare(
     threads: Optional[int] = None,
     report: Union[None, str, "os.PathLike[str]"] = None,
     text: bool = False,
+    edition: str = "any",
 ) -> Any:
     """Compare index specifications on an outcome (``morbus compare``).
 
     Takes the command line's options under the same names (``adjust_cat``
-    for ``--adjust-cat``, ``min_expected`` for ``--min-expected``) and
+    for ``--adjust-cat``, ``adjust_spline`` for ``--adjust-spline`` as
+    ``"age:4"`` or a list of them, ``min_expected`` for ``--min-expected``,
+    ``cluster`` for ``--cluster``) and
     returns the results as a ``dict`` in the layout of the command line's
     ``--json`` file (documented in the README), computed by the same library
     function on the same data, so the numbers are the command line's.
@@ -112,45 +118,40 @@ def compare(
     (8, ['North', 'South'])
     >>> sum(r["providers"]["observed"])
     4
+    >>> r = morbus.compare(df, dx="dx1", outcome="died", index="charlson:count",
+    ...                    adjust_spline="age:3", cluster="site")
+    >>> r["splines"][0]["terms"], r["clusters"]["clusters"]
+    (['age', 'age_spline1'], 2)
 
     Errors raise ``KeyError`` (a missing column) or ``ValueError`` with the
     command line's messages.
     """
-    from . import _catalogue
+    from . import _catalogue, _options
 
+    options = _options(
+        dx=dx, layout=layout, id=id, age=age, index=index, hierarchy=hierarchy, dx_sep=dx_sep,
+        threads=threads, date=date, date_format=date_format, lookback=lookback, window=window,
+        episode=episode, exclude_primary=exclude_primary, primary=primary, poa=poa,
+        poa_values=poa_values, edition=edition,
+    )
     data = _csv_bytes(frame)
-    if isinstance(poa_values, str):
-        poa_values = [poa_values]
     try:
         js, table, html = _native.compare_csv(
             data,
-            dx=_names(dx),
+            options,
             outcome=outcome.strip(),
             adjust=_names(adjust),
             adjust_cat=_names(adjust_cat),
+            adjust_spline=_names(adjust_spline),
             by=by.strip() if by else None,
+            cluster=cluster.strip() if cluster else None,
             min_expected=float(min_expected),
             overdispersion=overdispersion,
             folds=folds,
             seed=int(seed),
             reference=reference,
-            layout=layout,
-            id=id,
-            age=age,
-            index=_names(index) or None,
-            hierarchy=hierarchy,
-            lists=_catalogue(lists),
-            dx_sep=dx_sep,
-            date=date,
-            date_format=date_format,
-            lookback=None if lookback is None else str(lookback),
-            episode=episode,
-            exclude_primary=exclude_primary,
-            primary=primary,
-            poa=poa,
-            poa_values=list(poa_values),
-            threads=threads or 0,
             report=report is not None,
+            lists=_catalogue(lists),
         )
     except ValueError as e:
         message = str(e)

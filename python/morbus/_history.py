@@ -1,13 +1,13 @@
-"""Dated patient history on frames (``morbus.score(..., date=, lookback=,
-episode=, exclude_primary=, primary=, poa=)``) and :func:`explain`.
+"""Frame handling shared by :func:`morbus.score` and :func:`explain`:
+reading a pandas, polars or Arrow frame's columns for the extension, and
+putting results back together.
 
-The engine is the library's patient-history reader, the one behind
-``morbus score --lookback`` and ``morbus explain``: the extension writes the
-columns a run needs (and only those) as delimited text, reads them with it,
-and hands back typed Arrow columns. This module resolves the Python-side
-options and puts the frame back together: id and episode columns are taken
-from the frame itself (row of each episode's first record), so they keep
-their dtypes.
+The engine is the library's own (``morbus::frame``): the extension shows it
+the columns a run uses as typed Arrow arrays (text in place, numbers, dates),
+and it scores them, with the patient history when asked, without any text in
+between. Id, episode and kept columns of the long layout (and ``explain``'s
+unit and label columns) are taken from the frame itself at the rows the
+engine names, so they keep their dtypes.
 """
 
 from __future__ import annotations
@@ -17,13 +17,6 @@ from typing import Any, Dict, List, Optional, Sequence, Tuple, Union
 from . import _native
 
 _Names = Union[str, Sequence[str]]
-
-HISTORY_OPTIONS = ("date", "lookback", "window", "episode", "exclude_primary", "primary", "poa")
-
-
-def wants_history(date, lookback, episode, exclude_primary, primary, poa, window=None) -> bool:
-    """Whether a call needs the patient-history reader."""
-    return any(v is not None for v in (date, lookback, episode, primary, poa, window)) or bool(exclude_primary)
 
 
 def _days_text(days: Any, what: str) -> str:
@@ -102,39 +95,6 @@ def local_times(kind: str, fetch):
     return arrow_fetch
 
 
-def native_options(
-    *,
-    date,
-    date_format,
-    lookback,
-    episode,
-    exclude_primary,
-    primary,
-    poa,
-    poa_values,
-    window=None,
-    max_unreadable_dates=1,
-) -> dict:
-    from . import _optional_name
-
-    if date_format is not None and not isinstance(date_format, str):
-        raise TypeError("date_format must be a pattern string such as '%d/%m/%Y'")
-    if window is not None and not isinstance(window, str):
-        raise TypeError("window must be 'current-and-earlier' or 'earlier-only'")
-    return dict(
-        date=_optional_name(date, "date"),
-        date_format=date_format,
-        lookback=lookback_text(lookback),
-        window=window,
-        episode=_optional_name(episode, "episode"),
-        exclude_primary=bool(exclude_primary),
-        primary=_optional_name(primary, "primary"),
-        poa=_optional_name(poa, "poa"),
-        poa_values=poa_list(poa_values),
-        max_unreadable_dates=percent_text(max_unreadable_dates),
-    )
-
-
 def frame_source(frame: Any) -> Tuple[str, Any, List[str], Any]:
     """(kind, frame, column names, fetch) of a frame, as `morbus.score` reads it."""
     from . import _arrow_fetch, _kind, _pandas_fetch, _polars_fetch
@@ -156,14 +116,24 @@ def frame_source(frame: Any) -> Tuple[str, Any, List[str], Any]:
 
 
 def take_columns(kind: str, frame: Any, columns: List[int], rows: Any) -> Any:
-    """Columns `columns` of `frame` at (0-based) `rows`, as a frame of the
-    same kind with a fresh index."""
+    """Columns `columns` of `frame` at (0-based) `rows` (an Arrow integer
+    array; a null row gives missing values), as a frame of the same kind
+    with a fresh index."""
     if kind == "pandas":
-        return frame.iloc[rows.to_numpy(), columns].reset_index(drop=True)
+        import pyarrow.compute as pc
+
+        if rows.null_count == 0:
+            return frame.iloc[rows.to_numpy(), columns].reset_index(drop=True)
+        missing = rows.is_null().to_numpy(zero_copy_only=False)
+        out = frame.iloc[pc.fill_null(rows, 0).to_numpy(), columns].reset_index(drop=True)
+        for name in out.columns:
+            out[name] = out[name].where(~missing)
+        return out
     if kind == "polars":
         import polars as pl
 
-        return pl.DataFrame([frame.get_column(frame.columns[c]).gather(rows.to_numpy()) for c in columns])
+        index = pl.Series(rows)
+        return pl.DataFrame([frame.get_column(frame.columns[c]).gather(index) for c in columns])
     return frame.select(columns).take(rows)
 
 
@@ -202,10 +172,33 @@ def unit_columns(names: List[str], id: Optional[str], episode: Optional[str]) ->
     return [names.index(c) for c in (id, episode) if c is not None]
 
 
-def score_long(kind: str, frame: Any, names: List[str], id: str, episode: Optional[str], first: Any, scores: Any) -> Any:
-    """One row per episode: id (and episode) from the row where the episode
-    first appears, then the scores."""
-    units = take_columns(kind, frame, unit_columns(names, id, episode), first)
+def hstack_all(kind: str, frames: List[Any]) -> Any:
+    """Frames of one kind and height side by side."""
+    if kind == "pandas":
+        import pandas as pd
+
+        return pd.concat(frames, axis=1)
+    if kind == "polars":
+        import polars as pl
+
+        return pl.concat(frames, how="horizontal")
+    import pyarrow as pa
+
+    fields = [f for t in frames for f in t.schema]
+    return pa.table([c for t in frames for c in t.columns], schema=pa.schema(fields))
+
+
+def score_long(kind: str, frame: Any, names: List[str], options: Dict[str, Any], first: Any, kept: Any,
+               scores: Any) -> Any:
+    """One row per unit: the id (and episode) from the row where the unit
+    first appears, the kept columns (``keep``) from the row the engine
+    names for each (the unit's first non-empty value), then the scores."""
+    units = take_columns(kind, frame, unit_columns(names, options["id"], options["episode"]), first)
+    if kept is not None:
+        parts = [units]
+        for k, name in enumerate(options["keep"]):
+            parts.append(take_columns(kind, frame, [names.index(name)], kept.column(k)))
+        units = hstack_all(kind, parts)
     return hstack(kind, units, scores)
 
 
@@ -234,6 +227,7 @@ def explain(
     max_unreadable_dates: Union[int, float, str] = 1,
     report: bool = False,
     edition: str = "any",
+    label: Optional[str] = None,
 ) -> Any:
     """Show, code by code, how each episode's scores come about (``morbus explain``).
 
@@ -279,53 +273,32 @@ def explain(
     >>> out.loc[out["status"] == "total", "weight"].tolist()
     [1, 2]
     """
-    from . import _as_list, _catalogue, _optional_name
+    from . import _catalogue, _options
 
     kind, frame, names, fetch = frame_source(frame)
-    dx_items = _as_list(dx, "dx")
-    if dx_items is None:
-        raise TypeError("dx must name the diagnosis columns")
-    if not isinstance(layout, str):
-        raise TypeError("layout must be 'wide' or 'long'")
-    if dx_sep is not None and not isinstance(dx_sep, str):
-        raise TypeError("dx_sep must be a one-character string")
-    if threads is None:
-        threads = 0
-    elif isinstance(threads, bool) or not isinstance(threads, int) or threads < 1:
-        raise ValueError(f"threads must be a positive whole number, not {threads!r}")
-    opts = native_options(
-        date=date,
-        date_format=date_format,
-        lookback=lookback,
-        window=window,
-        episode=episode,
-        exclude_primary=exclude_primary,
-        primary=primary,
-        poa=poa,
-        poa_values=poa_values,
-        max_unreadable_dates=max_unreadable_dates,
+    options = _options(
+        dx=dx, layout=layout, id=id, age=age, index=index, hierarchy=hierarchy, dx_sep=dx_sep,
+        strict=strict, threads=threads, date=date, date_format=date_format, lookback=lookback,
+        window=window, episode=episode, exclude_primary=exclude_primary, primary=primary, poa=poa,
+        poa_values=poa_values, max_unreadable_dates=max_unreadable_dates, edition=edition, label=label,
     )
-    stream, summary = _native.explain(
-        names,
-        fetch,
-        dx=dx_items,
-        layout=layout,
-        id=_optional_name(id, "id"),
-        age=_optional_name(age, "age"),
-        index=_as_list(index, "index"),
-        hierarchy=bool(hierarchy),
-        lists=_catalogue(lists),
-        dx_sep=dx_sep,
-        strict=bool(strict),
-        threads=threads,
-        edition=edition,
-        **opts,
-    )
+    stream, label_stream, summary = _native.explain(names, fetch, options, _catalogue(lists))
     import pyarrow as pa
     import pyarrow.compute as pc
 
     table = pa.table(stream)
     rows = pc.subtract(table.column("row"), 1)
-    units = take_columns(kind, frame, unit_columns(names, id, opts["episode"]), rows)
+    units = take_columns(kind, frame, unit_columns(names, options["id"], options["episode"]), rows)
+    if label_stream is not None:
+        labels = take_columns(kind, frame, [names.index(options["label"])], pa.table(label_stream).column(0))
+        units = hstack_all(kind, [units, labels]) if units_width(kind, units) else labels
     out = hstack(kind, units, table)
     return (out, summary) if report else out
+
+
+def units_width(kind: str, frame: Any) -> int:
+    if kind == "pandas":
+        return frame.shape[1]
+    if kind == "polars":
+        return frame.width
+    return frame.num_columns

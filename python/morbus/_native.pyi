@@ -2,7 +2,8 @@
 public API)."""
 
 from pathlib import Path
-from typing import Any, Callable, Dict, List, Optional, Sequence, Tuple
+from typing import Any, Callable, Dict, List, Optional, Sequence, Tuple, TypedDict
+
 
 class Lists:
     """A set of code lists: the built-ins plus the lists of a directory.
@@ -28,110 +29,70 @@ class ArrowStream:
 def load_lists(path: str) -> Lists: ...
 def builtin_lists() -> Lists: ...
 def list_table(lists: Lists) -> List[Dict[str, Any]]: ...
+class Options(TypedDict):
+    """The options of a call, as `morbus._options` builds them (the same
+    dict for `score`, `explain` and `compare_csv`)."""
+
+    dx: List[str]
+    layout: str
+    id: Optional[str]
+    age: Optional[str]
+    index: Optional[List[str]]
+    flags: bool
+    hierarchy: bool
+    dx_sep: Optional[str]
+    strict: bool
+    threads: int
+    date: Optional[str]
+    date_format: Optional[str]
+    lookback: Optional[str]
+    window: Optional[str]
+    episode: Optional[str]
+    exclude_primary: bool
+    primary: Optional[str]
+    poa: Optional[str]
+    poa_values: List[str]
+    max_unreadable_dates: Optional[str]
+    edition: str
+    keep: List[str]
+    label: Optional[str]
+
 def score(
     names: Sequence[str],
     fetch: Callable[[List[int]], Any],
-    *,
-    dx: Sequence[str],
-    layout: str,
-    id: Optional[str],
-    age: Optional[str],
-    index: Optional[Sequence[str]],
-    flags: bool,
-    hierarchy: bool,
-    lists: Optional[Lists],
-    dx_sep: Optional[str],
-    strict: bool,
-    threads: int,
-    edition: str = ...,
-) -> Tuple[ArrowStream, Optional[ArrowStream], str, str]: ...
-def score_history(
-    names: Sequence[str],
-    fetch: Callable[[List[int]], Any],
-    *,
-    dx: Sequence[str],
-    layout: str,
-    id: Optional[str],
-    age: Optional[str],
-    index: Optional[Sequence[str]],
-    flags: bool,
-    hierarchy: bool,
-    lists: Optional[Lists],
-    dx_sep: Optional[str],
-    strict: bool,
-    threads: int,
-    date: Optional[str],
-    date_format: Optional[str],
-    lookback: Optional[str],
-    window: Optional[str],
-    episode: Optional[str],
-    exclude_primary: bool,
-    primary: Optional[str],
-    poa: Optional[str],
-    poa_values: Sequence[str],
-    max_unreadable_dates: Optional[str] = None,
-    edition: str = ...,
-) -> Tuple[ArrowStream, Optional[ArrowStream], str, str]:
-    """`morbus.score` over the patient history: (scores, per output row the
-    0-based frame row of the episode's first record (long layout), provenance
-    JSON, summary line)."""
+    options: Options,
+    lists: Optional[Lists] = None,
+) -> Tuple[ArrowStream, Optional[ArrowStream], Optional[ArrowStream], str, str]:
+    """`morbus.score` on a frame (`fetch(indices)` gives the columns the run
+    reads): (scores; long layout: per output row the 0-based frame row where
+    its unit first appears; with `keep`: per kept column the frame row whose
+    value each unit carries, null for none; provenance JSON; summary line)."""
 def explain(
     names: Sequence[str],
     fetch: Callable[[List[int]], Any],
-    *,
-    dx: Sequence[str],
-    layout: str,
-    id: Optional[str],
-    age: Optional[str],
-    index: Optional[Sequence[str]],
-    hierarchy: bool,
-    lists: Optional[Lists],
-    dx_sep: Optional[str],
-    strict: bool,
-    threads: int,
-    date: Optional[str],
-    date_format: Optional[str],
-    lookback: Optional[str],
-    window: Optional[str],
-    episode: Optional[str],
-    exclude_primary: bool,
-    primary: Optional[str],
-    poa: Optional[str],
-    poa_values: Sequence[str],
-    max_unreadable_dates: Optional[str] = None,
-    edition: str = ...,
-) -> Tuple[ArrowStream, str]:
-    """`morbus explain` on a frame: (the columns from `row` on, summary line)."""
+    options: Options,
+    lists: Optional[Lists] = None,
+) -> Tuple[ArrowStream, Optional[ArrowStream], str]:
+    """`morbus explain` on a frame: (the columns from `row` on; with `label`:
+    per record the 0-based frame row of its episode's label value; summary
+    line)."""
 def compare_csv(
     data: bytes,
+    options: Options,
     *,
-    dx: Sequence[str],
     outcome: str,
     adjust: Sequence[str],
     adjust_cat: Sequence[str],
+    adjust_spline: Sequence[str],
     by: Optional[str],
+    cluster: Optional[str],
     min_expected: float,
     overdispersion: Optional[str],
     folds: Optional[int],
     seed: int,
     reference: Optional[str],
-    layout: str,
-    id: Optional[str],
-    age: Optional[str],
-    index: Optional[Sequence[str]],
-    hierarchy: bool,
-    lists: Optional[Lists],
-    dx_sep: Optional[str],
-    date: Optional[str],
-    date_format: Optional[str],
-    lookback: Optional[str],
-    episode: Optional[str],
-    exclude_primary: bool,
-    primary: Optional[str],
-    poa: Optional[str],
-    poa_values: Sequence[str],
-    threads: int,
     report: bool,
+    lists: Optional[Lists] = None,
 ) -> Tuple[str, str, Optional[str]]:
     """`morbus compare` over CSV text: (the --json text, the plain-text
     report, the HTML report when asked)."""

@@ -1,54 +1,42 @@
 //! `morbus._native`: the Python extension of morbus.
 //!
-//! A thin layer: it resolves options with the library's own parsers, reads
-//! the diagnosis, age and id columns of a frame through the Arrow C stream
-//! interface, scores them with [`morbus::columnar::Scorer`] without the GIL,
-//! and hands the score columns back as an Arrow C stream. There is no scoring
-//! logic here; the frame handling (pandas, polars, pyarrow) is in
-//! `morbus/__init__.py`.
+//! A thin layer over [`morbus::frame`]: it hands the library the options of
+//! a call ([`morbus::frame::Request`], with the command line's checks and
+//! messages), reads the columns the run uses through the Arrow C stream
+//! interface and shows them to the library through [`Columns`] (text read
+//! in place, integers, numbers, booleans, dates), runs
+//! [`morbus::frame::score`] or [`morbus::frame::explain`] without the GIL,
+//! and hands the typed results back as Arrow C streams. There is no scoring
+//! or history logic here; the frame handling (pandas, polars, pyarrow) is in
+//! `morbus/__init__.py` and `morbus/_history.py`.
 
 use std::ffi::CStr;
 use std::path::PathBuf;
 use std::sync::Arc;
 
-use arrow_array::builder::{Float64Builder, Int64Builder, Int8Builder, StringBuilder};
 use arrow_array::cast::AsArray;
 use arrow_array::ffi_stream::{FFI_ArrowArrayStream, RecordBatchStreamReader};
 use arrow_array::types::*;
 use arrow_array::{
-    Array, ArrayRef, Int64Array, RecordBatch, RecordBatchIterator, RecordBatchReader,
+    Array, ArrayRef, BooleanArray, Date32Array, Float64Array, Int64Array, Int8Array, RecordBatch,
+    RecordBatchIterator, RecordBatchReader, StringArray,
 };
 use arrow_buffer::NullBuffer;
-use arrow_schema::{ArrowError, DataType, Field, Schema, SchemaRef};
+use arrow_schema::{ArrowError, DataType, Field, Schema, SchemaRef, TimeUnit};
 use pyo3::exceptions::{PyKeyError, PyTypeError, PyValueError};
 use pyo3::prelude::*;
 use pyo3::types::{PyCapsule, PyDict, PyList};
 
-use morbus::columnar::{self, Age, Rows, Scorer};
-use morbus::lists::{Catalogue, CodeList, SCALE};
-use morbus::pipeline::{Edition, Header, Layout, ScoreConfig, Summary};
+use morbus::frame::{self, Columns, Explained, Field as Value, Kind, Request, ScoreColumn};
+use morbus::lists::{Catalogue, CodeList};
+use morbus::pipeline::{Edition, Header};
 use morbus::provenance::Provenance;
-use morbus::score::{ColumnKind, Engine, IndexSpec, ScoreOptions, Value, DEFAULT_INDICES};
+use morbus::score::{ColumnKind, Engine};
 use morbus::Error;
 
 mod compare;
-mod history;
 
 const STREAM: &CStr = c"arrow_array_stream";
-
-/// The Python exception for a library error: `ValueError`, with the
-/// library's message (the command line's, with `(strict=True)` for
-/// `(--strict)`).
-fn value_error(e: Error) -> PyErr {
-    let msg = match e {
-        Error::Strict {
-            line: None,
-            message,
-        } => format!("{message} (strict=True)"),
-        other => other.to_string(),
-    };
-    PyValueError::new_err(msg)
-}
 
 /// A set of code lists: the built-ins, plus the lists of a directory.
 ///
@@ -104,7 +92,7 @@ impl PyLists {
 /// Loads the lists of a directory (`*.tsv`) on top of the built-ins.
 #[pyfunction]
 fn load_lists(path: PathBuf) -> PyResult<PyLists> {
-    let (catalogue, notes) = Catalogue::builtin_and_dir(&path).map_err(value_error)?;
+    let (catalogue, notes) = Catalogue::builtin_and_dir(&path).map_err(python_error)?;
     Ok(PyLists {
         catalogue,
         notes,
@@ -366,19 +354,33 @@ impl<'a> Text<'a> {
     }
 }
 
+/// One column of the frame as [`Columns`] reads it: text in place, other
+/// types as values (integers, numbers, dates as days, booleans).
+enum Col<'a> {
+    Text(Text<'a>),
+    Integer(Vec<Option<i64>>),
+    Number(Vec<Option<f64>>),
+    Logical(&'a BooleanArray),
+    /// Days since 1970-01-01.
+    Date(Vec<Option<i64>>),
+    /// A type the engine reads in no role (named in messages).
+    Other,
+}
+
 /// Whole numbers of an integer column (`None`: null; no value for other
-/// types).
-fn ints(array: &dyn Array) -> Option<Vec<Option<i128>>> {
+/// types). An unsigned value beyond `i64` is refused: it could not be read
+/// as the number it is.
+fn ints(array: &dyn Array, name: &str) -> PyResult<Option<Vec<Option<i64>>>> {
     macro_rules! prim {
         ($t:ty) => {
             array
                 .as_primitive::<$t>()
                 .iter()
-                .map(|v| v.map(|x| x as i128))
+                .map(|v| v.map(|x| x as i64))
                 .collect()
         };
     }
-    Some(match array.data_type() {
+    Ok(Some(match array.data_type() {
         DataType::Int8 => prim!(Int8Type),
         DataType::Int16 => prim!(Int16Type),
         DataType::Int32 => prim!(Int32Type),
@@ -386,184 +388,134 @@ fn ints(array: &dyn Array) -> Option<Vec<Option<i128>>> {
         DataType::UInt8 => prim!(UInt8Type),
         DataType::UInt16 => prim!(UInt16Type),
         DataType::UInt32 => prim!(UInt32Type),
-        DataType::UInt64 => prim!(UInt64Type),
+        DataType::UInt64 => {
+            let a = array.as_primitive::<UInt64Type>();
+            let mut out = Vec::with_capacity(a.len());
+            for v in a.iter() {
+                out.push(match v {
+                    None => None,
+                    Some(x) => Some(i64::try_from(x).map_err(|_| {
+                        PyValueError::new_err(format!(
+                            "column '{name}' holds the whole number {x}, beyond the largest \
+                             morbus reads ({}); convert the column to text",
+                            i64::MAX
+                        ))
+                    })?),
+                });
+            }
+            out
+        }
+        _ => return Ok(None),
+    }))
+}
+
+/// Days since 1970-01-01 of a date or timestamp column (a timestamp with a
+/// time zone arrives here as local wall-clock time: see
+/// `morbus/_history.py`, `local_times`).
+fn days(array: &dyn Array) -> Option<Vec<Option<i64>>> {
+    macro_rules! per {
+        ($t:ty, $unit:expr) => {
+            array
+                .as_primitive::<$t>()
+                .iter()
+                .map(|v| v.map(|x| (x as i64).div_euclid($unit)))
+                .collect()
+        };
+    }
+    Some(match array.data_type() {
+        DataType::Date32 => per!(Date32Type, 1),
+        DataType::Date64 => per!(Date64Type, 86_400_000),
+        DataType::Timestamp(unit, _) => match unit {
+            TimeUnit::Second => per!(TimestampSecondType, 86_400),
+            TimeUnit::Millisecond => per!(TimestampMillisecondType, 86_400_000),
+            TimeUnit::Microsecond => per!(TimestampMicrosecondType, 86_400_000_000),
+            TimeUnit::Nanosecond => per!(TimestampNanosecondType, 86_400_000_000_000),
+        },
         _ => return None,
     })
 }
 
-/// Numbers of a numeric column as `f64` (`None`: null).
-fn numbers(array: &dyn Array) -> Option<Vec<Option<f64>>> {
-    match array.data_type() {
-        DataType::Float32 => Some(
-            array
-                .as_primitive::<Float32Type>()
-                .iter()
-                .map(|v| v.map(f64::from))
-                .collect(),
-        ),
-        DataType::Float64 => Some(array.as_primitive::<Float64Type>().iter().collect()),
-        _ => ints(array).map(|v| v.into_iter().map(|x| x.map(|x| x as f64)).collect()),
+impl<'a> Col<'a> {
+    fn new(array: &'a dyn Array, name: &str) -> PyResult<Col<'a>> {
+        if let Some(t) = Text::new(array) {
+            return Ok(Col::Text(t));
+        }
+        if let Some(v) = ints(array, name)? {
+            return Ok(Col::Integer(v));
+        }
+        Ok(match array.data_type() {
+            DataType::Float32 => Col::Number(
+                array
+                    .as_primitive::<Float32Type>()
+                    .iter()
+                    .map(|v| v.map(f64::from))
+                    .collect(),
+            ),
+            DataType::Float64 => Col::Number(array.as_primitive::<Float64Type>().iter().collect()),
+            DataType::Boolean => Col::Logical(array.as_boolean()),
+            _ => match days(array) {
+                Some(d) => Col::Date(d),
+                None => Col::Other,
+            },
+        })
     }
 }
 
-/// Whole numbers of an integer column as id keys (`None`: null).
-fn integer_keys(array: &dyn Array) -> Option<Vec<Option<[u8; 8]>>> {
-    ints(array).map(|v| {
-        v.into_iter()
-            .map(|x| x.map(|x| (x as i64).to_le_bytes()))
-            .collect()
-    })
+/// The columns a run uses, fetched from the frame, as [`Columns`]: frame
+/// column `c` is `cols[c]` (`None`: not fetched, never read).
+struct Frame<'a> {
+    rows: usize,
+    cols: Vec<Option<(Col<'a>, String)>>,
 }
 
-enum AgeCol<'a> {
-    None,
-    Text(Text<'a>),
-    Number(Vec<Option<f64>>),
-}
-
-enum IdCol<'a> {
-    None,
-    Text(Text<'a>),
-    Int(Vec<Option<[u8; 8]>>),
-}
-
-/// One batch of the columns a run uses, as [`Rows`].
-struct Batch<'a> {
-    len: usize,
-    dx: Vec<Text<'a>>,
-    age: AgeCol<'a>,
-    id: IdCol<'a>,
-}
-
-impl Rows for Batch<'_> {
-    fn len(&self) -> usize {
-        self.len
+impl Columns for Frame<'_> {
+    fn rows(&self) -> usize {
+        self.rows
     }
+
+    fn kind(&self, col: usize) -> Kind {
+        match self.cols[col].as_ref().map(|c| &c.0) {
+            Some(Col::Text(_)) => Kind::Text,
+            Some(Col::Integer(_)) => Kind::Integer,
+            Some(Col::Number(_)) => Kind::Number,
+            Some(Col::Logical(_)) => Kind::Logical,
+            Some(Col::Date(_)) => Kind::Date,
+            Some(Col::Other) | None => Kind::Other,
+        }
+    }
+
+    fn type_name(&self, col: usize) -> String {
+        self.cols[col]
+            .as_ref()
+            .map_or_else(|| "unread".into(), |c| c.1.clone())
+    }
+
     #[inline]
-    fn dx(&self, k: usize, row: usize) -> &[u8] {
-        self.dx[k].get(row)
-    }
-    fn age(&self, row: usize) -> Age<'_> {
-        match &self.age {
-            AgeCol::None => Age::Missing,
-            AgeCol::Text(t) => {
+    fn field(&self, col: usize, row: usize) -> Value<'_> {
+        match self.cols[col].as_ref().map(|c| &c.0) {
+            Some(Col::Text(t)) => {
                 if t.is_null(row) {
-                    Age::Missing
+                    Value::Null
                 } else {
-                    Age::Text(t.get(row))
+                    Value::Text(t.get(row))
                 }
             }
-            AgeCol::Number(v) => v[row].map_or(Age::Missing, Age::Number),
-        }
-    }
-    fn id(&self, row: usize) -> Option<&[u8]> {
-        match &self.id {
-            IdCol::None => None,
-            IdCol::Text(t) => (!t.is_null(row)).then(|| t.get(row)),
-            IdCol::Int(v) => v[row].as_ref().map(|b| b.as_slice()),
-        }
-    }
-}
-
-/// Rows `start..start + len` of a batch.
-struct Part<'b, 'a> {
-    batch: &'b Batch<'a>,
-    start: usize,
-    len: usize,
-}
-
-impl Rows for Part<'_, '_> {
-    fn len(&self) -> usize {
-        self.len
-    }
-    #[inline]
-    fn dx(&self, k: usize, row: usize) -> &[u8] {
-        self.batch.dx(k, self.start + row)
-    }
-    fn age(&self, row: usize) -> Age<'_> {
-        self.batch.age(self.start + row)
-    }
-    fn id(&self, row: usize) -> Option<&[u8]> {
-        self.batch.id(self.start + row)
-    }
-}
-
-/// Threads for a wide run: `threads` when positive, else one per core (as
-/// the command line's `--threads`).
-fn thread_count(threads: usize) -> usize {
-    if threads > 0 {
-        return threads;
-    }
-    std::thread::available_parallelism().map_or(1, |n| n.get())
-}
-
-/// Rows from which the wide layout is scored on several threads.
-const PARALLEL_ROWS: usize = 50_000;
-
-/// Scores a wide frame in `threads` parts of consecutive rows, each on its
-/// own thread; the parts' columns come back in row order, their summaries
-/// merged, and the error of the first failing part (the first in row
-/// order, as a single pass would meet it).
-fn score_wide_parallel(
-    engine: &Engine,
-    cfg: &ScoreConfig,
-    header: &Header,
-    plan: &columnar::Plan,
-    views: &[Batch<'_>],
-    threads: usize,
-) -> Result<(Vec<RecordBatch>, Summary), Error> {
-    let total: usize = views.iter().map(|v| v.len).sum();
-    let per = total.div_ceil(threads.max(1)).max(1);
-    // (first row, parts of batches) of each task
-    let mut tasks: Vec<(usize, Vec<Part<'_, '_>>)> = Vec::new();
-    let mut row = 0usize;
-    for v in views {
-        let mut start = 0;
-        while start < v.len {
-            if tasks.last().is_none_or(|t| row >= t.0 + per) {
-                tasks.push((row, Vec::new()));
+            Some(Col::Integer(v)) => v[row].map_or(Value::Null, Value::Integer),
+            Some(Col::Number(v)) => match v[row] {
+                Some(x) if !x.is_nan() => Value::Number(x),
+                _ => Value::Null,
+            },
+            Some(Col::Logical(b)) => {
+                if b.is_null(row) {
+                    Value::Null
+                } else {
+                    Value::Logical(b.value(row))
+                }
             }
-            let task = tasks.last_mut().expect("a task");
-            let room = task.0 + per - row;
-            let len = room.min(v.len - start);
-            task.1.push(Part {
-                batch: v,
-                start,
-                len,
-            });
-            start += len;
-            row += len;
+            Some(Col::Date(v)) => v[row].map_or(Value::Null, Value::Date),
+            Some(Col::Other) | None => Value::Null,
         }
     }
-    let results: Vec<Result<(RecordBatch, Summary), Error>> = std::thread::scope(|s| {
-        let handles: Vec<_> = tasks
-            .iter()
-            .map(|(first, parts)| {
-                s.spawn(move || {
-                    let mut scorer =
-                        Scorer::new(engine, cfg, header, plan).starting_at(*first as u64);
-                    let rows: usize = parts.iter().map(|p| p.len).sum();
-                    let mut out = Output::new(engine, rows);
-                    for p in parts {
-                        scorer.wide(p, |vals| out.push(engine, vals))?;
-                    }
-                    Ok((out.finish(engine), scorer.into_summary()))
-                })
-            })
-            .collect();
-        handles
-            .into_iter()
-            .map(|h| h.join().expect("a scoring thread panicked"))
-            .collect()
-    });
-    let mut batches = Vec::new();
-    let mut summary = Summary::default();
-    for r in results {
-        let (b, s) = r?;
-        batches.push(b);
-        summary.merge(s);
-    }
-    Ok((batches, summary))
 }
 
 fn type_name(t: &DataType) -> String {
@@ -573,270 +525,156 @@ fn type_name(t: &DataType) -> String {
     }
 }
 
-/// Views of the used columns of a batch; columns are `dx..., [age], [id]`.
-fn batch_view<'a>(
-    batch: &'a RecordBatch,
-    names: &[String],
-    n_dx: usize,
-    has_age: bool,
-    has_id: bool,
-) -> PyResult<Batch<'a>> {
-    let cols = batch.columns();
-    let mut dx = Vec::with_capacity(n_dx);
-    for (k, name) in names.iter().enumerate().take(n_dx) {
-        let a = cols[k].as_ref();
-        let t = Text::new(a).ok_or_else(|| {
-            PyValueError::new_err(format!(
-                "diagnosis column '{name}' holds {} values, not text; ICD-10 codes are text \
-                 (convert the column to strings first if its values really are codes)",
-                type_name(a.data_type())
-            ))
-        })?;
-        dx.push(t);
-    }
-    let mut next = n_dx;
-    let age = if has_age {
-        let a = cols[next].as_ref();
-        next += 1;
-        if let Some(v) = numbers(a) {
-            AgeCol::Number(v)
-        } else if let Some(t) = Text::new(a) {
-            AgeCol::Text(t)
-        } else {
-            return Err(PyValueError::new_err(format!(
-                "age column '{}' holds {} values; ages must be numbers or text",
-                names[n_dx],
-                type_name(a.data_type())
-            )));
-        }
-    } else {
-        AgeCol::None
-    };
-    let id = if has_id {
-        let a = cols[next].as_ref();
-        if let Some(v) = integer_keys(a) {
-            IdCol::Int(v)
-        } else if let Some(t) = Text::new(a) {
-            IdCol::Text(t)
-        } else {
-            return Err(PyValueError::new_err(format!(
-                "id column '{}' holds {} values; ids must be text or whole numbers",
-                names[next],
-                type_name(a.data_type())
-            )));
-        }
-    } else {
-        IdCol::None
-    };
-    Ok(Batch {
-        len: batch.num_rows(),
-        dx,
-        age,
-        id,
-    })
-}
-
-/// Builders of the output columns, one per engine column.
-enum Out {
-    Int(Int64Builder),
-    Float(Float64Builder),
-    Band(StringBuilder),
-    Flag(Int8Builder),
-}
-
-struct Output {
-    cols: Vec<Out>,
-}
-
-impl Output {
-    fn new(engine: &Engine, rows: usize) -> Output {
-        let cols = engine
-            .columns()
-            .iter()
-            .map(|c| match c.kind {
-                ColumnKind::Score { spec } | ColumnKind::ScoreWithAge { spec } => {
-                    if engine.decimals(spec) == 0 {
-                        Out::Int(Int64Builder::with_capacity(rows))
-                    } else {
-                        Out::Float(Float64Builder::with_capacity(rows))
-                    }
-                }
-                ColumnKind::Band { .. } => Out::Band(StringBuilder::with_capacity(rows, rows * 8)),
-                ColumnKind::Flag { .. } => Out::Flag(Int8Builder::with_capacity(rows)),
-            })
-            .collect();
-        Output { cols }
-    }
-
-    #[inline]
-    fn push(&mut self, engine: &Engine, values: &[Value]) {
-        for (b, v) in self.cols.iter_mut().zip(values) {
-            match (b, *v) {
-                (Out::Int(b), Value::Score { scaled, .. }) => b.append_value(scaled / SCALE),
-                (Out::Float(b), Value::Score { scaled, .. }) => {
-                    b.append_value(scaled as f64 / SCALE as f64)
-                }
-                (Out::Int(b), _) => b.append_null(),
-                (Out::Float(b), _) => b.append_null(),
-                (Out::Band(b), Value::Band { spec, band }) => {
-                    b.append_value(engine.band_name(spec, band))
-                }
-                (Out::Band(b), _) => b.append_null(),
-                (Out::Flag(b), Value::Flag(f)) => b.append_value(f as i8),
-                (Out::Flag(b), _) => b.append_null(),
-            }
-        }
-    }
-
-    fn finish(self, engine: &Engine) -> RecordBatch {
-        let mut fields = Vec::new();
-        let mut arrays: Vec<ArrayRef> = Vec::new();
-        for (c, b) in engine.columns().iter().zip(self.cols) {
-            let nullable = matches!(
-                c.kind,
-                ColumnKind::ScoreWithAge { .. } | ColumnKind::Band { .. }
-            );
-            let a: ArrayRef = match b {
-                Out::Int(mut b) => Arc::new(b.finish()),
-                Out::Float(mut b) => Arc::new(b.finish()),
-                Out::Band(mut b) => Arc::new(b.finish()),
-                Out::Flag(mut b) => Arc::new(b.finish()),
-            };
-            fields.push(Field::new(&c.name, a.data_type().clone(), nullable));
-            arrays.push(a);
-        }
-        let schema = Arc::new(Schema::new(fields));
-        let rows = arrays.first().map_or(0, |a| a.len());
-        RecordBatch::try_new_with_options(
-            schema,
-            arrays,
-            &arrow_array::RecordBatchOptions::new().with_row_count(Some(rows)),
-        )
-        .expect("score columns of equal length")
-    }
-}
-
-/// Whether a column-resolution error is about a column that is not there
-/// (raised as `KeyError`) rather than a bad request (`ValueError`).
-fn missing_column(cfg: &ScoreConfig, header: &Header) -> bool {
-    let absent = |name: &str| !header.names.iter().any(|n| n == name);
-    let dx_missing = cfg
-        .dx
-        .iter()
-        .flat_map(|s| s.split(','))
-        .map(str::trim)
-        .filter(|i| !i.is_empty())
-        .any(|item| {
-            if item.contains(['*', '?', '[']) {
-                glob::Pattern::new(item)
-                    .map(|p| !header.names.iter().any(|n| p.matches(n)))
-                    .unwrap_or(false)
-            } else {
-                absent(item)
-            }
-        });
-    dx_missing
-        || cfg.age.as_deref().is_some_and(absent)
-        || (cfg.layout == Layout::Long && cfg.id.as_deref().is_some_and(absent))
-}
-
-/// Scores the columns of a frame. Called by `morbus.score`, which see.
-///
-/// `names` are the frame's column names; `fetch(indices)` returns an object
-/// exposing `__arrow_c_stream__` with those columns, in that order. Returns
-/// `(scores, first_rows, provenance, report)`: the score columns as an Arrow
-/// stream, (long layout) the row where each unit first appears as an Arrow
-/// stream, the run's provenance as JSON (that of `morbus score --provenance`)
-/// and its summary line.
-#[pyfunction]
-#[pyo3(signature = (names, fetch, *, dx, layout, id, age, index, flags, hierarchy, lists, dx_sep, strict, threads, edition="any"))]
-#[allow(clippy::too_many_arguments)]
-fn score<'py>(
-    py: Python<'py>,
-    names: Vec<String>,
-    fetch: Bound<'py, PyAny>,
+/// The options of a `score`, `explain` or `compare` call, as
+/// `morbus/__init__.py` (`_options`) hands them over: one dict, the same
+/// for every call.
+#[derive(FromPyObject)]
+#[pyo3(from_item_all)]
+struct Options {
     dx: Vec<String>,
-    layout: &str,
+    layout: String,
     id: Option<String>,
     age: Option<String>,
     index: Option<Vec<String>>,
     flags: bool,
     hierarchy: bool,
-    lists: Option<PyRef<'py, PyLists>>,
     dx_sep: Option<String>,
     strict: bool,
     threads: usize,
-    edition: &str,
-) -> PyResult<(ArrowStream, Option<ArrowStream>, String, String)> {
-    let builtin;
-    let lists: &PyLists = match &lists {
-        Some(l) => l,
-        None => {
-            builtin = builtin_lists();
-            &builtin
-        }
-    };
-    let spec_text = match &index {
-        None => DEFAULT_INDICES.to_string(),
-        Some(v) if v.is_empty() => DEFAULT_INDICES.to_string(),
-        Some(v) => v.join(","),
-    };
-    let specs = IndexSpec::parse_many(&spec_text).map_err(|e| value_error(e.into()))?;
-    let options = ScoreOptions {
-        hierarchy,
-        flags,
-        age: age.is_some(),
-    };
-    let engine =
-        Engine::new(&lists.catalogue, &specs, options).map_err(|e| value_error(e.into()))?;
-    let layout = match layout {
-        "wide" => Layout::Wide,
-        "long" => Layout::Long,
-        other => {
-            return Err(PyValueError::new_err(format!(
-                "layout must be 'wide' or 'long', not '{other}'"
-            )))
-        }
-    };
-    if layout == Layout::Long && id.is_none() {
-        return Err(PyValueError::new_err("layout='long' needs id=COLUMN"));
-    }
-    let dx_sep = match dx_sep.as_deref() {
-        None => None,
-        Some(s) if s.len() == 1 && s.is_ascii() && s != "\"" && s != "\n" && s != "\r" => {
-            Some(s.as_bytes()[0])
-        }
-        Some(s) => {
-            return Err(PyValueError::new_err(format!(
-                "dx_sep must be one ASCII character, not '{s}'"
-            )))
-        }
-    };
-    let cfg = ScoreConfig {
-        dx,
-        dx_sep,
-        layout,
-        id,
-        age,
-        strict,
-        edition: parse_edition(edition)?,
-        threads,
-        ..ScoreConfig::default()
-    };
-    let header = Header { names };
-    let plan = columnar::plan(&engine, &cfg, &header).map_err(|e| {
-        if missing_column(&cfg, &header) {
-            PyKeyError::new_err(e.to_string())
-        } else {
-            value_error(e)
-        }
-    })?;
+    date: Option<String>,
+    date_format: Option<String>,
+    lookback: Option<String>,
+    window: Option<String>,
+    episode: Option<String>,
+    exclude_primary: bool,
+    primary: Option<String>,
+    poa: Option<String>,
+    poa_values: Vec<String>,
+    max_unreadable_dates: Option<String>,
+    edition: String,
+    keep: Vec<String>,
+    label: Option<String>,
+}
 
-    let mut used: Vec<usize> = plan.dx.clone();
-    used.extend(plan.age);
-    used.extend(plan.id);
-    let used_names: Vec<String> = used.iter().map(|&i| header.names[i].clone()).collect();
-    let data = fetch.call1((used.clone(),))?;
+impl Options {
+    /// The library's request: its checks and messages are the command
+    /// line's (turned into Python's option names by [`python_error`]).
+    fn request(self) -> PyResult<Request> {
+        if morbus::pipeline::poa_values_from(&self.poa_values).is_empty() {
+            return Err(PyValueError::new_err(
+                "poa_values is empty; name the values that count (e.g. 'Y,W,1,blank')",
+            ));
+        }
+        Ok(Request {
+            dx: self.dx,
+            dx_sep: self.dx_sep,
+            layout: self.layout,
+            id: self.id,
+            episode: self.episode,
+            date: self.date,
+            date_format: self.date_format,
+            lookback: self.lookback,
+            window: self.window,
+            exclude_primary: self.exclude_primary,
+            primary: self.primary,
+            poa: self.poa,
+            poa_values: self.poa_values,
+            max_unreadable_dates: self.max_unreadable_dates,
+            index: self.index.unwrap_or_default(),
+            age: self.age,
+            flags: self.flags,
+            no_hierarchy: !self.hierarchy,
+            strict: self.strict,
+            threads: self.threads,
+            edition: Some(self.edition),
+            keep: self.keep,
+            label: self.label,
+        })
+    }
+}
+
+/// The command line's option names as Python spells them, in the order
+/// they are tried (longer phrases first).
+const PYTHON_WORDS: &[(&str, &str)] = &[
+    ("(--strict)", "(strict=True)"),
+    (
+        "--layout long needs --id COL",
+        "layout='long' needs id=COLUMN",
+    ),
+    (
+        "--layout is 'wide' or 'long'",
+        "layout must be 'wide' or 'long'",
+    ),
+    (
+        "--lookback needs --id (the patient column) and --date",
+        "lookback= needs id= (the patient column) and date=",
+    ),
+    (
+        "--date is used with --lookback DAYS",
+        "date= is used with lookback=DAYS",
+    ),
+    (
+        "--window is used with --lookback DAYS",
+        "window= is used with lookback=DAYS",
+    ),
+    (
+        "--exclude-primary in the long layout needs --primary COL",
+        "exclude_primary=True in the long layout needs primary=COLUMN",
+    ),
+    ("--exclude-primary", "exclude_primary=True"),
+    ("--primary is for", "primary= is for"),
+    ("--episode is for", "episode= is for"),
+    ("--keep is for", "keep= is for"),
+    ("--label column", "label column"),
+    ("named by both --poa and --dx", "named by both poa= and dx="),
+    ("--poa '", "poa= '"),
+    (" but --dx names", " but dx= names"),
+    ("--dx-sep", "dx_sep"),
+    ("--date-format", "date_format"),
+    ("--max-unreadable-dates", "max_unreadable_dates"),
+    ("--poa-values", "poa_values"),
+    ("--lookback", "lookback"),
+    ("--window", "window"),
+    ("--edition", "edition"),
+];
+
+/// A library error as a Python exception: `KeyError` for a column that is
+/// not in the frame, else `ValueError`; the command line's message with
+/// Python's option names.
+fn python_error(e: Error) -> PyErr {
+    let mut m = match e {
+        Error::Strict {
+            line: None,
+            message,
+        } => format!("{message} (strict=True)"),
+        other => other.to_string(),
+    };
+    for (cli, py) in PYTHON_WORDS {
+        if m.contains(cli) {
+            m = m.replace(cli, py);
+        }
+    }
+    if m.contains(" not found; columns in the input: ")
+        || m.contains(" matches no column; columns in the input: ")
+    {
+        PyKeyError::new_err(m)
+    } else {
+        PyValueError::new_err(m)
+    }
+}
+
+/// Runs `f` over the lists of a call: `lists`, or the built-ins.
+fn with_lists<R>(lists: Option<PyRef<'_, PyLists>>, f: impl FnOnce(&Catalogue) -> R) -> R {
+    match lists {
+        Some(l) => f(&l.catalogue),
+        None => f(&Catalogue::builtin()),
+    }
+}
+
+/// Fetches the used columns of the frame (`fetch(indices)`, an object
+/// exposing `__arrow_c_stream__`) as one batch.
+fn fetch_batch(fetch: &Bound<'_, PyAny>, used: &[usize]) -> PyResult<RecordBatch> {
+    let data = fetch.call1((used.to_vec(),))?;
     let batches = import_stream(&data)?;
     for b in &batches {
         if b.num_columns() != used.len() {
@@ -847,63 +685,247 @@ fn score<'py>(
             )));
         }
     }
-    let views = batches
-        .iter()
-        .map(|b| {
-            batch_view(
-                b,
-                &used_names,
-                plan.dx.len(),
-                plan.age.is_some(),
-                plan.id.is_some(),
-            )
-        })
-        .collect::<PyResult<Vec<_>>>()?;
-    let total: usize = views.iter().map(|v| v.len).sum();
+    match batches.len() {
+        1 => Ok(batches.into_iter().next().expect("one batch")),
+        _ => {
+            let fields: Vec<Field> = (0..used.len())
+                .map(|k| {
+                    let t = batches
+                        .first()
+                        .map_or(DataType::Null, |b| b.column(k).data_type().clone());
+                    Field::new(format!("c{k}"), t, true)
+                })
+                .collect();
+            let schema = Arc::new(Schema::new(fields));
+            let batches: Vec<RecordBatch> = batches
+                .into_iter()
+                .map(|b| RecordBatch::try_new(schema.clone(), b.columns().to_vec()))
+                .collect::<Result<_, ArrowError>>()
+                .map_err(|e| PyValueError::new_err(format!("cannot read the frame: {e}")))?;
+            arrow_select::concat::concat_batches(&schema, &batches)
+                .map_err(|e| PyValueError::new_err(format!("cannot read the frame: {e}")))
+        }
+    }
+}
 
-    let threads = thread_count(cfg.threads);
-    let (result, first_rows, summary) = py
-        .detach(|| {
-            if layout == Layout::Wide && threads > 1 && total >= PARALLEL_ROWS {
-                let (batches, summary) =
-                    score_wide_parallel(&engine, &cfg, &header, &plan, &views, threads)?;
-                return Ok((batches, Vec::new(), summary));
-            }
-            let mut scorer = Scorer::new(&engine, &cfg, &header, &plan);
-            let mut out = Output::new(&engine, if layout == Layout::Wide { total } else { 0 });
-            let mut first = Vec::new();
-            for v in &views {
-                match layout {
-                    Layout::Wide => scorer.wide(v, |vals| out.push(&engine, vals))?,
-                    Layout::Long => scorer.long(v)?,
-                }
-            }
-            if layout == Layout::Long {
-                scorer.finish_long(|row, vals| {
-                    first.push(row as i64);
-                    out.push(&engine, vals);
-                });
-            }
-            Ok((vec![out.finish(&engine)], first, scorer.into_summary()))
-        })
-        .map_err(value_error)?;
-    let schema = Output::new(&engine, 0).finish(&engine).schema();
+/// The frame's columns `used` (fetched as `batch`) as [`Columns`].
+fn frame_view<'a>(batch: &'a RecordBatch, names: &[String], used: &[usize]) -> PyResult<Frame<'a>> {
+    let mut cols: Vec<Option<(Col<'a>, String)>> = (0..names.len()).map(|_| None).collect();
+    for (k, &c) in used.iter().enumerate() {
+        let a = batch.column(k).as_ref();
+        cols[c] = Some((Col::new(a, &names[c])?, type_name(a.data_type())));
+    }
+    Ok(Frame {
+        rows: batch.num_rows(),
+        cols,
+    })
+}
 
-    let first_rows = (layout == Layout::Long).then(|| {
-        let a: ArrayRef = Arc::new(Int64Array::from(first_rows));
-        let schema = Arc::new(Schema::new(vec![Field::new("row", DataType::Int64, false)]));
-        let batch = RecordBatch::try_new(schema.clone(), vec![a]).expect("one column");
-        ArrowStream::new(vec![batch], schema)
+/// The score columns as an Arrow batch: whole-number scores `Int64`,
+/// scores with decimals `Float64`, bands text, flags `Int8`; only the age
+/// variants and bands may be null.
+fn score_batch(engine: &Engine, columns: Vec<ScoreColumn>, rows: usize) -> RecordBatch {
+    let mut fields = Vec::new();
+    let mut arrays: Vec<ArrayRef> = Vec::new();
+    for (c, col) in engine.columns().iter().zip(columns) {
+        let nullable = matches!(
+            c.kind,
+            ColumnKind::ScoreWithAge { .. } | ColumnKind::Band { .. }
+        );
+        let a: ArrayRef = match col {
+            ScoreColumn::Int(v) => Arc::new(Int64Array::from(v)),
+            ScoreColumn::Float(v) => Arc::new(Float64Array::from(v)),
+            ScoreColumn::Flag(v) => Arc::new(Int8Array::from(v)),
+            ScoreColumn::Band { names, values } => Arc::new(
+                values
+                    .iter()
+                    .map(|b| b.map(|b| names[b as usize].as_str()))
+                    .collect::<StringArray>(),
+            ),
+        };
+        fields.push(Field::new(&c.name, a.data_type().clone(), nullable));
+        arrays.push(a);
+    }
+    RecordBatch::try_new_with_options(
+        Arc::new(Schema::new(fields)),
+        arrays,
+        &arrow_array::RecordBatchOptions::new().with_row_count(Some(rows)),
+    )
+    .expect("score columns of equal length")
+}
+
+/// Nullable `Int64` columns `row0`, `row1`, ... as an Arrow stream.
+fn rows_stream(columns: Vec<Vec<Option<i64>>>) -> ArrowStream {
+    let arrays: Vec<ArrayRef> = columns
+        .into_iter()
+        .map(|v| Arc::new(Int64Array::from(v)) as ArrayRef)
+        .collect();
+    let fields: Vec<Field> = (0..arrays.len())
+        .map(|k| Field::new(format!("row{k}"), DataType::Int64, true))
+        .collect();
+    let schema = Arc::new(Schema::new(fields));
+    let batch = RecordBatch::try_new(schema.clone(), arrays).expect("columns of equal length");
+    ArrowStream::new(vec![batch], schema)
+}
+
+/// Scores the columns of a frame. Called by `morbus.score`, which see.
+///
+/// `names` are the frame's column names; `fetch(indices)` returns an object
+/// exposing `__arrow_c_stream__` with those columns, in that order;
+/// `options` is the dict of `morbus._options`. Returns `(scores, first_rows,
+/// kept_rows, provenance, report)`: the score columns as an Arrow stream;
+/// (long layout) the 0-based frame row where each unit first appears; (with
+/// `keep`) per kept column the frame row whose value each unit carries
+/// (null: none); the provenance as JSON (that of `morbus score
+/// --provenance`) and the summary line.
+#[pyfunction]
+#[pyo3(signature = (names, fetch, options, lists=None))]
+#[allow(clippy::type_complexity)]
+fn score<'py>(
+    py: Python<'py>,
+    names: Vec<String>,
+    fetch: Bound<'py, PyAny>,
+    options: Options,
+    lists: Option<PyRef<'py, PyLists>>,
+) -> PyResult<(
+    ArrowStream,
+    Option<ArrowStream>,
+    Option<ArrowStream>,
+    String,
+    String,
+)> {
+    let request = options.request()?;
+    let (engine, cfg) = with_lists(lists, |c| request.resolve(c)).map_err(python_error)?;
+    let header = Header { names };
+    let used = frame::used_columns(&cfg, &header).map_err(python_error)?;
+    let batch = fetch_batch(&fetch, &used)?;
+    let view = frame_view(&batch, &header.names, &used)?;
+    let scored = py
+        .detach(|| frame::score(&engine, &cfg, &header, &view, 0))
+        .map_err(python_error)?;
+    let rows = scored.first_rows.as_ref().map_or(view.rows, Vec::len);
+    let result = score_batch(&engine, scored.columns, rows);
+    let schema = result.schema();
+    let first_rows = scored
+        .first_rows
+        .as_ref()
+        .map(|r| rows_stream(vec![r.iter().map(|&r| Some(r as i64)).collect()]));
+    let kept_rows = (!scored.kept_rows.is_empty()).then(|| {
+        rows_stream(
+            scored
+                .kept_rows
+                .iter()
+                .map(|c| c.iter().map(|r| r.map(|r| r as i64)).collect())
+                .collect(),
+        )
     });
-
-    let prov = Provenance::new(&engine, &cfg, &summary).to_json();
-
+    let prov = Provenance::new(&engine, &cfg, &scored.summary).to_json();
     Ok((
-        ArrowStream::new(result, schema),
+        ArrowStream::new(vec![result], schema),
         first_rows,
+        kept_rows,
         prov,
+        scored.summary.report(),
+    ))
+}
+
+/// `morbus explain` on a frame. Called by `morbus.explain`.
+///
+/// Returns `(table, label_rows, report)`: the columns of `morbus explain`
+/// after the id, episode and label columns (`row`, `index`, `source_row`,
+/// `source_date`, `code_as_written`, `code`, `condition`, `weight`,
+/// `status`, `age_points`; `row` and `source_row` are the command line's
+/// 1-based data rows, the frame row plus one), (with `label`) the 0-based
+/// frame row of each record's label value, and the summary line.
+#[pyfunction]
+#[pyo3(signature = (names, fetch, options, lists=None))]
+fn explain<'py>(
+    py: Python<'py>,
+    names: Vec<String>,
+    fetch: Bound<'py, PyAny>,
+    options: Options,
+    lists: Option<PyRef<'py, PyLists>>,
+) -> PyResult<(ArrowStream, Option<ArrowStream>, String)> {
+    let request = options.request()?;
+    let (engine, cfg) = with_lists(lists, |c| request.resolve(c)).map_err(python_error)?;
+    let header = Header { names };
+    let used = frame::used_columns(&cfg, &header).map_err(python_error)?;
+    let batch = fetch_batch(&fetch, &used)?;
+    let view = frame_view(&batch, &header.names, &used)?;
+    let (ex, summary) = py
+        .detach(|| frame::explain(&engine, &cfg, &header, &view, 0))
+        .map_err(python_error)?;
+    let labels = (!cfg.keep.is_empty()).then(|| {
+        rows_stream(vec![ex
+            .label_rows
+            .iter()
+            .map(|r| r.map(|r| r as i64))
+            .collect()])
+    });
+    let batch = explain_batch(ex);
+    let schema = batch.schema();
+    Ok((
+        ArrowStream::new(vec![batch], schema),
+        labels,
         summary.report(),
     ))
+}
+
+/// The typed records of `explain` as an Arrow batch; `weight` and
+/// `age_points` are `Int64` when every weighting has whole-number points,
+/// else `Float64`.
+fn explain_batch(ex: Explained) -> RecordBatch {
+    let whole = ex.whole_weights;
+    let number = |v: Vec<Option<f64>>| -> ArrayRef {
+        if whole {
+            Arc::new(Int64Array::from(
+                v.into_iter()
+                    .map(|x| x.map(|x| x as i64))
+                    .collect::<Vec<_>>(),
+            ))
+        } else {
+            Arc::new(Float64Array::from(v))
+        }
+    };
+    let text = |v: Vec<Option<String>>| -> ArrayRef { Arc::new(StringArray::from(v)) };
+    let arrays: Vec<(&str, ArrayRef, bool)> = vec![
+        ("row", Arc::new(Int64Array::from(ex.row)), false),
+        ("index", Arc::new(StringArray::from(ex.index)), false),
+        (
+            "source_row",
+            Arc::new(Int64Array::from(ex.source_row)),
+            true,
+        ),
+        (
+            "source_date",
+            Arc::new(Date32Array::from(
+                ex.source_date
+                    .into_iter()
+                    .map(|d| d.map(|d| d as i32))
+                    .collect::<Vec<_>>(),
+            )),
+            true,
+        ),
+        ("code_as_written", text(ex.code_as_written), true),
+        ("code", text(ex.code), true),
+        ("condition", text(ex.condition), true),
+        (
+            "weight",
+            number(ex.weight.into_iter().map(Some).collect()),
+            false,
+        ),
+        ("status", Arc::new(StringArray::from(ex.status)), false),
+        ("age_points", number(ex.age_points), true),
+    ];
+    let fields: Vec<Field> = arrays
+        .iter()
+        .map(|(n, a, nullable)| Field::new(*n, a.data_type().clone(), *nullable))
+        .collect();
+    RecordBatch::try_new(
+        Arc::new(Schema::new(fields)),
+        arrays.into_iter().map(|(_, a, _)| a).collect(),
+    )
+    .expect("explain columns of equal length")
 }
 
 /// Version of the morbus library this extension was built with.
@@ -956,8 +978,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(score, m)?)?;
     m.add_function(wrap_pyfunction!(version, m)?)?;
     m.add_function(wrap_pyfunction!(debug_build, m)?)?;
-    m.add_function(wrap_pyfunction!(history::score_history, m)?)?;
-    m.add_function(wrap_pyfunction!(history::explain, m)?)?;
+    m.add_function(wrap_pyfunction!(explain, m)?)?;
     m.add_function(wrap_pyfunction!(compare::compare_csv, m)?)?;
     m.add_function(wrap_pyfunction!(code_status, m)?)?;
     Ok(())

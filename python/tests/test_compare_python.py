@@ -16,11 +16,12 @@ from test_compare_reference import DEMO, OUTCOME, run
 OPTIONS = dict(
     dx="dx*", outcome=OUTCOME, adjust="age", adjust_cat="sex", by="site", folds=5,
     id="patient_id", overdispersion="additive", reference="charlson:quan2011",
+    adjust_spline="age:4", cluster="patient_id",
 )
 CLI = [
     "--dx", "dx*", "--outcome", OUTCOME, "--adjust", "age", "--adjust-cat", "sex",
     "--by", "site", "--folds", "5", "--id", "patient_id", "--overdispersion", "additive",
-    "--reference", "charlson:quan2011",
+    "--reference", "charlson:quan2011", "--adjust-spline", "age:4", "--cluster", "patient_id",
 ]
 
 

@@ -377,7 +377,7 @@ def test_errors_carry_the_command_line_messages():
         morbus.score(df, dx="dx1", layout="long", id="pid", exclude_primary=True)
     with pytest.raises(ValueError, match="date_format '%Y' must hold"):
         morbus.score(df, dx="dx*", id="pid", date="day", lookback=1, date_format="%Y")
-    with pytest.raises(ValueError, match="date column 'day' holds Int64 values; dates must be text, dates or timestamps"):
+    with pytest.raises(ValueError, match="date column 'day' holds Int64 values; dates must be text, dates or date-times"):
         morbus.score(df.assign(day=[1, 2, 3, 4]), dx="dx*", id="pid", date="day", lookback=1)
     with pytest.raises(ValueError, match="date_format is for dates written as text"):
         morbus.score(df.assign(day=pd.to_datetime(df["day"])), dx="dx*", id="pid", date="day", lookback=1, date_format="%d/%m/%Y")
@@ -472,3 +472,81 @@ def test_docstring_examples():
     for module in (morbus, morbus._history):
         failed, attempted = doctest.testmod(module, optionflags=doctest.ELLIPSIS)
         assert attempted > 0 and failed == 0, module.__name__
+
+
+def long_with_gaps(tmp_path: Path) -> Path:
+    """The long demo extract with the first row of a few episodes' kept
+    columns emptied (their unit then carries its first non-empty value)
+    and one later row disagreeing (counted, as on the command line)."""
+    df = pd.read_csv(LONG_CSV, dtype=str, keep_default_na=False)
+    first = df.drop_duplicates("episode_id").index[:5]
+    df.loc[first, "died_within_30_days"] = ""
+    df.loc[first, "admission_date"] = ""
+    later = df.index[(df["episode_id"] == df.loc[first[0], "episode_id"])][-1]
+    df.loc[later, "died_within_30_days"] = "7"
+    path = tmp_path / "long-gaps.csv"
+    df.to_csv(path, index=False)
+    return path
+
+
+@pytest.mark.parametrize("reader", ["pandas-text", "pandas", "polars", "pyarrow"])
+def test_keep_equals_cli_typed(run_cli, reader, tmp_path):
+    path = long_with_gaps(tmp_path)
+    opts = {k: v for k, v in LONG.items() if k not in ("lookback", "date")}
+    opts["keep"] = ["admission_date", "died_within_30_days"]
+    code, out, err = run_cli(cli_args("score", path, opts) + ["--provenance", str(tmp_path / "p.json")])
+    assert code == 0, err
+    cli = pd.read_csv(io.StringIO(out), dtype=str, keep_default_na=False)
+    assert list(cli.columns[:4]) == ["patient_id", "episode_id", "admission_date", "died_within_30_days"]
+    frame = read(reader, path)
+    got, prov = morbus.score(frame, **opts, provenance=True)
+    assert_same(got, cli, list(cli.columns))
+    # the kept columns keep the frame's dtype (numbers stay numbers)
+    py, fr = as_pandas(got), as_pandas(frame)
+    if reader != "pandas-text":
+        assert py["died_within_30_days"].dtype.kind in "fi"
+        assert fr["died_within_30_days"].dtype.kind in "fi"
+    # a unit whose rows disagree is counted, as by the command line
+    import json
+
+    cli_prov = json.loads((tmp_path / "p.json").read_text())
+    assert prov["rows"]["disagreeing_units"] == cli_prov["rows"]["disagreeing_units"] >= 1
+
+
+def test_keep_options_and_messages(run_cli):
+    df = read("pandas-text", LONG_CSV)
+    long = {"layout": "long", "dx": "code", "id": "patient_id", "episode": "episode_id"}
+    # comma-separated names as on the command line, or a list
+    a = morbus.score(df, **long, keep="age,admission_date")
+    b = morbus.score(df, **long, keep=["age", "admission_date"])
+    pd.testing.assert_frame_equal(a, b)
+    assert list(a.columns[:4]) == ["patient_id", "episode_id", "age", "admission_date"]
+    with pytest.raises(ValueError, match=r"^keep= is for the long layout; a wide output keeps every input column already$"):
+        morbus.score(df, dx="code", keep="age")
+    with pytest.raises(ValueError, match=r"^column 'episode_id' is already in the output; keep it once$"):
+        morbus.score(df, **long, keep="episode_id")
+    with pytest.raises(KeyError, match=r"kept column 'ward' not found; columns in the input: "):
+        morbus.score(df, **long, keep="ward")
+    # the command line says the same
+    code, _, err = run_cli(cli_args("score", LONG_CSV, {**long, "keep": "episode_id"}))
+    assert code == 2 and "column 'episode_id' is already in the output; keep it once" in err
+
+
+@pytest.mark.parametrize("reader", ["pandas-text", "polars", "pyarrow"])
+def test_explain_label_equals_cli(run_cli, reader, tmp_path):
+    opts = {**WIDE, "label": "episode_id", "age": "age"}
+    cli = cli_frame(run_cli, "explain", WIDE_CSV, opts)
+    assert list(cli.columns[:3]) == ["patient_id", "episode_id", "row"]
+    out = morbus.explain(read(reader, WIDE_CSV), **opts)
+    assert_same(out, cli, list(cli.columns))
+    # long layout: the episode's first non-empty value, typed
+    path = long_with_gaps(tmp_path)
+    lopts = {**{k: v for k, v in LONG.items() if k != "lookback"}, "lookback": 365,
+             "label": "died_within_30_days"}
+    code, text, err = run_cli(cli_args("explain", path, lopts))
+    assert code == 0, err
+    cli = pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False)
+    got = morbus.explain(read(reader, path), **lopts)
+    assert_same(got, cli, list(cli.columns))
+    with pytest.raises(ValueError, match=r"^label column 'patient_id' is already a column of explain's output$"):
+        morbus.explain(read(reader, WIDE_CSV), **{**WIDE, "label": "patient_id"})

@@ -110,10 +110,30 @@ frame_columns <- function(data) {
   cols
 }
 
+# The command line's `--lookback` text of a `lookback` argument: days, "all",
+# "charlson=365,hfrs=730", or a named vector or list of days per list (an
+# unnamed element, or the name "*", is the window of the lists not named).
+lookback_text <- function(x) {
+  if (is.null(x)) {
+    return(NULL)
+  }
+  if (is.list(x)) x <- unlist(x)
+  nm <- names(x)
+  if (length(x) > 1 || (!is.null(nm) && nzchar(nm[[1]]))) {
+    if (anyNA(x)) usage_error("lookback must not hold NA", sys.call(-2))
+    days <- if (is.numeric(x)) format(x, scientific = FALSE, trim = TRUE) else as.character(x)
+    if (is.null(nm)) nm <- rep("", length(x))
+    parts <- ifelse(nm == "" | nm == "*", days, paste0(nm, "=", days))
+    return(paste(parts, collapse = ","))
+  }
+  one_text(x, "lookback")
+}
+
 options_list <- function(dx, index, age, id, date, lookback, episode, layout,
                          flags, hierarchy, strict, threads, dx_sep,
                          date_format, exclude_primary, primary, poa,
-                         poa_values, max_unreadable_dates) {
+                         poa_values, max_unreadable_dates, window = NULL,
+                         edition = NULL, keep = NULL, label = NULL) {
   if (is.null(dx)) usage_error("dx is required: the diagnosis columns (names and/or globs such as \"dx*\")", sys.call(-1))
   if (!is.numeric(threads) || length(threads) != 1 || is.na(threads) || threads < 0) {
     usage_error("threads must be a whole number, 0 for one per core", sys.call(-1))
@@ -124,7 +144,11 @@ options_list <- function(dx, index, age, id, date, lookback, episode, layout,
     age = one_text(age, "age"),
     id = one_text(id, "id"),
     date = one_text(date, "date"),
-    lookback = one_text(lookback, "lookback"),
+    lookback = lookback_text(lookback),
+    window = one_text(window, "window"),
+    edition = one_text(edition, "edition"),
+    keep = texts(keep, "keep"),
+    label = one_text(label, "label"),
     episode = one_text(episode, "episode"),
     layout = one_text(layout, "layout"),
     flags = switch_value(flags, "flags"),
@@ -200,7 +224,18 @@ add_columns <- function(data, cols) {
 #'   text (`YYYY-MM-DD`, or `date_format`).
 #' @param lookback Days (a number) or `"all"`: score each episode from the
 #'   same patient's episodes dated within that many days before it and
-#'   itself.
+#'   itself. One window per list: a named vector such as
+#'   `c(charlson = 365, hfrs = 730)` or the command line's text
+#'   `"charlson=365,hfrs=730"` (an unnamed element is the window of the
+#'   lists not named; lists without a window are scored from the episode
+#'   alone). Column names do not change.
+#' @param window `"current-and-earlier"` (the default) or `"earlier-only"`:
+#'   only the patient's episodes dated before the episode's own day count
+#'   (its own codes and those of its other episodes of the same day are
+#'   left out), as `--window` on the command line. Needs `lookback`.
+#' @param edition `"who"` (WHO ICD-10 2019), `"cm"` (ICD-10-CM, April 2026)
+#'   or `"any"` (default): the code sets in which codes are looked up;
+#'   unknown and extended codes are counted in the summary and provenance.
 #' @param episode Long layout: column grouping code rows into episodes.
 #' @param layout `"wide"` (one row per episode) or `"long"` (one code per
 #'   row).
@@ -230,6 +265,11 @@ add_columns <- function(data, cols) {
 #'   default, `Y`, `W`, `1` and blank.
 #' @param max_unreadable_dates Stop (`morbus_data_error`) when more than this
 #'   percentage of the non-empty episode dates cannot be read.
+#' @param keep Long layout: columns carried into each output row after the
+#'   id and episode columns, as `--keep` on the command line: the unit's
+#'   first non-empty value, with the column's type; units whose rows give
+#'   other values are counted in the summary (`rows$disagreeing_units` of
+#'   the provenance), as for date and age, and stop a `strict` run.
 #' @param quiet `FALSE` shows the run's summary as a message.
 #' @return A data frame of the class of `data` (see Details).
 #' @section Errors: conditions of class `morbus_usage_error` (options,
@@ -253,10 +293,14 @@ add_columns <- function(data, cols) {
 #' history <- score(episodes, dx = "dx*", id = "patient_id",
 #'                  date = "admission_date", lookback = 365)
 #'
+#' # one window per list, earlier episodes only
+#' prior <- score(episodes, dx = "dx*", id = "patient_id", date = "admission_date",
+#'                lookback = c(charlson = 365, hfrs = 730), window = "earlier-only")
+#'
 #' # long layout: one code per row, one output row per episode
 #' codes <- read.csv(system.file("extdata", "episodes-long.csv", package = "morbus"))
 #' per_episode <- score(codes, dx = "code", layout = "long", id = "patient_id",
-#'                      episode = "episode_id")
+#'                      episode = "episode_id", keep = "admission_date")
 #' @export
 score <- function(data, dx, index = NULL, age = NULL, id = NULL, date = NULL,
                   lookback = NULL, episode = NULL, layout = "wide",
@@ -264,11 +308,12 @@ score <- function(data, dx, index = NULL, age = NULL, id = NULL, date = NULL,
                   strict = FALSE, threads = 0L, provenance = FALSE,
                   dx_sep = NULL, date_format = NULL, exclude_primary = FALSE,
                   primary = NULL, poa = NULL, poa_values = NULL,
-                  max_unreadable_dates = 1, quiet = TRUE) {
+                  max_unreadable_dates = 1, quiet = TRUE, window = NULL,
+                  keep = NULL, edition = NULL) {
   opts <- options_list(
     dx, index, age, id, date, lookback, episode, layout, flags, hierarchy,
     strict, threads, dx_sep, date_format, exclude_primary, primary, poa,
-    poa_values, max_unreadable_dates
+    poa_values, max_unreadable_dates, window, edition, keep
   )
   switch_value(provenance, "provenance")
   switch_value(quiet, "quiet")
@@ -279,9 +324,13 @@ score <- function(data, dx, index = NULL, age = NULL, id = NULL, date = NULL,
   )
   if (!quiet) message(res$report)
   if (identical(opts$layout, "long")) {
-    keep <- c(opts$id, opts$episode)
-    kept <- lapply(as.list(data)[keep], function(x) x[res$first_rows])
-    out <- frame_like(c(kept, res$columns), data)
+    units <- c(opts$id, opts$episode)
+    kept <- lapply(as.list(data)[units], function(x) x[res$first_rows])
+    # kept columns: the row whose value each unit carries (NA: none)
+    names(res$kept_rows) <- unlist(strsplit(opts$keep, ",", fixed = TRUE))
+    names(res$kept_rows) <- trimws(names(res$kept_rows))
+    carried <- Map(function(name, rows) data[[name]][rows], names(res$kept_rows), res$kept_rows)
+    out <- frame_like(c(kept, carried, res$columns), data)
   } else {
     out <- add_columns(data, res$columns)
   }
@@ -296,11 +345,14 @@ score <- function(data, dx, index = NULL, age = NULL, id = NULL, date = NULL,
 #' `superseded_by:<condition>`, `excluded:primary_diagnosis`,
 #' `excluded:not_present_on_admission`), then a `total` row per episode and
 #' index (and `total_with_age:<age>` with `age`). Takes the options of
-#' [score()] (apart from `flags` and `provenance`).
+#' [score()] (apart from `flags`, `keep` and `provenance`).
 #'
 #' @inheritParams score
+#' @param label A column naming each episode (its value on the episode's
+#'   row; long layout: the episode's first non-empty value), placed after
+#'   the id and episode columns, with its type, as `explain --label`.
 #' @return A data frame of the class of `data`: the id (and episode)
-#'   column(s) when given, then `row` (the episode's row of `data`; in the
+#'   column(s) when given, the `label` column when given, then `row` (the episode's row of `data`; in the
 #'   long layout its first row), `index`, `source_row` and `source_date`
 #'   (the row and date the code came from), `code_as_written`, `code`,
 #'   `condition`, `weight` (integer, or double for weightings with
@@ -310,17 +362,23 @@ score <- function(data, dx, index = NULL, age = NULL, id = NULL, date = NULL,
 #' episodes <- read.csv(system.file("extdata", "episodes.csv", package = "morbus"))
 #' why <- explain(episodes[1:3, ], dx = "dx*", index = "charlson:charlson1987")
 #' why[, c("row", "code", "condition", "weight", "status")]
+#'
+#' # name each episode by its episode_id
+#' named <- explain(episodes[1:3, ], dx = "dx*", label = "episode_id",
+#'                  index = "charlson:charlson1987")
+#' named[named$status == "total", c("episode_id", "weight")]
 #' @export
 explain <- function(data, dx, index = NULL, age = NULL, id = NULL, date = NULL,
                     lookback = NULL, episode = NULL, layout = "wide",
                     hierarchy = TRUE, lists = NULL, strict = FALSE,
                     threads = 0L, dx_sep = NULL, date_format = NULL,
                     exclude_primary = FALSE, primary = NULL, poa = NULL,
-                    poa_values = NULL, max_unreadable_dates = 1, quiet = TRUE) {
+                    poa_values = NULL, max_unreadable_dates = 1, quiet = TRUE,
+                    window = NULL, label = NULL, edition = NULL) {
   opts <- options_list(
     dx, index, age, id, date, lookback, episode, layout, FALSE, hierarchy,
     strict, threads, dx_sep, date_format, exclude_primary, primary, poa,
-    poa_values, max_unreadable_dates
+    poa_values, max_unreadable_dates, window, edition, NULL, label
   )
   switch_value(quiet, "quiet")
   cols <- frame_columns(data)
@@ -331,8 +389,11 @@ explain <- function(data, dx, index = NULL, age = NULL, id = NULL, date = NULL,
   if (!quiet) message(res$report)
   ex <- res$columns
   ex$source_date <- structure(ex$source_date, class = "Date")
-  keep <- c(opts$id, opts$episode)
-  kept <- lapply(as.list(data)[keep], function(x) x[ex$row])
+  units <- c(opts$id, opts$episode)
+  kept <- lapply(as.list(data)[units], function(x) x[ex$row])
+  if (!is.null(opts$label)) {
+    kept[[opts$label]] <- data[[opts$label]][res$label_rows]
+  }
   frame_like(c(kept, ex), data)
 }
 

@@ -213,8 +213,8 @@ The results describe groups of patients for research and risk adjustment, not in
 
 Examples:
   morbus compare demo-data/episodes.csv --dx 'dx*' --outcome died_within_30_days
-  morbus compare demo-data/episodes.csv --dx 'dx*' --outcome died_within_30_days --index charlson,elixhauser --adjust age --adjust-cat sex --report compare.html
-  morbus compare demo-data/episodes.csv --dx 'dx*' --outcome died_within_30_days --id patient_id --date admission_date --lookback 365 --json compare.json")]
+  morbus compare demo-data/episodes.csv --dx 'dx*' --outcome died_within_30_days --id patient_id --date admission_date --lookback 365 --json compare.json
+  morbus compare demo-data/episodes.csv --dx 'dx*' --outcome died_within_30_days --index charlson,elixhauser --adjust-spline age:4 --adjust-cat sex --by site --folds 5 --id patient_id --cluster patient_id --report compare.html")]
 struct CompareArgs {
     #[command(flatten)]
     input: InputArgs,
@@ -227,6 +227,14 @@ struct CompareArgs {
     /// Categorical adjustment columns (e.g. sex), one indicator per level except the first.
     #[arg(long = "adjust-cat", value_name = "COLS")]
     adjust_cat: Vec<String>,
+    /// Numeric adjustment columns entered as restricted cubic splines: COL or COL:K with K
+    /// knots (3 to 7, default 4) at Harrell's quantiles; the column's linear term is included.
+    #[arg(long = "adjust-spline", value_name = "COL[:K]")]
+    adjust_spline: Vec<String>,
+    /// Cluster column (e.g. the patient id): cluster-robust standard errors of the models and
+    /// c-statistic intervals and tests allowing for clusters (Obuchowski 1997).
+    #[arg(long, value_name = "COL")]
+    cluster: Option<String>,
     /// Provider column (e.g. a site): observed/expected ratios per provider under each
     /// index, exact intervals, funnel limits at 95% and 99.8%, agreement between indices.
     #[arg(long, value_name = "COL")]
@@ -982,7 +990,12 @@ fn compare(a: CompareArgs) -> Result<(), Error> {
         outcome: a.outcome.trim().to_string(),
         adjust: split_columns(&a.adjust),
         adjust_categorical: split_columns(&a.adjust_cat),
+        splines: split_columns(&a.adjust_spline)
+            .iter()
+            .map(|s| morbus::compare::parse_spline(s))
+            .collect::<Result<_, _>>()?,
         by: a.by.as_ref().map(|b| b.trim().to_string()),
+        cluster: a.cluster.as_ref().map(|c| c.trim().to_string()),
         min_expected: a.min_expected,
         overdispersion: a.overdispersion.map(|o| match o {
             OverdispersionArg::Multiplicative => morbus::compare::Overdispersion::Multiplicative,
@@ -1010,7 +1023,9 @@ fn compare(a: CompareArgs) -> Result<(), Error> {
     let mut wanted = vec![opts.outcome.clone()];
     wanted.extend(opts.adjust.iter().cloned());
     wanted.extend(opts.adjust_categorical.iter().cloned());
+    wanted.extend(opts.splines.iter().map(|(c, _)| c.clone()));
     wanted.extend(opts.by.iter().cloned());
+    wanted.extend(opts.cluster.iter().cloned());
     if opts.folds.is_some() {
         wanted.extend(cfg.id.iter().cloned());
     }

@@ -173,8 +173,9 @@ pub fn evaluate(y: &[bool], eta: &[f64], fold: &[u32], k: usize) -> OutOfSample 
         ));
     }
     // Ten groups of nearly equal size by predicted risk.
+    // Ties in order of the units (as a stable sort would leave them).
     let mut order: Vec<usize> = (0..y.len()).collect();
-    order.sort_by(|&a, &b| eta[a].total_cmp(&eta[b]));
+    order.sort_unstable_by(|&a, &b| eta[a].total_cmp(&eta[b]).then(a.cmp(&b)));
     let n = y.len();
     let mut calibration = Vec::new();
     for g in 0..10 {

@@ -83,8 +83,16 @@ pub struct CompareOptions {
     pub adjust: Vec<String>,
     /// Categorical adjustment columns (exact names).
     pub adjust_categorical: Vec<String>,
+    /// Numeric adjustment columns entered as restricted cubic splines
+    /// (`--adjust-spline COL[:K]`): the column and its number of knots. A
+    /// column named here need not be in `adjust` (its linear term is
+    /// added either way).
+    pub splines: Vec<(String, usize)>,
     /// Provider column (`--by`): observed/expected ratios per provider.
     pub by: Option<String>,
+    /// Cluster column (`--cluster`, e.g. a patient id): cluster-robust
+    /// standard errors of the models and clustered c-statistic intervals.
+    pub cluster: Option<String>,
     /// Providers with an expected count below this are listed, not judged.
     pub min_expected: f64,
     /// Funnel limits allowing for over-dispersion.
@@ -104,7 +112,9 @@ impl Default for CompareOptions {
             outcome: String::new(),
             adjust: Vec::new(),
             adjust_categorical: Vec::new(),
+            splines: Vec::new(),
             by: None,
+            cluster: None,
             min_expected: DEFAULT_MIN_EXPECTED,
             overdispersion: None,
             folds: None,
@@ -154,6 +164,8 @@ pub struct Comparison {
     pub units: UnitCounts,
     /// The terms every model is adjusted for, in model order.
     pub adjustment: Vec<AdjustmentTerm>,
+    /// Restricted cubic splines of adjustment columns (`--adjust-spline`).
+    pub splines: Vec<Spline>,
     /// The model of the outcome on the adjustment terms alone (when there
     /// are any): the baseline against which each index's model is read.
     pub adjustment_model: Option<Model>,
@@ -169,6 +181,8 @@ pub struct Comparison {
     pub providers: Option<Providers>,
     /// With `--folds`.
     pub cross_validation: Option<CrossValidation>,
+    /// With `--cluster`.
+    pub clusters: Option<Clusters>,
     /// Notes that concern the whole run.
     pub notes: Vec<String>,
     pub caution: String,
@@ -183,6 +197,19 @@ pub struct PairsCompared {
     pub tests: usize,
     /// Pairs among the indices that could be compared: k(k − 1)/2.
     pub tests_if_all_pairs: usize,
+}
+
+/// The clusters of `--cluster`.
+#[derive(Clone, Debug, Serialize)]
+pub struct Clusters {
+    pub column: String,
+    /// Clusters among the analysed units.
+    pub clusters: usize,
+    /// Analysed units without a value in the column: each is a cluster of
+    /// its own.
+    pub units_without_cluster: usize,
+    /// Largest cluster (analysed units).
+    pub largest: usize,
 }
 
 /// How the folds were formed.
@@ -229,6 +256,44 @@ pub struct UnitCounts {
     pub event_share: f64,
 }
 
+/// A restricted cubic spline of a numeric adjustment column.
+#[derive(Clone, Debug, Serialize)]
+pub struct Spline {
+    pub column: String,
+    /// Knot positions, ascending (the quantiles below of the analysed
+    /// units' values).
+    pub knots: Vec<f64>,
+    /// The quantiles the knots are placed at (Harrell 2015, Table 2.3).
+    pub quantiles: Vec<f64>,
+    /// The model terms of the spline: the column itself (linear), then the
+    /// K − 2 nonlinear terms.
+    pub terms: Vec<String>,
+}
+
+/// Parses `COL[:K]` of `--adjust-spline` (K: 3 to 7, default 4).
+pub fn parse_spline(text: &str) -> Result<(String, usize), Error> {
+    let text = text.trim();
+    let (col, k) = match text.rsplit_once(':') {
+        Some((c, k)) if k.trim().chars().all(|ch| ch.is_ascii_digit()) && !k.trim().is_empty() => {
+            (c.trim(), k.trim().parse::<usize>().unwrap_or(0))
+        }
+        _ => (text, stats::DEFAULT_KNOTS),
+    };
+    if col.is_empty() {
+        return Err(Error::Usage(format!(
+            "--adjust-spline '{text}': give a column, optionally with :K knots (e.g. age:4)"
+        )));
+    }
+    if stats::knot_quantiles(k).is_none() {
+        return Err(Error::Usage(format!(
+            "--adjust-spline '{text}': a restricted cubic spline takes {} to {} knots, not {k}",
+            stats::MIN_KNOTS,
+            stats::MAX_KNOTS
+        )));
+    }
+    Ok((col.to_string(), k))
+}
+
 /// One term of the adjustment.
 #[derive(Clone, Debug, Serialize)]
 pub struct AdjustmentTerm {
@@ -236,7 +301,8 @@ pub struct AdjustmentTerm {
     /// categorical column.
     pub name: String,
     pub column: String,
-    /// `numeric` or `categorical`.
+    /// `numeric`, `categorical`, or `spline` (a nonlinear term of a
+    /// restricted cubic spline of `column`).
     pub kind: String,
     /// Categorical: the level this indicator stands for.
     pub level: Option<String>,
@@ -319,6 +385,10 @@ pub struct CStatistic {
     pub std_error: Option<f64>,
     /// 95% interval, estimate ± 1.96·SE clipped to [0, 1].
     pub ci95: Option<[f64; 2]>,
+    /// With `--cluster`: standard error and interval allowing for the
+    /// clusters (Obuchowski 1997).
+    pub cluster_std_error: Option<f64>,
+    pub cluster_ci95: Option<[f64; 2]>,
 }
 
 /// A fitted logistic model.
@@ -344,6 +414,11 @@ pub struct Term {
     pub p_value: f64,
     /// `exp(estimate)`; `None` when it overflows.
     pub odds_ratio: Option<f64>,
+    /// With `--cluster`: the cluster-robust standard error, its z and
+    /// p-value (`null` without clusters).
+    pub cluster_std_error: Option<f64>,
+    pub cluster_z: Option<f64>,
+    pub cluster_p_value: Option<f64>,
 }
 
 /// Comparison of two indices on the same units.
@@ -362,6 +437,19 @@ pub struct PairResult {
 #[derive(Clone, Debug, Serialize)]
 pub struct PairTest {
     pub difference: f64,
+    pub std_error: f64,
+    pub z: f64,
+    pub p_value: f64,
+    pub ci95: [f64; 2],
+    /// With `--cluster`: the same difference tested with the clustered
+    /// covariance (Obuchowski 1997); `null` without clusters or when its
+    /// variance is 0.
+    pub cluster: Option<ClusteredTest>,
+}
+
+/// A difference of c-statistics tested allowing for clusters.
+#[derive(Clone, Debug, Serialize)]
+pub struct ClusteredTest {
     pub std_error: f64,
     pub z: f64,
     pub p_value: f64,
@@ -420,8 +508,30 @@ pub fn compare(
         }
         seen.push(c);
     }
+    // Numeric columns: --adjust, then spline columns not among them.
+    let mut numeric_names: Vec<String> = opts.adjust.clone();
+    for (i, (c, _)) in opts.splines.iter().enumerate() {
+        if *c == opts.outcome || opts.adjust_categorical.contains(c) {
+            return Err(Error::Usage(format!(
+                "--adjust-spline column '{c}' is {}",
+                if *c == opts.outcome {
+                    "the outcome"
+                } else {
+                    "also a categorical adjustment (--adjust-cat)"
+                }
+            )));
+        }
+        if opts.splines[..i].iter().any(|(d, _)| d == c) {
+            return Err(Error::Usage(format!(
+                "--adjust-spline column '{c}' is named twice"
+            )));
+        }
+        if !numeric_names.contains(c) {
+            numeric_names.push(c.clone());
+        }
+    }
     let mut extra = vec![opts.outcome.clone()];
-    extra.extend(opts.adjust.iter().cloned());
+    extra.extend(numeric_names.iter().cloned());
     extra.extend(opts.adjust_categorical.iter().cloned());
     if let Some(k) = opts.folds {
         if !(2..=MAX_FOLDS).contains(&k) {
@@ -436,6 +546,14 @@ pub fn compare(
             opts.min_expected
         )));
     }
+    for (what, col) in [("--by", &opts.by), ("--cluster", &opts.cluster)] {
+        if col.as_deref() == Some(opts.outcome.as_str()) {
+            return Err(Error::Usage(format!(
+                "{what} column '{}' is the outcome",
+                opts.outcome
+            )));
+        }
+    }
     if opts.by.is_none() && opts.overdispersion.is_some() {
         return Err(Error::Usage(
             "--overdispersion needs --by (providers to compare)".into(),
@@ -443,6 +561,10 @@ pub fn compare(
     }
     let by_col = opts.by.as_ref().map(|b| {
         extra.push(b.clone());
+        extra.len() - 1
+    });
+    let cluster_col = opts.cluster.as_ref().map(|c| {
+        extra.push(c.clone());
         extra.len() - 1
     });
     let id_col = match (&opts.folds, &cfg.id) {
@@ -487,7 +609,7 @@ pub fn compare(
     hist.resolve(&crate::pipeline::history::Windows::new(engine, cfg)?);
     let resolved = hist.final_sets(engine);
     let w = hist.words();
-    let nnum = opts.adjust.len();
+    let nnum = numeric_names.len();
     let ncat = opts.adjust_categorical.len();
 
     // The indices: score columns of the engine.
@@ -528,9 +650,18 @@ pub fn compare(
     let mut provider_of: Vec<Option<u32>> = Vec::new();
     let mut group_ids: std::collections::HashMap<Vec<u8>, u32> = Default::default();
     let mut group_of: Vec<Option<u32>> = Vec::new();
+    let mut cluster_ids: std::collections::HashMap<Vec<u8>, u32> = Default::default();
+    let mut cluster_raw: Vec<Option<u32>> = Vec::new();
+    // Looked up before inserting: a key is copied once per distinct value.
     let number = |map: &mut std::collections::HashMap<Vec<u8>, u32>, v: &[u8]| -> u32 {
-        let next = map.len() as u32;
-        *map.entry(v.to_vec()).or_insert(next)
+        match map.get(v) {
+            Some(&id) => id,
+            None => {
+                let id = map.len() as u32;
+                map.insert(v.to_vec(), id);
+                id
+            }
+        }
     };
     'units: for (e, ep) in hist.episodes.iter().enumerate() {
         let outcome = match values_of.get(e, 0) {
@@ -564,7 +695,7 @@ pub fn compare(
                             format!(
                                 "adjustment column '{}' holds '{}', which is not a number \
                                  (for a categorical column use --adjust-cat)",
-                                opts.adjust[k],
+                                numeric_names[k],
                                 lossy(v)
                             ),
                         ))
@@ -604,6 +735,12 @@ pub fn compare(
         }
         if let Some(c) = id_col {
             group_of.push(values_of.get(e, c).map(|(v, _)| number(&mut group_ids, v)));
+        }
+        if let Some(c) = cluster_col {
+            cluster_raw.push(match values_of.get(e, c) {
+                Some((v, _)) if !is_missing(v) => Some(number(&mut cluster_ids, v)),
+                _ => None,
+            });
         }
         for k in 0..nnum {
             numeric[k].push(row_num[k]);
@@ -648,18 +785,62 @@ pub fn compare(
         if col.iter().all(|&v| v == col[0]) {
             notes.push(format!(
                 "adjustment column '{}' takes the single value {} on every analysed unit; left out of the models",
-                opts.adjust[k], col[0]
+                numeric_names[k], col[0]
             ));
             continue;
         }
         adjustment.push(AdjustmentTerm {
-            name: opts.adjust[k].clone(),
-            column: opts.adjust[k].clone(),
+            name: numeric_names[k].clone(),
+            column: numeric_names[k].clone(),
             kind: "numeric".into(),
             level: None,
             reference: None,
         });
         design.push(std::mem::take(&mut numeric[k]));
+    }
+    // Restricted cubic splines: the K − 2 nonlinear terms of each, after
+    // the linear terms, knots at Harrell's quantiles of the analysed units.
+    let mut splines: Vec<Spline> = Vec::new();
+    for (col_name, nk) in &opts.splines {
+        let Some(pos) = adjustment
+            .iter()
+            .position(|t| t.kind == "numeric" && t.column == *col_name)
+        else {
+            notes.push(format!(
+                "no spline of '{col_name}': the column takes one value on every analysed unit"
+            ));
+            continue;
+        };
+        let values = &design[pos];
+        let knots = stats::knots(values, *nk)
+            .map_err(|e| Error::data(None, format!("--adjust-spline {col_name}:{nk}: {e}")))?;
+        let mut terms = vec![col_name.clone()];
+        let mut cols = vec![Vec::with_capacity(n); nk - 2];
+        let mut buf = vec![0.0; nk - 2];
+        for &v in values {
+            stats::spline_terms(v, &knots, &mut buf);
+            for (c, b) in cols.iter_mut().zip(&buf) {
+                c.push(*b);
+            }
+        }
+        for (j, c) in cols.into_iter().enumerate() {
+            let name = format!("{col_name}_spline{}", j + 1);
+            adjustment.push(AdjustmentTerm {
+                name: name.clone(),
+                column: col_name.clone(),
+                kind: "spline".into(),
+                level: None,
+                reference: None,
+            });
+            terms.push(name);
+            design.push(c);
+        }
+        splines.push(Spline {
+            column: col_name.clone(),
+            knots,
+            quantiles: stats::knot_quantiles(*nk).unwrap_or_default().to_vec(),
+            terms,
+        });
     }
     for k in 0..ncat {
         let col_name = &opts.adjust_categorical[k];
@@ -753,6 +934,43 @@ pub fn compare(
         }
         folds::assign_folds(&group_of, kf, opts.seed)
     });
+    // Clusters: units without a value are clusters of their own.
+    let cluster_of: Option<Vec<u32>> = opts.cluster.as_ref().map(|_| {
+        let mut next = cluster_ids.len() as u32;
+        cluster_raw
+            .iter()
+            .map(|c| {
+                c.unwrap_or_else(|| {
+                    next += 1;
+                    next - 1
+                })
+            })
+            .collect()
+    });
+    let clusters = match (&opts.cluster, &cluster_of) {
+        (Some(col), Some(of)) => {
+            let count = of.iter().max().map_or(0, |&m| m as usize + 1);
+            let mut sizes = vec![0usize; count];
+            for &c in of {
+                sizes[c as usize] += 1;
+            }
+            let without = cluster_raw.iter().filter(|c| c.is_none()).count();
+            if without > 0 {
+                notes.push(format!(
+                    "{} analysed units have no value in the --cluster column '{col}': each is \
+                     taken as a cluster of its own",
+                    fmt_count(without as u64)
+                ));
+            }
+            Some(Clusters {
+                column: col.clone(),
+                clusters: count,
+                units_without_cluster: without,
+                largest: sizes.iter().copied().max().unwrap_or(0),
+            })
+        }
+        _ => None,
+    };
     let want_eta = opts.by.is_some();
     let mut tasks = Vec::new();
     if !design.is_empty() {
@@ -761,105 +979,133 @@ pub fn compare(
     tasks.extend(live.iter().map(|&i| Task::Model(i)));
     if !live.is_empty() {
         tasks.push(Task::DeLong);
+        if cluster_of.is_some() {
+            tasks.push(Task::DeLongClustered);
+        }
     }
     tasks.extend(live.iter().map(|&i| Task::Ranks(i)));
     tasks.extend(live.iter().map(|&i| Task::Roc(i)));
     tasks.extend((0..k).map(Task::Summary));
-    // The folds' fits run after the full-data fits, which start them.
-    let mut fold_tasks = Vec::new();
-    if let Some(kf) = opts.folds {
-        for &i in &live {
-            fold_tasks.extend((0..kf).map(|f| Task::Fold(i, f as u32)));
-        }
-    }
-    let full_fits: std::sync::OnceLock<Vec<Option<Vec<f64>>>> = std::sync::OnceLock::new();
     let refs: Vec<&[f64]> = live.iter().map(|&i| scores[i].as_slice()).collect();
+    let nfolds = opts.folds.unwrap_or(0);
     let run_task = |t: &Task| match *t {
-        Task::Baseline => Output::Model(stats::logistic(&y, &design, &adjust_names)),
-        Task::Model(i) => {
-            let mut x = Vec::with_capacity(1 + design.len());
-            x.push(scores[i].clone());
-            x.extend(design.iter().cloned());
-            let mut terms = vec![names[i].clone()];
-            terms.extend(adjust_names.iter().cloned());
-            let fit = stats::logistic(&y, &x, &terms);
-            let eta = match (&fit, want_eta) {
-                (Ok(f), true) => f.linear_predictor(&x).ok(),
+        Task::Baseline => {
+            let cols: Vec<&[f64]> = design.iter().map(Vec::as_slice).collect();
+            let (pat, of_unit) = stats::Patterns::group(&y, &cols);
+            let fit = stats::logistic_patterns(&pat, &adjust_names, None);
+            let robust = match (&fit, &cluster_of) {
+                (Ok(f), Some(cl)) => {
+                    Some(stats::cluster_robust_covariance(f, &pat, &of_unit, &y, cl))
+                }
                 _ => None,
             };
-            Output::Fitted(fit, eta)
+            Output::Model(fit, robust)
         }
-        Task::Fold(i, f) => {
-            let folds = fold_of.as_deref().unwrap_or_default();
-            // Started from the full-data estimates (a near start saves
-            // Newton iterations; the maximum is the same).
-            let start = full_fits.get().and_then(|f| f[i].as_deref());
-            let train: Vec<usize> = (0..n).filter(|&u| folds[u] != f).collect();
-            let test: Vec<usize> = (0..n).filter(|&u| folds[u] == f).collect();
-            let pick =
-                |col: &[f64], at: &[usize]| -> Vec<f64> { at.iter().map(|&u| col[u]).collect() };
-            let mut x = Vec::with_capacity(1 + design.len());
-            x.push(pick(&scores[i], &train));
-            x.extend(design.iter().map(|c| pick(c, &train)));
-            let ty: Vec<bool> = train.iter().map(|&u| y[u]).collect();
+        Task::Model(i) => {
+            // The units grouped by their values of the score and the
+            // adjustment terms: every fit below runs on the groups.
+            let mut cols: Vec<&[f64]> = Vec::with_capacity(1 + design.len());
+            cols.push(&scores[i]);
+            cols.extend(design.iter().map(Vec::as_slice));
+            let (pat, of_unit) = stats::Patterns::group(&y, &cols);
             let mut terms = vec![names[i].clone()];
             terms.extend(adjust_names.iter().cloned());
-            let fit = stats::logistic_from(&ty, &x, &terms, start);
-            drop(x);
-            Output::Fold(fit.and_then(|fit| {
-                let mut t = Vec::with_capacity(1 + design.len());
-                t.push(pick(&scores[i], &test));
-                t.extend(design.iter().map(|c| pick(c, &test)));
-                let eta = fit.linear_predictor(&t)?;
-                Ok(test.into_iter().zip(eta).collect())
-            }))
+            let fit = stats::logistic_patterns(&pat, &terms, None);
+            let Ok(full) = &fit else {
+                return Output::Fitted(fit, None, None, None);
+            };
+            let robust = cluster_of
+                .as_deref()
+                .map(|cl| stats::cluster_robust_covariance(full, &pat, &of_unit, &y, cl));
+            let eta = if want_eta {
+                full.linear_predictor(&pat.columns)
+                    .ok()
+                    .map(|e| of_unit.iter().map(|&j| e[j as usize]).collect())
+            } else {
+                None
+            };
+            let out_of_fold = fold_of.as_deref().map(|folds| {
+                // Per fold, its units and events in each pattern; a fold's
+                // model is fitted on the totals less that fold's counts,
+                // started from the full-data estimates (the same maximum,
+                // fewer Newton iterations).
+                let np = pat.len();
+                let mut fold_units = vec![0.0; nfolds * np];
+                let mut fold_events = vec![0.0; nfolds * np];
+                for (u, (&f, &j)) in folds.iter().zip(&of_unit).enumerate() {
+                    let at = f as usize * np + j as usize;
+                    fold_units[at] += 1.0;
+                    if y[u] {
+                        fold_events[at] += 1.0;
+                    }
+                }
+                let start: Vec<f64> = full.coefficients.iter().map(|c| c.estimate).collect();
+                let mut fold_eta: Vec<Vec<f64>> = Vec::with_capacity(nfolds);
+                let mut train = pat.clone();
+                for f in 0..nfolds {
+                    let range = f * np..(f + 1) * np;
+                    for (j, (fu, fe)) in fold_units[range.clone()]
+                        .iter()
+                        .zip(&fold_events[range])
+                        .enumerate()
+                    {
+                        train.units[j] = pat.units[j] - fu;
+                        train.events[j] = pat.events[j] - fe;
+                    }
+                    let fit = stats::logistic_patterns(&train, &terms, Some(&start))?;
+                    fold_eta.push(fit.linear_predictor(&pat.columns)?);
+                }
+                let eta: Vec<f64> = folds
+                    .iter()
+                    .zip(&of_unit)
+                    .map(|(&f, &j)| fold_eta[f as usize][j as usize])
+                    .collect();
+                Ok(folds::evaluate(&y, &eta, folds, nfolds))
+            });
+            Output::Fitted(fit, eta, out_of_fold, robust)
         }
         Task::DeLong => Output::DeLong(stats::delong(&refs, &y)),
+        Task::DeLongClustered => Output::DeLong(stats::delong_clustered(
+            &refs,
+            &y,
+            cluster_of.as_deref().unwrap_or_default(),
+        )),
         Task::Ranks(i) => Output::Ranks(stats::average_ranks(&scores[i])),
         Task::Roc(i) => Output::Roc(stats::roc_curve(&scores[i], &y)),
         Task::Summary(i) => Output::Summary(stats::Summary::of(&scores[i])),
     };
     let outputs = par_map(&tasks, cfg.threads, run_task);
     let mut baseline = None;
+    let mut baseline_robust = None;
+    let mut robusts: Vec<Option<Result<stats::ClusterCovariance, StatsError>>> = vec![None; k];
+    let mut clustered_result = None;
     let mut models: Vec<Option<Result<stats::LogisticFit, StatsError>>> = vec![None; k];
     let mut etas: Vec<Option<Vec<f64>>> = vec![None; k];
-    let mut fold_etas: Vec<Vec<FoldResultOf>> = vec![Vec::new(); k];
+    let mut fold_etas: Vec<Option<Result<OutOfSample, StatsError>>> = vec![None; k];
     let mut joint_result = None;
     let mut ranks: Vec<Option<Result<Vec<f64>, StatsError>>> = vec![None; k];
     let mut rocs: Vec<Option<RocResult>> = vec![None; k];
     let mut sums: Vec<Option<stats::Summary>> = vec![None; k];
     for (t, o) in tasks.iter().zip(outputs) {
         match (*t, o) {
-            (Task::Baseline, Output::Model(m)) => baseline = Some(m),
-            (Task::Model(i), Output::Fitted(m, e)) => {
+            (Task::Baseline, Output::Model(m, r)) => {
+                baseline = Some(m);
+                baseline_robust = r;
+            }
+            (Task::Model(i), Output::Fitted(m, e, f, r)) => {
                 models[i] = Some(m);
                 etas[i] = e;
+                fold_etas[i] = f;
+                robusts[i] = r;
             }
             (Task::DeLong, Output::DeLong(d)) => joint_result = Some(d),
+            (Task::DeLongClustered, Output::DeLong(d)) => clustered_result = Some(d),
             (Task::Ranks(i), Output::Ranks(r)) => ranks[i] = Some(r),
             (Task::Roc(i), Output::Roc(r)) => rocs[i] = Some(r),
             (Task::Summary(i), Output::Summary(r)) => {
                 sums[i] = Some(r.map_err(|e| Error::data(None, e.to_string()))?)
             }
             _ => {}
-        }
-    }
-    if !fold_tasks.is_empty() {
-        let starts = models
-            .iter()
-            .map(|m| match m {
-                Some(Ok(f)) => Some(f.coefficients.iter().map(|c| c.estimate).collect()),
-                _ => None,
-            })
-            .collect();
-        let _ = full_fits.set(starts);
-        for (t, o) in fold_tasks
-            .iter()
-            .zip(par_map(&fold_tasks, cfg.threads, run_task))
-        {
-            if let (Task::Fold(i, _), Output::Fold(r)) = (*t, o) {
-                fold_etas[i].push(r);
-            }
         }
     }
 
@@ -952,8 +1198,26 @@ pub fn compare(
         }
         None => None,
     };
+    let clustered = match clustered_result {
+        Some(Ok(d)) => Some(d),
+        Some(Err(e)) => {
+            notes.push(format!(
+                "no clustered c-statistic variance: {e}; intervals and tests allowing for \
+                 the clusters are not given"
+            ));
+            None
+        }
+        None => None,
+    };
     for (j, &i) in live.iter().enumerate() {
         let r = &mut indices[i];
+        let (cluster_std_error, cluster_ci95) = match &clustered {
+            Some(c) => (
+                Some(c.covariance[j][j].max(0.0).sqrt()),
+                Some([c.ci95[j].0, c.ci95[j].1]),
+            ),
+            None => (None, None),
+        };
         match &joint {
             Some(d) => {
                 let se = d.covariance[j][j].max(0.0).sqrt();
@@ -968,6 +1232,8 @@ pub fn compare(
                     estimate: d.aucs[j],
                     std_error: Some(se),
                     ci95: Some([d.ci95[j].0, d.ci95[j].1]),
+                    cluster_std_error,
+                    cluster_ci95,
                 });
             }
             None => match stats::auc(&scores[i], &y) {
@@ -976,6 +1242,8 @@ pub fn compare(
                         estimate: c,
                         std_error: None,
                         ci95: None,
+                        cluster_std_error: None,
+                        cluster_ci95: None,
                     })
                 }
                 Err(e) => r.notes.push(format!("no c-statistic: {e}")),
@@ -990,13 +1258,16 @@ pub fn compare(
     match baseline {
         Some(Ok(f)) => {
             base_ll = Some((f.log_likelihood, "adjustment"));
-            adjustment_model = Some(model_of(&f))
+            adjustment_model = Some(model_of(
+                &f,
+                robust_or_note(baseline_robust, &mut adjustment_notes),
+            ))
         }
         Some(Err(e)) => adjustment_notes.push(model_note(&e)),
         None => {}
     }
     let mut fitted: Vec<bool> = vec![false; k];
-    for (i, m) in models.into_iter().enumerate() {
+    for (i, (m, robust)) in models.into_iter().zip(robusts).enumerate() {
         match m {
             Some(Ok(f)) => {
                 fitted[i] = true;
@@ -1017,7 +1288,8 @@ pub fn compare(
                         });
                     }
                 }
-                indices[i].model = Some(model_of(&f))
+                let robust = robust_or_note(robust, &mut indices[i].notes);
+                indices[i].model = Some(model_of(&f, robust))
             }
             Some(Err(e)) => indices[i].notes.push(model_note(&e)),
             None => {}
@@ -1027,23 +1299,13 @@ pub fn compare(
     // Out-of-sample figures.
     let cross_validation = match (&fold_of, opts.folds) {
         (Some(fo), Some(kf)) => {
-            for (i, results) in fold_etas.into_iter().enumerate() {
-                if results.is_empty() {
-                    continue;
-                }
-                let mut eta = vec![0.0; n];
-                let mut failed = None;
-                for r in results {
-                    match r {
-                        Ok(v) => v.into_iter().for_each(|(u, e)| eta[u] = e),
-                        Err(e) => failed = Some(e),
-                    }
-                }
-                match failed {
-                    Some(e) => indices[i].notes.push(format!(
+            for (i, result) in fold_etas.into_iter().enumerate() {
+                match result {
+                    None => {}
+                    Some(Err(e)) => indices[i].notes.push(format!(
                         "no cross-validated figures: a fold's model failed: {e}"
                     )),
-                    None => indices[i].out_of_sample = Some(folds::evaluate(&y, &eta, fo, kf)),
+                    Some(Ok(oos)) => indices[i].out_of_sample = Some(oos),
                 }
             }
             let mut fold_units = vec![0usize; kf];
@@ -1172,12 +1434,23 @@ pub fn compare(
                 let jb = live.iter().position(|&i| i == b).unwrap_or(0);
                 match d.compare(ja, jb) {
                     Ok(t) => {
+                        let cluster =
+                            clustered
+                                .as_ref()
+                                .and_then(|c| c.compare(ja, jb).ok())
+                                .map(|c| ClusteredTest {
+                                    std_error: c.std_error,
+                                    z: c.z,
+                                    p_value: c.p_value,
+                                    ci95: [c.ci95.0, c.ci95.1],
+                                });
                         p.delong = Some(PairTest {
                             difference: t.difference,
                             std_error: t.std_error,
                             z: t.z,
                             p_value: t.p_value,
                             ci95: [t.ci95.0, t.ci95.1],
+                            cluster,
                         })
                     }
                     Err(StatsError::ZeroVariance { .. }) => p.notes.push(
@@ -1222,6 +1495,7 @@ pub fn compare(
             hierarchy: engine.options().hierarchy,
             units,
             adjustment,
+            splines,
             adjustment_model,
             adjustment_notes,
             indices,
@@ -1229,6 +1503,7 @@ pub fn compare(
             pairs_compared,
             providers,
             cross_validation,
+            clusters,
             notes,
             caution: CAUTION.to_string(),
         },
@@ -1237,30 +1512,35 @@ pub fn compare(
 }
 
 type RocResult = Result<Vec<(f64, f64)>, StatsError>;
-/// Out-of-fold linear predictors of one fold: (unit, η).
-type FoldResultOf = Result<Vec<(usize, f64)>, StatsError>;
 
 /// One piece of the numerics.
 #[derive(Clone, Copy)]
 enum Task {
     /// The model on the adjustment terms alone.
     Baseline,
+    /// Index i's model, with its cross-validation fits when asked.
     Model(usize),
-    /// Index i's model without fold f, predicting fold f.
-    Fold(usize, u32),
     DeLong,
+    /// The c-statistics' covariance allowing for clusters (Obuchowski).
+    DeLongClustered,
     /// Average ranks of a score (for Spearman's ρ).
     Ranks(usize),
     Roc(usize),
     Summary(usize),
 }
 
+type Robust = Option<Result<stats::ClusterCovariance, StatsError>>;
+
 enum Output {
-    Model(Result<stats::LogisticFit, StatsError>),
-    /// A model with the linear predictor of every unit (when asked).
-    Fitted(Result<stats::LogisticFit, StatsError>, Option<Vec<f64>>),
-    /// Out-of-fold linear predictors: (unit, η).
-    Fold(Result<Vec<(usize, f64)>, StatsError>),
+    Model(Result<stats::LogisticFit, StatsError>, Robust),
+    /// A model with the linear predictor of every unit (when asked) and the
+    /// out-of-fold figures (with `--folds`).
+    Fitted(
+        Result<stats::LogisticFit, StatsError>,
+        Option<Vec<f64>>,
+        Option<Result<OutOfSample, StatsError>>,
+        Robust,
+    ),
     DeLong(Result<stats::DeLongResult, StatsError>),
     Ranks(Result<Vec<f64>, StatsError>),
     Roc(RocResult),
@@ -1444,18 +1724,42 @@ fn model_note(e: &StatsError) -> String {
     }
 }
 
-fn model_of(f: &stats::LogisticFit) -> Model {
+/// The cluster-robust covariance, or `None` with a note saying why not.
+fn robust_or_note(
+    r: Option<Result<stats::ClusterCovariance, StatsError>>,
+    notes: &mut Vec<String>,
+) -> Option<stats::ClusterCovariance> {
+    match r {
+        Some(Ok(c)) => Some(c),
+        Some(Err(e)) => {
+            notes.push(format!("no cluster-robust standard errors: {e}"));
+            None
+        }
+        None => None,
+    }
+}
+
+fn model_of(f: &stats::LogisticFit, robust: Option<stats::ClusterCovariance>) -> Model {
+    let robust_se = robust.as_ref().map(|r| r.std_errors());
     Model {
         terms: f
             .coefficients
             .iter()
-            .map(|c| Term {
-                name: c.name.clone(),
-                estimate: c.estimate,
-                std_error: c.std_error,
-                z: c.z,
-                p_value: c.p_value,
-                odds_ratio: Some(c.estimate.exp()).filter(|v| v.is_finite()),
+            .enumerate()
+            .map(|(a, c)| {
+                let se = robust_se.as_ref().map(|s| s[a]).filter(|s| *s > 0.0);
+                let z = se.map(|s| c.estimate / s);
+                Term {
+                    name: c.name.clone(),
+                    estimate: c.estimate,
+                    std_error: c.std_error,
+                    z: c.z,
+                    p_value: c.p_value,
+                    odds_ratio: Some(c.estimate.exp()).filter(|v| v.is_finite()),
+                    cluster_std_error: se,
+                    cluster_z: z,
+                    cluster_p_value: z.map(stats::two_sided_p),
+                }
             })
             .collect(),
         c_statistic: f.c_statistic,

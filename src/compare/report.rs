@@ -376,11 +376,22 @@ fn prevalence_svg(ix: &IndexResult, colour: &str) -> String {
     s
 }
 
-fn model_table_rows(label: &str, m: &Model, out: &mut String) {
+fn model_table_rows(label: &str, m: &Model, clustered: bool, out: &mut String) {
     for (j, t) in m.terms.iter().enumerate() {
+        let (cse, cp) = if clustered {
+            (
+                format!(
+                    "<td>{}</td>",
+                    t.cluster_std_error.map_or("–".into(), |v| fixed(v, 4))
+                ),
+                format!("<td>{}</td>", t.cluster_p_value.map_or("–".into(), p_value)),
+            )
+        } else {
+            (String::new(), String::new())
+        };
         let _ = write!(
             out,
-            "<tr{}><td>{}</td><td class=\"l\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            "<tr{}><td>{}</td><td class=\"l\">{}</td><td>{}</td><td>{}</td>{cse}<td>{}</td><td>{}</td>{cp}<td>{}</td><td>{}</td></tr>",
             if j == 0 { " class=\"first\"" } else { "" },
             if j == 0 { esc(label) } else { String::new() },
             esc(&t.name),
@@ -489,6 +500,26 @@ pub fn html_report(c: &Comparison) -> String {
             }
         }
     }
+    for sp in &c.splines {
+        let _ = write!(
+            h,
+            " <code>{}</code>: restricted cubic spline with {} knots at {} (quantiles {}; Harrell 2015), terms {}.",
+            esc(&sp.column),
+            sp.knots.len(),
+            sp.knots.iter().map(|v| fmt_num(*v)).collect::<Vec<_>>().join(", "),
+            sp.quantiles.iter().map(|v| fmt_num(*v)).collect::<Vec<_>>().join(", "),
+            esc(&sp.terms.join(", "))
+        );
+    }
+    if let Some(cl) = &c.clusters {
+        let _ = write!(
+            h,
+            " Clusters: <code>{}</code>, {} clusters (largest {} units).",
+            esc(&cl.column),
+            fmt_count(cl.clusters as u64),
+            fmt_count(cl.largest as u64)
+        );
+    }
     h.push_str("</p>");
     let _ = write!(
         h,
@@ -500,8 +531,24 @@ pub fn html_report(c: &Comparison) -> String {
     h.push_str("<h2>Discrimination</h2><div class=\"row\"><figure>");
     h.push_str(&roc_svg(c));
     h.push_str("<figcaption>Empirical ROC curve of each score; dashed grey: chance.</figcaption></figure><div>");
-    h.push_str("<table><thead><tr><th>index</th><th>c-statistic</th><th>95% CI</th><th>model c</th><th>model AIC</th><th>added value, χ² (1 df)</th></tr></thead><tbody>");
+    let clustered = c.clusters.is_some();
+    let _ = write!(
+        h,
+        "<table><thead><tr><th>index</th><th>c-statistic</th><th>95% CI</th>{}<th>model c</th><th>model AIC</th><th>added value, χ² (1 df)</th></tr></thead><tbody>",
+        if clustered { "<th>95% CI (clusters)</th>" } else { "" }
+    );
     for (i, ix) in c.indices.iter().enumerate() {
+        let cci = if clustered {
+            format!(
+                "<td>{}</td>",
+                ix.c_statistic.as_ref().and_then(|s| s.cluster_ci95).map_or(
+                    "–".into(),
+                    |[a, b]| format!("{} – {}", fixed(a, 3), fixed(b, 3))
+                )
+            )
+        } else {
+            String::new()
+        };
         let (cs, ci) = match &ix.c_statistic {
             Some(s) => (
                 fixed(s.estimate, 3),
@@ -519,7 +566,7 @@ pub fn html_report(c: &Comparison) -> String {
         });
         let _ = write!(
             h,
-            "<tr><td>{}{}</td><td>{cs}</td><td>{ci}</td><td>{mc}</td><td>{aic}</td><td>{lr}</td></tr>",
+            "<tr><td>{}{}</td><td>{cs}</td><td>{ci}</td>{cci}<td>{mc}</td><td>{aic}</td><td>{lr}</td></tr>",
             line_key(i),
             esc(&ix.name)
         );
@@ -527,12 +574,21 @@ pub fn html_report(c: &Comparison) -> String {
     if let Some(m) = &c.adjustment_model {
         let _ = write!(
             h,
-            "<tr><td class=\"sub\">adjustment terms alone</td><td>–</td><td>–</td><td>{}</td><td>{}</td><td>–</td></tr>",
+            "<tr><td class=\"sub\">adjustment terms alone</td><td>–</td><td>–</td>{}<td>{}</td><td>{}</td><td>–</td></tr>",
+            if clustered { "<td>–</td>" } else { "" },
             fixed(m.c_statistic, 3),
             fixed(m.aic, 1)
         );
     }
-    h.push_str("</tbody></table><p class=\"lede\" style=\"font-size:13px\">95% confidence intervals by the method of DeLong et al. (1988). The c-statistic is the chance that a unit with the outcome scores higher than one without (ties count half). The model columns refer to the logistic model of the outcome on the score and the adjustment terms; a lower AIC is a better fit for the same units. Added value: likelihood-ratio test of the model with the score against the model without it (the adjustment terms alone, or the intercept).</p></div></div>");
+    let _ = write!(
+        h,
+        "</tbody></table><p class=\"lede\" style=\"font-size:13px\">95% confidence intervals by the method of DeLong et al. (1988). The c-statistic is the chance that a unit with the outcome scores higher than one without (ties count half). The model columns refer to the logistic model of the outcome on the score and the adjustment terms; a lower AIC is a better fit for the same units. Added value: likelihood-ratio test of the model with the score against the model without it (the adjustment terms alone, or the intercept).{}</p></div></div>",
+        if clustered {
+            " Clustered intervals: Obuchowski (1997), allowing for units of one cluster being alike; the likelihood-ratio test assumes independent units."
+        } else {
+            ""
+        }
+    );
 
     if let Some(cv) = &c.cross_validation {
         out_of_sample_html(c, cv, &mut h);
@@ -556,7 +612,11 @@ pub fn html_report(c: &Comparison) -> String {
                 ),
             }
         );
-        h.push_str("<table><thead><tr><th>a</th><th class=\"l\">b</th><th>c(a) − c(b)</th><th>95% CI</th><th>p (DeLong)</th><th>Spearman ρ</th></tr></thead><tbody>");
+        let _ = write!(
+            h,
+            "<table><thead><tr><th>a</th><th class=\"l\">b</th><th>c(a) − c(b)</th><th>95% CI</th><th>p (DeLong)</th>{}<th>Spearman ρ</th></tr></thead><tbody>",
+            if clustered { "<th>p (clusters)</th>" } else { "" }
+        );
         for p in &c.pairs {
             let (d, ci, pv) =
                 p.delong
@@ -568,9 +628,20 @@ pub fn html_report(c: &Comparison) -> String {
                             p_value(t.p_value),
                         )
                     });
+            let cp = if clustered {
+                format!(
+                    "<td>{}</td>",
+                    p.delong
+                        .as_ref()
+                        .and_then(|t| t.cluster.as_ref())
+                        .map_or("–".into(), |t| p_value(t.p_value))
+                )
+            } else {
+                String::new()
+            };
             let _ = write!(
                 h,
-                "<tr><td>{}</td><td class=\"l\">{}</td><td>{d}</td><td>{ci}</td><td>{pv}</td><td>{}</td></tr>",
+                "<tr><td>{}</td><td class=\"l\">{}</td><td>{d}</td><td>{ci}</td><td>{pv}</td>{cp}<td>{}</td></tr>",
                 esc(&p.a),
                 esc(&p.b),
                 p.spearman.map_or("–".into(), |r| fixed(r, 3))
@@ -584,23 +655,37 @@ pub fn html_report(c: &Comparison) -> String {
     }
 
     // Models.
-    h.push_str("<h2>Logistic models</h2><table><thead><tr><th>model</th><th class=\"l\">term</th><th>estimate</th><th>SE</th><th>odds ratio</th><th>p</th><th>c</th><th>AIC</th></tr></thead><tbody>");
+    let _ = write!(
+        h,
+        "<h2>Logistic models</h2><table><thead><tr><th>model</th><th class=\"l\">term</th><th>estimate</th><th>SE</th>{}<th>odds ratio</th><th>p</th>{}<th>c</th><th>AIC</th></tr></thead><tbody>",
+        if clustered { "<th>cluster SE</th>" } else { "" },
+        if clustered { "<th>cluster p</th>" } else { "" }
+    );
     if let Some(m) = &c.adjustment_model {
-        model_table_rows("adjustment only", m, &mut h);
+        model_table_rows("adjustment only", m, clustered, &mut h);
     }
     for ix in &c.indices {
         match &ix.model {
-            Some(m) => model_table_rows(&ix.name, m, &mut h),
+            Some(m) => model_table_rows(&ix.name, m, clustered, &mut h),
             None => {
                 let _ = write!(
                     h,
-                    "<tr class=\"first\"><td>{}</td><td class=\"l\" colspan=\"7\">no model (see notes)</td></tr>",
-                    esc(&ix.name)
+                    "<tr class=\"first\"><td>{}</td><td class=\"l\" colspan=\"{}\">no model (see notes)</td></tr>",
+                    esc(&ix.name),
+                    if clustered { 9 } else { 7 }
                 );
             }
         }
     }
-    h.push_str("</tbody></table><p class=\"lede\">Estimates are log odds ratios per point of the score (or per unit of an adjustment term); standard errors are Wald standard errors from the inverse information matrix.</p>");
+    let _ = write!(
+        h,
+        "</tbody></table><p class=\"lede\">Estimates are log odds ratios per point of the score (or per unit of an adjustment term); standard errors are Wald standard errors from the inverse information matrix.{}</p>",
+        if clustered {
+            " Cluster SE: cluster-robust (sandwich) standard errors with the small-sample factor G/(G − 1) · (N − 1)/(N − K)."
+        } else {
+            ""
+        }
+    );
 
     // Distributions.
     h.push_str("<h2>Score distributions</h2><table><thead><tr><th>index</th><th>mean</th><th>SD</th><th>min</th><th>Q1</th><th>median</th><th>Q3</th><th>max</th><th>score 0</th><th>distinct</th></tr></thead><tbody>");

@@ -1,6 +1,6 @@
 //! The plain-text layout of a comparison, as printed on standard output.
 
-use super::{fmt_count, Comparison, Distribution, Model};
+use super::{fmt_count, fmt_num, Comparison, Distribution, Model};
 
 /// The five-number summary with one number of decimals for all five: none
 /// when every one is whole, else two.
@@ -96,9 +96,9 @@ fn wrap(text: &str, indent: &str, width: usize) -> String {
     out
 }
 
-fn model_rows(label: &str, m: &Model, rows: &mut Vec<Vec<String>>) {
+fn model_rows(label: &str, m: &Model, clustered: bool, rows: &mut Vec<Vec<String>>) {
     for (i, t) in m.terms.iter().enumerate() {
-        rows.push(vec![
+        let mut row = vec![
             if i == 0 {
                 label.to_string()
             } else {
@@ -123,7 +123,12 @@ fn model_rows(label: &str, m: &Model, rows: &mut Vec<Vec<String>>) {
             } else {
                 String::new()
             },
-        ]);
+        ];
+        if clustered {
+            row.insert(6, t.cluster_p_value.map_or("-".into(), p_value));
+            row.insert(4, t.cluster_std_error.map_or("-".into(), |v| fixed(v, 4)));
+        }
+        rows.push(row);
     }
 }
 
@@ -201,6 +206,24 @@ pub fn text_table(c: &Comparison) -> String {
             o.push_str(&format!("  ({col}: reference level '{r}')\n"));
         }
     }
+    for sp in &c.splines {
+        o.push_str(&format!(
+            "  ({}: restricted cubic spline, {} knots at {} = quantiles {} (Harrell 2015); terms {})\n",
+            sp.column,
+            sp.knots.len(),
+            sp.knots.iter().map(|v| fmt_num(*v)).collect::<Vec<_>>().join(", "),
+            sp.quantiles.iter().map(|v| fmt_num(*v)).collect::<Vec<_>>().join(", "),
+            sp.terms.join(", ")
+        ));
+    }
+    if let Some(cl) = &c.clusters {
+        o.push_str(&format!(
+            "Clusters: '{}', {} clusters (largest {} units): cluster-robust standard errors for the models, c-statistic intervals and tests allowing for clusters (Obuchowski 1997)\n",
+            cl.column,
+            fmt_count(cl.clusters as u64),
+            fmt_count(cl.largest as u64)
+        ));
+    }
 
     o.push_str("\nDiscrimination: c-statistic of each score alone (95% CI by DeLong et al. 1988), and of its model\n");
     let rows: Vec<Vec<String>> = c
@@ -220,14 +243,27 @@ pub fn text_table(c: &Comparison) -> String {
                 Some(m) => (fixed(m.c_statistic, 3), fixed(m.aic, 1)),
                 None => ("-".into(), "-".into()),
             };
-            vec![i.name.clone(), cs, ci, mc, aic]
+            let mut row = vec![i.name.clone(), cs, ci, mc, aic];
+            if c.clusters.is_some() {
+                row.insert(
+                    3,
+                    i.c_statistic
+                        .as_ref()
+                        .and_then(|s| s.cluster_ci95)
+                        .map_or("-".into(), |[a, b]| {
+                            format!("{} to {}", fixed(a, 3), fixed(b, 3))
+                        }),
+                );
+            }
+            row
         })
         .collect();
-    o.push_str(&grid(
-        &["index", "c", "95% CI", "model c", "model AIC"],
-        &[true],
-        &rows,
-    ));
+    let mut head = vec!["index", "c", "95% CI"];
+    if c.clusters.is_some() {
+        head.push("95% CI (clusters)");
+    }
+    head.extend(["model c", "model AIC"]);
+    o.push_str(&grid(&head, &[true], &rows));
     if let Some(m) = &c.adjustment_model {
         o.push_str(&format!(
             "  adjustment terms alone: c {}, AIC {}\n",
@@ -360,41 +396,35 @@ pub fn text_table(c: &Comparison) -> String {
         &rows,
     ));
 
-    o.push_str("\nLogistic models (Wald standard errors)\n");
+    let clustered = c.clusters.is_some();
+    o.push_str(if clustered {
+        "\nLogistic models (Wald standard errors, and cluster-robust ones)\n"
+    } else {
+        "\nLogistic models (Wald standard errors)\n"
+    });
     let mut rows = Vec::new();
     if let Some(m) = &c.adjustment_model {
-        model_rows("(adjustment only)", m, &mut rows);
+        model_rows("(adjustment only)", m, clustered, &mut rows);
     }
     for i in &c.indices {
         if let Some(m) = &i.model {
-            model_rows(&i.name, m, &mut rows);
+            model_rows(&i.name, m, clustered, &mut rows);
         } else {
-            rows.push(vec![
-                i.name.clone(),
-                "(no model: see notes)".into(),
-                String::new(),
-                String::new(),
-                String::new(),
-                String::new(),
-                String::new(),
-                String::new(),
-            ]);
+            let mut row = vec![i.name.clone(), "(no model: see notes)".into()];
+            row.resize(if clustered { 10 } else { 8 }, String::new());
+            rows.push(row);
         }
     }
-    o.push_str(&grid(
-        &[
-            "model",
-            "term",
-            "estimate",
-            "SE",
-            "odds ratio",
-            "p",
-            "c",
-            "AIC",
-        ],
-        &[true, true],
-        &rows,
-    ));
+    let mut head = vec!["model", "term", "estimate", "SE"];
+    if clustered {
+        head.push("cluster SE");
+    }
+    head.extend(["odds ratio", "p"]);
+    if clustered {
+        head.push("cluster p");
+    }
+    head.extend(["c", "AIC"]);
+    o.push_str(&grid(&head, &[true, true], &rows));
 
     if !c.pairs.is_empty() {
         o.push_str(
@@ -423,20 +453,31 @@ pub fn text_table(c: &Comparison) -> String {
                     ),
                     None => ("-".into(), "-".into(), "-".into()),
                 };
-                vec![
+                let mut row = vec![
                     format!("{} vs {}", p.a, p.b),
                     d,
                     ci,
                     pv,
                     p.spearman.map_or("-".into(), |r| fixed(r, 3)),
-                ]
+                ];
+                if clustered {
+                    row.insert(
+                        4,
+                        p.delong
+                            .as_ref()
+                            .and_then(|t| t.cluster.as_ref())
+                            .map_or("-".into(), |t| p_value(t.p_value)),
+                    );
+                }
+                row
             })
             .collect();
-        o.push_str(&grid(
-            &["pair (a vs b)", "c(a) - c(b)", "95% CI", "p", "Spearman"],
-            &[true],
-            &rows,
-        ));
+        let mut head = vec!["pair (a vs b)", "c(a) - c(b)", "95% CI", "p"];
+        if clustered {
+            head.push("p (clusters)");
+        }
+        head.push("Spearman");
+        o.push_str(&grid(&head, &[true], &rows));
     }
 
     if let Some(p) = &c.providers {

@@ -219,56 +219,10 @@ fn clipped_interval(centre: f64, half_width: f64, lo: f64, hi: f64) -> (f64, f64
 /// # Ok::<(), morbus::stats::StatsError>(())
 /// ```
 pub fn delong(scores: &[&[f64]], outcome: &[bool]) -> Result<DeLongResult, StatsError> {
-    if scores.is_empty() {
-        return Err(StatsError::InvalidArgument(
-            "DeLong needs at least one score".to_string(),
-        ));
-    }
-    let (m, n) = count_outcome(outcome)?;
-    for (what, count) in [("positives", m), ("negatives", n)] {
-        if count < 2 {
-            return Err(StatsError::TooFewObservations {
-                what: format!("the DeLong variance ({what})"),
-                needed: 2,
-                found: count,
-            });
-        }
-    }
-    let k = scores.len();
-    let (mf, nf) = (m as f64, n as f64);
-    let mut aucs = Vec::with_capacity(k);
-    let mut v10 = Vec::with_capacity(k); // k × m, positives in input order
-    let mut v01 = Vec::with_capacity(k); // k × n, negatives in input order
-    for (r, s) in scores.iter().enumerate() {
-        let groups = SortedGroups::new(&format!("score {r}"), s, outcome)?;
-        let (pos, neg) = (&groups.positives, &groups.negatives);
-        let mut p10 = Vec::with_capacity(m);
-        let mut p01 = Vec::with_capacity(n);
-        for (&x, &y) in s.iter().zip(outcome) {
-            let key = super::order_key(x);
-            if y {
-                // negatives strictly below + half of those tied
-                let below = neg.partition_point(|&q| q < key);
-                let not_above = neg.partition_point(|&q| q <= key);
-                p10.push((below + not_above) as f64 / (2.0 * nf));
-            } else {
-                // positives strictly above + half of those tied
-                let below = pos.partition_point(|&q| q < key);
-                let not_above = pos.partition_point(|&q| q <= key);
-                p01.push((2 * m - below - not_above) as f64 / (2.0 * mf));
-            }
-        }
-        // θ from the exact integer pair count (bit-identical to `auc`); the
-        // mean of the V10 equals it up to rounding.
-        aucs.push(groups.twice_u() as f64 / (2.0 * mf * nf));
-        v10.push(p10);
-        v01.push(p01);
-    }
-    // Centre the placement values once.
-    for (r, theta) in aucs.iter().enumerate() {
-        v10[r].iter_mut().for_each(|v| *v -= theta);
-        v01[r].iter_mut().for_each(|v| *v -= theta);
-    }
+    let pl = Placements::new(scores, outcome)?;
+    let k = pl.aucs.len();
+    let (mf, nf) = (pl.m as f64, pl.n as f64);
+    let (v10, v01) = (&pl.v10, &pl.v01);
     let mut covariance = vec![vec![0.0; k]; k];
     for r in 0..k {
         for s in r..k {
@@ -279,16 +233,195 @@ pub fn delong(scores: &[&[f64]], outcome: &[bool]) -> Result<DeLongResult, Stats
             covariance[s][r] = c;
         }
     }
-    let ci95 = (0..k)
-        .map(|r| clipped_interval(aucs[r], Z_975 * covariance[r][r].max(0.0).sqrt(), 0.0, 1.0))
+    Ok(pl.result(covariance))
+}
+
+/// [`delong`] for units grouped in clusters (several episodes of one
+/// patient, say), with the covariance of Obuchowski NA. Nonparametric
+/// analysis of clustered ROC curve data. Biometrics 1997;53:567-78.
+///
+/// `cluster[u]` numbers unit u's cluster (any `u32`s; clusters need not be
+/// contiguous). With I clusters, I₁₀ of them holding a unit with the
+/// outcome and I₀₁ one without, M and N units of each outcome, and for
+/// cluster i and score r the sums of its centred placement values
+/// Aᵣᵢ = Σ (V10ᵣ(X) − θᵣ) over its units with the outcome and
+/// Bᵣᵢ = Σ (V01ᵣ(Y) − θᵣ) over those without (the placement values of
+/// [`delong`], computed over all units):
+///
+/// * S10ᵣₛ = I₁₀ / ((I₁₀ − 1) M) · Σᵢ Aᵣᵢ Aₛᵢ
+/// * S01ᵣₛ = I₀₁ / ((I₀₁ − 1) N) · Σᵢ Bᵣᵢ Bₛᵢ
+/// * S11ᵣₛ = I / (I − 1) · Σᵢ Aᵣᵢ Bₛᵢ
+/// * cov(θᵣ, θₛ) = S10ᵣₛ / M + S01ᵣₛ / N + (S11ᵣₛ + S11ₛᵣ) / (M N)
+///
+/// (for r = s the variance of Obuchowski's paper, S10/M + S01/N +
+/// 2 S11/(MN); the covariance of two scores on the same clusters is its
+/// bilinear form, written here from the structure of the variance, the
+/// paper's formulas being transcribed from memory). With clusters of one
+/// unit each, I₁₀ = M, I₀₁ = N and every S11 term is 0: the result is
+/// DeLong's.
+///
+/// # Errors
+/// As [`delong`]; [`StatsError::LengthMismatch`] if `cluster` differs in
+/// length from `outcome`; [`StatsError::TooFewObservations`] with fewer
+/// than 2 clusters holding units of each outcome.
+pub fn delong_clustered(
+    scores: &[&[f64]],
+    outcome: &[bool],
+    cluster: &[u32],
+) -> Result<DeLongResult, StatsError> {
+    super::check_len("clusters", outcome.len(), cluster.len())?;
+    let pl = Placements::new(scores, outcome)?;
+    let k = pl.aucs.len();
+    // Clusters renumbered densely.
+    let mut dense: std::collections::HashMap<u32, usize> = Default::default();
+    let ids: Vec<usize> = cluster
+        .iter()
+        .map(|c| {
+            let next = dense.len();
+            *dense.entry(*c).or_insert(next)
+        })
         .collect();
-    Ok(DeLongResult {
-        aucs,
-        covariance,
-        ci95,
-        n_positive: m,
-        n_negative: n,
-    })
+    let nclusters = dense.len();
+    // A (k × I) and B (k × I): per score, per cluster sums.
+    let mut a = vec![vec![0.0; nclusters]; k];
+    let mut b = vec![vec![0.0; nclusters]; k];
+    let (mut has_pos, mut has_neg) = (vec![false; nclusters], vec![false; nclusters]);
+    let (mut ip, mut ineg) = (0usize, 0usize);
+    for (&y, &c) in outcome.iter().zip(&ids) {
+        if y {
+            has_pos[c] = true;
+            for (ar, vr) in a.iter_mut().zip(&pl.v10) {
+                ar[c] += vr[ip];
+            }
+            ip += 1;
+        } else {
+            has_neg[c] = true;
+            for (br, vr) in b.iter_mut().zip(&pl.v01) {
+                br[c] += vr[ineg];
+            }
+            ineg += 1;
+        }
+    }
+    let i10 = has_pos.iter().filter(|&&v| v).count();
+    let i01 = has_neg.iter().filter(|&&v| v).count();
+    for (what, count) in [("with the outcome", i10), ("without the outcome", i01)] {
+        if count < 2 {
+            return Err(StatsError::TooFewObservations {
+                what: format!("the clustered c-statistic variance (clusters {what})"),
+                needed: 2,
+                found: count,
+            });
+        }
+    }
+    let (mf, nf) = (pl.m as f64, pl.n as f64);
+    let (i10f, i01f, itf) = (i10 as f64, i01 as f64, nclusters as f64);
+    let dot = |u: &[f64], v: &[f64]| u.iter().zip(v).map(|(x, y)| x * y).sum::<f64>();
+    let mut covariance = vec![vec![0.0; k]; k];
+    for r in 0..k {
+        for s in r..k {
+            let s10 = i10f / ((i10f - 1.0) * mf) * dot(&a[r], &a[s]);
+            let s01 = i01f / ((i01f - 1.0) * nf) * dot(&b[r], &b[s]);
+            let s11_rs = itf / (itf - 1.0) * dot(&a[r], &b[s]);
+            let s11_sr = itf / (itf - 1.0) * dot(&a[s], &b[r]);
+            let c = s10 / mf + s01 / nf + (s11_rs + s11_sr) / (mf * nf);
+            covariance[r][s] = c;
+            covariance[s][r] = c;
+        }
+    }
+    Ok(pl.result(covariance))
+}
+
+/// The centred placement values of k scores (DeLong et al. 1988).
+struct Placements {
+    aucs: Vec<f64>,
+    /// k × m: V10 − θ of the units with the outcome, in input order.
+    v10: Vec<Vec<f64>>,
+    /// k × n: V01 − θ of the units without, in input order.
+    v01: Vec<Vec<f64>>,
+    m: usize,
+    n: usize,
+}
+
+impl Placements {
+    fn new(scores: &[&[f64]], outcome: &[bool]) -> Result<Placements, StatsError> {
+        if scores.is_empty() {
+            return Err(StatsError::InvalidArgument(
+                "DeLong needs at least one score".to_string(),
+            ));
+        }
+        let (m, n) = count_outcome(outcome)?;
+        for (what, count) in [("positives", m), ("negatives", n)] {
+            if count < 2 {
+                return Err(StatsError::TooFewObservations {
+                    what: format!("the DeLong variance ({what})"),
+                    needed: 2,
+                    found: count,
+                });
+            }
+        }
+        let k = scores.len();
+        let (mf, nf) = (m as f64, n as f64);
+        let mut aucs = Vec::with_capacity(k);
+        let mut v10 = Vec::with_capacity(k); // k × m, positives in input order
+        let mut v01 = Vec::with_capacity(k); // k × n, negatives in input order
+        for (r, s) in scores.iter().enumerate() {
+            let groups = SortedGroups::new(&format!("score {r}"), s, outcome)?;
+            let (pos, neg) = (&groups.positives, &groups.negatives);
+            let mut p10 = Vec::with_capacity(m);
+            let mut p01 = Vec::with_capacity(n);
+            for (&x, &y) in s.iter().zip(outcome) {
+                let key = super::order_key(x);
+                if y {
+                    // negatives strictly below + half of those tied
+                    let below = neg.partition_point(|&q| q < key);
+                    let not_above = neg.partition_point(|&q| q <= key);
+                    p10.push((below + not_above) as f64 / (2.0 * nf));
+                } else {
+                    // positives strictly above + half of those tied
+                    let below = pos.partition_point(|&q| q < key);
+                    let not_above = pos.partition_point(|&q| q <= key);
+                    p01.push((2 * m - below - not_above) as f64 / (2.0 * mf));
+                }
+            }
+            // θ from the exact integer pair count (bit-identical to `auc`); the
+            // mean of the V10 equals it up to rounding.
+            aucs.push(groups.twice_u() as f64 / (2.0 * mf * nf));
+            v10.push(p10);
+            v01.push(p01);
+        }
+        // Centre the placement values once.
+        for (r, theta) in aucs.iter().enumerate() {
+            v10[r].iter_mut().for_each(|v| *v -= theta);
+            v01[r].iter_mut().for_each(|v| *v -= theta);
+        }
+        Ok(Placements {
+            aucs,
+            v10,
+            v01,
+            m,
+            n,
+        })
+    }
+
+    fn result(self, covariance: Vec<Vec<f64>>) -> DeLongResult {
+        let ci95 = (0..self.aucs.len())
+            .map(|r| {
+                clipped_interval(
+                    self.aucs[r],
+                    Z_975 * covariance[r][r].max(0.0).sqrt(),
+                    0.0,
+                    1.0,
+                )
+            })
+            .collect();
+        DeLongResult {
+            aucs: self.aucs,
+            covariance,
+            ci95,
+            n_positive: self.m,
+            n_negative: self.n,
+        }
+    }
 }
 
 /// DeLong test for the difference between the AUCs of two scores measured
@@ -319,6 +452,125 @@ mod tests {
     use super::super::{auc, normal_cdf};
     use super::*;
     use approx::assert_relative_eq;
+
+    #[test]
+    fn clustered_hand_worked() {
+        // Obuchowski NA, Biometrics 1997;53:567-78 (formulas from memory),
+        // worked by hand. Three clusters, each one unit with the outcome
+        // and one without: cluster 1 scores 3 (outcome) and 1, cluster 2
+        // scores 2 and 2, cluster 3 scores 1 and 0. M = N = I = 3.
+        // V10 (share of the negatives 1, 2, 0 placed below, ties ½):
+        //   X=3: 3/3; X=2: 2.5/3; X=1: 1.5/3.  θ = 7/3 / 3 = 7/9.
+        // V01 (share of the positives 3, 2, 1 placed above):
+        //   Y=1: 2.5/3; Y=2: 1.5/3; Y=0: 3/3.
+        // Centred sums per cluster, in eighteenths:
+        //   A = (4, 1, −5)/18, B = (1, −5, 4)/18.
+        // ΣA² = ΣB² = 42/324, ΣAB = (4 − 5 − 20)/324 = −21/324.
+        // S10 = S01 = 3/(2·3)·42/324 = 21/324; S11 = 3/2·(−21/324).
+        // var = 21/324/3 + 21/324/3 + 2·(−31.5/324)/9 = 7/324.
+        // Independent units (DeLong): 21/324/3 · 2 = 14/324.
+        let y = [true, false, true, false, true, false];
+        let s = [3.0, 1.0, 2.0, 2.0, 1.0, 0.0];
+        let cl = [7u32, 7, 2, 2, 9, 9];
+        let d = delong_clustered(&[&s], &y, &cl).unwrap();
+        assert_relative_eq!(d.aucs[0], 7.0 / 9.0, epsilon = 1e-15);
+        assert_relative_eq!(d.covariance[0][0], 7.0 / 324.0, epsilon = 1e-15);
+        let plain = delong(&[&s], &y).unwrap();
+        assert_relative_eq!(plain.covariance[0][0], 14.0 / 324.0, epsilon = 1e-15);
+        // Every unit with the outcome in one cluster: no variance.
+        assert!(matches!(
+            delong_clustered(&[&s], &y, &[1, 2, 1, 2, 1, 2]),
+            Err(StatsError::TooFewObservations { .. })
+        ));
+    }
+
+    #[test]
+    fn clusters_of_one_unit_are_delong() {
+        // With one unit per cluster the clustered covariance is DeLong's,
+        // for the variances and the covariance of two scores.
+        let mut rng = Lcg(99);
+        let n = 300;
+        let y: Vec<bool> = (0..n).map(|_| rng.uniform() < 0.3).collect();
+        let a: Vec<f64> = y
+            .iter()
+            .map(|&v| (rng.uniform() * 6.0).floor() + if v { 1.0 } else { 0.0 })
+            .collect();
+        let b: Vec<f64> = a
+            .iter()
+            .map(|v| v + (rng.uniform() * 3.0).floor())
+            .collect();
+        let ids: Vec<u32> = (0..n as u32).rev().collect();
+        let c = delong_clustered(&[&a, &b], &y, &ids).unwrap();
+        let d = delong(&[&a, &b], &y).unwrap();
+        for r in 0..2 {
+            for s in 0..2 {
+                assert_relative_eq!(c.covariance[r][s], d.covariance[r][s], max_relative = 1e-12);
+            }
+        }
+        assert_eq!(c.aucs, d.aucs);
+    }
+
+    #[test]
+    fn clustered_covariance_by_direct_sums() {
+        // The covariance of two scores computed as written (explicit ψ over
+        // all pairs, per-cluster sums) against the function.
+        let mut rng = Lcg(7);
+        let n = 120;
+        let cl: Vec<u32> = (0..n).map(|u| (u / 3) as u32).collect();
+        let y: Vec<bool> = (0..n).map(|_| rng.uniform() < 0.4).collect();
+        let a: Vec<f64> = (0..n).map(|_| (rng.uniform() * 5.0).floor()).collect();
+        let b: Vec<f64> = (0..n)
+            .map(|u| a[u] + (rng.uniform() * 4.0).floor())
+            .collect();
+        let psi = |x: f64, z: f64| {
+            if x > z {
+                1.0
+            } else if x == z {
+                0.5
+            } else {
+                0.0
+            }
+        };
+        let pos: Vec<usize> = (0..n).filter(|&u| y[u]).collect();
+        let neg: Vec<usize> = (0..n).filter(|&u| !y[u]).collect();
+        let (m, nn) = (pos.len() as f64, neg.len() as f64);
+        let ncl = 40;
+        let sums = |s: &[f64]| {
+            let theta = pos
+                .iter()
+                .flat_map(|&i| neg.iter().map(move |&j| (i, j)))
+                .map(|(i, j)| psi(s[i], s[j]))
+                .sum::<f64>()
+                / (m * nn);
+            let mut aa = vec![0.0; ncl];
+            let mut bb = vec![0.0; ncl];
+            for &i in &pos {
+                let v10 = neg.iter().map(|&j| psi(s[i], s[j])).sum::<f64>() / nn;
+                aa[cl[i] as usize] += v10 - theta;
+            }
+            for &j in &neg {
+                let v01 = pos.iter().map(|&i| psi(s[i], s[j])).sum::<f64>() / m;
+                bb[cl[j] as usize] += v01 - theta;
+            }
+            (aa, bb)
+        };
+        let (aa, ba) = sums(&a);
+        let (ab, bb) = sums(&b);
+        let i10 = (0..ncl)
+            .filter(|&c| pos.iter().any(|&u| cl[u] as usize == c))
+            .count() as f64;
+        let i01 = (0..ncl)
+            .filter(|&c| neg.iter().any(|&u| cl[u] as usize == c))
+            .count() as f64;
+        let it = ncl as f64;
+        let dot = |u: &[f64], v: &[f64]| u.iter().zip(v).map(|(x, y)| x * y).sum::<f64>();
+        let s10 = i10 / ((i10 - 1.0) * m) * dot(&aa, &ab);
+        let s01 = i01 / ((i01 - 1.0) * nn) * dot(&ba, &bb);
+        let s11 = it / (it - 1.0) * (dot(&aa, &bb) + dot(&ab, &ba));
+        let expected = s10 / m + s01 / nn + s11 / (m * nn);
+        let got = delong_clustered(&[&a, &b], &y, &cl).unwrap();
+        assert_relative_eq!(got.covariance[0][1], expected, max_relative = 1e-10);
+    }
 
     /// Independent direct O(m·n) implementation of DeLong et al. (1988):
     /// explicit ψ kernel over all pairs, placement values, S10/S01.

@@ -5,7 +5,7 @@
 
 use super::linalg::Cholesky;
 use super::normal::two_sided_p;
-use super::{auc, check_finite, check_len, count_outcome, StatsError};
+use super::{check_finite, check_len, count_outcome, StatsError};
 
 /// Name given to the intercept in [`LogisticFit::coefficients`].
 pub const INTERCEPT_NAME: &str = "(Intercept)";
@@ -104,27 +104,156 @@ impl LogisticFit {
     }
 }
 
-/// Predictors centred and scaled to unit (population) SD; the model is
-/// fitted on this scale for conditioning and transformed back.
-struct Design<'a> {
-    columns: &'a [Vec<f64>],
-    mean: Vec<f64>,
-    inv_sd: Vec<f64>,
-    n: usize,
+/// Units grouped by their predictor values ("covariate patterns"), with
+/// the number of units and of events in each. The likelihood of a logistic
+/// model depends on the data only through these counts, so a fit on the
+/// patterns is the fit on the units: the same estimates, likelihood and
+/// information, at a cost proportional to the number of patterns (a few
+/// thousand for integer scores, ages and a few categories, whatever the
+/// number of units).
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct Patterns {
+    /// Predictor columns, one value per pattern.
+    pub columns: Vec<Vec<f64>>,
+    /// Units per pattern.
+    pub units: Vec<f64>,
+    /// Units with outcome `true` per pattern.
+    pub events: Vec<f64>,
 }
 
-impl Design<'_> {
-    /// Number of parameters including the intercept.
-    fn dim(&self) -> usize {
-        self.columns.len() + 1
+/// A fast hasher for rows of `u64` words (multiply and rotate, as in the
+/// hash of the Firefox and rustc hash maps); not for untrusted keys, which
+/// only slow it down.
+#[derive(Default, Clone, Copy)]
+struct RowHasher(u64);
+
+impl RowHasher {
+    #[inline]
+    fn add(&mut self, v: u64) {
+        self.0 = (self.0.rotate_left(5) ^ v).wrapping_mul(0x517c_c1b7_2722_0a95);
+    }
+}
+
+impl std::hash::Hasher for RowHasher {
+    fn finish(&self) -> u64 {
+        self.0
+    }
+    fn write(&mut self, bytes: &[u8]) {
+        for chunk in bytes.chunks(8) {
+            let mut b = [0u8; 8];
+            b[..chunk.len()].copy_from_slice(chunk);
+            self.add(u64::from_le_bytes(b));
+        }
+    }
+    fn write_u64(&mut self, v: u64) {
+        self.add(v);
+    }
+    fn write_usize(&mut self, v: usize) {
+        self.add(v as u64);
+    }
+}
+
+/// A hash map keyed by rows of words, with [`RowHasher`].
+type RowMap<K, V> = std::collections::HashMap<K, V, std::hash::BuildHasherDefault<RowHasher>>;
+
+/// The bits of a value, with −0 read as +0 (they give the same predictions).
+#[inline]
+fn value_bits(v: f64) -> u64 {
+    if v == 0.0 {
+        0
+    } else {
+        v.to_bits()
+    }
+}
+
+impl Patterns {
+    /// Groups units by their row of predictor values (`x` as columns, each
+    /// of length `y.len()`); patterns are numbered in order of first
+    /// appearance. Returns the patterns and the pattern of every unit.
+    /// Lengths are not checked here (see [`logistic_patterns`]).
+    pub fn group(y: &[bool], x: &[&[f64]]) -> (Patterns, Vec<u32>) {
+        let p = x.len();
+        let mut map: RowMap<Box<[u64]>, u32> = RowMap::default();
+        let mut key = vec![0u64; p];
+        let mut out = Patterns {
+            columns: vec![Vec::new(); p],
+            units: Vec::new(),
+            events: Vec::new(),
+        };
+        let mut of_unit = Vec::with_capacity(y.len());
+        for (i, &yi) in y.iter().enumerate() {
+            for (k, col) in key.iter_mut().zip(x) {
+                *k = value_bits(col[i]);
+            }
+            let id = match map.get(&key[..]) {
+                Some(&id) => id,
+                None => {
+                    let id = out.units.len() as u32;
+                    map.insert(key.clone().into_boxed_slice(), id);
+                    for (c, col) in out.columns.iter_mut().zip(x) {
+                        c.push(col[i]);
+                    }
+                    out.units.push(0.0);
+                    out.events.push(0.0);
+                    id
+                }
+            };
+            out.units[id as usize] += 1.0;
+            if yi {
+                out.events[id as usize] += 1.0;
+            }
+            of_unit.push(id);
+        }
+        (out, of_unit)
     }
 
-    /// Writes the standardised row `i` (without the intercept) into `row`.
-    #[inline]
-    fn row(&self, i: usize, row: &mut [f64]) {
-        for (j, r) in row.iter_mut().enumerate() {
-            *r = (self.columns[j][i] - self.mean[j]) * self.inv_sd[j];
+    /// Number of patterns.
+    pub fn len(&self) -> usize {
+        self.units.len()
+    }
+
+    /// Whether there are no patterns.
+    pub fn is_empty(&self) -> bool {
+        self.units.is_empty()
+    }
+
+    /// The same patterns with those of no units left out.
+    fn compact(&self) -> Patterns {
+        let keep: Vec<usize> = (0..self.len()).filter(|&j| self.units[j] > 0.0).collect();
+        Patterns {
+            columns: self
+                .columns
+                .iter()
+                .map(|c| keep.iter().map(|&j| c[j]).collect())
+                .collect(),
+            units: keep.iter().map(|&j| self.units[j]).collect(),
+            events: keep.iter().map(|&j| self.events[j]).collect(),
         }
+    }
+}
+
+/// Patterns with their predictors centred and scaled to unit (population,
+/// unit-weighted) SD; the model is fitted on this scale for conditioning
+/// and transformed back.
+struct Design {
+    /// Standardised rows, row-major, `p` values per pattern.
+    z: Vec<f64>,
+    p: usize,
+    units: Vec<f64>,
+    events: Vec<f64>,
+    mean: Vec<f64>,
+    inv_sd: Vec<f64>,
+}
+
+impl Design {
+    /// Number of parameters including the intercept.
+    fn dim(&self) -> usize {
+        self.p + 1
+    }
+
+    #[inline]
+    fn row(&self, j: usize) -> &[f64] {
+        &self.z[j * self.p..(j + 1) * self.p]
     }
 
     #[inline]
@@ -132,36 +261,25 @@ impl Design<'_> {
         b[0] + b[1..].iter().zip(row).map(|(c, z)| c * z).sum::<f64>()
     }
 
-    /// Σ y·η − log(1 + e^η).
-    fn log_likelihood(&self, b: &[f64], y: &[bool]) -> f64 {
-        let mut row = vec![0.0; self.dim() - 1];
-        let mut ll = 0.0;
-        for (i, &yi) in y.iter().enumerate() {
-            self.row(i, &mut row);
-            let eta = Self::eta(b, &row);
-            ll += if yi { eta } else { 0.0 } - softplus(eta);
-        }
-        ll
-    }
-
     /// Log-likelihood, score vector and Fisher information (row-major).
-    fn evaluate(&self, b: &[f64], y: &[bool]) -> (f64, Vec<f64>, Vec<f64>) {
+    fn evaluate(&self, b: &[f64]) -> (f64, Vec<f64>, Vec<f64>) {
         let d = self.dim();
-        let mut row = vec![0.0; d];
-        row[0] = 1.0;
+        let mut row = vec![1.0; d];
         let mut ll = 0.0;
         let mut grad = vec![0.0; d];
         let mut info = vec![0.0; d * d];
-        for (i, &yi) in y.iter().enumerate() {
-            self.row(i, &mut row[1..]);
+        for j in 0..self.units.len() {
+            row[1..].copy_from_slice(self.row(j));
             let eta = Self::eta(b, &row[1..]);
-            let (p, q) = probabilities(eta);
-            ll += if yi { eta } else { 0.0 } - softplus(eta);
-            let resid = if yi { q } else { -p };
-            let w = p * q;
+            let (w, k) = (self.units[j], self.events[j]);
+            let e = (-eta.abs()).exp();
+            let (p, q) = probabilities_from(eta, e);
+            ll += k * eta - w * (eta.max(0.0) + e.ln_1p());
+            let resid = k - w * p;
+            let wt = w * p * q;
             for a in 0..d {
                 grad[a] += resid * row[a];
-                let wa = w * row[a];
+                let wa = wt * row[a];
                 for c in 0..=a {
                     info[a * d + c] += wa * row[c];
                 }
@@ -175,16 +293,147 @@ impl Design<'_> {
         (ll, grad, info)
     }
 
-    /// Linear predictor on the standardised scale for every unit.
+    /// Linear predictor on the standardised scale for every pattern.
     fn linear_predictor(&self, b: &[f64]) -> Vec<f64> {
-        let mut row = vec![0.0; self.dim() - 1];
-        (0..self.n)
-            .map(|i| {
-                self.row(i, &mut row);
-                Self::eta(b, &row)
-            })
+        (0..self.units.len())
+            .map(|j| Self::eta(b, self.row(j)))
             .collect()
     }
+}
+
+/// Cluster-robust ("sandwich") covariance of the estimates of a logistic
+/// fit, and what it was computed from. Returned by
+/// [`cluster_robust_covariance`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct ClusterCovariance {
+    /// In the order of [`LogisticFit::coefficients`].
+    pub covariance: Vec<Vec<f64>>,
+    /// Number of clusters G.
+    pub clusters: usize,
+    /// The small-sample factor applied, G/(G − 1) · (N − 1)/(N − K).
+    pub factor: f64,
+}
+
+impl ClusterCovariance {
+    /// Standard errors: square roots of the diagonal.
+    pub fn std_errors(&self) -> Vec<f64> {
+        (0..self.covariance.len())
+            .map(|a| self.covariance[a][a].max(0.0).sqrt())
+            .collect()
+    }
+}
+
+/// Cluster-robust covariance of a logistic fit: V (Σ_g s_g s_gᵀ) V · c,
+/// with V the model-based covariance (inverse information), s_g the sum
+/// over cluster g's units of the score contributions xᵢ (yᵢ − pᵢ) (x with
+/// the leading 1 of the intercept), and c = G/(G − 1) · (N − 1)/(N − K)
+/// for G clusters, N units and K coefficients: the factor statsmodels
+/// applies by default for `cov_type='cluster'` (`use_correction=True`).
+/// The units are given as their [`Patterns`] (those the fit was computed
+/// from), the pattern of each unit, its outcome and its cluster (any
+/// `u32`s).
+///
+/// # Errors
+/// [`StatsError::LengthMismatch`] for lengths that do not agree with the
+/// fit or each other; [`StatsError::TooFewObservations`] with fewer than 2
+/// clusters, or no more units than coefficients.
+pub fn cluster_robust_covariance(
+    fit: &LogisticFit,
+    patterns: &Patterns,
+    of_unit: &[u32],
+    y: &[bool],
+    cluster: &[u32],
+) -> Result<ClusterCovariance, StatsError> {
+    let d = fit.coefficients.len();
+    check_len("pattern columns", d - 1, patterns.columns.len())?;
+    check_len("units' patterns", y.len(), of_unit.len())?;
+    check_len("clusters", y.len(), cluster.len())?;
+    let np = patterns.len();
+    if let Some(&j) = of_unit.iter().find(|&&j| j as usize >= np) {
+        return Err(StatsError::InvalidArgument(format!(
+            "pattern {j} out of range: {np} patterns"
+        )));
+    }
+    let beta: Vec<f64> = fit.coefficients.iter().map(|c| c.estimate).collect();
+    let prob: Vec<f64> = (0..np)
+        .map(|j| {
+            let eta = beta[0]
+                + patterns
+                    .columns
+                    .iter()
+                    .zip(&beta[1..])
+                    .map(|(c, b)| c[j] * b)
+                    .sum::<f64>();
+            probabilities_from(eta, (-eta.abs()).exp()).0
+        })
+        .collect();
+    let mut dense: RowMap<u32, usize> = RowMap::default();
+    let mut sums: Vec<f64> = Vec::new();
+    for ((&yi, &j), &c) in y.iter().zip(of_unit).zip(cluster) {
+        let next = dense.len();
+        let g = *dense.entry(c).or_insert(next);
+        if g == next {
+            sums.resize((g + 1) * d, 0.0);
+        }
+        let r = f64::from(u8::from(yi)) - prob[j as usize];
+        let s = &mut sums[g * d..(g + 1) * d];
+        s[0] += r;
+        for (k, col) in patterns.columns.iter().enumerate() {
+            s[k + 1] += r * col[j as usize];
+        }
+    }
+    let g = dense.len();
+    let n = y.len();
+    if g < 2 {
+        return Err(StatsError::TooFewObservations {
+            what: "a cluster-robust covariance (clusters)".into(),
+            needed: 2,
+            found: g,
+        });
+    }
+    if n <= d {
+        return Err(StatsError::TooFewObservations {
+            what: "a cluster-robust covariance (units, more than the coefficients)".into(),
+            needed: d + 1,
+            found: n,
+        });
+    }
+    let mut meat = vec![0.0; d * d];
+    for s in sums.chunks_exact(d) {
+        for a in 0..d {
+            for b in 0..=a {
+                meat[a * d + b] += s[a] * s[b];
+            }
+        }
+    }
+    for a in 0..d {
+        for b in 0..a {
+            meat[b * d + a] = meat[a * d + b];
+        }
+    }
+    let (gf, nf, kf) = (g as f64, n as f64, d as f64);
+    let factor = gf / (gf - 1.0) * (nf - 1.0) / (nf - kf);
+    let v = &fit.covariance;
+    // V M, then (V M) V.
+    let mut vm = vec![0.0; d * d];
+    for a in 0..d {
+        for b in 0..d {
+            vm[a * d + b] = (0..d).map(|k| v[a][k] * meat[k * d + b]).sum();
+        }
+    }
+    let mut covariance = vec![vec![0.0; d]; d];
+    for a in 0..d {
+        for b in a..d {
+            let x = factor * (0..d).map(|k| vm[a * d + k] * v[k][b]).sum::<f64>();
+            covariance[a][b] = x;
+            covariance[b][a] = x;
+        }
+    }
+    Ok(ClusterCovariance {
+        covariance,
+        clusters: g,
+        factor,
+    })
 }
 
 /// Describes parameter `j` (0 = intercept) for messages.
@@ -195,16 +444,10 @@ fn param_name(names: &[String], j: usize) -> String {
     }
 }
 
-/// log(1 + e^x) without overflow.
+/// (p, 1 − p) for p = 1/(1 + e^{−η}), each accurate in relative terms,
+/// given e = e^{−|η|}.
 #[inline]
-fn softplus(x: f64) -> f64 {
-    x.max(0.0) + (-x.abs()).exp().ln_1p()
-}
-
-/// (p, 1 − p) for p = 1/(1 + e^{−η}), each accurate in relative terms.
-#[inline]
-fn probabilities(eta: f64) -> (f64, f64) {
-    let e = (-eta.abs()).exp();
+fn probabilities_from(eta: f64, e: f64) -> (f64, f64) {
     let big = 1.0 / (1.0 + e);
     let small = e / (1.0 + e);
     if eta >= 0.0 {
@@ -214,16 +457,44 @@ fn probabilities(eta: f64) -> (f64, f64) {
     }
 }
 
+/// The c-statistic of `eta` from grouped counts: patterns ordered by η,
+/// ties (equal η) counting one half, as [`auc`] on the units.
+fn grouped_auc(eta: &[f64], units: &[f64], events: &[f64]) -> f64 {
+    let mut order: Vec<usize> = (0..eta.len()).collect();
+    order.sort_unstable_by(|&a, &b| eta[a].total_cmp(&eta[b]));
+    // Counts are whole numbers held exactly; the pair count is summed in
+    // integers as `auc` does.
+    let (mut twice_u, mut neg_below, mut pos, mut neg) = (0u128, 0u128, 0u128, 0u128);
+    let mut i = 0;
+    while i < order.len() {
+        let v = eta[order[i]];
+        let (mut e, mut ne) = (0u128, 0u128);
+        while i < order.len() && eta[order[i]] == v {
+            let j = order[i];
+            e += events[j] as u128;
+            ne += (units[j] - events[j]) as u128;
+            i += 1;
+        }
+        twice_u += 2 * e * neg_below + e * ne;
+        neg_below += ne;
+        pos += e;
+        neg += ne;
+    }
+    twice_u as f64 / (2.0 * pos as f64 * neg as f64)
+}
+
 /// Logistic regression of a binary outcome on predictors, with an
 /// intercept, by maximum likelihood (Newton–Raphson with step halving).
 ///
 /// `x` holds the predictor *columns* (each of length `y.len()`), without
-/// the intercept; `names` names them. Internally the predictors are centred
+/// the intercept; `names` names them. The units are grouped by their
+/// predictor values ([`Patterns`]) and the model fitted on the groups,
+/// which gives the same maximum. Internally the predictors are centred
 /// and scaled, and the estimates and their covariance are transformed back
 /// to the original scale. Iteration stops when the largest Newton step on
 /// the standardised scale is below 1e-9; standard errors are the square
 /// roots of the diagonal of the inverse Fisher information at the estimate
-/// (Wald). Cost: O(n·p²) per iteration.
+/// (Wald). Cost: O(n·p) to group, O(patterns·p²) per iteration.
 ///
 /// # Errors
 /// * [`StatsError::LengthMismatch`] if `names` and `x` differ in length or
@@ -277,9 +548,66 @@ pub fn logistic_from(
         check_len(&what, n, col.len())?;
         check_finite(&what, col)?;
     }
-    let (n_events, n_nonevents) = count_outcome(y)?;
+    count_outcome(y)?;
+    let cols: Vec<&[f64]> = x.iter().map(Vec::as_slice).collect();
+    let (patterns, _) = Patterns::group(y, &cols);
+    fit(&patterns, names, start)
+}
 
-    // Standardise, rejecting constant predictors.
+/// [`logistic_from`] on units already grouped into [`Patterns`]
+/// (patterns of no units are allowed and ignored, e.g. after leaving a
+/// fold's counts out of the totals).
+///
+/// # Errors
+/// As [`logistic`]; also [`StatsError::InvalidArgument`] for a negative or
+/// fractional count, or more events than units.
+pub fn logistic_patterns(
+    patterns: &Patterns,
+    names: &[String],
+    start: Option<&[f64]>,
+) -> Result<LogisticFit, StatsError> {
+    let np = patterns.len();
+    check_len("predictor names", patterns.columns.len(), names.len())?;
+    check_len("pattern events", np, patterns.events.len())?;
+    for (col, name) in patterns.columns.iter().zip(names) {
+        let what = format!("predictor '{name}'");
+        check_len(&what, np, col.len())?;
+        check_finite(&what, col)?;
+    }
+    for (&w, &k) in patterns.units.iter().zip(&patterns.events) {
+        if !(w >= 0.0 && k >= 0.0 && k <= w && w.fract() == 0.0 && k.fract() == 0.0) {
+            return Err(StatsError::InvalidArgument(format!(
+                "pattern counts must be whole numbers with 0 <= events <= units, got {k} of {w}"
+            )));
+        }
+    }
+    if patterns.units.contains(&0.0) {
+        fit(&patterns.compact(), names, start)
+    } else {
+        fit(patterns, names, start)
+    }
+}
+
+/// The fit on patterns of at least one unit each, lengths checked.
+fn fit(
+    patterns: &Patterns,
+    names: &[String],
+    start: Option<&[f64]>,
+) -> Result<LogisticFit, StatsError> {
+    let x = &patterns.columns;
+    let np = patterns.len();
+    let nf: f64 = patterns.units.iter().sum();
+    let n1: f64 = patterns.events.iter().sum();
+    let (n, n_events) = (nf as usize, n1 as usize);
+    let n_nonevents = n - n_events;
+    if n_events == 0 || n_nonevents == 0 {
+        return Err(StatsError::ConstantOutcome {
+            positives: n_events,
+            negatives: n_nonevents,
+        });
+    }
+
+    // Standardise (unit-weighted), rejecting constant predictors.
     let mut mean = Vec::with_capacity(x.len());
     let mut inv_sd = Vec::with_capacity(x.len());
     for (col, name) in x.iter().zip(names) {
@@ -288,8 +616,15 @@ pub fn logistic_from(
             .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &v| {
                 (lo.min(v), hi.max(v))
             });
-        let m = col.iter().sum::<f64>() / n as f64;
-        let sd = (col.iter().map(|v| (v - m) * (v - m)).sum::<f64>() / n as f64).sqrt();
+        let w = &patterns.units;
+        let m = col.iter().zip(w).map(|(v, w)| v * w).sum::<f64>() / nf;
+        let sd = (col
+            .iter()
+            .zip(w)
+            .map(|(v, w)| w * (v - m) * (v - m))
+            .sum::<f64>()
+            / nf)
+            .sqrt();
         if lo == hi || sd == 0.0 {
             return Err(StatsError::ConstantPredictor {
                 name: name.clone(),
@@ -304,11 +639,20 @@ pub fn logistic_from(
         mean.push(m);
         inv_sd.push(1.0 / sd);
     }
+    let p = x.len();
+    let mut z = vec![0.0; np * p];
+    for j in 0..np {
+        for k in 0..p {
+            z[j * p + k] = (x[k][j] - mean[k]) * inv_sd[k];
+        }
+    }
     let design = Design {
-        columns: x,
+        z,
+        p,
+        units: patterns.units.clone(),
+        events: patterns.events.clone(),
         mean,
         inv_sd,
-        n,
     };
     let d = design.dim();
 
@@ -316,11 +660,12 @@ pub fn logistic_from(
     {
         let mut gram = vec![0.0; d * d];
         let mut row = vec![1.0; d];
-        for i in 0..n {
-            design.row(i, &mut row[1..]);
+        for j in 0..np {
+            row[1..].copy_from_slice(design.row(j));
+            let w = design.units[j];
             for a in 0..d {
                 for c in 0..=a {
-                    gram[a * d + c] += row[a] * row[c];
+                    gram[a * d + c] += w * row[a] * row[c];
                 }
             }
         }
@@ -336,7 +681,7 @@ pub fn logistic_from(
     // the standardised scale (b_j = β_j s_j, b_0 = β_0 + Σ β_j m_j).
     let mut b = vec![0.0; d];
     b[0] = (n_events as f64 / n_nonevents as f64).ln();
-    let (mut ll, mut grad, mut info) = design.evaluate(&b, y);
+    let (mut ll, mut grad, mut info) = design.evaluate(&b);
     if let Some(st) = start.filter(|st| st.len() == d && st.iter().all(|v| v.is_finite())) {
         let mut w = vec![0.0; d];
         w[0] = st[0];
@@ -344,7 +689,7 @@ pub fn logistic_from(
             w[j] = st[j] / design.inv_sd[j - 1];
             w[0] += st[j] * design.mean[j - 1];
         }
-        let (ll_w, grad_w, info_w) = design.evaluate(&w, y);
+        let (ll_w, grad_w, info_w) = design.evaluate(&w);
         if ll_w.is_finite() && ll_w >= ll {
             (b, ll, grad, info) = (w, ll_w, grad_w, info_w);
         }
@@ -370,34 +715,39 @@ pub fn logistic_from(
             });
         }
         // Step halving: accept the first fraction that does not lower the
-        // log-likelihood (beyond rounding).
+        // log-likelihood (beyond rounding); the score and information come
+        // with the likelihood in the same pass.
         let mut t = 1.0;
-        let mut candidate = None;
+        let mut accepted = None;
         for _ in 0..30 {
             let cand: Vec<f64> = b.iter().zip(&step).map(|(bi, s)| bi + t * s).collect();
-            let ll_cand = design.log_likelihood(&cand, y);
+            let (ll_cand, grad_cand, info_cand) = design.evaluate(&cand);
             if ll_cand >= ll - 1e-12 * (1.0 + ll.abs()) {
-                candidate = Some(cand);
+                accepted = Some((cand, ll_cand, grad_cand, info_cand));
                 break;
             }
             t *= 0.5;
         }
-        let Some(cand) = candidate else {
+        let Some((cand, ll_c, grad_c, info_c)) = accepted else {
             // No step improves the likelihood: numerically at the maximum.
             converged = max_step < 1e-6;
             break;
         };
-        b = cand;
-        (ll, grad, info) = design.evaluate(&b, y);
+        (b, ll, grad, info) = (cand, ll_c, grad_c, info_c);
         if t * max_step < STEP_TOL {
             converged = true;
             break;
         }
     }
     let eta = design.linear_predictor(&b);
-    let extreme = eta.iter().filter(|e| e.abs() > EXTREME_ETA).count();
+    let extreme: f64 = eta
+        .iter()
+        .zip(&design.units)
+        .filter(|(e, _)| e.abs() > EXTREME_ETA)
+        .map(|(_, w)| w)
+        .sum();
     if !converged {
-        if extreme > 0 {
+        if extreme > 0.0 {
             // The parameter still moving fastest (standardised scale).
             let fastest = (0..d)
                 .max_by(|&a, &c| last_step[a].abs().total_cmp(&last_step[c].abs()))
@@ -435,13 +785,15 @@ pub fn logistic_from(
             tc[a * d + c] = (0..d).map(|k| t_mat[a * d + k] * cov_std[k * d + c]).sum();
         }
     }
-    let covariance: Vec<Vec<f64>> = (0..d)
-        .map(|a| {
-            (0..d)
-                .map(|c| (0..d).map(|k| tc[a * d + k] * t_mat[c * d + k]).sum())
-                .collect()
-        })
-        .collect();
+    // Computed once per pair, so that the matrix is exactly symmetric.
+    let mut covariance = vec![vec![0.0; d]; d];
+    for a in 0..d {
+        for c in a..d {
+            let v: f64 = (0..d).map(|k| tc[a * d + k] * t_mat[c * d + k]).sum();
+            covariance[a][c] = v;
+            covariance[c][a] = v;
+        }
+    }
 
     let coefficients = (0..d)
         .map(|a| {
@@ -483,7 +835,7 @@ pub fn logistic_from(
         aic: -2.0 * ll + 2.0 * k,
         bic: -2.0 * ll + k * nf.ln(),
         iterations,
-        c_statistic: auc(&eta, y)?,
+        c_statistic: grouped_auc(&eta, &design.units, &design.events),
         n,
         n_events,
     })
@@ -491,6 +843,7 @@ pub fn logistic_from(
 
 #[cfg(test)]
 mod tests {
+    use super::super::auc;
     use super::*;
     use approx::assert_relative_eq;
 
@@ -628,6 +981,104 @@ mod tests {
             max_relative = 1e-12
         );
         assert!(fit.coefficient("cci").is_some() && fit.coefficient("bmi").is_none());
+    }
+
+    #[test]
+    fn patterns_less_a_subset_fit_the_rest() {
+        // The fit on grouped counts with one subset's counts taken away (how
+        // compare fits a fold's training data) equals the fit on the units
+        // outside the subset; the statsmodels check above covers the
+        // grouped fit of all units.
+        let (y, x, nm) = dataset();
+        let cols: Vec<&[f64]> = x.iter().map(Vec::as_slice).collect();
+        let (pat, of_unit) = Patterns::group(&y, &cols);
+        assert_eq!(pat.units.iter().sum::<f64>(), 80.0);
+        assert_eq!(pat.events.iter().sum::<f64>(), 27.0);
+        let held_out = |u: usize| u % 3 == 0;
+        let mut train = pat.clone();
+        for u in (0..80).filter(|&u| held_out(u)) {
+            let j = of_unit[u] as usize;
+            train.units[j] -= 1.0;
+            if y[u] {
+                train.events[j] -= 1.0;
+            }
+        }
+        let grouped = logistic_patterns(&train, &nm, None).unwrap();
+        let keep: Vec<usize> = (0..80).filter(|&u| !held_out(u)).collect();
+        let ky: Vec<bool> = keep.iter().map(|&u| y[u]).collect();
+        let kx: Vec<Vec<f64>> = x
+            .iter()
+            .map(|c| keep.iter().map(|&u| c[u]).collect())
+            .collect();
+        let direct = logistic(&ky, &kx, &nm).unwrap();
+        for (a, b) in grouped.coefficients.iter().zip(&direct.coefficients) {
+            assert_relative_eq!(a.estimate, b.estimate, max_relative = 1e-9);
+            assert_relative_eq!(a.std_error, b.std_error, max_relative = 1e-9);
+        }
+        assert_relative_eq!(
+            grouped.log_likelihood,
+            direct.log_likelihood,
+            max_relative = 1e-12
+        );
+        assert_eq!(
+            grouped.c_statistic,
+            auc(&direct.linear_predictor(&kx).unwrap(), &ky).unwrap()
+        );
+        assert_eq!((grouped.n, grouped.n_events), (direct.n, direct.n_events));
+        // Counts that are not whole, or more events than units, are refused.
+        let mut bad = pat.clone();
+        bad.events[0] = bad.units[0] + 1.0;
+        assert!(matches!(
+            logistic_patterns(&bad, &nm, None),
+            Err(StatsError::InvalidArgument(_))
+        ));
+    }
+
+    #[test]
+    fn cluster_robust_matches_statsmodels() {
+        // reference: statsmodels 0.15.0 GLM(y, add_constant(X),
+        // family=Binomial()).fit(cov_type='cluster', cov_kwds={'groups': g},
+        // tol=1e-12) on this data: bse, and cov_params()[2][3]; g = unit // 4
+        // (20 clusters of 4) and g = unit % 7 (7 clusters).
+        let (y, x, nm) = dataset();
+        let fit = logistic(&y, &x, &nm).unwrap();
+        let cols: Vec<&[f64]> = x.iter().map(Vec::as_slice).collect();
+        let (pat, of_unit) = Patterns::group(&y, &cols);
+        let by4: Vec<u32> = (0..80).map(|u| u / 4).collect();
+        let r = cluster_robust_covariance(&fit, &pat, &of_unit, &y, &by4).unwrap();
+        let bse = [
+            3.072698128409488,
+            0.04165135148679745,
+            0.5987120208786985,
+            0.22570895942570626,
+            0.048933377427149975,
+        ];
+        for (a, b) in r.std_errors().iter().zip(bse) {
+            assert_relative_eq!(*a, b, max_relative = 1e-6);
+        }
+        assert_relative_eq!(
+            r.covariance[2][3],
+            0.010503602928884468,
+            max_relative = 1e-6
+        );
+        assert_eq!(r.clusters, 20);
+        assert_relative_eq!(r.factor, 20.0 / 19.0 * 79.0 / 75.0, max_relative = 1e-15);
+        let by7: Vec<u32> = (0..80).map(|u| u % 7).collect();
+        let r = cluster_robust_covariance(&fit, &pat, &of_unit, &y, &by7).unwrap();
+        let bse = [
+            2.4255535361211176,
+            0.03184937517720361,
+            0.3853064160498432,
+            0.2715300458357538,
+            0.037228932498721334,
+        ];
+        for (a, b) in r.std_errors().iter().zip(bse) {
+            assert_relative_eq!(*a, b, max_relative = 1e-6);
+        }
+        assert!(matches!(
+            cluster_robust_covariance(&fit, &pat, &of_unit, &y, &[3; 80]),
+            Err(StatsError::TooFewObservations { .. })
+        ));
     }
 
     #[test]

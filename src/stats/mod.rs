@@ -56,17 +56,22 @@ mod logistic;
 mod normal;
 mod rank;
 mod roc;
+mod spline;
 mod summary;
 
-pub use delong::{delong, delong_test, DeLongResult, DeLongTest};
+pub use delong::{delong, delong_clustered, delong_test, DeLongResult, DeLongTest};
 pub use gamma::{
     chi_square_quantile, chi_square_sf, funnel_limit, gamma_p, gamma_p_inverse, gamma_q, ln_gamma,
     poisson_cdf, poisson_exact_limits,
 };
-pub use logistic::{logistic, logistic_from, Coefficient, LogisticFit, INTERCEPT_NAME};
+pub use logistic::{
+    cluster_robust_covariance, logistic, logistic_from, logistic_patterns, ClusterCovariance,
+    Coefficient, LogisticFit, Patterns, INTERCEPT_NAME,
+};
 pub use normal::{erf, erfc, normal_cdf, normal_quantile, normal_sf, two_sided_p, Z_975};
 pub use rank::{average_ranks, spearman};
 pub use roc::{auc, roc_curve};
+pub use spline::{knot_quantiles, knots, spline_terms, DEFAULT_KNOTS, MAX_KNOTS, MIN_KNOTS};
 pub use summary::Summary;
 
 /// Everything that can go wrong in this module, as a value.

@@ -87,7 +87,7 @@ impl Summary {
 /// Linear-interpolation quantile (Hyndman & Fan type 7) of a non-empty
 /// sorted slice, 0 ≤ p ≤ 1, computed the way numpy does (interpolating from
 /// the nearer order statistic) so results agree to the last bit.
-fn quantile_sorted(sorted: &[f64], p: f64) -> f64 {
+pub(super) fn quantile_sorted(sorted: &[f64], p: f64) -> f64 {
     let h = (sorted.len() - 1) as f64 * p;
     let lo = h.floor();
     let i = lo as usize;

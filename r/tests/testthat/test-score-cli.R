@@ -128,3 +128,71 @@ test_that("explain equals the command line's", {
   w <- explain(e[1:5, ], dx = "dx*", index = "charlson:charlson1987")
   expect_type(w$weight, "integer")
 })
+
+test_that("windows per list and earlier episodes only equal the command line's", {
+  skip_without_cli()
+  e <- read_demo()
+  d <- e
+  d$admission_date <- as.Date(d$admission_date)
+  cases <- list(
+    list(cli = c("--lookback", "charlson=365,hfrs=730"),
+         r = list(lookback = c(charlson = 365, hfrs = 730))),
+    list(cli = c("--lookback", "365,hfrs=all", "--window", "earlier-only"),
+         r = list(lookback = "365,hfrs=all", window = "earlier-only")),
+    list(cli = c("--lookback", "730", "--window", "earlier-only"),
+         r = list(lookback = 730, window = "earlier-only"))
+  )
+  for (case in cases) {
+    cli <- run_cli("score", demo("episodes.csv"),
+                   c("--dx", "'dx*'", "--id", "patient_id", "--date", "admission_date",
+                     "--age", "age", case$cli))
+    r <- do.call(score, c(list(d, dx = "dx*", id = "patient_id", date = "admission_date",
+                               age = "age"), case$r))
+    expect_same_scores(r, cli, score_columns(cli, names(e)))
+  }
+  # the windows change the numbers: earlier-only differs from the default
+  a <- score(d, dx = "dx*", id = "patient_id", date = "admission_date", lookback = 730)
+  b <- score(d, dx = "dx*", id = "patient_id", date = "admission_date", lookback = 730,
+             window = "earlier-only")
+  expect_false(identical(a$charlson_quan2011, b$charlson_quan2011))
+  err <- tryCatch(score(d, dx = "dx*", id = "patient_id", date = "admission_date",
+                        lookback = c(nolist = 30)), morbus_usage_error = function(e) e)
+  expect_s3_class(err, "morbus_usage_error")
+  expect_identical(conditionMessage(err),
+                   cli_error("score", demo("episodes.csv"),
+                             c("--dx", "'dx*'", "--id", "patient_id", "--date",
+                               "admission_date", "--lookback", "nolist=30"))$message)
+})
+
+test_that("keep (long layout) and explain's label equal the command line's, typed", {
+  skip_without_cli()
+  l <- read_demo("episodes-long.csv")
+  l$admission_date <- as.Date(l$admission_date)
+  # a unit whose first row has no value takes its first non-empty one
+  l$died_within_30_days[1] <- NA
+  path <- tempfile(fileext = ".csv")
+  write.csv(l, path, row.names = FALSE, na = "")
+  cli <- run_cli("score", path,
+                 c("--layout", "long", "--dx", "code", "--id", "patient_id",
+                   "--episode", "episode_id", "--keep", "admission_date,died_within_30_days"))
+  r <- score(l, dx = "code", layout = "long", id = "patient_id", episode = "episode_id",
+             keep = c("admission_date", "died_within_30_days"))
+  expect_identical(names(r), names(cli))
+  expect_s3_class(r$admission_date, "Date")
+  expect_type(r$died_within_30_days, "integer")
+  expect_identical(format(r$admission_date), cli$admission_date)
+  expect_identical(as.character(r$died_within_30_days), cli$died_within_30_days)
+  expect_same_scores(r, cli, setdiff(names(cli), c("patient_id", "episode_id",
+                                                   "admission_date", "died_within_30_days")))
+  err <- tryCatch(score(l, dx = "code", keep = "age"), morbus_usage_error = function(e) e)
+  expect_identical(conditionMessage(err),
+                   cli_error("score", path, c("--dx", "code", "--keep", "age"))$message)
+
+  e <- read_demo()
+  cli <- run_cli("explain", demo("episodes.csv"),
+                 c("--dx", "'dx*'", "--id", "patient_id", "--label", "episode_id"))
+  x <- explain(e, dx = "dx*", id = "patient_id", label = "episode_id")
+  expect_identical(names(x), names(cli))
+  expect_identical(x$episode_id, cli$episode_id)
+  expect_identical(x$row, as.integer(cli$row))
+})

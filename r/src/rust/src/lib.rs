@@ -369,6 +369,7 @@ unsafe fn request(opts: SEXP) -> Request {
         date: s("date"),
         date_format: s("date_format"),
         lookback: s("lookback"),
+        window: s("window"),
         exclude_primary: flag(element(opts, "exclude_primary")),
         primary: s("primary"),
         poa: s("poa"),
@@ -384,6 +385,9 @@ unsafe fn request(opts: SEXP) -> Request {
         } else {
             0
         },
+        edition: s("edition"),
+        keep: string_vec(element(opts, "keep")),
+        label: s("label"),
     }
 }
 
@@ -480,10 +484,11 @@ unsafe fn json_value(v: &serde_json::Value) -> SEXP {
 }
 
 /// `.Call("morbus_r_score", columns, names, options, lists_dir)`: scores a
-/// data frame. Returns `list(columns, first_rows, provenance, report)`:
-/// the score columns (a named list), the 1-based frame row of each output
-/// row's unit (long layout, else `NULL`), the provenance as a list and the
-/// summary line.
+/// data frame. Returns `list(columns, first_rows, kept_rows, provenance,
+/// report)`: the score columns (a named list), the 1-based frame row of
+/// each output row's unit (long layout, else `NULL`), per `keep` column the
+/// 1-based row whose value each unit carries (`NA`: none), the provenance
+/// as a list and the summary line.
 #[no_mangle]
 pub unsafe extern "C" fn morbus_r_score(data: SEXP, names: SEXP, opts: SEXP, dir: SEXP) -> SEXP {
     guarded(|| {
@@ -517,6 +522,15 @@ pub unsafe extern "C" fn morbus_r_score(data: SEXP, names: SEXP, opts: SEXP, dir
             Some(rows) => p.one(int_vec(rows.iter().map(|&r| Some(r as i64 + 1)))),
             None => R_NilValue,
         };
+        // Per kept column, the 1-based row whose value each unit carries.
+        let kept = p.one(Rf_allocVector(VECSXP, scored.kept_rows.len() as isize));
+        for (j, rows) in scored.kept_rows.iter().enumerate() {
+            SET_VECTOR_ELT(
+                kept,
+                j as isize,
+                int_vec(rows.iter().map(|r| r.map(|r| r as i64 + 1))),
+            );
+        }
         let prov_json: serde_json::Value =
             serde_json::from_str(&prov).unwrap_or(serde_json::Value::Null);
         let prov = p.one(json_value(&prov_json));
@@ -524,6 +538,7 @@ pub unsafe extern "C" fn morbus_r_score(data: SEXP, names: SEXP, opts: SEXP, dir
         named_list(vec![
             ("columns".into(), cols),
             ("first_rows".into(), first),
+            ("kept_rows".into(), kept),
             ("provenance".into(), prov),
             ("report".into(), report),
         ])
@@ -531,8 +546,10 @@ pub unsafe extern "C" fn morbus_r_score(data: SEXP, names: SEXP, opts: SEXP, dir
 }
 
 /// `.Call("morbus_r_explain", columns, names, options, lists_dir)`:
-/// `list(columns, report)`, the columns of `morbus explain` after the id
-/// and episode columns (`source_date` as days since 1970-01-01).
+/// `list(columns, label_rows, report)`, the columns of `morbus explain`
+/// after the id, episode and label columns (`source_date` as days since
+/// 1970-01-01) and, with `label`, the 1-based row of each record's label
+/// value (`NA`: none).
 #[no_mangle]
 pub unsafe extern "C" fn morbus_r_explain(data: SEXP, names: SEXP, opts: SEXP, dir: SEXP) -> SEXP {
     guarded(|| {
@@ -585,8 +602,19 @@ pub unsafe extern "C" fn morbus_r_explain(data: SEXP, names: SEXP, opts: SEXP, d
         .map(|(n, v)| (n.to_string(), v))
         .collect();
         let cols = p.one(named_list(items));
+        let labels = if ex.label_rows.is_empty() {
+            R_NilValue
+        } else {
+            p.one(int_vec(
+                ex.label_rows.iter().map(|r| r.map(|r| r as i64 + 1)),
+            ))
+        };
         let report = p.one(string(&summary.report()));
-        named_list(vec![("columns".into(), cols), ("report".into(), report)])
+        named_list(vec![
+            ("columns".into(), cols),
+            ("label_rows".into(), labels),
+            ("report".into(), report),
+        ])
     })
 }
 
