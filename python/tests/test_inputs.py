@@ -302,7 +302,10 @@ def test_provenance_describes_the_run():
     assert prov["options"]["dx"] == ["dx2", "dx1"]
     assert prov["options"]["dx_columns"] == ["dx2", "dx1"]
     assert prov["options"]["flags"] is True and prov["options"]["hierarchy"] is True
-    assert prov["rows"] == {"read": 7, "written": 7, "units": 7, "missing_ids": 0, "disagreeing_units": 0}
+    assert prov["rows"] == {
+        "read": 7, "written": 7, "units": 7, "missing_ids": 0, "disagreeing_units": 0,
+        "spilled_records": 0, "spilled_bytes": 0,
+    }
     assert prov["codes"]["read"] == 9 and prov["codes"]["invalid"] == 1
     assert prov["codes"]["top_invalid"] == [{"value": "N/A", "count": 1}]
     assert prov["ages"] is None
