@@ -161,8 +161,17 @@ def compare(
     if report is not None:
         path = os.fspath(report)
         tmp = f"{path}.tmp-{os.getpid()}"
-        with open(tmp, "w", encoding="utf-8") as f:
-            f.write(html)
-        os.replace(tmp, path)
+        try:
+            with open(tmp, "w", encoding="utf-8") as f:
+                f.write(html)
+                f.flush()
+                os.fsync(f.fileno())
+            os.replace(tmp, path)
+        except BaseException:
+            # A failed write (a full disk, an interrupt) leaves no partial
+            # report behind and the earlier file, if any, untouched.
+            if os.path.exists(tmp):
+                os.remove(tmp)
+            raise
     result: Dict[str, Any] = json.loads(js)
     return (result, table) if text else result

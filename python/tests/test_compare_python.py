@@ -63,6 +63,16 @@ def test_report_and_text(tmp_path: Path):
     assert html.count('aria-label="funnel plot') == len(result["providers"]["specifications"])
     assert "Providers by 'site'" in text
 
+    # A report that cannot be put in place (its path is a directory) raises
+    # and leaves no temporary file beside it; the directory is untouched.
+    target = tmp_path / "taken"
+    target.mkdir()
+    (target / "inside.txt").write_text("kept")
+    with pytest.raises(OSError):
+        morbus.compare(frame, **OPTIONS, report=target)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["r.html", "taken"]
+    assert (target / "inside.txt").read_text() == "kept"
+
 
 def test_errors_carry_the_command_line_messages():
     frame = pd.DataFrame({"dx1": ["I21.9", "E11.9"], "died": [1, 0]})
