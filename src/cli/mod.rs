@@ -739,6 +739,59 @@ fn names_list(values: &[String]) -> Vec<String> {
         .collect()
 }
 
+/// The history options of `score`, `explain`, `compare` and `sql`, read
+/// and checked in one place (the same messages for every command).
+struct HistoryOptions {
+    lookback: Option<u32>,
+    lookback_lists: Vec<(String, u32)>,
+    window: pipeline::WindowScope,
+    date_format: DateFormat,
+}
+
+fn history_options(
+    lookback: Option<&str>,
+    window: &str,
+    date_format: Option<&str>,
+    poa_values: &str,
+    date_without_episode: bool,
+) -> Result<HistoryOptions, Error> {
+    let (days, lookback_lists) = match lookback {
+        None => (None, Vec::new()),
+        Some(t) => pipeline::parse_lookback(t, "--lookback")?,
+    };
+    let scope = pipeline::WindowScope::parse(window).ok_or_else(|| {
+        Error::Usage(format!(
+            "--window takes 'current-and-earlier' or 'earlier-only', not '{window}'"
+        ))
+    })?;
+    if scope != pipeline::WindowScope::default() && lookback.is_none() {
+        return Err(Error::Usage(
+            "--window is used with --lookback DAYS (or 'all')".into(),
+        ));
+    }
+    let date_format = match date_format {
+        None => DateFormat::Iso,
+        Some(p) => DateFormat::from_pattern_checked(p)
+            .map_err(|why| Error::Usage(format!("--date-format '{p}' {why}")))?,
+    };
+    if poa_values.trim().is_empty() {
+        return Err(Error::Usage(
+            "--poa-values is empty; name the values that count (e.g. Y,W,1,blank)".into(),
+        ));
+    }
+    if date_without_episode && lookback.is_none() {
+        return Err(Error::Usage(
+            "--date is used with --lookback DAYS (or 'all')".into(),
+        ));
+    }
+    Ok(HistoryOptions {
+        lookback: days,
+        lookback_lists,
+        window: scope,
+        date_format,
+    })
+}
+
 fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
     let layout = match a.layout {
         LayoutArg::Wide => Layout::Wide,
@@ -747,36 +800,18 @@ fn config_for(a: &InputArgs) -> Result<ScoreConfig, Error> {
     if layout == Layout::Long && a.id.is_none() {
         return Err(Error::Usage("--layout long needs --id COL".into()));
     }
-    let (lookback, lookback_lists) = match a.lookback.as_deref() {
-        None => (None, Vec::new()),
-        Some(t) => morbus::pipeline::parse_lookback(t, "--lookback")?,
-    };
-    let window = morbus::pipeline::WindowScope::parse(&a.window).ok_or_else(|| {
-        Error::Usage(format!(
-            "--window takes 'current-and-earlier' or 'earlier-only', not '{}'",
-            a.window
-        ))
-    })?;
-    if window != morbus::pipeline::WindowScope::default() && a.lookback.is_none() {
-        return Err(Error::Usage(
-            "--window is used with --lookback DAYS (or 'all')".into(),
-        ));
-    }
-    let date_format = match a.date_format.as_deref() {
-        None => DateFormat::Iso,
-        Some(p) => DateFormat::from_pattern_checked(p)
-            .map_err(|why| Error::Usage(format!("--date-format '{p}' {why}")))?,
-    };
-    if a.poa_values.trim().is_empty() {
-        return Err(Error::Usage(
-            "--poa-values is empty; name the values that count (e.g. Y,W,1,blank)".into(),
-        ));
-    }
-    if a.date.is_some() && a.lookback.is_none() && a.episode.is_none() {
-        return Err(Error::Usage(
-            "--date is used with --lookback DAYS (or 'all')".into(),
-        ));
-    }
+    let HistoryOptions {
+        lookback,
+        lookback_lists,
+        window,
+        date_format,
+    } = history_options(
+        a.lookback.as_deref(),
+        &a.window,
+        a.date_format.as_deref(),
+        &a.poa_values,
+        a.date.is_some() && a.episode.is_none(),
+    )?;
     Ok(ScoreConfig {
         episode: a.episode.clone(),
         date: a.date.clone(),
@@ -1139,36 +1174,18 @@ into known, extended and unknown for the summary, and never changes a score; the
 no summary (run `morbus score --edition {e}` on a sample to see those counts)"
         )));
     }
-    let (lookback, lookback_lists) = match a.lookback.as_deref() {
-        None => (None, Vec::new()),
-        Some(t) => pipeline::parse_lookback(t, "--lookback")?,
-    };
-    let window = pipeline::WindowScope::parse(&a.window).ok_or_else(|| {
-        Error::Usage(format!(
-            "--window takes 'current-and-earlier' or 'earlier-only', not '{}'",
-            a.window
-        ))
-    })?;
-    if window != pipeline::WindowScope::default() && a.lookback.is_none() {
-        return Err(Error::Usage(
-            "--window is used with --lookback DAYS (or 'all')".into(),
-        ));
-    }
-    let date_format = match a.date_format.as_deref() {
-        None => DateFormat::Iso,
-        Some(p) => DateFormat::from_pattern_checked(p)
-            .map_err(|why| Error::Usage(format!("--date-format '{p}' {why}")))?,
-    };
-    if a.poa_values.trim().is_empty() {
-        return Err(Error::Usage(
-            "--poa-values is empty; name the values that count (e.g. Y,W,1,blank)".into(),
-        ));
-    }
-    if a.date.is_some() && a.lookback.is_none() && a.episode.is_none() {
-        return Err(Error::Usage(
-            "--date is used with --lookback DAYS (or 'all')".into(),
-        ));
-    }
+    let HistoryOptions {
+        lookback,
+        lookback_lists,
+        window,
+        date_format,
+    } = history_options(
+        a.lookback.as_deref(),
+        &a.window,
+        a.date_format.as_deref(),
+        &a.poa_values,
+        a.date.is_some() && a.episode.is_none(),
+    )?;
     let config = ScoreConfig {
         dx: a.dx.clone(),
         dx_sep: a
