@@ -47,6 +47,7 @@
 use std::borrow::Cow;
 
 use crate::columnar::{self, Age, Rows, Scorer};
+use crate::compare::{CompareOptions, Comparison};
 use crate::lists::{SCALE, SCALE_DECIMALS};
 use crate::pipeline::explain::explain_history;
 use crate::pipeline::history::{History, Input, Needs, Windows};
@@ -489,6 +490,106 @@ pub fn used_columns(cfg: &ScoreConfig, header: &Header) -> Result<Vec<usize>, Er
     cols.sort_unstable();
     cols.dedup();
     Ok(cols)
+}
+
+/// The columns `compare` reads besides the run's (outcome, adjustments,
+/// splines, `--by`, `--cluster`), resolved with the command line's
+/// messages.
+fn compare_used(opts: &CompareOptions, header: &Header) -> Result<Vec<Used>, Error> {
+    let mut names: Vec<(&str, &'static str)> = vec![(&opts.outcome, "outcome")];
+    for n in opts
+        .adjust
+        .iter()
+        .chain(&opts.adjust_categorical)
+        .chain(opts.splines.iter().map(|(c, _)| c))
+        .chain(&opts.by)
+        .chain(&opts.cluster)
+    {
+        names.push((n, "adjustment"));
+    }
+    names
+        .into_iter()
+        .map(|(n, what)| {
+            Ok(Used {
+                col: header.column(n, what)?,
+                role: Role::Keep,
+                what,
+                name: n.to_string(),
+            })
+        })
+        .collect()
+}
+
+/// The frame columns `compare` reads (each once, in frame order): those of
+/// [`used_columns`] and the outcome, adjustment, `--by` and `--cluster`
+/// columns. A binding fetches these and no others.
+pub fn compare_columns(
+    cfg: &ScoreConfig,
+    opts: &CompareOptions,
+    header: &Header,
+) -> Result<Vec<usize>, Error> {
+    let mut cols = used_columns(cfg, header)?;
+    cols.extend(compare_used(opts, header)?.iter().map(|u| u.col));
+    cols.sort_unstable();
+    cols.dedup();
+    Ok(cols)
+}
+
+/// `morbus compare` over a frame: the frame's rows go, typed, to the same
+/// [`crate::compare::compare`] as the command line's input (no text is
+/// made of them); the outcome and adjustment values are read typed with
+/// the text's rules, and messages name the frame's rows from `first_row`.
+///
+/// ```
+/// use morbus::compare::CompareOptions;
+/// use morbus::frame::{self, Columns, Field, Kind};
+/// use morbus::lists::Catalogue;
+/// use morbus::pipeline::{Header, ScoreConfig};
+/// use morbus::score::{Engine, IndexSpec, ScoreOptions};
+///
+/// // A diagnosis column (text) and a true/false outcome.
+/// struct Frame(Vec<(&'static str, bool)>);
+/// impl Columns for Frame {
+///     fn rows(&self) -> usize { self.0.len() }
+///     fn kind(&self, col: usize) -> Kind { [Kind::Text, Kind::Logical][col] }
+///     fn field(&self, col: usize, row: usize) -> Field<'_> {
+///         let (dx, died) = self.0[row];
+///         if col == 0 { Field::Text(dx.as_bytes()) } else { Field::Logical(died) }
+///     }
+/// }
+///
+/// let specs = IndexSpec::parse_many("charlson:count").unwrap();
+/// let engine = Engine::new(&Catalogue::builtin(), &specs, ScoreOptions::default()).unwrap();
+/// let cfg = ScoreConfig { dx: vec!["dx1".into()], ..ScoreConfig::default() };
+/// let opts = CompareOptions { outcome: "died".into(), ..CompareOptions::default() };
+/// let header = Header { names: vec!["dx1".into(), "died".into()] };
+/// let rows = Frame(vec![("I21.9", true), ("", false), ("C78.0", true), ("J18.9", false)]);
+/// let (c, _) = frame::compare(&engine, &cfg, &opts, &header, &rows, 0).unwrap();
+/// assert_eq!((c.units.analysed, c.units.events), (4, 2));
+/// // Both units with the outcome score 1, neither without it: c = 1.
+/// assert_eq!(c.indices[0].c_statistic.as_ref().unwrap().estimate, 1.0);
+/// ```
+pub fn compare(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    opts: &CompareOptions,
+    header: &Header,
+    cols: &impl Columns,
+    first_row: u64,
+) -> Result<(Comparison, Summary), Error> {
+    let mut used = resolve(cfg, header)?;
+    used.extend(compare_used(opts, header)?);
+    let typed_format = cfg.date_format != DateFormat::Iso;
+    for u in &used {
+        check_kind(cols, u, typed_format)?;
+    }
+    let rows = FrameRows {
+        cols,
+        names: &header.names,
+        next: 0,
+        first_row,
+    };
+    crate::compare::compare(engine, cfg, opts, Input::Rows(Box::new(rows)))
 }
 
 /// Scores a frame: every row (wide) or every unit (long) of it.

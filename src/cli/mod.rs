@@ -1065,8 +1065,10 @@ fn compare(a: CompareArgs) -> Result<(), Error> {
         wanted.extend(cfg.id.iter().cloned());
     }
     let mut input = open_extract("compare", &a.input, &cfg, true, &wanted)?;
-    let (result, summary) = morbus::compare::compare(&engine, &cfg, &opts, input.take_reader())
-        .map_err(|e| input.translate(e))?;
+    // A Parquet input's rows are read typed (rows named `row N of FILE`).
+    let rows = input.take_input()?;
+    let (result, summary) =
+        morbus::compare::compare(&engine, &cfg, &opts, rows).map_err(|e| input.translate(e))?;
     if let Some(file) = json_file {
         let text = morbus::compare::json_text(&result)?;
         file.write_and_commit((text + "\n").as_bytes())?;

@@ -1016,6 +1016,10 @@ pub(crate) struct Plan {
     pub poa: Vec<usize>,
     /// Columns carried into each unit's output row.
     pub keep: Vec<usize>,
+    /// Checked columns each unit carries (`history::ValueColumn`:
+    /// `compare`'s outcome and adjustment columns); set by the history
+    /// reader.
+    pub values: Vec<usize>,
     pub ncols: usize,
     pub crlf: bool,
 }
@@ -1159,6 +1163,7 @@ impl Plan {
             primary,
             poa,
             keep,
+            values: Vec::new(),
             crlf,
         })
     }
