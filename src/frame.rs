@@ -881,70 +881,6 @@ impl<C: Columns> Batch for FramePart<'_, C> {
     }
 }
 
-/// The units of a frame in order of first appearance, as the history
-/// reader forms them: every row (wide), or the rows sharing the id and
-/// episode values (long; values compared as the text the reader sees).
-/// Returns each row's unit and each unit's first row.
-fn units(cfg: &ScoreConfig, cols: &impl Columns, used: &[Used]) -> (Vec<u32>, Vec<u64>) {
-    let n = cols.rows();
-    if cfg.layout == Layout::Wide {
-        return ((0..n as u32).collect(), (0..n as u64).collect());
-    }
-    let col = |what: &str| {
-        used.iter()
-            .find(|u| u.role == Role::Id && u.what == what)
-            .map(|u| u.col)
-    };
-    let (id, episode) = (col("id"), col("episode"));
-    let text = |c: Option<usize>, r: usize| -> Vec<u8> {
-        c.and_then(|c| cols.field(c, r).text())
-            .map(Cow::into_owned)
-            .unwrap_or_default()
-    };
-    let mut index: std::collections::HashMap<(Vec<u8>, Vec<u8>), u32> =
-        std::collections::HashMap::new();
-    let mut of_row = Vec::with_capacity(n);
-    let mut first = Vec::new();
-    for r in 0..n {
-        let next = first.len() as u32;
-        let u = *index.entry((text(id, r), text(episode, r))).or_insert(next);
-        if u == next {
-            first.push(r as u64);
-        }
-        of_row.push(u);
-    }
-    (of_row, first)
-}
-
-/// Per kept column (`keep`, `label`), per unit, the frame row whose value
-/// the unit carries: its first row with a non-empty value (the value the
-/// history reader keeps, checked against it by the caller).
-fn kept_rows(
-    cols: &impl Columns,
-    used: &[Used],
-    of_row: &[u32],
-    units: usize,
-) -> Vec<Vec<Option<u64>>> {
-    used.iter()
-        .filter(|u| u.role == Role::Keep)
-        .map(|u| {
-            let mut rows = vec![None; units];
-            for (r, &e) in of_row.iter().enumerate() {
-                let slot = &mut rows[e as usize];
-                if slot.is_none()
-                    && cols
-                        .field(u.col, r)
-                        .text()
-                        .is_some_and(|t| !t.trim_ascii().is_empty())
-                {
-                    *slot = Some(r as u64);
-                }
-            }
-            rows
-        })
-        .collect()
-}
-
 /// Refuses kept columns named twice or already in the output.
 fn check_kept(used: &[Used], engine: &Engine, label: bool) -> Result<(), Error> {
     let mut out: Vec<&str> = used
@@ -1033,30 +969,11 @@ fn score_history(
             out.push(&values);
             first.push(hist.row(e) - 1);
         }
-        let kept_rows = if cfg.keep.is_empty() {
-            Vec::new()
-        } else {
-            let (of_row, unit_first) = units(cfg, cols, used);
-            let kept = kept_rows(cols, used, &of_row, unit_first.len());
-            // The rows found carry the values the history reader kept.
-            let agree = unit_first == first
-                && kept.iter().enumerate().all(|(j, rows)| {
-                    rows.iter().enumerate().all(|(e, r)| {
-                        let text = r.and_then(|r| {
-                            let k = used.iter().filter(|u| u.role == Role::Keep).nth(j);
-                            k.and_then(|u| cols.field(u.col, r as usize).text())
-                        });
-                        text.as_deref().unwrap_or(b"") == hist.kept(e, j)
-                    })
-                });
-            if !agree {
-                return Err(Error::data(
-                    None,
-                    "internal error: the kept values' rows do not match the history's units",
-                ));
-            }
-            kept
-        };
+        // Each unit's kept values: the frame rows the history took them
+        // from (1-based data rows there), for the binding to take typed.
+        let kept_rows = (0..cfg.keep.len())
+            .map(|j| (0..n).map(|e| hist.kept_row(e, j).map(|r| r - 1)).collect())
+            .collect();
         summary.rows_written += n as u64;
         summary.units += n as u64;
         if cfg.layout == Layout::Wide && n != cols.rows() {
@@ -1104,6 +1021,7 @@ pub fn explain(
         rows: false,
     };
     let (mut hist, mut summary) = read_history(engine, cfg, header, cols, first_row, needs)?;
+    let label = !cfg.keep.is_empty();
     let sorted = hist.resolve(&windows);
     let hist = hist;
     let mut ex = Explained {
@@ -1145,20 +1063,13 @@ pub fn explain(
         ex.status.push(r.status);
         ex.age_points
             .push(r.age_points.map(|a| number(a, r.decimals)));
+        if label {
+            // The frame row the history took the episode's label from.
+            ex.label_rows
+                .push(hist.kept_row(r.episode, 0).map(|row| row - 1));
+        }
         Ok(())
     })?;
-    if !cfg.keep.is_empty() {
-        let (of_row, unit_first) = units(cfg, cols, &used);
-        let label = kept_rows(cols, &used, &of_row, unit_first.len())
-            .into_iter()
-            .next()
-            .unwrap_or_default();
-        ex.label_rows = ex
-            .row
-            .iter()
-            .map(|&r| label[of_row[r as usize - 1] as usize])
-            .collect();
-    }
     summary.units += hist.episodes.len() as u64;
     summary.rows_written = summary.units;
     Ok((ex, summary))

@@ -1292,7 +1292,8 @@ impl History {
 
     /// The data row (1-based) whose value of kept column `j` episode `e`
     /// carries (its first row with a non-empty value); `None` when none
-    /// has one.
+    /// has one. (A history read back from partitions gives the episode's
+    /// first row instead; the frames that ask never spill.)
     pub fn kept_row(&self, e: usize, j: usize) -> Option<u64> {
         let k = self.plan.keep.len();
         Some(self.kept_rows[e * k + j]).filter(|&r| r != 0)
