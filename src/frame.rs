@@ -1,5 +1,5 @@
-//! `score` and `explain` over the typed columns of a data frame, for the
-//! language bindings (the R package, the Python package).
+//! `score`, `explain` and `compare` over the typed columns of a data
+//! frame, for the language bindings (the R package, the Python package).
 //!
 //! A binding describes its frame through [`Columns`]: for every column its
 //! [`Kind`] and, row by row, its [`Field`]s (text read in place, numbers,
@@ -17,7 +17,9 @@
 //!   [`crate::rows`]: no text is made of the frame. Codes, indicators,
 //!   dates and ages are read by the same functions as a text record's
 //!   fields; messages name the frame's rows and columns. `explain`'s
-//!   records come back typed from the history's codes.
+//!   records come back typed from the history's codes; [`compare`] hands
+//!   the rows to [`crate::compare::compare`], which reads the outcome and
+//!   adjustment columns typed in the same pass.
 //!
 //! Results come back typed, one vector per output column ([`Scored`],
 //! [`Explained`]). Rows in messages are numbered from `first_row` (0 for

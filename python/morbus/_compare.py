@@ -85,8 +85,17 @@ def compare(
     >>> r["splines"][0]["terms"], r["clusters"]["clusters"]
     (['age', 'age_spline1'], 2)
 
+    The frame's used columns reach the engine typed, as for
+    ``morbus.score``: the outcome may hold whole numbers 0/1, numbers
+    0.0/1.0 (NaN missing), true/false or text.
+
+    >>> df["died"] = df["died"] == 1          # true/false: the same numbers
+    >>> morbus.compare(df, dx="dx1", outcome="died", index="charlson:count",
+    ...                by="site", min_expected=0)["units"]["events"]
+    4
+
     Errors raise ``KeyError`` (a missing column) or ``ValueError`` with the
-    command line's messages.
+    command line's messages, naming the frame's 0-based rows.
     """
     from . import _catalogue, _history, _options
 
