@@ -1836,6 +1836,56 @@ mod tests {
     }
 
     #[test]
+    fn typed_values_read_as_their_text() {
+        use Field::*;
+        // Each typed value beside its text form: the same reading.
+        let outcomes: [(Field<'static>, &[u8], Result<Option<bool>, ()>); 10] = [
+            (Integer(0), b"0", Ok(Some(false))),
+            (Integer(1), b"1", Ok(Some(true))),
+            (Number(0.0), b"0.0", Ok(Some(false))),
+            (Number(1.0), b"1.0", Ok(Some(true))),
+            (Logical(true), b"TRUE", Ok(Some(true))),
+            (Logical(false), b"false", Ok(Some(false))),
+            (Integer(2), b"2", Err(())),
+            (Number(0.5), b"0.5", Err(())),
+            (Number(f64::NAN), b"NA", Ok(None)),
+            (Null, b"", Ok(None)),
+        ];
+        for (typed, text, expected) in outcomes {
+            assert_eq!(read_outcome(typed), expected, "{typed:?}");
+            assert_eq!(read_outcome(Text(text)), expected, "{text:?}");
+        }
+        assert_eq!(read_outcome(Text(b"yes")), Err(()));
+        assert_eq!(read_outcome(Date(0)), Err(()));
+        assert_eq!(read_outcome(Text(b"1970-01-01")), Err(()));
+        let numbers: [(Field<'static>, &[u8], Result<Option<f64>, ()>); 6] = [
+            (Integer(72), b"72", Ok(Some(72.0))),
+            (Number(72.5), b"72.5", Ok(Some(72.5))),
+            (Logical(true), b"true", Ok(Some(1.0))),
+            (Number(f64::INFINITY), b"inf", Err(())),
+            (Date(0), b"1970-01-01", Err(())),
+            (Number(f64::NAN), b"N/K", Ok(None)),
+        ];
+        for (typed, text, expected) in numbers {
+            assert_eq!(read_number(typed), expected, "{typed:?}");
+            assert_eq!(read_number(Text(text)), expected, "{text:?}");
+        }
+        // A typed level is its text form.
+        for (typed, text) in [
+            (Integer(3), &b"3"[..]),
+            (Number(2.5), b"2.5"),
+            (Number(3.0), b"3"),
+            (Logical(true), b"true"),
+            (Date(0), b"1970-01-01"),
+        ] {
+            assert_eq!(read_label(typed).as_deref(), Some(text));
+            assert_eq!(read_label(Text(text)).as_deref(), Some(text));
+        }
+        assert_eq!(read_label(Text(b"NULL")), None);
+        assert_eq!(read_label(Null), None);
+    }
+
+    #[test]
     fn spearman_from_ranks_is_the_library_spearman() {
         let a = [3.0, 1.0, 4.0, 1.0, 5.0, 9.0, 2.0, 6.0, 5.0, 3.0];
         let b = [2.0, 7.0, 1.0, 8.0, 2.0, 8.0, 1.0, 8.0, 2.0, 8.0];
