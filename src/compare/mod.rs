@@ -188,6 +188,38 @@ pub struct Comparison {
     pub caution: String,
 }
 
+impl Comparison {
+    /// Every note of the comparison, each prefixed with what it concerns,
+    /// in the order the table and the report list them: the whole run, the
+    /// adjustment-only model, each index, each pair, each index out of
+    /// sample, the providers.
+    pub fn all_notes(&self) -> Vec<String> {
+        let mut notes: Vec<String> = self.notes.clone();
+        for n in &self.adjustment_notes {
+            notes.push(format!("adjustment-only model: {n}"));
+        }
+        for ix in &self.indices {
+            for n in &ix.notes {
+                notes.push(format!("{}: {n}", ix.name));
+            }
+        }
+        for p in &self.pairs {
+            for n in &p.notes {
+                notes.push(format!("{} vs {}: {n}", p.a, p.b));
+            }
+        }
+        for ix in &self.indices {
+            for n in ix.out_of_sample.iter().flat_map(|o| &o.notes) {
+                notes.push(format!("{} (out of sample): {n}", ix.name));
+            }
+        }
+        if let Some(p) = &self.providers {
+            notes.extend(p.notes.iter().map(|n| format!("providers: {n}")));
+        }
+        notes
+    }
+}
+
 /// The pairs compared.
 #[derive(Clone, Debug, Serialize)]
 pub struct PairsCompared {

@@ -766,28 +766,7 @@ pub fn html_report(c: &Comparison) -> String {
     }
 
     // Notes.
-    let mut notes: Vec<String> = c.notes.clone();
-    for n in &c.adjustment_notes {
-        notes.push(format!("adjustment-only model: {n}"));
-    }
-    for ix in &c.indices {
-        for n in &ix.notes {
-            notes.push(format!("{}: {n}", ix.name));
-        }
-    }
-    for p in &c.pairs {
-        for n in &p.notes {
-            notes.push(format!("{} vs {}: {n}", p.a, p.b));
-        }
-    }
-    for ix in &c.indices {
-        for n in ix.out_of_sample.iter().flat_map(|o| &o.notes) {
-            notes.push(format!("{} (out of sample): {n}", ix.name));
-        }
-    }
-    if let Some(p) = &c.providers {
-        notes.extend(p.notes.iter().map(|n| format!("providers: {n}")));
-    }
+    let notes = c.all_notes();
     if !notes.is_empty() {
         h.push_str("<h2>Notes</h2><ul class=\"notes\">");
         for n in notes {

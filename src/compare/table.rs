@@ -524,28 +524,7 @@ pub fn text_table(c: &Comparison) -> String {
         }
     }
 
-    let mut notes: Vec<String> = c.notes.clone();
-    for n in &c.adjustment_notes {
-        notes.push(format!("adjustment-only model: {n}"));
-    }
-    for i in &c.indices {
-        for n in &i.notes {
-            notes.push(format!("{}: {n}", i.name));
-        }
-    }
-    for p in &c.pairs {
-        for n in &p.notes {
-            notes.push(format!("{} vs {}: {n}", p.a, p.b));
-        }
-    }
-    for i in &c.indices {
-        for n in i.out_of_sample.iter().flat_map(|s| &s.notes) {
-            notes.push(format!("{} (out of sample): {n}", i.name));
-        }
-    }
-    if let Some(p) = &c.providers {
-        notes.extend(p.notes.iter().map(|n| format!("providers: {n}")));
-    }
+    let notes = c.all_notes();
     if !notes.is_empty() {
         o.push_str("\nNotes\n");
         for n in notes {
