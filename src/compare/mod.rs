@@ -288,6 +288,22 @@ pub struct UnitCounts {
     pub event_share: f64,
 }
 
+impl UnitCounts {
+    /// Why units were left out, one phrase per reason with its count (none
+    /// when every unit was analysed), as the table and the report say it.
+    pub fn left_out(&self) -> Vec<String> {
+        [
+            (self.missing_outcome, "without an outcome"),
+            (self.missing_adjustment, "with a missing adjustment value"),
+            (self.missing_age, "without a readable age"),
+        ]
+        .into_iter()
+        .filter(|&(n, _)| n > 0)
+        .map(|(n, why)| format!("{} {why}", fmt_count(n)))
+        .collect()
+    }
+}
+
 /// A restricted cubic spline of a numeric adjustment column.
 #[derive(Clone, Debug, Serialize)]
 pub struct Spline {

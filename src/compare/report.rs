@@ -453,25 +453,7 @@ pub fn html_report(c: &Comparison) -> String {
         );
     }
     h.push_str("</div>");
-    let mut left = Vec::new();
-    if u.missing_outcome > 0 {
-        left.push(format!(
-            "{} without an outcome",
-            fmt_count(u.missing_outcome)
-        ));
-    }
-    if u.missing_adjustment > 0 {
-        left.push(format!(
-            "{} with a missing adjustment value",
-            fmt_count(u.missing_adjustment)
-        ));
-    }
-    if u.missing_age > 0 {
-        left.push(format!(
-            "{} without a readable age",
-            fmt_count(u.missing_age)
-        ));
-    }
+    let left = u.left_out();
     h.push_str("<p>");
     if !left.is_empty() {
         let _ = write!(h, "Left out: {}. ", esc(&left.join(", ")));

@@ -163,25 +163,7 @@ pub fn text_table(c: &Comparison) -> String {
         fmt_count(u.events),
         pct(u.event_share)
     ));
-    let mut left = Vec::new();
-    if u.missing_outcome > 0 {
-        left.push(format!(
-            "{} without an outcome",
-            fmt_count(u.missing_outcome)
-        ));
-    }
-    if u.missing_adjustment > 0 {
-        left.push(format!(
-            "{} with a missing adjustment value",
-            fmt_count(u.missing_adjustment)
-        ));
-    }
-    if u.missing_age > 0 {
-        left.push(format!(
-            "{} without a readable age",
-            fmt_count(u.missing_age)
-        ));
-    }
+    let left = u.left_out();
     if !left.is_empty() {
         o.push_str(&format!("Left out: {}\n", left.join(", ")));
     }
