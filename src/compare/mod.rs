@@ -1883,11 +1883,14 @@ mod tests {
         assert_eq!(parse_number(b"seventy"), None);
     }
 
+    /// A typed value, its text form, and what both read as.
+    type Case<T> = (Field<'static>, &'static [u8], Result<Option<T>, ()>);
+
     #[test]
     fn typed_values_read_as_their_text() {
         use Field::*;
         // Each typed value beside its text form: the same reading.
-        let outcomes: [(Field<'static>, &[u8], Result<Option<bool>, ()>); 10] = [
+        let outcomes: [Case<bool>; 10] = [
             (Integer(0), b"0", Ok(Some(false))),
             (Integer(1), b"1", Ok(Some(true))),
             (Number(0.0), b"0.0", Ok(Some(false))),
@@ -1906,7 +1909,7 @@ mod tests {
         assert_eq!(read_outcome(Text(b"yes")), Err(()));
         assert_eq!(read_outcome(Date(0)), Err(()));
         assert_eq!(read_outcome(Text(b"1970-01-01")), Err(()));
-        let numbers: [(Field<'static>, &[u8], Result<Option<f64>, ()>); 6] = [
+        let numbers: [Case<f64>; 6] = [
             (Integer(72), b"72", Ok(Some(72.0))),
             (Number(72.5), b"72.5", Ok(Some(72.5))),
             (Logical(true), b"true", Ok(Some(1.0))),
