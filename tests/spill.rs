@@ -169,11 +169,25 @@ fn same_spilled(engine: &Engine, cfg: &ScoreConfig, input: &str, what: &str) {
     }
     assert_eq!(summary.is_err(), expect_error, "{what}: {summary:?}");
     // 0: everything spills after the first block; 40 KiB and 160 KiB:
-    // after some blocks, episodes read so far carried into the partitions.
-    for (memory, threads) in [(0, 1), (0, 2), (40 << 10, 2), (160 << 10, 1)] {
+    // after some blocks, episodes read so far carried into the partitions
+    // (or, knowing the input's size, as soon as a sixteenth of it shows
+    // that the history will not fit). Two threads with room for more than
+    // one partition at a time resolve partitions side by side; one
+    // partition at a time formats on both.
+    let size = Some(input.len() as u64);
+    for (memory, threads, input_size) in [
+        (0, 1, None),
+        (0, 2, None),
+        (40 << 10, 2, None),
+        (160 << 10, 1, None),
+        (40 << 10, 2, size),
+        (160 << 10, 1, size),
+        (1 << 20, 2, size),
+    ] {
         let cfg = ScoreConfig {
             memory,
             threads,
+            input_size,
             ..base.clone()
         };
         let (out, s) = run(&cfg);
@@ -300,11 +314,22 @@ fn spilled_rows_give_the_in_memory_output() {
     };
     let (reference, summary) = run(&base);
     assert_eq!(summary.rows_written, 40_000);
-    // Budgets: every block on disk, a few in memory then disk, all in memory.
-    for (memory, threads) in [(0, 1), (0, 2), (100 << 10, 1), (100 << 10, 3), (1 << 30, 2)] {
+    // Budgets: every block on disk, a few in memory then disk, all in
+    // memory; with the input's size known, partitions from early on.
+    let size = Some(input.len() as u64);
+    for (memory, threads, input_size) in [
+        (0, 1, None),
+        (0, 2, None),
+        (100 << 10, 1, None),
+        (100 << 10, 3, None),
+        (100 << 10, 2, size),
+        (1 << 30, 2, None),
+        (1 << 30, 2, size),
+    ] {
         let cfg = ScoreConfig {
             memory,
             threads,
+            input_size,
             ..base.clone()
         };
         let (out, s) = run(&cfg);

@@ -175,6 +175,12 @@ pub struct ScoreConfig {
     pub memory: u64,
     /// Directory of temporary files (`None`: the system's).
     pub temp_dir: Option<std::path::PathBuf>,
+    /// Bytes the input will give, when known beforehand (an uncompressed
+    /// file): a `score` history that will clearly not fit in `memory` then
+    /// goes to partitions as soon as that is plain, instead of being built
+    /// in memory first and carried over. Only a hint: the output is the
+    /// same with or without it.
+    pub input_size: Option<u64>,
     /// Leave the primary diagnosis of the episode being scored out.
     pub exclude_primary: bool,
     /// Long layout: column flagging the primary-diagnosis row.
@@ -359,6 +365,7 @@ impl Default for ScoreConfig {
             keep: Vec::new(),
             memory: DEFAULT_MEMORY,
             temp_dir: None,
+            input_size: None,
             exclude_primary: false,
             primary: None,
             poa: None,
@@ -852,6 +859,7 @@ fn shown_top(top: &[(String, u64)]) -> String {
 }
 
 /// The header of an extract.
+#[derive(Clone)]
 pub struct Header {
     pub names: Vec<String>,
 }
@@ -1003,6 +1011,7 @@ pub enum Exclusion {
 }
 
 /// The columns a run uses, resolved against the header.
+#[derive(Clone)]
 pub(crate) struct Plan {
     pub header: Header,
     pub dx: Vec<usize>,
