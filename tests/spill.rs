@@ -65,6 +65,7 @@ fn unspilled(s: Summary) -> Summary {
     Summary {
         spilled_records: 0,
         spilled_bytes: 0,
+        over_memory: None,
         ..s
     }
 }
@@ -610,4 +611,73 @@ fn a_spilled_failure_leaves_no_file() {
     );
     assert_eq!(files_in(&temp), 0);
     assert!(!std::path::Path::new(&dir.join("out.csv")).exists());
+}
+
+#[test]
+fn a_placeholder_id_over_the_limit_is_named_loudly() {
+    // Two rows in five under the placeholder id UNKNOWN: spilled, its
+    // partition alone holds more than half of the 64 KiB limit. The output
+    // is the in-memory run's; the summary and provenance say the limit was
+    // passed and name the id with its episodes.
+    let dir = TempDir::new("spill-placeholder");
+    let temp = dir.path().join("tmp");
+    std::fs::create_dir(&temp).unwrap();
+    let mut text = String::new();
+    let (mut unknown, mut record) = (0, 0);
+    // Records start with their id `pN,`; a quoted note's second line does
+    // not.
+    for line in history(5_000).split_inclusive('\n') {
+        if line.starts_with('p') && !line.starts_with("pid,") {
+            record += 1;
+            if record % 5 < 2 {
+                unknown += 1;
+                let rest = line.split_once(',').unwrap().1;
+                text.push_str(&format!("UNKNOWN,{rest}"));
+                continue;
+            }
+        }
+        text.push_str(line);
+    }
+    let input = dir.write("in.csv", &text);
+    let args = |memory: &str, prov: &str| {
+        vec![
+            "score".to_string(),
+            input.clone(),
+            "--dx".into(),
+            "dx*".into(),
+            "--id".into(),
+            "pid".into(),
+            "--date".into(),
+            "date".into(),
+            "--lookback".into(),
+            "365".into(),
+            "--memory".into(),
+            memory.into(),
+            "--temp-dir".into(),
+            temp.display().to_string(),
+            "--provenance".into(),
+            dir.join(prov),
+        ]
+    };
+    let run = |a: &[String]| morbus(&a.iter().map(String::as_str).collect::<Vec<_>>());
+    let in_memory = run(&args("1GiB", "memory.json"));
+    let spilled = run(&args("64KiB", "spilled.json"));
+    assert_eq!(in_memory.code, 0, "{}", in_memory.stderr);
+    assert_eq!(spilled.code, 0, "{}", spilled.stderr);
+    assert!(spilled.stdout == in_memory.stdout, "outputs differ");
+    assert_eq!(files_in(&temp), 0);
+    let warning = "WARNING: the memory limit was passed";
+    assert!(spilled.stderr.contains(warning), "{}", spilled.stderr);
+    let named = format!("patient id 'UNKNOWN' alone has {unknown} of its");
+    assert!(spilled.stderr.contains(&named), "{}", spilled.stderr);
+    assert!(!in_memory.stderr.contains(warning), "{}", in_memory.stderr);
+    let prov = |name: &str| -> serde_json::Value {
+        serde_json::from_str(&std::fs::read_to_string(dir.join(name)).unwrap()).unwrap()
+    };
+    let over = &prov("spilled.json")["rows"]["over_memory"];
+    assert_eq!(over["id"], "UNKNOWN", "{over}");
+    assert_eq!(over["id_episodes"], unknown, "{over}");
+    assert!(over["episodes"].as_u64().unwrap() >= unknown, "{over}");
+    assert!(over["bytes"].as_u64().unwrap() > 32 << 10, "{over}");
+    assert!(prov("memory.json")["rows"].get("over_memory").is_none());
 }

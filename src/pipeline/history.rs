@@ -1048,6 +1048,11 @@ impl History {
         self.patients.get(p)
     }
 
+    /// Number of patients (rows without an id each count as one).
+    pub(crate) fn patients_len(&self) -> usize {
+        self.patients.len()
+    }
+
     /// Episodes in window order: per patient, dated episodes by date, then
     /// undated ones; input order breaks ties.
     pub fn window_order(&self) -> Vec<u32> {

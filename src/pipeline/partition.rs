@@ -40,7 +40,7 @@ use std::sync::mpsc::sync_channel;
 
 use super::history::{check_unreadable_dates, Builder, DateRead, Formatter, RowIn, Windows};
 use super::rows_store::RowStore;
-use super::{Layout, Plan, ScoreConfig, Summary};
+use super::{Layout, OverMemory, Plan, ScoreConfig, Summary};
 use crate::matcher::KeyHasher;
 use crate::score::Engine;
 use crate::Error;
@@ -545,6 +545,9 @@ fn resolve_partition(
     }
     drop(input);
     crate::io::atomic::remove_working_file(&path.0);
+    // Over half of --memory: the limit is passed; say so loudly, naming
+    // the id with the most episodes (one patient cannot be split).
+    let held = builder.heap_bytes() as u64;
     let store = RowStore::new(0, dir);
     let mut owned = builder.finish(
         p,
@@ -554,8 +557,22 @@ fn resolve_partition(
         &mut summary,
     );
     owned.set_rows_apart(raw);
-    owned.resolve(windows);
     let n = owned.episodes.len();
+    if held > cfg.memory / 2 {
+        let mut per = vec![0u64; owned.patients_len()];
+        for ep in &owned.episodes {
+            per[ep.patient as usize] += 1;
+        }
+        if let Some((p, &k)) = per.iter().enumerate().max_by_key(|&(_, k)| *k) {
+            summary.over_memory = Some(OverMemory {
+                bytes: held,
+                episodes: n as u64,
+                id: owned.patient_id(p as u32).to_vec(),
+                id_episodes: k,
+            });
+        }
+    }
+    owned.resolve(windows);
     // Formatted in chunks (on `threads` threads), put together in order.
     let per = n.div_ceil(threads.max(1)).max(1);
     let hist = &owned;
