@@ -909,6 +909,12 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         } else {
             input.take_reader().into()
         };
+        // The input's size lets a history that will not fit go to
+        // partitions early (a hint; the output is the same without it).
+        let cfg = pipeline::ScoreConfig {
+            input_size: input.size,
+            ..cfg.clone()
+        };
         let result =
             pipeline::score_stream_observed(&engine, &cfg, rows, &mut output.writer, &mut |p| {
                 if show {

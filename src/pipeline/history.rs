@@ -23,8 +23,8 @@ use super::parallel::{run_batches, run_blocks};
 use super::partition::Spill;
 use super::rows_store::{Loaded, RowStore};
 use super::{
-    check_collisions, disagreement, keep_first, Exclusion, Layout, Plan, RowIssue, ScoreConfig,
-    Summary, WindowScope,
+    check_collisions, disagreement, keep_first, Exclusion, Layout, Plan, Progress, RowIssue,
+    ScoreConfig, Summary, WindowScope,
 };
 use crate::code::Code;
 use crate::io::{write_field, RecordScanner};
@@ -252,6 +252,10 @@ pub struct History {
     pub codes: Vec<CodeRecord>,
     /// `own_all` holds each episode's windowed set ([`History::resolve`]).
     resolved: bool,
+    /// Wide layout, spilled: the raw rows are put in front of each output
+    /// line elsewhere (`partition.rs`); a line holds the scores, each after
+    /// its delimiter.
+    rows_apart: bool,
 }
 
 /// How a row's date read.
@@ -646,6 +650,7 @@ impl Builder {
             raw_blocks,
             codes,
             resolved: false,
+            rows_apart: false,
         }
     }
 }
@@ -1028,6 +1033,20 @@ pub(crate) fn check_unreadable_dates(
     ))
 }
 
+/// Whether a history holding `held` bytes after `progress.bytes_read` of
+/// an input of `size` bytes will clearly pass `limit` by the end: once 8
+/// MiB (or a sixteenth of a smaller input) are read, the history so far
+/// scaled to the whole input is over one and a half times the limit.
+fn will_not_fit(held: usize, progress: &Progress, size: Option<u64>, limit: usize) -> bool {
+    let Some(size) = size else { return false };
+    let done = progress.bytes_read;
+    if done == 0 || done < (8 << 20).min(size / 16) {
+        return false;
+    }
+    let projected = held as f64 * size as f64 / done as f64;
+    projected > limit as f64 * 1.5
+}
+
 /// A history as read: in memory, or (when it would not fit in the memory
 /// limit) spread over partition files.
 // Made once per run: the size of the variants does not matter.
@@ -1083,7 +1102,7 @@ pub(crate) fn read_history<'a>(
         rows: needs.rows,
     };
     // Merges the rows of each block (or batch), in input order.
-    let mut consume = |h: &(Plan, Vec<u8>), b: BlockRows| -> Result<(), Error> {
+    let mut consume = |h: &(Plan, Vec<u8>), b: BlockRows, read: Progress| -> Result<(), Error> {
         let plan = &h.0;
         let nkeep = plan.keep.len();
         let raw_of = |i: usize| -> &[u8] {
@@ -1120,9 +1139,12 @@ pub(crate) fn read_history<'a>(
             Some(_) => None,
         };
         if let Some(hb) = hb.filter(|hb| {
-            spill_at.is_some_and(|limit| hb.heap_bytes() + raw_ends.capacity() * 4 + coming > limit)
+            spill_at.is_some_and(|limit| {
+                let held = hb.heap_bytes() + raw_ends.capacity() * 4 + coming;
+                held > limit || will_not_fit(held, &read, cfg.input_size, limit)
+            })
         }) {
-            let mut sp = Spill::new(&temp_dir, words, nkeep, exclusions, keep_rows)?;
+            let mut sp = Spill::new(&temp_dir, words, nkeep, exclusions, keep_rows, cfg.layout)?;
             let n = hb.episodes();
             let mut e = 0;
             for bi in 0..raw_first.len() {
@@ -1201,7 +1223,7 @@ pub(crate) fn read_history<'a>(
                 Ok((plan, rec.raw.to_vec()))
             },
             |h, block, start, scanner| read_block(engine, cfg, &h.0, block, start, scanner, keeps),
-            |h, b, _| consume(h, b),
+            |h, b, p| consume(h, b, p),
         )?,
         Input::Rows(source) => {
             let naming = source.naming();
@@ -1210,7 +1232,7 @@ pub(crate) fn read_history<'a>(
                 source,
                 |header| Ok((with_values(Plan::new(cfg, header, false)?)?, Vec::new())),
                 |h, batch, first| read_batch(engine, cfg, &h.0, batch, first, keeps),
-                |h, b, _| consume(h, b),
+                |h, b, p| consume(h, b, p),
             )
             .map_err(|e| naming.name(e))?
         }
@@ -1307,6 +1329,11 @@ impl History {
     /// Patient `p`'s id as written.
     pub fn patient_id(&self, p: u32) -> &[u8] {
         self.patients.get(p)
+    }
+
+    /// Number of patients (rows without an id each count as one).
+    pub(crate) fn patients_len(&self) -> usize {
+        self.patients.len()
     }
 
     /// Episodes in window order: per patient, dated episodes by date, then
@@ -1525,6 +1552,17 @@ impl History {
         self.kept[e * k + j].as_deref().unwrap_or(&[])
     }
 
+    /// Wide layout: the raw rows are put in front of the output lines
+    /// elsewhere, each line holding the scores after their delimiters.
+    pub(crate) fn set_rows_apart(&mut self, apart: bool) {
+        self.rows_apart = apart;
+    }
+
+    /// No raw rows loaded (for [`Formatter::episode`] when there are none).
+    pub(crate) fn rows_none(&self) -> Loaded<'_> {
+        self.raw_blocks.none()
+    }
+
     /// Whether the raw rows went partly to a temporary file.
     pub fn rows_spilled(&self) -> bool {
         self.raw_blocks.spilled()
@@ -1633,9 +1671,10 @@ impl Formatter {
         let ep = &hist.episodes[e];
         hist.final_into(engine, e, &mut self.bits, &mut self.scratch);
         engine.values(&self.bits, ep.age(), &mut self.values);
-        let scores_only = cfg.layout == Layout::Wide && hist.raw_ends.is_empty();
+        let scores_only =
+            cfg.layout == Layout::Wide && hist.raw_ends.is_empty() && !hist.rows_apart;
         match cfg.layout {
-            Layout::Wide if scores_only => {}
+            Layout::Wide if scores_only || hist.rows_apart => {}
             Layout::Wide => out.extend_from_slice(hist.raw_row(e, rows)),
             Layout::Long => {
                 write_field(hist.patient_id(ep.patient), d, out);
