@@ -36,6 +36,21 @@ impl Code {
         std::str::from_utf8(self.as_bytes()).unwrap_or("")
     }
 
+    /// A code from its normalised characters (as [`Code::as_bytes`] gives
+    /// them), e.g. read back from a temporary file; `None` when they do not
+    /// fit.
+    pub(crate) fn from_normalised(chars: &[u8]) -> Option<Code> {
+        if chars.len() < MIN_CODE_LEN || chars.len() > MAX_CODE_LEN {
+            return None;
+        }
+        let mut bytes = [0u8; MAX_CODE_LEN];
+        bytes[..chars.len()].copy_from_slice(chars);
+        Some(Code {
+            bytes,
+            len: chars.len() as u8,
+        })
+    }
+
     /// Number of characters (3 to 7).
     pub fn len(&self) -> usize {
         self.len as usize

@@ -413,11 +413,11 @@ struct InputArgs {
     /// Do not print the summary or the progress line on standard error.
     #[arg(long, short)]
     quiet: bool,
-    /// Memory limit of a run that holds the extract (--lookback, --episode, --keep):
-    /// the wide layout's input rows, kept for the output, take at most half of it in
-    /// memory and the rest waits in a temporary file; a `score` history over the other
-    /// half is partitioned by patient into temporary files and scored a partition at a
-    /// time, with the same output (e.g. 512MiB, 2GiB).
+    /// Memory limit of a run that holds the extract (--lookback, --episode, --keep,
+    /// explain): the wide layout's input rows, kept for the output, take at most half of
+    /// it in memory and the rest waits in a temporary file; a `score` or `explain` history
+    /// over the other half is partitioned by patient into temporary files and scored a
+    /// partition at a time, with the same output (e.g. 512MiB, 2GiB).
     #[arg(long, value_name = "LIMIT", default_value = "1GiB")]
     memory: String,
     /// Directory for temporary files (default: the system's).
@@ -974,6 +974,12 @@ fn explain(a: ExplainArgs) -> Result<(), Error> {
         ExplainFormat::JsonLines
     } else {
         ExplainFormat::Csv
+    };
+    // The input's size lets a history that will not fit go to partitions
+    // early (a hint; the output is the same without it).
+    let cfg = ScoreConfig {
+        input_size: input.size,
+        ..cfg
     };
     let summary = pipeline::explain_stream(
         &engine,

@@ -4,8 +4,9 @@
 
 use std::io::Write;
 
-use super::history::{CodeRecord, History, Needs, Windows};
-use super::{Exclusion, ScoreConfig, Summary, WindowScope};
+use super::history::{read_history, CodeRecord, History, Needs, ReadHistory, Windows};
+use super::partition::Lines;
+use super::{Exclusion, Plan, ScoreConfig, Summary, WindowScope};
 use crate::io::write_field;
 use crate::lists::format_scaled;
 use crate::score::Engine;
@@ -237,7 +238,193 @@ pub fn explain_history(
     Ok(())
 }
 
-/// Runs `explain` over an extract (text, or typed rows).
+/// Writes `explain`'s records as text (CSV or JSON lines): the header and
+/// each episode's records, for a history in memory or a partition of one.
+pub(crate) struct Explainer {
+    format: ExplainFormat,
+    delimiter: u8,
+    head: Vec<String>,
+    /// JSON: which columns are numbers (null when empty).
+    numeric: Vec<bool>,
+    id: bool,
+    episode: bool,
+    nkeep: usize,
+}
+
+impl Explainer {
+    /// The output's columns for a history read with `plan`; a `--label`
+    /// column that is already one of them is a usage error.
+    pub(crate) fn new(
+        plan: &Plan,
+        cfg: &ScoreConfig,
+        format: ExplainFormat,
+    ) -> Result<Explainer, Error> {
+        let p = plan;
+        let mut head: Vec<String> = Vec::new();
+        if let Some(c) = p.id {
+            head.push(p.header.names[c].clone());
+        }
+        if let Some(c) = p.episode {
+            head.push(p.header.names[c].clone());
+        }
+        for &c in &p.keep {
+            let name = &p.header.names[c];
+            if head.contains(name) || EXPLAIN_COLUMNS.contains(&name.as_str()) {
+                return Err(Error::Usage(format!(
+                    "--label column '{name}' is already a column of explain's output"
+                )));
+            }
+            head.push(name.clone());
+        }
+        let numbers_from = head.len();
+        head.push("row".into());
+        for h in &EXPLAIN_COLUMNS[1..] {
+            head.push(h.to_string());
+        }
+        let numeric: Vec<bool> = head
+            .iter()
+            .enumerate()
+            .map(|(i, h)| {
+                i >= numbers_from
+                    && matches!(h.as_str(), "row" | "source_row" | "weight" | "age_points")
+            })
+            .collect();
+        Ok(Explainer {
+            format,
+            delimiter: cfg.delimiter,
+            head,
+            numeric,
+            id: p.id.is_some(),
+            episode: p.episode.is_some(),
+            nkeep: p.keep.len(),
+        })
+    }
+
+    /// The header line (CSV; nothing for JSON lines).
+    pub(crate) fn header(&self) -> Vec<u8> {
+        let mut out = Vec::new();
+        if self.format == ExplainFormat::Csv {
+            self.emit(&mut out, &self.head);
+        }
+        out
+    }
+
+    fn emit(&self, out: &mut Vec<u8>, cells: &[String]) {
+        let d = self.delimiter;
+        match self.format {
+            ExplainFormat::Csv => {
+                for (i, c) in cells.iter().enumerate() {
+                    if i > 0 {
+                        out.push(d);
+                    }
+                    write_field(c.as_bytes(), d, out);
+                }
+                out.push(b'\n');
+            }
+            ExplainFormat::JsonLines => {
+                out.push(b'{');
+                for (i, (k, v)) in self.head.iter().zip(cells).enumerate() {
+                    if i > 0 {
+                        out.push(b',');
+                    }
+                    out.extend_from_slice(json_str(k).as_bytes());
+                    out.push(b':');
+                    if !self.numeric[i] {
+                        out.extend_from_slice(json_str(v).as_bytes());
+                    } else if v.is_empty() {
+                        out.extend_from_slice(b"null");
+                    } else {
+                        // Row numbers and weights as written: whole numbers
+                        // or decimals, valid JSON numbers.
+                        out.extend_from_slice(v.as_bytes());
+                    }
+                }
+                out.extend_from_slice(b"}\n");
+            }
+        }
+    }
+
+    /// Explains every episode of a resolved history (`sorted`: its window
+    /// order), handing each episode's records, as text, to `each` with the
+    /// episode's number, in input order.
+    pub(crate) fn explain(
+        &self,
+        engine: &Engine,
+        windows: &Windows,
+        hist: &History,
+        sorted: &[u32],
+        mut each: impl FnMut(usize, &[u8]) -> Result<(), Error>,
+    ) -> Result<(), Error> {
+        let mut out: Vec<u8> = Vec::new();
+        let mut prefix: Vec<String> = Vec::new();
+        let mut prefix_of = usize::MAX;
+        let scaled_text = |scaled: i64, decimals: u32| {
+            let mut t = Vec::new();
+            format_scaled(scaled, decimals, &mut t);
+            String::from_utf8_lossy(&t).into_owned()
+        };
+        explain_history(engine, windows, hist, sorted, |r| {
+            let e = r.episode;
+            if prefix_of != e {
+                if prefix_of != usize::MAX {
+                    each(prefix_of, &out)?;
+                    out.clear();
+                }
+                prefix_of = e;
+                let ep = &hist.episodes[e];
+                prefix.clear();
+                if self.id {
+                    prefix.push(String::from_utf8_lossy(hist.patient_id(ep.patient)).into_owned());
+                }
+                if self.episode {
+                    prefix.push(String::from_utf8_lossy(hist.key(e)).into_owned());
+                }
+                for j in 0..self.nkeep {
+                    prefix.push(String::from_utf8_lossy(hist.kept(e, j)).into_owned());
+                }
+                prefix.push(hist.row(e).to_string());
+            }
+            let spec = &engine.specs()[r.spec];
+            let list = &engine.lists()[spec.list].list;
+            let weighting = &list.weightings[spec.weighting];
+            let mut cells = prefix.clone();
+            cells.push(format!("{}:{}", list.name, weighting.name));
+            match (r.source, r.condition) {
+                (Some((src, rec)), Some(c)) => {
+                    cells.push(hist.row(src).to_string());
+                    cells.push(iso(r.date(hist)));
+                    cells.push(String::from_utf8_lossy(&rec.written).trim().to_string());
+                    cells.push(rec.code.to_string());
+                    cells.push(list.conditions[c].key.clone());
+                }
+                _ => cells.extend([
+                    String::new(),
+                    iso(r.date(hist)),
+                    String::new(),
+                    String::new(),
+                    String::new(),
+                ]),
+            }
+            cells.push(scaled_text(r.weight, r.decimals));
+            cells.push(r.status);
+            cells.push(
+                r.age_points
+                    .map_or_else(String::new, |a| scaled_text(a, r.decimals)),
+            );
+            self.emit(&mut out, &cells);
+            Ok(())
+        })?;
+        if prefix_of != usize::MAX {
+            each(prefix_of, &out)?;
+        }
+        Ok(())
+    }
+}
+
+/// Runs `explain` over an extract (text, or typed rows). A history over
+/// half of `--memory` is partitioned by patient into temporary files,
+/// explained a partition at a time and merged back in input order, with
+/// the same output ([`super::partition`]).
 pub fn explain_stream<'a>(
     engine: &Engine,
     cfg: &ScoreConfig,
@@ -246,147 +433,41 @@ pub fn explain_stream<'a>(
     output: &mut dyn Write,
 ) -> Result<Summary, Error> {
     let windows = Windows::new(engine, cfg)?;
-    let (mut hist, mut summary) = History::read(
-        engine,
-        cfg,
-        input,
-        Needs {
-            codes: true,
-            rows: false,
-        },
-    )?;
+    let needs = Needs {
+        codes: true,
+        rows: false,
+    };
+    let spill_at = (cfg.memory / 2) as usize;
+    let write_err = |e| Error::io("cannot write output", e);
+    let (mut hist, mut summary) =
+        match read_history(engine, cfg, input, needs, Some(spill_at), &[])? {
+            (ReadHistory::Memory(h), s) => (h, s),
+            (ReadHistory::Spilled(sp, plan, _), mut summary) => {
+                let explainer = Explainer::new(&plan, cfg, format)?;
+                let head = explainer.header();
+                sp.finish(
+                    engine,
+                    cfg,
+                    &windows,
+                    (plan, &head),
+                    Lines::Explain(&explainer),
+                    &mut summary,
+                    output,
+                )?;
+                output.flush().map_err(write_err)?;
+                return Ok(summary);
+            }
+        };
     let sorted = hist.resolve(&windows);
     let hist = hist;
-    let p = &hist.plan;
-    let d = cfg.delimiter;
-
-    let id_name = p.id.map(|c| p.header.names[c].clone());
-    let episode_name = p.episode.map(|c| p.header.names[c].clone());
-    let mut head: Vec<String> = Vec::new();
-    if let Some(n) = &id_name {
-        head.push(n.clone());
-    }
-    if let Some(n) = &episode_name {
-        head.push(n.clone());
-    }
-    for &c in &p.keep {
-        let name = &p.header.names[c];
-        if head.contains(name) || EXPLAIN_COLUMNS.contains(&name.as_str()) {
-            return Err(Error::Usage(format!(
-                "--label column '{name}' is already a column of explain's output"
-            )));
+    let explainer = Explainer::new(&hist.plan, cfg, format)?;
+    let mut out = explainer.header();
+    explainer.explain(engine, &windows, &hist, &sorted, |_, records| {
+        out.extend_from_slice(records);
+        if out.len() > 1 << 20 {
+            output.write_all(&out).map_err(write_err)?;
+            out.clear();
         }
-        head.push(name.clone());
-    }
-    let numbers_from = head.len();
-    head.push("row".into());
-    for h in &EXPLAIN_COLUMNS[1..] {
-        head.push(h.to_string());
-    }
-    // JSON: these are numbers (null when empty).
-    let numeric: Vec<bool> = head
-        .iter()
-        .enumerate()
-        .map(|(i, h)| {
-            i >= numbers_from
-                && matches!(h.as_str(), "row" | "source_row" | "weight" | "age_points")
-        })
-        .collect();
-
-    let mut out: Vec<u8> = Vec::new();
-    let write_err = |e| Error::io("cannot write output", e);
-    let emit = |out: &mut Vec<u8>, cells: &[String]| match format {
-        ExplainFormat::Csv => {
-            for (i, c) in cells.iter().enumerate() {
-                if i > 0 {
-                    out.push(d);
-                }
-                write_field(c.as_bytes(), d, out);
-            }
-            out.push(b'\n');
-        }
-        ExplainFormat::JsonLines => {
-            out.push(b'{');
-            for (i, (k, v)) in head.iter().zip(cells).enumerate() {
-                if i > 0 {
-                    out.push(b',');
-                }
-                out.extend_from_slice(json_str(k).as_bytes());
-                out.push(b':');
-                if !numeric[i] {
-                    out.extend_from_slice(json_str(v).as_bytes());
-                } else if v.is_empty() {
-                    out.extend_from_slice(b"null");
-                } else {
-                    // Row numbers and weights as written: whole numbers or
-                    // decimals, valid JSON numbers.
-                    out.extend_from_slice(v.as_bytes());
-                }
-            }
-            out.extend_from_slice(b"}\n");
-        }
-    };
-    if format == ExplainFormat::Csv {
-        let h = head.clone();
-        emit(&mut out, &h);
-    }
-
-    let mut prefix: Vec<String> = Vec::new();
-    let mut prefix_of = usize::MAX;
-    let scaled_text = |scaled: i64, decimals: u32| {
-        let mut t = Vec::new();
-        format_scaled(scaled, decimals, &mut t);
-        String::from_utf8_lossy(&t).into_owned()
-    };
-    explain_history(engine, &windows, &hist, &sorted, |r| {
-        let e = r.episode;
-        if prefix_of != e {
-            if out.len() > 1 << 20 {
-                output.write_all(&out).map_err(write_err)?;
-                out.clear();
-            }
-            prefix_of = e;
-            let ep = &hist.episodes[e];
-            prefix.clear();
-            if id_name.is_some() {
-                prefix.push(String::from_utf8_lossy(hist.patient_id(ep.patient)).into_owned());
-            }
-            if episode_name.is_some() {
-                prefix.push(String::from_utf8_lossy(hist.key(e)).into_owned());
-            }
-            for j in 0..p.keep.len() {
-                prefix.push(String::from_utf8_lossy(hist.kept(e, j)).into_owned());
-            }
-            prefix.push(hist.row(e).to_string());
-        }
-        let spec = &engine.specs()[r.spec];
-        let list = &engine.lists()[spec.list].list;
-        let weighting = &list.weightings[spec.weighting];
-        let mut cells = prefix.clone();
-        cells.push(format!("{}:{}", list.name, weighting.name));
-        match (r.source, r.condition) {
-            (Some((src, rec)), Some(c)) => {
-                cells.push(hist.row(src).to_string());
-                cells.push(iso(r.date(&hist)));
-                cells.push(String::from_utf8_lossy(&rec.written).trim().to_string());
-                cells.push(rec.code.to_string());
-                cells.push(list.conditions[c].key.clone());
-            }
-            _ => cells.extend([
-                String::new(),
-                iso(r.date(&hist)),
-                String::new(),
-                String::new(),
-                String::new(),
-            ]),
-        }
-        cells.push(scaled_text(r.weight, r.decimals));
-        cells.push(r.status);
-        cells.push(
-            r.age_points
-                .map_or_else(String::new, |a| scaled_text(a, r.decimals)),
-        );
-        emit(&mut out, &cells);
         Ok(())
     })?;
     summary.units += hist.episodes.len() as u64;

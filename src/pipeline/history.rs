@@ -1094,6 +1094,9 @@ pub(crate) fn read_history<'a>(
     // Typed rows have no raw text to keep.
     let keep_rows = needs.rows && cfg.layout == Layout::Wide && matches!(input, Input::Text(_));
     let mut codes: Vec<CodeRecord> = Vec::new();
+    // What the codes kept for `explain` take on the heap.
+    let mut code_bytes = 0usize;
+    let code_cost = |c: &CodeRecord| std::mem::size_of::<CodeRecord>() + c.written.len() + 16;
     let mut rows_seen = 0u64;
     let (mut kept_spans, mut kept_bytes) = (Vec::new(), Vec::new());
     let keeps = Keeps {
@@ -1133,19 +1136,37 @@ pub(crate) fn read_history<'a>(
         };
         // Over the limit with this block: everything read so far, and
         // every row from now on, goes to partitions.
-        let coming = b.rows.len() * (16 + words * 8) + b.raw.len();
+        let coming = b.rows.len() * (16 + words * 8)
+            + b.raw.len()
+            + b.codes.iter().map(code_cost).sum::<usize>();
         let hb = match spill {
             None => Some(&*builder.get_or_insert_with(|| Builder::new(cfg, plan, words))),
             Some(_) => None,
         };
         if let Some(hb) = hb.filter(|hb| {
             spill_at.is_some_and(|limit| {
-                let held = hb.heap_bytes() + raw_ends.capacity() * 4 + coming;
+                let spare = (codes.capacity() - codes.len()) * std::mem::size_of::<CodeRecord>();
+                let held = hb.heap_bytes() + raw_ends.capacity() * 4 + code_bytes + spare + coming;
                 held > limit || will_not_fit(held, &read, cfg.input_size, limit)
             })
         }) {
-            let mut sp = Spill::new(&temp_dir, words, nkeep, exclusions, keep_rows, cfg.layout)?;
+            let mut sp = Spill::new(
+                &temp_dir,
+                (words, nkeep, exclusions, keep_codes),
+                keep_rows,
+                cfg,
+            )?;
             let n = hb.episodes();
+            // Each episode's codes together, in the order they were read.
+            codes.sort_by_key(|c| c.episode);
+            let mut at = 0;
+            let mut codes_of = |e: usize| -> &[CodeRecord] {
+                let s = at;
+                while at < codes.len() && codes[at].episode as usize == e {
+                    at += 1;
+                }
+                &codes[s..at]
+            };
             let mut e = 0;
             for bi in 0..raw_first.len() {
                 let loaded = raw_blocks.load(bi as u32, bi as u32)?;
@@ -1154,16 +1175,20 @@ pub(crate) fn read_history<'a>(
                 while e < end {
                     let t = raw_ends[e];
                     let raw = loaded.slice(bi as u32, s, t);
-                    sp.write(&hb.carried(e, &mut kept_spans, &mut kept_bytes), raw)?;
+                    let r = hb.carried(e, &mut kept_spans, &mut kept_bytes);
+                    sp.write(&r, raw, codes_of(e))?;
                     s = t;
                     e += 1;
                 }
             }
             while e < n {
-                sp.write(&hb.carried(e, &mut kept_spans, &mut kept_bytes), &[])?;
+                let r = hb.carried(e, &mut kept_spans, &mut kept_bytes);
+                sp.write(&r, &[], codes_of(e))?;
                 e += 1;
             }
             builder = None;
+            codes = Vec::new();
+            code_bytes = 0;
             raw_blocks = RowStore::new(0, &temp_dir);
             raw_ends = Vec::new();
             raw_first = Vec::new();
@@ -1176,9 +1201,15 @@ pub(crate) fn read_history<'a>(
                     "internal error: a history with checked columns went to partitions",
                 ));
             }
+            // A block's codes are in the order of its rows.
+            let mut at = 0;
             for (i, r) in b.rows.iter().enumerate() {
                 rows_seen += 1;
-                sp.write(&row_in(i, r, rows_seen), raw_of(i))?;
+                let s = at;
+                while at < b.codes.len() && b.codes[at].episode as usize == i {
+                    at += 1;
+                }
+                sp.write(&row_in(i, r, rows_seen), raw_of(i), &b.codes[s..at])?;
             }
             summary.merge(b.summary);
             return b.err.map_or(Ok(()), Err);
@@ -1209,6 +1240,7 @@ pub(crate) fn read_history<'a>(
         }
         for mut c in b.codes {
             c.episode = block_episode[c.episode as usize];
+            code_bytes += code_cost(&c);
             codes.push(c);
         }
         summary.merge(b.summary);
@@ -1743,7 +1775,15 @@ pub fn score_history<'a>(
             (ReadHistory::Memory(h), s) => (h, s),
             (ReadHistory::Spilled(sp, plan, header_raw), mut summary) => {
                 let head = header_line(engine, cfg, &plan, &header_raw, scores_only)?;
-                sp.finish(engine, cfg, &windows, (plan, &head), &mut summary, output)?;
+                sp.finish(
+                    engine,
+                    cfg,
+                    &windows,
+                    (plan, &head),
+                    super::partition::Lines::Scores,
+                    &mut summary,
+                    output,
+                )?;
                 output.flush().map_err(write_err)?;
                 return Ok(summary);
             }

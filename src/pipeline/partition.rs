@@ -1,7 +1,7 @@
-//! Lookback beyond the memory limit: the history is partitioned by patient
-//! into temporary files, each partition is resolved and formatted in
-//! memory on its own, and the partitions' output is merged back in input
-//! order.
+//! Lookback beyond the memory limit (`score` and `explain`): the history is
+//! partitioned by patient into temporary files, each partition is resolved
+//! and formatted (scores, or `explain`'s records) in memory on its own, and
+//! the partitions' output is merged back in input order.
 //!
 //! 1. While reading, once the history passes half of `--memory` (or as
 //!    soon as the input's size shows that it will), every episode read so
@@ -9,8 +9,11 @@
 //!    partition `hash(patient id) % PARTITIONS`: the row number as the
 //!    difference from the partition's previous one, the line (long layout
 //!    only), date, age, flags, id, episode value, kept values, and the
-//!    condition sets as the numbers of their conditions. A patient's
-//!    records all go to one partition, in input order. The wide layout's
+//!    condition sets as the numbers of their conditions; for `explain`,
+//!    every code too (exclusion, normalised code, field as written). A
+//!    patient's records all go to one partition, in input order (the wide
+//!    layout without a lookback, where each row stands alone, spreads rows
+//!    by their number instead). The wide layout's
 //!    raw rows do not travel with them: they go, in input order, to one
 //!    rows file, read back once by the final merge.
 //! 2. The partitions are read back into [`Builder`]s (the same merging of
@@ -19,7 +22,7 @@
 //!    formatted, several at a time on as many threads as the memory limit
 //!    allows; each partition's output (the
 //!    scores after the raw row in the wide layout, whole lines in the long
-//!    layout), with row numbers, is appended to one result file as a run,
+//!    layout; `explain`: all the records of an episode), with row numbers, is appended to one result file as a run,
 //!    and the partition's file is removed. A partition's episodes are in
 //!    increasing row order.
 //! 3. The output walks the rows in order: a k-way merge by row number of
@@ -38,9 +41,13 @@ use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicU64, AtomicUsize, Ordering};
 use std::sync::mpsc::sync_channel;
 
-use super::history::{check_unreadable_dates, Builder, DateRead, Formatter, RowIn, Windows};
+use super::explain::Explainer;
+use super::history::{
+    check_unreadable_dates, Builder, CodeRecord, DateRead, Formatter, RowIn, Windows,
+};
 use super::rows_store::RowStore;
-use super::{Layout, OverMemory, Plan, ScoreConfig, Summary};
+use super::{Exclusion, Layout, OverMemory, Plan, ScoreConfig, Summary};
+use crate::code::Code;
 use crate::matcher::KeyHasher;
 use crate::score::Engine;
 use crate::Error;
@@ -55,6 +62,20 @@ const WRITE_BUFFER: usize = 64 << 10;
 /// file (the episodes, ids, condition sets, window order and formatted
 /// output of a compact record of about 25 bytes).
 const MEMORY_PER_RECORD_BYTE: u64 = 6;
+/// The same for `explain`, whose records carry every code and whose output
+/// (a line per matched code of each window, per index) is held until the
+/// partition is done.
+const EXPLAIN_MEMORY_PER_RECORD_BYTE: u64 = 24;
+
+/// What the resolved partitions write.
+#[derive(Clone, Copy)]
+pub(crate) enum Lines<'a> {
+    /// `score`: each episode's scores (after its raw row, in the wide
+    /// layout of a text input).
+    Scores,
+    /// `explain`: each episode's records.
+    Explain(&'a Explainer),
+}
 
 static SERIAL: AtomicU64 = AtomicU64::new(0);
 
@@ -103,8 +124,14 @@ pub(crate) struct Spill {
     words: usize,
     nkeep: usize,
     exclusions: bool,
+    /// Records carry each code as read (for `explain`).
+    codes: bool,
     /// Long layout: records carry their line (for `--strict` messages).
     lines: bool,
+    /// Wide layout without a lookback: every row is scored alone, so rows
+    /// are spread over the partitions by their number, not by patient (an
+    /// extract without ids would otherwise be one partition).
+    by_row: bool,
     /// The wide layout's raw rows, in input order (when the output copies
     /// them).
     rows: Option<(BufWriter<File>, TempPath)>,
@@ -151,16 +178,31 @@ fn put_set(rec: &mut Vec<u8>, set: &[u64]) {
     }
 }
 
+/// The codes of a row: their number, then each one's exclusion (0 none, 1
+/// primary, 2 not present on admission), normalised characters and field
+/// as written.
+fn put_codes(rec: &mut Vec<u8>, codes: &[CodeRecord]) {
+    put_varint(rec, codes.len() as u64);
+    for c in codes {
+        rec.push(match c.exclusion {
+            None => 0,
+            Some(Exclusion::Primary) => 1,
+            Some(Exclusion::NotPresentOnAdmission) => 2,
+        });
+        put_bytes(rec, c.code.as_bytes());
+        put_bytes(rec, &c.written);
+    }
+}
+
 impl Spill {
     /// Creates the partition files in `dir` (and the rows file, with
-    /// `raw`).
+    /// `raw`) for records of `words` words per condition set, `nkeep` kept
+    /// values, two sets (`exclusions`) and the codes (`codes`).
     pub fn new(
         dir: &Path,
-        words: usize,
-        nkeep: usize,
-        exclusions: bool,
+        (words, nkeep, exclusions, codes): (usize, usize, bool, bool),
         raw: bool,
-        layout: Layout,
+        cfg: &ScoreConfig,
     ) -> Result<Spill, Error> {
         let mut parts = Vec::with_capacity(PARTITIONS);
         for _ in 0..PARTITIONS {
@@ -184,7 +226,11 @@ impl Spill {
             words,
             nkeep,
             exclusions,
-            lines: layout == Layout::Long,
+            codes,
+            lines: cfg.layout == Layout::Long,
+            by_row: cfg.layout == Layout::Wide
+                && cfg.lookback.is_none()
+                && cfg.lookback_lists.is_empty(),
             rows,
             bytes: 0,
             records: 0,
@@ -194,9 +240,15 @@ impl Spill {
 
     /// Writes a row (or an episode read before the spill) to its patient's
     /// partition, and its raw row (wide layout) to the rows file. Rows come
-    /// in input order.
-    pub fn write(&mut self, r: &RowIn<'_>, raw: &[u8]) -> Result<(), Error> {
-        let part = &mut self.parts[partition_of(r.pid)];
+    /// in input order. `codes` are the row's (or episode's) codes, in the
+    /// order read, written when the spill keeps codes.
+    pub fn write(&mut self, r: &RowIn<'_>, raw: &[u8], codes: &[CodeRecord]) -> Result<(), Error> {
+        let k = if self.by_row {
+            (r.row % PARTITIONS as u64) as usize
+        } else {
+            partition_of(r.pid)
+        };
+        let part = &mut self.parts[k];
         let rec = &mut self.rec;
         rec.clear();
         put_varint(rec, r.row - part.last_row);
@@ -222,6 +274,9 @@ impl Spill {
         put_set(rec, r.all);
         if self.exclusions {
             put_set(rec, r.cur);
+        }
+        if self.codes {
+            put_codes(rec, codes);
         }
         let (mut head, mut hl, mut x) = ([0u8; 10], 0, rec.len() as u64);
         while x >= 0x80 {
@@ -251,15 +306,17 @@ impl Spill {
     }
 
     /// Resolves each partition (read with `plan`), then writes `head` (the
-    /// header line) and every output line in input order to `output`. Adds
-    /// the episodes' counts (dates, disagreements, rows written, what was
-    /// spilled) to `summary`.
+    /// header line) and every output line (`lines`: scores or explain
+    /// records) in input order to `output`. Adds the episodes' counts
+    /// (dates, disagreements, rows written, what was spilled) to `summary`.
+    #[allow(clippy::too_many_arguments)]
     pub fn finish(
         self,
         engine: &Engine,
         cfg: &ScoreConfig,
         windows: &Windows,
         (plan, head): (Plan, &[u8]),
+        lines_of: Lines<'_>,
         summary: &mut Summary,
         output: &mut dyn Write,
     ) -> Result<(), Error> {
@@ -269,6 +326,7 @@ impl Spill {
             words,
             nkeep,
             exclusions,
+            codes,
             lines,
             rows,
             bytes,
@@ -304,15 +362,21 @@ impl Spill {
         // quarters of the memory limit (the history read is gone by now); a
         // partition alone formats on every core.
         let threads = super::parallel::threads(cfg);
-        let fit = (cfg.memory / 4 * 3) / (largest * MEMORY_PER_RECORD_BYTE).max(1);
+        let per_byte = match lines_of {
+            Lines::Scores => MEMORY_PER_RECORD_BYTE,
+            Lines::Explain(_) => EXPLAIN_MEMORY_PER_RECORD_BYTE,
+        };
+        let fit = (cfg.memory / 4 * 3) / (largest * per_byte).max(1);
         let concurrent = (fit as usize).clamp(1, threads);
         let inner = if concurrent == 1 { threads } else { 1 };
         let shape = Shape {
             words,
             nkeep,
             exclusions,
+            codes,
             lines,
             raw,
+            output: lines_of,
         };
 
         let (result_path, result) = TempPath::create(&dir, "scored")?;
@@ -439,13 +503,15 @@ impl Spill {
     }
 }
 
-/// What a partition's records hold.
-struct Shape {
+/// What a partition's records hold, and what its output is.
+struct Shape<'a> {
     words: usize,
     nkeep: usize,
     exclusions: bool,
+    codes: bool,
     lines: bool,
     raw: bool,
+    output: Lines<'a>,
 }
 
 /// A partition resolved: its output (a run of the result file), or the
@@ -473,7 +539,7 @@ fn resolve_partition(
     cfg: &ScoreConfig,
     windows: &Windows,
     plan: &Plan,
-    shape: &Shape,
+    shape: &Shape<'_>,
     path: &TempPath,
     threads: usize,
     dir: &Path,
@@ -482,8 +548,10 @@ fn resolve_partition(
         words,
         nkeep,
         exclusions,
+        codes: with_codes,
         lines,
         raw,
+        output,
     } = *shape;
     let mut summary = Summary::default();
     let file = match File::open(&path.0) {
@@ -497,6 +565,8 @@ fn resolve_partition(
     let mut kept: Vec<(usize, usize)> = Vec::with_capacity(nkeep);
     let (mut all, mut cur) = (vec![0u64; words], vec![0u64; words]);
     let mut row = 0u64;
+    let mut codes: Vec<CodeRecord> = Vec::new();
+    let mut row_codes: Vec<CodeRecord> = Vec::new();
     loop {
         match read_record(&mut input, &mut rec) {
             Ok(true) => {}
@@ -521,6 +591,28 @@ fn resolve_partition(
         if exclusions {
             c.set(&mut cur);
         }
+        row_codes.clear();
+        if with_codes {
+            for _ in 0..c.varint() {
+                let exclusion = match c.u8() {
+                    1 => Some(Exclusion::Primary),
+                    2 => Some(Exclusion::NotPresentOnAdmission),
+                    _ => None,
+                };
+                let Some(code) = Code::from_normalised(c.bytes()) else {
+                    return Resolved::Failed(path.error(
+                        "read",
+                        std::io::Error::new(std::io::ErrorKind::InvalidData, "a damaged code"),
+                    ));
+                };
+                row_codes.push(CodeRecord {
+                    episode: 0,
+                    written: c.bytes().into(),
+                    code,
+                    exclusion,
+                });
+            }
+        }
         let r = RowIn {
             row,
             line,
@@ -539,8 +631,9 @@ fn resolve_partition(
             all: &all,
             cur: if exclusions { &cur } else { &[] },
         };
-        if let Err(e) = builder.add_row(&p, &r, &mut summary) {
-            return Resolved::Disagreement(line, e);
+        match builder.add_row(&p, &r, &mut summary) {
+            Ok(e) => codes.extend(row_codes.drain(..).map(|c| CodeRecord { episode: e, ..c })),
+            Err(e) => return Resolved::Disagreement(line, e),
         }
     }
     drop(input);
@@ -553,7 +646,7 @@ fn resolve_partition(
         p,
         Vec::new(),
         (Vec::new(), Vec::new(), store),
-        Vec::new(),
+        codes,
         &mut summary,
     );
     owned.set_rows_apart(raw);
@@ -572,7 +665,30 @@ fn resolve_partition(
             });
         }
     }
-    owned.resolve(windows);
+    let sorted = owned.resolve(windows);
+    if let Lines::Explain(explainer) = output {
+        // Each episode's records, with its row number, in the partition's
+        // order (increasing rows).
+        let mut out = Vec::new();
+        let mut last = 0u64;
+        let hist = &owned;
+        let done = explainer.explain(engine, windows, hist, &sorted, |e, records| {
+            let row = hist.row(e);
+            put_varint(&mut out, row - last);
+            last = row;
+            put_bytes(&mut out, records);
+            Ok(())
+        });
+        return match done {
+            Ok(()) => Resolved::Done {
+                out,
+                summary,
+                episodes: n as u64,
+            },
+            Err(e) => Resolved::Failed(e),
+        };
+    }
+    drop(sorted);
     // Formatted in chunks (on `threads` threads), put together in order.
     let per = n.div_ceil(threads.max(1)).max(1);
     let hist = &owned;
