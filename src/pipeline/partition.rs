@@ -22,8 +22,10 @@
 //!    formatted, several at a time on as many threads as the memory limit
 //!    allows; each partition's output (the
 //!    scores after the raw row in the wide layout, whole lines in the long
-//!    layout; `explain`: all the records of an episode), with row numbers, is appended to one result file as a run,
-//!    and the partition's file is removed. A partition's episodes are in
+//!    layout; `explain`: all the records of an episode), with row numbers,
+//!    is appended to one result file as a run (`explain`'s, many times its
+//!    history, goes to a file of its own as it is made), and the
+//!    partition's file is removed. A partition's episodes are in
 //!    increasing row order.
 //! 3. The output walks the rows in order: a k-way merge by row number of
 //!    the runs of the result file, each line put after its raw row read
@@ -62,10 +64,10 @@ const WRITE_BUFFER: usize = 64 << 10;
 /// file (the episodes, ids, condition sets, window order and formatted
 /// output of a compact record of about 25 bytes).
 const MEMORY_PER_RECORD_BYTE: u64 = 6;
-/// The same for `explain`, whose records carry every code and whose output
-/// (a line per matched code of each window, per index) is held until the
-/// partition is done.
-const EXPLAIN_MEMORY_PER_RECORD_BYTE: u64 = 24;
+/// The same for `explain`, whose records carry every code (about 64 bytes
+/// in memory for a code of about 12 in the file); its output, many times
+/// the history, goes to a file of the partition's own as it is made.
+const EXPLAIN_MEMORY_PER_RECORD_BYTE: u64 = 8;
 
 /// What the resolved partitions write.
 #[derive(Clone, Copy)]
@@ -381,7 +383,10 @@ impl Spill {
 
         let (result_path, result) = TempPath::create(&dir, "scored")?;
         let mut results = BufWriter::with_capacity(1 << 20, &result);
-        let mut segments: Vec<(u64, u64)> = Vec::with_capacity(files.len());
+        // Runs: (file, start, end); file 0 is the result file, the others
+        // a partition's own (explain).
+        let mut segments: Vec<(usize, u64, u64)> = Vec::with_capacity(files.len());
+        let mut own: Vec<(TempPath, File)> = Vec::new();
         let mut at = 0u64;
         let mut episodes = 0u64;
         // A --strict disagreement: the first in input order of any partition.
@@ -422,11 +427,20 @@ impl Spill {
                         if write_failed.is_some() || first_error.is_some() {
                             continue;
                         }
+                        let out = match out {
+                            Run::Bytes(out) => out,
+                            Run::File(path, file, len) => {
+                                own.push((path, file));
+                                segments.push((own.len(), 0, len));
+                                at += len;
+                                continue;
+                            }
+                        };
                         let start = at;
                         match results.write_all(&out) {
                             Ok(()) => {
                                 at += out.len() as u64;
-                                segments.push((start, at));
+                                segments.push((0, start, start + out.len() as u64));
                             }
                             Err(e) => write_failed = Some(result_path.error("write", e)),
                         }
@@ -462,10 +476,18 @@ impl Spill {
         // after its raw row.
         let write_err = |e| Error::io("cannot write output", e);
         output.write_all(head).map_err(write_err)?;
-        let mut readers: Vec<Segment> = segments.iter().map(|&(s, t)| Segment::new(s, t)).collect();
+        let mut readers: Vec<Segment> = segments
+            .iter()
+            .map(|&(_, s, t)| Segment::new(s, t))
+            .collect();
+        let file_of = |k: usize| match segments[k].0 {
+            0 => (&result, &result_path),
+            f => (&own[f - 1].1, &own[f - 1].0),
+        };
         let mut heap = BinaryHeap::new();
         for (k, r) in readers.iter_mut().enumerate() {
-            if let Some(row) = r.next(&result).map_err(|e| result_path.error("read", e))? {
+            let (file, path) = file_of(k);
+            if let Some(row) = r.next(file).map_err(|e| path.error("read", e))? {
                 heap.push(Reverse((row, k)));
             }
         }
@@ -491,11 +513,13 @@ impl Spill {
                 output.write_all(&out).map_err(write_err)?;
                 out.clear();
             }
-            if let Some(row) = r.next(&result).map_err(|e| result_path.error("read", e))? {
+            let (file, path) = file_of(k);
+            if let Some(row) = r.next(file).map_err(|e| path.error("read", e))? {
                 heap.push(Reverse((row, k)));
             }
         }
         output.write_all(&out).map_err(write_err)?;
+        drop(own);
         drop(result);
         drop(result_path);
         drop(rows);
@@ -520,12 +544,20 @@ struct Shape<'a> {
 #[allow(clippy::large_enum_variant)]
 enum Resolved {
     Done {
-        out: Vec<u8>,
+        out: Run,
         summary: Summary,
         episodes: u64,
     },
     Disagreement(u64, Error),
     Failed(Error),
+}
+
+/// A partition's output: bytes for the result file, or a file of its own
+/// (with its length), written as it was made (`explain`, whose output can
+/// be many times its history).
+enum Run {
+    Bytes(Vec<u8>),
+    File(TempPath, File, u64),
 }
 
 /// Reads partition `path` back into a history, resolves it and formats
@@ -668,20 +700,32 @@ fn resolve_partition(
     let sorted = owned.resolve(windows);
     if let Lines::Explain(explainer) = output {
         // Each episode's records, with its row number, in the partition's
-        // order (increasing rows).
-        let mut out = Vec::new();
-        let mut last = 0u64;
+        // order (increasing rows), to a file of the partition's own.
+        let (out_path, file) = match TempPath::create(dir, "explained") {
+            Ok(f) => f,
+            Err(e) => return Resolved::Failed(e),
+        };
+        let mut out = BufWriter::with_capacity(1 << 18, &file);
+        let mut head = Vec::new();
+        let (mut last, mut len) = (0u64, 0u64);
         let hist = &owned;
-        let done = explainer.explain(engine, windows, hist, &sorted, |e, records| {
-            let row = hist.row(e);
-            put_varint(&mut out, row - last);
-            last = row;
-            put_bytes(&mut out, records);
-            Ok(())
-        });
+        let done = explainer
+            .explain(engine, windows, hist, &sorted, |e, records| {
+                let row = hist.row(e);
+                head.clear();
+                put_varint(&mut head, row - last);
+                put_varint(&mut head, records.len() as u64);
+                last = row;
+                len += (head.len() + records.len()) as u64;
+                out.write_all(&head)
+                    .and_then(|()| out.write_all(records))
+                    .map_err(|e| out_path.error("write", e))
+            })
+            .and_then(|()| out.flush().map_err(|e| out_path.error("write", e)));
+        drop(out);
         return match done {
             Ok(()) => Resolved::Done {
-                out,
+                out: Run::File(out_path, file, len),
                 summary,
                 episodes: n as u64,
             },
@@ -729,7 +773,7 @@ fn resolve_partition(
         chunks.concat()
     };
     Resolved::Done {
-        out,
+        out: Run::Bytes(out),
         summary,
         episodes: n as u64,
     }
