@@ -901,20 +901,49 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         )?;
         let show = !a.input.quiet && std::io::stderr().is_terminal();
         let mut bar = progress::ProgressLine::new(input.size).with_rows(input.rows);
-        // A wide Parquet output of a Parquet input copies the input's own
-        // columns from the file: the pipeline only adds the scores.
-        let copied = parquet_out && input.is_parquet();
-        let rows = if pipeline::reads_rows_typed(&cfg, copied) {
-            input.take_input()?
-        } else {
-            input.take_reader().into()
+        let mut on_progress = |p| {
+            if show {
+                bar.update(p)
+            }
         };
-        let result =
-            pipeline::score_stream_observed(&engine, &cfg, rows, &mut output.writer, &mut |p| {
-                if show {
-                    bar.update(p)
+        // A Parquet input without history is scored typed from its record
+        // batches to a typed output.
+        let result = match input.score_plain(&engine, &cfg, &mut output, &mut on_progress) {
+            Some(r) => r,
+            None => {
+                // A history run reads a Parquet input's typed rows too. In
+                // the wide layout it writes the scores only: a Parquet
+                // output copies the input's own columns from the file, a
+                // text output formats them in front of the scores.
+                let rows = input.take_input()?;
+                #[allow(unused_labels)]
+                'run: {
+                    #[cfg(feature = "parquet")]
+                    if cfg.layout == Layout::Wide && !parquet_out {
+                        if let Some(joined) = input.joined_text(&mut output.writer, cfg.delimiter) {
+                            break 'run joined.and_then(|mut joined| {
+                                let s = pipeline::score_stream_observed(
+                                    &engine,
+                                    &cfg,
+                                    rows,
+                                    &mut joined,
+                                    &mut on_progress,
+                                )?;
+                                joined.finish()?;
+                                Ok(s)
+                            });
+                        }
+                    }
+                    pipeline::score_stream_observed(
+                        &engine,
+                        &cfg,
+                        rows,
+                        &mut output.writer,
+                        &mut on_progress,
+                    )
                 }
-            });
+            }
+        };
         if show {
             bar.finish();
         }
@@ -1065,7 +1094,7 @@ fn compare(a: CompareArgs) -> Result<(), Error> {
         wanted.extend(cfg.id.iter().cloned());
     }
     let mut input = open_extract("compare", &a.input, &cfg, true, &wanted)?;
-    let (result, summary) = morbus::compare::compare(&engine, &cfg, &opts, input.take_reader())
+    let (result, summary) = morbus::compare::compare(&engine, &cfg, &opts, input.take_reader()?)
         .map_err(|e| input.translate(e))?;
     if let Some(file) = json_file {
         let text = morbus::compare::json_text(&result)?;

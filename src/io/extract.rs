@@ -48,6 +48,9 @@ struct ParquetInput {
     schema: SchemaRef,
     lines: Arc<Mutex<RowLines>>,
     columns: Option<Vec<usize>>,
+    delimiter: u8,
+    /// Whether the rows were taken as text (by `compare`).
+    text_taken: bool,
 }
 
 /// An extract opened for a run.
@@ -85,23 +88,20 @@ impl Extract {
             } else {
                 None
             };
-            let text = parquet::ParquetText::from_source(
-                source.clone(),
-                cfg.delimiter,
-                columns.as_deref(),
-            )?;
-            let lines = text.row_lines();
-            let rows = Some(text.total_rows);
+            // The footer's row count, for a progress display.
+            let rows = Some(source.total_rows()?);
             return Ok(Extract {
-                reader: Box::new(text),
+                reader: Box::new(std::io::empty()),
                 size: None,
                 rows,
                 name: input.name,
                 parquet: Some(ParquetInput {
                     source,
                     schema,
-                    lines,
+                    lines: Arc::new(Mutex::new(RowLines::default())),
                     columns,
+                    delimiter: cfg.delimiter,
+                    text_taken: false,
                 }),
             });
         }
@@ -116,15 +116,64 @@ impl Extract {
         })
     }
 
-    /// The text for the pipeline (once; later calls give nothing).
-    pub fn take_reader(&mut self) -> Box<dyn Read + Send> {
-        std::mem::replace(&mut self.reader, Box::new(std::io::empty()))
+    /// The input as delimited text for a pipeline that reads only text
+    /// (`compare`), once; later calls give nothing. A Parquet input's rows
+    /// are written as text ([`parquet::ParquetText`]) for it: `score` and
+    /// `explain` never take this path for a Parquet input.
+    pub fn take_reader(&mut self) -> Result<Box<dyn Read + Send>, Error> {
+        #[cfg(feature = "parquet")]
+        if let Some(p) = self.parquet.as_mut() {
+            if std::mem::replace(&mut p.text_taken, true) {
+                return Ok(Box::new(std::io::empty()));
+            }
+            let text = parquet::ParquetText::from_source(
+                p.source.clone(),
+                p.delimiter,
+                p.columns.as_deref(),
+            )?;
+            p.lines = text.row_lines();
+            return Ok(Box::new(text));
+        }
+        Ok(std::mem::replace(
+            &mut self.reader,
+            Box::new(std::io::empty()),
+        ))
+    }
+
+    /// Scores a Parquet input without history, typed from its record
+    /// batches to `output` (see [`parquet::score_plain`]): `None` for any
+    /// other input or run.
+    pub fn score_plain(
+        &mut self,
+        engine: &Engine,
+        cfg: &ScoreConfig,
+        output: &mut Output,
+        progress: &mut dyn FnMut(crate::pipeline::Progress),
+    ) -> Option<Result<crate::pipeline::Summary, Error>> {
+        #[cfg(feature = "parquet")]
+        if let Some(p) = self.parquet.as_ref() {
+            if crate::pipeline::reads_history(cfg) {
+                return None;
+            }
+            let out = match output.typed(cfg.delimiter) {
+                Ok(o) => o,
+                Err(e) => return Some(Err(e)),
+            };
+            return Some(parquet::score_plain(
+                engine,
+                cfg,
+                p.source.clone(),
+                &self.name,
+                out,
+                progress,
+            ));
+        }
+        let _ = (engine, cfg, output, progress);
+        None
     }
 
     /// The input for a run that reads it through the history reader
-    /// without copying its rows as text (`explain`, history runs of the long
-    /// layout or with a Parquet output; see
-    /// [`crate::pipeline::reads_rows_typed`]): a
+    /// (`explain`, `score` with a history): a
     /// Parquet input's typed rows ([`parquet::ParquetRows`]: no text is made
     /// of them), or the text (once; later calls give nothing).
     pub fn take_input(&mut self) -> Result<Input<'static>, Error> {
@@ -138,7 +187,25 @@ impl Extract {
             self.reader = Box::new(std::io::empty());
             return Ok(Input::Rows(Box::new(rows)));
         }
-        Ok(Input::Text(self.take_reader()))
+        Ok(Input::Text(std::mem::replace(
+            &mut self.reader,
+            Box::new(std::io::empty()),
+        )))
+    }
+
+    /// For a history run in the wide layout over a Parquet input's typed
+    /// rows with a text output: the writer that puts each input row,
+    /// formatted from the file's record batches, in front of its scores
+    /// ([`parquet::JoinedText`]); `None` for other inputs.
+    #[cfg(feature = "parquet")]
+    pub fn joined_text<'o>(
+        &self,
+        out: &'o mut dyn std::io::Write,
+        delimiter: u8,
+    ) -> Option<Result<parquet::JoinedText<'o>, Error>> {
+        self.parquet
+            .as_ref()
+            .map(|p| parquet::JoinedText::new(out, p.source.clone(), delimiter))
     }
 
     /// Whether the input is a Parquet file.
@@ -188,8 +255,11 @@ impl Extract {
     ) -> Result<Output, Error> {
         let input = self.parquet.as_ref();
         let schema = input.map(|p| p.schema.as_ref());
-        // A wide score's rows are the input's rows: its columns are copied.
-        let copies = table == Table::Scores && cfg.layout == Layout::Wide;
+        // A wide score's rows are the input's rows: its columns are copied,
+        // by the run itself when it is typed from end to end (no history),
+        // else by the sink from the input file.
+        let typed = input.is_some() && !crate::pipeline::reads_history(cfg);
+        let copies = table == Table::Scores && cfg.layout == Layout::Wide && !typed;
         let copied = input.filter(|_| copies).map(|p| p.source.clone());
         let columns = match table {
             Table::Scores => {
