@@ -283,3 +283,136 @@ impl<'e> LongScorer<'e> {
         Ok(self.summary)
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::lists::{Catalogue, SCALE};
+    use crate::score::{IndexSpec, ScoreOptions};
+
+    /// Rows of (id, code, age) values.
+    struct Rows(Vec<[Field<'static>; 3]>);
+
+    impl Batch for Rows {
+        fn len(&self) -> usize {
+            self.0.len()
+        }
+        fn field(&self, col: usize, row: usize) -> Field<'_> {
+            self.0[row][col]
+        }
+    }
+
+    fn engine() -> Engine {
+        let specs = IndexSpec::parse_many("charlson:count").unwrap();
+        let opts = ScoreOptions {
+            age: true,
+            ..ScoreOptions::default()
+        };
+        Engine::new(&Catalogue::builtin(), &specs, opts).unwrap()
+    }
+
+    fn cfg(strict: bool) -> ScoreConfig {
+        ScoreConfig {
+            dx: vec!["code".into()],
+            layout: Layout::Long,
+            id: Some("pid".into()),
+            age: Some("age".into()),
+            strict,
+            ..ScoreConfig::default()
+        }
+    }
+
+    fn header() -> Header {
+        Header {
+            names: vec!["pid".into(), "code".into(), "age".into()],
+        }
+    }
+
+    const T: fn(&'static str) -> Field<'static> = |s| Field::Text(s.as_bytes());
+
+    #[test]
+    fn long_units_in_order_of_first_appearance_across_batches() {
+        let e = engine();
+        let c = cfg(false);
+        let p = plan(&e, &c, header()).unwrap();
+        let mut s = LongScorer::new(&e, &p);
+        // I21 and I22 are one condition, myocardial infarction (Quan et
+        // al., Med Care 2005;43:1130-9, Table 1, from memory).
+        let a = Rows(vec![
+            [T("b"), T("I21"), Field::Null],
+            [Field::Integer(7), T("I50"), Field::Number(55.0)],
+            [T("b"), T("I22"), Field::Integer(60)],
+        ]);
+        let b = Rows(vec![
+            [Field::Null, T("G30"), Field::Null],
+            [T("7"), T("N18"), Field::Null],
+            [T(""), T("J44"), Field::Null],
+        ]);
+        s.add(&c, &p, &a, 1).unwrap();
+        s.add(&c, &p, &b, 4).unwrap();
+        let mut got = Vec::new();
+        let summary = s
+            .finish(|row, v| {
+                got.push((row, v[0]));
+                Ok(())
+            })
+            .unwrap();
+        let count = |n: i64| Value::Score {
+            scaled: n * SCALE,
+            decimals: 0,
+        };
+        // b; 7 (the integer and the text read alike); null; "" (apart
+        // from null).
+        assert_eq!(
+            got,
+            vec![(1, count(1)), (2, count(2)), (4, count(1)), (6, count(1))]
+        );
+        assert_eq!(summary.units, 4);
+        assert_eq!(summary.rows_read, 6);
+        // The null and the empty id are rows without an id.
+        assert_eq!(summary.missing_ids, 2);
+        // b: no age on its first row, 60 on its third: no disagreement.
+        assert_eq!(summary.disagreeing_units, 0);
+    }
+
+    #[test]
+    fn a_long_unit_with_another_age_is_counted_or_stops_a_strict_run() {
+        let e = engine();
+        let rows = Rows(vec![
+            [T("a"), T("I21"), Field::Number(70.0)],
+            [T("a"), T("I50"), Field::Null],
+            [T("a"), T("J44"), Field::Integer(71)],
+        ]);
+        let c = cfg(false);
+        let p = plan(&e, &c, header()).unwrap();
+        let mut s = LongScorer::new(&e, &p);
+        s.add(&c, &p, &rows, 1).unwrap();
+        let summary = s.finish(|_, _| Ok(())).unwrap();
+        assert_eq!((summary.disagreeing_units, summary.missing_ages), (1, 1));
+        let c = ScoreConfig {
+            age: None,
+            ..cfg(true)
+        };
+        let p = plan(&e, &c, header()).unwrap();
+        let mut s = LongScorer::new(&e, &p);
+        let rows = Rows(vec![
+            [T("a"), T("I21"), Field::Null],
+            [Field::Null, T("I50"), Field::Null],
+        ]);
+        let err = s.add(&c, &p, &rows, 10).unwrap_err();
+        assert_eq!(
+            err.to_string(),
+            "line 11: missing id (column 'pid' is empty) (--strict)"
+        );
+    }
+
+    #[test]
+    fn runs_with_a_history_are_not_plain() {
+        let e = engine();
+        let c = ScoreConfig {
+            lookback: Some(30),
+            ..cfg(false)
+        };
+        assert!(plan(&e, &c, header()).is_err());
+    }
+}
