@@ -14,6 +14,12 @@
 #                                           # and all) against the ordinary extract
 #   SIZES=10000000 SCENARIOS=history-ratio bash benches/run.sh
 #                                           # 365-day lookback against plain scoring
+#   SIZES=100000000 SCENARIOS=national bash benches/run.sh
+#                                           # 730-day lookback within --memory 1GiB
+#                                           # against plain scoring of the same
+#                                           # file (no in-memory run: it would not
+#                                           # fit); needs about 9 GB for the input
+#                                           # and 30 GB of temporary files in $DATA
 #   SIZES=30000000 SCENARIOS=spill bash benches/run.sh
 #                                           # 730-day lookback within --memory
 #                                           # (SPILL_MEMORY, default 1GiB) against
@@ -107,6 +113,13 @@ for n in $SIZES; do
         row "730-day lookback, in memory" "$n" "$base" "$bm" "$floor"
         read -r t m < <(best_of $MORBUS score "$wide" "${lb[@]}" --memory "${SPILL_MEMORY:-1GiB}" --temp-dir "$DATA")
         row "730-day lookback, --memory ${SPILL_MEMORY:-1GiB} (ratio: to above)" "$n" "$t" "$m" "$base"
+        ;;
+      national)
+        read -r plain pm < <(best_of $MORBUS score "$wide" --dx 'dx*' -q -o /dev/null)
+        row "score, wide, no lookback" "$n" "$plain" "$pm" "$floor"
+        read -r t m < <(best_of $MORBUS score "$wide" --dx 'dx*' --id patient_id --date admission_date \
+          --lookback 730 --memory 1GiB --temp-dir "$DATA" -q -o /dev/null)
+        row "730-day lookback, --memory 1GiB (ratio: to above)" "$n" "$t" "$m" "$plain"
         ;;
       explain)
         if [ "$n" -le 1000000 ]; then

@@ -188,6 +188,38 @@ pub struct Comparison {
     pub caution: String,
 }
 
+impl Comparison {
+    /// Every note of the comparison, each prefixed with what it concerns,
+    /// in the order the table and the report list them: the whole run, the
+    /// adjustment-only model, each index, each pair, each index out of
+    /// sample, the providers.
+    pub fn all_notes(&self) -> Vec<String> {
+        let mut notes: Vec<String> = self.notes.clone();
+        for n in &self.adjustment_notes {
+            notes.push(format!("adjustment-only model: {n}"));
+        }
+        for ix in &self.indices {
+            for n in &ix.notes {
+                notes.push(format!("{}: {n}", ix.name));
+            }
+        }
+        for p in &self.pairs {
+            for n in &p.notes {
+                notes.push(format!("{} vs {}: {n}", p.a, p.b));
+            }
+        }
+        for ix in &self.indices {
+            for n in ix.out_of_sample.iter().flat_map(|o| &o.notes) {
+                notes.push(format!("{} (out of sample): {n}", ix.name));
+            }
+        }
+        if let Some(p) = &self.providers {
+            notes.extend(p.notes.iter().map(|n| format!("providers: {n}")));
+        }
+        notes
+    }
+}
+
 /// The pairs compared.
 #[derive(Clone, Debug, Serialize)]
 pub struct PairsCompared {
@@ -254,6 +286,22 @@ pub struct UnitCounts {
     pub events: u64,
     /// `events / analysed`.
     pub event_share: f64,
+}
+
+impl UnitCounts {
+    /// Why units were left out, one phrase per reason with its count (none
+    /// when every unit was analysed), as the table and the report say it.
+    pub fn left_out(&self) -> Vec<String> {
+        [
+            (self.missing_outcome, "without an outcome"),
+            (self.missing_adjustment, "with a missing adjustment value"),
+            (self.missing_age, "without a readable age"),
+        ]
+        .into_iter()
+        .filter(|&(n, _)| n > 0)
+        .map(|(n, why)| format!("{} {why}", fmt_count(n)))
+        .collect()
+    }
 }
 
 /// A restricted cubic spline of a numeric adjustment column.

@@ -453,25 +453,7 @@ pub fn html_report(c: &Comparison) -> String {
         );
     }
     h.push_str("</div>");
-    let mut left = Vec::new();
-    if u.missing_outcome > 0 {
-        left.push(format!(
-            "{} without an outcome",
-            fmt_count(u.missing_outcome)
-        ));
-    }
-    if u.missing_adjustment > 0 {
-        left.push(format!(
-            "{} with a missing adjustment value",
-            fmt_count(u.missing_adjustment)
-        ));
-    }
-    if u.missing_age > 0 {
-        left.push(format!(
-            "{} without a readable age",
-            fmt_count(u.missing_age)
-        ));
-    }
+    let left = u.left_out();
     h.push_str("<p>");
     if !left.is_empty() {
         let _ = write!(h, "Left out: {}. ", esc(&left.join(", ")));
@@ -766,28 +748,7 @@ pub fn html_report(c: &Comparison) -> String {
     }
 
     // Notes.
-    let mut notes: Vec<String> = c.notes.clone();
-    for n in &c.adjustment_notes {
-        notes.push(format!("adjustment-only model: {n}"));
-    }
-    for ix in &c.indices {
-        for n in &ix.notes {
-            notes.push(format!("{}: {n}", ix.name));
-        }
-    }
-    for p in &c.pairs {
-        for n in &p.notes {
-            notes.push(format!("{} vs {}: {n}", p.a, p.b));
-        }
-    }
-    for ix in &c.indices {
-        for n in ix.out_of_sample.iter().flat_map(|o| &o.notes) {
-            notes.push(format!("{} (out of sample): {n}", ix.name));
-        }
-    }
-    if let Some(p) = &c.providers {
-        notes.extend(p.notes.iter().map(|n| format!("providers: {n}")));
-    }
+    let notes = c.all_notes();
     if !notes.is_empty() {
         h.push_str("<h2>Notes</h2><ul class=\"notes\">");
         for n in notes {

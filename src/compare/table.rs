@@ -163,25 +163,7 @@ pub fn text_table(c: &Comparison) -> String {
         fmt_count(u.events),
         pct(u.event_share)
     ));
-    let mut left = Vec::new();
-    if u.missing_outcome > 0 {
-        left.push(format!(
-            "{} without an outcome",
-            fmt_count(u.missing_outcome)
-        ));
-    }
-    if u.missing_adjustment > 0 {
-        left.push(format!(
-            "{} with a missing adjustment value",
-            fmt_count(u.missing_adjustment)
-        ));
-    }
-    if u.missing_age > 0 {
-        left.push(format!(
-            "{} without a readable age",
-            fmt_count(u.missing_age)
-        ));
-    }
+    let left = u.left_out();
     if !left.is_empty() {
         o.push_str(&format!("Left out: {}\n", left.join(", ")));
     }
@@ -524,28 +506,7 @@ pub fn text_table(c: &Comparison) -> String {
         }
     }
 
-    let mut notes: Vec<String> = c.notes.clone();
-    for n in &c.adjustment_notes {
-        notes.push(format!("adjustment-only model: {n}"));
-    }
-    for i in &c.indices {
-        for n in &i.notes {
-            notes.push(format!("{}: {n}", i.name));
-        }
-    }
-    for p in &c.pairs {
-        for n in &p.notes {
-            notes.push(format!("{} vs {}: {n}", p.a, p.b));
-        }
-    }
-    for i in &c.indices {
-        for n in i.out_of_sample.iter().flat_map(|s| &s.notes) {
-            notes.push(format!("{} (out of sample): {n}", i.name));
-        }
-    }
-    if let Some(p) = &c.providers {
-        notes.extend(p.notes.iter().map(|n| format!("providers: {n}")));
-    }
+    let notes = c.all_notes();
     if !notes.is_empty() {
         o.push_str("\nNotes\n");
         for n in notes {
