@@ -7,6 +7,8 @@
 #   bash benches/run.sh            # 1,000,000-episode scenarios
 #   SIZES="1000000 10000000" bash benches/run.sh
 #   SCENARIOS="wide long" bash benches/run.sh
+#   SCENARIOS=compare bash benches/run.sh    # compare on CSV, on Parquet and (with
+#                                           # python/.venv) from a pyarrow table
 #   SCENARIOS=providers bash benches/run.sh  # compare with 40 providers and 5 folds
 #   SCENARIOS=parquet bash benches/run.sh   # Parquet in and out; its floor is a
 #                                           # read-and-rewrite with the parquet crate
@@ -132,6 +134,17 @@ for n in $SIZES; do
           read -r t m < <(best_of $MORBUS compare "$wide" --dx 'dx*' --outcome died_within_30_days \
             --index charlson:charlson1987,charlson:quan2011,charlson:count,elixhauser:vanwalraven2009,elixhauser:count,hfrs:gilbert2018)
           row "compare, 6 index specifications" "$n" "$t" "$m" "$floor"
+          # The same rows as typed Parquet, and (with python/.venv) from a
+          # pyarrow table read from that file (the read itself not timed).
+          pq="$DATA/wide-$n.parquet"
+          [ -f "$pq" ] || $BIN/rewrite --typed-parquet "$wide" "$pq"
+          read -r t m < <(best_of $MORBUS compare "$pq" --dx 'dx*' --outcome died_within_30_days \
+            --index charlson:charlson1987,charlson:quan2011,charlson:count,elixhauser:vanwalraven2009,elixhauser:count,hfrs:gilbert2018)
+          row "compare, 6 specs, Parquet" "$n" "$t" "$m" "$floor"
+          if [ -x python/.venv/bin/python ]; then
+            python/.venv/bin/python python/bench_compare.py --parquet "$pq" --repeat "$RUNS" \
+              | sed 's/^/python: /' >&2 || true
+          fi
         fi
         ;;
       providers)

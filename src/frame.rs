@@ -1,5 +1,5 @@
-//! `score` and `explain` over the typed columns of a data frame, for the
-//! language bindings (the R package, the Python package).
+//! `score`, `explain` and `compare` over the typed columns of a data
+//! frame, for the language bindings (the R package, the Python package).
 //!
 //! A binding describes its frame through [`Columns`]: for every column its
 //! [`Kind`] and, row by row, its [`Field`]s (text read in place, numbers,
@@ -20,7 +20,9 @@
 //! frame. Codes, present-on-admission indicators, primary flags, dates and
 //! ages are read by the same functions as a text record's fields; messages
 //! name the frame's rows and columns. `explain`'s records come back typed
-//! from the history's codes.
+//! from the history's codes; [`compare`] hands the rows to
+//! [`crate::compare::compare`], which reads the outcome and adjustment
+//! columns typed in the same pass.
 //!
 //! Results come back typed, one vector per output column ([`Scored`],
 //! [`Explained`]). Rows in messages are numbered from `first_row` (0 for
@@ -47,8 +49,7 @@
 //! assert_eq!(scored.columns[0], ScoreColumn::Int(vec![Some(6), Some(1)]));
 //! ```
 
-use std::borrow::Cow;
-
+use crate::compare::{CompareOptions, Comparison};
 use crate::lists::{SCALE, SCALE_DECIMALS};
 use crate::pipeline::explain::explain_history;
 use crate::pipeline::history::{History, Input, Needs, Windows};
@@ -483,6 +484,106 @@ pub fn used_columns(cfg: &ScoreConfig, header: &Header) -> Result<Vec<usize>, Er
     Ok(cols)
 }
 
+/// The columns `compare` reads besides the run's (outcome, adjustments,
+/// splines, `--by`, `--cluster`), resolved with the command line's
+/// messages.
+fn compare_used(opts: &CompareOptions, header: &Header) -> Result<Vec<Used>, Error> {
+    let mut names: Vec<(&str, &'static str)> = vec![(&opts.outcome, "outcome")];
+    for n in opts
+        .adjust
+        .iter()
+        .chain(&opts.adjust_categorical)
+        .chain(opts.splines.iter().map(|(c, _)| c))
+        .chain(&opts.by)
+        .chain(&opts.cluster)
+    {
+        names.push((n, "adjustment"));
+    }
+    names
+        .into_iter()
+        .map(|(n, what)| {
+            Ok(Used {
+                col: header.column(n, what)?,
+                role: Role::Keep,
+                what,
+                name: n.to_string(),
+            })
+        })
+        .collect()
+}
+
+/// The frame columns `compare` reads (each once, in frame order): those of
+/// [`used_columns`] and the outcome, adjustment, `--by` and `--cluster`
+/// columns. A binding fetches these and no others.
+pub fn compare_columns(
+    cfg: &ScoreConfig,
+    opts: &CompareOptions,
+    header: &Header,
+) -> Result<Vec<usize>, Error> {
+    let mut cols = used_columns(cfg, header)?;
+    cols.extend(compare_used(opts, header)?.iter().map(|u| u.col));
+    cols.sort_unstable();
+    cols.dedup();
+    Ok(cols)
+}
+
+/// `morbus compare` over a frame: the frame's rows go, typed, to the same
+/// [`crate::compare::compare`] as the command line's input (no text is
+/// made of them); the outcome and adjustment values are read typed with
+/// the text's rules, and messages name the frame's rows from `first_row`.
+///
+/// ```
+/// use morbus::compare::CompareOptions;
+/// use morbus::frame::{self, Columns, Field, Kind};
+/// use morbus::lists::Catalogue;
+/// use morbus::pipeline::{Header, ScoreConfig};
+/// use morbus::score::{Engine, IndexSpec, ScoreOptions};
+///
+/// // A diagnosis column (text) and a true/false outcome.
+/// struct Frame(Vec<(&'static str, bool)>);
+/// impl Columns for Frame {
+///     fn rows(&self) -> usize { self.0.len() }
+///     fn kind(&self, col: usize) -> Kind { [Kind::Text, Kind::Logical][col] }
+///     fn field(&self, col: usize, row: usize) -> Field<'_> {
+///         let (dx, died) = self.0[row];
+///         if col == 0 { Field::Text(dx.as_bytes()) } else { Field::Logical(died) }
+///     }
+/// }
+///
+/// let specs = IndexSpec::parse_many("charlson:count").unwrap();
+/// let engine = Engine::new(&Catalogue::builtin(), &specs, ScoreOptions::default()).unwrap();
+/// let cfg = ScoreConfig { dx: vec!["dx1".into()], ..ScoreConfig::default() };
+/// let opts = CompareOptions { outcome: "died".into(), ..CompareOptions::default() };
+/// let header = Header { names: vec!["dx1".into(), "died".into()] };
+/// let rows = Frame(vec![("I21.9", true), ("", false), ("C78.0", true), ("J18.9", false)]);
+/// let (c, _) = frame::compare(&engine, &cfg, &opts, &header, &rows, 0).unwrap();
+/// assert_eq!((c.units.analysed, c.units.events), (4, 2));
+/// // Both units with the outcome score 1, neither without it: c = 1.
+/// assert_eq!(c.indices[0].c_statistic.as_ref().unwrap().estimate, 1.0);
+/// ```
+pub fn compare(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    opts: &CompareOptions,
+    header: &Header,
+    cols: &impl Columns,
+    first_row: u64,
+) -> Result<(Comparison, Summary), Error> {
+    let mut used = resolve(cfg, header)?;
+    used.extend(compare_used(opts, header)?);
+    let typed_format = cfg.date_format != DateFormat::Iso;
+    for u in &used {
+        check_kind(cols, u, typed_format)?;
+    }
+    let rows = FrameRows {
+        cols,
+        names: &header.names,
+        next: 0,
+        first_row,
+    };
+    crate::compare::compare(engine, cfg, opts, Input::Rows(Box::new(rows)))
+}
+
 /// Scores a frame: every row (wide) or every unit (long) of it.
 pub fn score(
     engine: &Engine,
@@ -740,70 +841,6 @@ impl<C: Columns> Batch for FramePart<'_, C> {
     }
 }
 
-/// The units of a frame in order of first appearance, as the history
-/// reader forms them: every row (wide), or the rows sharing the id and
-/// episode values (long; values compared as the text the reader sees).
-/// Returns each row's unit and each unit's first row.
-fn units(cfg: &ScoreConfig, cols: &impl Columns, used: &[Used]) -> (Vec<u32>, Vec<u64>) {
-    let n = cols.rows();
-    if cfg.layout == Layout::Wide {
-        return ((0..n as u32).collect(), (0..n as u64).collect());
-    }
-    let col = |what: &str| {
-        used.iter()
-            .find(|u| u.role == Role::Id && u.what == what)
-            .map(|u| u.col)
-    };
-    let (id, episode) = (col("id"), col("episode"));
-    let text = |c: Option<usize>, r: usize| -> Vec<u8> {
-        c.and_then(|c| cols.field(c, r).text())
-            .map(Cow::into_owned)
-            .unwrap_or_default()
-    };
-    let mut index: std::collections::HashMap<(Vec<u8>, Vec<u8>), u32> =
-        std::collections::HashMap::new();
-    let mut of_row = Vec::with_capacity(n);
-    let mut first = Vec::new();
-    for r in 0..n {
-        let next = first.len() as u32;
-        let u = *index.entry((text(id, r), text(episode, r))).or_insert(next);
-        if u == next {
-            first.push(r as u64);
-        }
-        of_row.push(u);
-    }
-    (of_row, first)
-}
-
-/// Per kept column (`keep`, `label`), per unit, the frame row whose value
-/// the unit carries: its first row with a non-empty value (the value the
-/// history reader keeps, checked against it by the caller).
-fn kept_rows(
-    cols: &impl Columns,
-    used: &[Used],
-    of_row: &[u32],
-    units: usize,
-) -> Vec<Vec<Option<u64>>> {
-    used.iter()
-        .filter(|u| u.role == Role::Keep)
-        .map(|u| {
-            let mut rows = vec![None; units];
-            for (r, &e) in of_row.iter().enumerate() {
-                let slot = &mut rows[e as usize];
-                if slot.is_none()
-                    && cols
-                        .field(u.col, r)
-                        .text()
-                        .is_some_and(|t| !t.trim_ascii().is_empty())
-                {
-                    *slot = Some(r as u64);
-                }
-            }
-            rows
-        })
-        .collect()
-}
-
 /// Refuses kept columns named twice or already in the output.
 fn check_kept(used: &[Used], engine: &Engine, label: bool) -> Result<(), Error> {
     let mut out: Vec<&str> = used
@@ -892,30 +929,11 @@ fn score_history(
             out.push(&values);
             first.push(hist.row(e) - 1);
         }
-        let kept_rows = if cfg.keep.is_empty() {
-            Vec::new()
-        } else {
-            let (of_row, unit_first) = units(cfg, cols, used);
-            let kept = kept_rows(cols, used, &of_row, unit_first.len());
-            // The rows found carry the values the history reader kept.
-            let agree = unit_first == first
-                && kept.iter().enumerate().all(|(j, rows)| {
-                    rows.iter().enumerate().all(|(e, r)| {
-                        let text = r.and_then(|r| {
-                            let k = used.iter().filter(|u| u.role == Role::Keep).nth(j);
-                            k.and_then(|u| cols.field(u.col, r as usize).text())
-                        });
-                        text.as_deref().unwrap_or(b"") == hist.kept(e, j)
-                    })
-                });
-            if !agree {
-                return Err(Error::data(
-                    None,
-                    "internal error: the kept values' rows do not match the history's units",
-                ));
-            }
-            kept
-        };
+        // Each unit's kept values: the frame rows the history took them
+        // from (1-based data rows there), for the binding to take typed.
+        let kept_rows = (0..cfg.keep.len())
+            .map(|j| (0..n).map(|e| hist.kept_row(e, j).map(|r| r - 1)).collect())
+            .collect();
         summary.rows_written += n as u64;
         summary.units += n as u64;
         if cfg.layout == Layout::Wide && n != cols.rows() {
@@ -963,6 +981,7 @@ pub fn explain(
         rows: false,
     };
     let (mut hist, mut summary) = read_history(engine, cfg, header, cols, first_row, needs)?;
+    let label = !cfg.keep.is_empty();
     let sorted = hist.resolve(&windows);
     let hist = hist;
     let mut ex = Explained {
@@ -1004,20 +1023,13 @@ pub fn explain(
         ex.status.push(r.status);
         ex.age_points
             .push(r.age_points.map(|a| number(a, r.decimals)));
+        if label {
+            // The frame row the history took the episode's label from.
+            ex.label_rows
+                .push(hist.kept_row(r.episode, 0).map(|row| row - 1));
+        }
         Ok(())
     })?;
-    if !cfg.keep.is_empty() {
-        let (of_row, unit_first) = units(cfg, cols, &used);
-        let label = kept_rows(cols, &used, &of_row, unit_first.len())
-            .into_iter()
-            .next()
-            .unwrap_or_default();
-        ex.label_rows = ex
-            .row
-            .iter()
-            .map(|&r| label[of_row[r as usize - 1] as usize])
-            .collect();
-    }
     summary.units += hist.episodes.len() as u64;
     summary.rows_written = summary.units;
     Ok((ex, summary))

@@ -14,7 +14,7 @@
 //! | `indices` | every index scored: `spec` (`LIST:WEIGHTING`), `list`, `weighting`, `column` |
 //! | `options` | `layout` (`wide`/`long`), `dx` (names and patterns as given), `dx_columns` (the columns read), `dx_separator`, `delimiter`, `id_column`, `episode_column`, `date_column`, `date_format`, `lookback` (`null`, or an object: `days`, a number or `null` for the whole history, for every list not named; `lists`, list name to `{"days": ...}` for `--lookback LIST=DAYS`; `window`, `current-and-earlier` or `earlier-only`), `exclude_primary`, `primary_column`, `poa_column`, `poa_values`, `age_column`, `hierarchy`, `flags`, `strict` |
 //! | `columns` | the output columns added, in order |
-//! | `rows` | `read`, `written`, `units` (episodes in wide, ids in long), `missing_ids` (rows with an empty id field), `disagreeing_units` (long-layout units whose rows give different dates, ages or values of a kept column; the first is used), `spilled_records` and `spilled_bytes` (a lookback whose history was over half of `--memory`: the episodes and rows written to partition files, and the bytes of temporary files written; 0 when it fitted) |
+//! | `rows` | `read`, `written`, `units` (episodes in wide, ids in long), `missing_ids` (rows with an empty id field), `disagreeing_units` (long-layout units whose rows give different dates, ages or values of a kept column; the first is used), `spilled_records` and `spilled_bytes` (a lookback whose history was over half of `--memory`: the episodes and rows written to partition files, and the bytes of temporary files written; 0 when it fitted), and `over_memory` only when a partition of a spilled history still took more than half of `--memory`: its `bytes`, `episodes`, and the patient `id` with the most episodes in it (`id_episodes`) |
 //! | `codes` | `read` (valid, that is well-shaped, codes), `invalid` (count of malformed values: not ICD-10-shaped), `top_invalid` (up to 20 most frequent invalid values with their `count`), `edition` (`who`, `cm` or `any`: where codes were looked up), `edition_sources` (the code sets: edition, release, package), `unknown` (well-shaped codes in no selected edition, stem included), `top_unknown`, `extended` (codes not in the selected editions whose three- or four-character stem is), `top_extended` (normalised codes with their `count`) |
 //! | `excluded` | codes left out: `primary` (primary diagnosis), `not_on_admission` |
 //! | `ages` | `missing` and `unreadable` age fields; `null` without an age column |
@@ -191,6 +191,20 @@ pub struct Rows {
     /// partition files, and the bytes of temporary files written (0: none).
     pub spilled_records: u64,
     pub spilled_bytes: u64,
+    /// A spilled history's partition that still held more than half of
+    /// `--memory` (absent when none did).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub over_memory: Option<OverMemory>,
+}
+
+/// A partition over its share of `--memory`: the bytes its history took,
+/// its episodes, and the patient id with the most of them.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct OverMemory {
+    pub bytes: u64,
+    pub episodes: u64,
+    pub id: String,
+    pub id_episodes: u64,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize)]
@@ -330,6 +344,12 @@ impl Provenance {
                 disagreeing_units: summary.disagreeing_units,
                 spilled_records: summary.spilled_records,
                 spilled_bytes: summary.spilled_bytes,
+                over_memory: summary.over_memory.as_ref().map(|o| OverMemory {
+                    bytes: o.bytes,
+                    episodes: o.episodes,
+                    id: String::from_utf8_lossy(&o.id).into_owned(),
+                    id_episodes: o.id_episodes,
+                }),
             },
             codes: Codes {
                 read: summary.codes_read,

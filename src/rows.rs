@@ -14,8 +14,7 @@
 //! - a delimited-text record ([`crate::io::Fields`]): every field is
 //!   [`Field::Text`], read in the input's own buffer;
 //! - a row of a typed [`Batch`]: a data frame's rows (`frame::Columns`, the
-//!   R package's frames; Python's dated history still writes text in
-//!   `python/src/history.rs`) or an Arrow record batch (a Parquet
+//!   R and Python packages' frames) or an Arrow record batch (a Parquet
 //!   input), handed to the history reader batch by batch by a
 //!   [`RowSource`], so that no text is made of them on the way.
 //!

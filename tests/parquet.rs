@@ -874,3 +874,101 @@ fn a_timestamp_with_a_time_zone_counts_on_its_date_in_that_zone() {
         ["2023-01-03T01:30:00+02:00", "2024-01-03T00:30:00+02:00"]
     );
 }
+
+/// `compare` on a Parquet input reads its rows typed and names them in
+/// its messages (`row N of FILE`), where the same data as CSV names the
+/// line; both exit 1. A typed outcome (whole numbers 0/1) reads as its
+/// text form does.
+#[test]
+fn compare_on_parquet_names_rows_and_reads_typed_outcomes() {
+    let dir = TempDir::new("parquet-compare");
+    let write = |stem: &str, ids: &[&str], codes: &[&str], died: &[Option<i64>]| {
+        let mut id = StringBuilder::new();
+        let mut dx = StringBuilder::new();
+        let mut out = Int64Builder::new();
+        let mut text = String::from("id,dx1,died\n");
+        for ((i, d), o) in ids.iter().zip(codes).zip(died) {
+            id.append_value(i);
+            dx.append_value(d);
+            out.append_option(*o);
+            let o = o.map_or(String::new(), |o| o.to_string());
+            text.push_str(&format!("{i},{d},{o}\n"));
+        }
+        let batch = RecordBatch::try_from_iter([
+            ("id", Arc::new(id.finish()) as ArrayRef),
+            ("dx1", Arc::new(dx.finish()) as ArrayRef),
+            ("died", Arc::new(out.finish()) as ArrayRef),
+        ])
+        .unwrap();
+        let pq = dir.path().join(format!("{stem}.parquet"));
+        write_parquet(&pq, &batch, 2);
+        let csv = dir.path().join(format!("{stem}.csv"));
+        std::fs::write(&csv, text).unwrap();
+        (pq, csv)
+    };
+    let run = |input: &Path, long: bool| {
+        let mut a = vec![
+            "compare",
+            s(input),
+            "--dx",
+            "dx1",
+            "--outcome",
+            "died",
+            "--index",
+            "charlson:count",
+        ];
+        if long {
+            a.extend_from_slice(&["--layout", "long", "--id", "id"]);
+        }
+        morbus(&a)
+    };
+    let ids = ["a", "b", "c", "d", "e", "f"];
+    let codes = ["I21.9", "C78.0", "J18.9", "I50.0", "Z00.0", "E11.9"];
+    // Valid: the same table and summary from either form.
+    let died = [Some(1), Some(1), Some(0), None, Some(0), Some(1)];
+    let (pq, csv) = write("valid", &ids, &codes, &died);
+    let (from_pq, from_csv) = (run(&pq, false), run(&csv, false));
+    assert_eq!(from_pq.code, 0, "{}", from_pq.stderr);
+    assert_eq!(from_pq.stdout, from_csv.stdout);
+    assert_eq!(from_pq.stderr, from_csv.stderr);
+    // An outcome of 2 on data row 3 (line 4 of the CSV).
+    let died = [Some(1), Some(0), Some(2), None, Some(0), Some(1)];
+    let (pq, csv) = write("invalid", &ids, &codes, &died);
+    let message = "outcome column 'died' holds '2': expected 0 or 1, or true/false";
+    let (from_pq, from_csv) = (run(&pq, false), run(&csv, false));
+    assert_eq!((from_pq.code, from_csv.code), (1, 1), "{}", from_pq.stderr);
+    assert!(
+        from_csv.stderr.contains(&format!("line 4: {message}")),
+        "{}",
+        from_csv.stderr
+    );
+    assert!(
+        from_pq
+            .stderr
+            .contains(&format!("row 3 of {}: {message}", pq.display())),
+        "{}",
+        from_pq.stderr
+    );
+    // Long layout: rows 4 and 6 of id 'd' disagree.
+    let ids = ["a", "b", "c", "d", "e", "d"];
+    let died = [Some(1), Some(0), Some(1), Some(1), Some(0), Some(0)];
+    let (pq, csv) = write("disagree", &ids, &codes, &died);
+    let message = "column 'died' holds '0' here but '1'";
+    let (from_pq, from_csv) = (run(&pq, true), run(&csv, true));
+    assert_eq!((from_pq.code, from_csv.code), (1, 1), "{}", from_pq.stderr);
+    assert!(
+        from_csv
+            .stderr
+            .contains(&format!("line 7: {message} on line 5 of the same episode")),
+        "{}",
+        from_csv.stderr
+    );
+    assert!(
+        from_pq.stderr.contains(&format!(
+            "row 6 of {}: {message} on row 4 of the same episode",
+            pq.display()
+        )),
+        "{}",
+        from_pq.stderr
+    );
+}

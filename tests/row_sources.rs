@@ -1,5 +1,6 @@
 //! One row model, three sources: the same generated extract gives the same
-//! scores, `explain` records and summary counts whether it is read as
+//! scores, `explain` records, `compare` results and summary counts whether
+//! it is read as
 //! delimited text, as a data frame's typed columns (`frame::Columns`, what
 //! the R package hands over) or as a Parquet file's record batches, for the
 //! wide and long layouts, `--episode`, lookback of 365 days and of the
@@ -28,6 +29,7 @@ use std::sync::Arc;
 use arrow_array::{
     ArrayRef, BooleanArray, Date32Array, Float64Array, Int64Array, RecordBatch, StringArray,
 };
+use morbus::compare::{self, CompareOptions};
 use morbus::frame::{self, Columns, Explained, Field, Kind, ScoreColumn};
 use morbus::io::parquet::{
     score_plain, JoinedText, OutputColumns, ParquetRows, ParquetSink, Source, TypedOutput,
@@ -766,6 +768,329 @@ fn the_generated_extracts_disagree_within_episodes() {
     let s: Summary = score_stream(&engine, &cfg, &t.csv()[..], &mut Vec::new()).unwrap();
     assert!(s.disagreeing_units > 0, "{s:?}");
     assert!(s.unreadable_dates > 0, "{s:?}");
+}
+
+// ---------------------------------------------------------------------
+// compare
+
+/// SplitMix64: a unit's values from its number, so that every row of a
+/// unit carries the same ones.
+fn mix(mut x: u64) -> u64 {
+    x = x.wrapping_add(0x9E37_79B9_7F4A_7C15);
+    x = (x ^ (x >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+    x = (x ^ (x >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+    x ^ (x >> 31)
+}
+
+/// The unit of each row: the row (wide), or the number of its episode
+/// value `E0001` (long).
+fn units_of(t: &Table) -> Vec<u64> {
+    let ep = t.names.iter().position(|n| n == "episode");
+    (0..t.rows())
+        .map(|r| match ep {
+            Some(c) => match t.field(c, r) {
+                Field::Text(b) => std::str::from_utf8(&b[1..]).unwrap().parse().unwrap(),
+                other => panic!("{other:?}"),
+            },
+            None => r as u64,
+        })
+        .collect()
+}
+
+/// How the outcome column is typed.
+#[derive(Clone, Copy, Debug)]
+enum Outcome {
+    Text,
+    Integer,
+    Number,
+    Logical,
+}
+
+/// Adds `compare`'s columns, one value per unit: the outcome `died`
+/// (about a tenth missing), a numeric `severity` (0 to 3 in halves, some
+/// missing), a categorical `grade` (1 to 3), a provider `site` (10 to 40).
+/// `typed`: severity a number, grade and site whole numbers; else text.
+/// In the long layout a unit's later rows sometimes leave a value empty
+/// (the unit takes its first non-empty one).
+fn with_compare_columns(t: &mut Table, typed: bool, outcome: Outcome) {
+    let units = units_of(t);
+    let long = t.names.iter().any(|n| n == "episode");
+    let mut died = Vec::new();
+    let (mut severity, mut grade, mut site) = (Vec::new(), Vec::new(), Vec::new());
+    for (r, &u) in units.iter().enumerate() {
+        let h = mix(u);
+        // A later row of a long unit: now and then empty.
+        let blank = long && r > 0 && units[r - 1] == u && mix(r as u64) % 3 == 0;
+        let v = |x: Option<u64>| if blank { None } else { x };
+        died.push(v((h % 10 != 0).then(|| u64::from((h >> 8) % 10 < 3))));
+        severity.push(v(((h >> 16) % 9 != 0).then_some((h >> 20) % 7)));
+        grade.push(v(((h >> 24) % 13 != 0).then_some(1 + (h >> 28) % 3)));
+        site.push(v(Some(10 * (1 + (h >> 32) % 4))));
+    }
+    let outcome_col = match outcome {
+        Outcome::Text => Col::Text(died.iter().map(|d| d.map(|d| d.to_string())).collect()),
+        Outcome::Integer => Col::Int(died.iter().map(|d| d.map(|d| d as i64)).collect()),
+        Outcome::Number => Col::Num(died.iter().map(|d| d.map(|d| d as f64)).collect()),
+        Outcome::Logical => Col::Bool(died.iter().map(|d| d.map(|d| d == 1)).collect()),
+    };
+    let half = |s: &Option<u64>| s.map(|s| s as f64 / 2.0);
+    let (sev, gr, si) = if typed {
+        (
+            Col::Num(severity.iter().map(half).collect()),
+            Col::Int(grade.iter().map(|g| g.map(|g| g as i64)).collect()),
+            Col::Int(site.iter().map(|s| s.map(|s| s as i64)).collect()),
+        )
+    } else {
+        let text = |v: Vec<Option<String>>| Col::Text(v);
+        (
+            text(
+                severity
+                    .iter()
+                    .map(|s| half(s).map(|x| x.to_string()))
+                    .collect(),
+            ),
+            text(grade.iter().map(|g| g.map(|g| g.to_string())).collect()),
+            text(site.iter().map(|s| s.map(|s| s.to_string())).collect()),
+        )
+    };
+    for (name, col) in [
+        ("died", outcome_col),
+        ("severity", sev),
+        ("grade", gr),
+        ("site", si),
+    ] {
+        t.names.push(name.into());
+        t.cols.push(col);
+    }
+}
+
+/// The comparisons made: providers, clusters, folds by id, a numeric, a
+/// categorical and a spline adjustment.
+fn compare_options() -> CompareOptions {
+    CompareOptions {
+        outcome: "died".into(),
+        adjust: vec!["severity".into()],
+        adjust_categorical: vec!["grade".into()],
+        splines: vec![("severity".into(), 3)],
+        by: Some("site".into()),
+        cluster: Some("patient".into()),
+        min_expected: 0.0,
+        folds: Some(3),
+        ..CompareOptions::default()
+    }
+}
+
+/// The JSON and plain-text table of a comparison (the version aside, the
+/// same for every source).
+fn compared(
+    r: Result<(compare::Comparison, Summary), Error>,
+    what: &str,
+) -> (String, String, Summary) {
+    let (c, summary) = r.unwrap_or_else(|e| panic!("{what}: {e}"));
+    (
+        compare::json_text(&c).unwrap(),
+        compare::text_table(&c),
+        summary,
+    )
+}
+
+/// `compare` gives the same JSON, table and summary from the text, the
+/// frame and the Parquet file of `t`.
+fn check_compare(engine: &Engine, t: &Table, stem: &str, what: &str, cfg: &ScoreConfig) -> String {
+    let opts = compare_options();
+    let text = compared(compare::compare(engine, cfg, &opts, &t.csv()[..]), what);
+    let pq = parquet_file(t, stem);
+    let parquet = compared(
+        compare::compare(engine, cfg, &opts, typed_rows(&pq.path)),
+        what,
+    );
+    let framed = compared(frame::compare(engine, cfg, &opts, &t.header(), t, 1), what);
+    assert!(parquet.0 == text.0, "{what}: Parquet JSON differs");
+    assert_eq!(parquet.1, text.1, "{what}: Parquet table");
+    assert_eq!(parquet.2, text.2, "{what}: Parquet summary");
+    assert!(framed.0 == text.0, "{what}: frame JSON differs");
+    assert_eq!(framed.1, text.1, "{what}: frame table");
+    assert_eq!(framed.2, text.2, "{what}: frame summary");
+    // Not vacuous: every part of the comparison is there.
+    let j: serde_json::Value = serde_json::from_str(&text.0).unwrap();
+    assert!(
+        j["units"]["missing_outcome"].as_u64().unwrap() > 0,
+        "{what}"
+    );
+    assert!(
+        j["units"]["missing_adjustment"].as_u64().unwrap() > 0,
+        "{what}"
+    );
+    assert_eq!(
+        j["providers"]["names"].as_array().unwrap().len(),
+        4,
+        "{what}"
+    );
+    assert!(j["cross_validation"]["fold_units"].is_array(), "{what}");
+    assert!(j["clusters"]["clusters"].as_u64().unwrap() > 10, "{what}");
+    let terms: Vec<&str> = j["adjustment"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|t| t["name"].as_str().unwrap())
+        .collect();
+    assert_eq!(
+        terms,
+        ["severity", "severity_spline1", "grade=2", "grade=3"],
+        "{what}"
+    );
+    text.0
+}
+
+#[test]
+fn compare_reads_alike_from_text_frames_and_parquet() {
+    let engine = engine();
+    for layout in [Layout::Wide, Layout::Long] {
+        for typed in [false, true] {
+            let mut t = match layout {
+                Layout::Wide => wide(typed),
+                Layout::Long => long(typed),
+            };
+            with_compare_columns(&mut t, typed, Outcome::Integer);
+            for (name, cfg) in configs(layout).into_iter().take(2) {
+                let what = format!("compare, {layout:?}, typed {typed}, {name}");
+                let stem = format!("compare-{layout:?}-{typed}");
+                check_compare(&engine, &t, &stem, &what, &cfg);
+            }
+        }
+    }
+}
+
+/// An outcome typed as true/false, whole numbers 0/1, numbers 0.0/1.0 or
+/// text gives the same comparison (and its text form the same too).
+#[test]
+fn typed_outcomes_read_as_their_text() {
+    let engine = engine();
+    let (_, cfg) = configs(Layout::Wide).remove(0);
+    let mut results = Vec::new();
+    for outcome in [
+        Outcome::Text,
+        Outcome::Integer,
+        Outcome::Number,
+        Outcome::Logical,
+    ] {
+        let mut t = wide(true);
+        with_compare_columns(&mut t, true, outcome);
+        let what = format!("outcome {outcome:?}");
+        results.push((
+            what.clone(),
+            check_compare(&engine, &t, "outcomes", &what, &cfg),
+        ));
+    }
+    for (what, json) in &results[1..] {
+        assert!(
+            *json == results[0].1,
+            "{what}: differs from the text outcome"
+        );
+    }
+}
+
+/// The place of the first row of `t` whose unit's outcome is given, and
+/// that row.
+fn set_outcome(t: &mut Table, row: usize, value: Field<'static>) {
+    let c = t.names.iter().position(|n| n == "died").unwrap();
+    match (&mut t.cols[c], value) {
+        (Col::Text(v), Field::Text(b)) => v[row] = Some(String::from_utf8(b.to_vec()).unwrap()),
+        (Col::Int(v), Field::Integer(i)) => v[row] = Some(i),
+        (Col::Num(v), Field::Number(x)) => v[row] = Some(x),
+        (Col::Bool(v), Field::Logical(b)) => v[row] = Some(b),
+        (_, other) => panic!("{other:?}"),
+    }
+}
+
+/// Every source stops at the same row with the same message (lines for
+/// text, rows for a frame and a Parquet file), for the errors `compare`
+/// finds in an outcome: a value that is not 0 or 1 (typed or text), and
+/// rows of one unit that disagree.
+#[test]
+fn outcome_errors_name_the_same_row_in_every_source() {
+    let engine = engine();
+    let opts = CompareOptions {
+        outcome: "died".into(),
+        ..CompareOptions::default()
+    };
+    let check = |t: &Table, cfg: &ScoreConfig, stem: &str, expected: (String, String, String)| {
+        let text = compare::compare(&engine, cfg, &opts, &t.csv()[..]).unwrap_err();
+        assert!(matches!(text, Error::Data { .. }), "{text:?}");
+        assert_eq!(text.to_string(), expected.0, "{stem}: text");
+        let framed = frame::compare(&engine, cfg, &opts, &t.header(), t, 1).unwrap_err();
+        assert!(matches!(framed, Error::Data { .. }), "{framed:?}");
+        assert_eq!(framed.to_string(), expected.1, "{stem}: frame");
+        let pq = parquet_file(t, stem);
+        let parquet = compare::compare(&engine, cfg, &opts, typed_rows(&pq.path)).unwrap_err();
+        assert!(matches!(parquet, Error::Data { .. }), "{parquet:?}");
+        assert_eq!(parquet.to_string(), expected.2, "{stem}: Parquet");
+    };
+    let message = |v: &str| {
+        format!(
+            "outcome column 'died' holds '{v}': expected 0 or 1, or true/false (empty, NA, N/A, N/K, NK, NULL or . for missing)"
+        )
+    };
+    // An invalid value on row 7 (line 8): 2, typed as each kind.
+    let (_, wide_cfg) = configs(Layout::Wide).remove(0);
+    for (outcome, bad, shown) in [
+        (Outcome::Text, Field::Text(b"2"), "2"),
+        (Outcome::Text, Field::Text(b"yes"), "yes"),
+        (Outcome::Integer, Field::Integer(2), "2"),
+        (Outcome::Number, Field::Number(2.0), "2"),
+        (Outcome::Number, Field::Number(0.5), "0.5"),
+    ] {
+        let mut t = wide(true);
+        with_compare_columns(&mut t, true, outcome);
+        set_outcome(&mut t, 6, bad);
+        let m = message(shown);
+        check(
+            &t,
+            &wide_cfg,
+            "bad-outcome",
+            (
+                format!("line 8: {m}"),
+                format!("row 7: {m}"),
+                format!("row 7 of in.parquet: {m}"),
+            ),
+        );
+    }
+    // Two rows of one episode disagree: the first episode with two rows.
+    let (_, long_cfg) = configs(Layout::Long).remove(0);
+    for outcome in [Outcome::Text, Outcome::Integer, Outcome::Logical] {
+        let mut t = long(false);
+        with_compare_columns(&mut t, false, outcome);
+        let units = units_of(&t);
+        let r = (1..units.len())
+            .find(|&r| units[r] == units[r - 1])
+            .unwrap();
+        let (a, b) = match outcome {
+            Outcome::Text => (Field::Text(b"1"), Field::Text(b"0")),
+            Outcome::Integer => (Field::Integer(1), Field::Integer(0)),
+            _ => (Field::Logical(true), Field::Logical(false)),
+        };
+        set_outcome(&mut t, r - 1, a);
+        set_outcome(&mut t, r, b);
+        let (sa, sb) = (a.text().unwrap(), b.text().unwrap());
+        let m = |place: &str| {
+            format!(
+                "column 'died' holds '{}' here but '{}' on {place} of the same episode",
+                String::from_utf8_lossy(&sb),
+                String::from_utf8_lossy(&sa)
+            )
+        };
+        // Header on line 1: data row r (0-based) is line r + 2, frame row r + 1.
+        check(
+            &t,
+            &long_cfg,
+            "disagreeing-outcome",
+            (
+                format!("line {}: {}", r + 2, m(&format!("line {}", r + 1))),
+                format!("row {}: {}", r + 1, m(&format!("row {r}"))),
+                format!("row {} of in.parquet: {}", r + 1, m(&format!("row {r}"))),
+            ),
+        );
+    }
 }
 
 /// Runs without history: the plain scorer over typed rows, by name.

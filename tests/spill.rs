@@ -65,6 +65,7 @@ fn unspilled(s: Summary) -> Summary {
     Summary {
         spilled_records: 0,
         spilled_bytes: 0,
+        over_memory: None,
         ..s
     }
 }
@@ -169,11 +170,25 @@ fn same_spilled(engine: &Engine, cfg: &ScoreConfig, input: &str, what: &str) {
     }
     assert_eq!(summary.is_err(), expect_error, "{what}: {summary:?}");
     // 0: everything spills after the first block; 40 KiB and 160 KiB:
-    // after some blocks, episodes read so far carried into the partitions.
-    for (memory, threads) in [(0, 1), (0, 2), (40 << 10, 2), (160 << 10, 1)] {
+    // after some blocks, episodes read so far carried into the partitions
+    // (or, knowing the input's size, as soon as a sixteenth of it shows
+    // that the history will not fit). Two threads with room for more than
+    // one partition at a time resolve partitions side by side; one
+    // partition at a time formats on both.
+    let size = Some(input.len() as u64);
+    for (memory, threads, input_size) in [
+        (0, 1, None),
+        (0, 2, None),
+        (40 << 10, 2, None),
+        (160 << 10, 1, None),
+        (40 << 10, 2, size),
+        (160 << 10, 1, size),
+        (1 << 20, 2, size),
+    ] {
         let cfg = ScoreConfig {
             memory,
             threads,
+            input_size,
             ..base.clone()
         };
         let (out, s) = run(&cfg);
@@ -300,11 +315,22 @@ fn spilled_rows_give_the_in_memory_output() {
     };
     let (reference, summary) = run(&base);
     assert_eq!(summary.rows_written, 40_000);
-    // Budgets: every block on disk, a few in memory then disk, all in memory.
-    for (memory, threads) in [(0, 1), (0, 2), (100 << 10, 1), (100 << 10, 3), (1 << 30, 2)] {
+    // Budgets: every block on disk, a few in memory then disk, all in
+    // memory; with the input's size known, partitions from early on.
+    let size = Some(input.len() as u64);
+    for (memory, threads, input_size) in [
+        (0, 1, None),
+        (0, 2, None),
+        (100 << 10, 1, None),
+        (100 << 10, 3, None),
+        (100 << 10, 2, size),
+        (1 << 30, 2, None),
+        (1 << 30, 2, size),
+    ] {
         let cfg = ScoreConfig {
             memory,
             threads,
+            input_size,
             ..base.clone()
         };
         let (out, s) = run(&cfg);
@@ -585,4 +611,73 @@ fn a_spilled_failure_leaves_no_file() {
     );
     assert_eq!(files_in(&temp), 0);
     assert!(!std::path::Path::new(&dir.join("out.csv")).exists());
+}
+
+#[test]
+fn a_placeholder_id_over_the_limit_is_named_loudly() {
+    // Two rows in five under the placeholder id UNKNOWN: spilled, its
+    // partition alone holds more than half of the 64 KiB limit. The output
+    // is the in-memory run's; the summary and provenance say the limit was
+    // passed and name the id with its episodes.
+    let dir = TempDir::new("spill-placeholder");
+    let temp = dir.path().join("tmp");
+    std::fs::create_dir(&temp).unwrap();
+    let mut text = String::new();
+    let (mut unknown, mut record) = (0, 0);
+    // Records start with their id `pN,`; a quoted note's second line does
+    // not.
+    for line in history(5_000).split_inclusive('\n') {
+        if line.starts_with('p') && !line.starts_with("pid,") {
+            record += 1;
+            if record % 5 < 2 {
+                unknown += 1;
+                let rest = line.split_once(',').unwrap().1;
+                text.push_str(&format!("UNKNOWN,{rest}"));
+                continue;
+            }
+        }
+        text.push_str(line);
+    }
+    let input = dir.write("in.csv", &text);
+    let args = |memory: &str, prov: &str| {
+        vec![
+            "score".to_string(),
+            input.clone(),
+            "--dx".into(),
+            "dx*".into(),
+            "--id".into(),
+            "pid".into(),
+            "--date".into(),
+            "date".into(),
+            "--lookback".into(),
+            "365".into(),
+            "--memory".into(),
+            memory.into(),
+            "--temp-dir".into(),
+            temp.display().to_string(),
+            "--provenance".into(),
+            dir.join(prov),
+        ]
+    };
+    let run = |a: &[String]| morbus(&a.iter().map(String::as_str).collect::<Vec<_>>());
+    let in_memory = run(&args("1GiB", "memory.json"));
+    let spilled = run(&args("64KiB", "spilled.json"));
+    assert_eq!(in_memory.code, 0, "{}", in_memory.stderr);
+    assert_eq!(spilled.code, 0, "{}", spilled.stderr);
+    assert!(spilled.stdout == in_memory.stdout, "outputs differ");
+    assert_eq!(files_in(&temp), 0);
+    let warning = "WARNING: the memory limit was passed";
+    assert!(spilled.stderr.contains(warning), "{}", spilled.stderr);
+    let named = format!("patient id 'UNKNOWN' alone has {unknown} of its");
+    assert!(spilled.stderr.contains(&named), "{}", spilled.stderr);
+    assert!(!in_memory.stderr.contains(warning), "{}", in_memory.stderr);
+    let prov = |name: &str| -> serde_json::Value {
+        serde_json::from_str(&std::fs::read_to_string(dir.join(name)).unwrap()).unwrap()
+    };
+    let over = &prov("spilled.json")["rows"]["over_memory"];
+    assert_eq!(over["id"], "UNKNOWN", "{over}");
+    assert_eq!(over["id_episodes"], unknown, "{over}");
+    assert!(over["episodes"].as_u64().unwrap() >= unknown, "{over}");
+    assert!(over["bytes"].as_u64().unwrap() > 32 << 10, "{over}");
+    assert!(prov("memory.json")["rows"].get("over_memory").is_none());
 }

@@ -2,10 +2,8 @@
 
 from __future__ import annotations
 
-import io
 import json
 import os
-import sys
 from typing import Any, Dict, Optional, Sequence, Union
 
 from . import _native
@@ -19,42 +17,6 @@ def _names(value: Optional[_Names]) -> list:
     if isinstance(value, str):
         value = [value]
     return [n.strip() for v in value for n in v.split(",") if n.strip()]
-
-
-def _csv_bytes(frame: Any) -> bytes:
-    """The frame as CSV text, written by pyarrow's CSV writer (columnar, no
-    Python object per value). Floating columns that hold whole numbers only
-    (a pandas integer column with missing values becomes float) are written
-    as integers, so that an outcome of 1.0 reads as 1."""
-    import pyarrow as pa
-    import pyarrow.compute as pc
-    import pyarrow.csv as pacsv
-
-    pd = sys.modules.get("pandas")
-    pl = sys.modules.get("polars")
-    if pd is not None and isinstance(frame, pd.DataFrame):
-        table = pa.Table.from_pandas(frame, preserve_index=False)
-    elif pl is not None and isinstance(frame, pl.DataFrame):
-        table = frame.to_arrow()
-    elif hasattr(frame, "__arrow_c_stream__"):
-        table = pa.table(frame)
-    else:
-        raise TypeError(
-            "morbus.compare needs a pandas or polars DataFrame or an object exposing the "
-            f"Arrow C stream interface (__arrow_c_stream__), not {type(frame).__name__}"
-        )
-    columns = []
-    for col in table.columns:
-        if pa.types.is_floating(col.type):
-            valid = pc.drop_null(col)
-            if len(valid) == 0 or pc.all(pc.equal(valid, pc.floor(valid))).as_py():
-                if len(valid) == 0 or pc.max(pc.abs(valid)).as_py() < 2**53:
-                    col = pc.cast(col, pa.int64())
-        columns.append(col)
-    table = pa.table(columns, names=table.column_names)
-    out = io.BytesIO()
-    pacsv.write_csv(table, out, write_options=pacsv.WriteOptions(quoting_style="needed"))
-    return out.getvalue()
 
 
 def compare(
@@ -87,7 +49,7 @@ def compare(
     exclude_primary: bool = False,
     primary: Optional[str] = None,
     poa: Optional[str] = None,
-    poa_values: Union[str, Sequence[str]] = ("Y", "W"),
+    poa_values: Union[str, Sequence[str]] = ("Y", "W", "1", "blank"),
     threads: Optional[int] = None,
     report: Union[None, str, "os.PathLike[str]"] = None,
     text: bool = False,
@@ -123,10 +85,19 @@ def compare(
     >>> r["splines"][0]["terms"], r["clusters"]["clusters"]
     (['age', 'age_spline1'], 2)
 
+    The frame's used columns reach the engine typed, as for
+    ``morbus.score``: the outcome may hold whole numbers 0/1, numbers
+    0.0/1.0 (NaN missing), true/false or text.
+
+    >>> df["died"] = df["died"] == 1          # true/false: the same numbers
+    >>> morbus.compare(df, dx="dx1", outcome="died", index="charlson:count",
+    ...                by="site", min_expected=0)["units"]["events"]
+    4
+
     Errors raise ``KeyError`` (a missing column) or ``ValueError`` with the
-    command line's messages.
+    command line's messages, naming the frame's 0-based rows.
     """
-    from . import _catalogue, _options
+    from . import _catalogue, _history, _options
 
     options = _options(
         dx=dx, layout=layout, id=id, age=age, index=index, hierarchy=hierarchy, dx_sep=dx_sep,
@@ -134,10 +105,12 @@ def compare(
         episode=episode, exclude_primary=exclude_primary, primary=primary, poa=poa,
         poa_values=poa_values, edition=edition,
     )
-    data = _csv_bytes(frame)
+    # The used columns go to the engine typed, as for morbus.score.
+    _, _, names, fetch = _history.frame_source(frame)
     try:
-        js, table, html = _native.compare_csv(
-            data,
+        js, table, html = _native.compare(
+            names,
+            fetch,
             options,
             outcome=outcome.strip(),
             adjust=_names(adjust),

@@ -31,7 +31,7 @@ def builtin_lists() -> Lists: ...
 def list_table(lists: Lists) -> List[Dict[str, Any]]: ...
 class Options(TypedDict):
     """The options of a call, as `morbus._options` builds them (the same
-    dict for `score`, `explain` and `compare_csv`)."""
+    dict for `score`, `explain` and `compare`)."""
 
     dx: List[str]
     layout: str
@@ -76,8 +76,9 @@ def explain(
     """`morbus explain` on a frame: (the columns from `row` on; with `label`:
     per record the 0-based frame row of its episode's label value; summary
     line)."""
-def compare_csv(
-    data: bytes,
+def compare(
+    names: Sequence[str],
+    fetch: Callable[[List[int]], Any],
     options: Options,
     *,
     outcome: str,
@@ -94,8 +95,9 @@ def compare_csv(
     report: bool,
     lists: Optional[Lists] = None,
 ) -> Tuple[str, str, Optional[str]]:
-    """`morbus compare` over CSV text: (the --json text, the plain-text
-    report, the HTML report when asked)."""
+    """`morbus compare` over a frame's columns (`names`, `fetch` as for
+    `score`; the used columns go to the engine typed): (the --json text, the
+    plain-text report, the HTML report when asked)."""
 def code_status(values: Sequence[str], edition: str = ...) -> List[str]:
     """Per value: "known", "extended", "unknown", "invalid" or "empty"."""
 def version() -> str: ...

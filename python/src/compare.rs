@@ -1,24 +1,29 @@
-//! `morbus compare` for Python: the frame arrives as CSV text written by
-//! pyarrow's CSV writer (see `morbus/_compare.py`), and goes through the very
-//! function the command line calls, so the numbers are the command line's.
-//! The options common to every call are read and checked as for
-//! `morbus.score` ([`crate::Options`], [`morbus::frame::Request`]).
+//! `morbus compare` for Python: the frame's used columns arrive through
+//! the Arrow C stream interface, as for `morbus.score`, and go typed to the
+//! library's [`morbus::frame::compare`] (no text is made of them), the
+//! function behind the command line's `compare`, so the numbers are the
+//! command line's. The options common to every call are read and checked
+//! as for `morbus.score` ([`crate::Options`], [`morbus::frame::Request`]).
 
 use pyo3::prelude::*;
 
 use morbus::compare::{self, CompareOptions, Overdispersion};
+use morbus::frame;
+use morbus::pipeline::Header;
 use morbus::score::IndexSpec;
 use morbus::Error;
 
-use crate::{python_error, with_lists, Options, PyLists};
+use crate::{fetch_batch, frame_view, python_error, with_lists, Options, PyLists};
 
-/// Runs the comparison over CSV text; returns `(json, text, html or None)`.
+/// Compares index specifications over a frame's columns; returns `(json,
+/// text, html or None)`. `names` and `fetch` as for `score`.
 #[pyfunction]
-#[pyo3(signature = (data, options, *, outcome, adjust, adjust_cat, adjust_spline, by, cluster, min_expected, overdispersion, folds, seed, reference, report, lists=None))]
+#[pyo3(name = "compare", signature = (names, fetch, options, *, outcome, adjust, adjust_cat, adjust_spline, by, cluster, min_expected, overdispersion, folds, seed, reference, report, lists=None))]
 #[allow(clippy::too_many_arguments)]
-pub(crate) fn compare_csv<'py>(
+pub(crate) fn compare_frame<'py>(
     py: Python<'py>,
-    data: Vec<u8>,
+    names: Vec<String>,
+    fetch: Bound<'py, PyAny>,
     options: Options,
     outcome: String,
     adjust: Vec<String>,
@@ -71,8 +76,12 @@ pub(crate) fn compare_csv<'py>(
         seed,
         reference,
     };
+    let header = Header { names };
+    let used = frame::compare_columns(&cfg, &opts, &header).map_err(python_error)?;
+    let batch = fetch_batch(&fetch, &used)?;
+    let view = frame_view(&batch, &header.names, &used)?;
     let result = py.detach(|| -> Result<_, Error> {
-        let (c, _) = compare::compare(&engine, &cfg, &opts, &data[..])?;
+        let (c, _) = frame::compare(&engine, &cfg, &opts, &header, &view, 0)?;
         let json = compare::json_text(&c)?;
         Ok((
             json,

@@ -979,7 +979,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(version, m)?)?;
     m.add_function(wrap_pyfunction!(debug_build, m)?)?;
     m.add_function(wrap_pyfunction!(explain, m)?)?;
-    m.add_function(wrap_pyfunction!(compare::compare_csv, m)?)?;
+    m.add_function(wrap_pyfunction!(compare::compare_frame, m)?)?;
     m.add_function(wrap_pyfunction!(code_status, m)?)?;
     Ok(())
 }

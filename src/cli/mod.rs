@@ -906,6 +906,12 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
                 bar.update(p)
             }
         };
+        // The input's size lets a history that will not fit go to
+        // partitions early (a hint; the output is the same without it).
+        let cfg = pipeline::ScoreConfig {
+            input_size: input.size,
+            ..cfg.clone()
+        };
         // A Parquet input without history is scored typed from its record
         // batches to a typed output.
         let result = match input.score_plain(&engine, &cfg, &mut output, &mut on_progress) {
@@ -947,7 +953,7 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         if show {
             bar.finish();
         }
-        let summary = result.map_err(|e| input.translate(e))?;
+        let summary = result?;
         output.finish()?;
         Ok(summary)
     };
@@ -1004,8 +1010,7 @@ fn explain(a: ExplainArgs) -> Result<(), Error> {
         format,
         input.take_input()?,
         &mut output.writer,
-    )
-    .map_err(|e| input.translate(e))?;
+    )?;
     output.finish()?;
     if !a.input.quiet {
         say!("{}", summary.report());
@@ -1094,8 +1099,9 @@ fn compare(a: CompareArgs) -> Result<(), Error> {
         wanted.extend(cfg.id.iter().cloned());
     }
     let mut input = open_extract("compare", &a.input, &cfg, true, &wanted)?;
-    let (result, summary) = morbus::compare::compare(&engine, &cfg, &opts, input.take_reader()?)
-        .map_err(|e| input.translate(e))?;
+    // A Parquet input's rows are read typed (rows named `row N of FILE`).
+    let rows = input.take_input()?;
+    let (result, summary) = morbus::compare::compare(&engine, &cfg, &opts, rows)?;
     if let Some(file) = json_file {
         let text = morbus::compare::json_text(&result)?;
         file.write_and_commit((text + "\n").as_bytes())?;

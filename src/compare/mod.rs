@@ -13,12 +13,24 @@
 //! computed on that same set, so the indices are compared on equal terms;
 //! the units left out are counted by reason.
 //!
+//! The outcome, adjustment, `--by` and `--cluster` columns are read with the
+//! history, in the same pass, from text or typed rows alike
+//! ([`History::read_with_values`]): a unit's value is the first non-empty
+//! one among its rows, and a later row of the unit with another non-empty
+//! value is an error naming both rows.
+//!
 //! Values read as missing (outcome and adjustment columns): an empty field,
-//! `NA`, `N/A`, `N/K`, `NK`, `NULL` or `.` (any case). Any other outcome value than `0` or `1` is
-//! an error naming the line; so is a value of a numeric adjustment column
-//! that is not a number. A categorical adjustment column enters the models
-//! as one 0/1 indicator per level except the reference, which is the first
-//! level in byte order of the values as written (so `F` before `M`).
+//! a null or NaN, `NA`, `N/A`, `N/K`, `NK`, `NULL` or `.` (any case). The
+//! outcome is a value reading as the number 0 or 1 (`0`, `1`, `1.0`; a
+//! whole number 0 or 1, a number 0.0 or 1.0) or as true/false (`true`,
+//! `FALSE`, a true/false value); any other value is an error naming the
+//! line (text) or row (typed rows). A numeric adjustment column's value is
+//! a number (text as written, a whole number, a number; true/false as 1/0);
+//! anything else is an error naming the line. A categorical adjustment
+//! column enters the models as one 0/1 indicator per level except the
+//! reference, which is the first level in byte order of the values as
+//! written (so `F` before `M`; a typed value's level is its text form:
+//! `3`, `2.5`, `true`, `2024-01-31`).
 //!
 //! The numerics are those of [`crate::stats`]: c-statistic and DeLong
 //! covariance (DeLong, DeLong & Clarke-Pearson, Biometrics 1988;44:837-45),
@@ -34,15 +46,15 @@ mod providers;
 mod report;
 mod table;
 
+use std::borrow::Cow;
 use std::collections::BTreeMap;
-use std::io::Read;
 
 use serde::Serialize;
 
-use crate::io::RecordScanner;
 use crate::lists::{Catalogue, SCALE};
-use crate::pipeline::history::History;
-use crate::pipeline::{Header, Layout, ScoreConfig, Summary as ReadSummary};
+use crate::pipeline::history::{History, Input, ValueColumn};
+use crate::pipeline::{Layout, ScoreConfig, Summary as ReadSummary};
+use crate::rows::Field;
 use crate::score::{ColumnKind, Engine, IndexSpec, Value};
 use crate::stats::{self, StatsError};
 use crate::Error;
@@ -529,6 +541,77 @@ fn parse_number(v: &[u8]) -> Option<f64> {
     s.parse::<f64>().ok().filter(|x| x.is_finite())
 }
 
+/// `true`/`false` in any case.
+fn truth(v: &[u8]) -> Option<bool> {
+    if v.eq_ignore_ascii_case(b"true") {
+        Some(true)
+    } else if v.eq_ignore_ascii_case(b"false") {
+        Some(false)
+    } else {
+        None
+    }
+}
+
+/// A unit's value as shown in messages.
+fn shown(f: Field<'_>) -> String {
+    lossy(&f.text_or_empty())
+}
+
+/// An outcome value: `Ok(None)` missing, `Err(())` not an outcome. Text
+/// reading as the number 0 or 1 or as true/false; a whole number 0 or 1; a
+/// number 0.0 or 1.0; true/false.
+fn read_outcome(f: Field<'_>) -> Result<Option<bool>, ()> {
+    let x = match f {
+        Field::Null => return Ok(None),
+        Field::Text(t) if is_missing(t) => return Ok(None),
+        Field::Text(t) => match truth(t) {
+            Some(b) => return Ok(Some(b)),
+            None => parse_number(t).ok_or(())?,
+        },
+        Field::Integer(i) => i as f64,
+        Field::Number(x) if x.is_nan() => return Ok(None),
+        Field::Number(x) => x,
+        Field::Logical(b) => return Ok(Some(b)),
+        Field::Date(_) => return Err(()),
+    };
+    if x == 0.0 {
+        Ok(Some(false))
+    } else if x == 1.0 {
+        Ok(Some(true))
+    } else {
+        Err(())
+    }
+}
+
+/// A numeric adjustment value: `Ok(None)` missing, `Err(())` not a
+/// number. Text as written (see [`parse_number`]; `true`/`false` as 1/0),
+/// a whole number, a finite number, true/false as 1/0.
+fn read_number(f: Field<'_>) -> Result<Option<f64>, ()> {
+    match f {
+        Field::Null => Ok(None),
+        Field::Text(t) if is_missing(t) => Ok(None),
+        Field::Text(t) => match truth(t) {
+            Some(b) => Ok(Some(if b { 1.0 } else { 0.0 })),
+            None => parse_number(t).map(Some).ok_or(()),
+        },
+        Field::Integer(i) => Ok(Some(i as f64)),
+        Field::Number(x) if x.is_nan() => Ok(None),
+        Field::Number(x) if x.is_finite() => Ok(Some(x)),
+        Field::Number(_) => Err(()),
+        Field::Logical(b) => Ok(Some(if b { 1.0 } else { 0.0 })),
+        Field::Date(_) => Err(()),
+    }
+}
+
+/// A label (categorical level, provider, cluster): text as written, a
+/// typed value's text form; `None` when missing.
+fn read_label(f: Field<'_>) -> Option<Cow<'_, [u8]>> {
+    match f {
+        Field::Text(t) if is_missing(t) => None,
+        f => f.text(),
+    }
+}
+
 /// One index being compared: a score column of the engine.
 struct Slot {
     spec: usize,
@@ -536,14 +619,15 @@ struct Slot {
     column: usize,
 }
 
-/// Runs the comparison over an extract.
+/// Runs the comparison over an extract: delimited text, or typed rows (a
+/// Parquet file's, a data frame's) read without any text in between.
 // Parallel per-column arrays are indexed by column number throughout.
 #[allow(clippy::needless_range_loop)]
-pub fn compare(
+pub fn compare<'a>(
     engine: &Engine,
     cfg: &ScoreConfig,
     opts: &CompareOptions,
-    input: impl Read,
+    input: impl Into<Input<'a>>,
 ) -> Result<(Comparison, ReadSummary), Error> {
     let mut seen: Vec<&str> = vec![opts.outcome.as_str()];
     for c in opts.adjust.iter().chain(&opts.adjust_categorical) {
@@ -578,9 +662,19 @@ pub fn compare(
             numeric_names.push(c.clone());
         }
     }
-    let mut extra = vec![opts.outcome.clone()];
-    extra.extend(numeric_names.iter().cloned());
-    extra.extend(opts.adjust_categorical.iter().cloned());
+    // The columns each unit carries, read with the history: outcome,
+    // numeric and categorical adjustments, then --by and --cluster.
+    let column = |name: &String, role: &'static str| ValueColumn {
+        name: name.clone(),
+        role,
+    };
+    let mut extra = vec![column(&opts.outcome, "outcome")];
+    extra.extend(numeric_names.iter().map(|n| column(n, "adjustment")));
+    extra.extend(
+        opts.adjust_categorical
+            .iter()
+            .map(|n| column(n, "adjustment")),
+    );
     if let Some(k) = opts.folds {
         if !(2..=MAX_FOLDS).contains(&k) {
             return Err(Error::Usage(format!(
@@ -608,50 +702,17 @@ pub fn compare(
         ));
     }
     let by_col = opts.by.as_ref().map(|b| {
-        extra.push(b.clone());
+        extra.push(column(b, "adjustment"));
         extra.len() - 1
     });
     let cluster_col = opts.cluster.as_ref().map(|c| {
-        extra.push(c.clone());
+        extra.push(column(c, "adjustment"));
         extra.len() - 1
     });
-    let id_col = match (&opts.folds, &cfg.id) {
-        (Some(_), Some(id)) => {
-            extra.push(id.clone());
-            Some(extra.len() - 1)
-        }
-        _ => None,
-    };
-    // The extract is held in memory anyway (the history); keeping its bytes
-    // lets the outcome and adjustment columns be read in a second pass.
-    let mut data = Vec::new();
-    let mut input = input;
-    input
-        .read_to_end(&mut data)
-        .map_err(|e| Error::io("cannot read input", e))?;
-    // Both passes only read the buffer: run them side by side.
-    let (history, values_of) = std::thread::scope(|s| {
-        let second = s.spawn(|| read_extra(cfg, &data, &extra));
-        let first = History::read(engine, cfg, &data[..], Default::default());
-        let second = second
-            .join()
-            .unwrap_or_else(|e| std::panic::resume_unwind(e));
-        (first, second)
-    });
-    // An error of the history (malformed record, usage) comes first.
-    let (hist, mut summary) = history?;
-    let values_of = values_of?;
-    drop(data);
-    if values_of.units() != hist.episodes.len() {
-        return Err(Error::data(
-            None,
-            format!(
-                "internal error: {} units in the history but {} when reading the outcome",
-                hist.episodes.len(),
-                values_of.units()
-            ),
-        ));
-    }
+    // Folds are formed by the --id column: the history's patient.
+    let by_id = opts.folds.is_some() && cfg.id.is_some();
+    let (hist, mut summary) =
+        History::read_with_values(engine, cfg, input, Default::default(), &extra)?;
     summary.units = hist.episodes.len() as u64;
     let mut hist = hist;
     hist.resolve(&crate::pipeline::history::Windows::new(engine, cfg)?);
@@ -692,7 +753,7 @@ pub fn compare(
     let mut categorical: Vec<Vec<u32>> = vec![Vec::new(); ncat];
     let mut levels: Vec<BTreeMap<Vec<u8>, u32>> = vec![BTreeMap::new(); ncat];
     let mut row_num = vec![0.0; nnum];
-    let mut row_cat: Vec<&[u8]> = vec![&[]; ncat];
+    let mut row_cat: Vec<Cow<'_, [u8]>> = vec![Cow::Borrowed(&[]); ncat];
     // Provider and fold group of each analysed unit, numbered by appearance.
     let mut provider_ids: std::collections::HashMap<Vec<u8>, u32> = Default::default();
     let mut provider_of: Vec<Option<u32>> = Vec::new();
@@ -712,21 +773,18 @@ pub fn compare(
         }
     };
     'units: for (e, ep) in hist.episodes.iter().enumerate() {
-        let outcome = match values_of.get(e, 0) {
-            Some((v, _)) if is_missing(v) => None,
+        let outcome = match hist.value(e, 0) {
             None => None,
-            Some((b"0", _)) => Some(false),
-            Some((b"1", _)) => Some(true),
-            Some((v, line)) => {
-                return Err(Error::data(
-                    Some(line),
+            Some((v, line)) => read_outcome(v).map_err(|()| {
+                hist.row_error(
+                    line,
                     format!(
-                    "outcome column '{}' holds '{}': expected 0 or 1 (empty, NA, N/A, N/K, NK, NULL or . for missing)",
-                    opts.outcome,
-                    lossy(v)
-                ),
-                ))
-            }
+                        "outcome column '{}' holds '{}': expected 0 or 1, or true/false (empty, NA, N/A, N/K, NK, NULL or . for missing)",
+                        opts.outcome,
+                        shown(v)
+                    ),
+                )
+            })?,
         };
         let Some(outcome) = outcome else {
             units.missing_outcome += 1;
@@ -734,28 +792,30 @@ pub fn compare(
         };
         let mut missing = false;
         for k in 0..nnum {
-            match values_of.get(e, 1 + k) {
-                Some((v, line)) if !is_missing(v) => match parse_number(v) {
-                    Some(x) => row_num[k] = x,
-                    None => {
-                        return Err(Error::data(
-                            Some(line),
-                            format!(
-                                "adjustment column '{}' holds '{}', which is not a number \
-                                 (for a categorical column use --adjust-cat)",
-                                numeric_names[k],
-                                lossy(v)
-                            ),
-                        ))
-                    }
-                },
-                _ => missing = true,
+            let Some((v, line)) = hist.value(e, 1 + k) else {
+                missing = true;
+                continue;
+            };
+            match read_number(v) {
+                Ok(Some(x)) => row_num[k] = x,
+                Ok(None) => missing = true,
+                Err(()) => {
+                    return Err(hist.row_error(
+                        line,
+                        format!(
+                            "adjustment column '{}' holds '{}', which is not a number \
+                             (for a categorical column use --adjust-cat)",
+                            numeric_names[k],
+                            shown(v)
+                        ),
+                    ))
+                }
             }
         }
         for k in 0..ncat {
-            match values_of.get(e, 1 + nnum + k) {
-                Some((v, _)) if !is_missing(v) => row_cat[k] = v,
-                _ => missing = true,
+            match hist.value(e, 1 + nnum + k).and_then(|(v, _)| read_label(v)) {
+                Some(v) => row_cat[k] = v,
+                None => missing = true,
             }
         }
         if missing {
@@ -769,10 +829,11 @@ pub fn compare(
         kept.push(e);
         y.push(outcome);
         if let Some(c) = by_col {
-            provider_of.push(match values_of.get(e, c) {
-                Some((v, _)) if !is_missing(v) => Some(number(&mut provider_ids, v)),
-                _ => None,
-            });
+            provider_of.push(
+                hist.value(e, c)
+                    .and_then(|(v, _)| read_label(v))
+                    .map(|v| number(&mut provider_ids, &v)),
+            );
             if provider_ids.len() > MAX_PROVIDERS {
                 return Err(Error::Usage(format!(
                     "--by column '{}' has more than {MAX_PROVIDERS} distinct values; is it an \
@@ -781,14 +842,17 @@ pub fn compare(
                 )));
             }
         }
-        if let Some(c) = id_col {
-            group_of.push(values_of.get(e, c).map(|(v, _)| number(&mut group_ids, v)));
+        if by_id {
+            // The unit's id as written, trimmed (rows without one: none).
+            let id = hist.patient_id(ep.patient).trim_ascii();
+            group_of.push((!id.is_empty()).then(|| number(&mut group_ids, id)));
         }
         if let Some(c) = cluster_col {
-            cluster_raw.push(match values_of.get(e, c) {
-                Some((v, _)) if !is_missing(v) => Some(number(&mut cluster_ids, v)),
-                _ => None,
-            });
+            cluster_raw.push(
+                hist.value(e, c)
+                    .and_then(|(v, _)| read_label(v))
+                    .map(|v| number(&mut cluster_ids, &v)),
+            );
         }
         for k in 0..nnum {
             numeric[k].push(row_num[k]);
@@ -796,6 +860,7 @@ pub fn compare(
         for k in 0..ncat {
             let next = levels[k].len() as u32;
             let id = *levels[k].entry(row_cat[k].to_vec()).or_insert(next);
+            row_cat[k] = Cow::Borrowed(&[]);
             categorical[k].push(id);
         }
     }
@@ -1654,113 +1719,6 @@ fn pearson_of_ranks(ra: &[f64], rb: &[f64]) -> Option<f64> {
     (saa > 0.0 && sbb > 0.0).then(|| (sab / (saa * sbb).sqrt()).clamp(-1.0, 1.0))
 }
 
-/// Per unit, the trimmed value of each extra column and the line it was
-/// read from.
-struct Extra {
-    ncol: usize,
-    /// (start, length, line) into `arena`; line 0: no value.
-    spans: Vec<(usize, usize, u64)>,
-    arena: Vec<u8>,
-}
-
-impl Extra {
-    fn units(&self) -> usize {
-        self.spans.len() / self.ncol.max(1)
-    }
-
-    fn get(&self, unit: usize, k: usize) -> Option<(&[u8], u64)> {
-        let &(s, l, line) = self.spans.get(unit * self.ncol + k)?;
-        (line != 0).then(|| (&self.arena[s..s + l], line))
-    }
-}
-
-/// Reads the extra columns of every record, unit by unit in the order the
-/// history numbers them: a wide row is a unit; long-layout rows are grouped
-/// by (id, episode value) in order of first appearance. A unit's value is
-/// the first non-empty one among its rows; a different non-empty value on a
-/// later row of the same unit is an error.
-fn read_extra(cfg: &ScoreConfig, data: &[u8], names: &[String]) -> Result<Extra, Error> {
-    let ncol = names.len();
-    let mut out = Extra {
-        ncol,
-        spans: Vec::new(),
-        arena: Vec::new(),
-    };
-    let mut scanner = RecordScanner::new(cfg.delimiter);
-    let mut cols: Option<(Vec<usize>, Option<usize>, Option<usize>)> = None;
-    let mut index: std::collections::HashMap<Box<[u8]>, usize> = Default::default();
-    let mut key: Vec<u8> = Vec::new();
-    let mut rows = 0usize;
-    let mut cursor = (0usize, 1u64);
-    scanner.scan(data, true, |rec| -> Result<(), Error> {
-        let line =
-            cursor.1 + memchr::memchr_iter(b'\n', &data[cursor.0..rec.offset]).count() as u64;
-        cursor = (rec.offset, line);
-        let Some((c, id, ep)) = cols.as_ref() else {
-            let header = Header::from_fields(&rec.fields);
-            let mut c = Vec::with_capacity(ncol);
-            for (k, n) in names.iter().enumerate() {
-                c.push(header.column(n, if k == 0 { "outcome" } else { "adjustment" })?);
-            }
-            let one = |n: &Option<String>, role: &str| -> Result<Option<usize>, Error> {
-                n.as_deref().map(|n| header.column(n, role)).transpose()
-            };
-            cols = Some((c, one(&cfg.id, "id")?, one(&cfg.episode, "episode")?));
-            return Ok(());
-        };
-        let unit = match cfg.layout {
-            Layout::Wide => rows,
-            Layout::Long => {
-                let pid = id.map_or(&[][..], |i| rec.fields.get(i));
-                let ekey = ep.map_or(&[][..], |i| rec.fields.get(i));
-                key.clear();
-                key.extend_from_slice(&(pid.len() as u32).to_le_bytes());
-                key.extend_from_slice(pid);
-                key.extend_from_slice(ekey);
-                match index.get(&key[..]) {
-                    Some(&u) => u,
-                    None => {
-                        let u = index.len();
-                        index.insert(key.as_slice().into(), u);
-                        u
-                    }
-                }
-            }
-        };
-        rows += 1;
-        if unit * ncol >= out.spans.len() {
-            out.spans.resize((unit + 1) * ncol, (0, 0, 0));
-        }
-        for (k, &col) in c.iter().enumerate() {
-            let v = rec.fields.get(col).trim_ascii();
-            if v.is_empty() {
-                continue;
-            }
-            let slot = &mut out.spans[unit * ncol + k];
-            if slot.2 == 0 {
-                *slot = (out.arena.len(), v.len(), line);
-                out.arena.extend_from_slice(v);
-            } else {
-                let old = &out.arena[slot.0..slot.0 + slot.1];
-                if old != v {
-                    return Err(Error::data(
-                        Some(line),
-                        format!(
-                            "column '{}' holds '{}' here but '{}' on line {} of the same episode",
-                            names[k],
-                            lossy(v),
-                            lossy(old),
-                            slot.2
-                        ),
-                    ));
-                }
-            }
-        }
-        Ok(())
-    })?;
-    Ok(out)
-}
-
 fn model_note(e: &StatsError) -> String {
     match e {
         StatsError::Separation { .. } => format!(
@@ -1923,6 +1881,59 @@ mod tests {
         assert_eq!(parse_number(b"inf"), None);
         assert_eq!(parse_number(b"NaN"), None);
         assert_eq!(parse_number(b"seventy"), None);
+    }
+
+    /// A typed value, its text form, and what both read as.
+    type Case<T> = (Field<'static>, &'static [u8], Result<Option<T>, ()>);
+
+    #[test]
+    fn typed_values_read_as_their_text() {
+        use Field::*;
+        // Each typed value beside its text form: the same reading.
+        let outcomes: [Case<bool>; 10] = [
+            (Integer(0), b"0", Ok(Some(false))),
+            (Integer(1), b"1", Ok(Some(true))),
+            (Number(0.0), b"0.0", Ok(Some(false))),
+            (Number(1.0), b"1.0", Ok(Some(true))),
+            (Logical(true), b"TRUE", Ok(Some(true))),
+            (Logical(false), b"false", Ok(Some(false))),
+            (Integer(2), b"2", Err(())),
+            (Number(0.5), b"0.5", Err(())),
+            (Number(f64::NAN), b"NA", Ok(None)),
+            (Null, b"", Ok(None)),
+        ];
+        for (typed, text, expected) in outcomes {
+            assert_eq!(read_outcome(typed), expected, "{typed:?}");
+            assert_eq!(read_outcome(Text(text)), expected, "{text:?}");
+        }
+        assert_eq!(read_outcome(Text(b"yes")), Err(()));
+        assert_eq!(read_outcome(Date(0)), Err(()));
+        assert_eq!(read_outcome(Text(b"1970-01-01")), Err(()));
+        let numbers: [Case<f64>; 6] = [
+            (Integer(72), b"72", Ok(Some(72.0))),
+            (Number(72.5), b"72.5", Ok(Some(72.5))),
+            (Logical(true), b"true", Ok(Some(1.0))),
+            (Number(f64::INFINITY), b"inf", Err(())),
+            (Date(0), b"1970-01-01", Err(())),
+            (Number(f64::NAN), b"N/K", Ok(None)),
+        ];
+        for (typed, text, expected) in numbers {
+            assert_eq!(read_number(typed), expected, "{typed:?}");
+            assert_eq!(read_number(Text(text)), expected, "{text:?}");
+        }
+        // A typed level is its text form.
+        for (typed, text) in [
+            (Integer(3), &b"3"[..]),
+            (Number(2.5), b"2.5"),
+            (Number(3.0), b"3"),
+            (Logical(true), b"true"),
+            (Date(0), b"1970-01-01"),
+        ] {
+            assert_eq!(read_label(typed).as_deref(), Some(text));
+            assert_eq!(read_label(Text(text)).as_deref(), Some(text));
+        }
+        assert_eq!(read_label(Text(b"NULL")), None);
+        assert_eq!(read_label(Null), None);
     }
 
     #[test]

@@ -2,17 +2,16 @@
 //! goes with it: what the front ends call instead of choosing between text
 //! and Parquet themselves.
 //!
-//! - [`Extract::open`] gives the pipelines delimited text: the file's bytes
-//!   (plain or gzip), or a Parquet file's rows as text (feature `parquet`;
-//!   only the columns the run reads when the output does not carry the
-//!   others).
+//! - [`Extract::open`] opens the input: a delimited file's bytes (plain or
+//!   gzip), or a Parquet file's [`parquet::Source`] (feature `parquet`),
+//!   whose rows are only ever read typed: no text is made of them.
 //! - [`Extract::open_output`] gives a text output, or a Parquet one typed
-//!   for the table written ([`Table`]); a wide Parquet output of a Parquet
-//!   input copies the input's own columns from it.
-//! - [`Extract::take_input`] gives a run that reads through the history
-//!   reader without copying rows a Parquet input's typed rows instead.
-//! - [`Extract::translate`] turns the pipeline's line numbers into rows for
-//!   a Parquet input.
+//!   for the table written ([`Table`]).
+//! - [`Extract::score_plain`] scores a Parquet input without history from
+//!   its record batches to a typed output; [`Extract::take_input`] gives
+//!   the history reader a Parquet input's typed rows (or the text);
+//!   [`Extract::joined_text`] is the text output of a wide history run over
+//!   them.
 
 use std::io::Read;
 use std::path::Path;
@@ -24,13 +23,11 @@ use crate::score::Engine;
 use crate::Error;
 
 #[cfg(feature = "parquet")]
-use super::parquet::{self, RowLines, Source};
+use super::parquet::{self, Source};
 #[cfg(feature = "parquet")]
 use crate::pipeline::Layout;
 #[cfg(feature = "parquet")]
 use arrow_schema::SchemaRef;
-#[cfg(feature = "parquet")]
-use std::sync::{Arc, Mutex};
 
 /// The table a run writes.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -46,11 +43,7 @@ pub enum Table {
 struct ParquetInput {
     source: Source,
     schema: SchemaRef,
-    lines: Arc<Mutex<RowLines>>,
     columns: Option<Vec<usize>>,
-    delimiter: u8,
-    /// Whether the rows were taken as text (by `compare`).
-    text_taken: bool,
 }
 
 /// An extract opened for a run.
@@ -63,7 +56,7 @@ pub struct Extract {
     /// The input as named in messages.
     pub name: String,
     /// A Parquet input: where it is, its columns (the footer is read once
-    /// here), the map of its text's lines to rows, and the columns read.
+    /// here) and the columns read.
     #[cfg(feature = "parquet")]
     parquet: Option<ParquetInput>,
 }
@@ -98,10 +91,7 @@ impl Extract {
                 parquet: Some(ParquetInput {
                     source,
                     schema,
-                    lines: Arc::new(Mutex::new(RowLines::default())),
                     columns,
-                    delimiter: cfg.delimiter,
-                    text_taken: false,
                 }),
             });
         }
@@ -114,30 +104,6 @@ impl Extract {
             #[cfg(feature = "parquet")]
             parquet: None,
         })
-    }
-
-    /// The input as delimited text for a pipeline that reads only text
-    /// (`compare`), once; later calls give nothing. A Parquet input's rows
-    /// are written as text ([`parquet::ParquetText`]) for it: `score` and
-    /// `explain` never take this path for a Parquet input.
-    pub fn take_reader(&mut self) -> Result<Box<dyn Read + Send>, Error> {
-        #[cfg(feature = "parquet")]
-        if let Some(p) = self.parquet.as_mut() {
-            if std::mem::replace(&mut p.text_taken, true) {
-                return Ok(Box::new(std::io::empty()));
-            }
-            let text = parquet::ParquetText::from_source(
-                p.source.clone(),
-                p.delimiter,
-                p.columns.as_deref(),
-            )?;
-            p.lines = text.row_lines();
-            return Ok(Box::new(text));
-        }
-        Ok(std::mem::replace(
-            &mut self.reader,
-            Box::new(std::io::empty()),
-        ))
     }
 
     /// Scores a Parquet input without history, typed from its record
@@ -214,19 +180,6 @@ impl Extract {
         return self.parquet.is_some();
         #[cfg(not(feature = "parquet"))]
         false
-    }
-
-    /// An error of the run, with rows instead of lines for a Parquet input.
-    pub fn translate(&self, e: Error) -> Error {
-        #[cfg(feature = "parquet")]
-        if let Some(p) = &self.parquet {
-            return p
-                .lines
-                .lock()
-                .expect("row map lock")
-                .translate(e, &self.name);
-        }
-        e
     }
 
     /// The output of a run writing `table` to `path` (`-` or `None`:

@@ -18,7 +18,7 @@ pub struct Input {
     pub compressed: bool,
     pub name: String,
     /// A Parquet input (recognised by its magic bytes): read it through
-    /// [`crate::io::parquet::ParquetText`]; `reader` is then empty.
+    /// [`crate::io::parquet::ParquetRows`]; `reader` is then empty.
     #[cfg(feature = "parquet")]
     pub parquet: Option<crate::io::parquet::Source>,
 }

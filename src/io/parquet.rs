@@ -1,29 +1,32 @@
 //! Parquet in and out (feature `parquet`, on by default).
 //!
-//! The scoring pipelines read and write delimited text; Parquet joins them at
-//! both ends, so that every command (`score` wide, long or with a lookback,
-//! `explain`, `compare`) takes a Parquet input and `score` and `explain` write
-//! Parquet, with the guarantees of the text path:
+//! Every command (`score` wide, long or with a lookback, `explain`,
+//! `compare`) takes a Parquet input and `score` and `explain` write Parquet,
+//! with the guarantees of the text path:
 //!
-//! - **In** ([`ParquetText`]): the file's row groups are read batch by batch
-//!   and written as delimited text (a header of the column names, one record
-//!   per row, text values as they are, other types in their ISO or shortest
-//!   round-trip form, nulls empty) into the reader the pipeline consumes. The
-//!   pipeline's line numbers are turned back into rows ([`RowLines`]), since a
-//!   value with a line break takes several lines of text.
-//! - **Out** ([`ParquetSink`]): the pipeline's delimited output is read back
-//!   record by record and written as Parquet row groups. Score columns are
-//!   typed (whole-number scores `Int64`, scores with decimals `Float64`,
-//!   condition flags `Int8`, bands text; empty values null). When the rows of
-//!   the output are the rows of a Parquet input (the wide layout), the input's
-//!   own columns are copied from the input file itself, arrays and types
-//!   untouched, in order; other kept columns (the id and episode of the long
-//!   layout) take their input type back when their text casts to it exactly,
-//!   and are text otherwise. Columns of a text input are UTF-8 text.
+//! - **In** ([`ParquetRows`]): the file's row groups are decoded batch by
+//!   batch and read as typed rows ([`crate::rows`]): no text is made of
+//!   them. Rows are named `row N of FILE` in messages.
+//! - **Out, typed** ([`score_plain`]): a run without history scores the
+//!   record batches on every core and writes, per batch, the input's own
+//!   arrays (or, long layout, the id taken from them) followed by score
+//!   arrays built from the values ([`score_arrays`]: whole-number scores
+//!   `Int64`, scores with decimals `Float64`, condition flags `Int8`, bands
+//!   text; missing values null), or the same as delimited text, the input's
+//!   values formatted by Arrow's formatter ([`TypedOutput`]).
+//! - **Out, from text** ([`ParquetSink`]): a history run (or a text input)
+//!   writes delimited text, read back record by record into typed score
+//!   columns; for a wide output of a Parquet input the input's own columns
+//!   are copied from the input file itself, arrays and types untouched, in
+//!   order; other kept columns (the id and episode of the long layout) take
+//!   their input type back when their text casts to it exactly. A wide
+//!   history run with a text output joins the input's formatted rows to its
+//!   score lines ([`JoinedText`]).
 //!
 //! ```
-//! use std::io::{Read, Write};
-//! use morbus::io::parquet::{OutputColumns, ParquetSink, ParquetText};
+//! use std::io::Write;
+//! use morbus::io::parquet::{OutputColumns, ParquetRows, ParquetSink, Source};
+//! use morbus::rows::{Field, RowSource};
 //!
 //! // Write a small Parquet file through the sink, from delimited text...
 //! let dir = std::env::temp_dir().join(format!("morbus-doc-{}", std::process::id()));
@@ -34,18 +37,19 @@
 //! sink.write_all(b"id,dx1\nA,I21.9\nB,\"with, comma\"\n").unwrap();
 //! sink.finish().unwrap();
 //!
-//! // ... and read it back as delimited text.
-//! let mut text = String::new();
-//! ParquetText::open(&path, b',', None).unwrap().read_to_string(&mut text).unwrap();
-//! assert_eq!(text, "id,dx1\nA,I21.9\nB,\"with, comma\"\n");
+//! // ... and read it back as typed rows.
+//! let mut rows = ParquetRows::from_source(Source::File(path.clone()), None, "tiny.parquet").unwrap();
+//! assert_eq!(rows.header().names, ["id", "dx1"]);
+//! let batch = rows.next_batch().unwrap().unwrap();
+//! assert_eq!(batch.field(1, 1), Field::Text(b"with, comma"));
 //! # std::fs::remove_dir_all(&dir).unwrap();
 //! ```
 
 use std::collections::{HashMap, VecDeque};
 use std::fs::File;
 use std::io::{self, Read, Write};
-use std::path::{Path, PathBuf};
-use std::sync::{Arc, Mutex};
+use std::path::PathBuf;
+use std::sync::Arc;
 
 use arrow_array::builder::{
     Date32Builder, Float64Builder, Int64Builder, Int8Builder, StringBuilder,
@@ -204,179 +208,6 @@ impl parquet::file::reader::ChunkReader for Chunks {
             Chunks::File(f) => f.get_bytes(start, length),
             Chunks::Memory(b) => b.get_bytes(start, length),
         }
-    }
-}
-
-/// Where the rows of a Parquet input start in its text: the pipeline counts
-/// lines, a value holding a line break makes a row take several, and
-/// messages should name the row.
-#[derive(Debug, Default)]
-pub struct RowLines {
-    /// `(line, row)`: from `line` on, line `line + k` starts row `row + k`
-    /// (rows counted from 1, lines from 1 with the header on line 1). A new
-    /// entry follows every row that took more than one line.
-    marks: Vec<(u64, u64)>,
-}
-
-impl RowLines {
-    /// The row (counted from 1) whose record holds `line`.
-    pub fn row(&self, line: u64) -> u64 {
-        let k = self.marks.partition_point(|&(l, _)| l <= line);
-        match k.checked_sub(1).map(|k| self.marks[k]) {
-            Some((l, r)) => r + (line - l),
-            None => line.saturating_sub(1),
-        }
-    }
-
-    /// `e` with its line turned into the row of the Parquet input `name`.
-    pub fn translate(&self, e: Error, name: &str) -> Error {
-        match e {
-            Error::Data {
-                line: Some(l),
-                message,
-            } => Error::data(None, format!("row {} of {name}: {message}", self.row(l))),
-            Error::Strict {
-                line: Some(l),
-                message,
-            } => Error::Strict {
-                line: None,
-                message: format!("row {} of {name}: {message}", self.row(l)),
-            },
-            other => other,
-        }
-    }
-}
-
-/// A Parquet input read as delimited text (see the module documentation).
-pub struct ParquetText {
-    batches: ParquetRecordBatchReader,
-    source: Source,
-    delimiter: u8,
-    buf: Vec<u8>,
-    pos: usize,
-    /// Line on which the next record starts.
-    line: u64,
-    /// Rows written so far.
-    rows: u64,
-    lines: Arc<Mutex<RowLines>>,
-    /// Rows of the file (from its footer).
-    pub total_rows: u64,
-}
-
-impl ParquetText {
-    /// Opens a Parquet file; `columns` (indices of the file's top-level
-    /// columns) keeps only those, in file order.
-    pub fn open(path: &Path, delimiter: u8, columns: Option<&[usize]>) -> Result<Self, Error> {
-        Self::from_source(Source::File(path.to_path_buf()), delimiter, columns)
-    }
-
-    pub fn from_source(
-        source: Source,
-        delimiter: u8,
-        columns: Option<&[usize]>,
-    ) -> Result<Self, Error> {
-        let builder = source.builder()?;
-        let total_rows = builder.metadata().file_metadata().num_rows().max(0) as u64;
-        let mut builder = builder.with_batch_size(BATCH_ROWS);
-        if let Some(cols) = columns {
-            let mask = ProjectionMask::roots(builder.parquet_schema(), cols.iter().copied());
-            builder = builder.with_projection(mask);
-        }
-        let mut header = Vec::new();
-        for (k, f) in builder.schema().fields().iter().enumerate() {
-            if columns.is_some_and(|c| !c.contains(&k)) {
-                continue;
-            }
-            if !header.is_empty() {
-                header.push(delimiter);
-            }
-            write_field(f.name().as_bytes(), delimiter, &mut header);
-        }
-        header.push(b'\n');
-        let batches = source.build(builder)?;
-        Ok(ParquetText {
-            batches,
-            source,
-            delimiter,
-            buf: header,
-            pos: 0,
-            line: 2,
-            rows: 0,
-            lines: Arc::new(Mutex::new(RowLines::default())),
-            total_rows,
-        })
-    }
-
-    /// The map from lines of the text to rows of the file, filled as the
-    /// text is read.
-    pub fn row_lines(&self) -> Arc<Mutex<RowLines>> {
-        self.lines.clone()
-    }
-
-    /// Writes the next batch as text; false at the end of the file.
-    fn refill(&mut self) -> Result<bool, Error> {
-        let Some(batch) = self.source.next_batch(&mut self.batches)? else {
-            return Ok(false);
-        };
-        self.buf.clear();
-        self.pos = 0;
-        let names: Vec<String> = batch
-            .schema()
-            .fields()
-            .iter()
-            .map(|f| f.name().clone())
-            .collect();
-        let cols = batch
-            .columns()
-            .iter()
-            .zip(&names)
-            .map(|(a, name)| TextColumn::new(a.as_ref(), name))
-            .collect::<Result<Vec<_>, Error>>()?;
-        let mut scratch = String::new();
-        let mut marks = Vec::new();
-        for row in 0..batch.num_rows() {
-            let begin = self.buf.len();
-            for (k, c) in cols.iter().enumerate() {
-                if k > 0 {
-                    self.buf.push(self.delimiter);
-                }
-                c.write(row, self.delimiter, &mut scratch, &mut self.buf);
-            }
-            if cols.len() == 1 && self.buf.len() == begin {
-                // One empty field: an empty line would be skipped.
-                self.buf.extend_from_slice(b"\"\"");
-            }
-            let breaks = memchr::memchr_iter(b'\n', &self.buf[begin..]).count() as u64;
-            self.rows += 1;
-            self.line += breaks + 1;
-            if breaks > 0 {
-                marks.push((self.line, self.rows + 1));
-            }
-            self.buf.push(b'\n');
-        }
-        if !marks.is_empty() {
-            self.lines.lock().expect("row map lock").marks.extend(marks);
-        }
-        Ok(true)
-    }
-}
-
-impl Read for ParquetText {
-    fn read(&mut self, out: &mut [u8]) -> io::Result<usize> {
-        while self.pos == self.buf.len() {
-            // The decoder's arrays of a damaged file may also upset their
-            // formatting: the whole step is guarded.
-            let step = guarded(|| self.refill()).unwrap_or_else(|m| Err(self.source.damaged(&m)));
-            match step {
-                Ok(true) => {}
-                Ok(false) => return Ok(0),
-                Err(e) => return Err(io::Error::other(e.to_string())),
-            }
-        }
-        let n = out.len().min(self.buf.len() - self.pos);
-        out[..n].copy_from_slice(&self.buf[self.pos..self.pos + n]);
-        self.pos += n;
-        Ok(n)
     }
 }
 
@@ -2085,22 +1916,6 @@ mod tests {
         assert_eq!(kept.data_type(), &DataType::Utf8);
     }
 
-    #[test]
-    fn rows_of_lines_after_values_with_line_breaks() {
-        // Rows 1 and 2 take one line each (lines 2, 3); row 3 takes three
-        // (lines 4-6); row 4 starts on line 7; row 6 takes two (9-10).
-        let lines = RowLines {
-            marks: vec![(7, 4), (11, 7)],
-        };
-        let rows: Vec<u64> = [2, 3, 4, 7, 8, 9, 11, 12]
-            .iter()
-            .map(|&l| lines.row(l))
-            .collect();
-        assert_eq!(rows, [1, 2, 3, 4, 5, 6, 7, 8]);
-        let e = lines.translate(Error::data(Some(8), "bad"), "x.parquet");
-        assert_eq!(e.to_string(), "row 5 of x.parquet: bad");
-    }
-
     /// A wide score of a Parquet input whose row groups (37 rows) do not
     /// line up with the output's batches (50 rows): every row comes out
     /// once, in order, with the input's own columns.
@@ -2135,17 +1950,47 @@ mod tests {
             ..ScoreConfig::default()
         };
         let source = Source::File(input.clone());
-        let text = ParquetText::from_source(source.clone(), b',', Some(&[1])).unwrap();
         let out = dir.join("out.parquet");
         let columns = OutputColumns::scores(&engine, Some(&source.schema().unwrap()));
         let mut sink = ParquetSink::new(
             Box::new(File::create(&out).unwrap()),
             b',',
             columns,
-            Some(source),
+            Some(source.clone()),
         )
         .with_group_rows(50);
-        let summary = crate::pipeline::score_stream(&engine, &cfg, text, &mut sink).unwrap();
+        // The score columns only, as a history run over typed rows writes
+        // them: the sink puts the input's columns in front.
+        use crate::rows::RowSource;
+        use std::io::Write as _;
+        let mut rows = ParquetRows::from_source(source.clone(), Some(&[1]), "in").unwrap();
+        let plan = crate::pipeline::plain::plan(&engine, &cfg, rows.header()).unwrap();
+        let names: Vec<&str> = engine.columns().iter().map(|c| c.name.as_str()).collect();
+        sink.write_all(format!("{}\n", names.join(",")).as_bytes())
+            .unwrap();
+        let mut summary = crate::pipeline::Summary::default();
+        let mut first = 1;
+        while let Some(b) = rows.next_batch().unwrap() {
+            let mut values = Vec::new();
+            let (s, err) = crate::pipeline::plain::score_wide(
+                &engine,
+                &cfg,
+                &plan,
+                b.as_ref(),
+                first,
+                &mut values,
+            );
+            assert!(err.is_none());
+            summary.merge(s);
+            for v in values.chunks(names.len()) {
+                let mut line = Vec::new();
+                engine.write_values(v, b',', &mut line);
+                line.remove(0);
+                line.push(b'\n');
+                sink.write_all(&line).unwrap();
+            }
+            first += b.len() as u64;
+        }
         sink.finish().unwrap();
         assert_eq!(summary.rows_read, n as u64);
         assert_eq!(

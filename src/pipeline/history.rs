@@ -23,12 +23,12 @@ use super::parallel::{run_batches, run_blocks};
 use super::partition::Spill;
 use super::rows_store::{Loaded, RowStore};
 use super::{
-    check_collisions, disagreement, keep_first, Exclusion, Layout, Plan, RowIssue, ScoreConfig,
-    Summary, WindowScope,
+    check_collisions, disagreement, keep_first, Exclusion, Layout, Plan, Progress, RowIssue,
+    ScoreConfig, Summary, WindowScope,
 };
 use crate::code::Code;
 use crate::io::{write_field, RecordScanner};
-use crate::rows::{Batch, BatchRow, Row, RowSource};
+use crate::rows::{Batch, BatchRow, Field, Row, RowNaming, RowSource};
 use crate::score::{Engine, Value};
 use crate::Error;
 
@@ -103,6 +103,115 @@ pub struct CodeRecord {
     pub exclusion: Option<Exclusion>,
 }
 
+/// A column whose value every unit carries, checked: `compare`'s outcome,
+/// adjustment, `--by` and `--cluster` columns. A unit's value is the first
+/// non-empty one among its rows, kept typed as the row gives it (text
+/// trimmed; a whole number, a number, true/false, a date as such); a later
+/// row of the unit with another non-empty value stops the run, naming both
+/// rows. Read with the history, in the same pass
+/// ([`History::read_with_values`]); only a history held in memory has them.
+#[derive(Clone, Debug)]
+pub struct ValueColumn {
+    pub name: String,
+    /// What the column is, in the message for a column not found
+    /// (`outcome column 'x' not found; ...`).
+    pub role: &'static str,
+}
+
+const CELL_NONE: u8 = 0;
+const CELL_TEXT: u8 = 1;
+const CELL_INTEGER: u8 = 2;
+const CELL_NUMBER: u8 = 3;
+const CELL_LOGICAL: u8 = 4;
+const CELL_DATE: u8 = 5;
+
+/// A value of a checked column, packed: its kind, its bits (a whole
+/// number, a number's bits, true/false, a day; text: where it starts in
+/// its arena) and (text) its length, and the line (or row) it was read
+/// from.
+#[derive(Clone, Copy, Debug)]
+struct Cell {
+    kind: u8,
+    len: u32,
+    bits: u64,
+    line: u64,
+}
+
+impl Cell {
+    const NONE: Cell = Cell {
+        kind: CELL_NONE,
+        len: 0,
+        bits: 0,
+        line: 0,
+    };
+
+    /// A row's value: nothing for a missing value, a NaN or text that is
+    /// empty once trimmed; text is trimmed and copied into `arena`.
+    fn read(f: Field<'_>, arena: &mut Vec<u8>) -> Cell {
+        let (kind, bits) = match f {
+            Field::Null => return Cell::NONE,
+            Field::Number(x) if x.is_nan() => return Cell::NONE,
+            Field::Text(t) => {
+                let t = t.trim_ascii();
+                if t.is_empty() {
+                    return Cell::NONE;
+                }
+                let at = arena.len();
+                arena.extend_from_slice(t);
+                return Cell {
+                    kind: CELL_TEXT,
+                    len: t.len() as u32,
+                    bits: at as u64,
+                    line: 0,
+                };
+            }
+            Field::Integer(i) => (CELL_INTEGER, i as u64),
+            Field::Number(x) => (CELL_NUMBER, x.to_bits()),
+            Field::Logical(b) => (CELL_LOGICAL, b as u64),
+            Field::Date(d) => (CELL_DATE, d as u64),
+        };
+        Cell {
+            kind,
+            len: 0,
+            bits,
+            line: 0,
+        }
+    }
+
+    /// The value as a [`Field`] (text from `arena`).
+    fn field<'a>(&self, arena: &'a [u8]) -> Field<'a> {
+        match self.kind {
+            CELL_TEXT => {
+                let s = self.bits as usize;
+                Field::Text(&arena[s..s + self.len as usize])
+            }
+            CELL_INTEGER => Field::Integer(self.bits as i64),
+            CELL_NUMBER => Field::Number(f64::from_bits(self.bits)),
+            CELL_LOGICAL => Field::Logical(self.bits != 0),
+            CELL_DATE => Field::Date(self.bits as i64),
+            _ => Field::Null,
+        }
+    }
+}
+
+/// Whether two values of one column are the same value (text byte for
+/// byte, once trimmed; typed values by value).
+fn same_value(a: Field<'_>, b: Field<'_>) -> bool {
+    match (a, b) {
+        (Field::Number(x), Field::Number(y)) => x == y,
+        (a, b) => a == b,
+    }
+}
+
+/// A row as messages name it: `line N` for text, `row N` for a typed
+/// source (numbered as its [`RowNaming`] says).
+fn place(naming: Option<&RowNaming>, line: u64) -> String {
+    match naming {
+        None => format!("line {line}"),
+        Some(n) => format!("row {}", line.saturating_sub(1) + n.first),
+    }
+}
+
 /// The extract held in memory.
 pub struct History {
     pub(crate) plan: Plan,
@@ -119,6 +228,16 @@ pub struct History {
     /// Kept columns (`ScoreConfig::keep`): per episode, one value per
     /// column (the first non-empty one of its rows).
     kept: Vec<Option<Box<[u8]>>>,
+    /// The data row (1-based) each kept value was taken from (0: none),
+    /// like `kept`.
+    kept_rows: Vec<u64>,
+    /// Checked columns ([`ValueColumn`]): per episode, one value per
+    /// column, typed; text in `value_bytes`.
+    values: Vec<Cell>,
+    value_bytes: Vec<u8>,
+    /// How the rows of a typed source are named in messages (`None`: text,
+    /// named by line).
+    naming: Option<RowNaming>,
     words: usize,
     own_all: Vec<u64>,
     /// Empty when no exclusion rule is on (then it equals `own_all`).
@@ -133,6 +252,10 @@ pub struct History {
     pub codes: Vec<CodeRecord>,
     /// `own_all` holds each episode's windowed set ([`History::resolve`]).
     resolved: bool,
+    /// Wide layout, spilled: the raw rows are put in front of each output
+    /// line elsewhere (`partition.rs`); a line holds the scores, each after
+    /// its delimiter.
+    rows_apart: bool,
 }
 
 /// How a row's date read.
@@ -182,6 +305,12 @@ pub(crate) struct Builder {
     rows: Vec<u64>,
     keys: Ids,
     kept: Vec<Option<Box<[u8]>>>,
+    kept_rows: Vec<u64>,
+    /// Checked columns: their number and names, each episode's values.
+    nvalues: usize,
+    value_names: Vec<String>,
+    values: Vec<Cell>,
+    value_bytes: Vec<u8>,
     own_all: Vec<u64>,
     own_current: Vec<u64>,
     /// Long layout: the (patient, episode value) of each episode, numbered
@@ -204,6 +333,15 @@ impl Builder {
             rows: Vec::new(),
             keys: Ids::default(),
             kept: Vec::new(),
+            kept_rows: Vec::new(),
+            nvalues: plan.values.len(),
+            value_names: plan
+                .values
+                .iter()
+                .map(|&c| plan.header.names[c].clone())
+                .collect(),
+            values: Vec::new(),
+            value_bytes: Vec::new(),
             own_all: Vec::new(),
             own_current: Vec::new(),
             episode_index: Ids::default(),
@@ -219,7 +357,9 @@ impl Builder {
     pub fn heap_bytes(&self) -> usize {
         self.episodes.capacity() * std::mem::size_of::<Episode>()
             + self.rows.capacity() * 8
-            + self.kept.capacity() * 16
+            + self.kept.capacity() * 24
+            + self.values.capacity() * std::mem::size_of::<Cell>()
+            + self.value_bytes.capacity()
             + (self.own_all.capacity() + self.own_current.capacity()) * 8
             + self.patients.heap_bytes()
             + self.keys.heap_bytes()
@@ -346,7 +486,10 @@ impl Builder {
                 continue;
             }
             match &self.kept[e as usize * nkeep + j] {
-                None => self.kept[e as usize * nkeep + j] = Some(v.into()),
+                None => {
+                    self.kept[e as usize * nkeep + j] = Some(v.into());
+                    self.kept_rows[e as usize * nkeep + j] = r.row;
+                }
                 Some(first) if **first != *v && other_kept.is_none() => {
                     let name = &plan.header.names[plan.keep[j]];
                     other_kept = Some(disagreement(
@@ -410,7 +553,59 @@ impl Builder {
                 .resize(self.own_current.len() + self.words, 0);
         }
         self.kept.resize(self.kept.len() + self.nkeep, None);
+        self.kept_rows.resize(self.kept_rows.len() + self.nkeep, 0);
+        self.values
+            .resize(self.values.len() + self.nvalues, Cell::NONE);
         e as u32
+    }
+
+    /// Adds a row's values of the checked columns (`cells`, text in
+    /// `bytes`) to episode `e`: the first non-empty value of each column
+    /// is the episode's; a later row with another non-empty value is an
+    /// error naming both rows (`line`: the row's line, or its 1-based row
+    /// for a typed source, named by `naming`).
+    fn add_values(
+        &mut self,
+        e: u32,
+        cells: &[Cell],
+        bytes: &[u8],
+        line: u64,
+        naming: Option<&RowNaming>,
+    ) -> Result<(), Error> {
+        let base = e as usize * self.nvalues;
+        for (j, c) in cells.iter().enumerate() {
+            if c.kind == Cell::NONE.kind {
+                continue;
+            }
+            let first = self.values[base + j];
+            if first.kind == Cell::NONE.kind {
+                let mut c = *c;
+                c.line = line;
+                if c.kind == CELL_TEXT {
+                    let (s, n) = (c.bits as usize, c.len as usize);
+                    c.bits = self.value_bytes.len() as u64;
+                    self.value_bytes.extend_from_slice(&bytes[s..s + n]);
+                }
+                self.values[base + j] = c;
+                continue;
+            }
+            let new = c.field(bytes);
+            let old = first.field(&self.value_bytes);
+            if !same_value(new, old) {
+                let shown = |f: Field<'_>| String::from_utf8_lossy(&f.text_or_empty()).into_owned();
+                return Err(Error::data(
+                    Some(line),
+                    format!(
+                        "column '{}' holds '{}' here but '{}' on {} of the same episode",
+                        self.value_names[j],
+                        shown(new),
+                        shown(old),
+                        place(naming, first.line)
+                    ),
+                ));
+            }
+        }
+        Ok(())
     }
 
     /// The history of the episodes read: their missing and unreadable
@@ -443,6 +638,10 @@ impl Builder {
             rows: self.rows,
             keys: self.keys,
             kept: self.kept,
+            kept_rows: self.kept_rows,
+            values: self.values,
+            value_bytes: self.value_bytes,
+            naming: None,
             words: self.words,
             own_all: self.own_all,
             own_current: self.own_current,
@@ -451,6 +650,7 @@ impl Builder {
             raw_blocks,
             codes,
             resolved: false,
+            rows_apart: false,
         }
     }
 }
@@ -600,6 +800,8 @@ struct BlockRows {
     ids: Vec<u8>,
     /// Kept values: `plan.keep.len()` spans into `ids` per row.
     keep: Vec<(usize, usize)>,
+    /// Checked values: `plan.values.len()` per row (text in `ids`).
+    values: Vec<Cell>,
     all: Vec<u64>,
     cur: Vec<u64>,
     raw: Vec<u8>,
@@ -616,6 +818,7 @@ impl BlockRows {
             rows: Vec::new(),
             ids: Vec::new(),
             keep: Vec::new(),
+            values: Vec::new(),
             all: Vec::new(),
             cur: Vec::new(),
             raw: Vec::new(),
@@ -672,6 +875,10 @@ fn read_row(
         let span = id(Some(c), &mut b.ids);
         b.keep.push(span);
     }
+    for &c in &p.values {
+        let cell = Cell::read(row.field(c), &mut b.ids);
+        b.values.push(cell);
+    }
     let date = match p.read_date(cfg, row, &mut b.summary) {
         Ok(Some(d)) => DateRead::Day(d),
         Ok(None) => DateRead::Missing,
@@ -727,8 +934,11 @@ fn read_row(
         b.raw.extend_from_slice(raw);
         b.raw_ends.push(b.raw.len());
     }
+    // Messages about a long layout's episodes, or about checked values,
+    // name the row's line.
     let line = match cfg.layout {
         Layout::Long => line(),
+        Layout::Wide if !p.values.is_empty() => line(),
         Layout::Wide => 0,
     };
     b.rows.push(RowRead {
@@ -823,6 +1033,20 @@ pub(crate) fn check_unreadable_dates(
     ))
 }
 
+/// Whether a history holding `held` bytes after `progress.bytes_read` of
+/// an input of `size` bytes will clearly pass `limit` by the end: once 8
+/// MiB (or a sixteenth of a smaller input) are read, the history so far
+/// scaled to the whole input is over one and a half times the limit.
+fn will_not_fit(held: usize, progress: &Progress, size: Option<u64>, limit: usize) -> bool {
+    let Some(size) = size else { return false };
+    let done = progress.bytes_read;
+    if done == 0 || done < (8 << 20).min(size / 16) {
+        return false;
+    }
+    let projected = held as f64 * size as f64 / done as f64;
+    projected > limit as f64 * 1.5
+}
+
 /// A history as read: in memory, or (when it would not fit in the memory
 /// limit) spread over partition files.
 // Made once per run: the size of the variants does not matter.
@@ -842,8 +1066,21 @@ pub(crate) fn read_history<'a>(
     input: impl Into<Input<'a>>,
     needs: Needs,
     spill_at: Option<usize>,
+    values: &[ValueColumn],
 ) -> Result<(ReadHistory, Summary), Error> {
     let input = input.into();
+    let naming = match &input {
+        Input::Rows(source) => Some(source.naming()),
+        Input::Text(_) => None,
+    };
+    // The plan of the run, with the checked columns resolved.
+    let with_values = |mut plan: Plan| -> Result<Plan, Error> {
+        plan.values = values
+            .iter()
+            .map(|v| plan.header.column(&v.name, v.role))
+            .collect::<Result<_, _>>()?;
+        Ok(plan)
+    };
     let keep_codes = needs.codes;
     let words = engine.words();
     let exclusions = cfg.exclude_primary || cfg.poa.is_some();
@@ -865,7 +1102,7 @@ pub(crate) fn read_history<'a>(
         rows: needs.rows,
     };
     // Merges the rows of each block (or batch), in input order.
-    let mut consume = |h: &(Plan, Vec<u8>), b: BlockRows| -> Result<(), Error> {
+    let mut consume = |h: &(Plan, Vec<u8>), b: BlockRows, read: Progress| -> Result<(), Error> {
         let plan = &h.0;
         let nkeep = plan.keep.len();
         let raw_of = |i: usize| -> &[u8] {
@@ -875,6 +1112,7 @@ pub(crate) fn read_history<'a>(
             let s = if i == 0 { 0 } else { b.raw_ends[i - 1] };
             &b.raw[s..b.raw_ends[i]]
         };
+        let nvalues = plan.values.len();
         let row_in = |i: usize, r: &RowRead, row: u64| RowIn {
             row,
             line: r.line,
@@ -901,9 +1139,12 @@ pub(crate) fn read_history<'a>(
             Some(_) => None,
         };
         if let Some(hb) = hb.filter(|hb| {
-            spill_at.is_some_and(|limit| hb.heap_bytes() + raw_ends.capacity() * 4 + coming > limit)
+            spill_at.is_some_and(|limit| {
+                let held = hb.heap_bytes() + raw_ends.capacity() * 4 + coming;
+                held > limit || will_not_fit(held, &read, cfg.input_size, limit)
+            })
         }) {
-            let mut sp = Spill::new(&temp_dir, words, nkeep, exclusions, keep_rows)?;
+            let mut sp = Spill::new(&temp_dir, words, nkeep, exclusions, keep_rows, cfg.layout)?;
             let n = hb.episodes();
             let mut e = 0;
             for bi in 0..raw_first.len() {
@@ -929,6 +1170,12 @@ pub(crate) fn read_history<'a>(
             spill = Some(sp);
         }
         if let Some(sp) = spill.as_mut() {
+            if nvalues > 0 {
+                return Err(Error::data(
+                    None,
+                    "internal error: a history with checked columns went to partitions",
+                ));
+            }
             for (i, r) in b.rows.iter().enumerate() {
                 rows_seen += 1;
                 sp.write(&row_in(i, r, rows_seen), raw_of(i))?;
@@ -943,7 +1190,17 @@ pub(crate) fn read_history<'a>(
         let mut block_episode = Vec::with_capacity(b.rows.len());
         for (i, r) in b.rows.iter().enumerate() {
             rows_seen += 1;
-            block_episode.push(hb.add_row(plan, &row_in(i, r, rows_seen), &mut summary)?);
+            let e = hb.add_row(plan, &row_in(i, r, rows_seen), &mut summary)?;
+            if nvalues > 0 {
+                let cells = &b.values[i * nvalues..(i + 1) * nvalues];
+                let line = match naming {
+                    // A typed source's rows are named by their number.
+                    Some(_) => rows_seen,
+                    None => r.line,
+                };
+                hb.add_values(e, cells, &b.ids, line, naming.as_ref())?;
+            }
+            block_episode.push(e);
         }
         if keep_rows && !b.rows.is_empty() {
             raw_blocks.push(b.raw)?;
@@ -961,18 +1218,21 @@ pub(crate) fn read_history<'a>(
         Input::Text(input) => run_blocks(
             cfg,
             input,
-            |block, rec| Ok((Plan::from_header(cfg, block, rec)?, rec.raw.to_vec())),
+            |block, rec| {
+                let plan = with_values(Plan::from_header(cfg, block, rec)?)?;
+                Ok((plan, rec.raw.to_vec()))
+            },
             |h, block, start, scanner| read_block(engine, cfg, &h.0, block, start, scanner, keeps),
-            |h, b, _| consume(h, b),
+            |h, b, p| consume(h, b, p),
         )?,
         Input::Rows(source) => {
             let naming = source.naming();
             run_batches(
                 cfg,
                 source,
-                |header| Ok((Plan::new(cfg, header, false)?, Vec::new())),
+                |header| Ok((with_values(Plan::new(cfg, header, false)?)?, Vec::new())),
                 |h, batch, first| read_batch(engine, cfg, &h.0, batch, first, keeps),
-                |h, b, _| consume(h, b),
+                |h, b, p| consume(h, b, p),
             )
             .map_err(|e| naming.name(e))?
         }
@@ -985,13 +1245,14 @@ pub(crate) fn read_history<'a>(
         return Ok((ReadHistory::Spilled(sp, plan, header_raw), summary));
     }
     let builder = builder.unwrap_or_else(|| Builder::new(cfg, &plan, words));
-    let hist = builder.finish(
+    let mut hist = builder.finish(
         plan,
         header_raw,
         (raw_ends, raw_first, raw_blocks),
         codes,
         &mut summary,
     );
+    hist.naming = naming;
     if hist.plan.date.is_some() {
         check_unreadable_dates(cfg, &summary, hist.episodes.len() as u64)?;
     }
@@ -1007,13 +1268,57 @@ impl History {
         input: impl Into<Input<'a>>,
         needs: Needs,
     ) -> Result<(History, Summary), Error> {
-        match read_history(engine, cfg, input, needs, None)? {
+        History::read_with_values(engine, cfg, input, needs, &[])
+    }
+
+    /// [`History::read`], with the checked columns `values` read in the
+    /// same pass: each unit's value of each ([`History::value`]). A
+    /// column not in the input is a usage error naming its role; a unit
+    /// whose rows give two different non-empty values of one is a data
+    /// error naming both rows.
+    pub fn read_with_values<'a>(
+        engine: &Engine,
+        cfg: &ScoreConfig,
+        input: impl Into<Input<'a>>,
+        needs: Needs,
+        values: &[ValueColumn],
+    ) -> Result<(History, Summary), Error> {
+        match read_history(engine, cfg, input, needs, None, values)? {
             (ReadHistory::Memory(h), s) => Ok((h, s)),
             (ReadHistory::Spilled(..), _) => Err(Error::data(
                 None,
                 "internal error: a history read in memory was spilled",
             )),
         }
+    }
+
+    /// Episode `e`'s value of checked column `k` (see [`ValueColumn`]) and
+    /// the line (text) or 1-based row (typed rows) it was read from;
+    /// `None` when no row of the episode has one.
+    pub fn value(&self, e: usize, k: usize) -> Option<(Field<'_>, u64)> {
+        let n = self.plan.values.len();
+        let c = self.values.get(e * n + k)?;
+        (c.kind != CELL_NONE).then(|| (c.field(&self.value_bytes), c.line))
+    }
+
+    /// An error about the row at `line` (as [`History::value`] gives it),
+    /// named as the input names its rows: `line N` for text, `row N` (of
+    /// FILE) for typed rows.
+    pub fn row_error(&self, line: u64, message: String) -> Error {
+        let e = Error::data(Some(line), message);
+        match &self.naming {
+            Some(n) => n.name(e),
+            None => e,
+        }
+    }
+
+    /// The data row (1-based) whose value of kept column `j` episode `e`
+    /// carries (its first row with a non-empty value); `None` when none
+    /// has one. (A history read back from partitions gives the episode's
+    /// first row instead; the frames that ask never spill.)
+    pub fn kept_row(&self, e: usize, j: usize) -> Option<u64> {
+        let k = self.plan.keep.len();
+        Some(self.kept_rows[e * k + j]).filter(|&r| r != 0)
     }
 
     /// Episode `e`'s data row number (1-based, its first record).
@@ -1024,6 +1329,11 @@ impl History {
     /// Patient `p`'s id as written.
     pub fn patient_id(&self, p: u32) -> &[u8] {
         self.patients.get(p)
+    }
+
+    /// Number of patients (rows without an id each count as one).
+    pub(crate) fn patients_len(&self) -> usize {
+        self.patients.len()
     }
 
     /// Episodes in window order: per patient, dated episodes by date, then
@@ -1242,6 +1552,17 @@ impl History {
         self.kept[e * k + j].as_deref().unwrap_or(&[])
     }
 
+    /// Wide layout: the raw rows are put in front of the output lines
+    /// elsewhere, each line holding the scores after their delimiters.
+    pub(crate) fn set_rows_apart(&mut self, apart: bool) {
+        self.rows_apart = apart;
+    }
+
+    /// No raw rows loaded (for [`Formatter::episode`] when there are none).
+    pub(crate) fn rows_none(&self) -> Loaded<'_> {
+        self.raw_blocks.none()
+    }
+
     /// Whether the raw rows went partly to a temporary file.
     pub fn rows_spilled(&self) -> bool {
         self.raw_blocks.spilled()
@@ -1350,9 +1671,10 @@ impl Formatter {
         let ep = &hist.episodes[e];
         hist.final_into(engine, e, &mut self.bits, &mut self.scratch);
         engine.values(&self.bits, ep.age(), &mut self.values);
-        let scores_only = cfg.layout == Layout::Wide && hist.raw_ends.is_empty();
+        let scores_only =
+            cfg.layout == Layout::Wide && hist.raw_ends.is_empty() && !hist.rows_apart;
         match cfg.layout {
-            Layout::Wide if scores_only => {}
+            Layout::Wide if scores_only || hist.rows_apart => {}
             Layout::Wide => out.extend_from_slice(hist.raw_row(e, rows)),
             Layout::Long => {
                 write_field(hist.patient_id(ep.patient), d, out);
@@ -1416,15 +1738,16 @@ pub fn score_history<'a>(
     let scores_only = matches!(input, Input::Rows(_)) && cfg.layout == Layout::Wide;
     let spill_at = (cfg.memory / 2) as usize;
     let write_err = |e| Error::io("cannot write output", e);
-    let (mut hist, mut summary) = match read_history(engine, cfg, input, needs, Some(spill_at))? {
-        (ReadHistory::Memory(h), s) => (h, s),
-        (ReadHistory::Spilled(sp, plan, header_raw), mut summary) => {
-            let head = header_line(engine, cfg, &plan, &header_raw, scores_only)?;
-            sp.finish(engine, cfg, &windows, (plan, &head), &mut summary, output)?;
-            output.flush().map_err(write_err)?;
-            return Ok(summary);
-        }
-    };
+    let (mut hist, mut summary) =
+        match read_history(engine, cfg, input, needs, Some(spill_at), &[])? {
+            (ReadHistory::Memory(h), s) => (h, s),
+            (ReadHistory::Spilled(sp, plan, header_raw), mut summary) => {
+                let head = header_line(engine, cfg, &plan, &header_raw, scores_only)?;
+                sp.finish(engine, cfg, &windows, (plan, &head), &mut summary, output)?;
+                output.flush().map_err(write_err)?;
+                return Ok(summary);
+            }
+        };
     hist.resolve(&windows);
     let hist = hist;
     let head = header_line(engine, cfg, &hist.plan, &hist.header_raw, scores_only)?;

@@ -178,6 +178,12 @@ pub struct ScoreConfig {
     pub memory: u64,
     /// Directory of temporary files (`None`: the system's).
     pub temp_dir: Option<std::path::PathBuf>,
+    /// Bytes the input will give, when known beforehand (an uncompressed
+    /// file): a `score` history that will clearly not fit in `memory` then
+    /// goes to partitions as soon as that is plain, instead of being built
+    /// in memory first and carried over. Only a hint: the output is the
+    /// same with or without it.
+    pub input_size: Option<u64>,
     /// Leave the primary diagnosis of the episode being scored out.
     pub exclude_primary: bool,
     /// Long layout: column flagging the primary-diagnosis row.
@@ -362,6 +368,7 @@ impl Default for ScoreConfig {
             keep: Vec::new(),
             memory: DEFAULT_MEMORY,
             temp_dir: None,
+            input_size: None,
             exclude_primary: false,
             primary: None,
             poa: None,
@@ -386,6 +393,19 @@ const POA_VALUES_KEPT: usize = 1_000;
 
 /// Unreadable date values kept as examples.
 pub const DATE_EXAMPLES: usize = 3;
+
+/// A partition of a spilled history that did not fit in its share of
+/// `--memory` ([`Summary::over_memory`]).
+#[derive(Clone, Debug, Default, PartialEq, Eq)]
+pub struct OverMemory {
+    /// Bytes its history took.
+    pub bytes: u64,
+    /// Its episodes.
+    pub episodes: u64,
+    /// The patient id with the most episodes in it, and their number.
+    pub id: Vec<u8>,
+    pub id_episodes: u64,
+}
 
 /// What a run read, wrote and could not read.
 #[derive(Clone, Debug, Default, PartialEq, Eq)]
@@ -461,6 +481,11 @@ pub struct Summary {
     /// 0 when the history fitted in memory.
     pub spilled_records: u64,
     pub spilled_bytes: u64,
+    /// A spilled history whose largest partition still held more than
+    /// half of `--memory` (the run went over the limit): that partition's
+    /// bytes, and the patient id with the most episodes in it with their
+    /// number (a placeholder id shared by many rows is one patient).
+    pub over_memory: Option<OverMemory>,
     /// Codes of episodes being scored left out as not present on admission.
     pub excluded_not_on_admission: u64,
     /// The diagnosis columns read, as resolved from the names and patterns
@@ -540,6 +565,10 @@ impl Summary {
         self.rows_read += later.rows_read;
         self.spilled_records += later.spilled_records;
         self.spilled_bytes += later.spilled_bytes;
+        if later.over_memory.as_ref().map(|o| o.bytes) > self.over_memory.as_ref().map(|o| o.bytes)
+        {
+            self.over_memory = later.over_memory;
+        }
         self.rows_written += later.rows_written;
         self.codes_read += later.codes_read;
         self.invalid_codes += later.invalid_codes;
@@ -814,6 +843,15 @@ impl Summary {
                 self.spilled_records
             ));
         }
+        if let Some(o) = &self.over_memory {
+            s.push_str(&format!(
+                "; WARNING: the memory limit was passed: one partition of the history took {} MB, over half of --memory; patient id '{}' alone has {} of its {} episodes (a placeholder id shared by many rows is one patient to the lookback: leave such rows out or give them distinct ids, or raise --memory)",
+                o.bytes.div_ceil(1_000_000),
+                String::from_utf8_lossy(&o.id),
+                o.id_episodes,
+                o.episodes
+            ));
+        }
         if self.excluded_primary > 0 {
             s.push_str(&format!(
                 "; primary diagnoses left out: {}",
@@ -855,6 +893,7 @@ fn shown_top(top: &[(String, u64)]) -> String {
 }
 
 /// The header of an extract.
+#[derive(Clone)]
 pub struct Header {
     pub names: Vec<String>,
 }
@@ -1006,6 +1045,7 @@ pub enum Exclusion {
 }
 
 /// The columns a run uses, resolved against the header.
+#[derive(Clone)]
 pub(crate) struct Plan {
     pub header: Header,
     pub dx: Vec<usize>,
@@ -1019,6 +1059,10 @@ pub(crate) struct Plan {
     pub poa: Vec<usize>,
     /// Columns carried into each unit's output row.
     pub keep: Vec<usize>,
+    /// Checked columns each unit carries (`history::ValueColumn`:
+    /// `compare`'s outcome and adjustment columns); set by the history
+    /// reader.
+    pub values: Vec<usize>,
     pub ncols: usize,
     pub crlf: bool,
 }
@@ -1162,6 +1206,7 @@ impl Plan {
             primary,
             poa,
             keep,
+            values: Vec::new(),
             crlf,
         })
     }
@@ -1664,6 +1709,12 @@ mod summary_tests {
             disagreeing_units: 13,
             spilled_records: 19,
             spilled_bytes: 20,
+            over_memory: Some(super::OverMemory {
+                bytes: 21,
+                episodes: 22,
+                id: b"UNKNOWN".to_vec(),
+                id_episodes: 20,
+            }),
             invalid_values: [(b"N/A".to_vec(), 4)].into_iter().collect(),
             unknown_codes: 14,
             unknown_values: [(code("I5O9"), 14)].into_iter().collect(),

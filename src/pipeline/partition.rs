@@ -1,21 +1,30 @@
 //! Lookback beyond the memory limit: the history is partitioned by patient
 //! into temporary files, each partition is resolved and formatted in
-//! memory on its own, and the partitions' output lines are merged back in
-//! input order.
+//! memory on its own, and the partitions' output is merged back in input
+//! order.
 //!
-//! 1. While reading, once the history passes half of `--memory`, every
-//!    episode read so far and then every later row is written as a compact
-//!    binary record to partition `hash(patient id) % PARTITIONS` (row
-//!    number, line, date, age, flags, id, episode value, kept values,
-//!    condition sets, and the wide layout's raw row). A patient's records
-//!    all go to one partition, in input order.
-//! 2. Each partition is read back into a [`Builder`] (the same merging of
+//! 1. While reading, once the history passes half of `--memory` (or as
+//!    soon as the input's size shows that it will), every episode read so
+//!    far and then every later row is written as a compact binary record to
+//!    partition `hash(patient id) % PARTITIONS`: the row number as the
+//!    difference from the partition's previous one, the line (long layout
+//!    only), date, age, flags, id, episode value, kept values, and the
+//!    condition sets as the numbers of their conditions. A patient's
+//!    records all go to one partition, in input order. The wide layout's
+//!    raw rows do not travel with them: they go, in input order, to one
+//!    rows file, read back once by the final merge.
+//! 2. The partitions are read back into [`Builder`]s (the same merging of
 //!    rows into episodes as the in-memory run), resolved
-//!    ([`History::resolve`]) and formatted; its output lines, with their
-//!    row numbers, are appended to one result file, and the partition's
-//!    file is removed. A partition's episodes are in increasing row order.
+//!    ([`History::resolve`](super::history::History::resolve)) and
+//!    formatted, several at a time on as many threads as the memory limit
+//!    allows; each partition's output (the
+//!    scores after the raw row in the wide layout, whole lines in the long
+//!    layout), with row numbers, is appended to one result file as a run,
+//!    and the partition's file is removed. A partition's episodes are in
+//!    increasing row order.
 //! 3. The output walks the rows in order: a k-way merge by row number of
-//!    the partitions' runs of the result file.
+//!    the runs of the result file, each line put after its raw row read
+//!    from the rows file.
 //!
 //! Every file is registered with `io::atomic` (removed on SIGINT, SIGTERM,
 //! SIGHUP) and removed when dropped, after success or failure.
@@ -26,13 +35,12 @@ use std::fs::File;
 use std::io::{BufReader, BufWriter, Read, Write};
 use std::os::unix::fs::FileExt;
 use std::path::{Path, PathBuf};
-use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::atomic::{AtomicU64, AtomicUsize, Ordering};
+use std::sync::mpsc::sync_channel;
 
-use super::history::{
-    check_unreadable_dates, Builder, DateRead, Formatter, History, RowIn, Windows,
-};
+use super::history::{check_unreadable_dates, Builder, DateRead, Formatter, RowIn, Windows};
 use super::rows_store::RowStore;
-use super::{Plan, ScoreConfig, Summary};
+use super::{Layout, OverMemory, Plan, ScoreConfig, Summary};
 use crate::matcher::KeyHasher;
 use crate::score::Engine;
 use crate::Error;
@@ -43,8 +51,10 @@ use std::hash::Hasher;
 const PARTITIONS: usize = 128;
 /// Write buffer per partition file.
 const WRITE_BUFFER: usize = 64 << 10;
-/// Raw rows of a partition are kept in blocks of about this size.
-const RAW_BLOCK: usize = 1 << 20;
+/// What resolving a partition holds in memory, at most, per byte of its
+/// file (the episodes, ids, condition sets, window order and formatted
+/// output of a compact record of about 25 bytes).
+const MEMORY_PER_RECORD_BYTE: u64 = 6;
 
 static SERIAL: AtomicU64 = AtomicU64::new(0);
 
@@ -81,6 +91,9 @@ impl Drop for TempPath {
 struct Part {
     out: BufWriter<File>,
     path: TempPath,
+    /// Row number of the partition's last record.
+    last_row: u64,
+    bytes: u64,
 }
 
 /// The partition files of a history being spilled.
@@ -90,7 +103,11 @@ pub(crate) struct Spill {
     words: usize,
     nkeep: usize,
     exclusions: bool,
-    raw: bool,
+    /// Long layout: records carry their line (for `--strict` messages).
+    lines: bool,
+    /// The wide layout's raw rows, in input order (when the output copies
+    /// them).
+    rows: Option<(BufWriter<File>, TempPath)>,
     /// Bytes and records written.
     bytes: u64,
     records: u64,
@@ -104,19 +121,46 @@ fn partition_of(pid: &[u8]) -> usize {
     ((x >> 32) as usize) % PARTITIONS
 }
 
+fn put_varint(rec: &mut Vec<u8>, mut x: u64) {
+    while x >= 0x80 {
+        rec.push(x as u8 | 0x80);
+        x >>= 7;
+    }
+    rec.push(x as u8);
+}
+
 fn put_bytes(rec: &mut Vec<u8>, b: &[u8]) {
-    rec.extend_from_slice(&(b.len() as u32).to_le_bytes());
+    put_varint(rec, b.len() as u64);
     rec.extend_from_slice(b);
 }
 
+/// A condition set as the number of its conditions, then each condition's
+/// number as the difference from the previous one.
+fn put_set(rec: &mut Vec<u8>, set: &[u64]) {
+    let n: u32 = set.iter().map(|w| w.count_ones()).sum();
+    put_varint(rec, n as u64);
+    let mut last = 0u64;
+    for (j, &w) in set.iter().enumerate() {
+        let mut x = w;
+        while x != 0 {
+            let b = (j as u64) * 64 + x.trailing_zeros() as u64;
+            x &= x - 1;
+            put_varint(rec, b - last);
+            last = b;
+        }
+    }
+}
+
 impl Spill {
-    /// Creates the partition files in `dir`.
+    /// Creates the partition files in `dir` (and the rows file, with
+    /// `raw`).
     pub fn new(
         dir: &Path,
         words: usize,
         nkeep: usize,
         exclusions: bool,
         raw: bool,
+        layout: Layout,
     ) -> Result<Spill, Error> {
         let mut parts = Vec::with_capacity(PARTITIONS);
         for _ in 0..PARTITIONS {
@@ -124,68 +168,92 @@ impl Spill {
             parts.push(Part {
                 out: BufWriter::with_capacity(WRITE_BUFFER, file),
                 path,
+                last_row: 0,
+                bytes: 0,
             });
         }
+        let rows = if raw {
+            let (path, file) = TempPath::create(dir, "rows")?;
+            Some((BufWriter::with_capacity(1 << 20, file), path))
+        } else {
+            None
+        };
         Ok(Spill {
             dir: dir.to_path_buf(),
             parts,
             words,
             nkeep,
             exclusions,
-            raw,
+            lines: layout == Layout::Long,
+            rows,
             bytes: 0,
             records: 0,
             rec: Vec::new(),
         })
     }
 
-    /// Writes a row (or an episode read before the spill) and its raw row
-    /// to its patient's partition.
+    /// Writes a row (or an episode read before the spill) to its patient's
+    /// partition, and its raw row (wide layout) to the rows file. Rows come
+    /// in input order.
     pub fn write(&mut self, r: &RowIn<'_>, raw: &[u8]) -> Result<(), Error> {
+        let part = &mut self.parts[partition_of(r.pid)];
         let rec = &mut self.rec;
         rec.clear();
-        rec.extend_from_slice(&[0; 4]);
-        rec.extend_from_slice(&r.row.to_le_bytes());
-        rec.extend_from_slice(&r.line.to_le_bytes());
+        put_varint(rec, r.row - part.last_row);
+        part.last_row = r.row;
+        if self.lines {
+            put_varint(rec, r.line);
+        }
         let (kind, day) = match r.date {
-            DateRead::Missing => (0u8, 0i32),
-            DateRead::Day(d) => (1, d),
-            DateRead::Unreadable => (2, 0),
+            DateRead::Missing => (0u8, None),
+            DateRead::Day(d) => (1, Some(d)),
+            DateRead::Unreadable => (2, None),
         };
         rec.push(r.no_id as u8 | (r.disagrees as u8) << 1 | kind << 2);
-        rec.extend_from_slice(&day.to_le_bytes());
+        if let Some(d) = day {
+            rec.extend_from_slice(&d.to_le_bytes());
+        }
         rec.push(r.age.map_or(u8::MAX, |a| a.min(254) as u8));
         put_bytes(rec, r.pid);
         put_bytes(rec, r.ekey);
         for &(s, t) in r.kept {
             put_bytes(rec, &r.kept_bytes[s..t]);
         }
-        for &x in r.all {
-            rec.extend_from_slice(&x.to_le_bytes());
-        }
+        put_set(rec, r.all);
         if self.exclusions {
-            for &x in r.cur {
-                rec.extend_from_slice(&x.to_le_bytes());
-            }
+            put_set(rec, r.cur);
         }
-        if self.raw {
-            put_bytes(rec, raw);
+        let (mut head, mut hl, mut x) = ([0u8; 10], 0, rec.len() as u64);
+        while x >= 0x80 {
+            head[hl] = x as u8 | 0x80;
+            x >>= 7;
+            hl += 1;
         }
-        let len = (rec.len() - 4) as u32;
-        rec[..4].copy_from_slice(&len.to_le_bytes());
-        let part = &mut self.parts[partition_of(r.pid)];
+        head[hl] = x as u8;
+        hl += 1;
         part.out
-            .write_all(rec)
+            .write_all(&head[..hl])
+            .and_then(|()| part.out.write_all(rec))
             .map_err(|e| part.path.error("write", e))?;
-        self.bytes += rec.len() as u64;
+        let n = (hl + rec.len()) as u64;
+        part.bytes += n;
+        self.bytes += n;
         self.records += 1;
+        if let Some((out, path)) = self.rows.as_mut() {
+            rec.clear();
+            put_varint(rec, raw.len() as u64);
+            out.write_all(rec)
+                .and_then(|()| out.write_all(raw))
+                .map_err(|e| path.error("write", e))?;
+            self.bytes += (rec.len() + raw.len()) as u64;
+        }
         Ok(())
     }
 
     /// Resolves each partition (read with `plan`), then writes `head` (the
-    /// header line) and every output line in
-    /// input order to `output`. Adds the episodes' counts (dates,
-    /// disagreements, rows written, what was spilled) to `summary`.
+    /// header line) and every output line in input order to `output`. Adds
+    /// the episodes' counts (dates, disagreements, rows written, what was
+    /// spilled) to `summary`.
     pub fn finish(
         self,
         engine: &Engine,
@@ -201,167 +269,124 @@ impl Spill {
             words,
             nkeep,
             exclusions,
-            raw,
+            lines,
+            rows,
             bytes,
             records,
             ..
         } = self;
-        let (result_path, result) = TempPath::create(&dir, "scored")?;
-        let mut results = BufWriter::with_capacity(1 << 20, &result);
-        let mut segments: Vec<(u64, u64)> = Vec::with_capacity(parts.len());
-        let mut at = 0u64;
-        let mut episodes = 0u64;
-        // A --strict disagreement: the first in input order of any partition.
-        let mut first_error: Option<(u64, Error)> = None;
-        let mut plan = Some(plan);
-        let threads = super::parallel::threads(cfg);
+        let raw = rows.is_some();
+        let rows = match rows {
+            Some((out, path)) => {
+                let file = out
+                    .into_inner()
+                    .map_err(|e| path.error("write", e.into_error()))?;
+                drop(file);
+                let file = File::open(&path.0).map_err(|e| path.error("read", e))?;
+                Some((BufReader::with_capacity(1 << 20, file), path))
+            }
+            None => None,
+        };
+        let mut files = Vec::with_capacity(parts.len());
+        let mut largest = 0u64;
         for part in parts {
-            let Part { out, path } = part;
+            let Part {
+                out, path, bytes, ..
+            } = part;
             let file = out
                 .into_inner()
                 .map_err(|e| path.error("write", e.into_error()))?;
             drop(file);
-            let file = File::open(&path.0).map_err(|e| path.error("read", e))?;
-            let mut input = BufReader::with_capacity(1 << 18, file);
-            let p = plan.take().expect("plan returned by each partition");
-            let mut builder = Builder::new(cfg, &p, words);
-            let mut store = RowStore::new(usize::MAX, &dir);
-            let (mut raw_ends, mut raw_first, mut block) = (Vec::new(), Vec::new(), Vec::new());
-            let mut rec = Vec::new();
-            let mut kept: Vec<(usize, usize)> = Vec::with_capacity(nkeep);
-            let (mut all, mut cur) = (vec![0u64; words], vec![0u64; words]);
-            let mut failed = false;
-            while read_record(&mut input, &mut rec).map_err(|e| path.error("read", e))? {
-                let mut c = Cursor { b: &rec, at: 0 };
-                let row = c.u64();
-                let line = c.u64();
-                let flags = c.u8();
-                let day = c.i32();
-                let age = c.u8();
-                let pid = c.bytes();
-                let ekey = c.bytes();
-                kept.clear();
-                for _ in 0..nkeep {
-                    let n = c.u32() as usize;
-                    kept.push((c.at, c.at + n));
-                    c.at += n;
-                }
-                for x in all.iter_mut() {
-                    *x = c.u64();
-                }
-                if exclusions {
-                    for x in cur.iter_mut() {
-                        *x = c.u64();
+            largest = largest.max(bytes);
+            files.push(path);
+        }
+        // As many partitions at once as there are threads, within three
+        // quarters of the memory limit (the history read is gone by now); a
+        // partition alone formats on every core.
+        let threads = super::parallel::threads(cfg);
+        let fit = (cfg.memory / 4 * 3) / (largest * MEMORY_PER_RECORD_BYTE).max(1);
+        let concurrent = (fit as usize).clamp(1, threads);
+        let inner = if concurrent == 1 { threads } else { 1 };
+        let shape = Shape {
+            words,
+            nkeep,
+            exclusions,
+            lines,
+            raw,
+        };
+
+        let (result_path, result) = TempPath::create(&dir, "scored")?;
+        let mut results = BufWriter::with_capacity(1 << 20, &result);
+        let mut segments: Vec<(u64, u64)> = Vec::with_capacity(files.len());
+        let mut at = 0u64;
+        let mut episodes = 0u64;
+        // A --strict disagreement: the first in input order of any partition.
+        let mut first_error: Option<(u64, Error)> = None;
+        let mut write_failed: Option<Error> = None;
+        let next = AtomicUsize::new(0);
+        let files = &files;
+        let dir = &dir;
+        let next = &next;
+        let plan = &plan;
+        let shape = &shape;
+        let (tx, rx) = sync_channel::<Resolved>(concurrent);
+        std::thread::scope(|s| {
+            for _ in 0..concurrent {
+                let tx = tx.clone();
+                s.spawn(move || loop {
+                    let k = next.fetch_add(1, Ordering::Relaxed);
+                    if k >= files.len() {
+                        break;
                     }
-                }
-                let raw_row = if raw { c.bytes() } else { &[][..] };
-                let r = RowIn {
-                    row,
-                    line,
-                    no_id: flags & 1 != 0,
-                    disagrees: flags & 2 != 0,
-                    date: match flags >> 2 {
-                        1 => DateRead::Day(day),
-                        2 => DateRead::Unreadable,
-                        _ => DateRead::Missing,
-                    },
-                    age: (age != u8::MAX).then_some(age as u32),
-                    pid,
-                    ekey,
-                    kept_bytes: &rec,
-                    kept: &kept,
-                    all: &all,
-                    cur: if exclusions { &cur } else { &[] },
-                };
-                let before = builder.episodes();
-                if let Err(e) = builder.add_row(&p, &r, summary) {
-                    if first_error.as_ref().is_none_or(|(l, _)| line < *l) {
-                        first_error = Some((line, e));
+                    let r =
+                        resolve_partition(engine, cfg, windows, plan, shape, &files[k], inner, dir);
+                    if tx.send(r).is_err() {
+                        break;
                     }
-                    failed = true;
-                    break;
-                }
-                if raw && builder.episodes() > before {
-                    if block.len() + raw_row.len() > RAW_BLOCK && !block.is_empty() {
-                        store.push(std::mem::take(&mut block))?;
-                    }
-                    if block.is_empty() {
-                        raw_first.push(before as u32);
-                    }
-                    block.extend_from_slice(raw_row);
-                    raw_ends.push(block.len() as u32);
-                }
+                });
             }
-            drop(input);
-            drop(path);
-            if !block.is_empty() {
-                store.push(block)?;
-            }
-            if failed || first_error.is_some() {
-                // Only the first disagreement matters now; keep looking.
-                plan = Some(p);
-                continue;
-            }
-            let mut owned = builder.finish(
-                p,
-                Vec::new(),
-                (raw_ends, raw_first, store),
-                Vec::new(),
-                summary,
-            );
-            owned.resolve(windows);
-            let n = owned.episodes.len();
-            episodes += n as u64;
-            // Formatted on every core, in chunks, written in order.
-            let per = n.div_ceil(threads.max(1)).max(1);
-            let hist = &owned;
-            let chunks: Result<Vec<Vec<u8>>, Error> = std::thread::scope(|s| {
-                let handles: Vec<_> = (0..n)
-                    .step_by(per)
-                    .map(|from| {
-                        s.spawn(move || -> Result<Vec<u8>, Error> {
-                            let to = (from + per).min(n);
-                            let rows = hist.load_rows(cfg, from..to)?;
-                            let mut f = Formatter::new(words);
-                            let mut out = Vec::with_capacity((to - from) * 160);
-                            let mut line = Vec::new();
-                            for e in from..to {
-                                line.clear();
-                                f.episode(engine, cfg, hist, e, &rows, &mut line);
-                                out.extend_from_slice(&hist.row(e).to_le_bytes());
-                                out.extend_from_slice(&(line.len() as u32).to_le_bytes());
-                                out.extend_from_slice(&line);
+            drop(tx);
+            for r in rx {
+                match r {
+                    Resolved::Done {
+                        out,
+                        summary: s,
+                        episodes: n,
+                    } => {
+                        summary.merge(s);
+                        episodes += n;
+                        if write_failed.is_some() || first_error.is_some() {
+                            continue;
+                        }
+                        let start = at;
+                        match results.write_all(&out) {
+                            Ok(()) => {
+                                at += out.len() as u64;
+                                segments.push((start, at));
                             }
-                            Ok(out)
-                        })
-                    })
-                    .collect();
-                handles
-                    .into_iter()
-                    .map(|h| {
-                        h.join().unwrap_or_else(|_| {
-                            Err(Error::data(None, "internal error: an output thread failed"))
-                        })
-                    })
-                    .collect()
-            });
-            let start = at;
-            for c in chunks? {
-                results
-                    .write_all(&c)
-                    .map_err(|e| result_path.error("write", e))?;
-                at += c.len() as u64;
+                            Err(e) => write_failed = Some(result_path.error("write", e)),
+                        }
+                    }
+                    Resolved::Disagreement(line, e) => {
+                        if first_error.as_ref().is_none_or(|(l, _)| line < *l) {
+                            first_error = Some((line, e));
+                        }
+                    }
+                    Resolved::Failed(e) => {
+                        write_failed.get_or_insert(e);
+                    }
+                }
             }
-            segments.push((start, at));
-            let History { plan: p, .. } = owned;
-            plan = Some(p);
+        });
+        if let Some(e) = write_failed {
+            return Err(e);
         }
         if let Some((_, e)) = first_error {
             return Err(e);
         }
         results.flush().map_err(|e| result_path.error("write", e))?;
         drop(results);
-        if plan.as_ref().is_some_and(|p| p.date.is_some()) {
+        if plan.date.is_some() {
             check_unreadable_dates(cfg, summary, episodes)?;
         }
         summary.spilled_records += records;
@@ -369,7 +394,8 @@ impl Spill {
         summary.rows_written += episodes;
         summary.units += episodes;
 
-        // The merge: the next line of every partition, smallest row first.
+        // The merge: the next line of every partition, smallest row first,
+        // after its raw row.
         let write_err = |e| Error::io("cannot write output", e);
         output.write_all(head).map_err(write_err)?;
         let mut readers: Vec<Segment> = segments.iter().map(|&(s, t)| Segment::new(s, t)).collect();
@@ -379,9 +405,23 @@ impl Spill {
                 heap.push(Reverse((row, k)));
             }
         }
+        let mut rows = rows;
+        let mut raw_row = Vec::new();
         let mut out: Vec<u8> = Vec::with_capacity(1 << 20);
         while let Some(Reverse((_, k))) = heap.pop() {
             let r = &mut readers[k];
+            if let Some((input, path)) = rows.as_mut() {
+                if !read_record(input, &mut raw_row).map_err(|e| path.error("read", e))? {
+                    return Err(path.error(
+                        "read",
+                        std::io::Error::new(
+                            std::io::ErrorKind::UnexpectedEof,
+                            "the rows file ends early",
+                        ),
+                    ));
+                }
+                out.extend_from_slice(&raw_row);
+            }
             out.extend_from_slice(r.line());
             if out.len() >= 1 << 20 {
                 output.write_all(&out).map_err(write_err)?;
@@ -394,19 +434,218 @@ impl Spill {
         output.write_all(&out).map_err(write_err)?;
         drop(result);
         drop(result_path);
+        drop(rows);
         Ok(())
     }
 }
 
-/// Reads one length-prefixed record into `rec`; `false` at the end.
-fn read_record(input: &mut impl Read, rec: &mut Vec<u8>) -> std::io::Result<bool> {
-    let mut len = [0u8; 4];
-    match input.read_exact(&mut len) {
-        Ok(()) => {}
-        Err(e) if e.kind() == std::io::ErrorKind::UnexpectedEof => return Ok(false),
-        Err(e) => return Err(e),
+/// What a partition's records hold.
+struct Shape {
+    words: usize,
+    nkeep: usize,
+    exclusions: bool,
+    lines: bool,
+    raw: bool,
+}
+
+/// A partition resolved: its output (a run of the result file), or the
+/// first `--strict` disagreement it holds (with its line), or a failure.
+// One per partition: the size of the variants does not matter.
+#[allow(clippy::large_enum_variant)]
+enum Resolved {
+    Done {
+        out: Vec<u8>,
+        summary: Summary,
+        episodes: u64,
+    },
+    Disagreement(u64, Error),
+    Failed(Error),
+}
+
+/// Reads partition `path` back into a history, resolves it and formats
+/// its episodes (on `threads` threads): each output record is the row
+/// number (as the difference from the previous one), the line's length and
+/// the line (the part after the raw row, with `shape.raw`). The file is
+/// removed once read.
+#[allow(clippy::too_many_arguments)]
+fn resolve_partition(
+    engine: &Engine,
+    cfg: &ScoreConfig,
+    windows: &Windows,
+    plan: &Plan,
+    shape: &Shape,
+    path: &TempPath,
+    threads: usize,
+    dir: &Path,
+) -> Resolved {
+    let Shape {
+        words,
+        nkeep,
+        exclusions,
+        lines,
+        raw,
+    } = *shape;
+    let mut summary = Summary::default();
+    let file = match File::open(&path.0) {
+        Ok(f) => f,
+        Err(e) => return Resolved::Failed(path.error("read", e)),
+    };
+    let mut input = BufReader::with_capacity(1 << 18, file);
+    let p = plan.clone();
+    let mut builder = Builder::new(cfg, &p, words);
+    let mut rec = Vec::new();
+    let mut kept: Vec<(usize, usize)> = Vec::with_capacity(nkeep);
+    let (mut all, mut cur) = (vec![0u64; words], vec![0u64; words]);
+    let mut row = 0u64;
+    loop {
+        match read_record(&mut input, &mut rec) {
+            Ok(true) => {}
+            Ok(false) => break,
+            Err(e) => return Resolved::Failed(path.error("read", e)),
+        }
+        let mut c = Cursor { b: &rec, at: 0 };
+        row += c.varint();
+        let line = if lines { c.varint() } else { 0 };
+        let flags = c.u8();
+        let day = if flags >> 2 == 1 { c.i32() } else { 0 };
+        let age = c.u8();
+        let pid = c.bytes();
+        let ekey = c.bytes();
+        kept.clear();
+        for _ in 0..nkeep {
+            let n = c.varint() as usize;
+            kept.push((c.at, c.at + n));
+            c.at += n;
+        }
+        c.set(&mut all);
+        if exclusions {
+            c.set(&mut cur);
+        }
+        let r = RowIn {
+            row,
+            line,
+            no_id: flags & 1 != 0,
+            disagrees: flags & 2 != 0,
+            date: match flags >> 2 {
+                1 => DateRead::Day(day),
+                2 => DateRead::Unreadable,
+                _ => DateRead::Missing,
+            },
+            age: (age != u8::MAX).then_some(age as u32),
+            pid,
+            ekey,
+            kept_bytes: &rec,
+            kept: &kept,
+            all: &all,
+            cur: if exclusions { &cur } else { &[] },
+        };
+        if let Err(e) = builder.add_row(&p, &r, &mut summary) {
+            return Resolved::Disagreement(line, e);
+        }
     }
-    rec.resize(u32::from_le_bytes(len) as usize, 0);
+    drop(input);
+    crate::io::atomic::remove_working_file(&path.0);
+    // Over half of --memory: the limit is passed; say so loudly, naming
+    // the id with the most episodes (one patient cannot be split).
+    let held = builder.heap_bytes() as u64;
+    let store = RowStore::new(0, dir);
+    let mut owned = builder.finish(
+        p,
+        Vec::new(),
+        (Vec::new(), Vec::new(), store),
+        Vec::new(),
+        &mut summary,
+    );
+    owned.set_rows_apart(raw);
+    let n = owned.episodes.len();
+    if held > cfg.memory / 2 {
+        let mut per = vec![0u64; owned.patients_len()];
+        for ep in &owned.episodes {
+            per[ep.patient as usize] += 1;
+        }
+        if let Some((p, &k)) = per.iter().enumerate().max_by_key(|&(_, k)| *k) {
+            summary.over_memory = Some(OverMemory {
+                bytes: held,
+                episodes: n as u64,
+                id: owned.patient_id(p as u32).to_vec(),
+                id_episodes: k,
+            });
+        }
+    }
+    owned.resolve(windows);
+    // Formatted in chunks (on `threads` threads), put together in order.
+    let per = n.div_ceil(threads.max(1)).max(1);
+    let hist = &owned;
+    let format = |from: usize| -> Vec<u8> {
+        let to = (from + per).min(n);
+        let rows = hist.rows_none();
+        let mut f = Formatter::new(words);
+        let mut out = Vec::with_capacity((to - from) * 64);
+        let mut line = Vec::new();
+        let mut last = if from == 0 { 0 } else { hist.row(from - 1) };
+        for e in from..to {
+            line.clear();
+            f.episode(engine, cfg, hist, e, &rows, &mut line);
+            let row = hist.row(e);
+            put_varint(&mut out, row - last);
+            last = row;
+            put_bytes(&mut out, &line);
+        }
+        out
+    };
+    let chunks: Option<Vec<Vec<u8>>> = if threads <= 1 || n <= per {
+        Some((0..n).step_by(per).map(format).collect())
+    } else {
+        std::thread::scope(|s| {
+            let handles: Vec<_> = (0..n)
+                .step_by(per)
+                .map(|from| s.spawn(move || format(from)))
+                .collect();
+            handles.into_iter().map(|h| h.join().ok()).collect()
+        })
+    };
+    let Some(chunks) = chunks else {
+        return Resolved::Failed(Error::data(None, "internal error: an output thread failed"));
+    };
+    let out = if chunks.len() == 1 {
+        chunks.into_iter().next().unwrap_or_default()
+    } else {
+        chunks.concat()
+    };
+    Resolved::Done {
+        out,
+        summary,
+        episodes: n as u64,
+    }
+}
+
+/// Reads one record (its length as a varint, then its bytes) into `rec`;
+/// `false` at the end.
+fn read_record(input: &mut impl Read, rec: &mut Vec<u8>) -> std::io::Result<bool> {
+    let mut len = 0u64;
+    let mut shift = 0;
+    let mut byte = [0u8; 1];
+    loop {
+        match input.read_exact(&mut byte) {
+            Ok(()) => {}
+            Err(e) if e.kind() == std::io::ErrorKind::UnexpectedEof && shift == 0 => {
+                return Ok(false)
+            }
+            Err(e) => return Err(e),
+        }
+        len |= u64::from(byte[0] & 0x7f) << shift;
+        if byte[0] & 0x80 == 0 {
+            break;
+        }
+        shift += 7;
+        if shift > 63 {
+            return Err(std::io::Error::new(
+                std::io::ErrorKind::InvalidData,
+                "a damaged record length",
+            ));
+        }
+    }
+    rec.resize(len as usize, 0);
     input.read_exact(rec)?;
     Ok(true)
 }
@@ -426,18 +665,34 @@ impl<'a> Cursor<'a> {
     fn u8(&mut self) -> u8 {
         self.take(1)[0]
     }
-    fn u32(&mut self) -> u32 {
-        u32::from_le_bytes(self.take(4).try_into().expect("4 bytes"))
-    }
     fn i32(&mut self) -> i32 {
         i32::from_le_bytes(self.take(4).try_into().expect("4 bytes"))
     }
-    fn u64(&mut self) -> u64 {
-        u64::from_le_bytes(self.take(8).try_into().expect("8 bytes"))
+    fn varint(&mut self) -> u64 {
+        let mut x = 0u64;
+        let mut shift = 0;
+        loop {
+            let b = self.u8();
+            x |= u64::from(b & 0x7f) << shift;
+            if b & 0x80 == 0 {
+                return x;
+            }
+            shift += 7;
+        }
     }
     fn bytes(&mut self) -> &'a [u8] {
-        let n = self.u32() as usize;
+        let n = self.varint() as usize;
         self.take(n)
+    }
+    /// A condition set written by [`put_set`], into `set`.
+    fn set(&mut self, set: &mut [u64]) {
+        set.fill(0);
+        let n = self.varint();
+        let mut b = 0u64;
+        for _ in 0..n {
+            b += self.varint();
+            set[(b >> 6) as usize] |= 1 << (b & 63);
+        }
     }
 }
 
@@ -450,6 +705,7 @@ struct Segment {
     /// `filled`.
     line: (usize, usize),
     filled: usize,
+    row: u64,
 }
 
 const SEGMENT_BUFFER: usize = 64 << 10;
@@ -462,13 +718,16 @@ impl Segment {
             buf: Vec::new(),
             line: (0, 0),
             filled: 0,
+            row: 0,
         }
     }
 
-    /// Has at least `n` unread bytes after `from` in the buffer (moving
-    /// them to its start), reading more from `file`.
+    /// Has at least `n` unread bytes after the current line in the buffer
+    /// (or all that remain of the run, if fewer), moving them to its start
+    /// and reading more from `file`.
     fn ensure(&mut self, file: &File, n: usize) -> std::io::Result<()> {
         let have = self.filled - self.line.1;
+        let n = n.min(have + (self.end - self.pos) as usize);
         if have >= n {
             return Ok(());
         }
@@ -481,12 +740,6 @@ impl Segment {
         }
         while self.filled < n {
             let room = (self.buf.len() - self.filled).min((self.end - self.pos) as usize);
-            if room == 0 {
-                return Err(std::io::Error::new(
-                    std::io::ErrorKind::UnexpectedEof,
-                    "a scored partition ends early",
-                ));
-            }
             let got = file.read_at(&mut self.buf[self.filled..self.filled + room], self.pos)?;
             if got == 0 {
                 return Err(std::io::ErrorKind::UnexpectedEof.into());
@@ -497,23 +750,91 @@ impl Segment {
         Ok(())
     }
 
+    /// A varint at the buffer's read position.
+    fn varint(&mut self) -> std::io::Result<u64> {
+        let mut x = 0u64;
+        let mut shift = 0;
+        loop {
+            let at = self.line.1;
+            if at >= self.filled || shift > 63 {
+                return Err(std::io::Error::new(
+                    std::io::ErrorKind::UnexpectedEof,
+                    "a scored partition ends early",
+                ));
+            }
+            let b = self.buf[at];
+            self.line = (at + 1, at + 1);
+            x |= u64::from(b & 0x7f) << shift;
+            if b & 0x80 == 0 {
+                return Ok(x);
+            }
+            shift += 7;
+        }
+    }
+
     /// Moves to the next line; returns its row number (`None` at the end).
     fn next(&mut self, file: &File) -> std::io::Result<Option<u64>> {
         if self.filled == self.line.1 && self.pos == self.end {
             return Ok(None);
         }
-        self.ensure(file, 12)?;
-        let at = self.line.1;
-        let row = u64::from_le_bytes(self.buf[at..at + 8].try_into().expect("8 bytes"));
-        let len = u32::from_le_bytes(self.buf[at + 8..at + 12].try_into().expect("4 bytes"));
-        self.line = (at + 12, at + 12);
-        self.ensure(file, len as usize)?;
+        self.ensure(file, 20)?;
+        self.row += self.varint()?;
+        let len = self.varint()? as usize;
+        self.ensure(file, len)?;
         let s = self.line.1;
-        self.line = (s, s + len as usize);
-        Ok(Some(row))
+        if self.filled - s < len {
+            return Err(std::io::Error::new(
+                std::io::ErrorKind::UnexpectedEof,
+                "a scored partition ends early",
+            ));
+        }
+        self.line = (s, s + len);
+        Ok(Some(self.row))
     }
 
     fn line(&self) -> &[u8] {
         &self.buf[self.line.0..self.line.1]
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn condition_sets_come_back_from_their_numbers() {
+        let sets: [&[u64]; 4] = [
+            &[0, 0, 0],
+            &[1, 0, 1 << 63],
+            &[u64::MAX, 0x8000_0000_0000_0001, 7],
+            &[0, 1 << 20, 0],
+        ];
+        for set in sets {
+            let mut rec = Vec::new();
+            put_set(&mut rec, set);
+            let mut back = vec![5u64; 3];
+            let mut c = Cursor { b: &rec, at: 0 };
+            c.set(&mut back);
+            assert_eq!(back, set);
+            assert_eq!(c.at, rec.len());
+        }
+    }
+
+    #[test]
+    fn varints_round_trip_through_records() {
+        let values = [0u64, 1, 127, 128, 300, 1 << 32, u64::MAX];
+        let mut file = Vec::new();
+        for &v in &values {
+            let mut rec = Vec::new();
+            put_varint(&mut rec, v);
+            put_bytes(&mut file, &rec);
+        }
+        let mut input = &file[..];
+        let mut rec = Vec::new();
+        for &v in &values {
+            assert!(read_record(&mut input, &mut rec).unwrap());
+            assert_eq!(Cursor { b: &rec, at: 0 }.varint(), v);
+        }
+        assert!(!read_record(&mut input, &mut rec).unwrap());
     }
 }
