@@ -7,19 +7,22 @@
 //! against the frame's names with the command line's checks and messages,
 //! then:
 //!
-//! - without the dated-history options (`--date`, `--lookback`,
-//!   `--episode`, `--exclude-primary`, `--primary`, `--poa`), score the rows
-//!   with [`crate::columnar::Scorer`], on several threads for a large wide
-//!   frame;
-//! - with them, hand the frame's rows, typed as they are, to the library's
-//!   own history reader ([`History`], the one behind `morbus score
-//!   --lookback` and `morbus explain`) as a [`RowSource`] of
-//!   [`crate::rows`]: no text is made of the frame. Codes, indicators,
-//!   dates and ages are read by the same functions as a text record's
-//!   fields; messages name the frame's rows and columns. `explain`'s
-//!   records come back typed from the history's codes; [`compare`] hands
-//!   the rows to [`crate::compare::compare`], which reads the outcome and
-//!   adjustment columns typed in the same pass.
+//! - without a history (`--lookback`, `--episode`, `--keep`), score the
+//!   rows with the plain scorer over typed rows
+//!   ([`crate::pipeline::plain`], the one behind a Parquet input's plain
+//!   run), on several threads for a large wide frame;
+//! - with one, hand the frame's rows to the library's own history reader
+//!   ([`History`], the one behind `morbus score --lookback` and `morbus
+//!   explain`).
+//!
+//! Either way the frame's rows go, typed as they are, through the row
+//! model of [`crate::rows`] ([`FramePart`] batches): no text is made of the
+//! frame. Codes, present-on-admission indicators, primary flags, dates and
+//! ages are read by the same functions as a text record's fields; messages
+//! name the frame's rows and columns. `explain`'s records come back typed
+//! from the history's codes; [`compare`] hands the rows to
+//! [`crate::compare::compare`], which reads the outcome and adjustment
+//! columns typed in the same pass.
 //!
 //! Results come back typed, one vector per output column ([`Scored`],
 //! [`Explained`]). Rows in messages are numbered from `first_row` (0 for
@@ -46,13 +49,11 @@
 //! assert_eq!(scored.columns[0], ScoreColumn::Int(vec![Some(6), Some(1)]));
 //! ```
 
-use std::borrow::Cow;
-
-use crate::columnar::{self, Age, Rows, Scorer};
 use crate::compare::{CompareOptions, Comparison};
 use crate::lists::{SCALE, SCALE_DECIMALS};
 use crate::pipeline::explain::explain_history;
 use crate::pipeline::history::{History, Input, Needs, Windows};
+use crate::pipeline::plain;
 use crate::pipeline::{DateFormat, Header, Layout, ScoreConfig, Summary};
 use crate::rows::{Batch, RowNaming, RowSource};
 use crate::score::{ColumnKind, Engine, Value};
@@ -337,17 +338,6 @@ impl Request {
     }
 }
 
-/// Whether a run needs the dated-history reader.
-fn needs_history(cfg: &ScoreConfig) -> bool {
-    cfg.uses_history()
-        || !cfg.keep.is_empty()
-        || cfg.episode.is_some()
-        || cfg.date.is_some()
-        || cfg.exclude_primary
-        || cfg.primary.is_some()
-        || cfg.poa.is_some()
-}
-
 #[derive(Clone, Copy, PartialEq, Eq)]
 enum Role {
     Dx,
@@ -607,19 +597,22 @@ pub fn score(
     for u in &used {
         check_kind(cols, u, typed_format)?;
     }
-    if needs_history(cfg) {
+    if crate::pipeline::reads_history(cfg) {
         return score_history(engine, cfg, header, cols, &used, first_row);
     }
-    let plan = &columnar::plan(engine, cfg, header)?;
-    let n = cols.rows();
-    let ids = plan.id.map(|c| id_keys(cols, c));
-    let view = View {
-        cols,
-        plan,
-        ids: ids.as_deref(),
-        start: 0,
-        len: n,
+    let plan = &plain::plan(
+        engine,
+        cfg,
+        Header {
+            names: header.names.clone(),
+        },
+    )?;
+    let naming = RowNaming {
+        first: first_row,
+        of: None,
     };
+    let n = cols.rows();
+    let part = |start: usize, len: usize| FramePart { cols, start, len };
     match cfg.layout {
         Layout::Wide => {
             let threads = thread_count(cfg.threads);
@@ -629,18 +622,27 @@ pub fn score(
                 1
             };
             let per = n.div_ceil(parts).max(1);
-            let results: Vec<Result<(Output, Summary), Error>> = std::thread::scope(|s| {
+            let results: Vec<(Output, Summary, Option<Error>)> = std::thread::scope(|s| {
                 let handles: Vec<_> = (0..n.div_ceil(per).max(1))
                     .map(|p| {
                         let start = p * per;
                         let len = per.min(n - start.min(n));
-                        let part = View { start, len, ..view };
                         s.spawn(move || {
-                            let mut scorer = Scorer::new(engine, cfg, header, plan)
-                                .starting_at(first_row + start as u64);
+                            let mut values = Vec::new();
+                            let (summary, err) = plain::score_wide(
+                                engine,
+                                cfg,
+                                plan,
+                                &part(start, len),
+                                start as u64 + 1,
+                                &mut values,
+                            );
                             let mut out = Output::new(engine, len);
-                            scorer.wide(&part, |v| out.push(v))?;
-                            Ok((out, scorer.into_summary()))
+                            let width = engine.columns().len().max(1);
+                            for v in values.chunks(width) {
+                                out.push(v);
+                            }
+                            (out, summary, err)
                         })
                     })
                     .collect();
@@ -650,36 +652,38 @@ pub fn score(
                     .collect()
             });
             let mut out = Output::new(engine, n);
-            let mut summary: Option<Summary> = None;
-            for r in results {
-                let (o, s) = r?;
-                out.append(o);
-                match &mut summary {
-                    None => summary = Some(s),
-                    Some(all) => all.merge(s),
+            let mut summary = plan.summary();
+            for (o, s, err) in results {
+                if let Some(e) = err {
+                    return Err(naming.name(e));
                 }
+                out.append(o);
+                summary.merge(s);
             }
             Ok(Scored {
                 columns: out.finish(engine),
                 first_rows: None,
                 kept_rows: Vec::new(),
-                summary: summary.unwrap_or_default(),
+                summary,
             })
         }
         Layout::Long => {
-            let mut scorer = Scorer::new(engine, cfg, header, plan).starting_at(first_row);
-            scorer.long(&view)?;
+            let mut scorer = plain::LongScorer::new(engine, plan);
+            scorer
+                .add(cfg, plan, &part(0, n), 1)
+                .map_err(|e| naming.name(e))?;
             let mut out = Output::new(engine, 0);
             let mut firsts = Vec::new();
-            scorer.finish_long(|row, v| {
-                firsts.push(row - first_row);
+            let summary = scorer.finish(|row, v| {
+                firsts.push(row - 1);
                 out.push(v);
-            });
+                Ok(())
+            })?;
             Ok(Scored {
                 columns: out.finish(engine),
                 first_rows: Some(firsts),
                 kept_rows: Vec::new(),
-                summary: scorer.into_summary(),
+                summary,
             })
         }
     }
@@ -692,52 +696,6 @@ fn thread_count(asked: usize) -> usize {
     match asked {
         0 => std::thread::available_parallelism().map_or(1, |n| n.get()),
         n => n.min(256),
-    }
-}
-
-/// Id keys of a non-text id column (whole numbers as their digits).
-fn id_keys(cols: &impl Columns, col: usize) -> Vec<Option<Cow<'_, [u8]>>> {
-    (0..cols.rows())
-        .map(|r| cols.field(col, r).text())
-        .collect()
-}
-
-/// Rows `start..start + len` of a frame as [`Rows`].
-#[derive(Clone, Copy)]
-struct View<'a, C: Columns> {
-    cols: &'a C,
-    plan: &'a columnar::Plan,
-    ids: Option<&'a [Option<Cow<'a, [u8]>>]>,
-    start: usize,
-    len: usize,
-}
-
-impl<C: Columns> Rows for View<'_, C> {
-    fn len(&self) -> usize {
-        self.len
-    }
-    #[inline]
-    fn dx(&self, k: usize, row: usize) -> &[u8] {
-        match self.cols.field(self.plan.dx[k], self.start + row) {
-            Field::Text(t) => t,
-            // Columns of other kinds were refused unless every value is
-            // missing.
-            _ => b"",
-        }
-    }
-    fn age(&self, row: usize) -> Age<'_> {
-        let Some(c) = self.plan.age else {
-            return Age::Missing;
-        };
-        match self.cols.field(c, self.start + row) {
-            Field::Text(t) => Age::Text(t),
-            Field::Integer(i) => Age::Number(i as f64),
-            Field::Number(x) => Age::Number(x),
-            _ => Age::Missing,
-        }
-    }
-    fn id(&self, row: usize) -> Option<&[u8]> {
-        self.ids.and_then(|ids| ids[self.start + row].as_deref())
     }
 }
 

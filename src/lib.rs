@@ -17,7 +17,6 @@
 //! - [`pipeline`]: `score` over an extract, wide or long, with its summary;
 //! - [`rows`]: the row model every source implements (text records, typed
 //!   columns of frames and Arrow batches) and how values are read;
-//! - [`columnar`]: `score` over in-memory columns (Arrow arrays, data frames);
 //! - [`frame`]: `score` and `explain` over a data frame's typed columns (the bindings);
 //! - [`sql`]: a SQL script that scores a table inside a database (DuckDB,
 //!   PostgreSQL, SQLite) with the same lists and rules;
@@ -44,7 +43,6 @@
 //! ```
 
 pub mod code;
-pub mod columnar;
 pub mod compare;
 pub mod editions;
 pub mod error;

@@ -127,6 +127,13 @@ pub trait Batch: Send + Sync {
     }
     /// The value of column `col` at `row` (from 0 in the batch).
     fn field(&self, col: usize, row: usize) -> Field<'_>;
+    /// The Arrow record batch the rows are read from, when they are one (a
+    /// Parquet input's): a typed sink copies its arrays or formats its
+    /// values.
+    #[cfg(feature = "parquet")]
+    fn record_batch(&self) -> Option<&arrow_array::RecordBatch> {
+        None
+    }
 }
 
 /// Row `row` of a [`Batch`].

@@ -5,7 +5,10 @@
 //! the R package hands over) or as a Parquet file's record batches, for the
 //! wide and long layouts, `--episode`, lookback of 365 days and of the
 //! whole history, `--window earlier-only` and a window per list, with the
-//! primary-diagnosis and present-on-admission rules on.
+//! primary-diagnosis and present-on-admission rules on; and without
+//! history (the plain scorer over typed rows, `pipeline::plain`), wide and
+//! long, with present on admission, the primary diagnosis, an edition,
+//! `--strict` and ages, through every output (CSV and Parquet).
 //!
 //! The text path is the reference (checked against hand-worked histories
 //! in tests/history.rs and tests/properties.rs); this test proves that the
@@ -28,12 +31,14 @@ use arrow_array::{
 };
 use morbus::compare::{self, CompareOptions};
 use morbus::frame::{self, Columns, Explained, Field, Kind, ScoreColumn};
-use morbus::io::parquet::{ParquetRows, ParquetText, Source};
+use morbus::io::parquet::{
+    score_plain, JoinedText, OutputColumns, ParquetRows, ParquetSink, Source, TypedOutput,
+};
 use morbus::lists::Catalogue;
 use morbus::pipeline::explain::ExplainFormat;
 use morbus::pipeline::history::Input;
 use morbus::pipeline::{
-    explain_stream, score_stream, Header, Layout, ScoreConfig, Summary, WindowScope,
+    explain_stream, score_stream, Edition, Header, Layout, ScoreConfig, Summary, WindowScope,
 };
 use morbus::score::{Engine, IndexSpec, ScoreOptions};
 use morbus::Error;
@@ -88,6 +93,11 @@ impl Columns for Table {
 }
 
 impl Table {
+    /// Whether any column is not text.
+    fn typed(&self) -> bool {
+        self.cols.iter().any(|c| !matches!(c, Col::Text(_)))
+    }
+
     fn header(&self) -> Header {
         Header {
             names: self.names.clone(),
@@ -219,7 +229,6 @@ const NUM_AGES: &[Option<f64>] = &[
     Some(150.0),
     Some(67.0),
     Some(45.0),
-    // Last: left out of the wide extract.
     Some(f64::NAN),
 ];
 
@@ -260,10 +269,9 @@ fn wide(typed: bool) -> Table {
             }
             let a = r.pick(TEXT_AGES);
             age_text.push((!a.is_empty()).then(|| a.to_string()));
-            // No NaN here: the wide layout's Parquet route still reads
-            // text (its output copies the rows), where a NaN is the text
-            // "NaN", an unreadable age; typed sources read it as missing.
-            age_num.push(NUM_AGES[r.below(NUM_AGES.len() as u64 - 1) as usize]);
+            // NaN too: every source reads it as missing (the CSV of the
+            // typed table writes it empty).
+            age_num.push(NUM_AGES[r.below(NUM_AGES.len() as u64) as usize]);
             for k in 0..4 {
                 let c = if k > 0 && r.below(3) == 0 {
                     ""
@@ -545,23 +553,29 @@ fn check_scores(engine: &Engine, t: &Table, pq: &Path, what: &str, cfg: &ScoreCo
     let names: Vec<&str> = engine.columns().iter().map(|c| c.name.as_str()).collect();
     assert_eq!(head, names, "{what}");
 
-    // Parquet, as the command line reads it for a CSV output: typed rows
-    // for the long layout, text for the wide one (whose output copies the
-    // rows).
+    // Parquet, as the command line reads it for a CSV output: typed rows;
+    // in the wide layout the run writes the scores only and the input's
+    // rows are formatted in front of them from the file's record batches.
     let mut pq_out = Vec::new();
     let pq_summary = match cfg.layout {
         Layout::Long => score_stream(engine, cfg, typed_rows(pq), &mut pq_out),
-        Layout::Wide => score_stream(
-            engine,
-            cfg,
-            ParquetText::open(pq, b',', None).unwrap(),
-            &mut pq_out,
-        ),
+        Layout::Wide => {
+            let mut joined =
+                JoinedText::new(&mut pq_out, Source::File(pq.to_path_buf()), b',').unwrap();
+            let s = score_stream(engine, cfg, typed_rows(pq), &mut joined);
+            joined.finish().unwrap();
+            s
+        }
     }
     .unwrap();
     let (_, pq_rows) = score_cells(&pq_out, n);
     assert_eq!(pq_rows, text_rows, "{what}: Parquet scores");
     assert_eq!(pq_summary, text_summary, "{what}: Parquet summary");
+    if cfg.layout == Layout::Wide && !t.typed() {
+        // Every column text: the values print the same, so the whole
+        // output is the text run's, byte for byte.
+        assert!(pq_out == text_out, "{what}: Parquet to CSV differs");
+    }
     if cfg.layout == Layout::Long {
         // The units and their ids, in the same order.
         let ids = |out: &[u8]| -> Vec<Vec<String>> {
@@ -1077,4 +1091,430 @@ fn outcome_errors_name_the_same_row_in_every_source() {
             ),
         );
     }
+}
+
+/// Runs without history: the plain scorer over typed rows, by name.
+fn plain_configs(layout: Layout) -> Vec<(&'static str, ScoreConfig)> {
+    let long = layout == Layout::Long;
+    let base = ScoreConfig {
+        layout,
+        id: long.then(|| "patient".into()),
+        age: Some("age".into()),
+        exclude_primary: true,
+        primary: long.then(|| "primary".into()),
+        poa: Some(if long { "poa".into() } else { "poa*".into() }),
+        dx: vec![if long { "code".into() } else { "dx*".into() }],
+        ..ScoreConfig::default()
+    };
+    vec![
+        (
+            "plain, present on admission, primary left out",
+            base.clone(),
+        ),
+        (
+            "plain, WHO edition, no exclusions",
+            ScoreConfig {
+                edition: Edition::Who,
+                exclude_primary: false,
+                primary: None,
+                poa: None,
+                ..base.clone()
+            },
+        ),
+        (
+            "plain, ICD-10-CM edition, primary left out, no indicators",
+            ScoreConfig {
+                edition: Edition::Cm,
+                poa: None,
+                ..base
+            },
+        ),
+    ]
+}
+
+/// Scores a Parquet file without history to CSV text.
+fn plain_csv(engine: &Engine, cfg: &ScoreConfig, pq: &Path) -> Result<(Vec<u8>, Summary), Error> {
+    let mut out = Vec::new();
+    let s = score_plain(
+        engine,
+        cfg,
+        Source::File(pq.to_path_buf()),
+        "in.parquet",
+        TypedOutput::Text {
+            out: &mut out,
+            delimiter: b',',
+        },
+        &mut |_| {},
+    )?;
+    Ok((out, s))
+}
+
+/// Scores a Parquet file without history to a Parquet file, and reads it
+/// back.
+fn plain_parquet(engine: &Engine, cfg: &ScoreConfig, pq: &Path, out: &Path) -> RecordBatch {
+    let file = File::create(out).unwrap();
+    let mut sink = ParquetSink::new(Box::new(file), b',', OutputColumns::default(), None);
+    score_plain(
+        engine,
+        cfg,
+        Source::File(pq.to_path_buf()),
+        "in.parquet",
+        TypedOutput::Parquet(&mut sink),
+        &mut |_| {},
+    )
+    .unwrap();
+    sink.finish().unwrap();
+    read_parquet(out)
+}
+
+fn read_parquet(path: &Path) -> RecordBatch {
+    let reader = parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder::try_new(
+        File::open(path).unwrap(),
+    )
+    .unwrap()
+    .build()
+    .unwrap();
+    let batches: Vec<RecordBatch> = reader.map(|b| b.unwrap()).collect();
+    arrow_select::concat::concat_batches(&batches[0].schema(), &batches).unwrap()
+}
+
+/// A score column of a Parquet output as the CSV writes it (floating-point
+/// scores compared with 4 decimals).
+fn parquet_cells(batch: &RecordBatch, from: usize) -> Vec<Vec<String>> {
+    use arrow_array::cast::AsArray;
+    use arrow_array::types::{Float64Type, Int64Type, Int8Type};
+    use arrow_array::Array;
+    use arrow_schema::DataType;
+    (0..batch.num_rows())
+        .map(|r| {
+            batch.columns()[from..]
+                .iter()
+                .map(|a| {
+                    if a.is_null(r) {
+                        return String::new();
+                    }
+                    match a.data_type() {
+                        DataType::Int64 => a.as_primitive::<Int64Type>().value(r).to_string(),
+                        DataType::Int8 => a.as_primitive::<Int8Type>().value(r).to_string(),
+                        DataType::Float64 => {
+                            format!("{:.4}", a.as_primitive::<Float64Type>().value(r))
+                        }
+                        DataType::Utf8 => a.as_string::<i32>().value(r).to_string(),
+                        t => panic!("score column of type {t}"),
+                    }
+                })
+                .collect()
+        })
+        .collect()
+}
+
+/// Text score cells with the floating-point ones to 4 decimals.
+fn four_decimals(rows: &[Vec<String>]) -> Vec<Vec<String>> {
+    rows.iter()
+        .map(|r| {
+            r.iter()
+                .map(|v| match v.split_once('.') {
+                    Some(_) => format!("{:.4}", v.parse::<f64>().unwrap()),
+                    None => v.clone(),
+                })
+                .collect()
+        })
+        .collect()
+}
+
+/// Scores, units and summary of a run without history agree through the
+/// text reader, a frame, and a Parquet file to CSV and to Parquet.
+fn check_plain(engine: &Engine, t: &Table, pq: &Path, what: &str, cfg: &ScoreConfig) {
+    let n = engine.columns().len();
+    let mut text_out = Vec::new();
+    let text_summary = score_stream(engine, cfg, &t.csv()[..], &mut text_out).unwrap();
+    let (head, text_rows) = score_cells(&text_out, n);
+    assert!(text_rows.len() > 40, "{what}");
+
+    // Parquet to CSV.
+    let (pq_out, pq_summary) = plain_csv(engine, cfg, pq).unwrap();
+    assert_eq!(pq_summary, text_summary, "{what}: Parquet summary");
+    let (pq_head, pq_rows) = score_cells(&pq_out, n);
+    assert_eq!(
+        (&pq_head, &pq_rows),
+        (&head, &text_rows),
+        "{what}: Parquet to CSV"
+    );
+    if !t.typed() {
+        assert!(
+            pq_out == text_out,
+            "{what}: Parquet to CSV differs from CSV to CSV"
+        );
+    } else if cfg.layout == Layout::Wide {
+        // Typed columns print in their own form; the rows line up.
+        assert_eq!(records(&pq_out).len(), records(&text_out).len(), "{what}");
+    }
+    let text_ids: Vec<String> = records(&text_out)[1..]
+        .iter()
+        .map(|r| r[0].clone())
+        .collect();
+    if cfg.layout == Layout::Long {
+        let pq_ids: Vec<String> = records(&pq_out)[1..].iter().map(|r| r[0].clone()).collect();
+        assert_eq!(pq_ids, text_ids, "{what}: Parquet units");
+    }
+
+    // Parquet to Parquet: the input's columns with their types, the scores
+    // typed.
+    let out = pq.with_extension(format!("out-{}.parquet", what.len()));
+    let back = plain_parquet(engine, cfg, pq, &out);
+    let input = read_parquet(pq);
+    let kept = match cfg.layout {
+        Layout::Wide => input.num_columns(),
+        Layout::Long => 1,
+    };
+    assert_eq!(back.num_columns(), kept + n, "{what}");
+    let names: Vec<String> = back
+        .schema()
+        .fields()
+        .iter()
+        .map(|f| f.name().clone())
+        .collect();
+    assert_eq!(names[kept..], head[..], "{what}: Parquet output names");
+    match cfg.layout {
+        Layout::Wide => {
+            for k in 0..kept {
+                assert_eq!(back.schema().field(k), input.schema().field(k), "{what}");
+                assert_eq!(back.column(k), input.column(k), "{what}: column {k} copied");
+            }
+        }
+        Layout::Long => {
+            assert_eq!(
+                back.schema().field(0).data_type(),
+                input.schema().field(0).data_type(),
+                "{what}: id type kept"
+            );
+            let shown = arrow_cast::display::ArrayFormatter::try_new(
+                back.column(0).as_ref(),
+                &arrow_cast::display::FormatOptions::default(),
+            )
+            .unwrap();
+            let ids: Vec<String> = (0..back.num_rows())
+                .map(|r| shown.value(r).to_string())
+                .collect();
+            let pq_ids: Vec<String> = records(&pq_out)[1..].iter().map(|r| r[0].clone()).collect();
+            assert_eq!(ids, pq_ids, "{what}: Parquet output units");
+        }
+    }
+    assert_eq!(
+        parquet_cells(&back, kept),
+        four_decimals(&text_rows),
+        "{what}: Parquet output scores"
+    );
+    std::fs::remove_file(&out).unwrap();
+
+    // The frame.
+    let scored = frame::score(engine, cfg, &t.header(), t, 1).unwrap();
+    assert_eq!(
+        frame_cells(&scored.columns, text_rows.len()),
+        same_decimals(&text_rows, &scored.columns),
+        "{what}: frame scores"
+    );
+    assert_eq!(scored.summary, text_summary, "{what}: frame summary");
+    if let Some(first) = &scored.first_rows {
+        let frame_ids: Vec<String> = first
+            .iter()
+            .map(|&row| match t.field(0, row as usize) {
+                Field::Text(b) => String::from_utf8(b.to_vec()).unwrap(),
+                Field::Integer(i) => i.to_string(),
+                other => panic!("id {other:?}"),
+            })
+            .collect();
+        assert_eq!(frame_ids, text_ids, "{what}: frame units");
+    }
+    // Not a vacuous comparison.
+    let s = &text_summary;
+    assert!(s.invalid_codes > 0, "{what}: {s:?}");
+    assert!(s.missing_ages + s.unreadable_ages > 0, "{what}");
+    if cfg.poa.is_some() {
+        assert!(
+            s.excluded_not_on_admission > 0 && s.unrecognised_poa > 0,
+            "{what}"
+        );
+    }
+    if cfg.exclude_primary {
+        assert!(s.excluded_primary > 0, "{what}");
+    }
+    if cfg.edition != Edition::Any {
+        assert!(s.unknown_codes + s.extended_codes > 0, "{what}: {s:?}");
+    }
+}
+
+#[test]
+fn plain_runs_read_alike_from_text_frames_and_parquet_to_every_output() {
+    let engine = engine();
+    for layout in [Layout::Wide, Layout::Long] {
+        for typed in [false, true] {
+            let t = match layout {
+                Layout::Wide => wide(typed),
+                Layout::Long => long(typed),
+            };
+            let stem = format!("plain-{layout:?}-{typed}");
+            let pq = parquet_file(&t, &stem);
+            for (name, cfg) in plain_configs(layout) {
+                let what = format!("{layout:?}, typed {typed}, {name}");
+                check_plain(&engine, &t, &pq.path, &what, &cfg);
+            }
+        }
+    }
+}
+
+/// Without history too, --strict stops every source at the same row, and
+/// a Parquet input is named with it.
+#[test]
+fn plain_strict_stops_name_the_same_row_in_every_source() {
+    let engine = engine();
+    for layout in [Layout::Wide, Layout::Long] {
+        let t = match layout {
+            Layout::Wide => wide(false),
+            Layout::Long => long(false),
+        };
+        let pq = parquet_file(&t, &format!("plain-strict-{layout:?}"));
+        for (name, base) in plain_configs(layout) {
+            let cfg = ScoreConfig {
+                strict: true,
+                ..base
+            };
+            let text = score_stream(&engine, &cfg, &t.csv()[..], &mut Vec::new()).unwrap_err();
+            let Error::Strict {
+                line: Some(line),
+                message,
+            } = text
+            else {
+                panic!("{name}: {text:?}")
+            };
+            let row = line - 1;
+            let framed = frame::score(&engine, &cfg, &t.header(), &t, 1).unwrap_err();
+            assert_eq!(
+                framed.to_string(),
+                format!("row {row}: {message} (--strict)")
+            );
+            let parquet = plain_csv(&engine, &cfg, &pq.path).unwrap_err();
+            assert_eq!(
+                parquet.to_string(),
+                format!("row {row} of in.parquet: {message} (--strict)"),
+                "{name}"
+            );
+        }
+    }
+}
+
+/// A Parquet output of a plain run keeps the input's columns as they are:
+/// integers, true/false, dates, timestamps with a time zone, and nulls in
+/// each; the score columns are typed.
+#[test]
+fn plain_parquet_output_keeps_every_input_type() {
+    use arrow_array::TimestampMicrosecondArray;
+    let dir = std::env::temp_dir().join(format!("morbus-row-sources-types-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let _guard = TempDir(dir.clone());
+    let ts = TimestampMicrosecondArray::from(vec![
+        Some(1_700_000_000_000_000),
+        None,
+        Some(-86_400_000_000),
+        Some(0),
+    ])
+    .with_timezone("Europe/Paris");
+    let columns: Vec<(&str, ArrayRef)> = vec![
+        (
+            "id",
+            Arc::new(Int64Array::from(vec![Some(1), None, Some(3), Some(-4)])),
+        ),
+        (
+            "flag",
+            Arc::new(BooleanArray::from(vec![
+                Some(true),
+                Some(false),
+                None,
+                Some(true),
+            ])),
+        ),
+        (
+            "day",
+            Arc::new(Date32Array::from(vec![
+                Some(19_000),
+                None,
+                Some(-1),
+                Some(0),
+            ])),
+        ),
+        ("stamp", Arc::new(ts)),
+        (
+            "age",
+            Arc::new(Float64Array::from(vec![
+                Some(80.5),
+                None,
+                Some(f64::NAN),
+                Some(7.0),
+            ])),
+        ),
+        (
+            "dx1",
+            Arc::new(StringArray::from(vec![
+                Some("I21.9"),
+                Some("R41.0"),
+                None,
+                Some("??"),
+            ])),
+        ),
+        (
+            "dx2",
+            Arc::new(StringArray::from(vec![
+                Some("C78.0"),
+                Some(""),
+                Some("F00.1"),
+                None,
+            ])),
+        ),
+    ];
+    let input = RecordBatch::try_from_iter(columns).unwrap();
+    let pq = dir.join("types.parquet");
+    let mut w = ArrowWriter::try_new(File::create(&pq).unwrap(), input.schema(), None).unwrap();
+    w.write(&input).unwrap();
+    w.close().unwrap();
+    let engine = engine();
+    let cfg = ScoreConfig {
+        dx: vec!["dx*".into()],
+        age: Some("age".into()),
+        ..ScoreConfig::default()
+    };
+    let back = plain_parquet(&engine, &cfg, &pq, &dir.join("out.parquet"));
+    let k = input.num_columns();
+    assert_eq!(back.schema().fields()[..k], input.schema().fields()[..]);
+    for c in 0..k {
+        assert_eq!(back.column(c), input.column(c), "column {c}");
+    }
+    use arrow_schema::DataType;
+    let types: Vec<DataType> = back.schema().fields()[k..]
+        .iter()
+        .map(|f| f.data_type().clone())
+        .collect();
+    // Charlson and its age variant (whole numbers), Elixhauser (whole), the
+    // frailty score (one decimal) and its band.
+    assert_eq!(
+        types,
+        [
+            DataType::Int64,
+            DataType::Int64,
+            DataType::Int64,
+            DataType::Float64,
+            DataType::Utf8
+        ]
+    );
+    // Row 2's age is missing: its Charlson with age is null; row 3's NaN
+    // counts as missing too.
+    let with_age = back.column(k + 1);
+    assert!(!with_age.is_null(0) && with_age.is_null(1) && with_age.is_null(2));
+    // The CSV of the same run: the same number of rows, every input value
+    // formatted (the timestamp in its zone's own form).
+    let (text, summary) = plain_csv(&engine, &cfg, &pq).unwrap();
+    assert_eq!(records(&text).len(), 5);
+    assert_eq!(summary.missing_ages, 2);
+    assert_eq!(summary.invalid_codes, 1);
+    let stamp = &records(&text)[1][3];
+    assert!(stamp.starts_with("2023-11-14T23:13:20+01:00"), "{stamp}");
 }

@@ -901,13 +901,10 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         )?;
         let show = !a.input.quiet && std::io::stderr().is_terminal();
         let mut bar = progress::ProgressLine::new(input.size).with_rows(input.rows);
-        // A wide Parquet output of a Parquet input copies the input's own
-        // columns from the file: the pipeline only adds the scores.
-        let copied = parquet_out && input.is_parquet();
-        let rows = if pipeline::reads_rows_typed(&cfg, copied) {
-            input.take_input()?
-        } else {
-            input.take_reader().into()
+        let mut on_progress = |p| {
+            if show {
+                bar.update(p)
+            }
         };
         // The input's size lets a history that will not fit go to
         // partitions early (a hint; the output is the same without it).
@@ -915,16 +912,48 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
             input_size: input.size,
             ..cfg.clone()
         };
-        let result =
-            pipeline::score_stream_observed(&engine, &cfg, rows, &mut output.writer, &mut |p| {
-                if show {
-                    bar.update(p)
+        // A Parquet input without history is scored typed from its record
+        // batches to a typed output.
+        let result = match input.score_plain(&engine, &cfg, &mut output, &mut on_progress) {
+            Some(r) => r,
+            None => {
+                // A history run reads a Parquet input's typed rows too. In
+                // the wide layout it writes the scores only: a Parquet
+                // output copies the input's own columns from the file, a
+                // text output formats them in front of the scores.
+                let rows = input.take_input()?;
+                #[allow(unused_labels)]
+                'run: {
+                    #[cfg(feature = "parquet")]
+                    if cfg.layout == Layout::Wide && !parquet_out {
+                        if let Some(joined) = input.joined_text(&mut output.writer, cfg.delimiter) {
+                            break 'run joined.and_then(|mut joined| {
+                                let s = pipeline::score_stream_observed(
+                                    &engine,
+                                    &cfg,
+                                    rows,
+                                    &mut joined,
+                                    &mut on_progress,
+                                )?;
+                                joined.finish()?;
+                                Ok(s)
+                            });
+                        }
+                    }
+                    pipeline::score_stream_observed(
+                        &engine,
+                        &cfg,
+                        rows,
+                        &mut output.writer,
+                        &mut on_progress,
+                    )
                 }
-            });
+            }
+        };
         if show {
             bar.finish();
         }
-        let summary = result.map_err(|e| input.translate(e))?;
+        let summary = result?;
         output.finish()?;
         Ok(summary)
     };
@@ -987,8 +1016,7 @@ fn explain(a: ExplainArgs) -> Result<(), Error> {
         format,
         input.take_input()?,
         &mut output.writer,
-    )
-    .map_err(|e| input.translate(e))?;
+    )?;
     output.finish()?;
     if !a.input.quiet {
         say!("{}", summary.report());
@@ -1079,8 +1107,7 @@ fn compare(a: CompareArgs) -> Result<(), Error> {
     let mut input = open_extract("compare", &a.input, &cfg, true, &wanted)?;
     // A Parquet input's rows are read typed (rows named `row N of FILE`).
     let rows = input.take_input()?;
-    let (result, summary) =
-        morbus::compare::compare(&engine, &cfg, &opts, rows).map_err(|e| input.translate(e))?;
+    let (result, summary) = morbus::compare::compare(&engine, &cfg, &opts, rows)?;
     if let Some(file) = json_file {
         let text = morbus::compare::json_text(&result)?;
         file.write_and_commit((text + "\n").as_bytes())?;

@@ -2,17 +2,16 @@
 //! goes with it: what the front ends call instead of choosing between text
 //! and Parquet themselves.
 //!
-//! - [`Extract::open`] gives the pipelines delimited text: the file's bytes
-//!   (plain or gzip), or a Parquet file's rows as text (feature `parquet`;
-//!   only the columns the run reads when the output does not carry the
-//!   others).
+//! - [`Extract::open`] opens the input: a delimited file's bytes (plain or
+//!   gzip), or a Parquet file's [`parquet::Source`] (feature `parquet`),
+//!   whose rows are only ever read typed: no text is made of them.
 //! - [`Extract::open_output`] gives a text output, or a Parquet one typed
-//!   for the table written ([`Table`]); a wide Parquet output of a Parquet
-//!   input copies the input's own columns from it.
-//! - [`Extract::take_input`] gives a run that reads through the history
-//!   reader without copying rows a Parquet input's typed rows instead.
-//! - [`Extract::translate`] turns the pipeline's line numbers into rows for
-//!   a Parquet input.
+//!   for the table written ([`Table`]).
+//! - [`Extract::score_plain`] scores a Parquet input without history from
+//!   its record batches to a typed output; [`Extract::take_input`] gives
+//!   the history reader a Parquet input's typed rows (or the text);
+//!   [`Extract::joined_text`] is the text output of a wide history run over
+//!   them.
 
 use std::io::Read;
 use std::path::Path;
@@ -24,13 +23,11 @@ use crate::score::Engine;
 use crate::Error;
 
 #[cfg(feature = "parquet")]
-use super::parquet::{self, RowLines, Source};
+use super::parquet::{self, Source};
 #[cfg(feature = "parquet")]
 use crate::pipeline::Layout;
 #[cfg(feature = "parquet")]
 use arrow_schema::SchemaRef;
-#[cfg(feature = "parquet")]
-use std::sync::{Arc, Mutex};
 
 /// The table a run writes.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -46,7 +43,6 @@ pub enum Table {
 struct ParquetInput {
     source: Source,
     schema: SchemaRef,
-    lines: Arc<Mutex<RowLines>>,
     columns: Option<Vec<usize>>,
 }
 
@@ -60,7 +56,7 @@ pub struct Extract {
     /// The input as named in messages.
     pub name: String,
     /// A Parquet input: where it is, its columns (the footer is read once
-    /// here), the map of its text's lines to rows, and the columns read.
+    /// here) and the columns read.
     #[cfg(feature = "parquet")]
     parquet: Option<ParquetInput>,
 }
@@ -85,22 +81,16 @@ impl Extract {
             } else {
                 None
             };
-            let text = parquet::ParquetText::from_source(
-                source.clone(),
-                cfg.delimiter,
-                columns.as_deref(),
-            )?;
-            let lines = text.row_lines();
-            let rows = Some(text.total_rows);
+            // The footer's row count, for a progress display.
+            let rows = Some(source.total_rows()?);
             return Ok(Extract {
-                reader: Box::new(text),
+                reader: Box::new(std::io::empty()),
                 size: None,
                 rows,
                 name: input.name,
                 parquet: Some(ParquetInput {
                     source,
                     schema,
-                    lines,
                     columns,
                 }),
             });
@@ -116,15 +106,40 @@ impl Extract {
         })
     }
 
-    /// The text for the pipeline (once; later calls give nothing).
-    pub fn take_reader(&mut self) -> Box<dyn Read + Send> {
-        std::mem::replace(&mut self.reader, Box::new(std::io::empty()))
+    /// Scores a Parquet input without history, typed from its record
+    /// batches to `output` (see [`parquet::score_plain`]): `None` for any
+    /// other input or run.
+    pub fn score_plain(
+        &mut self,
+        engine: &Engine,
+        cfg: &ScoreConfig,
+        output: &mut Output,
+        progress: &mut dyn FnMut(crate::pipeline::Progress),
+    ) -> Option<Result<crate::pipeline::Summary, Error>> {
+        #[cfg(feature = "parquet")]
+        if let Some(p) = self.parquet.as_ref() {
+            if crate::pipeline::reads_history(cfg) {
+                return None;
+            }
+            let out = match output.typed(cfg.delimiter) {
+                Ok(o) => o,
+                Err(e) => return Some(Err(e)),
+            };
+            return Some(parquet::score_plain(
+                engine,
+                cfg,
+                p.source.clone(),
+                &self.name,
+                out,
+                progress,
+            ));
+        }
+        let _ = (engine, cfg, output, progress);
+        None
     }
 
     /// The input for a run that reads it through the history reader
-    /// without copying its rows as text (`explain`, history runs of the long
-    /// layout or with a Parquet output; see
-    /// [`crate::pipeline::reads_rows_typed`]): a
+    /// (`explain`, `score` with a history): a
     /// Parquet input's typed rows ([`parquet::ParquetRows`]: no text is made
     /// of them), or the text (once; later calls give nothing).
     pub fn take_input(&mut self) -> Result<Input<'static>, Error> {
@@ -138,7 +153,25 @@ impl Extract {
             self.reader = Box::new(std::io::empty());
             return Ok(Input::Rows(Box::new(rows)));
         }
-        Ok(Input::Text(self.take_reader()))
+        Ok(Input::Text(std::mem::replace(
+            &mut self.reader,
+            Box::new(std::io::empty()),
+        )))
+    }
+
+    /// For a history run in the wide layout over a Parquet input's typed
+    /// rows with a text output: the writer that puts each input row,
+    /// formatted from the file's record batches, in front of its scores
+    /// ([`parquet::JoinedText`]); `None` for other inputs.
+    #[cfg(feature = "parquet")]
+    pub fn joined_text<'o>(
+        &self,
+        out: &'o mut dyn std::io::Write,
+        delimiter: u8,
+    ) -> Option<Result<parquet::JoinedText<'o>, Error>> {
+        self.parquet
+            .as_ref()
+            .map(|p| parquet::JoinedText::new(out, p.source.clone(), delimiter))
     }
 
     /// Whether the input is a Parquet file.
@@ -147,19 +180,6 @@ impl Extract {
         return self.parquet.is_some();
         #[cfg(not(feature = "parquet"))]
         false
-    }
-
-    /// An error of the run, with rows instead of lines for a Parquet input.
-    pub fn translate(&self, e: Error) -> Error {
-        #[cfg(feature = "parquet")]
-        if let Some(p) = &self.parquet {
-            return p
-                .lines
-                .lock()
-                .expect("row map lock")
-                .translate(e, &self.name);
-        }
-        e
     }
 
     /// The output of a run writing `table` to `path` (`-` or `None`:
@@ -188,8 +208,11 @@ impl Extract {
     ) -> Result<Output, Error> {
         let input = self.parquet.as_ref();
         let schema = input.map(|p| p.schema.as_ref());
-        // A wide score's rows are the input's rows: its columns are copied.
-        let copies = table == Table::Scores && cfg.layout == Layout::Wide;
+        // A wide score's rows are the input's rows: its columns are copied,
+        // by the run itself when it is typed from end to end (no history),
+        // else by the sink from the input file.
+        let typed = input.is_some() && !crate::pipeline::reads_history(cfg);
+        let copies = table == Table::Scores && cfg.layout == Layout::Wide && !typed;
         let copied = input.filter(|_| copies).map(|p| p.source.clone());
         let columns = match table {
             Table::Scores => {

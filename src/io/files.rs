@@ -18,7 +18,7 @@ pub struct Input {
     pub compressed: bool,
     pub name: String,
     /// A Parquet input (recognised by its magic bytes): read it through
-    /// [`crate::io::parquet::ParquetText`]; `reader` is then empty.
+    /// [`crate::io::parquet::ParquetRows`]; `reader` is then empty.
     #[cfg(feature = "parquet")]
     pub parquet: Option<crate::io::parquet::Source>,
 }
@@ -201,6 +201,21 @@ impl Write for Writer {
 }
 
 impl Output {
+    /// The output as a typed run writes it: text with `delimiter`, or
+    /// Parquet batches.
+    #[cfg(feature = "parquet")]
+    pub fn typed(&mut self, delimiter: u8) -> Result<crate::io::parquet::TypedOutput<'_>, Error> {
+        use crate::io::parquet::TypedOutput;
+        Ok(match &mut self.writer {
+            Writer::Text(w) => TypedOutput::Text {
+                out: w.as_mut(),
+                delimiter,
+            },
+            Writer::Gzip(w) => TypedOutput::Text { out: w, delimiter },
+            Writer::Parquet(sink) => TypedOutput::Parquet(sink.as_mut()),
+        })
+    }
+
     /// Flushes a text output, writes a gzip output's trailer, writes the
     /// rest and the footer of a Parquet output; then renames a file output
     /// into place (until then an existing file of its name is untouched).

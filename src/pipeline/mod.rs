@@ -16,6 +16,7 @@ pub mod history;
 mod ids;
 mod parallel;
 mod partition;
+pub mod plain;
 pub mod rows_store;
 mod stream;
 
@@ -30,6 +31,8 @@ use crate::score::Engine;
 use crate::Error;
 pub use dates::DateFormat;
 pub use explain::explain_stream;
+#[cfg(feature = "parquet")]
+pub(crate) use parallel::run_batches as run_typed_batches;
 
 /// How the extract is laid out.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -1643,15 +1646,6 @@ pub fn score_stream_observed<'a>(
 /// kept columns) rather than streaming it.
 pub fn reads_history(cfg: &ScoreConfig) -> bool {
     cfg.uses_history() || cfg.episode.is_some() || !cfg.keep.is_empty()
-}
-
-/// Whether `score` can read the extract as typed rows (a Parquet input's
-/// record batches): a history run whose output does not copy the input's
-/// rows as text: the long layout, or (`copied_elsewhere`) a wide output
-/// whose input columns are copied by the output itself (a Parquet output
-/// of a Parquet input). Other runs read text.
-pub fn reads_rows_typed(cfg: &ScoreConfig, copied_elsewhere: bool) -> bool {
-    reads_history(cfg) && (cfg.layout == Layout::Long || copied_elsewhere)
 }
 
 #[cfg(test)]
