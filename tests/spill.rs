@@ -875,6 +875,7 @@ fn explain_on_the_command_line_spills_and_cleans_up() {
     let said = "the history was over half of --memory and went to temporary files";
     for (name, text, opts) in cases {
         let csv_in = dir.write(&format!("{name}.csv"), text);
+        #[cfg_attr(not(feature = "parquet"), allow(unused_mut))]
         let mut inputs = vec![csv_in.clone()];
         #[cfg(feature = "parquet")]
         {
