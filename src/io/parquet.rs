@@ -840,19 +840,23 @@ impl Drop for ParquetSink {
     }
 }
 
+/// A `Write` of `n` bytes by a sink that stops at its first failure: the
+/// failure's message is kept in `failed` (every later write returns it).
+fn latch(failed: &mut Option<String>, r: Result<(), Error>, n: usize) -> io::Result<usize> {
+    r.map(|()| n).map_err(|e| {
+        let m = e.to_string();
+        *failed = Some(m.clone());
+        io::Error::other(m)
+    })
+}
+
 impl Write for ParquetSink {
     fn write(&mut self, buf: &[u8]) -> io::Result<usize> {
         if let Some(m) = &self.failed {
             return Err(io::Error::other(m.clone()));
         }
-        match self.feed(buf) {
-            Ok(()) => Ok(buf.len()),
-            Err(e) => {
-                let m = e.to_string();
-                self.failed = Some(m.clone());
-                Err(io::Error::other(m))
-            }
-        }
+        let fed = self.feed(buf);
+        latch(&mut self.failed, fed, buf.len())
     }
     fn flush(&mut self) -> io::Result<()> {
         Ok(())
@@ -1881,14 +1885,8 @@ impl Write for JoinedText<'_> {
             return Err(io::Error::other(m.clone()));
         }
         self.pending.extend_from_slice(buf);
-        match self.lines() {
-            Ok(()) => Ok(buf.len()),
-            Err(e) => {
-                let m = e.to_string();
-                self.failed = Some(m.clone());
-                Err(io::Error::other(m))
-            }
-        }
+        let cut = self.lines();
+        latch(&mut self.failed, cut, buf.len())
     }
     fn flush(&mut self) -> io::Result<()> {
         Ok(())
