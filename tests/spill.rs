@@ -150,13 +150,18 @@ fn long_history(rows: usize, seed: u64, clean: bool) -> String {
 /// What a run gave: its output, and its summary or message.
 type Ran = (Vec<u8>, Result<Summary, String>);
 
+/// A failed run's exit code and message.
+fn stopped(e: &morbus::Error) -> String {
+    format!("exit {}: {e}", e.exit_code())
+}
+
 /// Scores `cfg` over `input` with the history in memory and spilled (a few
 /// limits, one and two threads): the same output and summary.
 fn same_spilled(engine: &Engine, cfg: &ScoreConfig, input: &str, what: &str) {
     same_spilled_by(cfg, input.len(), what, &|cfg: &ScoreConfig| {
         let mut out = Vec::new();
         let s = score_stream(engine, cfg, input.as_bytes(), &mut out);
-        (out, s.map_err(|e| e.to_string()))
+        (out, s.map_err(|e| stopped(&e)))
     });
 }
 
@@ -171,7 +176,7 @@ fn same_explained(engine: &Engine, cfg: &ScoreConfig, input: &str, what: &str) {
             &|cfg| {
                 let mut out = Vec::new();
                 let s = explain_stream(engine, cfg, format, input.as_bytes(), &mut out);
-                (out, s.map_err(|e| e.to_string()))
+                (out, s.map_err(|e| stopped(&e)))
             },
         );
     }
@@ -1003,4 +1008,323 @@ fn a_spilled_explain_stops_at_the_same_line_and_leaves_no_file() {
         assert!(!std::path::Path::new(&dir.join("out.csv")).exists());
         assert!(!std::path::Path::new(&dir.join("out.jsonl")).exists());
     }
+}
+
+/// What goes wrong on a row of [`strict_extract`].
+#[derive(Clone, Copy, Debug)]
+enum Problem {
+    /// The long layout's row repeats the episode of 50 rows before (its id
+    /// and stay) with another date (a disagreement: --strict stops, exit 3).
+    OtherDate,
+    /// The same, with another age.
+    OtherAge,
+    /// The same, with another ward (a kept value, `--keep` / `--label`).
+    OtherWard,
+    /// A field too many: exit 1.
+    TooWide,
+    /// An unreadable date: --strict stops, exit 3.
+    UnreadableDate,
+    /// A code of no edition: --strict stops, exit 3.
+    UnknownCode,
+    /// An empty id: --strict stops, exit 3.
+    NoId,
+}
+
+/// An invented extract of `rows` data rows, each an episode of its own (so
+/// that nothing disagrees and nothing is wrong), except `problems` on the
+/// given 0-based data rows (data row `i` is on line `i + 2`). Long: one code
+/// a row, a stay, an age and a ward; wide: two codes a row.
+fn strict_extract(long: bool, rows: usize, problems: &[(usize, Problem)]) -> String {
+    let codes = ["I21.0", "I50.0", "E11.9", "C34.1", "F03", "J44.9", "N18.5"];
+    let row = |i: usize| {
+        (
+            format!("p{}", i % 97),
+            format!("s{i}"),
+            format!("2024-{:02}-{:02}", 1 + i % 12, 1 + i % 28),
+            (40 + i % 30).to_string(),
+            format!("w{}", i % 3),
+            codes[i % codes.len()].to_string(),
+        )
+    };
+    let mut out = String::from(if long {
+        "pid,stay,date,age,ward,primary,poa,dx\n"
+    } else {
+        "pid,date,dx1,dx2\n"
+    });
+    for i in 0..rows {
+        let (mut pid, mut stay, mut date, mut age, mut ward, mut code) = row(i);
+        let mut extra = "";
+        if let Some(&(_, p)) = problems.iter().find(|p| p.0 == i) {
+            let earlier = || {
+                assert!(long && i >= 50, "{p:?} on row {i}");
+                row(i - 50)
+            };
+            match p {
+                Problem::OtherDate => {
+                    (pid, stay, _, age, ward, _) = earlier();
+                    date = "2001-01-01".into();
+                }
+                Problem::OtherAge => {
+                    (pid, stay, date, _, ward, _) = earlier();
+                    age = "99".into();
+                }
+                Problem::OtherWard => {
+                    (pid, stay, date, age, _, _) = earlier();
+                    ward = "elsewhere".into();
+                }
+                Problem::TooWide => extra = ",extra",
+                Problem::UnreadableDate => date = "sometime".into(),
+                Problem::UnknownCode => code = "XYZ".into(),
+                Problem::NoId => pid.clear(),
+            }
+        }
+        if long {
+            out.push_str(&format!(
+                "{pid},{stay},{date},{age},{ward},0,Y,{code}{extra}\n"
+            ));
+        } else {
+            let other = codes[(i + 3) % codes.len()];
+            out.push_str(&format!("{pid},{date},{code},{other}{extra}\n"));
+        }
+    }
+    out
+}
+
+/// The cases of the --strict ordering tests: problems, and what the first
+/// of them in input order says (its line and words, its exit code).
+#[allow(clippy::type_complexity)]
+fn strict_cases() -> Vec<(bool, Vec<(usize, Problem)>, &'static str)> {
+    use Problem::*;
+    vec![
+        // A disagreement long before a bad record, in another block.
+        (
+            true,
+            vec![(100, OtherDate), (2_500, TooWide)],
+            "exit 3: line 102: a row of a unit gives another date",
+        ),
+        (
+            true,
+            vec![(120, OtherAge), (2_500, UnknownCode)],
+            "exit 3: line 122: a row of a unit gives another age",
+        ),
+        (
+            true,
+            vec![(1_300, OtherWard), (2_900, UnreadableDate)],
+            "exit 3: line 1302: a row of a unit gives another value of column 'ward'",
+        ),
+        (
+            true,
+            vec![(2_000, OtherDate), (2_950, NoId)],
+            "exit 3: line 2002: a row of a unit gives another date",
+        ),
+        // Two disagreements (other patients, so likely other partitions):
+        // the earlier one.
+        (
+            true,
+            vec![(1_700, OtherDate), (400, OtherAge), (2_800, TooWide)],
+            "exit 3: line 402: a row of a unit gives another age",
+        ),
+        // The disagreement on the line just before the bad record (the same
+        // block).
+        (
+            true,
+            vec![(2_000, OtherDate), (2_001, TooWide)],
+            "exit 3: line 2002: a row of a unit gives another date",
+        ),
+        // The bad record first: it stops the run, in memory or spilled.
+        (
+            true,
+            vec![(2_000, OtherDate), (1_999, TooWide)],
+            "exit 1: line 2001:",
+        ),
+        (
+            true,
+            vec![(2_600, OtherAge), (150, UnknownCode)],
+            "exit 3: line 152:",
+        ),
+        (
+            true,
+            vec![(2_600, OtherWard), (1_000, UnreadableDate)],
+            "exit 3: line 1002:",
+        ),
+        // A disagreement alone, late: found when the partitions are read.
+        (
+            true,
+            vec![(2_990, OtherDate)],
+            "exit 3: line 2992: a row of a unit gives another date",
+        ),
+        // Wide: every row is an episode of its own (nothing can disagree);
+        // the first bad record stops the run.
+        (
+            false,
+            vec![(300, UnknownCode), (2_500, TooWide)],
+            "exit 3: line 302:",
+        ),
+        (
+            false,
+            vec![(2_500, UnknownCode), (700, TooWide)],
+            "exit 1: line 702:",
+        ),
+        (false, vec![(2_900, NoId)], "exit 3: line 2902:"),
+    ]
+}
+
+#[test]
+fn a_spilled_strict_run_stops_at_the_first_problem_in_input_order() {
+    // Hand-built extracts with a disagreement before, after or beside a bad
+    // record (or two disagreements): `score` and `explain` (CSV and JSON
+    // lines) stop at the same first problem, with the same message and exit
+    // code, in memory and spilled (at once, after some blocks, knowing the
+    // input's size or not, one and two threads), and leave no temporary
+    // file.
+    let engine = engine();
+    for (long, problems, says) in strict_cases() {
+        let text = strict_extract(long, 3_000, &problems);
+        let cfg = if long {
+            ScoreConfig {
+                layout: Layout::Long,
+                dx: vec!["dx".into()],
+                id: Some("pid".into()),
+                episode: Some("stay".into()),
+                date: Some("date".into()),
+                age: Some("age".into()),
+                keep: vec!["ward".into()],
+                lookback: Some(365),
+                strict: true,
+                ..ScoreConfig::default()
+            }
+        } else {
+            ScoreConfig {
+                dx: vec!["dx*".into()],
+                id: Some("pid".into()),
+                date: Some("date".into()),
+                lookback: Some(730),
+                strict: true,
+                ..ScoreConfig::default()
+            }
+        };
+        let what = format!("{problems:?}");
+        // The in-memory run stops where the case says.
+        let mut out = Vec::new();
+        let reference = score_stream(&engine, &cfg, text.as_bytes(), &mut out);
+        let message = stopped(&reference.expect_err(&what));
+        assert!(message.starts_with(says), "{what}: {message}");
+        same_spilled(&engine, &cfg, &text, &what);
+        same_explained(&engine, &cfg, &text, &what);
+    }
+}
+
+#[test]
+fn a_spilled_strict_run_on_the_command_line_stops_at_the_first_problem() {
+    // The long cases of the --strict ordering tests on the command line,
+    // from CSV and (without a field too many, which a typed file cannot
+    // hold) Parquet: `score` and `explain`, spilled (one and two threads)
+    // or not, give the same exit code and message, write no output and
+    // leave no temporary file.
+    let dir = TempDir::new("spill-strict-order");
+    let temp = dir.path().join("tmp");
+    std::fs::create_dir(&temp).unwrap();
+    let out = dir.join("out.csv");
+    let mut checked_parquet = 0;
+    for (n, (long, problems, says)) in strict_cases().into_iter().enumerate() {
+        if !long {
+            continue;
+        }
+        let text = strict_extract(true, 3_000, &problems);
+        let csv_in = dir.write(&format!("case{n}.csv"), &text);
+        #[cfg_attr(not(feature = "parquet"), allow(unused_mut))]
+        let mut inputs: Vec<(String, Option<String>)> = vec![(csv_in, None)];
+        #[cfg(feature = "parquet")]
+        if !problems.iter().any(|p| matches!(p.1, Problem::TooWide)) {
+            let pq_in = dir.path().join(format!("case{n}.parquet"));
+            to_parquet(&text, &pq_in);
+            let name = pq_in.display().to_string();
+            // A typed file names its rows: data row 1 is line 2 of the CSV.
+            let line: u64 = says["exit 3: line ".len()..]
+                .split(':')
+                .next()
+                .unwrap()
+                .parse()
+                .unwrap();
+            inputs.push((name.clone(), Some(format!("row {} of {name}: ", line - 1))));
+        }
+        for (input, row_named) in &inputs {
+            for command in ["score", "explain"] {
+                let run = |memory: &str, threads: &str| {
+                    let mut a: Vec<String> = vec![command.into(), input.clone()];
+                    a.extend(
+                        [
+                            "--layout",
+                            "long",
+                            "--dx",
+                            "dx",
+                            "--id",
+                            "pid",
+                            "--episode",
+                            "stay",
+                            "--date",
+                            "date",
+                            "--age",
+                            "age",
+                            "--lookback",
+                            "365",
+                            "--strict",
+                            "--memory",
+                            memory,
+                            "--threads",
+                            threads,
+                            "--temp-dir",
+                        ]
+                        .map(String::from),
+                    );
+                    a.push(temp.display().to_string());
+                    a.extend([
+                        if command == "score" {
+                            "--keep"
+                        } else {
+                            "--label"
+                        }
+                        .into(),
+                        "ward".into(),
+                        "-o".into(),
+                        out.clone(),
+                    ]);
+                    let r = morbus(&a.iter().map(String::as_str).collect::<Vec<_>>());
+                    assert_eq!(files_in(&temp), 0, "{problems:?}: temporary file left");
+                    assert!(!std::path::Path::new(&out).exists(), "{problems:?}: output");
+                    r
+                };
+                let in_memory = run("1GiB", "1");
+                let code: i32 = says["exit ".len()..][..1].parse().unwrap();
+                assert_eq!(
+                    in_memory.code, code,
+                    "{input} {problems:?}: {}",
+                    in_memory.stderr
+                );
+                match row_named {
+                    None => {
+                        let at = &says[says.find("line").unwrap()..];
+                        assert!(in_memory.stderr.contains(at), "{}", in_memory.stderr);
+                    }
+                    Some(row) => {
+                        checked_parquet += 1;
+                        assert!(
+                            in_memory.stderr.contains(row),
+                            "{row}: {}",
+                            in_memory.stderr
+                        );
+                    }
+                }
+                for (memory, threads) in [("0", "1"), ("0", "2"), ("40KiB", "2")] {
+                    let spilled = run(memory, threads);
+                    assert_eq!(
+                        (spilled.code, &spilled.stderr),
+                        (in_memory.code, &in_memory.stderr),
+                        "{command} {input} {problems:?} --memory {memory} --threads {threads}"
+                    );
+                }
+            }
+        }
+    }
+    assert!(cfg!(not(feature = "parquet")) || checked_parquet > 0);
 }

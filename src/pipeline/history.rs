@@ -1155,6 +1155,7 @@ pub(crate) fn read_history<'a>(
                 (words, nkeep, exclusions, keep_codes),
                 keep_rows,
                 cfg,
+                (plan, naming.as_ref()),
             )?;
             let n = hb.episodes();
             // Each episode's codes together, in the order they were read.
@@ -1246,7 +1247,7 @@ pub(crate) fn read_history<'a>(
         summary.merge(b.summary);
         b.err.map_or(Ok(()), Err)
     };
-    let (plan, header_raw) = match input {
+    let read = match input {
         Input::Text(input) => run_blocks(
             cfg,
             input,
@@ -1256,19 +1257,29 @@ pub(crate) fn read_history<'a>(
             },
             |h, block, start, scanner| read_block(engine, cfg, &h.0, block, start, scanner, keeps),
             |h, b, p| consume(h, b, p),
-        )?,
-        Input::Rows(source) => {
-            let naming = source.naming();
-            run_batches(
-                cfg,
-                source,
-                |header| Ok((with_values(Plan::new(cfg, header, false)?)?, Vec::new())),
-                |h, batch, first| read_batch(engine, cfg, &h.0, batch, first, keeps),
-                |h, b, p| consume(h, b, p),
-            )
-            .map_err(|e| naming.name(e))?
-        }
+        ),
+        Input::Rows(source) => run_batches(
+            cfg,
+            source,
+            |header| Ok((with_values(Plan::new(cfg, header, false)?)?, Vec::new())),
+            |h, batch, first| read_batch(engine, cfg, &h.0, batch, first, keeps),
+            |h, b, p| consume(h, b, p),
+        ),
     };
+    let (plan, header_raw) = read.map_err(|e| {
+        // Spilled, a run stopped while reading stops where the in-memory
+        // run would have: at a disagreement on an earlier row, if the
+        // partitions written so far hold one.
+        let e = spill
+            .as_mut()
+            .and_then(|sp| sp.first_disagreement(cfg))
+            .unwrap_or(e);
+        // A typed source's rows by their number.
+        match &naming {
+            Some(n) => n.name(e),
+            None => e,
+        }
+    })?;
     summary.dx_columns = plan.dx_names();
     if plan.date.is_some() {
         summary.date_format = Some(cfg.date_format.to_string());

@@ -51,6 +51,7 @@ use super::rows_store::RowStore;
 use super::{Exclusion, Layout, OverMemory, Plan, ScoreConfig, Summary};
 use crate::code::Code;
 use crate::matcher::KeyHasher;
+use crate::rows::RowNaming;
 use crate::score::Engine;
 use crate::Error;
 use std::hash::Hasher;
@@ -141,6 +142,11 @@ pub(crate) struct Spill {
     bytes: u64,
     records: u64,
     rec: Vec<u8>,
+    /// The run's plan (to read the records back for `--strict`'s check of
+    /// a run stopped while reading) and how a typed source names its rows
+    /// in messages.
+    plan: Plan,
+    naming: Option<RowNaming>,
 }
 
 fn partition_of(pid: &[u8]) -> usize {
@@ -199,12 +205,14 @@ fn put_codes(rec: &mut Vec<u8>, codes: &[CodeRecord]) {
 impl Spill {
     /// Creates the partition files in `dir` (and the rows file, with
     /// `raw`) for records of `words` words per condition set, `nkeep` kept
-    /// values, two sets (`exclusions`) and the codes (`codes`).
+    /// values, two sets (`exclusions`) and the codes (`codes`), of a run
+    /// read with `plan` from a source whose rows `naming` names.
     pub fn new(
         dir: &Path,
         (words, nkeep, exclusions, codes): (usize, usize, bool, bool),
         raw: bool,
         cfg: &ScoreConfig,
+        (plan, naming): (&Plan, Option<&RowNaming>),
     ) -> Result<Spill, Error> {
         let mut parts = Vec::with_capacity(PARTITIONS);
         for _ in 0..PARTITIONS {
@@ -237,7 +245,81 @@ impl Spill {
             bytes: 0,
             records: 0,
             rec: Vec::new(),
+            plan: plan.clone(),
+            naming: naming.cloned(),
         })
+    }
+
+    /// The first `--strict` disagreement in input order among the records
+    /// written so far (`None` if there is none, or if they cannot be read
+    /// back). A run stopped while reading (a bad record, a failed read)
+    /// reports it instead: every record written comes before the stop, and
+    /// the in-memory run would have stopped at it first. Only the long
+    /// layout's units can disagree. The partitions are read back side by
+    /// side into [`Builder`]s, each up to the smallest line found so far;
+    /// nothing is resolved or formatted.
+    pub fn first_disagreement(&mut self, cfg: &ScoreConfig) -> Option<Error> {
+        if !cfg.strict || !self.lines || self.records == 0 {
+            return None;
+        }
+        let mut largest = 0u64;
+        for part in &mut self.parts {
+            part.out.flush().ok()?;
+            largest = largest.max(part.bytes);
+        }
+        let shape = Shape {
+            words: self.words,
+            nkeep: self.nkeep,
+            exclusions: self.exclusions,
+            // A record's codes come last: left unread.
+            codes: false,
+            lines: true,
+            raw: false,
+            output: Lines::Scores,
+        };
+        let fit = (cfg.memory / 4 * 3) / (largest * MEMORY_PER_RECORD_BYTE).max(1);
+        let concurrent = (fit as usize).clamp(1, super::parallel::threads(cfg));
+        let next = AtomicUsize::new(0);
+        let until = AtomicU64::new(u64::MAX);
+        let (parts, plan, shape) = (&self.parts, &self.plan, &shape);
+        let (next, until) = (&next, &until);
+        // Each worker's first disagreement; `None` when one failed.
+        let found: Option<Vec<Option<(u64, Error)>>> = std::thread::scope(|s| {
+            let workers: Vec<_> = (0..concurrent)
+                .map(|_| {
+                    s.spawn(move || {
+                        let mut first: Option<(u64, Error)> = None;
+                        while let Some(part) = parts.get(next.fetch_add(1, Ordering::Relaxed)) {
+                            if part.bytes == 0 {
+                                continue;
+                            }
+                            let bound = until.load(Ordering::Relaxed);
+                            match read_partition(cfg, plan, shape, &part.path, bound) {
+                                Err(Stop::Disagreement(line, e)) if line < bound => {
+                                    until.fetch_min(line, Ordering::Relaxed);
+                                    if first.as_ref().is_none_or(|(l, _)| line < *l) {
+                                        first = Some((line, e));
+                                    }
+                                }
+                                // Unreadable: the stop as it was.
+                                Err(Stop::Failed(_)) => return None,
+                                _ => {}
+                            }
+                        }
+                        Some(first)
+                    })
+                })
+                .collect();
+            workers
+                .into_iter()
+                .map(|w| w.join().ok().flatten())
+                .collect()
+        });
+        found?
+            .into_iter()
+            .flatten()
+            .min_by_key(|(line, _)| *line)
+            .map(|(_, e)| e)
     }
 
     /// Writes a row (or an episode read before the spill) to its patient's
@@ -333,6 +415,7 @@ impl Spill {
             rows,
             bytes,
             records,
+            naming,
             ..
         } = self;
         let raw = rows.is_some();
@@ -460,7 +543,11 @@ impl Spill {
             return Err(e);
         }
         if let Some((_, e)) = first_error {
-            return Err(e);
+            // A typed source's rows by their number, as in memory.
+            return Err(match naming {
+                Some(n) => n.name(e),
+                None => e,
+            });
         }
         results.flush().map_err(|e| result_path.error("write", e))?;
         drop(results);
@@ -577,98 +664,14 @@ fn resolve_partition(
     dir: &Path,
 ) -> Resolved {
     let Shape {
-        words,
-        nkeep,
-        exclusions,
-        codes: with_codes,
-        lines,
-        raw,
-        output,
+        words, raw, output, ..
     } = *shape;
-    let mut summary = Summary::default();
-    let file = match File::open(&path.0) {
-        Ok(f) => f,
-        Err(e) => return Resolved::Failed(path.error("read", e)),
-    };
-    let mut input = BufReader::with_capacity(1 << 18, file);
     let p = plan.clone();
-    let mut builder = Builder::new(cfg, &p, words);
-    let mut rec = Vec::new();
-    let mut kept: Vec<(usize, usize)> = Vec::with_capacity(nkeep);
-    let (mut all, mut cur) = (vec![0u64; words], vec![0u64; words]);
-    let mut row = 0u64;
-    let mut codes: Vec<CodeRecord> = Vec::new();
-    let mut row_codes: Vec<CodeRecord> = Vec::new();
-    loop {
-        match read_record(&mut input, &mut rec) {
-            Ok(true) => {}
-            Ok(false) => break,
-            Err(e) => return Resolved::Failed(path.error("read", e)),
-        }
-        let mut c = Cursor { b: &rec, at: 0 };
-        row += c.varint();
-        let line = if lines { c.varint() } else { 0 };
-        let flags = c.u8();
-        let day = if flags >> 2 == 1 { c.i32() } else { 0 };
-        let age = c.u8();
-        let pid = c.bytes();
-        let ekey = c.bytes();
-        kept.clear();
-        for _ in 0..nkeep {
-            let n = c.varint() as usize;
-            kept.push((c.at, c.at + n));
-            c.at += n;
-        }
-        c.set(&mut all);
-        if exclusions {
-            c.set(&mut cur);
-        }
-        row_codes.clear();
-        if with_codes {
-            for _ in 0..c.varint() {
-                let exclusion = match c.u8() {
-                    1 => Some(Exclusion::Primary),
-                    2 => Some(Exclusion::NotPresentOnAdmission),
-                    _ => None,
-                };
-                let Some(code) = Code::from_normalised(c.bytes()) else {
-                    return Resolved::Failed(path.error(
-                        "read",
-                        std::io::Error::new(std::io::ErrorKind::InvalidData, "a damaged code"),
-                    ));
-                };
-                row_codes.push(CodeRecord {
-                    episode: 0,
-                    written: c.bytes().into(),
-                    code,
-                    exclusion,
-                });
-            }
-        }
-        let r = RowIn {
-            row,
-            line,
-            no_id: flags & 1 != 0,
-            disagrees: flags & 2 != 0,
-            date: match flags >> 2 {
-                1 => DateRead::Day(day),
-                2 => DateRead::Unreadable,
-                _ => DateRead::Missing,
-            },
-            age: (age != u8::MAX).then_some(age as u32),
-            pid,
-            ekey,
-            kept_bytes: &rec,
-            kept: &kept,
-            all: &all,
-            cur: if exclusions { &cur } else { &[] },
-        };
-        match builder.add_row(&p, &r, &mut summary) {
-            Ok(e) => codes.extend(row_codes.drain(..).map(|c| CodeRecord { episode: e, ..c })),
-            Err(e) => return Resolved::Disagreement(line, e),
-        }
-    }
-    drop(input);
+    let (builder, mut summary, codes) = match read_partition(cfg, &p, shape, path, u64::MAX) {
+        Ok(read) => read,
+        Err(Stop::Disagreement(line, e)) => return Resolved::Disagreement(line, e),
+        Err(Stop::Failed(e)) => return Resolved::Failed(e),
+    };
     crate::io::atomic::remove_working_file(&path.0);
     // Over half of --memory: the limit is passed; say so loudly, naming
     // the id with the most episodes (one patient cannot be split).
@@ -777,6 +780,118 @@ fn resolve_partition(
         summary,
         episodes: n as u64,
     }
+}
+
+/// Why a partition was not read back whole: a `--strict` disagreement
+/// (with its line), or a failure.
+enum Stop {
+    Disagreement(u64, Error),
+    Failed(Error),
+}
+
+/// Reads partition `path` back into a [`Builder`] (with `plan`), merging
+/// its records into episodes as the in-memory run merges rows, up to the
+/// first record of line `until` or later (long layout): the builder, its
+/// counts and the codes read (with their episode); or the first `--strict`
+/// disagreement (with its line), or a failure.
+fn read_partition(
+    cfg: &ScoreConfig,
+    p: &Plan,
+    shape: &Shape<'_>,
+    path: &TempPath,
+    until: u64,
+) -> Result<(Builder, Summary, Vec<CodeRecord>), Stop> {
+    let Shape {
+        words,
+        nkeep,
+        exclusions,
+        codes: with_codes,
+        lines,
+        ..
+    } = *shape;
+    let mut summary = Summary::default();
+    let file = File::open(&path.0).map_err(|e| Stop::Failed(path.error("read", e)))?;
+    let mut input = BufReader::with_capacity(1 << 18, file);
+    let mut builder = Builder::new(cfg, p, words);
+    let mut rec = Vec::new();
+    let mut kept: Vec<(usize, usize)> = Vec::with_capacity(nkeep);
+    let (mut all, mut cur) = (vec![0u64; words], vec![0u64; words]);
+    let mut row = 0u64;
+    let mut codes: Vec<CodeRecord> = Vec::new();
+    let mut row_codes: Vec<CodeRecord> = Vec::new();
+    loop {
+        match read_record(&mut input, &mut rec) {
+            Ok(true) => {}
+            Ok(false) => break,
+            Err(e) => return Err(Stop::Failed(path.error("read", e))),
+        }
+        let mut c = Cursor { b: &rec, at: 0 };
+        row += c.varint();
+        let line = if lines { c.varint() } else { 0 };
+        if line >= until {
+            break;
+        }
+        let flags = c.u8();
+        let day = if flags >> 2 == 1 { c.i32() } else { 0 };
+        let age = c.u8();
+        let pid = c.bytes();
+        let ekey = c.bytes();
+        kept.clear();
+        for _ in 0..nkeep {
+            let n = c.varint() as usize;
+            kept.push((c.at, c.at + n));
+            c.at += n;
+        }
+        c.set(&mut all);
+        if exclusions {
+            c.set(&mut cur);
+        }
+        row_codes.clear();
+        if with_codes {
+            for _ in 0..c.varint() {
+                let exclusion = match c.u8() {
+                    1 => Some(Exclusion::Primary),
+                    2 => Some(Exclusion::NotPresentOnAdmission),
+                    _ => None,
+                };
+                let Some(code) = Code::from_normalised(c.bytes()) else {
+                    return Err(Stop::Failed(path.error(
+                        "read",
+                        std::io::Error::new(std::io::ErrorKind::InvalidData, "a damaged code"),
+                    )));
+                };
+                row_codes.push(CodeRecord {
+                    episode: 0,
+                    written: c.bytes().into(),
+                    code,
+                    exclusion,
+                });
+            }
+        }
+        let r = RowIn {
+            row,
+            line,
+            no_id: flags & 1 != 0,
+            disagrees: flags & 2 != 0,
+            date: match flags >> 2 {
+                1 => DateRead::Day(day),
+                2 => DateRead::Unreadable,
+                _ => DateRead::Missing,
+            },
+            age: (age != u8::MAX).then_some(age as u32),
+            pid,
+            ekey,
+            kept_bytes: &rec,
+            kept: &kept,
+            all: &all,
+            cur: if exclusions { &cur } else { &[] },
+        };
+        match builder.add_row(p, &r, &mut summary) {
+            Ok(e) => codes.extend(row_codes.drain(..).map(|c| CodeRecord { episode: e, ..c })),
+            Err(e) => return Err(Stop::Disagreement(line, e)),
+        }
+    }
+    Ok((builder, summary, codes))
 }
 
 /// Reads one record (its length as a varint, then its bytes) into `rec`;
