@@ -979,6 +979,7 @@ pub fn explain(
     let needs = Needs {
         codes: true,
         rows: false,
+        ..Needs::default()
     };
     let (mut hist, mut summary) = read_history(engine, cfg, header, cols, first_row, needs)?;
     let label = !cfg.keep.is_empty();

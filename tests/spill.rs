@@ -1328,3 +1328,53 @@ fn a_spilled_strict_run_on_the_command_line_stops_at_the_first_problem() {
     }
     assert!(cfg!(not(feature = "parquet")) || checked_parquet > 0);
 }
+
+#[test]
+fn an_output_column_taken_twice_stops_before_the_rows() {
+    // `--keep pid` (score) or `--label pid` (explain) with --id pid: the
+    // output would hold the column twice, a usage error (exit 2) found
+    // once the header is read, before any row. So it comes before a later
+    // disagreement (--strict) or too many unreadable dates, held or
+    // spilled alike (a spilled run used to find it before the partitions'
+    // disagreements and dates, the in-memory run after them).
+    let engine = engine();
+    let strict = ScoreConfig {
+        layout: Layout::Long,
+        dx: vec!["dx".into()],
+        id: Some("pid".into()),
+        episode: Some("stay".into()),
+        date: Some("date".into()),
+        keep: vec!["pid".into()],
+        lookback: Some(365),
+        strict: true,
+        ..ScoreConfig::default()
+    };
+    let dates = ScoreConfig {
+        strict: false,
+        max_unreadable_dates: 0.0,
+        ..strict.clone()
+    };
+    use Problem::*;
+    for (cfg, problems) in [
+        (&strict, vec![(2_990, OtherDate)]),
+        (&dates, vec![(2_990, UnreadableDate)]),
+    ] {
+        let text = strict_extract(true, 3_000, &problems);
+        let what = format!("{problems:?}");
+        for explain in [false, true] {
+            let mut out = Vec::new();
+            let r = if explain {
+                explain_stream(&engine, cfg, ExplainFormat::Csv, text.as_bytes(), &mut out)
+            } else {
+                score_stream(&engine, cfg, text.as_bytes(), &mut out)
+            };
+            let message = stopped(&r.expect_err(&what));
+            assert!(
+                message.starts_with("exit 2: ") && message.contains("'pid'"),
+                "{what}: {message}"
+            );
+        }
+        same_spilled(&engine, cfg, &text, &what);
+        same_explained(&engine, cfg, &text, &what);
+    }
+}

@@ -436,6 +436,7 @@ pub fn explain_stream<'a>(
     let needs = Needs {
         codes: true,
         rows: false,
+        output: Some(|_, cfg, plan| Explainer::new(plan, cfg, ExplainFormat::Csv).map(drop)),
     };
     let spill_at = (cfg.memory / 2) as usize;
     let write_err = |e| Error::io("cannot write output", e);

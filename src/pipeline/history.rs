@@ -662,7 +662,17 @@ pub struct Needs {
     pub codes: bool,
     /// The wide layout's raw rows, for an output that copies them.
     pub rows: bool,
+    /// The output's columns checked against the input's, once its header
+    /// is read and before any row ([`OutputCheck`]).
+    pub(crate) output: Option<OutputCheck>,
 }
+
+/// A check of a run's output columns against its input's (`score`'s names
+/// taken twice, `explain`'s `--label`): a usage error found once the
+/// header is read stops the run before its rows, so that it is the same
+/// first error whether the history is held or spilled (and comes before
+/// reading a large input for nothing).
+pub(crate) type OutputCheck = fn(&Engine, &ScoreConfig, &Plan) -> Result<(), Error>;
 
 /// The lookback windows of a run: the lists grouped by window length, each
 /// group with the mask of its conditions.
@@ -1079,6 +1089,9 @@ pub(crate) fn read_history<'a>(
             .iter()
             .map(|v| plan.header.column(&v.name, v.role))
             .collect::<Result<_, _>>()?;
+        if let Some(check) = needs.output {
+            check(engine, cfg, &plan)?;
+        }
         Ok(plan)
     };
     let keep_codes = needs.codes;
@@ -1773,6 +1786,7 @@ pub fn score_history<'a>(
     let needs = Needs {
         codes: false,
         rows: true,
+        output: Some(|engine, cfg, plan| header_line(engine, cfg, plan, &[], false).map(drop)),
     };
     let input = input.into();
     // Typed rows in the wide layout: there is no row text to copy; the
