@@ -1327,6 +1327,64 @@ fn a_spilled_strict_run_on_the_command_line_stops_at_the_first_problem() {
         }
     }
     assert!(cfg!(not(feature = "parquet")) || checked_parquet > 0);
+    // A read that fails (a gzip input cut short) after a disagreement: the
+    // blocks read before the failure are merged first, so the disagreement
+    // stops the run, held or spilled (60,000 rows: more than one block of
+    // the command line's 1 MiB).
+    let text = strict_extract(true, 60_000, &[(100, Problem::OtherDate)]);
+    let mut gz = flate2::write::GzEncoder::new(Vec::new(), flate2::Compression::default());
+    std::io::Write::write_all(&mut gz, text.as_bytes()).unwrap();
+    let gz = gz.finish().unwrap();
+    let cut = dir.path().join("cut.csv.gz");
+    std::fs::write(&cut, &gz[..gz.len() * 3 / 5]).unwrap();
+    let cut = cut.display().to_string();
+    let run = |memory: &str, threads: &str| {
+        let r = morbus(&[
+            "score",
+            &cut,
+            "--layout",
+            "long",
+            "--dx",
+            "dx",
+            "--id",
+            "pid",
+            "--episode",
+            "stay",
+            "--date",
+            "date",
+            "--lookback",
+            "365",
+            "--strict",
+            "--memory",
+            memory,
+            "--threads",
+            threads,
+            "--temp-dir",
+            &temp.display().to_string(),
+            "-o",
+            &out,
+        ]);
+        assert_eq!(files_in(&temp), 0, "cut gzip: temporary file left");
+        assert!(!std::path::Path::new(&out).exists(), "cut gzip: output");
+        r
+    };
+    let in_memory = run("1GiB", "2");
+    assert_eq!(in_memory.code, 3, "{}", in_memory.stderr);
+    assert!(
+        in_memory
+            .stderr
+            .contains("line 102: a row of a unit gives another date"),
+        "{}",
+        in_memory.stderr
+    );
+    for (memory, threads) in [("0", "1"), ("0", "2"), ("40KiB", "2")] {
+        let spilled = run(memory, threads);
+        assert_eq!(
+            (spilled.code, &spilled.stderr),
+            (in_memory.code, &in_memory.stderr),
+            "cut gzip --memory {memory} --threads {threads}"
+        );
+    }
 }
 
 #[test]
