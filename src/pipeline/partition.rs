@@ -31,6 +31,11 @@
 //!    the runs of the result file, each line put after its raw row read
 //!    from the rows file.
 //!
+//! A `--strict` run stopped while reading (a bad record, a failed read)
+//! first reads the partitions written so far back for a disagreement on an
+//! earlier line ([`Spill::first_disagreement`]), which the in-memory run
+//! would have stopped at first.
+//!
 //! Every file is registered with `io::atomic` (removed on SIGINT, SIGTERM,
 //! SIGHUP) and removed when dropped, after success or failure.
 
