@@ -608,34 +608,23 @@ fn parquet_ages_past_130_are_unreadable() {
         ),
     ])
     .unwrap();
-    let mut w = parquet::arrow::ArrowWriter::try_new(
-        std::fs::File::create(&path).unwrap(),
-        batch.schema(),
-        None,
-    )
-    .unwrap();
-    w.write(&batch).unwrap();
-    w.close().unwrap();
-    let o = Command::new(env!("CARGO_BIN_EXE_morbus"))
-        .arg("score")
-        .arg(&path)
-        .args([
-            "--dx",
-            "dx1",
-            "--age",
-            "age",
-            "--index",
-            "charlson:charlson1987",
-        ])
-        .output()
-        .unwrap();
-    assert_eq!(o.status.code(), Some(0));
-    let text = String::from_utf8_lossy(&o.stdout);
+    common::write_parquet(&path, &batch, None);
+    let r = common::morbus(&[
+        "score",
+        path.to_str().unwrap(),
+        "--dx",
+        "dx1",
+        "--age",
+        "age",
+        "--index",
+        "charlson:charlson1987",
+    ]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
     assert_eq!(
-        common::column(&text, "charlson_charlson1987_age"),
+        common::column(&r.stdout, "charlson_charlson1987_age"),
         ["", "5", ""]
     );
-    assert!(String::from_utf8_lossy(&o.stderr).contains("; ages missing: 0, unreadable: 2"));
+    assert!(r.stderr.contains("; ages missing: 0, unreadable: 2"));
 }
 
 // ---- weights past the exact-decimal range ---------------------------------
@@ -759,14 +748,7 @@ fn parquet_wide_poa_reads_the_paired_columns() {
     .unwrap();
     let dir = TempDir::new("values-parquet-poa");
     let path = dir.path().join("wide.parquet");
-    let mut w = parquet::arrow::ArrowWriter::try_new(
-        std::fs::File::create(&path).unwrap(),
-        batch.schema(),
-        None,
-    )
-    .unwrap();
-    w.write(&batch).unwrap();
-    w.close().unwrap();
+    common::write_parquet(&path, &batch, None);
     let bytes = std::fs::read(&path).unwrap();
     // explain reads only the columns the run uses (the paired ones here).
     let o = run_on(

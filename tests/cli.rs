@@ -4,8 +4,7 @@
 mod common;
 
 use std::io::Write;
-use std::path::{Path, PathBuf};
-use std::process::{Command, Stdio};
+use std::path::PathBuf;
 
 use common::column;
 
@@ -22,20 +21,7 @@ impl Run {
 }
 
 fn morbus(args: &[&str], stdin: &[u8]) -> Run {
-    let mut child = Command::new(env!("CARGO_BIN_EXE_morbus"))
-        .args(args)
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .expect("run morbus");
-    let mut input = child.stdin.take().unwrap();
-    let data = stdin.to_vec();
-    let writer = std::thread::spawn(move || {
-        let _ = input.write_all(&data);
-    });
-    let out = child.wait_with_output().unwrap();
-    writer.join().unwrap();
+    let out = common::pipe(args, stdin);
     Run {
         code: out.status.code().unwrap_or(-1),
         stdout: out.stdout,
@@ -44,13 +30,11 @@ fn morbus(args: &[&str], stdin: &[u8]) -> Run {
 }
 
 fn tmp(name: &str) -> PathBuf {
-    let dir = std::env::temp_dir().join(format!("morbus-cli-{}", std::process::id()));
-    std::fs::create_dir_all(&dir).unwrap();
-    dir.join(name)
+    common::scratch("cli", name)
 }
 
 fn demo() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data/episodes.csv")
+    common::root().join("demo-data/episodes.csv")
 }
 
 const SMALL: &str = "episode,age,dx1,dx2,dx3\n\
@@ -493,7 +477,7 @@ fn scores_by(out: &str, key: &str, first_score: usize) -> Vec<(String, Vec<Strin
 
 #[test]
 fn demo_wide_and_long_files_give_the_same_scores() {
-    let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data");
+    let dir = common::root().join("demo-data");
     let wide = dir.join("episodes.csv");
     let long = dir.join("episodes-long.csv");
     let specs = "charlson:charlson1987,charlson:quan2011,elixhauser,hfrs";

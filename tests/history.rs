@@ -7,23 +7,10 @@
 //! liver disease 3, metastatic solid tumour 6), codes per Quan et al., Med
 //! Care 2005;43:1130-9, Table 1; all from memory.
 
-use std::io::Write;
-use std::process::{Command, Stdio};
+mod common;
 
 fn morbus(args: &[&str], stdin: &str) -> (i32, String, String) {
-    let mut child = Command::new(env!("CARGO_BIN_EXE_morbus"))
-        .args(args)
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .unwrap();
-    // A run stopped by its options exits without reading its input: the
-    // pipe may then be closed before everything is written.
-    if let Err(e) = child.stdin.take().unwrap().write_all(stdin.as_bytes()) {
-        assert_eq!(e.kind(), std::io::ErrorKind::BrokenPipe, "{e}");
-    }
-    let out = child.wait_with_output().unwrap();
+    let out = common::pipe(args, stdin.as_bytes());
     (
         out.status.code().unwrap_or(-1),
         String::from_utf8(out.stdout).unwrap(),

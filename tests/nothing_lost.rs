@@ -56,12 +56,7 @@ fn bin() -> Command {
 
 /// Runs `morbus ARGS` in `dir`.
 fn run_in(dir: &Path, args: &[&str]) -> common::Run {
-    let o = bin().args(args).current_dir(dir).output().unwrap();
-    common::Run {
-        code: o.status.code().unwrap_or(-1),
-        stdout: String::from_utf8_lossy(&o.stdout).into_owned(),
-        stderr: String::from_utf8_lossy(&o.stderr).into_owned(),
-    }
+    common::Run::from(bin().args(args).current_dir(dir).output().unwrap())
 }
 
 #[test]
@@ -754,15 +749,7 @@ mod parquet_cases {
     use arrow_array::builder::StringBuilder;
     use arrow_array::{ArrayRef, RecordBatch, TimestampMicrosecondArray};
     use common::{column, morbus};
-    use parquet::arrow::ArrowWriter;
     use std::sync::Arc;
-
-    fn write_parquet(path: &Path, batch: &RecordBatch) {
-        let file = std::fs::File::create(path).unwrap();
-        let mut w = ArrowWriter::try_new(file, batch.schema(), None).unwrap();
-        w.write(batch).unwrap();
-        w.close().unwrap();
-    }
 
     /// Timestamps with a named time zone (as data-frame libraries write
     /// zone-aware columns), in a column the run uses and in one it only
@@ -805,7 +792,7 @@ mod parquet_cases {
         ])
         .unwrap();
         let input = dir.path().join("zoned.parquet");
-        write_parquet(&input, &batch);
+        common::write_parquet(&input, &batch, None);
         input
     }
 

@@ -14,9 +14,7 @@
 mod common;
 
 use std::fs::File;
-use std::io::Write;
 use std::path::{Path, PathBuf};
-use std::process::{Command, Stdio};
 use std::sync::Arc;
 
 use arrow_array::builder::{
@@ -28,10 +26,8 @@ use arrow_array::types::Int32Type;
 use arrow_array::{Array, ArrayRef, RecordBatch};
 use arrow_schema::DataType;
 use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
-use parquet::arrow::ArrowWriter;
-use parquet::file::properties::WriterProperties;
 
-use common::{column, morbus, root, TempDir};
+use common::{column, morbus, root, write_parquet, TempDir};
 
 /// The records of a CSV file (header first).
 fn records(path: &Path) -> Vec<Vec<String>> {
@@ -139,7 +135,7 @@ fn write_both(
     }
     let batch = RecordBatch::try_from_iter(arrays).unwrap();
     let pq = dir.join(format!("{stem}.parquet"));
-    write_parquet(&pq, &batch, group);
+    write_parquet(&pq, &batch, Some(group));
 
     let csv = dir.join(format!("{stem}.csv"));
     let mut w = csv::Writer::from_path(&csv).unwrap();
@@ -157,16 +153,6 @@ fn write_both(
     }
     w.flush().unwrap();
     (pq, csv)
-}
-
-fn write_parquet(path: &Path, batch: &RecordBatch, group: usize) {
-    let props = WriterProperties::builder()
-        .set_max_row_group_row_count(Some(group))
-        .build();
-    let mut w =
-        ArrowWriter::try_new(File::create(path).unwrap(), batch.schema(), Some(props)).unwrap();
-    w.write(batch).unwrap();
-    w.close().unwrap();
 }
 
 /// Every row of a Parquet file, as one batch, and its number of row groups.
@@ -615,7 +601,7 @@ fn a_list_column_passes_through_and_a_standard_input_parquet_is_read() {
     ])
     .unwrap();
     let input = dir.path().join("in.parquet");
-    write_parquet(&input, &batch, 10);
+    write_parquet(&input, &batch, Some(10));
     let out = dir.path().join("out.parquet");
     let r = morbus(&[
         "score",
@@ -641,8 +627,8 @@ fn a_list_column_passes_through_and_a_standard_input_parquet_is_read() {
     );
 
     // From standard input, to standard output as Parquet.
-    let mut child = Command::new(env!("CARGO_BIN_EXE_morbus"))
-        .args([
+    let o = common::pipe(
+        &[
             "score",
             "--dx",
             "dx1",
@@ -651,18 +637,9 @@ fn a_list_column_passes_through_and_a_standard_input_parquet_is_read() {
             "--output-format",
             "parquet",
             "-q",
-        ])
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .spawn()
-        .unwrap();
-    child
-        .stdin
-        .take()
-        .unwrap()
-        .write_all(&std::fs::read(&input).unwrap())
-        .unwrap();
-    let o = child.wait_with_output().unwrap();
+        ],
+        &std::fs::read(&input).unwrap(),
+    );
     assert!(o.status.success());
     let piped = dir.path().join("piped.parquet");
     std::fs::write(&piped, &o.stdout).unwrap();
@@ -691,7 +668,7 @@ fn problems_name_the_row_and_a_failed_run_leaves_no_valid_file() {
     ])
     .unwrap();
     let input = dir.path().join("in.parquet");
-    write_parquet(&input, &batch, 2);
+    write_parquet(&input, &batch, Some(2));
     let out = dir.path().join("out.parquet");
     let r = morbus(&["score", s(&input), "--dx", "dx1", "--strict", "-o", s(&out)]);
     assert_eq!(r.code, 3, "{}", r.stderr);
@@ -847,7 +824,7 @@ fn a_timestamp_with_a_time_zone_counts_on_its_date_in_that_zone() {
     .unwrap();
     let dir = TempDir::new("parquet-tz");
     let input = dir.path().join("tz.parquet");
-    write_parquet(&input, &batch, 10);
+    write_parquet(&input, &batch, Some(10));
     let r = morbus(&[
         "score",
         s(&input),
@@ -901,7 +878,7 @@ fn compare_on_parquet_names_rows_and_reads_typed_outcomes() {
         ])
         .unwrap();
         let pq = dir.path().join(format!("{stem}.parquet"));
-        write_parquet(&pq, &batch, 2);
+        write_parquet(&pq, &batch, Some(2));
         let csv = dir.path().join(format!("{stem}.csv"));
         std::fs::write(&csv, text).unwrap();
         (pq, csv)

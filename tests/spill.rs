@@ -567,14 +567,7 @@ fn to_parquet(text: &str, path: &std::path::Path) {
         arrays.push((name.clone(), a));
     }
     let batch = RecordBatch::try_from_iter(arrays).unwrap();
-    let mut w = parquet::arrow::ArrowWriter::try_new(
-        std::fs::File::create(path).unwrap(),
-        batch.schema(),
-        None,
-    )
-    .unwrap();
-    w.write(&batch).unwrap();
-    w.close().unwrap();
+    common::write_parquet(path, &batch, None);
 }
 
 #[cfg(feature = "parquet")]

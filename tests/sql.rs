@@ -4,28 +4,13 @@
 //! scripts' scores with `morbus score` on real engines is checked in
 //! `python/tests/test_sql.py`.
 
+mod common;
+
 use std::path::PathBuf;
-use std::process::Command;
 
 use morbus::lists::Catalogue;
 
-struct Run {
-    code: i32,
-    stdout: String,
-    stderr: String,
-}
-
-fn morbus(args: &[&str]) -> Run {
-    let out = Command::new(env!("CARGO_BIN_EXE_morbus"))
-        .args(args)
-        .output()
-        .expect("run morbus");
-    Run {
-        code: out.status.code().unwrap_or(-1),
-        stdout: String::from_utf8_lossy(&out.stdout).into_owned(),
-        stderr: String::from_utf8_lossy(&out.stderr).into_owned(),
-    }
-}
+use common::{morbus, Run};
 
 fn tmp(name: &str) -> PathBuf {
     let dir = std::env::temp_dir().join(format!("morbus-sql-{}-{name}", std::process::id()));
