@@ -21,6 +21,21 @@ fn compare(line: &str, values: &[&str], data: &[u8]) -> common::Run {
     morbus(&args, data)
 }
 
+/// [`compare`] with `--json` to the file `name`, which must succeed: the
+/// run and the JSON.
+fn compare_json(
+    name: &str,
+    line: &str,
+    values: &[&str],
+    data: &[u8],
+) -> (common::Run, serde_json::Value) {
+    let out = tmp(name);
+    let values = [values, &[out.to_str().unwrap()]].concat();
+    let run = compare(&format!("{line} --json {{}}"), &values, data);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    (run, json(&out))
+}
+
 fn tmp(name: &str) -> PathBuf {
     common::scratch("compare", name)
 }
@@ -127,14 +142,12 @@ fn score_columns(csv_text: &str, index: &str) -> (Vec<String>, Vec<Vec<String>>)
 fn default_compares_every_weighting_and_counts_units() {
     let data = extract(600, 11, 25);
     let input = write("default.csv", &data);
-    let out = tmp("default.json");
-    let r = compare(
-        "{} --dx dx* --outcome died --json {}",
-        &[input.to_str().unwrap(), out.to_str().unwrap()],
+    let (r, j) = compare_json(
+        "default.json",
+        "{} --dx dx* --outcome died",
+        &[input.to_str().unwrap()],
         b"",
     );
-    assert_eq!(r.code, 0, "{}", r.stderr);
-    let j = json(&out);
     let names: Vec<&str> = j["indices"]
         .as_array()
         .unwrap()
@@ -288,14 +301,12 @@ fn zero_variance_index_is_noted_and_left_out_of_tests() {
         let died = if r.uniform() < 0.3 { 1 } else { 0 };
         data.push_str(&format!("e{i},{c},{died}\n"));
     }
-    let out = tmp("zero.json");
-    let run = compare(
-        "--dx dx1 --outcome died --index charlson,hfrs --json {}",
-        &[out.to_str().unwrap()],
+    let (run, j) = compare_json(
+        "zero.json",
+        "--dx dx1 --outcome died --index charlson,hfrs",
+        &[],
         data.as_bytes(),
     );
-    assert_eq!(run.code, 0, "{}", run.stderr);
-    let j = json(&out);
     let hfrs = &j["indices"][1];
     assert_eq!(hfrs["name"], "hfrs_gilbert2018");
     assert!(hfrs["c_statistic"].is_null());
@@ -323,14 +334,12 @@ fn identical_rankings_give_a_note_instead_of_a_test() {
         let died = if r.uniform() < 0.4 { 1 } else { 0 };
         data.push_str(&format!("e{i},{c},{died}\n"));
     }
-    let out = tmp("identical.json");
-    let run = compare(
-        "--dx dx1 --outcome died --index charlson:charlson1987,charlson:count --json {}",
-        &[out.to_str().unwrap()],
+    let (run, j) = compare_json(
+        "identical.json",
+        "--dx dx1 --outcome died --index charlson:charlson1987,charlson:count",
+        &[],
         data.as_bytes(),
     );
-    assert_eq!(run.code, 0, "{}", run.stderr);
-    let j = json(&out);
     let pair = &j["pairs"][0];
     assert!(pair["delong"].is_null());
     assert!(pair["notes"]
@@ -343,14 +352,12 @@ fn identical_rankings_give_a_note_instead_of_a_test() {
 #[test]
 fn adjustment_numeric_and_categorical() {
     let data = extract(300, 17, 0);
-    let out = tmp("adjust.json");
-    let run = compare(
-        "--dx dx* --outcome died --index charlson --adjust age --adjust-cat sex --json {}",
-        &[out.to_str().unwrap()],
+    let (run, j) = compare_json(
+        "adjust.json",
+        "--dx dx* --outcome died --index charlson --adjust age --adjust-cat sex",
+        &[],
         data.as_bytes(),
     );
-    assert_eq!(run.code, 0, "{}", run.stderr);
-    let j = json(&out);
     let terms: Vec<&str> = j["indices"][0]["model"]["terms"]
         .as_array()
         .unwrap()
@@ -502,14 +509,12 @@ fn long_layout_episodes_and_lookback() {
 #[test]
 fn age_points_add_an_age_variant() {
     let data = extract(200, 8, 0);
-    let out = tmp("age.json");
-    let run = compare(
-        "--dx dx* --outcome died --index charlson:charlson1987 --age age --json {}",
-        &[out.to_str().unwrap()],
+    let (_, j) = compare_json(
+        "age.json",
+        "--dx dx* --outcome died --index charlson:charlson1987 --age age",
+        &[],
         data.as_bytes(),
     );
-    assert_eq!(run.code, 0, "{}", run.stderr);
-    let j = json(&out);
     let names: Vec<&str> = j["indices"]
         .as_array()
         .unwrap()
@@ -530,7 +535,12 @@ fn report_for_tests() -> PathBuf {
     let data = extract(1500, 31, 40);
     let input = write("report.csv", &data);
     let report = tmp("report.html");
-    let run = compare("{} --dx dx* --outcome died --adjust age --adjust-cat sex --adjust-spline age:4 --cluster patient --report {} -q", &[input.to_str().unwrap(), report.to_str().unwrap()], b"");
+    let run = compare(
+        "{} --dx dx* --outcome died --adjust age --adjust-cat sex --adjust-spline age:4 \
+         --cluster patient --report {} -q",
+        &[input.to_str().unwrap(), report.to_str().unwrap()],
+        b"",
+    );
     assert_eq!(run.code, 0, "{}", run.stderr);
     report
 }
@@ -545,7 +555,16 @@ fn spline_knots_and_clusters_are_shown() {
     let input = write("spline.csv", &data);
     let out = tmp("spline.json");
     let report = tmp("spline.html");
-    let run = compare("{} --dx dx* --outcome died --index charlson,elixhauser --adjust-spline age --cluster patient --json {} --report {} -q", &[input.to_str().unwrap(), out.to_str().unwrap(), report.to_str().unwrap()], b"");
+    let run = compare(
+        "{} --dx dx* --outcome died --index charlson,elixhauser --adjust-spline age \
+         --cluster patient --json {} --report {} -q",
+        &[
+            input.to_str().unwrap(),
+            out.to_str().unwrap(),
+            report.to_str().unwrap(),
+        ],
+        b"",
+    );
     assert_eq!(run.code, 0, "{}", run.stderr);
     let mut ages: Vec<f64> = data
         .lines()
@@ -765,14 +784,12 @@ fn single_event_gives_c_statistics_without_intervals() {
         ][i % 4];
         data.push_str(&format!("e{i},{a},{b},{}\n", if i == 3 { 1 } else { 0 }));
     }
-    let out = tmp("single.json");
-    let run = compare(
-        "--dx dx* --outcome died --index charlson:charlson1987,elixhauser --json {}",
-        &[out.to_str().unwrap()],
+    let (run, j) = compare_json(
+        "single.json",
+        "--dx dx* --outcome died --index charlson:charlson1987,elixhauser",
+        &[],
         data.as_bytes(),
     );
-    assert_eq!(run.code, 0, "{}", run.stderr);
-    let j = json(&out);
     let c = &j["indices"][0]["c_statistic"];
     // The one event scores highest (metastatic tumour + heart failure): the
     // episodes scoring the same are the other 6 of its kind (ties count ½).
@@ -827,7 +844,16 @@ fn providers_folds_and_reference_end_to_end() {
     let input = write("sites.csv", &extract_with_sites(2400, 77));
     let js = tmp("sites.json");
     let report = tmp("sites.html");
-    let run = compare("{} --dx dx* --outcome died --adjust age --by site --folds 3 --id patient --reference charlson:quan2011 --overdispersion multiplicative --json {} --report {} -q", &[input.to_str().unwrap(), js.to_str().unwrap(), report.to_str().unwrap()], b"");
+    let run = compare(
+        "{} --dx dx* --outcome died --adjust age --by site --folds 3 --id patient \
+         --reference charlson:quan2011 --overdispersion multiplicative --json {} --report {} -q",
+        &[
+            input.to_str().unwrap(),
+            js.to_str().unwrap(),
+            report.to_str().unwrap(),
+        ],
+        b"",
+    );
     assert_eq!(run.code, 0, "{}", run.stderr);
     assert_no_nan("stdout", &run.stdout);
     assert!(run.stdout.contains("Providers by 'site'"), "{}", run.stdout);
@@ -906,7 +932,12 @@ fn providers_folds_and_reference_end_to_end() {
     let again = tmp("sites2.json");
     let other = tmp("sites3.json");
     for (path, seed) in [(&again, "20261203"), (&other, "5")] {
-        let r = compare("{} --dx dx* --outcome died --folds 3 --id patient --seed {} --index charlson --json {} -q", &[input.to_str().unwrap(), seed, path.to_str().unwrap()], b"");
+        let r = compare(
+            "{} --dx dx* --outcome died --folds 3 --id patient --seed {} --index charlson \
+             --json {} -q",
+            &[input.to_str().unwrap(), seed, path.to_str().unwrap()],
+            b"",
+        );
         assert_eq!(r.code, 0, "{}", r.stderr);
     }
     assert_eq!(j["cross_validation"]["seed"], 20261203);

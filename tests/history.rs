@@ -18,6 +18,12 @@ fn morbus(args: &[&str], stdin: &str) -> (i32, String, String) {
     )
 }
 
+/// [`morbus`] with the command line written as one line (see
+/// [`common::words`]).
+fn run(line: &str, values: &[&str], stdin: &str) -> (i32, String, String) {
+    morbus(&common::words(line, values), stdin)
+}
+
 /// Scores a wide history and returns the Charlson 1987 score column.
 fn wide(input: &str, extra: &[&str]) -> Vec<String> {
     let mut args = vec![
@@ -52,10 +58,7 @@ b,2023-01-09,I21.0\n";
     assert_eq!(wide(input, &["--lookback", "366"]), ["1", "1", "1", "1"]);
     assert_eq!(wide(input, &["--lookback", "0"]), ["0", "1", "0", "1"]);
     // Without a lookback every episode stands alone.
-    let (code, out, _) = morbus(
-        &["score", "--dx", "dx*", "--index", "charlson:charlson1987"],
-        input,
-    );
+    let (code, out, _) = run("score --dx dx* --index charlson:charlson1987", &[], input);
     assert_eq!(code, 0);
     let alone: Vec<&str> = out
         .lines()
@@ -210,37 +213,17 @@ k,2024-01-11,\n";
         wide(input, &["--lookback", "365", allow[0], allow[1]]),
         ["1", "1", "1", "1"]
     );
-    let (code, _, err) = morbus(
-        &[
-            "score",
-            "--dx",
-            "dx*",
-            "--id",
-            "patient",
-            "--date",
-            "admitted",
-            "--lookback",
-            "365",
-            allow[0],
-            allow[1],
-        ],
+    let (code, _, err) = run(
+        "score --dx dx* --id patient --date admitted --lookback 365 {} {}",
+        &[allow[0], allow[1]],
         input,
     );
     assert_eq!(code, 0);
     assert!(err.contains("dates missing: 1, unreadable: 1"), "{err}");
-    let (code, _, err) = morbus(
-        &[
-            "score",
-            "--dx",
-            "dx*",
-            "--id",
-            "patient",
-            "--date",
-            "admitted",
-            "--lookback",
-            "365",
-            "--strict",
-        ],
+    let (code, _, err) = run(
+        "score --dx dx* --id patient --date admitted --lookback 365 \
+        --strict",
+        &[],
         input,
     );
     assert_eq!(code, 3);
@@ -255,24 +238,12 @@ k,2024-01-11,\n";
 
 #[test]
 fn lookback_needs_id_and_date() {
-    let (code, _, err) = morbus(
-        &["score", "--dx", "dx1", "--lookback", "365"],
-        "a,dx1\n1,I21\n",
-    );
+    let (code, _, err) = run("score --dx dx1 --lookback 365", &[], "a,dx1\n1,I21\n");
     assert_eq!(code, 2);
     assert!(err.contains("--lookback needs --id"), "{err}");
-    let (code, _, err) = morbus(
-        &[
-            "score",
-            "--dx",
-            "dx1",
-            "--id",
-            "a",
-            "--date",
-            "d",
-            "--lookback",
-            "soon",
-        ],
+    let (code, _, err) = run(
+        "score --dx dx1 --id a --date d --lookback soon",
+        &[],
         "a,d,dx1\n1,2024-01-01,I21\n",
     );
     assert_eq!(code, 2);
@@ -285,20 +256,10 @@ fn explain_accounts_for_every_point() {
 e,2022-06-01,K70.3,E11.9\n\
 e,2023-06-01,I85.0,E11.2\n\
 e,2023-06-01,I85.0,XYZ\n";
-    let (code, out, err) = morbus(
-        &[
-            "explain",
-            "--dx",
-            "dx*",
-            "--id",
-            "patient",
-            "--date",
-            "admitted",
-            "--lookback",
-            "730",
-            "--index",
-            "charlson:charlson1987",
-        ],
+    let (code, out, err) = run(
+        "explain --dx dx* --id patient --date admitted --lookback 730 \
+        --index charlson:charlson1987",
+        &[],
         input,
     );
     assert_eq!(code, 0, "{err}");
@@ -348,20 +309,10 @@ e,2023-06-01,I85.0,XYZ\n";
     );
     // Totals equal the scores of `score` with the same options, and the
     // counted weights add up to the totals.
-    let (_, scored, _) = morbus(
-        &[
-            "score",
-            "--dx",
-            "dx*",
-            "--id",
-            "patient",
-            "--date",
-            "admitted",
-            "--lookback",
-            "730",
-            "--index",
-            "charlson:charlson1987",
-        ],
+    let (_, scored, _) = run(
+        "score --dx dx* --id patient --date admitted --lookback 730 \
+        --index charlson:charlson1987",
+        &[],
         input,
     );
     let scores: Vec<String> = scored
@@ -384,21 +335,10 @@ e,2023-06-01,I85.0,XYZ\n";
         assert_eq!(counted.to_string(), *s);
     }
     // JSON lines carry the same fields.
-    let (code, json, _) = morbus(
-        &[
-            "explain",
-            "--dx",
-            "dx*",
-            "--id",
-            "patient",
-            "--date",
-            "admitted",
-            "--lookback",
-            "730",
-            "--index",
-            "charlson:charlson1987",
-            "--json",
-        ],
+    let (code, json, _) = run(
+        "explain --dx dx* --id patient --date admitted --lookback 730 \
+        --index charlson:charlson1987 --json",
+        &[],
         input,
     );
     assert_eq!(code, 0);
@@ -647,22 +587,10 @@ fn explain_shows_the_current_episode_left_out() {
     let input = "patient,admitted,dx1\n\
 a,2024-03-01,I21.0\n\
 a,2024-06-01,E11.2\n";
-    let (code, out, err) = morbus(
-        &[
-            "explain",
-            "--dx",
-            "dx1",
-            "--id",
-            "patient",
-            "--date",
-            "admitted",
-            "--lookback",
-            "365",
-            "--window",
-            "earlier-only",
-            "--index",
-            "charlson:charlson1987",
-        ],
+    let (code, out, err) = run(
+        "explain --dx dx1 --id patient --date admitted --lookback 365 \
+        --window earlier-only --index charlson:charlson1987",
+        &[],
         input,
     );
     assert_eq!(code, 0, "{err}");
@@ -741,7 +669,7 @@ b,9,,,0\n"
     let (code, _, err) = morbus(&again, input);
     assert_eq!(code, 2);
     assert!(err.contains("already in the output"), "{err}");
-    let (code, _, err) = morbus(&["score", "--dx", "code", "--keep", "ward"], input);
+    let (code, _, err) = run("score --dx code --keep ward", &[], input);
     assert_eq!(code, 2);
     assert!(err.contains("--keep is for the long layout"), "{err}");
 }
@@ -812,20 +740,11 @@ fn explain_lists_each_index_window_sources() {
     let input = "patient,admitted,dx1\n\
 a,2022-06-01,I50.0\n\
 a,2023-12-01,\n";
-    let (code, out, err) = morbus(
-        &[
-            "explain",
-            "--dx",
-            "dx1",
-            "--id",
-            "patient",
-            "--date",
-            "admitted",
-            "--lookback",
-            "charlson=365,elixhauser=730",
-            "--index",
-            "charlson:charlson1987,elixhauser:count",
-        ],
+    let (code, out, err) = run(
+        "explain --dx dx1 --id patient --date admitted --lookback \
+        charlson=365,elixhauser=730 --index \
+        charlson:charlson1987,elixhauser:count",
+        &[],
         input,
     );
     assert_eq!(code, 0, "{err}");

@@ -514,28 +514,16 @@ fn explain_and_compare_read_parquet() {
         assert_same(&as_text(&got, &name), &expected, &name);
     }
     // explain --json cannot be Parquet.
-    let r = morbus(&["explain", s(&w.pq), "--dx", "dx*", "--json", "-o", s(&out)]);
+    let r = common::run("explain {} --dx dx* --json -o {}", &[s(&w.pq), s(&out)]);
     assert_eq!(r.code, 2, "{}", r.stderr);
 
     // compare: the same results (JSON) from either form.
     let compare = |input: &Path, json: &Path| {
-        let r = morbus(&[
-            "compare",
-            s(input),
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died_within_30_days",
-            "--adjust",
-            "age",
-            "--adjust-cat",
-            "sex",
-            "--index",
-            "charlson,hfrs",
-            "--json",
-            s(json),
-            "-q",
-        ]);
+        let r = common::run(
+            "compare {} --dx dx* --outcome died_within_30_days --adjust age \
+            --adjust-cat sex --index charlson,hfrs --json {} -q",
+            &[s(input), s(json)],
+        );
         assert_eq!(r.code, 0, "{}", r.stderr);
         (r.stdout, std::fs::read_to_string(json).unwrap())
     };
@@ -554,16 +542,10 @@ fn csv_in_parquet_out_keeps_the_fields_as_text() {
     )
     .unwrap();
     let out = dir.path().join("out.pq");
-    let r = morbus(&[
-        "score",
-        s(&input),
-        "--dx",
-        "dx*",
-        "-o",
-        s(&out),
-        "--index",
-        "charlson",
-    ]);
+    let r = common::run(
+        "score {} --dx dx* -o {} --index charlson",
+        &[s(&input), s(&out)],
+    );
     assert_eq!(r.code, 0, "{}", r.stderr);
     let (got, _) = read_parquet(&out);
     assert_eq!(got.num_rows(), 3);
@@ -577,7 +559,7 @@ fn csv_in_parquet_out_keeps_the_fields_as_text() {
         got.column_by_name("charlson_quan2011").unwrap().data_type(),
         &DataType::Int64
     );
-    let reference = morbus(&["score", s(&input), "--dx", "dx*", "--index", "charlson"]);
+    let reference = common::run("score {} --dx dx* --index charlson", &[s(&input)]);
     assert_eq!(
         as_text(&got, "charlson_quan2011"),
         column(&reference.stdout, "charlson_quan2011")
@@ -603,16 +585,10 @@ fn a_list_column_passes_through_and_a_standard_input_parquet_is_read() {
     let input = dir.path().join("in.parquet");
     write_parquet(&input, &batch, Some(10));
     let out = dir.path().join("out.parquet");
-    let r = morbus(&[
-        "score",
-        s(&input),
-        "--dx",
-        "dx1",
-        "-o",
-        s(&out),
-        "--index",
-        "charlson",
-    ]);
+    let r = common::run(
+        "score {} --dx dx1 -o {} --index charlson",
+        &[s(&input), s(&out)],
+    );
     assert_eq!(r.code, 0, "{}", r.stderr);
     let (got, _) = read_parquet(&out);
     assert_eq!(got.column(0).as_ref(), batch.column(0).as_ref());
@@ -620,7 +596,7 @@ fn a_list_column_passes_through_and_a_standard_input_parquet_is_read() {
     // comma. Scores: Quan et al., Am J Epidemiol 2011;173:676-82, Table 3
     // (from memory): congestive heart failure (I50) 2, myocardial
     // infarction (I21) 0.
-    let r = morbus(&["score", s(&input), "--dx", "dx1", "--index", "charlson"]);
+    let r = common::run("score {} --dx dx1 --index charlson", &[s(&input)]);
     assert_eq!(
         r.stdout,
         "tags,dx1,charlson_quan2011\n\"[a, b]\",I50.9,2\n,I21.9,0\n"
@@ -670,7 +646,7 @@ fn problems_name_the_row_and_a_failed_run_leaves_no_valid_file() {
     let input = dir.path().join("in.parquet");
     write_parquet(&input, &batch, Some(2));
     let out = dir.path().join("out.parquet");
-    let r = morbus(&["score", s(&input), "--dx", "dx1", "--strict", "-o", s(&out)]);
+    let r = common::run("score {} --dx dx1 --strict -o {}", &[s(&input), s(&out)]);
     assert_eq!(r.code, 3, "{}", r.stderr);
     assert!(
         r.stderr.contains(&format!("row 4 of {}", input.display())),
@@ -693,7 +669,7 @@ fn problems_name_the_row_and_a_failed_run_leaves_no_valid_file() {
         "a temporary file was left"
     );
     // Without --strict every row comes out, the invalid code counted.
-    let r = morbus(&["score", s(&input), "--dx", "dx1", "-o", s(&out)]);
+    let r = common::run("score {} --dx dx1 -o {}", &[s(&input), s(&out)]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     assert!(
         r.stderr.contains("5 rows read, 5 rows written") && r.stderr.contains("1 invalid code"),
@@ -706,13 +682,13 @@ fn problems_name_the_row_and_a_failed_run_leaves_no_valid_file() {
     let bytes = std::fs::read(&input).unwrap();
     let cut = dir.path().join("cut.parquet");
     std::fs::write(&cut, &bytes[..bytes.len() / 2]).unwrap();
-    let r = morbus(&["score", s(&cut), "--dx", "dx1"]);
+    let r = common::run("score {} --dx dx1", &[s(&cut)]);
     assert_eq!(r.code, 1, "{}", r.stderr);
     assert!(r.stderr.contains("as Parquet"), "{}", r.stderr);
     assert!(!r.stderr.contains("panicked"), "{}", r.stderr);
 
     // A column that is not there: the usual message, listing the columns.
-    let r = morbus(&["score", s(&input), "--dx", "dx9", "-o", s(&out)]);
+    let r = common::run("score {} --dx dx9 -o {}", &[s(&input), s(&out)]);
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(
         r.stderr.contains("note, dx1") || r.stderr.contains("note,dx1"),
@@ -723,7 +699,7 @@ fn problems_name_the_row_and_a_failed_run_leaves_no_valid_file() {
     // Text that is not UTF-8 cannot go into a Parquet text column.
     let latin = dir.path().join("latin.csv");
     std::fs::write(&latin, b"name,dx1\nJos\xe9,I21.9\n").unwrap();
-    let r = morbus(&["score", s(&latin), "--dx", "dx1", "-o", s(&out)]);
+    let r = common::run("score {} --dx dx1 -o {}", &[s(&latin), s(&out)]);
     assert_eq!(r.code, 1, "{}", r.stderr);
     assert!(r.stderr.contains("not UTF-8"), "{}", r.stderr);
 }
@@ -733,13 +709,13 @@ fn a_score_column_already_in_a_parquet_input_is_refused() {
     let w = wide();
     let once = w.dir.join("once.parquet");
     assert_eq!(
-        morbus(&["score", s(&w.pq), "--dx", "dx*", "-o", s(&once)]).code,
+        common::run("score {} --dx dx* -o {}", &[s(&w.pq), s(&once)]).code,
         0
     );
     // Scoring the scored file again would repeat its score columns.
     for out in ["twice.parquet", "twice.csv"] {
         let out = w.dir.join(out);
-        let r = morbus(&["score", s(&once), "--dx", "dx*", "-o", s(&out)]);
+        let r = common::run("score {} --dx dx* -o {}", &[s(&once), s(&out)]);
         assert_eq!(r.code, 2, "{}", r.stderr);
         assert!(
             r.stderr
@@ -825,20 +801,11 @@ fn a_timestamp_with_a_time_zone_counts_on_its_date_in_that_zone() {
     let dir = TempDir::new("parquet-tz");
     let input = dir.path().join("tz.parquet");
     write_parquet(&input, &batch, Some(10));
-    let r = morbus(&[
-        "score",
-        s(&input),
-        "--dx",
-        "dx1",
-        "--id",
-        "patient",
-        "--date",
-        "admitted",
-        "--lookback",
-        "365",
-        "--index",
-        "charlson:charlson1987",
-    ]);
+    let r = common::run(
+        "score {} --dx dx1 --id patient --date admitted --lookback 365 \
+        --index charlson:charlson1987",
+        &[s(&input)],
+    );
     assert_eq!(r.code, 0, "{}", r.stderr);
     assert_eq!(
         column(&r.stdout, "charlson_charlson1987"),

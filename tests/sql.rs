@@ -116,7 +116,7 @@ fn the_header_carries_version_lists_and_options() {
 #[test]
 fn an_edited_list_changes_only_its_rows_and_header() {
     let dir = tmp("edit");
-    let r = morbus(&["lists", "export", "charlson", dir.to_str().unwrap()]);
+    let r = common::run("lists export charlson {}", &[dir.to_str().unwrap()]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     let path = dir.join("charlson.tsv");
     let text = std::fs::read_to_string(&path).unwrap();
@@ -178,7 +178,7 @@ fn an_edited_list_changes_only_its_rows_and_header() {
 fn prefixes_export_writes_a_flat_csv() {
     let dir = tmp("prefixes");
     let d = dir.to_str().unwrap();
-    let r = morbus(&["lists", "export", "charlson", d, "--format", "prefixes"]);
+    let r = common::run("lists export charlson {} --format prefixes", &[d]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     let text = std::fs::read_to_string(dir.join("charlson-prefixes.csv")).unwrap();
     let mut lines = text.lines();
@@ -195,7 +195,7 @@ fn prefixes_export_writes_a_flat_csv() {
         "{text}"
     );
     // A second export without --force is refused.
-    let r = morbus(&["lists", "export", "charlson", d, "--format", "prefixes"]);
+    let r = common::run("lists export charlson {} --format prefixes", &[d]);
     assert_eq!(r.code, 2);
     assert!(r.stderr.contains("--force"), "{}", r.stderr);
 }
@@ -302,42 +302,19 @@ fn a_date_column_brings_the_unreadable_dates_stop() {
     assert!(!without.stdout.contains("date_guard"));
     // PostgreSQL: the function that raises the message, temporary for a
     // query, named after a view and kept with it.
-    let pg = morbus(&[
-        "sql",
-        "--dialect",
-        "postgres",
-        "--table",
-        "t",
-        "--dx",
-        "dx1",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "30",
-    ]);
+    let pg = common::run(
+        "sql --dialect postgres --table t --dx dx1 --id pid --date day \
+        --lookback 30",
+        &[],
+    );
     assert!(pg
         .stdout
         .contains("CREATE OR REPLACE FUNCTION pg_temp.\"morbus_stop\"(message TEXT)"));
-    let pg = morbus(&[
-        "sql",
-        "--dialect",
-        "postgres",
-        "--table",
-        "t",
-        "--dx",
-        "dx1",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "30",
-        "--create",
-        "view",
-        "s.scored",
-    ]);
+    let pg = common::run(
+        "sql --dialect postgres --table t --dx dx1 --id pid --date day \
+        --lookback 30 --create view s.scored",
+        &[],
+    );
     assert!(pg
         .stdout
         .contains("CREATE FUNCTION \"s\".\"scored_stop\"(message TEXT)"));

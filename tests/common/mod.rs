@@ -75,6 +75,11 @@ pub fn words<'a>(line: &'a str, values: &[&'a str]) -> Vec<&'a str> {
     args
 }
 
+/// [`morbus`] with the command line written as one line (see [`words`]).
+pub fn run(line: &str, values: &[&str]) -> Run {
+    morbus(&words(line, values))
+}
+
 /// [`pipe`] as a [`Run`].
 pub fn morbus_with_input(args: &[&str], stdin: &[u8]) -> Run {
     Run::from(pipe(args, stdin))
