@@ -3,7 +3,7 @@
 
 use std::fmt::Write as _;
 
-use super::table::{fixed, p_value, pct};
+use super::table::{fixed, model_cells, p_value, pct};
 use super::{fmt_count, fmt_num, Comparison, IndexResult, Model};
 
 /// Series colours: eight hues that stay apart under the common forms of
@@ -377,35 +377,21 @@ fn prevalence_svg(ix: &IndexResult, colour: &str) -> String {
 }
 
 fn model_table_rows(label: &str, m: &Model, clustered: bool, out: &mut String) {
-    for (j, t) in m.terms.iter().enumerate() {
-        let (cse, cp) = if clustered {
-            (
-                format!(
-                    "<td>{}</td>",
-                    t.cluster_std_error.map_or("–".into(), |v| fixed(v, 4))
-                ),
-                format!("<td>{}</td>", t.cluster_p_value.map_or("–".into(), p_value)),
-            )
+    for (j, cells) in model_cells(label, m, clustered, "–").iter().enumerate() {
+        out.push_str(if j == 0 {
+            "<tr class=\"first\">"
         } else {
-            (String::new(), String::new())
-        };
-        let _ = write!(
-            out,
-            "<tr{}><td>{}</td><td class=\"l\">{}</td><td>{}</td><td>{}</td>{cse}<td>{}</td><td>{}</td>{cp}<td>{}</td><td>{}</td></tr>",
-            if j == 0 { " class=\"first\"" } else { "" },
-            if j == 0 { esc(label) } else { String::new() },
-            esc(&t.name),
-            fixed(t.estimate, 4),
-            fixed(t.std_error, 4),
-            if j == 0 {
-                "–".into()
-            } else {
-                t.odds_ratio.map_or("–".into(), |o| fixed(o, 3))
-            },
-            p_value(t.p_value),
-            if j == 0 { fixed(m.c_statistic, 3) } else { String::new() },
-            if j == 0 { fixed(m.aic, 1) } else { String::new() },
-        );
+            "<tr>"
+        });
+        for (k, cell) in cells.iter().enumerate() {
+            // The label and the term are text; the rest numbers or a dash.
+            let _ = match k {
+                0 => write!(out, "<td>{}</td>", esc(cell)),
+                1 => write!(out, "<td class=\"l\">{}</td>", esc(cell)),
+                _ => write!(out, "<td>{cell}</td>"),
+            };
+        }
+        out.push_str("</tr>");
     }
 }
 

@@ -96,40 +96,41 @@ fn wrap(text: &str, indent: &str, width: usize) -> String {
     out
 }
 
-fn model_rows(label: &str, m: &Model, clustered: bool, rows: &mut Vec<Vec<String>>) {
+/// The cells of a model's table, a row per term: the model's `label` and
+/// its c-statistic and AIC on the first row only; the term, estimate,
+/// standard error (and the clustered one), odds ratio (`none` for the
+/// intercept and where there is none), p-value (and the clustered one).
+/// Shared by the text and the HTML report.
+pub(crate) fn model_cells(label: &str, m: &Model, clustered: bool, none: &str) -> Vec<Vec<String>> {
+    let mut rows = Vec::with_capacity(m.terms.len());
     for (i, t) in m.terms.iter().enumerate() {
+        let first = i == 0;
+        let on_first = |text: String| if first { text } else { String::new() };
         let mut row = vec![
-            if i == 0 {
-                label.to_string()
-            } else {
-                String::new()
-            },
+            on_first(label.to_string()),
             t.name.clone(),
             fixed(t.estimate, 4),
             fixed(t.std_error, 4),
-            if i == 0 {
-                "-".into()
+            if first {
+                none.into()
             } else {
-                t.odds_ratio.map_or("-".into(), |o| fixed(o, 3))
+                t.odds_ratio.map_or(none.into(), |o| fixed(o, 3))
             },
             p_value(t.p_value),
-            if i == 0 {
-                fixed(m.c_statistic, 3)
-            } else {
-                String::new()
-            },
-            if i == 0 {
-                fixed(m.aic, 1)
-            } else {
-                String::new()
-            },
+            on_first(fixed(m.c_statistic, 3)),
+            on_first(fixed(m.aic, 1)),
         ];
         if clustered {
-            row.insert(6, t.cluster_p_value.map_or("-".into(), p_value));
-            row.insert(4, t.cluster_std_error.map_or("-".into(), |v| fixed(v, 4)));
+            row.insert(6, t.cluster_p_value.map_or(none.into(), p_value));
+            row.insert(4, t.cluster_std_error.map_or(none.into(), |v| fixed(v, 4)));
         }
         rows.push(row);
     }
+    rows
+}
+
+fn model_rows(label: &str, m: &Model, clustered: bool, rows: &mut Vec<Vec<String>>) {
+    rows.extend(model_cells(label, m, clustered, "-"));
 }
 
 /// The comparison as a plain-text report.
