@@ -274,7 +274,7 @@ p1,e2,2024-03-01,I50,Y
             CHARLSON,
             &common::words(
                 "--layout long --id pid --episode ep --date date --lookback 365 \
-            --dx code --poa poa",
+                 --dx code --poa poa",
                 &[],
             ),
         ),

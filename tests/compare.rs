@@ -269,7 +269,8 @@ fn separated_model_is_a_note_with_the_c_statistic_kept() {
     let out = tmp("separated.json");
     let report = tmp("separated.html");
     let run = compare(
-        "--dx dx* --outcome died --index charlson:charlson1987 --adjust age --json {} --report {}",
+        "--dx dx* --outcome died --index charlson:charlson1987 --adjust age \
+         --json {} --report {}",
         &[out.to_str().unwrap(), report.to_str().unwrap()],
         data.as_bytes(),
     );
@@ -336,7 +337,8 @@ fn identical_rankings_give_a_note_instead_of_a_test() {
     }
     let (run, j) = compare_json(
         "identical.json",
-        "--dx dx1 --outcome died --index charlson:charlson1987,charlson:count",
+        "--dx dx1 --outcome died \
+         --index charlson:charlson1987,charlson:count",
         &[],
         data.as_bytes(),
     );
@@ -354,7 +356,8 @@ fn adjustment_numeric_and_categorical() {
     let data = extract(300, 17, 0);
     let (run, j) = compare_json(
         "adjust.json",
-        "--dx dx* --outcome died --index charlson --adjust age --adjust-cat sex",
+        "--dx dx* --outcome died --index charlson --adjust age \
+         --adjust-cat sex",
         &[],
         data.as_bytes(),
     );
@@ -536,8 +539,8 @@ fn report_for_tests() -> PathBuf {
     let input = write("report.csv", &data);
     let report = tmp("report.html");
     let run = compare(
-        "{} --dx dx* --outcome died --adjust age --adjust-cat sex --adjust-spline age:4 \
-         --cluster patient --report {} -q",
+        "{} --dx dx* --outcome died --adjust age --adjust-cat sex \
+         --adjust-spline age:4 --cluster patient --report {} -q",
         &[input.to_str().unwrap(), report.to_str().unwrap()],
         b"",
     );
@@ -556,8 +559,8 @@ fn spline_knots_and_clusters_are_shown() {
     let out = tmp("spline.json");
     let report = tmp("spline.html");
     let run = compare(
-        "{} --dx dx* --outcome died --index charlson,elixhauser --adjust-spline age \
-         --cluster patient --json {} --report {} -q",
+        "{} --dx dx* --outcome died --index charlson,elixhauser \
+         --adjust-spline age --cluster patient --json {} --report {} -q",
         &[
             input.to_str().unwrap(),
             out.to_str().unwrap(),
@@ -845,8 +848,9 @@ fn providers_folds_and_reference_end_to_end() {
     let js = tmp("sites.json");
     let report = tmp("sites.html");
     let run = compare(
-        "{} --dx dx* --outcome died --adjust age --by site --folds 3 --id patient \
-         --reference charlson:quan2011 --overdispersion multiplicative --json {} --report {} -q",
+        "{} --dx dx* --outcome died --adjust age --by site --folds 3 \
+         --id patient --reference charlson:quan2011 \
+         --overdispersion multiplicative --json {} --report {} -q",
         &[
             input.to_str().unwrap(),
             js.to_str().unwrap(),
@@ -933,8 +937,8 @@ fn providers_folds_and_reference_end_to_end() {
     let other = tmp("sites3.json");
     for (path, seed) in [(&again, "20261203"), (&other, "5")] {
         let r = compare(
-            "{} --dx dx* --outcome died --folds 3 --id patient --seed {} --index charlson \
-             --json {} -q",
+            "{} --dx dx* --outcome died --folds 3 --id patient --seed {} \
+             --index charlson --json {} -q",
             &[input.to_str().unwrap(), seed, path.to_str().unwrap()],
             b"",
         );

@@ -131,23 +131,11 @@ g,s1,2024-01-01,I50.0,0,N\n\
 g,s2,2024-02-01,E11.9,0,N\n\
 g,s2,2024-02-01,I50.0,0,W\n\
 h,s9,2024-02-01,,0,Y\n";
-    let base = [
-        "score",
-        "--layout",
-        "long",
-        "--id",
-        "patient",
-        "--episode",
-        "stay",
-        "--date",
-        "admitted",
-        "--dx",
-        "code",
-        "--index",
-        "charlson:charlson1987",
-        "--lookback",
-        "365",
-    ];
+    let base = common::words(
+        "score --layout long --id patient --episode stay --date admitted \
+         --dx code --index charlson:charlson1987 --lookback 365",
+        &[],
+    );
     let (code, out, err) = morbus(&base, input);
     assert_eq!(code, 0, "{err}");
     // One row per episode in order of first appearance. s2 sees s1: metastatic
@@ -158,13 +146,10 @@ h,s9,2024-02-01,,0,Y\n";
     );
 
     let mut args = base.to_vec();
-    args.extend([
-        "--exclude-primary",
-        "--primary",
-        "is_primary",
-        "--poa",
-        "on_admission",
-    ]);
+    args.extend(common::words(
+        "--exclude-primary --primary is_primary --poa on_admission",
+        &[],
+    ));
     let (code, out, err) = morbus(&args, input);
     assert_eq!(code, 0, "{err}");
     // s2: metastatic excluded (primary), diabetes excluded (not on admission,
@@ -222,7 +207,7 @@ k,2024-01-11,\n";
     assert!(err.contains("dates missing: 1, unreadable: 1"), "{err}");
     let (code, _, err) = run(
         "score --dx dx* --id patient --date admitted --lookback 365 \
-        --strict",
+         --strict",
         &[],
         input,
     );
@@ -258,7 +243,7 @@ e,2023-06-01,I85.0,E11.2\n\
 e,2023-06-01,I85.0,XYZ\n";
     let (code, out, err) = run(
         "explain --dx dx* --id patient --date admitted --lookback 730 \
-        --index charlson:charlson1987",
+         --index charlson:charlson1987",
         &[],
         input,
     );
@@ -311,7 +296,7 @@ e,2023-06-01,I85.0,XYZ\n";
     // counted weights add up to the totals.
     let (_, scored, _) = run(
         "score --dx dx* --id patient --date admitted --lookback 730 \
-        --index charlson:charlson1987",
+         --index charlson:charlson1987",
         &[],
         input,
     );
@@ -337,7 +322,7 @@ e,2023-06-01,I85.0,XYZ\n";
     // JSON lines carry the same fields.
     let (code, json, _) = run(
         "explain --dx dx* --id patient --date admitted --lookback 730 \
-        --index charlson:charlson1987 --json",
+         --index charlson:charlson1987 --json",
         &[],
         input,
     );
@@ -366,25 +351,11 @@ p,e2,2024-05-01,70,C78.0\n\
 p,e2,2024-05-01,70,\n\
 p,e3,,70,\n\
 p,e3,2024-06-01,70,\n";
-    let args = [
-        "score",
-        "--layout",
-        "long",
-        "--id",
-        "patient",
-        "--episode",
-        "episode",
-        "--date",
-        "admitted",
-        "--age",
-        "age",
-        "--dx",
-        "code",
-        "--lookback",
-        "365",
-        "--index",
-        "charlson:charlson1987",
-    ];
+    let args = common::words(
+        "score --layout long --id patient --episode episode --date admitted \
+         --age age --dx code --lookback 365 --index charlson:charlson1987",
+        &[],
+    );
     let (code, out, err) = morbus(&args, input);
     assert_eq!(code, 0, "{err}");
     assert!(
@@ -423,19 +394,11 @@ fn long_rows_of_one_id_that_disagree_on_age_are_counted_without_a_history() {
     // (Charlson et al. 1994 age points, J Clin Epidemiol 1994;47:1245-51,
     // from memory: one point per decade from 50, so 80 gives 3 like 81).
     let input = "id,age,code\na,80,I21.9\na,81,I50.9\nb,60,\nb,60,C78.0\n";
-    let args = [
-        "score",
-        "--layout",
-        "long",
-        "--id",
-        "id",
-        "--age",
-        "age",
-        "--dx",
-        "code",
-        "--index",
-        "charlson:charlson1987",
-    ];
+    let args = common::words(
+        "score --layout long --id id --age age --dx code \
+         --index charlson:charlson1987",
+        &[],
+    );
     let (code, out, err) = morbus(&args, input);
     assert_eq!(code, 0, "{err}");
     assert!(
@@ -544,16 +507,17 @@ a,2023-12-01,\n";
     // Earlier-only applies to the lists with a window; the others keep the
     // episode's own codes.
     let mut a = index.to_vec();
-    a.extend(["--lookback", "elixhauser=730", "--window", "earlier-only"]);
+    a.extend(common::words(
+        "--lookback elixhauser=730 --window earlier-only",
+        &[],
+    ));
     assert_eq!(columns(input, &a, &names), [["1", "0"], ["0", "1"]]);
 }
 
 #[test]
 fn window_options_are_checked() {
     let input = "patient,admitted,dx1\na,2024-01-01,I21.0\n";
-    let base = [
-        "score", "--dx", "dx1", "--id", "patient", "--date", "admitted",
-    ];
+    let base = common::words("score --dx dx1 --id patient --date admitted", &[]);
     for (extra, message) in [
         (
             &["--lookback", "nosuchlist=30"][..],
@@ -589,7 +553,7 @@ a,2024-03-01,I21.0\n\
 a,2024-06-01,E11.2\n";
     let (code, out, err) = run(
         "explain --dx dx1 --id patient --date admitted --lookback 365 \
-        --window earlier-only --index charlson:charlson1987",
+         --window earlier-only --index charlson:charlson1987",
         &[],
         input,
     );
@@ -620,21 +584,11 @@ a,1,,acute,I50.0\n\
 a,2,east,,E11.9\n\
 a,2,west,rehab,C50.9\n\
 b,9,,,\n";
-    let args = [
-        "score",
-        "--layout",
-        "long",
-        "--id",
-        "patient",
-        "--episode",
-        "episode",
-        "--dx",
-        "code",
-        "--index",
-        "charlson:charlson1987",
-        "--keep",
-        "ward,unit_type",
-    ];
+    let args = common::words(
+        "score --layout long --id patient --episode episode --dx code \
+         --index charlson:charlson1987 --keep ward,unit_type",
+        &[],
+    );
     let (code, out, err) = morbus(&args, input);
     assert_eq!(code, 0, "{err}");
     assert_eq!(
@@ -682,23 +636,11 @@ fn explain_labels_rows_and_writes_json_numbers() {
     // weighs 1 (Charlson 1987, top of the file).
     let input = "patient,stay_ref,admitted,age,dx1\n\
 a,S-17,2024-01-10,72,I50.0\n";
-    let args = [
-        "explain",
-        "--dx",
-        "dx1",
-        "--id",
-        "patient",
-        "--date",
-        "admitted",
-        "--lookback",
-        "30",
-        "--age",
-        "age",
-        "--index",
-        "charlson:charlson1987",
-        "--label",
-        "stay_ref",
-    ];
+    let args = common::words(
+        "explain --dx dx1 --id patient --date admitted --lookback 30 \
+         --age age --index charlson:charlson1987 --label stay_ref",
+        &[],
+    );
     let (code, out, err) = morbus(&args, input);
     assert_eq!(code, 0, "{err}");
     assert_eq!(
@@ -741,9 +683,9 @@ fn explain_lists_each_index_window_sources() {
 a,2022-06-01,I50.0\n\
 a,2023-12-01,\n";
     let (code, out, err) = run(
-        "explain --dx dx1 --id patient --date admitted --lookback \
-        charlson=365,elixhauser=730 --index \
-        charlson:charlson1987,elixhauser:count",
+        "explain --dx dx1 --id patient --date admitted \
+         --lookback charlson=365,elixhauser=730 \
+         --index charlson:charlson1987,elixhauser:count",
         &[],
         input,
     );

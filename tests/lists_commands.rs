@@ -280,8 +280,8 @@ fn a_user_defined_index_scores_from_files_alone() {
     );
     let d = lists.path().display().to_string();
     let r = common::run(
-        "score {} --dx dx* --age age --flags --lists {} --index \
-        own_index,own_index:count",
+        "score {} --dx dx* --age age --flags --lists {} \
+         --index own_index,own_index:count",
         &[&data, &d],
     );
     assert_eq!(r.code, 0, "{}", r.stderr);
@@ -362,9 +362,9 @@ fn provenance_records_lists_options_and_counts() {
     let lists = TempDir::new("provlists");
     lists.write("own_index.tsv", OWN);
     let r = common::run(
-        "score {} --dx dx* --age age --flags --index \
-        charlson:charlson1987,hfrs,own_index:count --lists {} -o {} \
-        --provenance {}",
+        "score {} --dx dx* --age age --flags \
+         --index charlson:charlson1987,hfrs,own_index:count --lists {} \
+         -o {} --provenance {}",
         &[&input, &lists.path().display().to_string(), &out, &prov],
     );
     assert_eq!(r.code, 0, "{}", r.stderr);
@@ -472,16 +472,12 @@ fn provenance_records_lookback_dates_and_exclusions() {
          b,2024-13-40,C18.7,\n",
     );
     let prov = dir.join("p.json");
+    // One unreadable date in three: over the default 1%.
     let r = common::run(
-        "score {} --dx dx1,dx2 --id patient --date admitted --lookback \
-        all --exclude-primary --index charlson:count {} 50 --provenance \
-        {} -o {}",
-        &[
-            &input, // one unreadable date in three: over the default 1%
-            "--max-unreadable-dates",
-            &prov,
-            &dir.join("out.csv"),
-        ],
+        "score {} --dx dx1,dx2 --id patient --date admitted --lookback all \
+         --exclude-primary --index charlson:count --max-unreadable-dates 50 \
+         --provenance {} -o {}",
+        &[&input, &prov, &dir.join("out.csv")],
     );
     assert_eq!(r.code, 0, "{}", r.stderr);
     let v: serde_json::Value =

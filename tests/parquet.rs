@@ -17,13 +17,10 @@ use std::fs::File;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
-use arrow_array::builder::{
-    Date32Builder, Int64Builder, Int8Builder, LargeStringBuilder, ListBuilder, StringBuilder,
-    StringDictionaryBuilder,
-};
+use arrow_array::builder::{Date32Builder, Int64Builder, Int8Builder, ListBuilder, StringBuilder};
 use arrow_array::cast::AsArray;
 use arrow_array::types::Int32Type;
-use arrow_array::{Array, ArrayRef, RecordBatch};
+use arrow_array::{Array, ArrayRef, DictionaryArray, LargeStringArray, RecordBatch, StringArray};
 use arrow_schema::DataType;
 use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
 
@@ -79,40 +76,12 @@ fn write_both(
     let mut arrays: Vec<(String, ArrayRef)> = Vec::new();
     for (k, name) in header.iter().enumerate() {
         let values = rows[1..].iter().map(|r| r[k].as_str());
+        // Text of each kind: empty fields as nulls.
+        let texts = values.clone().map(|v| Some(v).filter(|v| !v.is_empty()));
         let a: ArrayRef = match kind_of(name) {
-            Kind::Text => {
-                let mut b = StringBuilder::new();
-                values.for_each(|v| {
-                    if v.is_empty() {
-                        b.append_null()
-                    } else {
-                        b.append_value(v)
-                    }
-                });
-                Arc::new(b.finish())
-            }
-            Kind::LargeText => {
-                let mut b = LargeStringBuilder::new();
-                values.for_each(|v| {
-                    if v.is_empty() {
-                        b.append_null()
-                    } else {
-                        b.append_value(v)
-                    }
-                });
-                Arc::new(b.finish())
-            }
-            Kind::Dict => {
-                let mut b = StringDictionaryBuilder::<Int32Type>::new();
-                values.for_each(|v| {
-                    if v.is_empty() {
-                        b.append_null()
-                    } else {
-                        b.append_value(v);
-                    }
-                });
-                Arc::new(b.finish())
-            }
+            Kind::Text => Arc::new(StringArray::from_iter(texts)),
+            Kind::LargeText => Arc::new(LargeStringArray::from_iter(texts)),
+            Kind::Dict => Arc::new(texts.collect::<DictionaryArray<Int32Type>>()),
             Kind::Date => {
                 let mut b = Date32Builder::new();
                 values.for_each(|v| {
@@ -521,7 +490,7 @@ fn explain_and_compare_read_parquet() {
     let compare = |input: &Path, json: &Path| {
         let r = common::run(
             "compare {} --dx dx* --outcome died_within_30_days --adjust age \
-            --adjust-cat sex --index charlson,hfrs --json {} -q",
+             --adjust-cat sex --index charlson,hfrs --json {} -q",
             &[s(input), s(json)],
         );
         assert_eq!(r.code, 0, "{}", r.stderr);
@@ -803,7 +772,7 @@ fn a_timestamp_with_a_time_zone_counts_on_its_date_in_that_zone() {
     write_parquet(&input, &batch, Some(10));
     let r = common::run(
         "score {} --dx dx1 --id patient --date admitted --lookback 365 \
-        --index charlson:charlson1987",
+         --index charlson:charlson1987",
         &[s(&input)],
     );
     assert_eq!(r.code, 0, "{}", r.stderr);

@@ -304,7 +304,7 @@ fn a_date_column_brings_the_unreadable_dates_stop() {
     // query, named after a view and kept with it.
     let pg = common::run(
         "sql --dialect postgres --table t --dx dx1 --id pid --date day \
-        --lookback 30",
+         --lookback 30",
         &[],
     );
     assert!(pg
@@ -312,7 +312,7 @@ fn a_date_column_brings_the_unreadable_dates_stop() {
         .contains("CREATE OR REPLACE FUNCTION pg_temp.\"morbus_stop\"(message TEXT)"));
     let pg = common::run(
         "sql --dialect postgres --table t --dx dx1 --id pid --date day \
-        --lookback 30 --create view s.scored",
+         --lookback 30 --create view s.scored",
         &[],
     );
     assert!(pg
