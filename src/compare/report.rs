@@ -225,14 +225,7 @@ fn histogram_svg(i: usize, ix: &IndexResult) -> String {
     let mut g = step;
     while g <= top_share * 1.0001 {
         let yy = top + ph - g / top_share * ph;
-        let _ = write!(
-            s,
-            r#"<line class="gridline" x1="{left}" y1="{yy:.1}" x2="{:.1}" y2="{yy:.1}"/><text class="tick" x="{:.1}" y="{:.1}" text-anchor="end">{}</text>"#,
-            left + pw,
-            left - 4.0,
-            yy + 4.0,
-            pct_short(g)
-        );
+        gridline(&mut s, left, pw, yy, &pct_short(g));
         g += step;
     }
     let nb = bins.len().max(1) as f64;
@@ -761,6 +754,18 @@ fn ticks(max: f64) -> Vec<f64> {
     v
 }
 
+/// A horizontal gridline at height `yy` across a plot `pw` wide from
+/// `left`, with its tick `label` on the left.
+fn gridline(s: &mut String, left: f64, pw: f64, yy: f64, label: &str) {
+    let _ = write!(
+        s,
+        r#"<line class="gridline" x1="{left}" y1="{yy:.1}" x2="{:.1}" y2="{yy:.1}"/><text class="tick" x="{:.1}" y="{:.1}" text-anchor="end">{label}</text>"#,
+        left + pw,
+        left - 4.0,
+        yy + 4.0,
+    );
+}
+
 /// Axes of a small panel: gridlines, tick labels, titles.
 #[allow(clippy::too_many_arguments)]
 fn panel_axes(
@@ -775,14 +780,7 @@ fn panel_axes(
 ) {
     for t in ticks(ymax) {
         let yy = top + ph - t / ymax * ph;
-        let _ = write!(
-            s,
-            r#"<line class="gridline" x1="{left}" y1="{yy:.1}" x2="{:.1}" y2="{yy:.1}"/><text class="tick" x="{:.1}" y="{:.1}" text-anchor="end">{}</text>"#,
-            left + pw,
-            left - 4.0,
-            yy + 4.0,
-            yfmt(t)
-        );
+        gridline(s, left, pw, yy, &yfmt(t));
     }
     for t in ticks(xmax) {
         let xx = left + t / xmax * pw;
