@@ -3,7 +3,7 @@
 
 use std::fmt::Write as _;
 
-use super::table::{fixed, model_cells, p_value, pct};
+use super::table::{discrimination_cells, fixed, model_cells, p_value, pct};
 use super::{fmt_count, fmt_num, Comparison, IndexResult, Model};
 
 /// Series colours: eight hues that stay apart under the common forms of
@@ -499,38 +499,14 @@ pub fn html_report(c: &Comparison) -> String {
         if clustered { "<th>95% CI (clusters)</th>" } else { "" }
     );
     for (i, ix) in c.indices.iter().enumerate() {
-        let cci = if clustered {
-            format!(
-                "<td>{}</td>",
-                ix.c_statistic.as_ref().and_then(|s| s.cluster_ci95).map_or(
-                    "–".into(),
-                    |[a, b]| format!("{} – {}", fixed(a, 3), fixed(b, 3))
-                )
-            )
-        } else {
-            String::new()
-        };
-        let (cs, ci) = match &ix.c_statistic {
-            Some(s) => (
-                fixed(s.estimate, 3),
-                s.ci95.map_or("–".into(), |[a, b]| {
-                    format!("{} – {}", fixed(a, 3), fixed(b, 3))
-                }),
-            ),
-            None => ("–".into(), "–".into()),
-        };
-        let (mc, aic) = ix.model.as_ref().map_or(("–".into(), "–".into()), |m| {
-            (fixed(m.c_statistic, 3), fixed(m.aic, 1))
-        });
         let lr = ix.added_value.as_ref().map_or("–".into(), |a| {
             format!("{} (p {})", fixed(a.statistic, 1), p_value(a.p_value))
         });
-        let _ = write!(
-            h,
-            "<tr><td>{}{}</td><td>{cs}</td><td>{ci}</td>{cci}<td>{mc}</td><td>{aic}</td><td>{lr}</td></tr>",
-            line_key(i),
-            esc(&ix.name)
-        );
+        let _ = write!(h, "<tr><td>{}{}</td>", line_key(i), esc(&ix.name));
+        for cell in discrimination_cells(ix, clustered, "–", " – ") {
+            let _ = write!(h, "<td>{cell}</td>");
+        }
+        let _ = write!(h, "<td>{lr}</td></tr>");
     }
     if let Some(m) = &c.adjustment_model {
         let _ = write!(
