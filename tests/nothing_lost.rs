@@ -543,41 +543,13 @@ fn an_interrupt_removes_the_temporary_files() {
         &["--id", "patient", "--lookback", "all", "--date", "admitted"],
     );
     // The partition files of a spilled history (a zero memory limit) go
-    // too.
-    interrupted(
-        "TERM",
-        15,
-        &[
-            "--id",
-            "patient",
-            "--lookback",
-            "all",
-            "--date",
-            "admitted",
-            "--memory",
-            "0",
-            "--temp-dir",
-            ".",
-        ],
+    // too; explain's too.
+    let spilled = common::words(
+        "--id patient --lookback all --date admitted --memory 0 --temp-dir .",
+        &[],
     );
-    // explain's too.
-    interrupted_run(
-        "explain",
-        "TERM",
-        15,
-        &[
-            "--id",
-            "patient",
-            "--lookback",
-            "all",
-            "--date",
-            "admitted",
-            "--memory",
-            "0",
-            "--temp-dir",
-            ".",
-        ],
-    );
+    interrupted("TERM", 15, &spilled);
+    interrupted_run("explain", "TERM", 15, &spilled);
 }
 
 /// Inputs that are not plain files: list files must be regular files of a

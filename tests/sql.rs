@@ -19,20 +19,21 @@ fn tmp(name: &str) -> PathBuf {
     dir
 }
 
-const BASE: &[&str] = &["sql", "--dialect", "duckdb", "--table", "episodes"];
-
-fn sql(extra: &[&str]) -> Run {
-    let mut args = BASE.to_vec();
-    args.extend_from_slice(extra);
-    morbus(&args)
+/// `morbus sql --dialect duckdb --table episodes LINE` (see
+/// [`common::words`]).
+fn sql(line: &str, values: &[&str]) -> Run {
+    common::run(
+        &format!("sql --dialect duckdb --table episodes {line}"),
+        values,
+    )
 }
 
 #[test]
 fn globs_need_the_tables_columns() {
-    let r = sql(&["--dx", "dx*"]);
+    let r = sql("--dx dx*", &[]);
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(r.stderr.contains("--columns"), "{}", r.stderr);
-    let r = sql(&["--dx", "dx*", "--columns", "id,dx1,dx2,age"]);
+    let r = sql("--dx dx* --columns id,dx1,dx2,age", &[]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     assert!(r.stdout.contains("2 AS position, CAST(r.\"dx2\" AS TEXT)"));
     assert!(!r.stdout.contains("\"age\" AS TEXT)"));
@@ -40,7 +41,7 @@ fn globs_need_the_tables_columns() {
 
 #[test]
 fn columns_and_options_are_checked_as_in_score() {
-    let r = sql(&["--dx", "dx1", "--age", "years", "--columns", "id,dx1,age"]);
+    let r = sql("--dx dx1 --age years --columns id,dx1,age", &[]);
     assert_eq!(r.code, 2);
     assert!(
         r.stderr
@@ -48,36 +49,27 @@ fn columns_and_options_are_checked_as_in_score() {
         "{}",
         r.stderr
     );
-    let r = sql(&["--dx", "dx1", "--lookback", "365", "--id", "id"]);
+    let r = sql("--dx dx1 --lookback 365 --id id", &[]);
     assert_eq!(r.code, 2);
     assert!(r.stderr.contains("--lookback needs --id"), "{}", r.stderr);
-    let r = sql(&["--dx", "dx1", "--create", "index", "x"]);
+    let r = sql("--dx dx1 --create index x", &[]);
     assert_eq!(r.code, 2);
     assert!(
         r.stderr.contains("'view NAME' or 'table NAME'"),
         "{}",
         r.stderr
     );
-    let r = sql(&["--dx", "dx1", "--layout", "long"]);
+    let r = sql("--dx dx1 --layout long", &[]);
     assert_eq!(r.code, 2);
     // An output column that the table already has.
-    let r = sql(&["--dx", "dx1", "--columns", "dx1,charlson_quan2011"]);
+    let r = sql("--dx dx1 --columns dx1,charlson_quan2011", &[]);
     assert_eq!(r.code, 2);
     assert!(r.stderr.contains("already exists"), "{}", r.stderr);
 }
 
 #[test]
 fn the_header_carries_version_lists_and_options() {
-    let r = sql(&[
-        "--dx",
-        "dx1,dx2",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "all",
-    ]);
+    let r = sql("--dx dx1,dx2 --id pid --date day --lookback all", &[]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     let header: Vec<&str> = r
         .stdout
@@ -100,16 +92,7 @@ fn the_header_carries_version_lists_and_options() {
     assert!(header.contains("--   max unreadable dates: 1%"));
     assert!(header.contains("--   diagnosis columns: dx1, dx2"));
     // The same options give the same script.
-    let again = sql(&[
-        "--dx",
-        "dx1,dx2",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "all",
-    ]);
+    let again = sql("--dx dx1,dx2 --id pid --date day --lookback all", &[]);
     assert_eq!(again.stdout, r.stdout);
 }
 
@@ -120,14 +103,10 @@ fn an_edited_list_changes_only_its_rows_and_header() {
     assert_eq!(r.code, 0, "{}", r.stderr);
     let path = dir.join("charlson.tsv");
     let text = std::fs::read_to_string(&path).unwrap();
-    let before = sql(&[
-        "--dx",
-        "dx1",
-        "--index",
-        "charlson",
-        "--lists",
-        dir.to_str().unwrap(),
-    ]);
+    let before = sql(
+        "--dx dx1 --index charlson --lists {}",
+        &[dir.to_str().unwrap()],
+    );
     assert_eq!(before.code, 0, "{}", before.stderr);
     // Remove the code line of I43 (cardiomyopathy in diseases classified
     // elsewhere, under congestive heart failure) and bump the version.
@@ -150,14 +129,10 @@ fn an_edited_list_changes_only_its_rows_and_header() {
         .collect();
     assert_eq!(removed, 1, "the exported list has one I43 code line");
     std::fs::write(&path, edited.join("\n") + "\n").unwrap();
-    let after = sql(&[
-        "--dx",
-        "dx1",
-        "--index",
-        "charlson",
-        "--lists",
-        dir.to_str().unwrap(),
-    ]);
+    let after = sql(
+        "--dx dx1 --index charlson --lists {}",
+        &[dir.to_str().unwrap()],
+    );
     assert_eq!(after.code, 0, "{}", after.stderr);
     let a: Vec<&str> = before.stdout.lines().collect();
     let b: Vec<&str> = after.stdout.lines().collect();
@@ -203,60 +178,36 @@ fn prefixes_export_writes_a_flat_csv() {
 #[test]
 fn history_options_are_checked_as_in_score() {
     // A window for a list the run does not score.
-    let r = sql(&[
-        "--dx",
-        "dx1",
-        "--index",
-        "charlson",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "hfrs=365",
-    ]);
+    let r = sql(
+        "--dx dx1 --index charlson --id pid --date day --lookback hfrs=365",
+        &[],
+    );
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(
         r.stderr.contains("names list 'hfrs', which is not scored"),
         "{}",
         r.stderr
     );
-    let r = sql(&["--dx", "dx1", "--window", "earlier-only"]);
+    let r = sql("--dx dx1 --window earlier-only", &[]);
     assert_eq!(r.code, 2);
     assert!(r.stderr.contains("--window is used with --lookback"));
-    let r = sql(&[
-        "--dx",
-        "dx1",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "30",
-        "--window",
-        "later",
-    ]);
+    let r = sql(
+        "--dx dx1 --id pid --date day --lookback 30 --window later",
+        &[],
+    );
     assert_eq!(r.code, 2);
     assert!(r.stderr.contains("'current-and-earlier' or 'earlier-only'"));
-    let r = sql(&[
-        "--dx",
-        "dx1",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "30",
-        "--date-format",
-        "%d/%m",
-    ]);
+    let r = sql(
+        "--dx dx1 --id pid --date day --lookback 30 --date-format %d/%m",
+        &[],
+    );
     assert_eq!(r.code, 2);
     assert!(
         r.stderr.contains("--date-format '%d/%m' must hold %Y"),
         "{}",
         r.stderr
     );
-    let r = sql(&["--dx", "dx1", "--max-unreadable-dates", "150"]);
+    let r = sql("--dx dx1 --max-unreadable-dates 150", &[]);
     assert_eq!(r.code, 2);
     assert!(r
         .stderr
@@ -267,7 +218,7 @@ fn history_options_are_checked_as_in_score() {
 fn edition_is_refused_with_its_reason() {
     // `score --edition` changes the summary's counts only, never a score:
     // the SQL, which writes no summary, says so rather than ignore it.
-    let r = sql(&["--dx", "dx1", "--edition", "who"]);
+    let r = sql("--dx dx1 --edition who", &[]);
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(
         r.stderr.contains("never changes a score") && r.stderr.contains("no summary"),
@@ -278,18 +229,11 @@ fn edition_is_refused_with_its_reason() {
 
 #[test]
 fn a_date_column_brings_the_unreadable_dates_stop() {
-    let with = sql(&[
-        "--dx",
-        "dx1",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "30",
-        "--max-unreadable-dates",
-        "2.5",
-    ]);
+    let with = sql(
+        "--dx dx1 --id pid --date day --lookback 30 \
+         --max-unreadable-dates 2.5",
+        &[],
+    );
     assert_eq!(with.code, 0, "{}", with.stderr);
     assert!(with
         .stdout
@@ -298,7 +242,7 @@ fn a_date_column_brings_the_unreadable_dates_stop() {
         .stdout
         .contains("more than the 2.5% allowed by --max-unreadable-dates"));
     assert!(with.stdout.contains("WHERE g.passed = 1"));
-    let without = sql(&["--dx", "dx1"]);
+    let without = sql("--dx dx1", &[]);
     assert!(!without.stdout.contains("date_guard"));
     // PostgreSQL: the function that raises the message, temporary for a
     // query, named after a view and kept with it.
@@ -322,7 +266,7 @@ fn a_date_column_brings_the_unreadable_dates_stop() {
 
 #[test]
 fn order_by_is_checked_and_postgres_without_it_warns() {
-    let r = sql(&["--dx", "dx1", "--columns", "id,dx1", "--order-by", "row_no"]);
+    let r = sql("--dx dx1 --columns id,dx1 --order-by row_no", &[]);
     assert_eq!(r.code, 2);
     assert!(
         r.stderr
@@ -330,7 +274,7 @@ fn order_by_is_checked_and_postgres_without_it_warns() {
         "{}",
         r.stderr
     );
-    let r = sql(&["--dx", "dx1", "--order-by", "id,dx1"]);
+    let r = sql("--dx dx1 --order-by id,dx1", &[]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     assert!(r
         .stdout
