@@ -598,6 +598,113 @@ fn csv_in_parquet_out_keeps_the_fields_as_text() {
     );
 }
 
+/// A CSV input written to Parquet on every route (no history, lookback in
+/// memory and spilled, long units with kept columns): each column holds
+/// the CSV run's values, the input's fields as text and the scores typed
+/// (handed over as values, never as text to be parsed).
+#[test]
+fn csv_in_parquet_out_equals_the_csv_run_on_every_route() {
+    let dir = TempDir::new("parquet-csv-routes");
+    let wide = root().join("demo-data/episodes.csv");
+    let long = root().join("demo-data/episodes-long.csv");
+    // A field with a line break, a comma and a quote, and empty fields.
+    let odd = dir.path().join("odd.csv");
+    std::fs::write(
+        &odd,
+        "id,day,note,dx1\r\nA,2020-01-01,\"two\nlines, \"\"q\"\"\",I21.9\r\nA,2020-03-01,,C78.0\r\nB,2020-01-01, x ,\r\n",
+    )
+    .unwrap();
+    let history = ["--id", "patient_id", "--date", "admission_date"];
+    let long_units = [
+        "--layout",
+        "long",
+        "--dx",
+        "code",
+        "--id",
+        "patient_id",
+        "--episode",
+        "episode_id",
+        "--keep",
+        "died_within_30_days,age",
+    ];
+    let mut cases: Vec<(PathBuf, Vec<&str>)> = WIDE_OPTIONS
+        .iter()
+        .map(|o| (wide.clone(), o.to_vec()))
+        .collect();
+    cases.push((
+        wide.clone(),
+        [
+            &["--dx", "dx*", "--lookback", "730", "--memory", "0"],
+            &history[..],
+        ]
+        .concat(),
+    ));
+    cases.push((
+        long.clone(),
+        vec!["--layout", "long", "--dx", "code", "--id", "episode_id"],
+    ));
+    cases.push((long.clone(), long_units.to_vec()));
+    for memory in ["1GiB", "0"] {
+        let mut o = long_units.to_vec();
+        o.extend([
+            "--date",
+            "admission_date",
+            "--lookback",
+            "365",
+            "--age",
+            "age",
+        ]);
+        o.extend(["--memory", memory]);
+        cases.push((long.clone(), o));
+    }
+    for memory in ["1GiB", "0"] {
+        let o = [
+            "--dx",
+            "dx1",
+            "--id",
+            "id",
+            "--date",
+            "day",
+            "--lookback",
+            "all",
+        ];
+        cases.push((odd.clone(), [&o[..], &["--memory", memory]].concat()));
+    }
+    cases.push((odd.clone(), vec!["--dx", "dx1"]));
+    for (k, (input, opts)) in cases.iter().enumerate() {
+        let out = dir.path().join(format!("out{k}.parquet"));
+        let mut a = vec!["score", s(input), "-o", s(&out)];
+        a.extend_from_slice(opts);
+        let r = morbus(&a);
+        assert_eq!(r.code, 0, "{opts:?}: {}", r.stderr);
+        let mut b = vec!["score", s(input)];
+        b.extend_from_slice(opts);
+        let reference = morbus(&b);
+        assert_eq!(reference.code, 0, "{opts:?}: {}", reference.stderr);
+        assert_eq!(r.stderr, reference.stderr, "{opts:?}");
+        let names = csv_header(&reference.stdout);
+        let (got, _) = read_parquet(&out);
+        let got_names: Vec<String> = got
+            .schema()
+            .fields()
+            .iter()
+            .map(|f| f.name().clone())
+            .collect();
+        assert_eq!(got_names, names, "{opts:?}");
+        for name in &names {
+            let mut expected = column(&reference.stdout, name);
+            if got.column_by_name(name).unwrap().data_type() == &DataType::Float64 {
+                for v in &mut expected {
+                    if !v.is_empty() {
+                        *v = v.parse::<f64>().unwrap().to_string();
+                    }
+                }
+            }
+            assert_same(&as_text(&got, name), &expected, &format!("{opts:?} {name}"));
+        }
+    }
+}
+
 #[test]
 fn a_list_column_passes_through_and_a_standard_input_parquet_is_read() {
     let dir = TempDir::new("parquet-list");

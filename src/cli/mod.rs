@@ -908,8 +908,14 @@ fn score(a: ScoreArgs) -> Result<(), Error> {
         };
         // The input's size lets a history that will not fit go to
         // partitions early (a hint; the output is the same without it).
+        // A Parquet output takes the scores as values, not as text.
         let cfg = pipeline::ScoreConfig {
             input_size: input.size,
+            output_form: if parquet_out {
+                pipeline::OutputForm::ValueRecords
+            } else {
+                pipeline::OutputForm::Text
+            },
             ..cfg.clone()
         };
         // A Parquet input without history is scored typed from its record

@@ -1,7 +1,8 @@
 //! Streaming delimited text: opening inputs and outputs (plain or gzip),
 //! cutting the input into blocks of whole records, and reading the fields of
 //! each record while keeping its raw bytes for byte-identical pass-through;
-//! Parquet in and out ([`parquet`]) through the same text.
+//! Parquet in and out ([`parquet`]); the value records a run hands a typed
+//! output ([`value_records`]).
 
 pub mod atomic;
 mod blocks;
@@ -10,6 +11,7 @@ mod files;
 #[cfg(feature = "parquet")]
 pub mod parquet;
 mod records;
+pub mod value_records;
 
 pub use atomic::{check_distinct, write_atomically, AtomicFile, End};
 pub use blocks::{line_ends, Block, BlockReader};

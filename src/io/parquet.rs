@@ -14,9 +14,13 @@
 //!   `Int64`, scores with decimals `Float64`, condition flags `Int8`, bands
 //!   text; missing values null), or the same as delimited text, the input's
 //!   values formatted by Arrow's formatter ([`TypedOutput`]).
-//! - **Out, from text** ([`ParquetSink`]): a history run (or a text input)
-//!   writes delimited text, read back record by record into typed score
-//!   columns; for a wide output of a Parquet input the input's own columns
+//! - **Out, from value records** ([`ParquetSink`]): a history run (or a
+//!   text input) hands each row over as a value record
+//!   ([`super::value_records`]): its pass-through fields as delimited text
+//!   and its scores as binary values, from which the score arrays are built
+//!   ([`ValueColumns`]); no score is parsed from text. `explain` hands its
+//!   records over as delimited text, read back into typed columns. For a
+//!   wide output of a Parquet input the input's own columns
 //!   are copied from the input file itself, arrays and types untouched, in
 //!   order; other kept columns (the id and episode of the long layout) take
 //!   their input type back when their text casts to it exactly. A wide
@@ -64,7 +68,7 @@ use parquet::arrow::{ArrowWriter, ProjectionMask};
 use parquet::basic::{Compression, ZstdLevel};
 use parquet::file::properties::WriterProperties;
 
-use super::write_field;
+use super::{value_records, write_field};
 use crate::lists::{SCALE, SCALE_DECIMALS};
 use crate::pipeline::Layout;
 use crate::pipeline::{DateFormat, ScoreConfig};
@@ -285,10 +289,149 @@ pub struct OutputColumns {
     /// Types of the input's columns (a Parquet input), by name: kept columns
     /// are cast back to them where the cast is exact.
     pub input_types: HashMap<String, DataType>,
+    /// The score columns of a run that hands its rows over as value records
+    /// ([`crate::io::value_records`]); `None`: the sink reads delimited text.
+    pub values: Option<ValueColumns>,
 }
 
-/// A [`Write`] that takes the pipeline's delimited output and writes it as
-/// Parquet (see the module documentation). [`ParquetSink::finish`] writes
+/// How each score column of an engine is typed in Parquet: whole-number
+/// scores `Int64`, scores with decimals `Float64` (the value as written
+/// with its decimals), bands text, condition flags `Int8`; a missing value
+/// is null.
+#[derive(Clone, Debug)]
+pub struct ValueColumns {
+    columns: Vec<(String, ValueKind)>,
+}
+
+#[derive(Clone, Debug)]
+enum ValueKind {
+    Whole,
+    /// Truncated to a multiple of `step` (in `1/SCALE` points).
+    Decimal {
+        step: i64,
+    },
+    /// The names of the specification's bands.
+    Band(Vec<String>),
+    Flag,
+}
+
+impl ValueColumns {
+    /// The score columns of `engine`.
+    pub fn of(engine: &Engine) -> ValueColumns {
+        let columns = engine
+            .columns()
+            .iter()
+            .map(|c| {
+                let kind = match c.kind {
+                    ColumnKind::Score { spec } | ColumnKind::ScoreWithAge { spec } => {
+                        match engine.decimals(spec) {
+                            0 => ValueKind::Whole,
+                            d => ValueKind::Decimal {
+                                step: 10i64.pow(SCALE_DECIMALS - d.min(SCALE_DECIMALS)),
+                            },
+                        }
+                    }
+                    ColumnKind::Band { spec } => {
+                        let s = &engine.specs()[spec];
+                        let list = &engine.lists()[s.list].list;
+                        ValueKind::Band(
+                            list.weightings[s.weighting]
+                                .bands
+                                .iter()
+                                .map(|b| b.name.clone())
+                                .collect(),
+                        )
+                    }
+                    ColumnKind::Flag { .. } => ValueKind::Flag,
+                };
+                (c.name.clone(), kind)
+            })
+            .collect();
+        ValueColumns { columns }
+    }
+
+    /// Values per row.
+    pub fn len(&self) -> usize {
+        self.columns.len()
+    }
+
+    /// Whether there are no score columns.
+    pub fn is_empty(&self) -> bool {
+        self.columns.is_empty()
+    }
+
+    /// The columns' names, in order.
+    pub fn names(&self) -> impl Iterator<Item = &str> {
+        self.columns.iter().map(|(n, _)| n.as_str())
+    }
+
+    /// The Arrow fields and arrays of `rows` rows whose values are `values`
+    /// ([`Self::len`] per row). A band is read by its number only and a
+    /// score by its points only: their column gives the rest.
+    pub fn arrays(&self, values: &[Value], rows: usize) -> Vec<(Field, ArrayRef)> {
+        let w = self.columns.len();
+        self.columns
+            .iter()
+            .enumerate()
+            .map(|(j, (name, kind))| {
+                let column = (0..rows).map(|i| values[i * w + j]);
+                let array: ArrayRef = match kind {
+                    ValueKind::Whole => {
+                        let mut b = Int64Builder::with_capacity(rows);
+                        for v in column {
+                            match v {
+                                Value::Score { scaled, .. } => b.append_value(scaled / SCALE),
+                                _ => b.append_null(),
+                            }
+                        }
+                        Arc::new(b.finish())
+                    }
+                    ValueKind::Decimal { step } => {
+                        // As written: truncated to its decimals.
+                        let mut b = Float64Builder::with_capacity(rows);
+                        for v in column {
+                            match v {
+                                Value::Score { scaled, .. } => {
+                                    b.append_value((scaled / step * step) as f64 / SCALE as f64)
+                                }
+                                _ => b.append_null(),
+                            }
+                        }
+                        Arc::new(b.finish())
+                    }
+                    ValueKind::Band(names) => {
+                        let mut b = StringBuilder::with_capacity(rows, rows * 8);
+                        for v in column {
+                            match v {
+                                Value::Band { band, .. } => b.append_value(&names[band as usize]),
+                                _ => b.append_null(),
+                            }
+                        }
+                        Arc::new(b.finish())
+                    }
+                    ValueKind::Flag => {
+                        let mut b = Int8Builder::with_capacity(rows);
+                        for v in column {
+                            match v {
+                                Value::Flag(f) => b.append_value(f as i8),
+                                _ => b.append_null(),
+                            }
+                        }
+                        Arc::new(b.finish())
+                    }
+                };
+                (
+                    Field::new(name.as_str(), array.data_type().clone(), true),
+                    array,
+                )
+            })
+            .collect()
+    }
+}
+
+/// A [`Write`] that takes the pipeline's output (value records for
+/// `score`, see [`OutputColumns::values`]; delimited text for `explain`)
+/// and writes it as Parquet (see the module documentation). [`ParquetSink::finish`] writes
 /// the file's footer; without it the file is incomplete.
 pub struct ParquetSink {
     /// The thread that copies the input's columns, encodes and writes.
@@ -310,6 +453,12 @@ pub struct ParquetSink {
     /// Rows per batch handed over.
     group_rows: usize,
     failed: Option<String>,
+    /// Value records being read (a run that hands its scores over typed),
+    /// the values of the rows taken so far, and how many of the header's
+    /// columns come as text before the score columns.
+    records: Option<value_records::Reader>,
+    values: Vec<Value>,
+    text_columns: usize,
 }
 
 /// Encoding and writing on a thread of its own, so that it runs beside the
@@ -522,6 +671,12 @@ impl ParquetSink {
         ParquetSink {
             copies: passthrough.is_some(),
             background: Some(Background::start(out, passthrough)),
+            records: columns
+                .values
+                .as_ref()
+                .map(|v| value_records::Reader::new(v.len())),
+            values: Vec::new(),
+            text_columns: 0,
             columns,
             csv: csv_core::ReaderBuilder::new().delimiter(delimiter).build(),
             fields: vec![0; 1 << 12],
@@ -568,17 +723,45 @@ impl ParquetSink {
         self.header = Some(Header { builders });
     }
 
+    /// The fields of the record read last.
+    fn names(&self) -> Vec<String> {
+        let fields = &self.fields[..self.nfield];
+        let ends = &self.ends[..self.nend];
+        (0..ends.len())
+            .map(|k| {
+                let from = if k == 0 { 0 } else { ends[k - 1] };
+                String::from_utf8_lossy(&fields[from..ends[k]]).into_owned()
+            })
+            .collect()
+    }
+
     /// Takes one record of the text.
     fn record(&mut self) -> Result<(), Error> {
+        if self.header.is_none() {
+            let names = self.names();
+            self.start(names);
+            return Ok(());
+        }
+        self.take_fields()?;
+        self.end_row()
+    }
+
+    /// Counts a row taken; a full group is written.
+    fn end_row(&mut self) -> Result<(), Error> {
+        self.rows += 1;
+        if self.rows >= self.group_rows {
+            self.flush_rows()?;
+        }
+        Ok(())
+    }
+
+    /// Puts the fields of the record read last into their columns.
+    fn take_fields(&mut self) -> Result<(), Error> {
         let fields = &self.fields[..self.nfield];
         let ends = &self.ends[..self.nend];
         let field = |k: usize| &fields[if k == 0 { 0 } else { ends[k - 1] }..ends[k]];
         let Some(header) = self.header.as_mut() else {
-            let names = (0..ends.len())
-                .map(|k| String::from_utf8_lossy(field(k)).into_owned())
-                .collect();
-            self.start(names);
-            return Ok(());
+            return Err(self.internal("a row before its header"));
         };
         if ends.len() != header.builders.len() {
             return Err(self.internal("a record of another width"));
@@ -624,11 +807,84 @@ impl ParquetSink {
                 }
             }
         }
-        self.rows += 1;
-        if self.rows >= self.group_rows {
-            self.flush_rows()?;
-        }
         Ok(())
+    }
+
+    /// Reads `text` (one delimited record with no line end) into the
+    /// fields of the record read last.
+    fn read_text(&mut self, mut text: &[u8]) -> Result<(), Error> {
+        use csv_core::ReadRecordResult as R;
+        self.nfield = 0;
+        self.nend = 0;
+        let mut ended = false;
+        loop {
+            let (res, nin, nout, nend) = self.csv.read_record(
+                text,
+                &mut self.fields[self.nfield..],
+                &mut self.ends[self.nend..],
+            );
+            text = &text[nin..];
+            self.nfield += nout;
+            self.nend += nend;
+            match res {
+                R::InputEmpty if !ended => {
+                    // The record's end.
+                    text = b"\n";
+                    ended = true;
+                }
+                R::OutputFull => {
+                    let n = self.fields.len();
+                    self.fields.resize(n * 2, 0);
+                }
+                R::OutputEndsFull => {
+                    let n = self.ends.len();
+                    self.ends.resize(n * 2, 0);
+                }
+                R::Record if ended && text.is_empty() => return Ok(()),
+                _ => return Err(self.internal("a row that is not one record")),
+            }
+        }
+    }
+
+    /// Takes the value records in `input` (see [`value_records`]).
+    fn feed_records(&mut self, input: &[u8]) -> Result<(), Error> {
+        let mut reader = self.records.take().expect("a value-record sink");
+        let r = reader.feed(input, |record| match record {
+            value_records::Record::Header(text) => {
+                self.read_text(text)?;
+                let names = self.names();
+                let scores = self.columns.values.as_ref().expect("score columns");
+                let text_columns = names.len().checked_sub(scores.len());
+                let ok = text_columns
+                    .is_some_and(|t| names[t..].iter().map(String::as_str).eq(scores.names()));
+                if !ok {
+                    return Err(self.internal("a header that does not end with the score columns"));
+                }
+                self.text_columns = text_columns.unwrap_or(0);
+                self.start(names[..self.text_columns].to_vec());
+                Ok(())
+            }
+            value_records::Record::Row(text, values) => {
+                match self.text_columns {
+                    0 if text.is_empty() => {}
+                    0 => return Err(self.internal("text where no column was named")),
+                    // A single empty field (a line that would read as blank).
+                    1 if text.is_empty() => {
+                        self.nfield = 0;
+                        self.nend = 1;
+                        self.ends[0] = 0;
+                    }
+                    _ => self.read_text(text)?,
+                }
+                if self.text_columns > 0 {
+                    self.take_fields()?;
+                }
+                self.values.extend_from_slice(values);
+                self.end_row()
+            }
+        });
+        self.records = Some(reader);
+        r
     }
 
     fn internal(&self, what: &str) -> Error {
@@ -661,6 +917,13 @@ impl ParquetSink {
             };
             fields.push(Field::new(name, a.data_type().clone(), true));
             arrays.push(a);
+        }
+        if let Some(scores) = &self.columns.values {
+            for (f, a) in scores.arrays(&self.values, rows) {
+                fields.push(f);
+                arrays.push(a);
+            }
+            self.values.clear();
         }
         let batch = RecordBatch::try_new_with_options(
             Arc::new(Schema::new(fields)),
@@ -731,7 +994,13 @@ impl ParquetSink {
         if let Some(m) = self.failed.take() {
             return Err(Error::data(None, m));
         }
-        self.feed(&[])?;
+        match &self.records {
+            Some(r) if !r.complete() => {
+                return Err(self.internal("value records cut short"));
+            }
+            Some(_) => {}
+            None => self.feed(&[])?,
+        }
         if self.header.is_none() && self.batches > 0 {
             // Typed batches only: all written.
             let mut b = self.background.take().expect("a writer thread");
@@ -855,7 +1124,11 @@ impl Write for ParquetSink {
         if let Some(m) = &self.failed {
             return Err(io::Error::other(m.clone()));
         }
-        let fed = self.feed(buf);
+        let fed = if self.records.is_some() {
+            self.feed_records(buf)
+        } else {
+            self.feed(buf)
+        };
         latch(&mut self.failed, fed, buf.len())
     }
     fn flush(&mut self) -> io::Result<()> {
@@ -888,6 +1161,7 @@ impl OutputColumns {
         OutputColumns {
             typed,
             input_types: input_types(input),
+            values: Some(ValueColumns::of(engine)),
         }
     }
 
@@ -919,6 +1193,7 @@ impl OutputColumns {
         OutputColumns {
             typed,
             input_types: input_types(input),
+            values: None,
         }
     }
 }
@@ -1336,69 +1611,7 @@ enum Rendered {
 /// with its decimals), bands text, condition flags `Int8`; a missing value
 /// is null.
 pub fn score_arrays(engine: &Engine, values: &[Value], rows: usize) -> Vec<(Field, ArrayRef)> {
-    let w = engine.columns().len();
-    engine
-        .columns()
-        .iter()
-        .enumerate()
-        .map(|(j, c)| {
-            let column = (0..rows).map(|i| values[i * w + j]);
-            let array: ArrayRef = match c.kind {
-                ColumnKind::Score { spec } | ColumnKind::ScoreWithAge { spec } => {
-                    let decimals = engine.decimals(spec);
-                    if decimals == 0 {
-                        let mut b = Int64Builder::with_capacity(rows);
-                        for v in column {
-                            match v {
-                                Value::Score { scaled, .. } => b.append_value(scaled / SCALE),
-                                _ => b.append_null(),
-                            }
-                        }
-                        Arc::new(b.finish())
-                    } else {
-                        // As written: truncated to its decimals.
-                        let step = 10i64.pow(SCALE_DECIMALS - decimals.min(SCALE_DECIMALS));
-                        let mut b = Float64Builder::with_capacity(rows);
-                        for v in column {
-                            match v {
-                                Value::Score { scaled, .. } => {
-                                    b.append_value((scaled / step * step) as f64 / SCALE as f64)
-                                }
-                                _ => b.append_null(),
-                            }
-                        }
-                        Arc::new(b.finish())
-                    }
-                }
-                ColumnKind::Band { .. } => {
-                    let mut b = StringBuilder::with_capacity(rows, rows * 8);
-                    for v in column {
-                        match v {
-                            Value::Band { spec, band } => {
-                                b.append_value(engine.band_name(spec, band))
-                            }
-                            _ => b.append_null(),
-                        }
-                    }
-                    Arc::new(b.finish())
-                }
-                ColumnKind::Flag { .. } => {
-                    let mut b = Int8Builder::with_capacity(rows);
-                    for v in column {
-                        match v {
-                            Value::Flag(f) => b.append_value(f as i8),
-                            _ => b.append_null(),
-                        }
-                    }
-                    Arc::new(b.finish())
-                }
-            };
-            (
-                Field::new(c.name.as_str(), array.data_type().clone(), true),
-                array,
-            )
-        })
-        .collect()
+    ValueColumns::of(engine).arrays(values, rows)
 }
 
 /// `columns` (fields and arrays of `rows` rows) then the score columns, as
@@ -1957,15 +2170,21 @@ mod tests {
             Some(source.clone()),
         )
         .with_group_rows(50);
-        // The score columns only, as a history run over typed rows writes
-        // them: the sink puts the input's columns in front.
+        // The score columns only, as value records, as a history run over
+        // typed rows writes them: the sink puts the input's columns in
+        // front.
         use crate::rows::RowSource;
         use std::io::Write as _;
         let mut rows = ParquetRows::from_source(source.clone(), Some(&[1]), "in").unwrap();
         let plan = crate::pipeline::plain::plan(&engine, &cfg, rows.header()).unwrap();
         let names: Vec<&str> = engine.columns().iter().map(|c| c.name.as_str()).collect();
-        sink.write_all(format!("{}\n", names.join(",")).as_bytes())
-            .unwrap();
+        let mut head = Vec::new();
+        value_records::start(&mut head);
+        value_records::put_text(&mut head, names.join(",").as_bytes());
+        // In pieces, as a writer may get them.
+        for piece in head.chunks(5) {
+            sink.write_all(piece).unwrap();
+        }
         let mut summary = crate::pipeline::Summary::default();
         let mut first = 1;
         while let Some(b) = rows.next_batch().unwrap() {
@@ -1981,11 +2200,10 @@ mod tests {
             assert!(err.is_none());
             summary.merge(s);
             for v in values.chunks(names.len()) {
-                let mut line = Vec::new();
-                engine.write_values(v, b',', &mut line);
-                line.remove(0);
-                line.push(b'\n');
-                sink.write_all(&line).unwrap();
+                let mut record = Vec::new();
+                value_records::put_text(&mut record, b"");
+                value_records::put_values(&mut record, v);
+                sink.write_all(&record).unwrap();
             }
             first += b.len() as u64;
         }

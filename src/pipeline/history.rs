@@ -23,8 +23,8 @@ use super::parallel::{run_batches, run_blocks};
 use super::partition::Spill;
 use super::rows_store::{Loaded, RowStore};
 use super::{
-    check_collisions, disagreement, keep_first, Exclusion, Layout, Plan, Progress, RowIssue,
-    ScoreConfig, Summary, WindowScope,
+    check_collisions, disagreement, keep_first, Exclusion, Layout, OutputForm, Plan, Progress,
+    RowIssue, ScoreConfig, Summary, WindowScope,
 };
 use crate::code::Code;
 use crate::io::{write_field, RecordScanner};
@@ -1666,7 +1666,7 @@ pub(crate) fn header_line(
         }
         write_field(c.name.as_bytes(), d, &mut out);
     }
-    out.extend_from_slice(eol);
+    super::end_header(cfg.output_form, eol, &mut out, 0);
     Ok(out)
 }
 
@@ -1705,8 +1705,17 @@ impl Formatter {
         engine.values(&self.bits, ep.age(), &mut self.values);
         let scores_only =
             cfg.layout == Layout::Wide && hist.raw_ends.is_empty() && !hist.rows_apart;
+        let start = out.len();
         match cfg.layout {
-            Layout::Wide if scores_only || hist.rows_apart => {}
+            // Rows kept apart (a spilled run): the merge puts each raw row
+            // (with its length, as value records) in front of its line.
+            Layout::Wide if hist.rows_apart => {
+                if cfg.output_form == OutputForm::ValueRecords {
+                    crate::io::value_records::put_values(out, &self.values);
+                    return;
+                }
+            }
+            Layout::Wide if scores_only => {}
             Layout::Wide => out.extend_from_slice(hist.raw_row(e, rows)),
             Layout::Long => {
                 write_field(hist.patient_id(ep.patient), d, out);
@@ -1720,13 +1729,16 @@ impl Formatter {
                 }
             }
         }
-        let at = out.len();
-        engine.write_values(&self.values, d, out);
-        if scores_only && out.len() > at {
-            // No column before the first score.
-            out.remove(at);
-        }
-        out.extend_from_slice(if p.crlf { b"\r\n" } else { b"\n" });
+        let eol: &[u8] = if p.crlf { b"\r\n" } else { b"\n" };
+        super::end_row(
+            engine,
+            cfg.output_form,
+            (d, eol),
+            &self.values,
+            !scores_only,
+            out,
+            start,
+        );
     }
 }
 

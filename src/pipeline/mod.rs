@@ -27,7 +27,7 @@ use crate::code::{Code, Reading};
 pub use crate::editions::{Edition, Existence};
 use crate::io::{Block, Fields, RecordRef};
 use crate::rows::{read_age_value, Age, AgeReading, Field, Row};
-use crate::score::Engine;
+use crate::score::{Engine, Value};
 use crate::Error;
 pub use dates::DateFormat;
 pub use explain::explain_stream;
@@ -215,6 +215,21 @@ pub struct ScoreConfig {
     /// Worker threads for the wide layout without lookback (0: one per core;
     /// at most 256).
     pub threads: usize,
+    /// How `score` hands its rows to the output: delimited text, or value
+    /// records for a typed sink (a Parquet output).
+    pub output_form: OutputForm,
+}
+
+/// How a `score` run writes its rows (see [`crate::io::value_records`]).
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum OutputForm {
+    /// Delimited text lines, the scores formatted.
+    #[default]
+    Text,
+    /// Value records: each row's pass-through part as delimited text, its
+    /// scores as binary values, for an output that types them (Parquet);
+    /// no score is written as text to be parsed again.
+    ValueRecords,
 }
 
 impl ScoreConfig {
@@ -380,6 +395,7 @@ impl Default for ScoreConfig {
             edition: Edition::Any,
             block_size: 1 << 20,
             threads: 0,
+            output_form: OutputForm::Text,
         }
     }
 }
@@ -1589,6 +1605,54 @@ impl Summary {
     pub(crate) fn count_disagreeing(&mut self, counted: &mut bool) {
         if !std::mem::replace(counted, true) {
             self.disagreeing_units += 1;
+        }
+    }
+}
+
+/// Ends an output row whose pass-through part (the input's own fields, or
+/// none when `passthrough` is false) is `out[start..]`: as text, its values
+/// after it and the line end; as value records, the part's length in front
+/// of it and the values in binary after it.
+#[inline]
+pub(crate) fn end_row(
+    engine: &Engine,
+    form: OutputForm,
+    (delimiter, eol): (u8, &[u8]),
+    values: &[Value],
+    passthrough: bool,
+    out: &mut Vec<u8>,
+    start: usize,
+) {
+    match form {
+        OutputForm::Text => {
+            let at = out.len();
+            engine.write_values(values, delimiter, out);
+            if !passthrough && out.len() > at {
+                // No column before the first score.
+                out.remove(at);
+            }
+            out.extend_from_slice(eol);
+        }
+        OutputForm::ValueRecords => {
+            let mut len = Vec::with_capacity(4);
+            crate::io::value_records::put_varint(&mut len, (out.len() - start) as u64);
+            out.splice(start..start, len);
+            crate::io::value_records::put_values(out, values);
+        }
+    }
+}
+
+/// Ends the output's header line, `out[start..]` (its names, delimited): as
+/// text, the line end; as value records, the stream's opening and the
+/// names' length in front of them.
+pub(crate) fn end_header(form: OutputForm, eol: &[u8], out: &mut Vec<u8>, start: usize) {
+    match form {
+        OutputForm::Text => out.extend_from_slice(eol),
+        OutputForm::ValueRecords => {
+            let mut head = Vec::with_capacity(crate::io::value_records::MAGIC.len() + 4);
+            crate::io::value_records::start(&mut head);
+            crate::io::value_records::put_varint(&mut head, (out.len() - start) as u64);
+            out.splice(start..start, head);
         }
     }
 }

@@ -48,8 +48,9 @@ use super::history::{
     check_unreadable_dates, Builder, CodeRecord, DateRead, Formatter, RowIn, Windows,
 };
 use super::rows_store::RowStore;
-use super::{Exclusion, Layout, OverMemory, Plan, ScoreConfig, Summary};
+use super::{Exclusion, Layout, OutputForm, OverMemory, Plan, ScoreConfig, Summary};
 use crate::code::Code;
+use crate::io::value_records::put_varint;
 use crate::matcher::KeyHasher;
 use crate::score::Engine;
 use crate::Error;
@@ -148,14 +149,6 @@ fn partition_of(pid: &[u8]) -> usize {
     h.write(pid);
     let x = h.finish().wrapping_mul(0xD6E8_FEB8_6659_FD93);
     ((x >> 32) as usize) % PARTITIONS
-}
-
-fn put_varint(rec: &mut Vec<u8>, mut x: u64) {
-    while x >= 0x80 {
-        rec.push(x as u8 | 0x80);
-        x >>= 7;
-    }
-    rec.push(x as u8);
 }
 
 fn put_bytes(rec: &mut Vec<u8>, b: &[u8]) {
@@ -506,7 +499,12 @@ impl Spill {
                         ),
                     ));
                 }
-                out.extend_from_slice(&raw_row);
+                match cfg.output_form {
+                    OutputForm::Text => out.extend_from_slice(&raw_row),
+                    OutputForm::ValueRecords => {
+                        crate::io::value_records::put_text(&mut out, &raw_row)
+                    }
+                }
             }
             out.extend_from_slice(r.line());
             if out.len() >= 1 << 20 {

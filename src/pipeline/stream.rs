@@ -8,7 +8,9 @@ use std::hash::BuildHasherDefault;
 use std::io::{Read, Write};
 
 use super::parallel::run_blocks;
-use super::{check_collisions, Exclusion, Layout, Plan, Progress, ScoreConfig, Summary};
+use super::{
+    check_collisions, end_header, end_row, Exclusion, Layout, Plan, Progress, ScoreConfig, Summary,
+};
 use crate::io::{write_field, Block, BlockReader, RecordScanner};
 use crate::matcher::KeyHasher;
 use crate::score::{Engine, Value};
@@ -60,7 +62,12 @@ fn score_long(
                     out.push(d);
                     write_field(c.name.as_bytes(), d, &mut out);
                 }
-                out.extend_from_slice(if rec.crlf { b"\r\n" } else { b"\n" });
+                end_header(
+                    cfg.output_form,
+                    if rec.crlf { b"\r\n" } else { b"\n" },
+                    &mut out,
+                    0,
+                );
                 plan = Some(p);
                 return Ok(());
             };
@@ -112,9 +119,18 @@ fn score_long(
         let bits = &mut long.bits[u * words..(u + 1) * words];
         engine.apply_hierarchy(bits, &mut scratch);
         engine.values(bits, long.ages[u], &mut values);
+        let start = out.len();
         write_field(id, d, &mut out);
-        engine.write_values(&values, d, &mut out);
-        out.extend_from_slice(if p.crlf { b"\r\n" } else { b"\n" });
+        let eol: &[u8] = if p.crlf { b"\r\n" } else { b"\n" };
+        end_row(
+            engine,
+            cfg.output_form,
+            (d, eol),
+            &values,
+            true,
+            &mut out,
+            start,
+        );
         summary.rows_written += 1;
         summary.units += 1;
         if out.len() > cfg.block_size {
@@ -188,9 +204,9 @@ fn score_wide_block(
             .map_err(|i| p.issue(i, block, &rec))?;
         engine.apply_hierarchy(&mut unit.bits, &mut unit.scratch);
         engine.values(&unit.bits, age, &mut values);
+        let start = out.len();
         out.extend_from_slice(rec.raw);
-        engine.write_values(&values, d, out);
-        out.extend_from_slice(eol);
+        end_row(engine, cfg.output_form, (d, eol), &values, true, out, start);
         summary.rows_written += 1;
         summary.units += 1;
         Ok(())
@@ -225,7 +241,8 @@ fn score_wide_parallel(
                 header_out.push(cfg.delimiter);
                 write_field(c.name.as_bytes(), cfg.delimiter, &mut header_out);
             }
-            header_out.extend_from_slice(if rec.crlf { b"\r\n" } else { b"\n" });
+            let eol: &[u8] = if rec.crlf { b"\r\n" } else { b"\n" };
+            end_header(cfg.output_form, eol, &mut header_out, 0);
             Ok((p, header_out))
         },
         |h, block, start, scanner| {
