@@ -3,6 +3,7 @@
 //! episode and index.
 
 use std::collections::BTreeMap;
+use std::fmt::Write as _;
 use std::io::Write;
 use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::{Condvar, Mutex};
@@ -67,9 +68,10 @@ impl Status {
     }
 }
 
-fn iso(days: Option<i32>) -> String {
+/// A day as `YYYY-MM-DD`, appended to `out` (nothing for no day).
+fn iso_into(days: Option<i32>, out: &mut String) {
     let Some(z) = days else {
-        return String::new();
+        return;
     };
     // H. Hinnant's civil_from_days.
     let z = z as i64 + 719_468;
@@ -82,11 +84,16 @@ fn iso(days: Option<i32>) -> String {
     let d = doy - (153 * mp + 2) / 5 + 1;
     let m = if mp < 10 { mp + 3 } else { mp - 9 };
     let y = if m <= 2 { y + 1 } else { y };
-    format!("{y:04}-{m:02}-{d:02}")
+    let _ = write!(out, "{y:04}-{m:02}-{d:02}");
 }
 
-fn json_str(s: &str) -> String {
-    serde_json::to_string(s).unwrap_or_else(|_| "\"\"".into())
+/// `s` as a JSON string, appended to `out`.
+fn json_str(s: &str, out: &mut Vec<u8>) {
+    let at = out.len();
+    if serde_json::to_writer(&mut *out, s).is_err() {
+        out.truncate(at);
+        out.extend_from_slice(b"\"\"");
+    }
 }
 
 /// One record of `explain`, typed: a matched code of an episode's window,
@@ -352,37 +359,54 @@ impl Explainer {
     }
 
     fn emit(&self, out: &mut Vec<u8>, cells: &[String]) {
-        let d = self.delimiter;
+        self.open(out);
+        for (i, c) in cells.iter().enumerate() {
+            self.cell(out, i, c);
+        }
+        self.close(out);
+    }
+
+    /// Starts a line.
+    fn open(&self, out: &mut Vec<u8>) {
+        if self.format == ExplainFormat::JsonLines {
+            out.push(b'{');
+        }
+    }
+
+    /// Cell `i` of a line (column `i` of the header), after what separates
+    /// it from the cell before.
+    fn cell(&self, out: &mut Vec<u8>, i: usize, v: &str) {
         match self.format {
             ExplainFormat::Csv => {
-                for (i, c) in cells.iter().enumerate() {
-                    if i > 0 {
-                        out.push(d);
-                    }
-                    write_field(c.as_bytes(), d, out);
+                if i > 0 {
+                    out.push(self.delimiter);
                 }
-                out.push(b'\n');
+                write_field(v.as_bytes(), self.delimiter, out);
             }
             ExplainFormat::JsonLines => {
-                out.push(b'{');
-                for (i, (k, v)) in self.head.iter().zip(cells).enumerate() {
-                    if i > 0 {
-                        out.push(b',');
-                    }
-                    out.extend_from_slice(json_str(k).as_bytes());
-                    out.push(b':');
-                    if !self.numeric[i] {
-                        out.extend_from_slice(json_str(v).as_bytes());
-                    } else if v.is_empty() {
-                        out.extend_from_slice(b"null");
-                    } else {
-                        // Row numbers and weights as written: whole numbers
-                        // or decimals, valid JSON numbers.
-                        out.extend_from_slice(v.as_bytes());
-                    }
+                if i > 0 {
+                    out.push(b',');
                 }
-                out.extend_from_slice(b"}\n");
+                json_str(&self.head[i], out);
+                out.push(b':');
+                if !self.numeric[i] {
+                    json_str(v, out);
+                } else if v.is_empty() {
+                    out.extend_from_slice(b"null");
+                } else {
+                    // Row numbers and weights as written: whole numbers
+                    // or decimals, valid JSON numbers.
+                    out.extend_from_slice(v.as_bytes());
+                }
             }
+        }
+    }
+
+    /// Ends a line.
+    fn close(&self, out: &mut Vec<u8>) {
+        match self.format {
+            ExplainFormat::Csv => out.push(b'\n'),
+            ExplainFormat::JsonLines => out.extend_from_slice(b"}\n"),
         }
     }
 
@@ -427,53 +451,75 @@ impl Explainer {
         e: usize,
         out: &mut Vec<u8>,
     ) {
-        let scaled_text = |scaled: i64, decimals: u32| {
-            let mut t = Vec::new();
-            format_scaled(scaled, decimals, &mut t);
-            String::from_utf8_lossy(&t).into_owned()
-        };
+        // The episode's own cells, made once; then each record's, through
+        // two reused buffers.
         let ep = &hist.episodes[e];
-        let mut prefix: Vec<String> = Vec::new();
+        let mut prefix = Vec::new();
+        self.open(&mut prefix);
+        let mut first = 0;
+        let mut own = |v: &[u8]| {
+            self.cell(&mut prefix, first, &String::from_utf8_lossy(v));
+            first += 1;
+        };
         if self.id {
-            prefix.push(String::from_utf8_lossy(hist.patient_id(ep.patient)).into_owned());
+            own(hist.patient_id(ep.patient));
         }
         if self.episode {
-            prefix.push(String::from_utf8_lossy(hist.key(e)).into_owned());
+            own(hist.key(e));
         }
         for j in 0..self.nkeep {
-            prefix.push(String::from_utf8_lossy(hist.kept(e, j)).into_owned());
+            own(hist.kept(e, j));
         }
-        prefix.push(hist.row(e).to_string());
+        own(hist.row(e).to_string().as_bytes());
+        let (mut text, mut number) = (String::new(), Vec::new());
         // The sink never fails: nothing to pass on.
         let _ = explain_episode(engine, windows, hist, sorted, prepared, e, &mut |r| {
             let spec = &engine.specs()[r.spec];
             let list = &engine.lists()[spec.list].list;
             let weighting = &list.weightings[spec.weighting];
-            let mut cells = prefix.clone();
-            cells.push(format!("{}:{}", list.name, weighting.name));
+            out.extend_from_slice(&prefix);
+            let mut i = first;
+            let mut cell = |out: &mut Vec<u8>, v: &str| {
+                self.cell(out, i, v);
+                i += 1;
+            };
+            text.clear();
+            let _ = write!(text, "{}:{}", list.name, weighting.name);
+            cell(out, &text);
             match (r.source, r.condition) {
                 (Some((src, rec)), Some(c)) => {
-                    cells.push(hist.row(src).to_string());
-                    cells.push(iso(r.date(hist)));
-                    cells.push(String::from_utf8_lossy(&rec.written).trim().to_string());
-                    cells.push(rec.code.to_string());
-                    cells.push(list.conditions[c].key.clone());
+                    text.clear();
+                    let _ = write!(text, "{}", hist.row(src));
+                    cell(out, &text);
+                    text.clear();
+                    iso_into(r.date(hist), &mut text);
+                    cell(out, &text);
+                    cell(out, String::from_utf8_lossy(&rec.written).trim());
+                    text.clear();
+                    let _ = write!(text, "{}", rec.code);
+                    cell(out, &text);
+                    cell(out, &list.conditions[c].key);
                 }
-                _ => cells.extend([
-                    String::new(),
-                    iso(r.date(hist)),
-                    String::new(),
-                    String::new(),
-                    String::new(),
-                ]),
+                _ => {
+                    cell(out, "");
+                    text.clear();
+                    iso_into(r.date(hist), &mut text);
+                    cell(out, &text);
+                    cell(out, "");
+                    cell(out, "");
+                    cell(out, "");
+                }
             }
-            cells.push(scaled_text(r.weight, r.decimals));
-            cells.push(r.status);
-            cells.push(
-                r.age_points
-                    .map_or_else(String::new, |a| scaled_text(a, r.decimals)),
-            );
-            self.emit(out, &cells);
+            number.clear();
+            format_scaled(r.weight, r.decimals, &mut number);
+            cell(out, &String::from_utf8_lossy(&number));
+            cell(out, &r.status);
+            number.clear();
+            if let Some(a) = r.age_points {
+                format_scaled(a, r.decimals, &mut number);
+            }
+            cell(out, &String::from_utf8_lossy(&number));
+            self.close(out);
             Ok(())
         });
     }
