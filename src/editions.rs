@@ -28,6 +28,7 @@
 //! ```
 
 use crate::code::Code;
+use crate::matcher::{alnum36, slot};
 
 mod tables {
     include!(concat!(env!("OUT_DIR"), "/editions.rs"));
@@ -119,20 +120,6 @@ impl Existence {
     }
 }
 
-#[inline]
-fn alnum36(c: u8) -> u32 {
-    if c.is_ascii_digit() {
-        (c - b'0') as u32
-    } else {
-        (c - b'A') as u32 + 10
-    }
-}
-
-#[inline]
-fn slot(b: &[u8]) -> usize {
-    (((b[0] - b'A') as u32 * 10 + (b[1] - b'0') as u32) * 36 + alnum36(b[2])) as usize
-}
-
 /// The packed key of the characters after the third (as `src/build.rs`).
 #[inline]
 fn key(rest: &[u8]) -> u32 {
@@ -140,7 +127,7 @@ fn key(rest: &[u8]) -> u32 {
     for i in 0..4 {
         k <<= 6;
         if let Some(&c) = rest.get(i) {
-            k |= alnum36(c) + 1;
+            k |= alnum36(c) as u32 + 1;
         }
     }
     k

@@ -39,8 +39,9 @@ type KeyMap<V> = HashMap<u64, V, BuildHasherDefault<KeyHasher>>;
 
 const SLOTS: usize = 26 * 10 * 36;
 
+/// A digit or capital letter as 0-35 (digits first).
 #[inline]
-fn alnum36(c: u8) -> usize {
+pub(crate) fn alnum36(c: u8) -> usize {
     if c.is_ascii_digit() {
         (c - b'0') as usize
     } else {
@@ -48,8 +49,10 @@ fn alnum36(c: u8) -> usize {
     }
 }
 
+/// The slot of a category (its first three characters: letter, digit,
+/// digit or letter), from 0 to 26 × 10 × 36 − 1.
 #[inline]
-fn slot(code: &[u8]) -> usize {
+pub(crate) fn slot(code: &[u8]) -> usize {
     ((code[0] - b'A') as usize * 10 + (code[1] - b'0') as usize) * 36 + alnum36(code[2])
 }
 

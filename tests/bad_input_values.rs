@@ -178,7 +178,7 @@ fn poa_values_can_say_otherwise() {
         WIDE_POA,
         &with(
             CHARLSON,
-            &["--dx", "dx*", "--poa", "poa*", "--poa-values", "Y"],
+            &common::words("--dx dx* --poa poa* --poa-values Y", &[]),
         ),
     );
     accepted(&o, WIDE_POA);
@@ -189,7 +189,7 @@ fn poa_values_can_say_otherwise() {
         WIDE_POA,
         &with(
             CHARLSON,
-            &["--dx", "dx*", "--poa", "poa*", "--poa-values", "blank,e"],
+            &common::words("--dx dx* --poa poa* --poa-values blank,e", &[]),
         ),
     );
     accepted(&o, WIDE_POA);
@@ -272,22 +272,11 @@ p1,e2,2024-03-01,I50,Y
         long,
         &with(
             CHARLSON,
-            &[
-                "--layout",
-                "long",
-                "--id",
-                "pid",
-                "--episode",
-                "ep",
-                "--date",
-                "date",
-                "--lookback",
-                "365",
-                "--dx",
-                "code",
-                "--poa",
-                "poa",
-            ],
+            &common::words(
+                "--layout long --id pid --episode ep --date date --lookback 365 \
+                 --dx code --poa poa",
+                &[],
+            ),
         ),
     );
     assert_eq!(o.code, 0, "{}", o.stderr);
@@ -298,18 +287,10 @@ p1,e2,2024-03-01,I50,Y
         long,
         &with(
             CHARLSON,
-            &[
-                "--layout",
-                "long",
-                "--id",
-                "pid",
-                "--episode",
-                "ep",
-                "--dx",
-                "code",
-                "--poa",
-                "poa",
-            ],
+            &common::words(
+                "--layout long --id pid --episode ep --dx code --poa poa",
+                &[],
+            ),
         ),
     );
     assert_eq!(col(&o, "charlson_charlson1987"), ["0", "1"]);
@@ -324,47 +305,18 @@ fn poa_applies_to_the_episode_being_scored_only_wide() {
 p1,2024-01-10,I21,,N,
 p1,2024-03-01,I50,C78.0,Y,U
 ";
-    let o = score(
-        wide,
-        &with(
-            CHARLSON,
-            &[
-                "--id",
-                "pid",
-                "--date",
-                "date",
-                "--lookback",
-                "365",
-                "--dx",
-                "dx*",
-                "--poa",
-                "poa*",
-            ],
+    let args = with(
+        CHARLSON,
+        &common::words(
+            "--id pid --date date --lookback 365 --dx dx* --poa poa*",
+            &[],
         ),
     );
+    let o = score(wide, &args);
     accepted(&o, wide);
     assert_eq!(col(&o, "charlson_charlson1987"), ["0", "2"]);
     // explain gives each code's status.
-    let o = run_on(
-        "explain",
-        "in.csv",
-        wide.as_bytes(),
-        &with(
-            CHARLSON,
-            &[
-                "--id",
-                "pid",
-                "--date",
-                "date",
-                "--lookback",
-                "365",
-                "--dx",
-                "dx*",
-                "--poa",
-                "poa*",
-            ],
-        ),
-    );
+    let o = run_on("explain", "in.csv", wide.as_bytes(), &args);
     assert_eq!(o.code, 0, "{}", o.stderr);
     let text = String::from_utf8_lossy(&o.stdout);
     let statuses: Vec<String> = common::column(&text, "status");
@@ -608,34 +560,23 @@ fn parquet_ages_past_130_are_unreadable() {
         ),
     ])
     .unwrap();
-    let mut w = parquet::arrow::ArrowWriter::try_new(
-        std::fs::File::create(&path).unwrap(),
-        batch.schema(),
-        None,
-    )
-    .unwrap();
-    w.write(&batch).unwrap();
-    w.close().unwrap();
-    let o = Command::new(env!("CARGO_BIN_EXE_morbus"))
-        .arg("score")
-        .arg(&path)
-        .args([
-            "--dx",
-            "dx1",
-            "--age",
-            "age",
-            "--index",
-            "charlson:charlson1987",
-        ])
-        .output()
-        .unwrap();
-    assert_eq!(o.status.code(), Some(0));
-    let text = String::from_utf8_lossy(&o.stdout);
+    common::write_parquet(&path, &batch, None);
+    let r = common::morbus(&[
+        "score",
+        path.to_str().unwrap(),
+        "--dx",
+        "dx1",
+        "--age",
+        "age",
+        "--index",
+        "charlson:charlson1987",
+    ]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
     assert_eq!(
-        common::column(&text, "charlson_charlson1987_age"),
+        common::column(&r.stdout, "charlson_charlson1987_age"),
         ["", "5", ""]
     );
-    assert!(String::from_utf8_lossy(&o.stderr).contains("; ages missing: 0, unreadable: 2"));
+    assert!(r.stderr.contains("; ages missing: 0, unreadable: 2"));
 }
 
 // ---- weights past the exact-decimal range ---------------------------------
@@ -759,14 +700,7 @@ fn parquet_wide_poa_reads_the_paired_columns() {
     .unwrap();
     let dir = TempDir::new("values-parquet-poa");
     let path = dir.path().join("wide.parquet");
-    let mut w = parquet::arrow::ArrowWriter::try_new(
-        std::fs::File::create(&path).unwrap(),
-        batch.schema(),
-        None,
-    )
-    .unwrap();
-    w.write(&batch).unwrap();
-    w.close().unwrap();
+    common::write_parquet(&path, &batch, None);
     let bytes = std::fs::read(&path).unwrap();
     // explain reads only the columns the run uses (the paired ones here).
     let o = run_on(
@@ -803,7 +737,10 @@ fn a_field_indicator_covers_every_code_of_a_split_field() {
     let input = "id,dx1,poa1\n1,I21|C78.0,N\n2,I21|C78.0,Y\n";
     let o = score(
         input,
-        &with(CHARLSON, &["--dx", "dx1", "--dx-sep", "|", "--poa", "poa*"]),
+        &with(
+            CHARLSON,
+            &common::words("--dx dx1 --dx-sep | --poa poa*", &[]),
+        ),
     );
     accepted(&o, input);
     assert_eq!(col(&o, "charlson_charlson1987"), ["0", "7"]);

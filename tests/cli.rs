@@ -4,8 +4,7 @@
 mod common;
 
 use std::io::Write;
-use std::path::{Path, PathBuf};
-use std::process::{Command, Stdio};
+use std::path::PathBuf;
 
 use common::column;
 
@@ -22,20 +21,7 @@ impl Run {
 }
 
 fn morbus(args: &[&str], stdin: &[u8]) -> Run {
-    let mut child = Command::new(env!("CARGO_BIN_EXE_morbus"))
-        .args(args)
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .expect("run morbus");
-    let mut input = child.stdin.take().unwrap();
-    let data = stdin.to_vec();
-    let writer = std::thread::spawn(move || {
-        let _ = input.write_all(&data);
-    });
-    let out = child.wait_with_output().unwrap();
-    writer.join().unwrap();
+    let out = common::pipe(args, stdin);
     Run {
         code: out.status.code().unwrap_or(-1),
         stdout: out.stdout,
@@ -43,14 +29,20 @@ fn morbus(args: &[&str], stdin: &[u8]) -> Run {
     }
 }
 
+/// `morbus ARGS` on `stdin` exits with `code` and says `message`.
+fn refused(args: &[&str], stdin: &[u8], code: i32, message: &str) -> Run {
+    let r = morbus(args, stdin);
+    assert_eq!(r.code, code, "{}", r.stderr);
+    assert!(r.stderr.contains(message), "{}", r.stderr);
+    r
+}
+
 fn tmp(name: &str) -> PathBuf {
-    let dir = std::env::temp_dir().join(format!("morbus-cli-{}", std::process::id()));
-    std::fs::create_dir_all(&dir).unwrap();
-    dir.join(name)
+    common::scratch("cli", name)
 }
 
 fn demo() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data/episodes.csv")
+    common::root().join("demo-data/episodes.csv")
 }
 
 const SMALL: &str = "episode,age,dx1,dx2,dx3\n\
@@ -230,70 +222,59 @@ fn dx_sep_splits_fields() {
 
 #[test]
 fn missing_column_lists_the_columns_that_exist() {
-    let r = morbus(&["score", "--dx", "diag1"], SMALL.as_bytes());
-    assert_eq!(r.code, 2);
-    assert!(r.stderr.contains("'diag1' not found"), "{}", r.stderr);
+    let r = refused(
+        &["score", "--dx", "diag1"],
+        SMALL.as_bytes(),
+        2,
+        "'diag1' not found",
+    );
     assert!(
         r.stderr.contains("episode, age, dx1, dx2, dx3"),
         "{}",
         r.stderr
     );
-    let r = morbus(&["score", "--dx", "diag*"], SMALL.as_bytes());
-    assert_eq!(r.code, 2);
-    assert!(r.stderr.contains("matches no column"), "{}", r.stderr);
-    let r = morbus(
+    refused(
+        &["score", "--dx", "diag*"],
+        SMALL.as_bytes(),
+        2,
+        "matches no column",
+    );
+    refused(
         &["score", "--dx", "dx*", "--age", "years"],
         SMALL.as_bytes(),
-    );
-    assert_eq!(r.code, 2);
-    assert!(
-        r.stderr.contains("age column 'years' not found"),
-        "{}",
-        r.stderr
+        2,
+        "age column 'years' not found",
     );
 }
 
 #[test]
 fn unknown_list_or_weighting_lists_the_valid_ones() {
-    let r = morbus(
+    refused(
         &["score", "--dx", "dx*", "--index", "charlsen"],
         SMALL.as_bytes(),
+        2,
+        "unknown list 'charlsen'; available lists: charlson, elixhauser, hfrs",
     );
-    assert_eq!(r.code, 2);
-    assert!(
-        r.stderr
-            .contains("unknown list 'charlsen'; available lists: charlson, elixhauser, hfrs"),
-        "{}",
-        r.stderr
-    );
-    let r = morbus(
+    refused(
         &["score", "--dx", "dx*", "--index", "elixhauser:quan2011"],
         SMALL.as_bytes(),
-    );
-    assert_eq!(r.code, 2);
-    assert!(
-        r.stderr.contains("its weightings: vanwalraven2009, count"),
-        "{}",
-        r.stderr
+        2,
+        "its weightings: vanwalraven2009, count",
     );
 }
 
 #[test]
 fn malformed_record_reports_its_line() {
     let input = "id,dx1,dx2\n1,I21,I50\n2,I10\n3,C78,\n";
-    let r = morbus(&["score", "--dx", "dx*"], input.as_bytes());
-    assert_eq!(r.code, 1);
-    assert!(
-        r.stderr
-            .contains("line 3: record has 2 fields but the header has 3"),
-        "{}",
-        r.stderr
+    refused(
+        &["score", "--dx", "dx*"],
+        input.as_bytes(),
+        1,
+        "line 3: record has 2 fields but the header has 3",
     );
     // A quoted field spanning lines counts its lines.
     let input = "id,note,dx1\n1,\"two\nlines\",I21\n2,x\n";
-    let r = morbus(&["score", "--dx", "dx1"], input.as_bytes());
-    assert_eq!(r.code, 1);
-    assert!(r.stderr.contains("line 4:"), "{}", r.stderr);
+    refused(&["score", "--dx", "dx1"], input.as_bytes(), 1, "line 4:");
 }
 
 #[test]
@@ -330,9 +311,7 @@ fn crlf_bom_and_missing_final_newline() {
 
 #[test]
 fn empty_and_header_only_inputs() {
-    let r = morbus(&["score", "--dx", "dx1"], b"");
-    assert_eq!(r.code, 1);
-    assert!(r.stderr.contains("the input is empty"), "{}", r.stderr);
+    refused(&["score", "--dx", "dx1"], b"", 1, "the input is empty");
     let r = morbus(
         &["score", "--dx", "dx1", "--index", "charlson:count"],
         b"id,dx1\n",
@@ -377,24 +356,21 @@ fn gzip_input_and_output_files() {
 #[test]
 fn output_column_clash_is_refused() {
     let input = "id,dx1,charlson_quan2011\n1,I21,5\n";
-    let r = morbus(&["score", "--dx", "dx1"], input.as_bytes());
-    assert_eq!(r.code, 2);
-    assert!(
-        r.stderr.contains("'charlson_quan2011' already exists"),
-        "{}",
-        r.stderr
+    refused(
+        &["score", "--dx", "dx1"],
+        input.as_bytes(),
+        2,
+        "'charlson_quan2011' already exists",
     );
 }
 
 #[test]
 fn strict_stops_at_the_first_invalid_code() {
-    let r = morbus(&["score", "--dx", "dx*", "--strict"], SMALL.as_bytes());
-    assert_eq!(r.code, 3);
-    assert!(
-        r.stderr
-            .contains("line 3: invalid code 'N/A' in column 'dx3'"),
-        "{}",
-        r.stderr
+    refused(
+        &["score", "--dx", "dx*", "--strict"],
+        SMALL.as_bytes(),
+        3,
+        "line 3: invalid code 'N/A' in column 'dx3'",
     );
 }
 
@@ -493,7 +469,7 @@ fn scores_by(out: &str, key: &str, first_score: usize) -> Vec<(String, Vec<Strin
 
 #[test]
 fn demo_wide_and_long_files_give_the_same_scores() {
-    let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data");
+    let dir = common::root().join("demo-data");
     let wide = dir.join("episodes.csv");
     let long = dir.join("episodes-long.csv");
     let specs = "charlson:charlson1987,charlson:quan2011,elixhauser,hfrs";

@@ -3,61 +3,41 @@
 //! input (never NaN), the JSON and HTML outputs, and a look at the report in
 //! a real browser where one is installed.
 
-use std::io::Write;
-use std::path::{Path, PathBuf};
+mod common;
+
+use std::path::PathBuf;
 use std::process::{Command, Stdio};
 
-struct Run {
-    code: i32,
-    stdout: String,
-    stderr: String,
+use common::{json_file as json, morbus_with_input as morbus};
+
+/// Seeded test data: the top 53 bits of the generator's state.
+fn lcg(seed: u64) -> common::Lcg {
+    common::Lcg::new(seed, 53)
 }
 
-fn morbus(args: &[&str], stdin: &[u8]) -> Run {
-    let mut child = Command::new(env!("CARGO_BIN_EXE_morbus"))
-        .args(args)
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .expect("run morbus");
-    let mut input = child.stdin.take().unwrap();
-    let data = stdin.to_vec();
-    let writer = std::thread::spawn(move || {
-        let _ = input.write_all(&data);
-    });
-    let out = child.wait_with_output().unwrap();
-    writer.join().unwrap();
-    Run {
-        code: out.status.code().unwrap_or(-1),
-        stdout: String::from_utf8_lossy(&out.stdout).into_owned(),
-        stderr: String::from_utf8_lossy(&out.stderr).into_owned(),
-    }
+/// Runs `morbus compare LINE` on `data` (see [`common::words`]).
+fn compare(line: &str, values: &[&str], data: &[u8]) -> common::Run {
+    let args = [&["compare"][..], &common::words(line, values)].concat();
+    morbus(&args, data)
+}
+
+/// [`compare`] with `--json` to the file `name`, which must succeed: the
+/// run and the JSON.
+fn compare_json(
+    name: &str,
+    line: &str,
+    values: &[&str],
+    data: &[u8],
+) -> (common::Run, serde_json::Value) {
+    let out = tmp(name);
+    let values = [values, &[out.to_str().unwrap()]].concat();
+    let run = compare(&format!("{line} --json {{}}"), &values, data);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    (run, json(&out))
 }
 
 fn tmp(name: &str) -> PathBuf {
-    let dir = std::env::temp_dir().join(format!("morbus-compare-{}", std::process::id()));
-    std::fs::create_dir_all(&dir).unwrap();
-    dir.join(name)
-}
-
-/// 64-bit LCG (Knuth's MMIX constants): deterministic test data.
-struct Lcg(u64);
-
-impl Lcg {
-    fn next(&mut self) -> u64 {
-        self.0 = self
-            .0
-            .wrapping_mul(6364136223846793005)
-            .wrapping_add(1442695040888963407);
-        self.0 >> 11
-    }
-    fn uniform(&mut self) -> f64 {
-        self.next() as f64 / (1u64 << 53) as f64
-    }
-    fn below(&mut self, n: u64) -> u64 {
-        self.next() % n
-    }
+    common::scratch("compare", name)
 }
 
 const CODES: &[&str] = &[
@@ -69,7 +49,7 @@ const CODES: &[&str] = &[
 /// dx1..dx6, died); the outcome depends on age and the number of codes; every
 /// `missing_every`-th episode has an empty outcome.
 fn extract(n: usize, seed: u64, missing_every: usize) -> String {
-    let mut r = Lcg(seed);
+    let mut r = lcg(seed);
     let mut s = String::from("episode,patient,date,age,sex,dx1,dx2,dx3,dx4,dx5,dx6,died\n");
     for e in 0..n {
         let age = 30 + r.below(65);
@@ -110,10 +90,6 @@ fn write(name: &str, text: &str) -> PathBuf {
     let p = tmp(name);
     std::fs::write(&p, text).unwrap();
     p
-}
-
-fn json(path: &Path) -> serde_json::Value {
-    serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
 }
 
 /// No NaN or infinity anywhere in a text output.
@@ -166,22 +142,12 @@ fn score_columns(csv_text: &str, index: &str) -> (Vec<String>, Vec<Vec<String>>)
 fn default_compares_every_weighting_and_counts_units() {
     let data = extract(600, 11, 25);
     let input = write("default.csv", &data);
-    let out = tmp("default.json");
-    let r = morbus(
-        &[
-            "compare",
-            input.to_str().unwrap(),
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--json",
-            out.to_str().unwrap(),
-        ],
+    let (r, j) = compare_json(
+        "default.json",
+        "{} --dx dx* --outcome died",
+        &[input.to_str().unwrap()],
         b"",
     );
-    assert_eq!(r.code, 0, "{}", r.stderr);
-    let j = json(&out);
     let names: Vec<&str> = j["indices"]
         .as_array()
         .unwrap()
@@ -222,20 +188,9 @@ fn c_statistics_match_pair_counting_on_score_output() {
     let input = write("auc.csv", &data);
     let out = tmp("auc.json");
     let index = "charlson:quan2011,elixhauser:vanwalraven2009,hfrs";
-    let r = morbus(
-        &[
-            "compare",
-            input.to_str().unwrap(),
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--index",
-            index,
-            "--json",
-            out.to_str().unwrap(),
-            "-q",
-        ],
+    let r = compare(
+        "{} --dx dx* --outcome died --index {} --json {} -q",
+        &[input.to_str().unwrap(), index, out.to_str().unwrap()],
         b"",
     );
     assert_eq!(r.code, 0, "{}", r.stderr);
@@ -264,10 +219,7 @@ fn c_statistics_match_pair_counting_on_score_output() {
 #[test]
 fn outcome_that_is_not_zero_or_one_names_the_line() {
     let data = "episode,dx1,died\ne1,I21.9,0\ne2,C78.0,1\ne3,,yes\ne4,,0\n";
-    let r = morbus(
-        &["compare", "--dx", "dx1", "--outcome", "died"],
-        data.as_bytes(),
-    );
+    let r = compare("--dx dx1 --outcome died", &[], data.as_bytes());
     assert_eq!(r.code, 1, "{}", r.stderr);
     assert!(r.stderr.contains("line 4"), "{}", r.stderr);
     assert!(r.stderr.contains("'yes'"), "{}", r.stderr);
@@ -282,10 +234,7 @@ fn constant_outcome_is_an_error_not_a_table_of_nan() {
         data.push_str(&format!("e{i},{},0\n", CODES[i % CODES.len()]));
     }
     data.push_str("e20,I21.9,\n");
-    let r = morbus(
-        &["compare", "--dx", "dx1", "--outcome", "died"],
-        data.as_bytes(),
-    );
+    let r = compare("--dx dx1 --outcome died", &[], data.as_bytes());
     assert_eq!(r.code, 1, "{}", r.stderr);
     assert!(
         r.stderr
@@ -296,10 +245,7 @@ fn constant_outcome_is_an_error_not_a_table_of_nan() {
     assert!(r.stdout.is_empty());
     // No analysable unit at all.
     let data = "episode,dx1,died\ne1,I21.9,\ne2,C78.0,NA\n";
-    let r = morbus(
-        &["compare", "--dx", "dx1", "--outcome", "died"],
-        data.as_bytes(),
-    );
+    let r = compare("--dx dx1 --outcome died", &[], data.as_bytes());
     assert_eq!(r.code, 1, "{}", r.stderr);
     assert!(r.stderr.contains("no unit can be analysed"), "{}", r.stderr);
 }
@@ -309,7 +255,7 @@ fn separated_model_is_a_note_with_the_c_statistic_kept() {
     // Outcome 1 exactly for the episodes with a metastatic tumour (6 points
     // in the 1987 weighting); the others score at most 1.
     let mut data = String::from("episode,age,dx1,dx2,died\n");
-    let mut r = Lcg(3);
+    let mut r = lcg(3);
     for i in 0..60 {
         let age = 40 + r.below(50);
         if i % 4 == 0 {
@@ -322,22 +268,10 @@ fn separated_model_is_a_note_with_the_c_statistic_kept() {
     }
     let out = tmp("separated.json");
     let report = tmp("separated.html");
-    let run = morbus(
-        &[
-            "compare",
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--index",
-            "charlson:charlson1987",
-            "--adjust",
-            "age",
-            "--json",
-            out.to_str().unwrap(),
-            "--report",
-            report.to_str().unwrap(),
-        ],
+    let run = compare(
+        "--dx dx* --outcome died --index charlson:charlson1987 --adjust age \
+         --json {} --report {}",
+        &[out.to_str().unwrap(), report.to_str().unwrap()],
         data.as_bytes(),
     );
     assert_eq!(run.code, 0, "{}", run.stderr);
@@ -362,29 +296,18 @@ fn separated_model_is_a_note_with_the_c_statistic_kept() {
 fn zero_variance_index_is_noted_and_left_out_of_tests() {
     // Codes that the Charlson list knows and the frailty list does not.
     let mut data = String::from("episode,dx1,died\n");
-    let mut r = Lcg(9);
+    let mut r = lcg(9);
     for i in 0..80 {
         let c = ["I21.9", "E11.9", "C78.0", "", "J44.9"][r.below(5) as usize];
         let died = if r.uniform() < 0.3 { 1 } else { 0 };
         data.push_str(&format!("e{i},{c},{died}\n"));
     }
-    let out = tmp("zero.json");
-    let run = morbus(
-        &[
-            "compare",
-            "--dx",
-            "dx1",
-            "--outcome",
-            "died",
-            "--index",
-            "charlson,hfrs",
-            "--json",
-            out.to_str().unwrap(),
-        ],
+    let (run, j) = compare_json(
+        "zero.json",
+        "--dx dx1 --outcome died --index charlson,hfrs",
+        &[],
         data.as_bytes(),
     );
-    assert_eq!(run.code, 0, "{}", run.stderr);
-    let j = json(&out);
     let hfrs = &j["indices"][1];
     assert_eq!(hfrs["name"], "hfrs_gilbert2018");
     assert!(hfrs["c_statistic"].is_null());
@@ -406,29 +329,19 @@ fn identical_rankings_give_a_note_instead_of_a_test() {
     // Charlson count and Charlson 1987 weights rank units identically when
     // every unit has at most one condition of weight 1.
     let mut data = String::from("episode,dx1,died\n");
-    let mut r = Lcg(21);
+    let mut r = lcg(21);
     for i in 0..50 {
         let c = ["I21.9", "", "J44.9"][r.below(3) as usize];
         let died = if r.uniform() < 0.4 { 1 } else { 0 };
         data.push_str(&format!("e{i},{c},{died}\n"));
     }
-    let out = tmp("identical.json");
-    let run = morbus(
-        &[
-            "compare",
-            "--dx",
-            "dx1",
-            "--outcome",
-            "died",
-            "--index",
-            "charlson:charlson1987,charlson:count",
-            "--json",
-            out.to_str().unwrap(),
-        ],
+    let (run, j) = compare_json(
+        "identical.json",
+        "--dx dx1 --outcome died \
+         --index charlson:charlson1987,charlson:count",
+        &[],
         data.as_bytes(),
     );
-    assert_eq!(run.code, 0, "{}", run.stderr);
-    let j = json(&out);
     let pair = &j["pairs"][0];
     assert!(pair["delong"].is_null());
     assert!(pair["notes"]
@@ -441,27 +354,13 @@ fn identical_rankings_give_a_note_instead_of_a_test() {
 #[test]
 fn adjustment_numeric_and_categorical() {
     let data = extract(300, 17, 0);
-    let out = tmp("adjust.json");
-    let run = morbus(
-        &[
-            "compare",
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--index",
-            "charlson",
-            "--adjust",
-            "age",
-            "--adjust-cat",
-            "sex",
-            "--json",
-            out.to_str().unwrap(),
-        ],
+    let (run, j) = compare_json(
+        "adjust.json",
+        "--dx dx* --outcome died --index charlson --adjust age \
+         --adjust-cat sex",
+        &[],
         data.as_bytes(),
     );
-    assert_eq!(run.code, 0, "{}", run.stderr);
-    let j = json(&out);
     let terms: Vec<&str> = j["indices"][0]["model"]["terms"]
         .as_array()
         .unwrap()
@@ -479,18 +378,7 @@ fn adjustment_numeric_and_categorical() {
     cells[3] = "unknown".into();
     lines[5] = cells.join(",");
     let bad = lines.join("\n") + "\n";
-    let run = morbus(
-        &[
-            "compare",
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--adjust",
-            "age",
-        ],
-        bad.as_bytes(),
-    );
+    let run = compare("--dx dx* --outcome died --adjust age", &[], bad.as_bytes());
     assert_eq!(run.code, 1, "{}", run.stderr);
     assert!(run.stderr.contains("line 6"), "{}", run.stderr);
     assert!(
@@ -507,18 +395,9 @@ fn adjustment_numeric_and_categorical() {
         *l = cells.join(",");
     }
     let gaps = lines.join("\n") + "\n";
-    let run = morbus(
-        &[
-            "compare",
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--adjust",
-            "age",
-            "--index",
-            "hfrs",
-        ],
+    let run = compare(
+        "--dx dx* --outcome died --adjust age --index hfrs",
+        &[],
         gaps.as_bytes(),
     );
     assert_eq!(run.code, 0, "{}", run.stderr);
@@ -533,53 +412,29 @@ fn adjustment_numeric_and_categorical() {
 #[test]
 fn usage_errors_exit_2() {
     let data = extract(30, 1, 0);
-    let r = morbus(
-        &["compare", "--dx", "dx*", "--outcome", "dead"],
-        data.as_bytes(),
-    );
+    let r = compare("--dx dx* --outcome dead", &[], data.as_bytes());
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(r.stderr.contains("'dead' not found"), "{}", r.stderr);
-    let r = morbus(
-        &[
-            "compare",
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--adjust",
-            "died",
-        ],
+    let r = compare(
+        "--dx dx* --outcome died --adjust died",
+        &[],
         data.as_bytes(),
     );
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(r.stderr.contains("is the outcome"), "{}", r.stderr);
     let many = extract(80, 2, 0);
-    let r = morbus(
-        &[
-            "compare",
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--adjust-cat",
-            "episode",
-        ],
+    let r = compare(
+        "--dx dx* --outcome died --adjust-cat episode",
+        &[],
         many.as_bytes(),
     );
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(r.stderr.contains("has 80 levels"), "{}", r.stderr);
-    let r = morbus(&["compare", "--dx", "dx*"], data.as_bytes());
+    let r = compare("--dx dx*", &[], data.as_bytes());
     assert_eq!(r.code, 2, "{}", r.stderr);
-    let r = morbus(
-        &[
-            "compare",
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--index",
-            "nosuch",
-        ],
+    let r = compare(
+        "--dx dx* --outcome died --index nosuch",
+        &[],
         data.as_bytes(),
     );
     assert_eq!(r.code, 2, "{}", r.stderr);
@@ -590,7 +445,7 @@ fn long_layout_episodes_and_lookback() {
     // Patient p1: an earlier episode with heart failure, a later one with a
     // myocardial infarction. With a lookback the later episode has both.
     let mut long = String::from("patient,episode,date,code,died\n");
-    let mut r = Lcg(4);
+    let mut r = lcg(4);
     for p in 0..40 {
         let died_late = if r.uniform() < 0.5 { 1 } else { 0 };
         long.push_str(&format!("p{p},a,2025-01-10,I50.0,0\n"));
@@ -657,25 +512,12 @@ fn long_layout_episodes_and_lookback() {
 #[test]
 fn age_points_add_an_age_variant() {
     let data = extract(200, 8, 0);
-    let out = tmp("age.json");
-    let run = morbus(
-        &[
-            "compare",
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--index",
-            "charlson:charlson1987",
-            "--age",
-            "age",
-            "--json",
-            out.to_str().unwrap(),
-        ],
+    let (_, j) = compare_json(
+        "age.json",
+        "--dx dx* --outcome died --index charlson:charlson1987 --age age",
+        &[],
         data.as_bytes(),
     );
-    assert_eq!(run.code, 0, "{}", run.stderr);
-    let j = json(&out);
     let names: Vec<&str> = j["indices"]
         .as_array()
         .unwrap()
@@ -696,26 +538,10 @@ fn report_for_tests() -> PathBuf {
     let data = extract(1500, 31, 40);
     let input = write("report.csv", &data);
     let report = tmp("report.html");
-    let run = morbus(
-        &[
-            "compare",
-            input.to_str().unwrap(),
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--adjust",
-            "age",
-            "--adjust-cat",
-            "sex",
-            "--adjust-spline",
-            "age:4",
-            "--cluster",
-            "patient",
-            "--report",
-            report.to_str().unwrap(),
-            "-q",
-        ],
+    let run = compare(
+        "{} --dx dx* --outcome died --adjust age --adjust-cat sex \
+         --adjust-spline age:4 --cluster patient --report {} -q",
+        &[input.to_str().unwrap(), report.to_str().unwrap()],
         b"",
     );
     assert_eq!(run.code, 0, "{}", run.stderr);
@@ -732,25 +558,13 @@ fn spline_knots_and_clusters_are_shown() {
     let input = write("spline.csv", &data);
     let out = tmp("spline.json");
     let report = tmp("spline.html");
-    let run = morbus(
+    let run = compare(
+        "{} --dx dx* --outcome died --index charlson,elixhauser \
+         --adjust-spline age --cluster patient --json {} --report {} -q",
         &[
-            "compare",
             input.to_str().unwrap(),
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--index",
-            "charlson,elixhauser",
-            "--adjust-spline",
-            "age",
-            "--cluster",
-            "patient",
-            "--json",
             out.to_str().unwrap(),
-            "--report",
             report.to_str().unwrap(),
-            "-q",
         ],
         b"",
     );
@@ -835,32 +649,16 @@ fn spline_knots_and_clusters_are_shown() {
             }
         })
         .collect();
-    let run = morbus(
-        &[
-            "compare",
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--adjust-spline",
-            "age:3",
-            "-q",
-        ],
+    let run = compare(
+        "--dx dx* --outcome died --adjust-spline age:3 -q",
+        &[],
         flat.as_bytes(),
     );
     assert_eq!(run.code, 1, "{}", run.stderr);
     assert!(run.stderr.contains("use fewer knots"), "{}", run.stderr);
-    let run = morbus(
-        &[
-            "compare",
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--adjust-spline",
-            "age:9",
-            "-q",
-        ],
+    let run = compare(
+        "--dx dx* --outcome died --adjust-spline age:9 -q",
+        &[],
         flat.as_bytes(),
     );
     assert_eq!(run.code, 2, "{}", run.stderr);
@@ -989,23 +787,12 @@ fn single_event_gives_c_statistics_without_intervals() {
         ][i % 4];
         data.push_str(&format!("e{i},{a},{b},{}\n", if i == 3 { 1 } else { 0 }));
     }
-    let out = tmp("single.json");
-    let run = morbus(
-        &[
-            "compare",
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--index",
-            "charlson:charlson1987,elixhauser",
-            "--json",
-            out.to_str().unwrap(),
-        ],
+    let (run, j) = compare_json(
+        "single.json",
+        "--dx dx* --outcome died --index charlson:charlson1987,elixhauser",
+        &[],
         data.as_bytes(),
     );
-    assert_eq!(run.code, 0, "{}", run.stderr);
-    let j = json(&out);
     let c = &j["indices"][0]["c_statistic"];
     // The one event scores highest (metastatic tumour + heart failure): the
     // episodes scoring the same are the other 6 of its kind (ties count ½).
@@ -1029,13 +816,10 @@ fn single_event_gives_c_statistics_without_intervals() {
 
 #[test]
 fn header_only_and_empty_input_are_clear_errors() {
-    let r = morbus(
-        &["compare", "--dx", "dx1", "--outcome", "died"],
-        b"episode,dx1,died\n",
-    );
+    let r = compare("--dx dx1 --outcome died", &[], b"episode,dx1,died\n");
     assert_eq!(r.code, 1, "{}", r.stderr);
     assert!(r.stderr.contains("no unit can be analysed"), "{}", r.stderr);
-    let r = morbus(&["compare", "--dx", "dx1", "--outcome", "died"], b"");
+    let r = compare("--dx dx1 --outcome died", &[], b"");
     assert_eq!(r.code, 1, "{}", r.stderr);
     assert!(r.stderr.contains("empty"), "{}", r.stderr);
 }
@@ -1063,31 +847,14 @@ fn providers_folds_and_reference_end_to_end() {
     let input = write("sites.csv", &extract_with_sites(2400, 77));
     let js = tmp("sites.json");
     let report = tmp("sites.html");
-    let run = morbus(
+    let run = compare(
+        "{} --dx dx* --outcome died --adjust age --by site --folds 3 \
+         --id patient --reference charlson:quan2011 \
+         --overdispersion multiplicative --json {} --report {} -q",
         &[
-            "compare",
             input.to_str().unwrap(),
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died",
-            "--adjust",
-            "age",
-            "--by",
-            "site",
-            "--folds",
-            "3",
-            "--id",
-            "patient",
-            "--reference",
-            "charlson:quan2011",
-            "--overdispersion",
-            "multiplicative",
-            "--json",
             js.to_str().unwrap(),
-            "--report",
             report.to_str().unwrap(),
-            "-q",
         ],
         b"",
     );
@@ -1169,26 +936,10 @@ fn providers_folds_and_reference_end_to_end() {
     let again = tmp("sites2.json");
     let other = tmp("sites3.json");
     for (path, seed) in [(&again, "20261203"), (&other, "5")] {
-        let r = morbus(
-            &[
-                "compare",
-                input.to_str().unwrap(),
-                "--dx",
-                "dx*",
-                "--outcome",
-                "died",
-                "--folds",
-                "3",
-                "--id",
-                "patient",
-                "--seed",
-                seed,
-                "--index",
-                "charlson",
-                "--json",
-                path.to_str().unwrap(),
-                "-q",
-            ],
+        let r = compare(
+            "{} --dx dx* --outcome died --folds 3 --id patient --seed {} \
+             --index charlson --json {} -q",
+            &[input.to_str().unwrap(), seed, path.to_str().unwrap()],
             b"",
         );
         assert_eq!(r.code, 0, "{}", r.stderr);

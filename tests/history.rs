@@ -7,28 +7,21 @@
 //! liver disease 3, metastatic solid tumour 6), codes per Quan et al., Med
 //! Care 2005;43:1130-9, Table 1; all from memory.
 
-use std::io::Write;
-use std::process::{Command, Stdio};
+mod common;
 
 fn morbus(args: &[&str], stdin: &str) -> (i32, String, String) {
-    let mut child = Command::new(env!("CARGO_BIN_EXE_morbus"))
-        .args(args)
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .unwrap();
-    // A run stopped by its options exits without reading its input: the
-    // pipe may then be closed before everything is written.
-    if let Err(e) = child.stdin.take().unwrap().write_all(stdin.as_bytes()) {
-        assert_eq!(e.kind(), std::io::ErrorKind::BrokenPipe, "{e}");
-    }
-    let out = child.wait_with_output().unwrap();
+    let out = common::pipe(args, stdin.as_bytes());
     (
         out.status.code().unwrap_or(-1),
         String::from_utf8(out.stdout).unwrap(),
         String::from_utf8(out.stderr).unwrap(),
     )
+}
+
+/// [`morbus`] with the command line written as one line (see
+/// [`common::words`]).
+fn run(line: &str, values: &[&str], stdin: &str) -> (i32, String, String) {
+    morbus(&common::words(line, values), stdin)
 }
 
 /// Scores a wide history and returns the Charlson 1987 score column.
@@ -65,10 +58,7 @@ b,2023-01-09,I21.0\n";
     assert_eq!(wide(input, &["--lookback", "366"]), ["1", "1", "1", "1"]);
     assert_eq!(wide(input, &["--lookback", "0"]), ["0", "1", "0", "1"]);
     // Without a lookback every episode stands alone.
-    let (code, out, _) = morbus(
-        &["score", "--dx", "dx*", "--index", "charlson:charlson1987"],
-        input,
-    );
+    let (code, out, _) = run("score --dx dx* --index charlson:charlson1987", &[], input);
     assert_eq!(code, 0);
     let alone: Vec<&str> = out
         .lines()
@@ -141,23 +131,11 @@ g,s1,2024-01-01,I50.0,0,N\n\
 g,s2,2024-02-01,E11.9,0,N\n\
 g,s2,2024-02-01,I50.0,0,W\n\
 h,s9,2024-02-01,,0,Y\n";
-    let base = [
-        "score",
-        "--layout",
-        "long",
-        "--id",
-        "patient",
-        "--episode",
-        "stay",
-        "--date",
-        "admitted",
-        "--dx",
-        "code",
-        "--index",
-        "charlson:charlson1987",
-        "--lookback",
-        "365",
-    ];
+    let base = common::words(
+        "score --layout long --id patient --episode stay --date admitted \
+         --dx code --index charlson:charlson1987 --lookback 365",
+        &[],
+    );
     let (code, out, err) = morbus(&base, input);
     assert_eq!(code, 0, "{err}");
     // One row per episode in order of first appearance. s2 sees s1: metastatic
@@ -168,13 +146,10 @@ h,s9,2024-02-01,,0,Y\n";
     );
 
     let mut args = base.to_vec();
-    args.extend([
-        "--exclude-primary",
-        "--primary",
-        "is_primary",
-        "--poa",
-        "on_admission",
-    ]);
+    args.extend(common::words(
+        "--exclude-primary --primary is_primary --poa on_admission",
+        &[],
+    ));
     let (code, out, err) = morbus(&args, input);
     assert_eq!(code, 0, "{err}");
     // s2: metastatic excluded (primary), diabetes excluded (not on admission,
@@ -223,37 +198,17 @@ k,2024-01-11,\n";
         wide(input, &["--lookback", "365", allow[0], allow[1]]),
         ["1", "1", "1", "1"]
     );
-    let (code, _, err) = morbus(
-        &[
-            "score",
-            "--dx",
-            "dx*",
-            "--id",
-            "patient",
-            "--date",
-            "admitted",
-            "--lookback",
-            "365",
-            allow[0],
-            allow[1],
-        ],
+    let (code, _, err) = run(
+        "score --dx dx* --id patient --date admitted --lookback 365 {} {}",
+        &[allow[0], allow[1]],
         input,
     );
     assert_eq!(code, 0);
     assert!(err.contains("dates missing: 1, unreadable: 1"), "{err}");
-    let (code, _, err) = morbus(
-        &[
-            "score",
-            "--dx",
-            "dx*",
-            "--id",
-            "patient",
-            "--date",
-            "admitted",
-            "--lookback",
-            "365",
-            "--strict",
-        ],
+    let (code, _, err) = run(
+        "score --dx dx* --id patient --date admitted --lookback 365 \
+         --strict",
+        &[],
         input,
     );
     assert_eq!(code, 3);
@@ -268,24 +223,12 @@ k,2024-01-11,\n";
 
 #[test]
 fn lookback_needs_id_and_date() {
-    let (code, _, err) = morbus(
-        &["score", "--dx", "dx1", "--lookback", "365"],
-        "a,dx1\n1,I21\n",
-    );
+    let (code, _, err) = run("score --dx dx1 --lookback 365", &[], "a,dx1\n1,I21\n");
     assert_eq!(code, 2);
     assert!(err.contains("--lookback needs --id"), "{err}");
-    let (code, _, err) = morbus(
-        &[
-            "score",
-            "--dx",
-            "dx1",
-            "--id",
-            "a",
-            "--date",
-            "d",
-            "--lookback",
-            "soon",
-        ],
+    let (code, _, err) = run(
+        "score --dx dx1 --id a --date d --lookback soon",
+        &[],
         "a,d,dx1\n1,2024-01-01,I21\n",
     );
     assert_eq!(code, 2);
@@ -298,20 +241,10 @@ fn explain_accounts_for_every_point() {
 e,2022-06-01,K70.3,E11.9\n\
 e,2023-06-01,I85.0,E11.2\n\
 e,2023-06-01,I85.0,XYZ\n";
-    let (code, out, err) = morbus(
-        &[
-            "explain",
-            "--dx",
-            "dx*",
-            "--id",
-            "patient",
-            "--date",
-            "admitted",
-            "--lookback",
-            "730",
-            "--index",
-            "charlson:charlson1987",
-        ],
+    let (code, out, err) = run(
+        "explain --dx dx* --id patient --date admitted --lookback 730 \
+         --index charlson:charlson1987",
+        &[],
         input,
     );
     assert_eq!(code, 0, "{err}");
@@ -361,20 +294,10 @@ e,2023-06-01,I85.0,XYZ\n";
     );
     // Totals equal the scores of `score` with the same options, and the
     // counted weights add up to the totals.
-    let (_, scored, _) = morbus(
-        &[
-            "score",
-            "--dx",
-            "dx*",
-            "--id",
-            "patient",
-            "--date",
-            "admitted",
-            "--lookback",
-            "730",
-            "--index",
-            "charlson:charlson1987",
-        ],
+    let (_, scored, _) = run(
+        "score --dx dx* --id patient --date admitted --lookback 730 \
+         --index charlson:charlson1987",
+        &[],
         input,
     );
     let scores: Vec<String> = scored
@@ -397,21 +320,10 @@ e,2023-06-01,I85.0,XYZ\n";
         assert_eq!(counted.to_string(), *s);
     }
     // JSON lines carry the same fields.
-    let (code, json, _) = morbus(
-        &[
-            "explain",
-            "--dx",
-            "dx*",
-            "--id",
-            "patient",
-            "--date",
-            "admitted",
-            "--lookback",
-            "730",
-            "--index",
-            "charlson:charlson1987",
-            "--json",
-        ],
+    let (code, json, _) = run(
+        "explain --dx dx* --id patient --date admitted --lookback 730 \
+         --index charlson:charlson1987 --json",
+        &[],
         input,
     );
     assert_eq!(code, 0);
@@ -439,25 +351,11 @@ p,e2,2024-05-01,70,C78.0\n\
 p,e2,2024-05-01,70,\n\
 p,e3,,70,\n\
 p,e3,2024-06-01,70,\n";
-    let args = [
-        "score",
-        "--layout",
-        "long",
-        "--id",
-        "patient",
-        "--episode",
-        "episode",
-        "--date",
-        "admitted",
-        "--age",
-        "age",
-        "--dx",
-        "code",
-        "--lookback",
-        "365",
-        "--index",
-        "charlson:charlson1987",
-    ];
+    let args = common::words(
+        "score --layout long --id patient --episode episode --date admitted \
+         --age age --dx code --lookback 365 --index charlson:charlson1987",
+        &[],
+    );
     let (code, out, err) = morbus(&args, input);
     assert_eq!(code, 0, "{err}");
     assert!(
@@ -496,19 +394,11 @@ fn long_rows_of_one_id_that_disagree_on_age_are_counted_without_a_history() {
     // (Charlson et al. 1994 age points, J Clin Epidemiol 1994;47:1245-51,
     // from memory: one point per decade from 50, so 80 gives 3 like 81).
     let input = "id,age,code\na,80,I21.9\na,81,I50.9\nb,60,\nb,60,C78.0\n";
-    let args = [
-        "score",
-        "--layout",
-        "long",
-        "--id",
-        "id",
-        "--age",
-        "age",
-        "--dx",
-        "code",
-        "--index",
-        "charlson:charlson1987",
-    ];
+    let args = common::words(
+        "score --layout long --id id --age age --dx code \
+         --index charlson:charlson1987",
+        &[],
+    );
     let (code, out, err) = morbus(&args, input);
     assert_eq!(code, 0, "{err}");
     assert!(
@@ -617,16 +507,17 @@ a,2023-12-01,\n";
     // Earlier-only applies to the lists with a window; the others keep the
     // episode's own codes.
     let mut a = index.to_vec();
-    a.extend(["--lookback", "elixhauser=730", "--window", "earlier-only"]);
+    a.extend(common::words(
+        "--lookback elixhauser=730 --window earlier-only",
+        &[],
+    ));
     assert_eq!(columns(input, &a, &names), [["1", "0"], ["0", "1"]]);
 }
 
 #[test]
 fn window_options_are_checked() {
     let input = "patient,admitted,dx1\na,2024-01-01,I21.0\n";
-    let base = [
-        "score", "--dx", "dx1", "--id", "patient", "--date", "admitted",
-    ];
+    let base = common::words("score --dx dx1 --id patient --date admitted", &[]);
     for (extra, message) in [
         (
             &["--lookback", "nosuchlist=30"][..],
@@ -660,22 +551,10 @@ fn explain_shows_the_current_episode_left_out() {
     let input = "patient,admitted,dx1\n\
 a,2024-03-01,I21.0\n\
 a,2024-06-01,E11.2\n";
-    let (code, out, err) = morbus(
-        &[
-            "explain",
-            "--dx",
-            "dx1",
-            "--id",
-            "patient",
-            "--date",
-            "admitted",
-            "--lookback",
-            "365",
-            "--window",
-            "earlier-only",
-            "--index",
-            "charlson:charlson1987",
-        ],
+    let (code, out, err) = run(
+        "explain --dx dx1 --id patient --date admitted --lookback 365 \
+         --window earlier-only --index charlson:charlson1987",
+        &[],
         input,
     );
     assert_eq!(code, 0, "{err}");
@@ -705,21 +584,11 @@ a,1,,acute,I50.0\n\
 a,2,east,,E11.9\n\
 a,2,west,rehab,C50.9\n\
 b,9,,,\n";
-    let args = [
-        "score",
-        "--layout",
-        "long",
-        "--id",
-        "patient",
-        "--episode",
-        "episode",
-        "--dx",
-        "code",
-        "--index",
-        "charlson:charlson1987",
-        "--keep",
-        "ward,unit_type",
-    ];
+    let args = common::words(
+        "score --layout long --id patient --episode episode --dx code \
+         --index charlson:charlson1987 --keep ward,unit_type",
+        &[],
+    );
     let (code, out, err) = morbus(&args, input);
     assert_eq!(code, 0, "{err}");
     assert_eq!(
@@ -754,7 +623,7 @@ b,9,,,0\n"
     let (code, _, err) = morbus(&again, input);
     assert_eq!(code, 2);
     assert!(err.contains("already in the output"), "{err}");
-    let (code, _, err) = morbus(&["score", "--dx", "code", "--keep", "ward"], input);
+    let (code, _, err) = run("score --dx code --keep ward", &[], input);
     assert_eq!(code, 2);
     assert!(err.contains("--keep is for the long layout"), "{err}");
 }
@@ -767,23 +636,11 @@ fn explain_labels_rows_and_writes_json_numbers() {
     // weighs 1 (Charlson 1987, top of the file).
     let input = "patient,stay_ref,admitted,age,dx1\n\
 a,S-17,2024-01-10,72,I50.0\n";
-    let args = [
-        "explain",
-        "--dx",
-        "dx1",
-        "--id",
-        "patient",
-        "--date",
-        "admitted",
-        "--lookback",
-        "30",
-        "--age",
-        "age",
-        "--index",
-        "charlson:charlson1987",
-        "--label",
-        "stay_ref",
-    ];
+    let args = common::words(
+        "explain --dx dx1 --id patient --date admitted --lookback 30 \
+         --age age --index charlson:charlson1987 --label stay_ref",
+        &[],
+    );
     let (code, out, err) = morbus(&args, input);
     assert_eq!(code, 0, "{err}");
     assert_eq!(
@@ -825,20 +682,11 @@ fn explain_lists_each_index_window_sources() {
     let input = "patient,admitted,dx1\n\
 a,2022-06-01,I50.0\n\
 a,2023-12-01,\n";
-    let (code, out, err) = morbus(
-        &[
-            "explain",
-            "--dx",
-            "dx1",
-            "--id",
-            "patient",
-            "--date",
-            "admitted",
-            "--lookback",
-            "charlson=365,elixhauser=730",
-            "--index",
-            "charlson:charlson1987,elixhauser:count",
-        ],
+    let (code, out, err) = run(
+        "explain --dx dx1 --id patient --date admitted \
+         --lookback charlson=365,elixhauser=730 \
+         --index charlson:charlson1987,elixhauser:count",
+        &[],
         input,
     );
     assert_eq!(code, 0, "{err}");

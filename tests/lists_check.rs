@@ -3,7 +3,7 @@
 
 mod common;
 
-use common::{morbus, TempDir};
+use common::TempDir;
 
 /// A valid invented list of 13 lines; a line appended as the k-th extra
 /// line is line 13 + k.
@@ -35,7 +35,7 @@ fn with(extra: &[&str]) -> String {
 fn check(text: &str) -> (i32, String, String, TempDir) {
     let dir = TempDir::new("check");
     let path = dir.write("tiny.tsv", text);
-    let r = morbus(&["lists", "check", &path]);
+    let r = common::run("lists check {}", &[&path]);
     (r.code, r.stdout, path, dir)
 }
 
@@ -210,7 +210,7 @@ fn a_directory_is_checked_file_by_file() {
     let good = dir.write("tiny.tsv", BASE);
     let bad = dir.write("other.tsv", &with(&["code\tK75-K70\talpha\tInvented"]));
     dir.write("VERSIONS.tsv", "not a list\n");
-    let r = morbus(&["lists", "check", &dir.path().display().to_string()]);
+    let r = common::run("lists check {}", &[&dir.path().display().to_string()]);
     assert_eq!(r.code, 2, "{}", r.stdout);
     assert!(
         r.stdout.contains(&format!("{bad}:14: error: ")),
@@ -232,7 +232,7 @@ fn two_lists_with_one_name_and_a_misnamed_file() {
     let dir = TempDir::new("dupes");
     dir.write("tiny.tsv", BASE);
     let copy = dir.write("copy.tsv", BASE);
-    let r = morbus(&["lists", "check", &dir.path().display().to_string()]);
+    let r = common::run("lists check {}", &[&dir.path().display().to_string()]);
     assert_eq!(r.code, 2, "{}", r.stdout);
     assert!(
         r.stdout
@@ -249,7 +249,7 @@ fn two_lists_with_one_name_and_a_misnamed_file() {
 
 #[test]
 fn a_missing_path_is_an_error() {
-    let r = morbus(&["lists", "check", "no/such/list.tsv"]);
+    let r = common::run("lists check no/such/list.tsv", &[]);
     assert_eq!(r.code, 2);
     assert!(
         r.stdout.contains("no/such/list.tsv: error: cannot read"),
@@ -260,7 +260,7 @@ fn a_missing_path_is_an_error() {
 
 #[test]
 fn the_builtin_lists_check_without_errors() {
-    let r = morbus(&["lists", "check", "code-lists"]);
+    let r = common::run("lists check code-lists", &[]);
     assert_eq!(r.code, 0, "{}", r.stdout);
     for name in morbus::lists::builtin::names() {
         assert!(
@@ -297,7 +297,7 @@ fn a_file_that_is_not_text_is_an_error() {
     let dir = TempDir::new("binary");
     let path = dir.path().join("tiny.tsv");
     std::fs::write(&path, b"list\ttiny\n\xff\xfe\n").unwrap();
-    let r = morbus(&["lists", "check", &path.display().to_string()]);
+    let r = common::run("lists check {}", &[&path.display().to_string()]);
     assert_eq!(r.code, 2);
     assert!(r.stdout.contains("error: not UTF-8 text"), "{}", r.stdout);
 }

@@ -3,7 +3,7 @@
 
 mod common;
 
-use common::{invented_extract, morbus, TempDir};
+use common::{invented_extract, TempDir};
 use morbus::lists::builtin;
 
 /// An invented index: two weightings, a hierarchy, bands and age points.
@@ -37,7 +37,7 @@ age_points\t65\t*\t1\tInvented
 
 #[test]
 fn show_prints_metadata_codes_hierarchy_and_weights() {
-    let r = morbus(&["lists", "show", "charlson"]);
+    let r = common::run("lists show charlson", &[]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     let l = builtin::all()
         .iter()
@@ -74,7 +74,7 @@ fn show_prints_metadata_codes_hierarchy_and_weights() {
 fn show_json_is_the_library_description() {
     let dir = TempDir::new("showjson");
     let path = dir.write("own_index.tsv", OWN);
-    let r = morbus(&["lists", "show", &path, "--json"]);
+    let r = common::run("lists show {} --json", &[&path]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     let v: serde_json::Value = serde_json::from_str(&r.stdout).unwrap();
     let list = morbus::lists::load_file(std::path::Path::new(&path))
@@ -89,7 +89,7 @@ fn show_json_is_the_library_description() {
 
 #[test]
 fn show_of_an_unknown_list_fails_with_the_available_names() {
-    let r = morbus(&["lists", "show", "no_such_list"]);
+    let r = common::run("lists show no_such_list", &[]);
     assert_eq!(r.code, 2);
     assert!(
         r.stderr.contains("available lists: charlson"),
@@ -103,7 +103,7 @@ fn export_writes_copies_that_load_back_with_the_same_checksum() {
     let dir = TempDir::new("export");
     let d = dir.path().display().to_string();
     for l in builtin::all() {
-        let r = morbus(&["lists", "export", &l.name, &d]);
+        let r = common::run("lists export {} {}", &[&l.name, &d]);
         assert_eq!(r.code, 0, "{}", r.stderr);
         let path = dir.path().join(format!("{}.tsv", l.name));
         let text = std::fs::read_to_string(&path).unwrap();
@@ -114,7 +114,7 @@ fn export_writes_copies_that_load_back_with_the_same_checksum() {
         assert_eq!(back.checksum, l.checksum, "{}", l.name);
     }
     // --lists DIR loads them back, replacing the built-ins, same checksums.
-    let r = morbus(&["lists", "--lists", &d]);
+    let r = common::run("lists --lists {}", &[&d]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     for l in builtin::all() {
         let row = r
@@ -127,10 +127,10 @@ fn export_writes_copies_that_load_back_with_the_same_checksum() {
         assert!(r.stderr.contains(&format!("list '{}' from", l.name)));
     }
     // An existing file is not replaced without --force.
-    let r = morbus(&["lists", "export", "charlson", &d]);
+    let r = common::run("lists export charlson {}", &[&d]);
     assert_eq!(r.code, 2);
     assert!(r.stderr.contains("--force"), "{}", r.stderr);
-    let r = morbus(&["lists", "export", "charlson", &d, "--force"]);
+    let r = common::run("lists export charlson {} --force", &[&d]);
     assert_eq!(r.code, 0, "{}", r.stderr);
 }
 
@@ -139,14 +139,13 @@ fn export_of_a_user_list_keeps_its_content() {
     let src = TempDir::new("own");
     src.write("own_index.tsv", OWN);
     let out = TempDir::new("ownout");
-    let r = morbus(&[
-        "lists",
-        "export",
-        "own_index",
-        &out.path().display().to_string(),
-        "--lists",
-        &src.path().display().to_string(),
-    ]);
+    let r = common::run(
+        "lists export own_index {} --lists {}",
+        &[
+            &out.path().display().to_string(),
+            &src.path().display().to_string(),
+        ],
+    );
     assert_eq!(r.code, 0, "{}", r.stderr);
     let a = morbus::lists::load_file(&src.path().join("own_index.tsv")).unwrap();
     let b = morbus::lists::load_file(&out.path().join("own_index.tsv")).unwrap();
@@ -165,7 +164,7 @@ fn diff_reports_weights_hierarchy_and_version() {
         .replace("supersedes\theart_severe\theart\tInvented\n", "")
         .replace("code\tJ44\tlung", "code\tJ43\tlung");
     let b = dir.write("b.tsv", &edited);
-    let r = morbus(&["lists", "diff", &a, &b]);
+    let r = common::run("lists diff {} {}", &[&a, &b]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     let out = &r.stdout;
     assert!(out.contains("version: 0.3 -> 0.4"), "{out}");
@@ -175,17 +174,17 @@ fn diff_reports_weights_hierarchy_and_version() {
     assert!(out.contains("    + J43  (b line 13)"), "{out}");
     assert!(!out.contains("note:"), "{out}");
 
-    let r = morbus(&["lists", "diff", &a, &a]);
+    let r = common::run("lists diff {} {}", &[&a, &a]);
     assert_eq!(r.code, 0);
     assert!(r.stdout.contains("no differences"), "{}", r.stdout);
 
-    let r = morbus(&["lists", "diff", &a, &b, "--json"]);
+    let r = common::run("lists diff {} {} --json", &[&a, &b]);
     let v: serde_json::Value = serde_json::from_str(&r.stdout).unwrap();
     assert_eq!(v["weights"][0]["after"], "1.5");
 
     // A list that does not load: exit 2 with its errors.
     let broken = dir.write("broken.tsv", &OWN.replace("I50.1-I50.9", "I50.9-I50.1"));
-    let r = morbus(&["lists", "diff", &a, &broken]);
+    let r = common::run("lists diff {} {}", &[&a, &broken]);
     assert_eq!(r.code, 2);
     assert!(
         r.stderr.contains(&format!("{broken}:12: error: range")),
@@ -209,12 +208,12 @@ fn diff_of_two_directories_pairs_lists_by_name() {
         .replace("version\t0.3", "version\t0.4")
         .replace("code\tJ44\tlung", "code\tJ43\tlung");
     std::fs::write(format!("{b}/own_index.tsv"), edited).unwrap();
-    assert_eq!(morbus(&["lists", "export", "charlson", &a]).code, 0);
-    assert_eq!(morbus(&["lists", "export", "hfrs", &b]).code, 0);
+    assert_eq!(common::run("lists export charlson {}", &[&a]).code, 0);
+    assert_eq!(common::run("lists export hfrs {}", &[&b]).code, 0);
     // A project file beside the lists is not a list (FORMAT.md).
     std::fs::write(format!("{b}/VERSIONS.tsv"), "not a list\n").unwrap();
 
-    let r = morbus(&["lists", "diff", &a, &b]);
+    let r = common::run("lists diff {} {}", &[&a, &b]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     let out = &r.stdout;
     assert!(out.contains("--- a: own_index 0.3"), "{out}");
@@ -225,7 +224,7 @@ fn diff_of_two_directories_pairs_lists_by_name() {
     assert!(out.contains("only in b: + hfrs "), "{out}");
     assert!(!out.contains("VERSIONS"), "{out}");
 
-    let r = morbus(&["lists", "diff", &a, &b, "--json"]);
+    let r = common::run("lists diff {} {} --json", &[&a, &b]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     let v: serde_json::Value = serde_json::from_str(&r.stdout).unwrap();
     assert_eq!(v["lists"].as_array().unwrap().len(), 1);
@@ -233,7 +232,7 @@ fn diff_of_two_directories_pairs_lists_by_name() {
     assert_eq!(v["only_in_a"][0]["name"], "charlson");
     assert_eq!(v["only_in_b"][0]["name"], "hfrs");
 
-    let r = morbus(&["lists", "diff", &a, &a]);
+    let r = common::run("lists diff {} {}", &[&a, &a]);
     assert_eq!(r.code, 0);
     assert!(
         r.stdout
@@ -243,7 +242,7 @@ fn diff_of_two_directories_pairs_lists_by_name() {
     );
 
     // A directory and a list: a usage error naming both.
-    let r = morbus(&["lists", "diff", &a, "charlson"]);
+    let r = common::run("lists diff {} charlson", &[&a]);
     assert_eq!(r.code, 2);
     assert!(
         r.stderr.contains(&format!(
@@ -258,7 +257,7 @@ fn diff_of_two_directories_pairs_lists_by_name() {
         OWN.replace("I50.1-I50.9", "I50.9-I50.1"),
     )
     .unwrap();
-    let r = morbus(&["lists", "diff", &a, &b]);
+    let r = common::run("lists diff {} {}", &[&a, &b]);
     assert_eq!(r.code, 2);
     assert!(
         r.stderr.contains("own_index.tsv:12: error: range"),
@@ -280,19 +279,11 @@ fn a_user_defined_index_scores_from_files_alone() {
          e4,66,K35.8,\n",
     );
     let d = lists.path().display().to_string();
-    let r = morbus(&[
-        "score",
-        &data,
-        "--dx",
-        "dx*",
-        "--age",
-        "age",
-        "--flags",
-        "--lists",
-        &d,
-        "--index",
-        "own_index,own_index:count",
-    ]);
+    let r = common::run(
+        "score {} --dx dx* --age age --flags --lists {} \
+         --index own_index,own_index:count",
+        &[&data, &d],
+    );
     assert_eq!(r.code, 0, "{}", r.stderr);
     let lines: Vec<&str> = r.stdout.lines().collect();
     assert_eq!(
@@ -318,18 +309,10 @@ fn a_broken_list_never_produces_scores() {
     let input = lists.write("episodes.csv", &data);
     let out = lists.join("scored.csv");
     // The broken list is not even among the indices scored.
-    let r = morbus(&[
-        "score",
-        &input,
-        "--dx",
-        "dx*",
-        "--index",
-        "charlson",
-        "--lists",
-        &lists.path().display().to_string(),
-        "-o",
-        &out,
-    ]);
+    let r = common::run(
+        "score {} --dx dx* --index charlson --lists {} -o {}",
+        &[&input, &lists.path().display().to_string(), &out],
+    );
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(
         r.stderr.contains(&format!(
@@ -353,17 +336,10 @@ fn warnings_of_a_list_are_printed_when_scoring() {
         ),
     );
     let data = lists.write("episodes.csv", "episode,dx1\ne1,I50.3\n");
-    let r = morbus(&[
-        "score",
-        &data,
-        "--dx",
-        "dx1",
-        "--index",
-        "own_index:count",
-        "--lists",
-        &lists.path().display().to_string(),
-        "--quiet",
-    ]);
+    let r = common::run(
+        "score {} --dx dx1 --index own_index:count --lists {} --quiet",
+        &[&data, &lists.path().display().to_string()],
+    );
     assert_eq!(r.code, 0, "{}", r.stderr);
     assert!(
         r.stderr.contains(&format!(
@@ -385,23 +361,12 @@ fn provenance_records_lists_options_and_counts() {
     let prov = dir.join("provenance.json");
     let lists = TempDir::new("provlists");
     lists.write("own_index.tsv", OWN);
-    let r = morbus(&[
-        "score",
-        &input,
-        "--dx",
-        "dx*",
-        "--age",
-        "age",
-        "--flags",
-        "--index",
-        "charlson:charlson1987,hfrs,own_index:count",
-        "--lists",
-        &lists.path().display().to_string(),
-        "-o",
-        &out,
-        "--provenance",
-        &prov,
-    ]);
+    let r = common::run(
+        "score {} --dx dx* --age age --flags \
+         --index charlson:charlson1987,hfrs,own_index:count --lists {} \
+         -o {} --provenance {}",
+        &[&input, &lists.path().display().to_string(), &out, &prov],
+    );
     assert_eq!(r.code, 0, "{}", r.stderr);
     let v: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(&prov).unwrap()).unwrap();
@@ -471,16 +436,10 @@ fn an_unwritable_provenance_file_stops_before_scoring() {
     let dir = TempDir::new("provbad");
     let input = dir.write("episodes.csv", "episode,dx1\ne1,I50\n");
     let out = dir.join("scored.csv");
-    let r = morbus(&[
-        "score",
-        &input,
-        "--dx",
-        "dx1",
-        "-o",
-        &out,
-        "--provenance",
-        &dir.join("no/such/dir/p.json"),
-    ]);
+    let r = common::run(
+        "score {} --dx dx1 -o {} --provenance {}",
+        &[&input, &out, &dir.join("no/such/dir/p.json")],
+    );
     assert_eq!(r.code, 1, "{}", r.stderr);
     assert!(r.stderr.contains("p.json"), "{}", r.stderr);
     assert!(!std::path::Path::new(&out).exists());
@@ -492,16 +451,10 @@ fn a_failed_run_leaves_no_provenance() {
     // Line 3 has one field too many: unreadable input data.
     let input = dir.write("episodes.csv", "episode,dx1\ne1,I50\ne2,I50,J44\n");
     let prov = dir.join("p.json");
-    let r = morbus(&[
-        "score",
-        &input,
-        "--dx",
-        "dx1",
-        "-o",
-        &dir.join("scored.csv"),
-        "--provenance",
-        &prov,
-    ]);
+    let r = common::run(
+        "score {} --dx dx1 -o {} --provenance {}",
+        &[&input, &dir.join("scored.csv"), &prov],
+    );
     assert_eq!(r.code, 1, "{}", r.stderr);
     assert!(r.stderr.contains("line 3"), "{}", r.stderr);
     assert!(!std::path::Path::new(&prov).exists());
@@ -519,28 +472,13 @@ fn provenance_records_lookback_dates_and_exclusions() {
          b,2024-13-40,C18.7,\n",
     );
     let prov = dir.join("p.json");
-    let r = morbus(&[
-        "score",
-        &input,
-        "--dx",
-        "dx1,dx2",
-        "--id",
-        "patient",
-        "--date",
-        "admitted",
-        "--lookback",
-        "all",
-        "--exclude-primary",
-        "--index",
-        "charlson:count",
-        // one unreadable date in three: over the default 1%
-        "--max-unreadable-dates",
-        "50",
-        "--provenance",
-        &prov,
-        "-o",
-        &dir.join("out.csv"),
-    ]);
+    // One unreadable date in three: over the default 1%.
+    let r = common::run(
+        "score {} --dx dx1,dx2 --id patient --date admitted --lookback all \
+         --exclude-primary --index charlson:count --max-unreadable-dates 50 \
+         --provenance {} -o {}",
+        &[&input, &prov, &dir.join("out.csv")],
+    );
     assert_eq!(r.code, 0, "{}", r.stderr);
     let v: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(&prov).unwrap()).unwrap();

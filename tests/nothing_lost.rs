@@ -56,12 +56,7 @@ fn bin() -> Command {
 
 /// Runs `morbus ARGS` in `dir`.
 fn run_in(dir: &Path, args: &[&str]) -> common::Run {
-    let o = bin().args(args).current_dir(dir).output().unwrap();
-    common::Run {
-        code: o.status.code().unwrap_or(-1),
-        stdout: String::from_utf8_lossy(&o.stdout).into_owned(),
-        stderr: String::from_utf8_lossy(&o.stderr).into_owned(),
-    }
+    common::Run::from(bin().args(args).current_dir(dir).output().unwrap())
 }
 
 #[test]
@@ -548,41 +543,13 @@ fn an_interrupt_removes_the_temporary_files() {
         &["--id", "patient", "--lookback", "all", "--date", "admitted"],
     );
     // The partition files of a spilled history (a zero memory limit) go
-    // too.
-    interrupted(
-        "TERM",
-        15,
-        &[
-            "--id",
-            "patient",
-            "--lookback",
-            "all",
-            "--date",
-            "admitted",
-            "--memory",
-            "0",
-            "--temp-dir",
-            ".",
-        ],
+    // too; explain's too.
+    let spilled = common::words(
+        "--id patient --lookback all --date admitted --memory 0 --temp-dir .",
+        &[],
     );
-    // explain's too.
-    interrupted_run(
-        "explain",
-        "TERM",
-        15,
-        &[
-            "--id",
-            "patient",
-            "--lookback",
-            "all",
-            "--date",
-            "admitted",
-            "--memory",
-            "0",
-            "--temp-dir",
-            ".",
-        ],
-    );
+    interrupted("TERM", 15, &spilled);
+    interrupted_run("explain", "TERM", 15, &spilled);
 }
 
 /// Inputs that are not plain files: list files must be regular files of a
@@ -754,15 +721,7 @@ mod parquet_cases {
     use arrow_array::builder::StringBuilder;
     use arrow_array::{ArrayRef, RecordBatch, TimestampMicrosecondArray};
     use common::{column, morbus};
-    use parquet::arrow::ArrowWriter;
     use std::sync::Arc;
-
-    fn write_parquet(path: &Path, batch: &RecordBatch) {
-        let file = std::fs::File::create(path).unwrap();
-        let mut w = ArrowWriter::try_new(file, batch.schema(), None).unwrap();
-        w.write(batch).unwrap();
-        w.close().unwrap();
-    }
 
     /// Timestamps with a named time zone (as data-frame libraries write
     /// zone-aware columns), in a column the run uses and in one it only
@@ -805,7 +764,7 @@ mod parquet_cases {
         ])
         .unwrap();
         let input = dir.path().join("zoned.parquet");
-        write_parquet(&input, &batch);
+        common::write_parquet(&input, &batch, None);
         input
     }
 

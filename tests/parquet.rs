@@ -14,24 +14,17 @@
 mod common;
 
 use std::fs::File;
-use std::io::Write;
 use std::path::{Path, PathBuf};
-use std::process::{Command, Stdio};
 use std::sync::Arc;
 
-use arrow_array::builder::{
-    Date32Builder, Int64Builder, Int8Builder, LargeStringBuilder, ListBuilder, StringBuilder,
-    StringDictionaryBuilder,
-};
+use arrow_array::builder::{Date32Builder, Int64Builder, Int8Builder, ListBuilder, StringBuilder};
 use arrow_array::cast::AsArray;
 use arrow_array::types::Int32Type;
-use arrow_array::{Array, ArrayRef, RecordBatch};
+use arrow_array::{Array, ArrayRef, DictionaryArray, LargeStringArray, RecordBatch, StringArray};
 use arrow_schema::DataType;
 use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
-use parquet::arrow::ArrowWriter;
-use parquet::file::properties::WriterProperties;
 
-use common::{column, morbus, root, TempDir};
+use common::{column, morbus, root, write_parquet, TempDir};
 
 /// The records of a CSV file (header first).
 fn records(path: &Path) -> Vec<Vec<String>> {
@@ -83,40 +76,12 @@ fn write_both(
     let mut arrays: Vec<(String, ArrayRef)> = Vec::new();
     for (k, name) in header.iter().enumerate() {
         let values = rows[1..].iter().map(|r| r[k].as_str());
+        // Text of each kind: empty fields as nulls.
+        let texts = values.clone().map(|v| Some(v).filter(|v| !v.is_empty()));
         let a: ArrayRef = match kind_of(name) {
-            Kind::Text => {
-                let mut b = StringBuilder::new();
-                values.for_each(|v| {
-                    if v.is_empty() {
-                        b.append_null()
-                    } else {
-                        b.append_value(v)
-                    }
-                });
-                Arc::new(b.finish())
-            }
-            Kind::LargeText => {
-                let mut b = LargeStringBuilder::new();
-                values.for_each(|v| {
-                    if v.is_empty() {
-                        b.append_null()
-                    } else {
-                        b.append_value(v)
-                    }
-                });
-                Arc::new(b.finish())
-            }
-            Kind::Dict => {
-                let mut b = StringDictionaryBuilder::<Int32Type>::new();
-                values.for_each(|v| {
-                    if v.is_empty() {
-                        b.append_null()
-                    } else {
-                        b.append_value(v);
-                    }
-                });
-                Arc::new(b.finish())
-            }
+            Kind::Text => Arc::new(StringArray::from_iter(texts)),
+            Kind::LargeText => Arc::new(LargeStringArray::from_iter(texts)),
+            Kind::Dict => Arc::new(texts.collect::<DictionaryArray<Int32Type>>()),
             Kind::Date => {
                 let mut b = Date32Builder::new();
                 values.for_each(|v| {
@@ -139,7 +104,7 @@ fn write_both(
     }
     let batch = RecordBatch::try_from_iter(arrays).unwrap();
     let pq = dir.join(format!("{stem}.parquet"));
-    write_parquet(&pq, &batch, group);
+    write_parquet(&pq, &batch, Some(group));
 
     let csv = dir.join(format!("{stem}.csv"));
     let mut w = csv::Writer::from_path(&csv).unwrap();
@@ -157,16 +122,6 @@ fn write_both(
     }
     w.flush().unwrap();
     (pq, csv)
-}
-
-fn write_parquet(path: &Path, batch: &RecordBatch, group: usize) {
-    let props = WriterProperties::builder()
-        .set_max_row_group_row_count(Some(group))
-        .build();
-    let mut w =
-        ArrowWriter::try_new(File::create(path).unwrap(), batch.schema(), Some(props)).unwrap();
-    w.write(batch).unwrap();
-    w.close().unwrap();
 }
 
 /// Every row of a Parquet file, as one batch, and its number of row groups.
@@ -528,28 +483,16 @@ fn explain_and_compare_read_parquet() {
         assert_same(&as_text(&got, &name), &expected, &name);
     }
     // explain --json cannot be Parquet.
-    let r = morbus(&["explain", s(&w.pq), "--dx", "dx*", "--json", "-o", s(&out)]);
+    let r = common::run("explain {} --dx dx* --json -o {}", &[s(&w.pq), s(&out)]);
     assert_eq!(r.code, 2, "{}", r.stderr);
 
     // compare: the same results (JSON) from either form.
     let compare = |input: &Path, json: &Path| {
-        let r = morbus(&[
-            "compare",
-            s(input),
-            "--dx",
-            "dx*",
-            "--outcome",
-            "died_within_30_days",
-            "--adjust",
-            "age",
-            "--adjust-cat",
-            "sex",
-            "--index",
-            "charlson,hfrs",
-            "--json",
-            s(json),
-            "-q",
-        ]);
+        let r = common::run(
+            "compare {} --dx dx* --outcome died_within_30_days --adjust age \
+             --adjust-cat sex --index charlson,hfrs --json {} -q",
+            &[s(input), s(json)],
+        );
         assert_eq!(r.code, 0, "{}", r.stderr);
         (r.stdout, std::fs::read_to_string(json).unwrap())
     };
@@ -568,16 +511,10 @@ fn csv_in_parquet_out_keeps_the_fields_as_text() {
     )
     .unwrap();
     let out = dir.path().join("out.pq");
-    let r = morbus(&[
-        "score",
-        s(&input),
-        "--dx",
-        "dx*",
-        "-o",
-        s(&out),
-        "--index",
-        "charlson",
-    ]);
+    let r = common::run(
+        "score {} --dx dx* -o {} --index charlson",
+        &[s(&input), s(&out)],
+    );
     assert_eq!(r.code, 0, "{}", r.stderr);
     let (got, _) = read_parquet(&out);
     assert_eq!(got.num_rows(), 3);
@@ -591,7 +528,7 @@ fn csv_in_parquet_out_keeps_the_fields_as_text() {
         got.column_by_name("charlson_quan2011").unwrap().data_type(),
         &DataType::Int64
     );
-    let reference = morbus(&["score", s(&input), "--dx", "dx*", "--index", "charlson"]);
+    let reference = common::run("score {} --dx dx* --index charlson", &[s(&input)]);
     assert_eq!(
         as_text(&got, "charlson_quan2011"),
         column(&reference.stdout, "charlson_quan2011")
@@ -722,18 +659,12 @@ fn a_list_column_passes_through_and_a_standard_input_parquet_is_read() {
     ])
     .unwrap();
     let input = dir.path().join("in.parquet");
-    write_parquet(&input, &batch, 10);
+    write_parquet(&input, &batch, Some(10));
     let out = dir.path().join("out.parquet");
-    let r = morbus(&[
-        "score",
-        s(&input),
-        "--dx",
-        "dx1",
-        "-o",
-        s(&out),
-        "--index",
-        "charlson",
-    ]);
+    let r = common::run(
+        "score {} --dx dx1 -o {} --index charlson",
+        &[s(&input), s(&out)],
+    );
     assert_eq!(r.code, 0, "{}", r.stderr);
     let (got, _) = read_parquet(&out);
     assert_eq!(got.column(0).as_ref(), batch.column(0).as_ref());
@@ -741,15 +672,15 @@ fn a_list_column_passes_through_and_a_standard_input_parquet_is_read() {
     // comma. Scores: Quan et al., Am J Epidemiol 2011;173:676-82, Table 3
     // (from memory): congestive heart failure (I50) 2, myocardial
     // infarction (I21) 0.
-    let r = morbus(&["score", s(&input), "--dx", "dx1", "--index", "charlson"]);
+    let r = common::run("score {} --dx dx1 --index charlson", &[s(&input)]);
     assert_eq!(
         r.stdout,
         "tags,dx1,charlson_quan2011\n\"[a, b]\",I50.9,2\n,I21.9,0\n"
     );
 
     // From standard input, to standard output as Parquet.
-    let mut child = Command::new(env!("CARGO_BIN_EXE_morbus"))
-        .args([
+    let o = common::pipe(
+        &[
             "score",
             "--dx",
             "dx1",
@@ -758,18 +689,9 @@ fn a_list_column_passes_through_and_a_standard_input_parquet_is_read() {
             "--output-format",
             "parquet",
             "-q",
-        ])
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .spawn()
-        .unwrap();
-    child
-        .stdin
-        .take()
-        .unwrap()
-        .write_all(&std::fs::read(&input).unwrap())
-        .unwrap();
-    let o = child.wait_with_output().unwrap();
+        ],
+        &std::fs::read(&input).unwrap(),
+    );
     assert!(o.status.success());
     let piped = dir.path().join("piped.parquet");
     std::fs::write(&piped, &o.stdout).unwrap();
@@ -798,9 +720,9 @@ fn problems_name_the_row_and_a_failed_run_leaves_no_valid_file() {
     ])
     .unwrap();
     let input = dir.path().join("in.parquet");
-    write_parquet(&input, &batch, 2);
+    write_parquet(&input, &batch, Some(2));
     let out = dir.path().join("out.parquet");
-    let r = morbus(&["score", s(&input), "--dx", "dx1", "--strict", "-o", s(&out)]);
+    let r = common::run("score {} --dx dx1 --strict -o {}", &[s(&input), s(&out)]);
     assert_eq!(r.code, 3, "{}", r.stderr);
     assert!(
         r.stderr.contains(&format!("row 4 of {}", input.display())),
@@ -823,7 +745,7 @@ fn problems_name_the_row_and_a_failed_run_leaves_no_valid_file() {
         "a temporary file was left"
     );
     // Without --strict every row comes out, the invalid code counted.
-    let r = morbus(&["score", s(&input), "--dx", "dx1", "-o", s(&out)]);
+    let r = common::run("score {} --dx dx1 -o {}", &[s(&input), s(&out)]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     assert!(
         r.stderr.contains("5 rows read, 5 rows written") && r.stderr.contains("1 invalid code"),
@@ -836,13 +758,13 @@ fn problems_name_the_row_and_a_failed_run_leaves_no_valid_file() {
     let bytes = std::fs::read(&input).unwrap();
     let cut = dir.path().join("cut.parquet");
     std::fs::write(&cut, &bytes[..bytes.len() / 2]).unwrap();
-    let r = morbus(&["score", s(&cut), "--dx", "dx1"]);
+    let r = common::run("score {} --dx dx1", &[s(&cut)]);
     assert_eq!(r.code, 1, "{}", r.stderr);
     assert!(r.stderr.contains("as Parquet"), "{}", r.stderr);
     assert!(!r.stderr.contains("panicked"), "{}", r.stderr);
 
     // A column that is not there: the usual message, listing the columns.
-    let r = morbus(&["score", s(&input), "--dx", "dx9", "-o", s(&out)]);
+    let r = common::run("score {} --dx dx9 -o {}", &[s(&input), s(&out)]);
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(
         r.stderr.contains("note, dx1") || r.stderr.contains("note,dx1"),
@@ -853,7 +775,7 @@ fn problems_name_the_row_and_a_failed_run_leaves_no_valid_file() {
     // Text that is not UTF-8 cannot go into a Parquet text column.
     let latin = dir.path().join("latin.csv");
     std::fs::write(&latin, b"name,dx1\nJos\xe9,I21.9\n").unwrap();
-    let r = morbus(&["score", s(&latin), "--dx", "dx1", "-o", s(&out)]);
+    let r = common::run("score {} --dx dx1 -o {}", &[s(&latin), s(&out)]);
     assert_eq!(r.code, 1, "{}", r.stderr);
     assert!(r.stderr.contains("not UTF-8"), "{}", r.stderr);
 }
@@ -863,13 +785,13 @@ fn a_score_column_already_in_a_parquet_input_is_refused() {
     let w = wide();
     let once = w.dir.join("once.parquet");
     assert_eq!(
-        morbus(&["score", s(&w.pq), "--dx", "dx*", "-o", s(&once)]).code,
+        common::run("score {} --dx dx* -o {}", &[s(&w.pq), s(&once)]).code,
         0
     );
     // Scoring the scored file again would repeat its score columns.
     for out in ["twice.parquet", "twice.csv"] {
         let out = w.dir.join(out);
-        let r = morbus(&["score", s(&once), "--dx", "dx*", "-o", s(&out)]);
+        let r = common::run("score {} --dx dx* -o {}", &[s(&once), s(&out)]);
         assert_eq!(r.code, 2, "{}", r.stderr);
         assert!(
             r.stderr
@@ -954,21 +876,12 @@ fn a_timestamp_with_a_time_zone_counts_on_its_date_in_that_zone() {
     .unwrap();
     let dir = TempDir::new("parquet-tz");
     let input = dir.path().join("tz.parquet");
-    write_parquet(&input, &batch, 10);
-    let r = morbus(&[
-        "score",
-        s(&input),
-        "--dx",
-        "dx1",
-        "--id",
-        "patient",
-        "--date",
-        "admitted",
-        "--lookback",
-        "365",
-        "--index",
-        "charlson:charlson1987",
-    ]);
+    write_parquet(&input, &batch, Some(10));
+    let r = common::run(
+        "score {} --dx dx1 --id patient --date admitted --lookback 365 \
+         --index charlson:charlson1987",
+        &[s(&input)],
+    );
     assert_eq!(r.code, 0, "{}", r.stderr);
     assert_eq!(
         column(&r.stdout, "charlson_charlson1987"),
@@ -1008,7 +921,7 @@ fn compare_on_parquet_names_rows_and_reads_typed_outcomes() {
         ])
         .unwrap();
         let pq = dir.path().join(format!("{stem}.parquet"));
-        write_parquet(&pq, &batch, 2);
+        write_parquet(&pq, &batch, Some(2));
         let csv = dir.path().join(format!("{stem}.csv"));
         std::fs::write(&csv, text).unwrap();
         (pq, csv)

@@ -22,6 +22,8 @@
 
 #![cfg(feature = "parquet")]
 
+mod common;
+
 use std::fs::File;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
@@ -42,8 +44,8 @@ use morbus::pipeline::{
 };
 use morbus::score::{Engine, IndexSpec, ScoreOptions};
 use morbus::Error;
-use parquet::arrow::ArrowWriter;
-use parquet::file::properties::WriterProperties;
+
+use common::{Lcg, TempDir};
 
 /// A column of the generated extract.
 #[derive(Clone)]
@@ -154,33 +156,13 @@ impl Table {
             })
             .collect();
         let batch = RecordBatch::try_from_iter(arrays).unwrap();
-        let props = WriterProperties::builder()
-            .set_max_row_group_row_count(Some(37))
-            .build();
-        let mut w =
-            ArrowWriter::try_new(File::create(path).unwrap(), batch.schema(), Some(props)).unwrap();
-        w.write(&batch).unwrap();
-        w.close().unwrap();
+        common::write_parquet(path, &batch, Some(37));
     }
 }
 
-/// A small seeded generator (64-bit linear congruential).
-struct Rng(u64);
-
-impl Rng {
-    fn next(&mut self) -> u64 {
-        self.0 = self
-            .0
-            .wrapping_mul(6364136223846793005)
-            .wrapping_add(1442695040888963407);
-        self.0 >> 33
-    }
-    fn below(&mut self, n: u64) -> u64 {
-        self.next() % n
-    }
-    fn pick<'a>(&mut self, items: &[&'a str]) -> &'a str {
-        items[self.below(items.len() as u64) as usize]
-    }
+/// Seeded test data: the top 31 bits of the generator's state.
+fn rng(seed: u64) -> Lcg {
+    Lcg::new(seed, 31)
 }
 
 /// Codes as extracts hold them: valid codes of many conditions, written
@@ -244,7 +226,7 @@ fn iso(d: i64) -> String {
 /// The wide extract: one row per episode. `typed`: integer ids, dates as
 /// dates (an unreadable one becomes missing), ages as numbers.
 fn wide(typed: bool) -> Table {
-    let mut r = Rng(20_261_203);
+    let mut r = rng(20_261_203);
     let mut patient = Vec::new();
     let mut date_text = Vec::new();
     let mut date_day = Vec::new();
@@ -312,7 +294,7 @@ fn wide(typed: bool) -> Table {
 /// The long extract: one row per code; an episode's rows share its date,
 /// and some give another age.
 fn long(typed: bool) -> Table {
-    let mut r = Rng(5_150_001);
+    let mut r = rng(5_150_001);
     let (mut patient, mut episode, mut date_text, mut date_day) =
         (Vec::new(), Vec::new(), Vec::new(), Vec::new());
     let (mut age_text, mut age_num, mut code, mut primary_text, mut primary_bool, mut poa) = (
@@ -518,24 +500,11 @@ struct Files {
     path: PathBuf,
 }
 
-struct TempDir(PathBuf);
-
-impl Drop for TempDir {
-    fn drop(&mut self) {
-        let _ = std::fs::remove_dir_all(&self.0);
-    }
-}
-
 fn parquet_file(t: &Table, stem: &str) -> Files {
-    let dir =
-        std::env::temp_dir().join(format!("morbus-row-sources-{stem}-{}", std::process::id()));
-    std::fs::create_dir_all(&dir).unwrap();
-    let path = dir.join(format!("{stem}.parquet"));
+    let dir = TempDir::new(&format!("row-sources-{stem}"));
+    let path = dir.path().join(format!("{stem}.parquet"));
     t.parquet(&path);
-    Files {
-        _dir: TempDir(dir),
-        path,
-    }
+    Files { _dir: dir, path }
 }
 
 fn typed_rows(path: &Path) -> Input<'static> {
@@ -695,14 +664,23 @@ fn check_explain(engine: &Engine, t: &Table, pq: &Path, what: &str, cfg: &ScoreC
     assert_eq!(explained_cells(&ex), text_cells, "{what}: frame explain");
 }
 
-#[test]
-fn wide_extracts_read_alike_from_text_frames_and_parquet() {
+/// Scores and explanations of the `layout` extract, as text and as typed
+/// columns, agree through the three sources for every configuration.
+fn check_layout_reads_alike(layout: Layout) {
     let engine = engine();
+    let kind = match layout {
+        Layout::Wide => "wide",
+        Layout::Long => "long",
+    };
     for typed in [false, true] {
-        let t = wide(typed);
-        let pq = parquet_file(&t, if typed { "wide-typed" } else { "wide-text" });
-        for (name, cfg) in configs(Layout::Wide) {
-            let what = format!("wide, typed {typed}, {name}");
+        let t = match layout {
+            Layout::Wide => wide(typed),
+            Layout::Long => long(typed),
+        };
+        let stem = format!("{kind}-{}", if typed { "typed" } else { "text" });
+        let pq = parquet_file(&t, &stem);
+        for (name, cfg) in configs(layout) {
+            let what = format!("{kind}, typed {typed}, {name}");
             check_scores(&engine, &t, &pq.path, &what, &cfg);
             check_explain(&engine, &t, &pq.path, &what, &cfg);
         }
@@ -710,17 +688,13 @@ fn wide_extracts_read_alike_from_text_frames_and_parquet() {
 }
 
 #[test]
+fn wide_extracts_read_alike_from_text_frames_and_parquet() {
+    check_layout_reads_alike(Layout::Wide);
+}
+
+#[test]
 fn long_extracts_read_alike_from_text_frames_and_parquet() {
-    let engine = engine();
-    for typed in [false, true] {
-        let t = long(typed);
-        let pq = parquet_file(&t, if typed { "long-typed" } else { "long-text" });
-        for (name, cfg) in configs(Layout::Long) {
-            let what = format!("long, typed {typed}, {name}");
-            check_scores(&engine, &t, &pq.path, &what, &cfg);
-            check_explain(&engine, &t, &pq.path, &what, &cfg);
-        }
-    }
+    check_layout_reads_alike(Layout::Long);
 }
 
 /// With --strict the first problem stops every source at the same row:
@@ -736,25 +710,40 @@ fn strict_stops_name_the_same_row_in_every_source() {
         strict: true,
         ..base
     };
-    let text = score_stream(&engine, &cfg, &t.csv()[..], &mut Vec::new()).unwrap_err();
+    check_strict_stop(&engine, &t, &cfg, "long", || {
+        score_stream(&engine, &cfg, typed_rows(&pq.path), &mut Vec::new()).unwrap_err()
+    });
+}
+
+/// A strict run over `t` stops at a row: the text, the frame and the
+/// Parquet file (read by `parquet`) name the same row and problem.
+fn check_strict_stop(
+    engine: &Engine,
+    t: &Table,
+    cfg: &ScoreConfig,
+    what: &str,
+    parquet: impl FnOnce() -> Error,
+) {
+    let text = score_stream(engine, cfg, &t.csv()[..], &mut Vec::new()).unwrap_err();
     let Error::Strict {
         line: Some(line),
         message,
     } = text
     else {
-        panic!("{text:?}")
+        panic!("{what}: {text:?}")
     };
     // Header on line 1, one line per record.
     let row = line - 1;
-    let framed = frame::score(&engine, &cfg, &t.header(), &t, 1).unwrap_err();
+    let framed = frame::score(engine, cfg, &t.header(), t, 1).unwrap_err();
     assert_eq!(
         framed.to_string(),
-        format!("row {row}: {message} (--strict)")
+        format!("row {row}: {message} (--strict)"),
+        "{what}"
     );
-    let parquet = score_stream(&engine, &cfg, typed_rows(&pq.path), &mut Vec::new()).unwrap_err();
     assert_eq!(
-        parquet.to_string(),
-        format!("row {row} of in.parquet: {message} (--strict)")
+        parquet().to_string(),
+        format!("row {row} of in.parquet: {message} (--strict)"),
+        "{what}"
     );
 }
 
@@ -1379,26 +1368,9 @@ fn plain_strict_stops_name_the_same_row_in_every_source() {
                 strict: true,
                 ..base
             };
-            let text = score_stream(&engine, &cfg, &t.csv()[..], &mut Vec::new()).unwrap_err();
-            let Error::Strict {
-                line: Some(line),
-                message,
-            } = text
-            else {
-                panic!("{name}: {text:?}")
-            };
-            let row = line - 1;
-            let framed = frame::score(&engine, &cfg, &t.header(), &t, 1).unwrap_err();
-            assert_eq!(
-                framed.to_string(),
-                format!("row {row}: {message} (--strict)")
-            );
-            let parquet = plain_csv(&engine, &cfg, &pq.path).unwrap_err();
-            assert_eq!(
-                parquet.to_string(),
-                format!("row {row} of in.parquet: {message} (--strict)"),
-                "{name}"
-            );
+            check_strict_stop(&engine, &t, &cfg, name, || {
+                plain_csv(&engine, &cfg, &pq.path).unwrap_err()
+            });
         }
     }
 }
@@ -1409,9 +1381,8 @@ fn plain_strict_stops_name_the_same_row_in_every_source() {
 #[test]
 fn plain_parquet_output_keeps_every_input_type() {
     use arrow_array::TimestampMicrosecondArray;
-    let dir = std::env::temp_dir().join(format!("morbus-row-sources-types-{}", std::process::id()));
-    std::fs::create_dir_all(&dir).unwrap();
-    let _guard = TempDir(dir.clone());
+    let tmp = TempDir::new("row-sources-types");
+    let dir = tmp.path();
     let ts = TimestampMicrosecondArray::from(vec![
         Some(1_700_000_000_000_000),
         None,
@@ -1473,9 +1444,7 @@ fn plain_parquet_output_keeps_every_input_type() {
     ];
     let input = RecordBatch::try_from_iter(columns).unwrap();
     let pq = dir.join("types.parquet");
-    let mut w = ArrowWriter::try_new(File::create(&pq).unwrap(), input.schema(), None).unwrap();
-    w.write(&input).unwrap();
-    w.close().unwrap();
+    common::write_parquet(&pq, &input, None);
     let engine = engine();
     let cfg = ScoreConfig {
         dx: vec!["dx*".into()],

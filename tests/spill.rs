@@ -6,7 +6,7 @@
 
 mod common;
 
-use common::{code_pool, morbus, Rng, TempDir};
+use common::{code_pool, morbus, Rng, Run, TempDir};
 use morbus::lists::Catalogue;
 use morbus::pipeline::explain::ExplainFormat;
 use morbus::pipeline::{explain_stream, score_stream, Layout, ScoreConfig, Summary, WindowScope};
@@ -58,6 +58,71 @@ fn engine() -> Engine {
 
 fn files_in(dir: &std::path::Path) -> usize {
     std::fs::read_dir(dir).unwrap().count()
+}
+
+/// What the summary says when a run spilled.
+const SPILLED: &str = "the history was over half of --memory and went to temporary files";
+
+/// A directory for runs of the command line, with the `--temp-dir` they
+/// spill into.
+struct Runs {
+    dir: TempDir,
+    temp: String,
+}
+
+impl Runs {
+    fn new(tag: &str) -> Runs {
+        let dir = TempDir::new(tag);
+        let temp = dir.join("tmp");
+        std::fs::create_dir(&temp).unwrap();
+        Runs { dir, temp }
+    }
+
+    /// Runs `morbus LINE --memory MEMORY --temp-dir TEMP` (LINE as in
+    /// [`common::words`]).
+    fn run(&self, line: &str, values: &[&str], memory: &str) -> Run {
+        let mut args = common::words(line, values);
+        args.extend(["--memory", memory, "--temp-dir", &self.temp]);
+        morbus(&args)
+    }
+
+    /// [`Runs::run`], which must succeed and leave no temporary file.
+    fn ok(&self, line: &str, values: &[&str], memory: &str) -> Run {
+        let r = self.run(line, values, memory);
+        assert_eq!(r.code, 0, "{line} {values:?} {memory}: {}", r.stderr);
+        self.left_nothing(line);
+        r
+    }
+
+    fn left_nothing(&self, what: &str) {
+        let left = files_in(std::path::Path::new(&self.temp));
+        assert_eq!(left, 0, "{what}: temporary file left behind");
+    }
+}
+
+/// The extracts of `rows` rows as Parquet holds them (dates as dates: the
+/// unreadable ones left out): wide, and long from `seed`.
+fn typed_histories(rows: usize, seed: u64) -> (String, String) {
+    let wide = history(rows).replace("\r\n", "\n");
+    let long = long_history(rows, seed, false)
+        .lines()
+        .filter(|l| !l.contains("sometime"))
+        .map(|l| format!("{l}\n"))
+        .collect();
+    (wide, long)
+}
+
+/// A clean long extract from `seed` with, last, a row of its first episode
+/// that gives another date (which --strict stops at).
+fn long_with_a_disagreeing_row(rows: usize, seed: u64) -> String {
+    let mut text = long_history(rows, seed, true);
+    let first = text.lines().nth(1).unwrap().to_string();
+    let f: Vec<&str> = first.split(',').collect();
+    text.push_str(&format!(
+        "{},{},2001-01-01,{},{},0,Y,I21.0\n",
+        f[0], f[1], f[3], f[4]
+    ));
+    text
 }
 
 /// A summary without what was spilled (the rest must equal the in-memory
@@ -267,21 +332,55 @@ fn same_spilled_by(cfg: &ScoreConfig, size: usize, what: &str, run: &dyn Fn(&Sco
     }
 }
 
-#[test]
-fn every_layout_spilled_equals_in_memory() {
-    let engine = engine();
-    let long = long_history(6_000, 7, false);
-    let wide = history(3_000);
-    let long_cfg = ScoreConfig {
+/// The long extract's run: by `episode` (or by id alone), a 365-day
+/// lookback, unreadable dates allowed.
+fn long_config(episode: Option<&str>) -> ScoreConfig {
+    ScoreConfig {
         layout: Layout::Long,
         dx: vec!["dx".into()],
         id: Some("pid".into()),
+        episode: episode.map(String::from),
         date: Some("date".into()),
         age: Some("age".into()),
         lookback: Some(365),
         max_unreadable_dates: 100.0,
         ..ScoreConfig::default()
-    };
+    }
+}
+
+/// `base` with the primary diagnosis left out, present on admission, a
+/// window per list and earlier episodes only.
+fn with_rules(base: &ScoreConfig) -> ScoreConfig {
+    ScoreConfig {
+        primary: Some("primary".into()),
+        exclude_primary: true,
+        poa: Some("poa".into()),
+        lookback: None,
+        lookback_lists: vec![("hfrs".into(), 730), ("charlson".into(), u32::MAX)],
+        window: WindowScope::EarlierOnly,
+        ..base.clone()
+    }
+}
+
+/// The wide extract's run: a 730-day lookback, the primary diagnosis left
+/// out.
+fn wide_config() -> ScoreConfig {
+    ScoreConfig {
+        dx: vec!["dx*".into()],
+        id: Some("pid".into()),
+        date: Some("date".into()),
+        lookback: Some(730),
+        exclude_primary: true,
+        ..ScoreConfig::default()
+    }
+}
+
+#[test]
+fn every_layout_spilled_equals_in_memory() {
+    let engine = engine();
+    let long = long_history(6_000, 7, false);
+    let wide = history(3_000);
+    let long_cfg = long_config(None);
     same_spilled(&engine, &long_cfg, &long, "long, by id");
     let episodes = ScoreConfig {
         episode: Some("stay".into()),
@@ -293,15 +392,7 @@ fn every_layout_spilled_equals_in_memory() {
         ..episodes.clone()
     };
     same_spilled(&engine, &kept, &long, "long, --keep");
-    let rules = ScoreConfig {
-        primary: Some("primary".into()),
-        exclude_primary: true,
-        poa: Some("poa".into()),
-        lookback: None,
-        lookback_lists: vec![("hfrs".into(), 730), ("charlson".into(), u32::MAX)],
-        window: WindowScope::EarlierOnly,
-        ..kept.clone()
-    };
+    let rules = with_rules(&kept);
     same_spilled(
         &engine,
         &rules,
@@ -314,14 +405,7 @@ fn every_layout_spilled_equals_in_memory() {
         ..episodes.clone()
     };
     same_spilled(&engine, &no_lookback, &long, "long, no lookback");
-    let wide_cfg = ScoreConfig {
-        dx: vec!["dx*".into()],
-        id: Some("pid".into()),
-        date: Some("date".into()),
-        lookback: Some(730),
-        exclude_primary: true,
-        ..ScoreConfig::default()
-    };
+    let wide_cfg = wide_config();
     same_spilled(&engine, &wide_cfg, &wide, "wide");
     let earlier = ScoreConfig {
         window: WindowScope::EarlierOnly,
@@ -353,17 +437,7 @@ fn explain_spilled_equals_in_memory() {
     let engine = engine();
     let long = long_history(3_000, 17, false);
     let wide = history(2_000);
-    let long_cfg = ScoreConfig {
-        layout: Layout::Long,
-        dx: vec!["dx".into()],
-        id: Some("pid".into()),
-        episode: Some("stay".into()),
-        date: Some("date".into()),
-        age: Some("age".into()),
-        lookback: Some(365),
-        max_unreadable_dates: 100.0,
-        ..ScoreConfig::default()
-    };
+    let long_cfg = long_config(Some("stay"));
     same_explained(&engine, &long_cfg, &long, "long, by episode");
     let by_id = ScoreConfig {
         episode: None,
@@ -375,15 +449,7 @@ fn explain_spilled_equals_in_memory() {
         ..long_cfg.clone()
     };
     same_explained(&engine, &labelled, &long, "long, --label");
-    let rules = ScoreConfig {
-        primary: Some("primary".into()),
-        exclude_primary: true,
-        poa: Some("poa".into()),
-        lookback: None,
-        lookback_lists: vec![("hfrs".into(), 730), ("charlson".into(), u32::MAX)],
-        window: WindowScope::EarlierOnly,
-        ..labelled.clone()
-    };
+    let rules = with_rules(&labelled);
     same_explained(
         &engine,
         &rules,
@@ -391,14 +457,9 @@ fn explain_spilled_equals_in_memory() {
         "long, exclusions, present on admission, windows per list, earlier only",
     );
     let wide_cfg = ScoreConfig {
-        dx: vec!["dx*".into()],
-        id: Some("pid".into()),
-        date: Some("date".into()),
-        lookback: Some(730),
-        exclude_primary: true,
         // A label with quoted line breaks.
         keep: vec!["note".into()],
-        ..ScoreConfig::default()
+        ..wide_config()
     };
     same_explained(&engine, &wide_cfg, &wide, "wide, --label");
     // Fewer episodes than threads.
@@ -503,55 +564,32 @@ fn spilled_rows_give_the_in_memory_output() {
 
 #[test]
 fn the_command_line_spills_and_cleans_up_after_failure() {
-    let dir = TempDir::new("spill-cli");
-    let temp = dir.path().join("tmp");
-    std::fs::create_dir(&temp).unwrap();
+    let runs = Runs::new("spill-cli");
     let good = history(5_000);
-    let input = dir.write("in.csv", &good);
-    let args = |memory: &str| {
-        vec![
-            "score".to_string(),
-            input.clone(),
-            "--dx".into(),
-            "dx*".into(),
-            "--id".into(),
-            "pid".into(),
-            "--date".into(),
-            "date".into(),
-            "--lookback".into(),
-            "730".into(),
-            "--memory".into(),
-            memory.into(),
-            "--temp-dir".into(),
-            temp.display().to_string(),
-        ]
-    };
-    let run = |a: &[String]| morbus(&a.iter().map(String::as_str).collect::<Vec<_>>());
-    let in_memory = run(&args("1GiB"));
-    let spilled = run(&args("1KiB"));
-    assert_eq!(in_memory.code, 0, "{}", in_memory.stderr);
-    assert_eq!(spilled.code, 0, "{}", spilled.stderr);
+    let input = runs.dir.write("in.csv", &good);
+    let line = "score {} --dx dx* --id pid --date date --lookback 730";
+    let in_memory = runs.ok(line, &[&input], "1GiB");
+    let spilled = runs.ok(line, &[&input], "1KiB");
     assert_eq!(spilled.stdout, in_memory.stdout);
-    assert_eq!(files_in(&temp), 0);
     // The summary says what was spilled.
-    let said = "the history was over half of --memory and went to temporary files";
-    assert!(spilled.stderr.contains(said), "{}", spilled.stderr);
-    assert!(!in_memory.stderr.contains(said), "{}", in_memory.stderr);
+    assert!(spilled.stderr.contains(SPILLED), "{}", spilled.stderr);
+    assert!(!in_memory.stderr.contains(SPILLED), "{}", in_memory.stderr);
     // A record with a field too many at the end: exit 1, no file left.
-    let bad = dir.write("bad.csv", &format!("{good}p1,2024-01-01,x,I21.0,,,extra\n"));
-    let mut a = args("1KiB");
-    a[1] = bad;
-    let r = run(&a);
+    let bad = runs
+        .dir
+        .write("bad.csv", &format!("{good}p1,2024-01-01,x,I21.0,,,extra\n"));
+    let r = runs.run(line, &[&bad], "1KiB");
     assert_eq!(r.code, 1, "{}", r.stderr);
-    assert_eq!(files_in(&temp), 0);
+    runs.left_nothing("bad.csv");
     // Usage: an unreadable size; a directory that does not exist.
-    let r = run(&args("plenty"));
+    let r = runs.run(line, &[&input], "plenty");
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(r.stderr.contains("--memory takes a size"), "{}", r.stderr);
-    let mut a = args("1KiB");
-    let last = a.len() - 1;
-    a[last] = dir.join("no-such-dir");
-    let r = run(&a);
+    let missing = runs.dir.join("no-such-dir");
+    let r = morbus(&common::words(
+        &format!("{line} --memory 1KiB --temp-dir {{}}"),
+        &[&input, &missing],
+    ));
     assert_eq!(r.code, 1, "{}", r.stderr);
     assert!(
         r.stderr.contains("cannot create a temporary file"),
@@ -592,104 +630,48 @@ fn to_parquet(text: &str, path: &std::path::Path) {
         arrays.push((name.clone(), a));
     }
     let batch = RecordBatch::try_from_iter(arrays).unwrap();
-    let mut w = parquet::arrow::ArrowWriter::try_new(
-        std::fs::File::create(path).unwrap(),
-        batch.schema(),
-        None,
-    )
-    .unwrap();
-    w.write(&batch).unwrap();
-    w.close().unwrap();
+    common::write_parquet(path, &batch, None);
 }
 
 #[cfg(feature = "parquet")]
 #[test]
 fn parquet_in_and_out_spilled_equal_in_memory() {
-    let dir = TempDir::new("spill-parquet");
-    let temp = dir.path().join("tmp");
-    std::fs::create_dir(&temp).unwrap();
-    // Dates that Parquet holds as dates: the unreadable ones left out.
-    let wide: String = history(4_000).replace("\r\n", "\n");
-    let long: String = long_history(4_000, 9, false)
-        .lines()
-        .filter(|l| !l.contains("sometime"))
-        .map(|l| format!("{l}\n"))
-        .collect();
-    let cases: [(&str, &String, &[&str]); 2] = [
+    let runs = Runs::new("spill-parquet");
+    let (wide, long) = typed_histories(4_000, 9);
+    let cases = [
         (
             "wide",
             &wide,
-            &[
-                "--dx",
-                "dx*",
-                "--id",
-                "pid",
-                "--date",
-                "date",
-                "--lookback",
-                "365",
-            ],
+            "--dx dx* --id pid --date date --lookback 365",
         ),
         (
             "long",
             &long,
-            &[
-                "--layout",
-                "long",
-                "--dx",
-                "dx",
-                "--id",
-                "pid",
-                "--episode",
-                "stay",
-                "--keep",
-                "ward",
-                "--date",
-                "date",
-                "--age",
-                "age",
-                "--lookback",
-                "730",
-            ],
+            "--layout long --dx dx --id pid --episode stay --keep ward --date date --age age \
+             --lookback 730",
         ),
     ];
     for (name, text, opts) in cases {
-        let csv_in = dir.write(&format!("{name}.csv"), text);
-        let pq_in = dir.path().join(format!("{name}.parquet"));
+        let csv_in = runs.dir.write(&format!("{name}.csv"), text);
+        let pq_in = runs.dir.path().join(format!("{name}.parquet"));
         to_parquet(text, &pq_in);
         let pq_in = pq_in.display().to_string();
-        let run = |input: &str, memory: &str, out: Option<&str>| {
-            let mut a: Vec<String> = vec!["score".into(), input.into(), "-q".into()];
-            a.extend(opts.iter().map(|s| s.to_string()));
-            a.extend([
-                "--memory".into(),
-                memory.into(),
-                "--temp-dir".into(),
-                temp.display().to_string(),
-            ]);
-            if let Some(o) = out {
-                a.extend(["-o".into(), o.into()]);
-            }
-            let r = morbus(&a.iter().map(String::as_str).collect::<Vec<_>>());
-            assert_eq!(r.code, 0, "{name} {input} {memory}: {}", r.stderr);
-            assert_eq!(files_in(&temp), 0, "{name}: temporary file left behind");
-            r.stdout
+        let run = |input: &str, memory: &str| {
+            let line = format!("score {{}} -q {opts}");
+            runs.ok(&line, &[input], memory).stdout
         };
         // Parquet in, CSV out: spilled or not, and as from the CSV.
-        let from_csv = run(&csv_in, "1GiB", None);
-        assert_eq!(run(&pq_in, "1GiB", None), from_csv, "{name}: Parquet in");
-        assert_eq!(
-            run(&pq_in, "0", None),
-            from_csv,
-            "{name}: Parquet in, spilled"
-        );
-        assert_eq!(run(&csv_in, "0", None), from_csv, "{name}: CSV in, spilled");
+        let from_csv = run(&csv_in, "1GiB");
+        assert_eq!(run(&pq_in, "1GiB"), from_csv, "{name}: Parquet in");
+        assert_eq!(run(&pq_in, "0"), from_csv, "{name}: Parquet in, spilled");
+        assert_eq!(run(&csv_in, "0"), from_csv, "{name}: CSV in, spilled");
         // Parquet out: the same file, spilled or not.
         for input in [&csv_in, &pq_in] {
-            let a = dir.join(&format!("{name}-a.parquet"));
-            let b = dir.join(&format!("{name}-b.parquet"));
-            run(input, "1GiB", Some(&a));
-            run(input, "0", Some(&b));
+            let a = runs.dir.join(&format!("{name}-a.parquet"));
+            let b = runs.dir.join(&format!("{name}-b.parquet"));
+            let line = format!("score {{}} -q {opts} -o {{}}");
+            runs.ok(&line, &[input, &a], "1GiB");
+            runs.ok(&line, &[input, &b], "0");
             let (a, b) = (std::fs::read(&a).unwrap(), std::fs::read(&b).unwrap());
             assert!(a == b, "{name} {input}: Parquet outputs differ");
         }
@@ -700,45 +682,15 @@ fn parquet_in_and_out_spilled_equal_in_memory() {
 fn a_spilled_failure_leaves_no_file() {
     // --strict and a row of an episode giving another date, late in the
     // extract: the partitions are written, the run stops with exit 3.
-    let dir = TempDir::new("spill-fail");
-    let temp = dir.path().join("tmp");
-    std::fs::create_dir(&temp).unwrap();
-    let mut text = long_history(3_000, 10, true);
-    let first = text.lines().nth(1).unwrap().to_string();
-    let f: Vec<&str> = first.split(',').collect();
-    text.push_str(&format!(
-        "{},{},2001-01-01,{},{},0,Y,I21.0\n",
-        f[0], f[1], f[3], f[4]
-    ));
-    let input = dir.write("in.csv", &text);
-    let args = |memory: &str| {
-        vec![
-            "score".to_string(),
-            input.clone(),
-            "--layout".into(),
-            "long".into(),
-            "--dx".into(),
-            "dx".into(),
-            "--id".into(),
-            "pid".into(),
-            "--episode".into(),
-            "stay".into(),
-            "--date".into(),
-            "date".into(),
-            "--lookback".into(),
-            "365".into(),
-            "--strict".into(),
-            "--memory".into(),
-            memory.into(),
-            "--temp-dir".into(),
-            temp.display().to_string(),
-            "-o".into(),
-            dir.join("out.csv"),
-        ]
-    };
-    let run = |a: &[String]| morbus(&a.iter().map(String::as_str).collect::<Vec<_>>());
-    let in_memory = run(&args("1GiB"));
-    let spilled = run(&args("0"));
+    let runs = Runs::new("spill-fail");
+    let input = runs
+        .dir
+        .write("in.csv", &long_with_a_disagreeing_row(3_000, 10));
+    let out = runs.dir.join("out.csv");
+    let line = "score {} --layout long --dx dx --id pid --episode stay --date date --lookback 365 \
+                --strict -o {}";
+    let in_memory = runs.run(line, &[&input, &out], "1GiB");
+    let spilled = runs.run(line, &[&input, &out], "0");
     assert_eq!(in_memory.code, 3, "{}", in_memory.stderr);
     assert_eq!(spilled.code, 3, "{}", spilled.stderr);
     assert_eq!(spilled.stderr, in_memory.stderr);
@@ -747,8 +699,8 @@ fn a_spilled_failure_leaves_no_file() {
         "{}",
         spilled.stderr
     );
-    assert_eq!(files_in(&temp), 0);
-    assert!(!std::path::Path::new(&dir.join("out.csv")).exists());
+    runs.left_nothing("--strict");
+    assert!(!std::path::Path::new(&out).exists());
 }
 
 #[test]
@@ -757,9 +709,7 @@ fn a_placeholder_id_over_the_limit_is_named_loudly() {
     // partition alone holds more than half of the 64 KiB limit. The output
     // is the in-memory run's; the summary and provenance say the limit was
     // passed and name the id with its episodes.
-    let dir = TempDir::new("spill-placeholder");
-    let temp = dir.path().join("tmp");
-    std::fs::create_dir(&temp).unwrap();
+    let runs = Runs::new("spill-placeholder");
     let mut text = String::new();
     let (mut unknown, mut record) = (0, 0);
     // Records start with their id `pN,`; a quoted note's second line does
@@ -776,42 +726,18 @@ fn a_placeholder_id_over_the_limit_is_named_loudly() {
         }
         text.push_str(line);
     }
-    let input = dir.write("in.csv", &text);
-    let args = |memory: &str, prov: &str| {
-        vec![
-            "score".to_string(),
-            input.clone(),
-            "--dx".into(),
-            "dx*".into(),
-            "--id".into(),
-            "pid".into(),
-            "--date".into(),
-            "date".into(),
-            "--lookback".into(),
-            "365".into(),
-            "--memory".into(),
-            memory.into(),
-            "--temp-dir".into(),
-            temp.display().to_string(),
-            "--provenance".into(),
-            dir.join(prov),
-        ]
-    };
-    let run = |a: &[String]| morbus(&a.iter().map(String::as_str).collect::<Vec<_>>());
-    let in_memory = run(&args("1GiB", "memory.json"));
-    let spilled = run(&args("64KiB", "spilled.json"));
-    assert_eq!(in_memory.code, 0, "{}", in_memory.stderr);
-    assert_eq!(spilled.code, 0, "{}", spilled.stderr);
+    let input = runs.dir.write("in.csv", &text);
+    let line = "score {} --dx dx* --id pid --date date --lookback 365 --provenance {}";
+    let prov_file = |name: &str| runs.dir.join(name);
+    let in_memory = runs.ok(line, &[&input, &prov_file("memory.json")], "1GiB");
+    let spilled = runs.ok(line, &[&input, &prov_file("spilled.json")], "64KiB");
     assert!(spilled.stdout == in_memory.stdout, "outputs differ");
-    assert_eq!(files_in(&temp), 0);
     let warning = "WARNING: the memory limit was passed";
     assert!(spilled.stderr.contains(warning), "{}", spilled.stderr);
     let named = format!("patient id 'UNKNOWN' alone has {unknown} of its");
     assert!(spilled.stderr.contains(&named), "{}", spilled.stderr);
     assert!(!in_memory.stderr.contains(warning), "{}", in_memory.stderr);
-    let prov = |name: &str| -> serde_json::Value {
-        serde_json::from_str(&std::fs::read_to_string(dir.join(name)).unwrap()).unwrap()
-    };
+    let prov = |name: &str| common::json_file(runs.dir.path().join(name).as_path());
     let over = &prov("spilled.json")["rows"]["over_memory"];
     assert_eq!(over["id"], "UNKNOWN", "{over}");
     assert_eq!(over["id_episodes"], unknown, "{over}");
@@ -826,113 +752,47 @@ fn explain_on_the_command_line_spills_and_cleans_up() {
     // --label and earlier-only windows: spilled or not, the same bytes; the
     // summary says it spilled; nothing is left in --temp-dir after success
     // or failure.
-    let dir = TempDir::new("spill-explain-cli");
-    let temp = dir.path().join("tmp");
-    std::fs::create_dir(&temp).unwrap();
-    // Dates that Parquet holds as dates: the unreadable ones left out.
-    let wide: String = history(2_000).replace("\r\n", "\n");
-    let long: String = long_history(2_000, 19, false)
-        .lines()
-        .filter(|l| !l.contains("sometime"))
-        .map(|l| format!("{l}\n"))
-        .collect();
-    let cases: [(&str, &String, &[&str]); 3] = [
+    let runs = Runs::new("spill-explain-cli");
+    let (wide, long) = typed_histories(2_000, 19);
+    let cases = [
         (
             "wide",
             &wide,
-            &[
-                "--dx",
-                "dx*",
-                "--id",
-                "pid",
-                "--date",
-                "date",
-                "--lookback",
-                "365",
-                "--label",
-                "note",
-            ],
+            "--dx dx* --id pid --date date --lookback 365 --label note",
         ),
         (
             "wide-earlier",
             &wide,
-            &[
-                "--dx",
-                "dx*",
-                "--id",
-                "pid",
-                "--date",
-                "date",
-                "--lookback",
-                "all",
-                "--window",
-                "earlier-only",
-            ],
+            "--dx dx* --id pid --date date --lookback all --window earlier-only",
         ),
         (
             "long",
             &long,
-            &[
-                "--layout",
-                "long",
-                "--dx",
-                "dx",
-                "--id",
-                "pid",
-                "--episode",
-                "stay",
-                "--label",
-                "ward",
-                "--date",
-                "date",
-                "--age",
-                "age",
-                "--primary",
-                "primary",
-                "--exclude-primary",
-                "--poa",
-                "poa",
-                "--lookback",
-                "charlson=365,hfrs=730",
-            ],
+            "--layout long --dx dx --id pid --episode stay --label ward --date date --age age \
+             --primary primary --exclude-primary --poa poa --lookback charlson=365,hfrs=730",
         ),
     ];
-    let said = "the history was over half of --memory and went to temporary files";
     for (name, text, opts) in cases {
-        let csv_in = dir.write(&format!("{name}.csv"), text);
+        let csv_in = runs.dir.write(&format!("{name}.csv"), text);
         #[cfg_attr(not(feature = "parquet"), allow(unused_mut))]
         let mut inputs = vec![csv_in.clone()];
         #[cfg(feature = "parquet")]
         {
-            let pq_in = dir.path().join(format!("{name}.parquet"));
+            let pq_in = runs.dir.path().join(format!("{name}.parquet"));
             to_parquet(text, &pq_in);
             inputs.push(pq_in.display().to_string());
         }
-        // `extra`: --json, --threads, -o.
-        let run_with = |input: &str, memory: &str, extra: &[&str]| {
-            let mut a: Vec<String> = vec!["explain".into(), input.into()];
-            a.extend(opts.iter().map(|s| s.to_string()));
-            a.extend([
-                "--memory".into(),
-                memory.into(),
-                "--temp-dir".into(),
-                temp.display().to_string(),
-            ]);
-            a.extend(extra.iter().map(|s| s.to_string()));
-            let r = morbus(&a.iter().map(String::as_str).collect::<Vec<_>>());
-            assert_eq!(r.code, 0, "{name} {input} {memory}: {}", r.stderr);
-            assert_eq!(files_in(&temp), 0, "{name}: temporary file left behind");
-            assert_eq!(r.stderr.contains(said), memory != "1GiB", "{}", r.stderr);
+        // `extra`: --json, --threads, -o FILE (words of the line).
+        let run_with = |input: &str, memory: &str, extra: &str| {
+            let r = runs.ok(&format!("explain {{}} {opts} {extra}"), &[input], memory);
+            assert_eq!(r.stderr.contains(SPILLED), memory != "1GiB", "{}", r.stderr);
             r.stdout
         };
         // One thread for the reference, more for the rest (explain's
         // records are made on every thread, in memory and per partition).
         let run = |input: &str, memory: &str, json: bool, threads: &str| {
-            let mut extra = vec!["--threads", threads];
-            if json {
-                extra.push("--json");
-            }
-            run_with(input, memory, &extra)
+            let json = if json { "--json" } else { "" };
+            run_with(input, memory, &format!("--threads {threads} {json}"))
         };
         for json in [false, true] {
             let reference = run(&csv_in, "1GiB", json, "1");
@@ -954,11 +814,8 @@ fn explain_on_the_command_line_spills_and_cleans_up() {
         #[cfg(feature = "parquet")]
         {
             let file = |memory: &str, threads: &str| {
-                let out = dir
-                    .path()
-                    .join(format!("{name}-{memory}-{threads}.parquet"));
-                let out = out.display().to_string();
-                run_with(&csv_in, memory, &["--threads", threads, "-o", &out]);
+                let out = runs.dir.join(&format!("{name}-{memory}-{threads}.parquet"));
+                run_with(&csv_in, memory, &format!("--threads {threads} -o {out}"));
                 std::fs::read(&out).unwrap()
             };
             let reference = file("1GiB", "1");
@@ -979,84 +836,30 @@ fn a_spilled_explain_stops_at_the_same_line_and_leaves_no_file() {
     // extract (found only when the partitions are read back); then a
     // record with a field too many (found while reading): the same exit
     // and message as in memory, no output, no temporary file.
-    let dir = TempDir::new("spill-explain-fail");
-    let temp = dir.path().join("tmp");
-    std::fs::create_dir(&temp).unwrap();
-    let mut text = long_history(3_000, 20, true);
-    let first = text.lines().nth(1).unwrap().to_string();
-    let f: Vec<&str> = first.split(',').collect();
-    text.push_str(&format!(
-        "{},{},2001-01-01,{},{},0,Y,I21.0\n",
-        f[0], f[1], f[3], f[4]
-    ));
-    let disagreeing = dir.write("in.csv", &text);
-    let too_wide = dir.write(
+    let runs = Runs::new("spill-explain-fail");
+    let disagreeing = runs
+        .dir
+        .write("in.csv", &long_with_a_disagreeing_row(3_000, 20));
+    let too_wide = runs.dir.write(
         "wide.csv",
         &format!("{}p1,2024-01-01,x,I21.0,,,extra\n", history(3_000)),
     );
-    let long_args = |memory: &str| {
-        vec![
-            "explain".to_string(),
-            disagreeing.clone(),
-            "--layout".into(),
-            "long".into(),
-            "--dx".into(),
-            "dx".into(),
-            "--id".into(),
-            "pid".into(),
-            "--episode".into(),
-            "stay".into(),
-            "--date".into(),
-            "date".into(),
-            "--lookback".into(),
-            "365".into(),
-            "--strict".into(),
-            "--memory".into(),
-            memory.into(),
-            "--temp-dir".into(),
-            temp.display().to_string(),
-            "-o".into(),
-            dir.join("out.csv"),
-        ]
-    };
-    let wide_args = |memory: &str| {
-        vec![
-            "explain".to_string(),
-            too_wide.clone(),
-            "--dx".into(),
-            "dx*".into(),
-            "--id".into(),
-            "pid".into(),
-            "--date".into(),
-            "date".into(),
-            "--lookback".into(),
-            "365".into(),
-            "--json".into(),
-            "--memory".into(),
-            memory.into(),
-            "--temp-dir".into(),
-            temp.display().to_string(),
-            "-o".into(),
-            dir.join("out.jsonl"),
-        ]
-    };
-    let run = |a: &[String]| morbus(&a.iter().map(String::as_str).collect::<Vec<_>>());
-    for (args, code, says) in [
-        (
-            &long_args as &dyn Fn(&str) -> Vec<String>,
-            3,
-            "another date",
-        ),
-        (&wide_args, 1, "line"),
+    let (out_csv, out_json) = (runs.dir.join("out.csv"), runs.dir.join("out.jsonl"));
+    let long_line = "explain {} --layout long --dx dx --id pid --episode stay --date date \
+                     --lookback 365 --strict -o {}";
+    let wide_line = "explain {} --dx dx* --id pid --date date --lookback 365 --json -o {}";
+    for (line, input, out, code, says) in [
+        (long_line, &disagreeing, &out_csv, 3, "another date"),
+        (wide_line, &too_wide, &out_json, 1, "line"),
     ] {
-        let in_memory = run(&args("1GiB"));
-        let spilled = run(&args("0"));
+        let in_memory = runs.run(line, &[input, out], "1GiB");
+        let spilled = runs.run(line, &[input, out], "0");
         assert_eq!(in_memory.code, code, "{}", in_memory.stderr);
         assert_eq!(spilled.code, code, "{}", spilled.stderr);
         assert_eq!(spilled.stderr, in_memory.stderr);
         assert!(spilled.stderr.contains(says), "{}", spilled.stderr);
-        assert_eq!(files_in(&temp), 0);
-        assert!(!std::path::Path::new(&dir.join("out.csv")).exists());
-        assert!(!std::path::Path::new(&dir.join("out.jsonl")).exists());
+        runs.left_nothing(line);
+        assert!(!std::path::Path::new(&out_csv).exists());
+        assert!(!std::path::Path::new(&out_json).exists());
     }
 }

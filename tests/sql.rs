@@ -4,28 +4,13 @@
 //! scripts' scores with `morbus score` on real engines is checked in
 //! `python/tests/test_sql.py`.
 
+mod common;
+
 use std::path::PathBuf;
-use std::process::Command;
 
 use morbus::lists::Catalogue;
 
-struct Run {
-    code: i32,
-    stdout: String,
-    stderr: String,
-}
-
-fn morbus(args: &[&str]) -> Run {
-    let out = Command::new(env!("CARGO_BIN_EXE_morbus"))
-        .args(args)
-        .output()
-        .expect("run morbus");
-    Run {
-        code: out.status.code().unwrap_or(-1),
-        stdout: String::from_utf8_lossy(&out.stdout).into_owned(),
-        stderr: String::from_utf8_lossy(&out.stderr).into_owned(),
-    }
-}
+use common::{morbus, Run};
 
 fn tmp(name: &str) -> PathBuf {
     let dir = std::env::temp_dir().join(format!("morbus-sql-{}-{name}", std::process::id()));
@@ -34,20 +19,21 @@ fn tmp(name: &str) -> PathBuf {
     dir
 }
 
-const BASE: &[&str] = &["sql", "--dialect", "duckdb", "--table", "episodes"];
-
-fn sql(extra: &[&str]) -> Run {
-    let mut args = BASE.to_vec();
-    args.extend_from_slice(extra);
-    morbus(&args)
+/// `morbus sql --dialect duckdb --table episodes LINE` (see
+/// [`common::words`]).
+fn sql(line: &str, values: &[&str]) -> Run {
+    common::run(
+        &format!("sql --dialect duckdb --table episodes {line}"),
+        values,
+    )
 }
 
 #[test]
 fn globs_need_the_tables_columns() {
-    let r = sql(&["--dx", "dx*"]);
+    let r = sql("--dx dx*", &[]);
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(r.stderr.contains("--columns"), "{}", r.stderr);
-    let r = sql(&["--dx", "dx*", "--columns", "id,dx1,dx2,age"]);
+    let r = sql("--dx dx* --columns id,dx1,dx2,age", &[]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     assert!(r.stdout.contains("2 AS position, CAST(r.\"dx2\" AS TEXT)"));
     assert!(!r.stdout.contains("\"age\" AS TEXT)"));
@@ -55,7 +41,7 @@ fn globs_need_the_tables_columns() {
 
 #[test]
 fn columns_and_options_are_checked_as_in_score() {
-    let r = sql(&["--dx", "dx1", "--age", "years", "--columns", "id,dx1,age"]);
+    let r = sql("--dx dx1 --age years --columns id,dx1,age", &[]);
     assert_eq!(r.code, 2);
     assert!(
         r.stderr
@@ -63,36 +49,27 @@ fn columns_and_options_are_checked_as_in_score() {
         "{}",
         r.stderr
     );
-    let r = sql(&["--dx", "dx1", "--lookback", "365", "--id", "id"]);
+    let r = sql("--dx dx1 --lookback 365 --id id", &[]);
     assert_eq!(r.code, 2);
     assert!(r.stderr.contains("--lookback needs --id"), "{}", r.stderr);
-    let r = sql(&["--dx", "dx1", "--create", "index", "x"]);
+    let r = sql("--dx dx1 --create index x", &[]);
     assert_eq!(r.code, 2);
     assert!(
         r.stderr.contains("'view NAME' or 'table NAME'"),
         "{}",
         r.stderr
     );
-    let r = sql(&["--dx", "dx1", "--layout", "long"]);
+    let r = sql("--dx dx1 --layout long", &[]);
     assert_eq!(r.code, 2);
     // An output column that the table already has.
-    let r = sql(&["--dx", "dx1", "--columns", "dx1,charlson_quan2011"]);
+    let r = sql("--dx dx1 --columns dx1,charlson_quan2011", &[]);
     assert_eq!(r.code, 2);
     assert!(r.stderr.contains("already exists"), "{}", r.stderr);
 }
 
 #[test]
 fn the_header_carries_version_lists_and_options() {
-    let r = sql(&[
-        "--dx",
-        "dx1,dx2",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "all",
-    ]);
+    let r = sql("--dx dx1,dx2 --id pid --date day --lookback all", &[]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     let header: Vec<&str> = r
         .stdout
@@ -115,34 +92,21 @@ fn the_header_carries_version_lists_and_options() {
     assert!(header.contains("--   max unreadable dates: 1%"));
     assert!(header.contains("--   diagnosis columns: dx1, dx2"));
     // The same options give the same script.
-    let again = sql(&[
-        "--dx",
-        "dx1,dx2",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "all",
-    ]);
+    let again = sql("--dx dx1,dx2 --id pid --date day --lookback all", &[]);
     assert_eq!(again.stdout, r.stdout);
 }
 
 #[test]
 fn an_edited_list_changes_only_its_rows_and_header() {
     let dir = tmp("edit");
-    let r = morbus(&["lists", "export", "charlson", dir.to_str().unwrap()]);
+    let r = common::run("lists export charlson {}", &[dir.to_str().unwrap()]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     let path = dir.join("charlson.tsv");
     let text = std::fs::read_to_string(&path).unwrap();
-    let before = sql(&[
-        "--dx",
-        "dx1",
-        "--index",
-        "charlson",
-        "--lists",
-        dir.to_str().unwrap(),
-    ]);
+    let before = sql(
+        "--dx dx1 --index charlson --lists {}",
+        &[dir.to_str().unwrap()],
+    );
     assert_eq!(before.code, 0, "{}", before.stderr);
     // Remove the code line of I43 (cardiomyopathy in diseases classified
     // elsewhere, under congestive heart failure) and bump the version.
@@ -165,14 +129,10 @@ fn an_edited_list_changes_only_its_rows_and_header() {
         .collect();
     assert_eq!(removed, 1, "the exported list has one I43 code line");
     std::fs::write(&path, edited.join("\n") + "\n").unwrap();
-    let after = sql(&[
-        "--dx",
-        "dx1",
-        "--index",
-        "charlson",
-        "--lists",
-        dir.to_str().unwrap(),
-    ]);
+    let after = sql(
+        "--dx dx1 --index charlson --lists {}",
+        &[dir.to_str().unwrap()],
+    );
     assert_eq!(after.code, 0, "{}", after.stderr);
     let a: Vec<&str> = before.stdout.lines().collect();
     let b: Vec<&str> = after.stdout.lines().collect();
@@ -193,7 +153,7 @@ fn an_edited_list_changes_only_its_rows_and_header() {
 fn prefixes_export_writes_a_flat_csv() {
     let dir = tmp("prefixes");
     let d = dir.to_str().unwrap();
-    let r = morbus(&["lists", "export", "charlson", d, "--format", "prefixes"]);
+    let r = common::run("lists export charlson {} --format prefixes", &[d]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     let text = std::fs::read_to_string(dir.join("charlson-prefixes.csv")).unwrap();
     let mut lines = text.lines();
@@ -210,7 +170,7 @@ fn prefixes_export_writes_a_flat_csv() {
         "{text}"
     );
     // A second export without --force is refused.
-    let r = morbus(&["lists", "export", "charlson", d, "--format", "prefixes"]);
+    let r = common::run("lists export charlson {} --format prefixes", &[d]);
     assert_eq!(r.code, 2);
     assert!(r.stderr.contains("--force"), "{}", r.stderr);
 }
@@ -218,60 +178,36 @@ fn prefixes_export_writes_a_flat_csv() {
 #[test]
 fn history_options_are_checked_as_in_score() {
     // A window for a list the run does not score.
-    let r = sql(&[
-        "--dx",
-        "dx1",
-        "--index",
-        "charlson",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "hfrs=365",
-    ]);
+    let r = sql(
+        "--dx dx1 --index charlson --id pid --date day --lookback hfrs=365",
+        &[],
+    );
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(
         r.stderr.contains("names list 'hfrs', which is not scored"),
         "{}",
         r.stderr
     );
-    let r = sql(&["--dx", "dx1", "--window", "earlier-only"]);
+    let r = sql("--dx dx1 --window earlier-only", &[]);
     assert_eq!(r.code, 2);
     assert!(r.stderr.contains("--window is used with --lookback"));
-    let r = sql(&[
-        "--dx",
-        "dx1",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "30",
-        "--window",
-        "later",
-    ]);
+    let r = sql(
+        "--dx dx1 --id pid --date day --lookback 30 --window later",
+        &[],
+    );
     assert_eq!(r.code, 2);
     assert!(r.stderr.contains("'current-and-earlier' or 'earlier-only'"));
-    let r = sql(&[
-        "--dx",
-        "dx1",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "30",
-        "--date-format",
-        "%d/%m",
-    ]);
+    let r = sql(
+        "--dx dx1 --id pid --date day --lookback 30 --date-format %d/%m",
+        &[],
+    );
     assert_eq!(r.code, 2);
     assert!(
         r.stderr.contains("--date-format '%d/%m' must hold %Y"),
         "{}",
         r.stderr
     );
-    let r = sql(&["--dx", "dx1", "--max-unreadable-dates", "150"]);
+    let r = sql("--dx dx1 --max-unreadable-dates 150", &[]);
     assert_eq!(r.code, 2);
     assert!(r
         .stderr
@@ -282,7 +218,7 @@ fn history_options_are_checked_as_in_score() {
 fn edition_is_refused_with_its_reason() {
     // `score --edition` changes the summary's counts only, never a score:
     // the SQL, which writes no summary, says so rather than ignore it.
-    let r = sql(&["--dx", "dx1", "--edition", "who"]);
+    let r = sql("--dx dx1 --edition who", &[]);
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(
         r.stderr.contains("never changes a score") && r.stderr.contains("no summary"),
@@ -293,18 +229,11 @@ fn edition_is_refused_with_its_reason() {
 
 #[test]
 fn a_date_column_brings_the_unreadable_dates_stop() {
-    let with = sql(&[
-        "--dx",
-        "dx1",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "30",
-        "--max-unreadable-dates",
-        "2.5",
-    ]);
+    let with = sql(
+        "--dx dx1 --id pid --date day --lookback 30 \
+         --max-unreadable-dates 2.5",
+        &[],
+    );
     assert_eq!(with.code, 0, "{}", with.stderr);
     assert!(with
         .stdout
@@ -313,46 +242,23 @@ fn a_date_column_brings_the_unreadable_dates_stop() {
         .stdout
         .contains("more than the 2.5% allowed by --max-unreadable-dates"));
     assert!(with.stdout.contains("WHERE g.passed = 1"));
-    let without = sql(&["--dx", "dx1"]);
+    let without = sql("--dx dx1", &[]);
     assert!(!without.stdout.contains("date_guard"));
     // PostgreSQL: the function that raises the message, temporary for a
     // query, named after a view and kept with it.
-    let pg = morbus(&[
-        "sql",
-        "--dialect",
-        "postgres",
-        "--table",
-        "t",
-        "--dx",
-        "dx1",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "30",
-    ]);
+    let pg = common::run(
+        "sql --dialect postgres --table t --dx dx1 --id pid --date day \
+         --lookback 30",
+        &[],
+    );
     assert!(pg
         .stdout
         .contains("CREATE OR REPLACE FUNCTION pg_temp.\"morbus_stop\"(message TEXT)"));
-    let pg = morbus(&[
-        "sql",
-        "--dialect",
-        "postgres",
-        "--table",
-        "t",
-        "--dx",
-        "dx1",
-        "--id",
-        "pid",
-        "--date",
-        "day",
-        "--lookback",
-        "30",
-        "--create",
-        "view",
-        "s.scored",
-    ]);
+    let pg = common::run(
+        "sql --dialect postgres --table t --dx dx1 --id pid --date day \
+         --lookback 30 --create view s.scored",
+        &[],
+    );
     assert!(pg
         .stdout
         .contains("CREATE FUNCTION \"s\".\"scored_stop\"(message TEXT)"));
@@ -360,7 +266,7 @@ fn a_date_column_brings_the_unreadable_dates_stop() {
 
 #[test]
 fn order_by_is_checked_and_postgres_without_it_warns() {
-    let r = sql(&["--dx", "dx1", "--columns", "id,dx1", "--order-by", "row_no"]);
+    let r = sql("--dx dx1 --columns id,dx1 --order-by row_no", &[]);
     assert_eq!(r.code, 2);
     assert!(
         r.stderr
@@ -368,7 +274,7 @@ fn order_by_is_checked_and_postgres_without_it_warns() {
         "{}",
         r.stderr
     );
-    let r = sql(&["--dx", "dx1", "--order-by", "id,dx1"]);
+    let r = sql("--dx dx1 --order-by id,dx1", &[]);
     assert_eq!(r.code, 0, "{}", r.stderr);
     assert!(r
         .stdout

@@ -3,7 +3,7 @@
 
 use std::fmt::Write as _;
 
-use super::table::{fixed, p_value, pct};
+use super::table::{discrimination_cells, fixed, model_cells, p_value, pct};
 use super::{fmt_count, fmt_num, Comparison, IndexResult, Model};
 
 /// Series colours: eight hues that stay apart under the common forms of
@@ -225,14 +225,7 @@ fn histogram_svg(i: usize, ix: &IndexResult) -> String {
     let mut g = step;
     while g <= top_share * 1.0001 {
         let yy = top + ph - g / top_share * ph;
-        let _ = write!(
-            s,
-            r#"<line class="gridline" x1="{left}" y1="{yy:.1}" x2="{:.1}" y2="{yy:.1}"/><text class="tick" x="{:.1}" y="{:.1}" text-anchor="end">{}</text>"#,
-            left + pw,
-            left - 4.0,
-            yy + 4.0,
-            pct_short(g)
-        );
+        gridline(&mut s, left, pw, yy, &pct_short(g));
         g += step;
     }
     let nb = bins.len().max(1) as f64;
@@ -377,35 +370,21 @@ fn prevalence_svg(ix: &IndexResult, colour: &str) -> String {
 }
 
 fn model_table_rows(label: &str, m: &Model, clustered: bool, out: &mut String) {
-    for (j, t) in m.terms.iter().enumerate() {
-        let (cse, cp) = if clustered {
-            (
-                format!(
-                    "<td>{}</td>",
-                    t.cluster_std_error.map_or("–".into(), |v| fixed(v, 4))
-                ),
-                format!("<td>{}</td>", t.cluster_p_value.map_or("–".into(), p_value)),
-            )
+    for (j, cells) in model_cells(label, m, clustered, "–").iter().enumerate() {
+        out.push_str(if j == 0 {
+            "<tr class=\"first\">"
         } else {
-            (String::new(), String::new())
-        };
-        let _ = write!(
-            out,
-            "<tr{}><td>{}</td><td class=\"l\">{}</td><td>{}</td><td>{}</td>{cse}<td>{}</td><td>{}</td>{cp}<td>{}</td><td>{}</td></tr>",
-            if j == 0 { " class=\"first\"" } else { "" },
-            if j == 0 { esc(label) } else { String::new() },
-            esc(&t.name),
-            fixed(t.estimate, 4),
-            fixed(t.std_error, 4),
-            if j == 0 {
-                "–".into()
-            } else {
-                t.odds_ratio.map_or("–".into(), |o| fixed(o, 3))
-            },
-            p_value(t.p_value),
-            if j == 0 { fixed(m.c_statistic, 3) } else { String::new() },
-            if j == 0 { fixed(m.aic, 1) } else { String::new() },
-        );
+            "<tr>"
+        });
+        for (k, cell) in cells.iter().enumerate() {
+            // The label and the term are text; the rest numbers or a dash.
+            let _ = match k {
+                0 => write!(out, "<td>{}</td>", esc(cell)),
+                1 => write!(out, "<td class=\"l\">{}</td>", esc(cell)),
+                _ => write!(out, "<td>{cell}</td>"),
+            };
+        }
+        out.push_str("</tr>");
     }
 }
 
@@ -520,38 +499,14 @@ pub fn html_report(c: &Comparison) -> String {
         if clustered { "<th>95% CI (clusters)</th>" } else { "" }
     );
     for (i, ix) in c.indices.iter().enumerate() {
-        let cci = if clustered {
-            format!(
-                "<td>{}</td>",
-                ix.c_statistic.as_ref().and_then(|s| s.cluster_ci95).map_or(
-                    "–".into(),
-                    |[a, b]| format!("{} – {}", fixed(a, 3), fixed(b, 3))
-                )
-            )
-        } else {
-            String::new()
-        };
-        let (cs, ci) = match &ix.c_statistic {
-            Some(s) => (
-                fixed(s.estimate, 3),
-                s.ci95.map_or("–".into(), |[a, b]| {
-                    format!("{} – {}", fixed(a, 3), fixed(b, 3))
-                }),
-            ),
-            None => ("–".into(), "–".into()),
-        };
-        let (mc, aic) = ix.model.as_ref().map_or(("–".into(), "–".into()), |m| {
-            (fixed(m.c_statistic, 3), fixed(m.aic, 1))
-        });
         let lr = ix.added_value.as_ref().map_or("–".into(), |a| {
             format!("{} (p {})", fixed(a.statistic, 1), p_value(a.p_value))
         });
-        let _ = write!(
-            h,
-            "<tr><td>{}{}</td><td>{cs}</td><td>{ci}</td>{cci}<td>{mc}</td><td>{aic}</td><td>{lr}</td></tr>",
-            line_key(i),
-            esc(&ix.name)
-        );
+        let _ = write!(h, "<tr><td>{}{}</td>", line_key(i), esc(&ix.name));
+        for cell in discrimination_cells(ix, clustered, "–", " – ") {
+            let _ = write!(h, "<td>{cell}</td>");
+        }
+        let _ = write!(h, "<td>{lr}</td></tr>");
     }
     if let Some(m) = &c.adjustment_model {
         let _ = write!(
@@ -775,6 +730,18 @@ fn ticks(max: f64) -> Vec<f64> {
     v
 }
 
+/// A horizontal gridline at height `yy` across a plot `pw` wide from
+/// `left`, with its tick `label` on the left.
+fn gridline(s: &mut String, left: f64, pw: f64, yy: f64, label: &str) {
+    let _ = write!(
+        s,
+        r#"<line class="gridline" x1="{left}" y1="{yy:.1}" x2="{:.1}" y2="{yy:.1}"/><text class="tick" x="{:.1}" y="{:.1}" text-anchor="end">{label}</text>"#,
+        left + pw,
+        left - 4.0,
+        yy + 4.0,
+    );
+}
+
 /// Axes of a small panel: gridlines, tick labels, titles.
 #[allow(clippy::too_many_arguments)]
 fn panel_axes(
@@ -789,14 +756,7 @@ fn panel_axes(
 ) {
     for t in ticks(ymax) {
         let yy = top + ph - t / ymax * ph;
-        let _ = write!(
-            s,
-            r#"<line class="gridline" x1="{left}" y1="{yy:.1}" x2="{:.1}" y2="{yy:.1}"/><text class="tick" x="{:.1}" y="{:.1}" text-anchor="end">{}</text>"#,
-            left + pw,
-            left - 4.0,
-            yy + 4.0,
-            yfmt(t)
-        );
+        gridline(s, left, pw, yy, &yfmt(t));
     }
     for t in ticks(xmax) {
         let xx = left + t / xmax * pw;

@@ -1,6 +1,6 @@
 //! The plain-text layout of a comparison, as printed on standard output.
 
-use super::{fmt_count, fmt_num, Comparison, Distribution, Model};
+use super::{fmt_count, fmt_num, Comparison, Distribution, IndexResult, Model};
 
 /// The five-number summary with one number of decimals for all five: none
 /// when every one is whole, else two.
@@ -96,40 +96,76 @@ fn wrap(text: &str, indent: &str, width: usize) -> String {
     out
 }
 
-fn model_rows(label: &str, m: &Model, clustered: bool, rows: &mut Vec<Vec<String>>) {
+/// The cells of a model's table, a row per term: the model's `label` and
+/// its c-statistic and AIC on the first row only; the term, estimate,
+/// standard error (and the clustered one), odds ratio (`none` for the
+/// intercept and where there is none), p-value (and the clustered one).
+/// Shared by the text and the HTML report.
+pub(crate) fn model_cells(label: &str, m: &Model, clustered: bool, none: &str) -> Vec<Vec<String>> {
+    let mut rows = Vec::with_capacity(m.terms.len());
     for (i, t) in m.terms.iter().enumerate() {
+        let first = i == 0;
+        let on_first = |text: String| if first { text } else { String::new() };
         let mut row = vec![
-            if i == 0 {
-                label.to_string()
-            } else {
-                String::new()
-            },
+            on_first(label.to_string()),
             t.name.clone(),
             fixed(t.estimate, 4),
             fixed(t.std_error, 4),
-            if i == 0 {
-                "-".into()
+            if first {
+                none.into()
             } else {
-                t.odds_ratio.map_or("-".into(), |o| fixed(o, 3))
+                t.odds_ratio.map_or(none.into(), |o| fixed(o, 3))
             },
             p_value(t.p_value),
-            if i == 0 {
-                fixed(m.c_statistic, 3)
-            } else {
-                String::new()
-            },
-            if i == 0 {
-                fixed(m.aic, 1)
-            } else {
-                String::new()
-            },
+            on_first(fixed(m.c_statistic, 3)),
+            on_first(fixed(m.aic, 1)),
         ];
         if clustered {
-            row.insert(6, t.cluster_p_value.map_or("-".into(), p_value));
-            row.insert(4, t.cluster_std_error.map_or("-".into(), |v| fixed(v, 4)));
+            row.insert(6, t.cluster_p_value.map_or(none.into(), p_value));
+            row.insert(4, t.cluster_std_error.map_or(none.into(), |v| fixed(v, 4)));
         }
         rows.push(row);
     }
+    rows
+}
+
+/// An index's discrimination cells: its c-statistic, the 95% CI, the 95%
+/// CI by clusters (when `clustered`), its model's c-statistic and AIC;
+/// `none` where there is no value, `to` between an interval's ends.
+/// Shared by the text and the HTML report.
+pub(crate) fn discrimination_cells(
+    i: &IndexResult,
+    clustered: bool,
+    none: &str,
+    to: &str,
+) -> Vec<String> {
+    let interval = |ci: Option<[f64; 2]>| {
+        ci.map_or(none.to_string(), |[a, b]| {
+            format!("{}{to}{}", fixed(a, 3), fixed(b, 3))
+        })
+    };
+    let (cs, ci, cluster_ci) = match &i.c_statistic {
+        Some(s) => (
+            fixed(s.estimate, 3),
+            interval(s.ci95),
+            interval(s.cluster_ci95),
+        ),
+        None => (none.to_string(), none.to_string(), none.to_string()),
+    };
+    let (mc, aic) = match &i.model {
+        Some(m) => (fixed(m.c_statistic, 3), fixed(m.aic, 1)),
+        None => (none.to_string(), none.to_string()),
+    };
+    let mut row = vec![cs, ci];
+    if clustered {
+        row.push(cluster_ci);
+    }
+    row.extend([mc, aic]);
+    row
+}
+
+fn model_rows(label: &str, m: &Model, clustered: bool, rows: &mut Vec<Vec<String>>) {
+    rows.extend(model_cells(label, m, clustered, "-"));
 }
 
 /// The comparison as a plain-text report.
@@ -212,31 +248,8 @@ pub fn text_table(c: &Comparison) -> String {
         .indices
         .iter()
         .map(|i| {
-            let (cs, ci) = match &i.c_statistic {
-                Some(s) => (
-                    fixed(s.estimate, 3),
-                    s.ci95.map_or("-".into(), |[a, b]| {
-                        format!("{} to {}", fixed(a, 3), fixed(b, 3))
-                    }),
-                ),
-                None => ("-".into(), "-".into()),
-            };
-            let (mc, aic) = match &i.model {
-                Some(m) => (fixed(m.c_statistic, 3), fixed(m.aic, 1)),
-                None => ("-".into(), "-".into()),
-            };
-            let mut row = vec![i.name.clone(), cs, ci, mc, aic];
-            if c.clusters.is_some() {
-                row.insert(
-                    3,
-                    i.c_statistic
-                        .as_ref()
-                        .and_then(|s| s.cluster_ci95)
-                        .map_or("-".into(), |[a, b]| {
-                            format!("{} to {}", fixed(a, 3), fixed(b, 3))
-                        }),
-                );
-            }
+            let mut row = vec![i.name.clone()];
+            row.extend(discrimination_cells(i, c.clusters.is_some(), "-", " to "));
             row
         })
         .collect();

@@ -77,6 +77,28 @@ impl Ids {
         }
     }
 
+    /// Asks the processor to fetch the table slot where a lookup of `b`
+    /// starts, so that a lookup a few rows later does not wait for memory
+    /// (the table of a large history is far larger than the caches).
+    #[inline]
+    pub fn prefetch(&self, b: &[u8]) {
+        if self.slots.is_empty() {
+            return;
+        }
+        let at = hash(b) as usize & (self.slots.len() - 1);
+        #[cfg(target_arch = "x86_64")]
+        {
+            let p = self.slots[at..].as_ptr() as *const i8;
+            // SAFETY: a prefetch is a hint; `p` points into `slots`.
+            #[allow(unused_unsafe)]
+            unsafe {
+                std::arch::x86_64::_mm_prefetch::<{ std::arch::x86_64::_MM_HINT_T0 }>(p)
+            };
+        }
+        #[cfg(not(target_arch = "x86_64"))]
+        let _ = at;
+    }
+
     fn grow(&mut self) {
         let size = (self.slots.len() * 2).max(16);
         let mut slots = vec![EMPTY; size];

@@ -27,7 +27,6 @@ pub(crate) fn threads(cfg: &ScoreConfig) -> usize {
 }
 
 const EMPTY: &str = "the input is empty: expected a header line naming the columns";
-
 /// Reads the header with `on_header`, then runs `work` over every block (from
 /// the byte after the header in the first block) on worker threads and hands
 /// each result to `consume` in input order. `consume` returning an error
@@ -37,15 +36,14 @@ pub(crate) fn run_blocks<H, T>(
     input: impl Read + Send,
     on_header: impl FnOnce(&Block, &RecordRef<'_>) -> Result<H, Error>,
     work: impl Fn(&H, &Block, usize, &mut RecordScanner) -> T + Sync,
-    mut consume: impl FnMut(&H, T, Progress) -> Result<(), Error>,
+    consume: impl FnMut(&H, T, Progress) -> Result<(), Error>,
 ) -> Result<H, Error>
 where
     H: Sync,
     T: Send,
 {
-    let read_err = |e| Error::io("cannot read input", e);
     let mut reader = BlockReader::new(input, cfg.delimiter, cfg.block_size);
-    let Some(first) = reader.next_block().map_err(read_err)? else {
+    let Some(first) = reader.next_block().map_err(read_error)? else {
         return Err(Error::data(None, EMPTY));
     };
     // The header is the first record of the first block.
@@ -67,10 +65,148 @@ where
     let Some((header, header_end)) = head else {
         return Err(Error::data(None, EMPTY));
     };
+    let feed = BlockFeed {
+        first: Some((first, header_end)),
+        reader,
+    };
+    run_ordered(
+        cfg,
+        header,
+        feed,
+        || RecordScanner::new(cfg.delimiter),
+        |h, (block, start), scanner| work(h, &block, start, scanner),
+        consume,
+    )
+}
 
+/// [`run_blocks`] over typed rows: reads the header of `source` with
+/// `on_header`, then, while one thread takes the source's batches, runs
+/// `work` over every batch (with the 1-based number of its first row) on
+/// worker threads and hands each result to `consume` in row order.
+pub(crate) fn run_batches<'a, H, T>(
+    cfg: &ScoreConfig,
+    source: Box<dyn RowSource<'a> + 'a>,
+    on_header: impl FnOnce(Header) -> Result<H, Error>,
+    work: impl Fn(&H, &dyn Batch, u64) -> T + Sync,
+    consume: impl FnMut(&H, T, Progress) -> Result<(), Error>,
+) -> Result<H, Error>
+where
+    H: Sync,
+    T: Send,
+{
+    let header = on_header(source.header())?;
+    let feed = BatchFeed {
+        source,
+        index: 0,
+        first: 1,
+        len: 0,
+    };
+    run_ordered(
+        cfg,
+        header,
+        feed,
+        || (),
+        |h, (first, batch), ()| work(h, batch.as_ref(), first),
+        consume,
+    )
+}
+
+fn read_error(e: std::io::Error) -> Error {
+    Error::io("cannot read input", e)
+}
+
+/// How far the reader thread of [`run_ordered`] has got, for [`Progress`].
+#[derive(Default)]
+struct ReadSoFar {
+    bytes: AtomicU64,
+    rows: AtomicU64,
+}
+
+/// Where the reader thread of [`run_ordered`] takes its work items from.
+trait Feed: Send {
+    type Item: Send;
+    /// The next item with its place in input order (0, 1, 2, ... with no
+    /// gaps), or `None` at the end.
+    fn next(&mut self, read: &ReadSoFar) -> Result<Option<(u64, Self::Item)>, Error>;
+    /// Called once the item last returned is queued for the workers.
+    fn queued(&mut self, _read: &ReadSoFar) {}
+}
+
+/// The blocks of a delimited text: the first one (from the byte after the
+/// header), then every later one from the byte 0.
+struct BlockFeed<R: Read> {
+    first: Option<(Block, usize)>,
+    reader: BlockReader<R>,
+}
+
+impl<R: Read + Send> Feed for BlockFeed<R> {
+    type Item = (Block, usize);
+
+    fn next(&mut self, read: &ReadSoFar) -> Result<Option<(u64, (Block, usize))>, Error> {
+        let job = match self.first.take() {
+            Some(first) => Some(first),
+            None => self
+                .reader
+                .next_block()
+                .map_err(read_error)?
+                .map(|b| (b, 0)),
+        };
+        if job.is_some() {
+            read.bytes
+                .store(self.reader.bytes_read(), Ordering::Relaxed);
+        }
+        Ok(job.map(|(b, start)| (b.index, (b, start))))
+    }
+}
+
+/// The batches of a typed row source, each with the 1-based number of its
+/// first row.
+struct BatchFeed<'a> {
+    source: Box<dyn RowSource<'a> + 'a>,
+    index: u64,
+    first: u64,
+    /// Rows of the batch last returned.
+    len: u64,
+}
+
+impl<'a> Feed for BatchFeed<'a> {
+    type Item = (u64, Box<dyn Batch + 'a>);
+
+    fn next(&mut self, _read: &ReadSoFar) -> Result<Option<(u64, Self::Item)>, Error> {
+        Ok(self.source.next_batch()?.map(|b| {
+            self.len = b.len() as u64;
+            (self.index, (self.first, b))
+        }))
+    }
+
+    fn queued(&mut self, read: &ReadSoFar) {
+        self.index += 1;
+        self.first += self.len;
+        read.rows.store(self.first - 1, Ordering::Relaxed);
+    }
+}
+
+/// The machinery of [`run_blocks`] and [`run_batches`]: one thread takes
+/// the items of `feed`, worker threads (each with its own `scratch`) run
+/// `work` over them, and the calling thread hands each result to `consume`
+/// in input order. The first error (of `consume`, else of the feed) stops
+/// the run and is returned; otherwise the header state.
+fn run_ordered<F, H, S, T>(
+    cfg: &ScoreConfig,
+    header: H,
+    mut feed: F,
+    scratch: impl Fn() -> S + Sync,
+    work: impl Fn(&H, F::Item, &mut S) -> T + Sync,
+    mut consume: impl FnMut(&H, T, Progress) -> Result<(), Error>,
+) -> Result<H, Error>
+where
+    F: Feed,
+    H: Sync,
+    T: Send,
+{
     let n = threads(cfg);
-    let bytes_read = AtomicU64::new(reader.bytes_read());
-    let (job_tx, job_rx) = sync_channel::<(Block, usize)>(n * 2);
+    let read = ReadSoFar::default();
+    let (job_tx, job_rx) = sync_channel::<(u64, F::Item)>(n * 2);
     let job_rx = Mutex::new(job_rx);
     let (done_tx, done_rx) = sync_channel::<(u64, T)>(n * 2);
     let stop = AtomicBool::new(false);
@@ -78,42 +214,37 @@ where
 
     std::thread::scope(|s| {
         let reader_failed = s.spawn({
-            let job_tx = job_tx.clone();
-            let (bytes_read, stop) = (&bytes_read, &stop);
+            let (read, stop) = (&read, &stop);
             move || -> Option<Error> {
-                if job_tx.send((first, header_end)).is_err() {
-                    return None;
-                }
                 loop {
                     if stop.load(Ordering::Relaxed) {
                         return None;
                     }
-                    match reader.next_block() {
-                        Ok(Some(b)) => {
-                            bytes_read.store(reader.bytes_read(), Ordering::Relaxed);
-                            if job_tx.send((b, 0)).is_err() {
+                    match feed.next(read) {
+                        Ok(Some(job)) => {
+                            if job_tx.send(job).is_err() {
                                 return None;
                             }
+                            feed.queued(read);
                         }
                         Ok(None) => return None,
-                        Err(e) => return Some(read_err(e)),
+                        Err(e) => return Some(e),
                     }
                 }
             }
         });
-        drop(job_tx);
         for _ in 0..n {
             let done_tx = done_tx.clone();
-            let (job_rx, header, work) = (&job_rx, &header, &work);
+            let (job_rx, header, scratch, work) = (&job_rx, &header, &scratch, &work);
             s.spawn(move || {
-                let mut scanner = RecordScanner::new(cfg.delimiter);
+                let mut scratch = scratch();
                 loop {
                     let job = job_rx.lock().map(|r| r.recv());
-                    let Ok(Ok((block, start))) = job else {
+                    let Ok(Ok((index, item))) = job else {
                         return;
                     };
-                    let r = work(header, &block, start, &mut scanner);
-                    if done_tx.send((block.index, r)).is_err() {
+                    let r = work(header, item, &mut scratch);
+                    if done_tx.send((index, r)).is_err() {
                         return;
                     }
                 }
@@ -128,8 +259,8 @@ where
             while let Some(r) = pending.remove(&next) {
                 next += 1;
                 let p = Progress {
-                    bytes_read: bytes_read.load(Ordering::Relaxed),
-                    rows: 0,
+                    bytes_read: read.bytes.load(Ordering::Relaxed),
+                    rows: read.rows.load(Ordering::Relaxed),
                 };
                 if let Err(e) = consume(&header, r, p) {
                     failure = Some(e);
@@ -138,101 +269,6 @@ where
             }
         }
         // On failure, stop the reader and let blocked sends through.
-        stop.store(true, Ordering::Relaxed);
-        drop(done_rx);
-        while let Ok(Ok(_)) = job_rx.lock().map(|r| r.recv()) {}
-        if let Ok(Some(e)) = reader_failed.join() {
-            if failure.is_none() {
-                failure = Some(e);
-            }
-        }
-    });
-    match failure {
-        Some(e) => Err(e),
-        None => Ok(header),
-    }
-}
-
-/// [`run_blocks`] over typed rows: reads the header of `source` with
-/// `on_header`, then, while one thread takes the source's batches, runs
-/// `work` over every batch (with the 1-based number of its first row) on
-/// worker threads and hands each result to `consume` in row order.
-pub(crate) fn run_batches<'a, H, T>(
-    cfg: &ScoreConfig,
-    mut source: Box<dyn RowSource<'a> + 'a>,
-    on_header: impl FnOnce(Header) -> Result<H, Error>,
-    work: impl Fn(&H, &dyn Batch, u64) -> T + Sync,
-    mut consume: impl FnMut(&H, T, Progress) -> Result<(), Error>,
-) -> Result<H, Error>
-where
-    H: Sync,
-    T: Send,
-{
-    let header = on_header(source.header())?;
-    let n = threads(cfg);
-    type Job<'b> = (u64, u64, Box<dyn Batch + 'b>);
-    let (job_tx, job_rx) = sync_channel::<Job<'a>>(n * 2);
-    let job_rx = Mutex::new(job_rx);
-    let (done_tx, done_rx) = sync_channel::<(u64, T)>(n * 2);
-    let stop = AtomicBool::new(false);
-    let rows_read = AtomicU64::new(0);
-    let mut failure: Option<Error> = None;
-    std::thread::scope(|s| {
-        let reader_failed = s.spawn({
-            let (stop, rows_read) = (&stop, &rows_read);
-            move || -> Option<Error> {
-                let (mut index, mut first) = (0u64, 1u64);
-                loop {
-                    if stop.load(Ordering::Relaxed) {
-                        return None;
-                    }
-                    match source.next_batch() {
-                        Ok(Some(b)) => {
-                            let len = b.len() as u64;
-                            if job_tx.send((index, first, b)).is_err() {
-                                return None;
-                            }
-                            index += 1;
-                            first += len;
-                            rows_read.store(first - 1, Ordering::Relaxed);
-                        }
-                        Ok(None) => return None,
-                        Err(e) => return Some(e),
-                    }
-                }
-            }
-        });
-        for _ in 0..n {
-            let done_tx = done_tx.clone();
-            let (job_rx, header, work) = (&job_rx, &header, &work);
-            s.spawn(move || loop {
-                let job = job_rx.lock().map(|r| r.recv());
-                let Ok(Ok((index, first, batch))) = job else {
-                    return;
-                };
-                let r = work(header, batch.as_ref(), first);
-                if done_tx.send((index, r)).is_err() {
-                    return;
-                }
-            });
-        }
-        drop(done_tx);
-        let mut pending: BTreeMap<u64, T> = BTreeMap::new();
-        let mut next = 0u64;
-        'recv: for (index, r) in done_rx.iter() {
-            pending.insert(index, r);
-            while let Some(r) = pending.remove(&next) {
-                next += 1;
-                let p = Progress {
-                    bytes_read: 0,
-                    rows: rows_read.load(Ordering::Relaxed),
-                };
-                if let Err(e) = consume(&header, r, p) {
-                    failure = Some(e);
-                    break 'recv;
-                }
-            }
-        }
         stop.store(true, Ordering::Relaxed);
         drop(done_rx);
         while let Ok(Ok(_)) = job_rx.lock().map(|r| r.recv()) {}

@@ -29,7 +29,7 @@ use std::fmt::Write as _;
 pub use dialect::{literal, quote_ident, quote_name, Dialect, ShapeChar};
 
 use crate::lists::prefixes::points_text;
-use crate::lists::{prefix_rows, Bound};
+use crate::lists::{prefix_rows, Bound, CodeList, Weighting};
 use crate::pipeline::{Header, Layout, Plan, ScoreConfig, WindowScope, POA_BLANK};
 use crate::score::MAX_AGE;
 use crate::score::{ColumnKind, Engine};
@@ -572,14 +572,7 @@ fn list_tables(
         &t.weights,
         &format!("list_name TEXT NOT NULL, weighting TEXT NOT NULL, condition_key TEXT NOT NULL, points {pts} NOT NULL"),
     );
-    let mut done: Vec<(usize, usize)> = Vec::new();
-    for s in engine.specs() {
-        if done.contains(&(s.list, s.weighting)) {
-            continue;
-        }
-        done.push((s.list, s.weighting));
-        let list = &engine.lists()[s.list].list;
-        let w = &list.weightings[s.weighting];
+    for (list, w) in weightings_used(engine) {
         let rows: Vec<String> = list
             .conditions
             .iter()
@@ -645,14 +638,7 @@ lower_bound {pts}, lower_inclusive INTEGER NOT NULL, upper_bound {pts}, upper_in
             ),
         );
         let mut rows = Vec::new();
-        let mut done: Vec<(usize, usize)> = Vec::new();
-        for s in engine.specs() {
-            if done.contains(&(s.list, s.weighting)) {
-                continue;
-            }
-            done.push((s.list, s.weighting));
-            let list = &engine.lists()[s.list].list;
-            let w = &list.weightings[s.weighting];
+        for (list, w) in weightings_used(engine) {
             for b in &w.bands {
                 let bound = |x: Bound| match x {
                     Bound::Open => ("NULL".to_string(), 0),
@@ -688,6 +674,23 @@ enum RowSource {
     Rowid,
     /// The columns named by `--columns`.
     Named(Vec<String>),
+}
+
+/// Each list and weighting the run scores, once, in the order the indices
+/// name them.
+fn weightings_used(engine: &Engine) -> Vec<(&CodeList, &Weighting)> {
+    let mut done: Vec<(usize, usize)> = Vec::new();
+    for s in engine.specs() {
+        if !done.contains(&(s.list, s.weighting)) {
+            done.push((s.list, s.weighting));
+        }
+    }
+    done.into_iter()
+        .map(|(l, w)| {
+            let list = &engine.lists()[l].list;
+            (list, &list.weightings[w])
+        })
+        .collect()
 }
 
 fn row_source(opts: &SqlOptions, cols: &Columns) -> RowSource {

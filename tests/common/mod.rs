@@ -1,10 +1,12 @@
 //! Helpers shared by the integration tests: running the built binary,
-//! temporary directories, and an invented extract.
+//! temporary directories and files, seeded generators, an invented extract,
+//! and writing Parquet files.
 
 #![allow(dead_code)]
 
+use std::io::Write;
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+use std::process::{Command, Output, Stdio};
 use std::sync::atomic::{AtomicUsize, Ordering};
 
 /// The result of one run of the binary.
@@ -15,7 +17,7 @@ pub struct Run {
 }
 
 impl Run {
-    fn from(o: Output) -> Run {
+    pub fn from(o: Output) -> Run {
         Run {
             code: o.status.code().unwrap_or(-1),
             stdout: String::from_utf8_lossy(&o.stdout).into_owned(),
@@ -32,6 +34,68 @@ pub fn morbus(args: &[&str]) -> Run {
         .output()
         .expect("the morbus binary runs");
     Run::from(out)
+}
+
+/// Runs `morbus ARGS` in the crate root with `stdin` on its standard input
+/// (written from another thread, so that a large output cannot block it).
+/// A run that exits without reading all of its input may close the pipe
+/// first: a broken pipe is the only write error allowed.
+pub fn pipe(args: &[&str], stdin: &[u8]) -> Output {
+    let mut child = Command::new(env!("CARGO_BIN_EXE_morbus"))
+        .args(args)
+        .current_dir(root())
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("the morbus binary runs");
+    let mut input = child.stdin.take().unwrap();
+    let data = stdin.to_vec();
+    let writer = std::thread::spawn(move || input.write_all(&data));
+    let out = child.wait_with_output().unwrap();
+    if let Err(e) = writer.join().unwrap() {
+        assert_eq!(e.kind(), std::io::ErrorKind::BrokenPipe, "{e}");
+    }
+    out
+}
+
+/// The arguments of a command line written as one line: its words
+/// (split at white space), each `{}` replaced by the next of `values` (which
+/// may hold spaces, as paths may).
+pub fn words<'a>(line: &'a str, values: &[&'a str]) -> Vec<&'a str> {
+    let mut values = values.iter();
+    let args: Vec<&str> = line
+        .split_whitespace()
+        .map(|w| match w {
+            "{}" => values.next().expect("a value for every {}"),
+            w => w,
+        })
+        .collect();
+    assert!(values.next().is_none(), "more values than {{}} in {line:?}");
+    args
+}
+
+/// [`morbus`] with the command line written as one line (see [`words`]).
+pub fn run(line: &str, values: &[&str]) -> Run {
+    morbus(&words(line, values))
+}
+
+/// [`pipe`] as a [`Run`].
+pub fn morbus_with_input(args: &[&str], stdin: &[u8]) -> Run {
+    Run::from(pipe(args, stdin))
+}
+
+/// A path `name` in a directory of this test process (`tag` names the
+/// test file), made if missing and left for the system to clear.
+pub fn scratch(tag: &str, name: &str) -> PathBuf {
+    let dir = std::env::temp_dir().join(format!("morbus-{tag}-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    dir.join(name)
+}
+
+/// A JSON file, parsed.
+pub fn json_file(path: &Path) -> serde_json::Value {
+    serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
 }
 
 /// The values of column `name` of a CSV text (header first).
@@ -110,6 +174,52 @@ impl Rng {
     pub fn chance(&mut self, percent: u64) -> bool {
         self.next() % 100 < percent
     }
+}
+
+/// A 64-bit linear congruential generator (Knuth's MMIX constants) that
+/// draws from the top `bits` bits of its state.
+pub struct Lcg {
+    state: u64,
+    bits: u32,
+}
+
+impl Lcg {
+    pub fn new(seed: u64, bits: u32) -> Lcg {
+        assert!((1..=64).contains(&bits));
+        Lcg { state: seed, bits }
+    }
+    pub fn next(&mut self) -> u64 {
+        self.state = self
+            .state
+            .wrapping_mul(6364136223846793005)
+            .wrapping_add(1442695040888963407);
+        self.state >> (64 - self.bits)
+    }
+    pub fn below(&mut self, n: u64) -> u64 {
+        self.next() % n
+    }
+    /// A value in [0, 1).
+    pub fn uniform(&mut self) -> f64 {
+        self.next() as f64 / 2f64.powi(self.bits as i32)
+    }
+    pub fn pick<T: Copy>(&mut self, items: &[T]) -> T {
+        items[self.below(items.len() as u64) as usize]
+    }
+}
+
+/// Writes `batch` as a Parquet file, in row groups of at most `group` rows
+/// (`None`: the writer's default).
+#[cfg(feature = "parquet")]
+pub fn write_parquet(path: &Path, batch: &arrow_array::RecordBatch, group: Option<usize>) {
+    let props = group.map(|g| {
+        parquet::file::properties::WriterProperties::builder()
+            .set_max_row_group_row_count(Some(g))
+            .build()
+    });
+    let file = std::fs::File::create(path).unwrap();
+    let mut w = parquet::arrow::ArrowWriter::try_new(file, batch.schema(), props).unwrap();
+    w.write(batch).unwrap();
+    w.close().unwrap();
 }
 
 /// Values in the invented extract that are not ICD-10 codes.
