@@ -7,6 +7,10 @@
 #   bash benches/run.sh            # 1,000,000-episode scenarios
 #   SIZES="1000000 10000000" bash benches/run.sh
 #   SCENARIOS="wide long" bash benches/run.sh
+#   SCENARIOS=explain bash benches/run.sh    # explain without history, then with a
+#                                           # 365-day lookback in memory, on one
+#                                           # thread, and within --memory 64MiB
+#   MORBUS=path/to/morbus SCENARIOS=explain bash benches/run.sh   # another build
 #   SCENARIOS=compare bash benches/run.sh    # compare on CSV, on Parquet and (with
 #                                           # python/.venv) from a pyarrow table
 #   SCENARIOS=providers bash benches/run.sh  # compare with 40 providers and 5 folds
@@ -37,7 +41,7 @@ DATA=${DATA:-bench-data}
 mkdir -p "$DATA"
 cargo build --release -q -p morbus -p morbus-bench
 BIN=target/release
-MORBUS=$BIN/morbus
+MORBUS=${MORBUS:-$BIN/morbus}   # MORBUS=path: time another build
 
 # best_of CMD...: prints "seconds peak_kb" of the fastest of RUNS runs
 best_of() {
@@ -127,6 +131,15 @@ for n in $SIZES; do
         if [ "$n" -le 1000000 ]; then
           read -r t m < <(best_of $MORBUS explain "$wide" --dx 'dx*' -q -o "$DATA/out.csv")
           row "explain, wide" "$n" "$t" "$m" "$floor"
+          # With a 365-day lookback (about 2 GB of output): held in memory
+          # on every core and on one, and spilled within 64 MiB.
+          lb=(--dx 'dx*' --id patient_id --date admission_date --lookback 365 -q -o "$DATA/out.csv")
+          read -r t m < <(best_of $MORBUS explain "$wide" "${lb[@]}")
+          row "explain, 365-day lookback" "$n" "$t" "$m" "$floor"
+          read -r t m < <(best_of $MORBUS explain "$wide" "${lb[@]}" --threads 1)
+          row "explain, 365-day lookback, one thread" "$n" "$t" "$m" "$floor"
+          read -r t m < <(best_of $MORBUS explain "$wide" "${lb[@]}" --memory 64MiB --temp-dir "$DATA")
+          row "explain, 365-day lookback, --memory 64MiB" "$n" "$t" "$m" "$floor"
         fi
         ;;
       compare)

@@ -231,18 +231,41 @@ fn same_spilled(engine: &Engine, cfg: &ScoreConfig, input: &str, what: &str) {
 }
 
 /// Explains `cfg` over `input` (CSV and JSON lines) with the history in
-/// memory and spilled: the same output and summary.
+/// memory and spilled: the same output and summary. In memory and spilled,
+/// one thread, two, and more threads than episodes (or than a partition's
+/// episodes) give the same records as one thread in memory.
 fn same_explained(engine: &Engine, cfg: &ScoreConfig, input: &str, what: &str) {
+    let temp = TempDir::new("spill-explain-threads");
     for format in [ExplainFormat::Csv, ExplainFormat::JsonLines] {
+        let run = |cfg: &ScoreConfig| -> Ran {
+            let mut out = Vec::new();
+            let s = explain_stream(engine, cfg, format, input.as_bytes(), &mut out);
+            (out, s.map_err(|e| stopped(&e)))
+        };
+        let at = |threads: usize, memory: u64| ScoreConfig {
+            threads,
+            memory,
+            temp_dir: Some(temp.path().to_path_buf()),
+            ..cfg.clone()
+        };
+        let (one, one_summary) = run(&at(1, 1 << 30));
+        for (threads, memory) in [(2, 1 << 30), (64, 1 << 30), (2, 0), (64, 0)] {
+            let (out, s) = run(&at(threads, memory));
+            assert!(
+                out == one,
+                "explain {format:?}, {what}: {threads} threads, memory {memory}: output differs from one thread's"
+            );
+            match (&s, &one_summary) {
+                (Ok(s), Ok(want)) => assert_eq!(&unspilled(s.clone()), want, "{what}"),
+                (a, b) => assert_eq!(a.is_err(), b.is_err(), "{what}: {a:?} against {b:?}"),
+            }
+        }
+        assert_eq!(files_in(temp.path()), 0, "{what}: temporary file left");
         same_spilled_by(
             cfg,
             input.len(),
             &format!("explain {format:?}, {what}"),
-            &|cfg| {
-                let mut out = Vec::new();
-                let s = explain_stream(engine, cfg, format, input.as_bytes(), &mut out);
-                (out, s.map_err(|e| stopped(&e)))
-            },
+            &run,
         );
     }
 }
@@ -444,6 +467,8 @@ fn explain_spilled_equals_in_memory() {
         ..wide_config()
     };
     same_explained(&engine, &wide_cfg, &wide, "wide, --label");
+    // Fewer episodes than threads.
+    same_explained(&engine, &wide_cfg, &history(5), "wide, five episodes");
     let earlier = ScoreConfig {
         window: WindowScope::EarlierOnly,
         lookback: Some(u32::MAX),
@@ -762,23 +787,49 @@ fn explain_on_the_command_line_spills_and_cleans_up() {
             to_parquet(text, &pq_in);
             inputs.push(pq_in.display().to_string());
         }
-        let run = |input: &str, memory: &str, json: bool| {
-            let json = if json { "--json" } else { "" };
-            let r = runs.ok(&format!("explain {{}} {opts} {json}"), &[input], memory);
+        // `extra`: --json, --threads, -o FILE (words of the line).
+        let run_with = |input: &str, memory: &str, extra: &str| {
+            let r = runs.ok(&format!("explain {{}} {opts} {extra}"), &[input], memory);
             assert_eq!(r.stderr.contains(SPILLED), memory != "1GiB", "{}", r.stderr);
             r.stdout
         };
+        // One thread for the reference, more for the rest (explain's
+        // records are made on every thread, in memory and per partition).
+        let run = |input: &str, memory: &str, json: bool, threads: &str| {
+            let json = if json { "--json" } else { "" };
+            run_with(input, memory, &format!("--threads {threads} {json}"))
+        };
         for json in [false, true] {
-            let reference = run(&csv_in, "1GiB", json);
+            let reference = run(&csv_in, "1GiB", json, "1");
             assert!(reference.lines().count() > 2_000, "{name}: {reference}");
             for input in &inputs {
-                for memory in ["1GiB", "0", "16KiB", "256KiB"] {
-                    let out = run(input, memory, json);
+                for (memory, threads) in
+                    [("1GiB", "2"), ("0", "2"), ("16KiB", "64"), ("256KiB", "2")]
+                {
+                    let out = run(input, memory, json, threads);
                     assert!(
                         out == reference,
-                        "{name} {input} --memory {memory} json {json}: output differs"
+                        "{name} {input} --memory {memory} --threads {threads} json {json}: output differs"
                     );
                 }
+            }
+        }
+        // Parquet output: the same file, byte for byte, on one thread in
+        // memory, on more threads, and spilled.
+        #[cfg(feature = "parquet")]
+        {
+            let file = |memory: &str, threads: &str| {
+                let out = runs.dir.join(&format!("{name}-{memory}-{threads}.parquet"));
+                run_with(&csv_in, memory, &format!("--threads {threads} -o {out}"));
+                std::fs::read(&out).unwrap()
+            };
+            let reference = file("1GiB", "1");
+            assert!(reference.len() > 1_000, "{name}: a Parquet file");
+            for (memory, threads) in [("1GiB", "2"), ("1GiB", "64"), ("0", "2"), ("16KiB", "64")] {
+                assert!(
+                    file(memory, threads) == reference,
+                    "{name}: Parquet output --memory {memory} --threads {threads} differs"
+                );
             }
         }
     }

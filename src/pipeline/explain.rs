@@ -2,7 +2,11 @@
 //! where the code came from and whether it counted, and a total row per
 //! episode and index.
 
+use std::collections::BTreeMap;
+use std::fmt::Write as _;
 use std::io::Write;
+use std::sync::atomic::{AtomicUsize, Ordering};
+use std::sync::{Condvar, Mutex};
 
 use super::history::{read_history, CodeRecord, History, Needs, ReadHistory, Windows};
 use super::partition::Lines;
@@ -64,9 +68,10 @@ impl Status {
     }
 }
 
-fn iso(days: Option<i32>) -> String {
+/// A day as `YYYY-MM-DD`, appended to `out` (nothing for no day).
+fn iso_into(days: Option<i32>, out: &mut String) {
     let Some(z) = days else {
-        return String::new();
+        return;
     };
     // H. Hinnant's civil_from_days.
     let z = z as i64 + 719_468;
@@ -79,11 +84,16 @@ fn iso(days: Option<i32>) -> String {
     let d = doy - (153 * mp + 2) / 5 + 1;
     let m = if mp < 10 { mp + 3 } else { mp - 9 };
     let y = if m <= 2 { y + 1 } else { y };
-    format!("{y:04}-{m:02}-{d:02}")
+    let _ = write!(out, "{y:04}-{m:02}-{d:02}");
 }
 
-fn json_str(s: &str) -> String {
-    serde_json::to_string(s).unwrap_or_else(|_| "\"\"".into())
+/// `s` as a JSON string, appended to `out`.
+fn json_str(s: &str, out: &mut Vec<u8>) {
+    let at = out.len();
+    if serde_json::to_writer(&mut *out, s).is_err() {
+        out.truncate(at);
+        out.extend_from_slice(b"\"\"");
+    }
 }
 
 /// One record of `explain`, typed: a matched code of an episode's window,
@@ -121,6 +131,34 @@ impl Record<'_> {
     }
 }
 
+/// What explaining an episode reads of its whole history: each episode's
+/// final condition set, its place in the window order and its codes. Made
+/// once, read by every thread.
+pub(crate) struct Prepared {
+    resolved: Vec<u64>,
+    pos: Vec<u32>,
+    /// Codes per episode, in input order.
+    by_episode: Vec<Vec<usize>>,
+}
+
+impl Prepared {
+    pub(crate) fn new(engine: &Engine, hist: &History, sorted: &[u32]) -> Prepared {
+        let mut pos = vec![0u32; sorted.len()];
+        for (i, &e) in sorted.iter().enumerate() {
+            pos[e as usize] = i as u32;
+        }
+        let mut by_episode: Vec<Vec<usize>> = vec![Vec::new(); hist.episodes.len()];
+        for (i, c) in hist.codes.iter().enumerate() {
+            by_episode[c.episode as usize].push(i);
+        }
+        Prepared {
+            resolved: hist.final_sets(engine),
+            pos,
+            by_episode,
+        }
+    }
+}
+
 /// Explains every episode of a resolved history (`sorted`: its window
 /// order), handing the records to `sink` episode by episode, in input
 /// order: per index, the current episode's codes, then those of the
@@ -132,107 +170,118 @@ pub fn explain_history(
     sorted: &[u32],
     mut sink: impl FnMut(Record<'_>) -> Result<(), Error>,
 ) -> Result<(), Error> {
-    let resolved = hist.final_sets(engine);
-    let mut pos = vec![0u32; sorted.len()];
-    for (i, &e) in sorted.iter().enumerate() {
-        pos[e as usize] = i as u32;
+    let prepared = Prepared::new(engine, hist, sorted);
+    for e in 0..hist.episodes.len() {
+        explain_episode(engine, windows, hist, sorted, &prepared, e, &mut sink)?;
     }
+    Ok(())
+}
+
+/// Explains episode `e` of a resolved history: its records, in order, to
+/// `sink`.
+fn explain_episode<'h>(
+    engine: &Engine,
+    windows: &Windows,
+    hist: &'h History,
+    sorted: &[u32],
+    prepared: &Prepared,
+    e: usize,
+    sink: &mut impl FnMut(Record<'h>) -> Result<(), Error>,
+) -> Result<(), Error> {
+    let Prepared {
+        resolved,
+        pos,
+        by_episode,
+    } = prepared;
     let w = hist.words();
-    // Codes per episode, in input order.
-    let mut by_episode: Vec<Vec<usize>> = vec![Vec::new(); hist.episodes.len()];
-    for (i, c) in hist.codes.iter().enumerate() {
-        by_episode[c.episode as usize].push(i);
-    }
+    let ep = &hist.episodes[e];
     let mut order: Vec<u32> = Vec::new();
-    for (e, ep) in hist.episodes.iter().enumerate() {
-        let final_bits = &resolved[e * w..(e + 1) * w];
-        for (si, spec) in engine.specs().iter().enumerate() {
-            let sel = &engine.lists()[spec.list];
-            let list = &sel.list;
-            let weighting = &list.weightings[spec.weighting];
-            let decimals = weighting.decimals;
-            // The current episode first, then the window's others, most
-            // recent first.
-            let days = windows.per_list[spec.list];
-            order.clear();
-            order.push(e as u32);
-            order.extend(hist.window_members(sorted, &pos, e, days, windows.scope));
-            let current_left_out = days.is_some() && windows.scope == WindowScope::EarlierOnly;
-            let mut counted = vec![false; list.conditions.len()];
-            let mut total = 0i64;
-            for &src in &order {
-                for &ci in &by_episode[src as usize] {
-                    let rec = &hist.codes[ci];
-                    let mut hits: Vec<usize> = Vec::new();
-                    engine.matcher().for_each_hit(&rec.code, |id| {
-                        let id = id as usize;
-                        if id >= sel.offset && id < sel.offset + list.conditions.len() {
-                            hits.push(id - sel.offset);
-                        }
-                    });
-                    hits.sort_unstable();
-                    hits.dedup();
-                    for c in hits {
-                        let status = if src as usize == e && current_left_out {
-                            Status::CurrentEpisode
-                        } else if src as usize == e && rec.exclusion.is_some() {
-                            Status::Excluded(rec.exclusion.unwrap_or(Exclusion::Primary))
-                        } else if !Engine::has(final_bits, sel.offset + c) {
-                            let sup = list
-                                .hierarchy
-                                .iter()
-                                .find(|h| {
-                                    h.inferior == c
-                                        && Engine::has(final_bits, sel.offset + h.superior)
-                                })
-                                .or_else(|| list.hierarchy.iter().find(|h| h.inferior == c))
-                                .map(|h| list.conditions[h.superior].key.clone())
-                                .unwrap_or_default();
-                            Status::SupersededBy(sup)
-                        } else if counted[c] {
-                            Status::Repeated
-                        } else {
-                            counted[c] = true;
-                            total += weighting.weights[c];
-                            Status::Counted
-                        };
-                        sink(Record {
-                            episode: e,
-                            spec: si,
-                            source: Some((src as usize, rec)),
-                            condition: Some(c),
-                            weight: weighting.weights[c],
-                            decimals,
-                            status: status.label(),
-                            age_points: None,
-                        })?;
+    let final_bits = &resolved[e * w..(e + 1) * w];
+    for (si, spec) in engine.specs().iter().enumerate() {
+        let sel = &engine.lists()[spec.list];
+        let list = &sel.list;
+        let weighting = &list.weightings[spec.weighting];
+        let decimals = weighting.decimals;
+        // The current episode first, then the window's others, most
+        // recent first.
+        let days = windows.per_list[spec.list];
+        order.clear();
+        order.push(e as u32);
+        order.extend(hist.window_members(sorted, pos, e, days, windows.scope));
+        let current_left_out = days.is_some() && windows.scope == WindowScope::EarlierOnly;
+        let mut counted = vec![false; list.conditions.len()];
+        let mut total = 0i64;
+        for &src in &order {
+            for &ci in &by_episode[src as usize] {
+                let rec = &hist.codes[ci];
+                let mut hits: Vec<usize> = Vec::new();
+                engine.matcher().for_each_hit(&rec.code, |id| {
+                    let id = id as usize;
+                    if id >= sel.offset && id < sel.offset + list.conditions.len() {
+                        hits.push(id - sel.offset);
                     }
+                });
+                hits.sort_unstable();
+                hits.dedup();
+                for c in hits {
+                    let status = if src as usize == e && current_left_out {
+                        Status::CurrentEpisode
+                    } else if src as usize == e && rec.exclusion.is_some() {
+                        Status::Excluded(rec.exclusion.unwrap_or(Exclusion::Primary))
+                    } else if !Engine::has(final_bits, sel.offset + c) {
+                        let sup = list
+                            .hierarchy
+                            .iter()
+                            .find(|h| {
+                                h.inferior == c && Engine::has(final_bits, sel.offset + h.superior)
+                            })
+                            .or_else(|| list.hierarchy.iter().find(|h| h.inferior == c))
+                            .map(|h| list.conditions[h.superior].key.clone())
+                            .unwrap_or_default();
+                        Status::SupersededBy(sup)
+                    } else if counted[c] {
+                        Status::Repeated
+                    } else {
+                        counted[c] = true;
+                        total += weighting.weights[c];
+                        Status::Counted
+                    };
+                    sink(Record {
+                        episode: e,
+                        spec: si,
+                        source: Some((src as usize, rec)),
+                        condition: Some(c),
+                        weight: weighting.weights[c],
+                        decimals,
+                        status: status.label(),
+                        age_points: None,
+                    })?;
                 }
             }
-            debug_assert_eq!(total, engine.score(final_bits, si));
-            let score = engine.score(final_bits, si);
-            let total_row = |scaled: i64, status: String, age_points: Option<i64>| Record {
-                episode: e,
-                spec: si,
-                source: None,
-                condition: None,
-                weight: scaled,
-                decimals,
-                status,
-                age_points,
-            };
-            sink(total_row(score, "total".into(), None))?;
-            if let (Some(age), true) = (
-                ep.age(),
-                engine.options().age && !list.age_points.is_empty(),
-            ) {
-                let points = list.points_for_age(age);
-                sink(total_row(
-                    score + points,
-                    format!("total_with_age:{age}"),
-                    Some(points),
-                ))?;
-            }
+        }
+        debug_assert_eq!(total, engine.score(final_bits, si));
+        let score = engine.score(final_bits, si);
+        let total_row = |scaled: i64, status: String, age_points: Option<i64>| Record {
+            episode: e,
+            spec: si,
+            source: None,
+            condition: None,
+            weight: scaled,
+            decimals,
+            status,
+            age_points,
+        };
+        sink(total_row(score, "total".into(), None))?;
+        if let (Some(age), true) = (
+            ep.age(),
+            engine.options().age && !list.age_points.is_empty(),
+        ) {
+            let points = list.points_for_age(age);
+            sink(total_row(
+                score + points,
+                format!("total_with_age:{age}"),
+                Some(points),
+            ))?;
         }
     }
     Ok(())
@@ -310,115 +359,329 @@ impl Explainer {
     }
 
     fn emit(&self, out: &mut Vec<u8>, cells: &[String]) {
-        let d = self.delimiter;
+        self.open(out);
+        for (i, c) in cells.iter().enumerate() {
+            self.cell(out, i, c);
+        }
+        self.close(out);
+    }
+
+    /// Starts a line.
+    fn open(&self, out: &mut Vec<u8>) {
+        if self.format == ExplainFormat::JsonLines {
+            out.push(b'{');
+        }
+    }
+
+    /// Cell `i` of a line (column `i` of the header), after what separates
+    /// it from the cell before.
+    fn cell(&self, out: &mut Vec<u8>, i: usize, v: &str) {
         match self.format {
             ExplainFormat::Csv => {
-                for (i, c) in cells.iter().enumerate() {
-                    if i > 0 {
-                        out.push(d);
-                    }
-                    write_field(c.as_bytes(), d, out);
+                if i > 0 {
+                    out.push(self.delimiter);
                 }
-                out.push(b'\n');
+                write_field(v.as_bytes(), self.delimiter, out);
             }
             ExplainFormat::JsonLines => {
-                out.push(b'{');
-                for (i, (k, v)) in self.head.iter().zip(cells).enumerate() {
-                    if i > 0 {
-                        out.push(b',');
-                    }
-                    out.extend_from_slice(json_str(k).as_bytes());
-                    out.push(b':');
-                    if !self.numeric[i] {
-                        out.extend_from_slice(json_str(v).as_bytes());
-                    } else if v.is_empty() {
-                        out.extend_from_slice(b"null");
-                    } else {
-                        // Row numbers and weights as written: whole numbers
-                        // or decimals, valid JSON numbers.
-                        out.extend_from_slice(v.as_bytes());
-                    }
+                if i > 0 {
+                    out.push(b',');
                 }
-                out.extend_from_slice(b"}\n");
+                json_str(&self.head[i], out);
+                out.push(b':');
+                if !self.numeric[i] {
+                    json_str(v, out);
+                } else if v.is_empty() {
+                    out.extend_from_slice(b"null");
+                } else {
+                    // Row numbers and weights as written: whole numbers
+                    // or decimals, valid JSON numbers.
+                    out.extend_from_slice(v.as_bytes());
+                }
             }
         }
     }
 
+    /// Ends a line.
+    fn close(&self, out: &mut Vec<u8>) {
+        match self.format {
+            ExplainFormat::Csv => out.push(b'\n'),
+            ExplainFormat::JsonLines => out.extend_from_slice(b"}\n"),
+        }
+    }
+
     /// Explains every episode of a resolved history (`sorted`: its window
-    /// order), handing each episode's records, as text, to `each` with the
-    /// episode's number, in input order.
+    /// order) on `pace.threads` threads: each episode's records, as text,
+    /// framed by `frame` (the episode's number, its records, the text to
+    /// append to), are handed to `write` in input order, in pieces.
+    #[allow(clippy::too_many_arguments)]
     pub(crate) fn explain(
         &self,
         engine: &Engine,
         windows: &Windows,
         hist: &History,
         sorted: &[u32],
-        mut each: impl FnMut(usize, &[u8]) -> Result<(), Error>,
+        pace: Pace,
+        frame: impl Fn(usize, &[u8], &mut Vec<u8>) + Sync,
+        write: impl FnMut(&[u8]) -> Result<(), Error>,
     ) -> Result<(), Error> {
-        let mut out: Vec<u8> = Vec::new();
-        let mut prefix: Vec<String> = Vec::new();
-        let mut prefix_of = usize::MAX;
-        let scaled_text = |scaled: i64, decimals: u32| {
-            let mut t = Vec::new();
-            format_scaled(scaled, decimals, &mut t);
-            String::from_utf8_lossy(&t).into_owned()
+        let prepared = Prepared::new(engine, hist, sorted);
+        let prepared = &prepared;
+        in_order(
+            hist.episodes.len(),
+            pace,
+            |e, records, out| {
+                records.clear();
+                self.episode(engine, windows, hist, sorted, prepared, e, records);
+                frame(e, records, out);
+            },
+            write,
+        )
+    }
+
+    /// Episode `e`'s records, as text, appended to `out`.
+    #[allow(clippy::too_many_arguments)]
+    fn episode(
+        &self,
+        engine: &Engine,
+        windows: &Windows,
+        hist: &History,
+        sorted: &[u32],
+        prepared: &Prepared,
+        e: usize,
+        out: &mut Vec<u8>,
+    ) {
+        // The episode's own cells, made once; then each record's, through
+        // two reused buffers.
+        let ep = &hist.episodes[e];
+        let mut prefix = Vec::new();
+        self.open(&mut prefix);
+        let mut first = 0;
+        let mut own = |v: &[u8]| {
+            self.cell(&mut prefix, first, &String::from_utf8_lossy(v));
+            first += 1;
         };
-        explain_history(engine, windows, hist, sorted, |r| {
-            let e = r.episode;
-            if prefix_of != e {
-                if prefix_of != usize::MAX {
-                    each(prefix_of, &out)?;
-                    out.clear();
-                }
-                prefix_of = e;
-                let ep = &hist.episodes[e];
-                prefix.clear();
-                if self.id {
-                    prefix.push(String::from_utf8_lossy(hist.patient_id(ep.patient)).into_owned());
-                }
-                if self.episode {
-                    prefix.push(String::from_utf8_lossy(hist.key(e)).into_owned());
-                }
-                for j in 0..self.nkeep {
-                    prefix.push(String::from_utf8_lossy(hist.kept(e, j)).into_owned());
-                }
-                prefix.push(hist.row(e).to_string());
-            }
+        if self.id {
+            own(hist.patient_id(ep.patient));
+        }
+        if self.episode {
+            own(hist.key(e));
+        }
+        for j in 0..self.nkeep {
+            own(hist.kept(e, j));
+        }
+        own(hist.row(e).to_string().as_bytes());
+        let (mut text, mut number) = (String::new(), Vec::new());
+        // The sink never fails: nothing to pass on.
+        let _ = explain_episode(engine, windows, hist, sorted, prepared, e, &mut |r| {
             let spec = &engine.specs()[r.spec];
             let list = &engine.lists()[spec.list].list;
             let weighting = &list.weightings[spec.weighting];
-            let mut cells = prefix.clone();
-            cells.push(format!("{}:{}", list.name, weighting.name));
+            out.extend_from_slice(&prefix);
+            let mut i = first;
+            let mut cell = |out: &mut Vec<u8>, v: &str| {
+                self.cell(out, i, v);
+                i += 1;
+            };
+            text.clear();
+            let _ = write!(text, "{}:{}", list.name, weighting.name);
+            cell(out, &text);
             match (r.source, r.condition) {
                 (Some((src, rec)), Some(c)) => {
-                    cells.push(hist.row(src).to_string());
-                    cells.push(iso(r.date(hist)));
-                    cells.push(String::from_utf8_lossy(&rec.written).trim().to_string());
-                    cells.push(rec.code.to_string());
-                    cells.push(list.conditions[c].key.clone());
+                    text.clear();
+                    let _ = write!(text, "{}", hist.row(src));
+                    cell(out, &text);
+                    text.clear();
+                    iso_into(r.date(hist), &mut text);
+                    cell(out, &text);
+                    cell(out, String::from_utf8_lossy(&rec.written).trim());
+                    text.clear();
+                    let _ = write!(text, "{}", rec.code);
+                    cell(out, &text);
+                    cell(out, &list.conditions[c].key);
                 }
-                _ => cells.extend([
-                    String::new(),
-                    iso(r.date(hist)),
-                    String::new(),
-                    String::new(),
-                    String::new(),
-                ]),
+                _ => {
+                    cell(out, "");
+                    text.clear();
+                    iso_into(r.date(hist), &mut text);
+                    cell(out, &text);
+                    cell(out, "");
+                    cell(out, "");
+                    cell(out, "");
+                }
             }
-            cells.push(scaled_text(r.weight, r.decimals));
-            cells.push(r.status);
-            cells.push(
-                r.age_points
-                    .map_or_else(String::new, |a| scaled_text(a, r.decimals)),
-            );
-            self.emit(&mut out, &cells);
+            number.clear();
+            format_scaled(r.weight, r.decimals, &mut number);
+            cell(out, &String::from_utf8_lossy(&number));
+            cell(out, &r.status);
+            number.clear();
+            if let Some(a) = r.age_points {
+                format_scaled(a, r.decimals, &mut number);
+            }
+            cell(out, &String::from_utf8_lossy(&number));
+            self.close(out);
             Ok(())
-        })?;
-        if prefix_of != usize::MAX {
-            each(prefix_of, &out)?;
-        }
-        Ok(())
+        });
     }
+}
+
+/// How `explain`'s episodes are shared out: on how many threads, how many
+/// episodes a thread takes at a time, the size of the pieces handed to the
+/// writer, and how many bytes of pieces may wait, made ahead of the one
+/// being written, before their threads wait too.
+#[derive(Clone, Copy, Debug)]
+pub(crate) struct Pace {
+    threads: usize,
+    claim: usize,
+    piece: usize,
+    ahead: usize,
+}
+
+impl Pace {
+    /// `threads` threads for `episodes` episodes, within `memory` bytes of
+    /// `--memory`: output made ahead at most a sixteenth of it (64 KiB to
+    /// 64 MiB), in pieces of up to 1 MiB, and so at most about one and a
+    /// half times that in memory at once (besides one episode's records
+    /// per thread, which have no bound but the window).
+    pub(crate) fn new(threads: usize, episodes: usize, memory: u64) -> Pace {
+        let threads = threads.max(1);
+        let ahead = (memory / 16).clamp(64 << 10, 64 << 20) as usize;
+        Pace {
+            threads,
+            claim: (episodes / (threads * 16)).clamp(1, 256),
+            piece: (ahead / (2 * threads)).clamp(4 << 10, 1 << 20),
+            ahead,
+        }
+    }
+}
+
+/// The pieces made by [`in_order`]'s threads, waiting to be written.
+struct Pieces {
+    /// The first episode not yet written.
+    want: usize,
+    /// Pieces by their first episode: the episode after their last, and
+    /// their text.
+    ready: BTreeMap<usize, (usize, Vec<u8>)>,
+    /// Bytes in `ready`.
+    bytes: usize,
+    /// The writer failed or is done: threads stop.
+    stop: bool,
+    /// A thread failed (panicked).
+    failed: bool,
+}
+
+/// Runs `format(e, scratch, out)` (appending episode `e`'s text to `out`)
+/// for the episodes `0..n` on `pace.threads` threads, each taking
+/// `pace.claim` episodes at a time, and hands the text to `write` in
+/// episode order, in pieces of about `pace.piece` bytes. A piece that is
+/// not the next to be written waits, with its thread, while `pace.ahead`
+/// bytes of pieces are waiting already; the next piece never waits, so
+/// the writer always has one to come.
+fn in_order(
+    n: usize,
+    pace: Pace,
+    format: impl Fn(usize, &mut Vec<u8>, &mut Vec<u8>) + Sync,
+    mut write: impl FnMut(&[u8]) -> Result<(), Error>,
+) -> Result<(), Error> {
+    let workers = pace.threads.min(n.div_ceil(pace.claim));
+    if workers <= 1 {
+        let (mut scratch, mut out) = (Vec::new(), Vec::new());
+        for e in 0..n {
+            format(e, &mut scratch, &mut out);
+            if out.len() >= pace.piece {
+                write(&out)?;
+                out.clear();
+            }
+        }
+        return if out.is_empty() { Ok(()) } else { write(&out) };
+    }
+    let state = Mutex::new(Pieces {
+        want: 0,
+        ready: BTreeMap::new(),
+        bytes: 0,
+        stop: false,
+        failed: false,
+    });
+    let changed = Condvar::new();
+    let lock = || state.lock().unwrap_or_else(|p| p.into_inner());
+    let next = AtomicUsize::new(0);
+    /// Marks the run failed when its thread panics.
+    struct Failed<'a>(&'a Mutex<Pieces>, &'a Condvar);
+    impl Drop for Failed<'_> {
+        fn drop(&mut self) {
+            if std::thread::panicking() {
+                let mut st = self.0.lock().unwrap_or_else(|p| p.into_inner());
+                st.failed = true;
+                st.stop = true;
+                self.1.notify_all();
+            }
+        }
+    }
+    std::thread::scope(|s| {
+        let worker = || {
+            let _failed = Failed(&state, &changed);
+            let (mut scratch, mut out) = (Vec::new(), Vec::new());
+            loop {
+                let from = next.fetch_add(pace.claim, Ordering::Relaxed);
+                if from >= n {
+                    return;
+                }
+                let to = (from + pace.claim).min(n);
+                let mut start = from;
+                for e in from..to {
+                    format(e, &mut scratch, &mut out);
+                    if out.len() < pace.piece && e + 1 < to {
+                        continue;
+                    }
+                    let mut st = lock();
+                    while start != st.want && st.bytes >= pace.ahead && !st.stop {
+                        st = changed.wait(st).unwrap_or_else(|p| p.into_inner());
+                    }
+                    if st.stop {
+                        return;
+                    }
+                    st.bytes += out.len();
+                    st.ready.insert(start, (e + 1, std::mem::take(&mut out)));
+                    changed.notify_all();
+                    start = e + 1;
+                }
+            }
+        };
+        let handles: Vec<_> = (0..workers).map(|_| s.spawn(worker)).collect();
+        let mut result = Ok(());
+        let mut st = lock();
+        while st.want < n {
+            if st.failed {
+                result = Err(Error::data(
+                    None,
+                    "internal error: an explain thread failed",
+                ));
+                break;
+            }
+            let want = st.want;
+            let Some((end, text)) = st.ready.remove(&want) else {
+                st = changed.wait(st).unwrap_or_else(|p| p.into_inner());
+                continue;
+            };
+            st.want = end;
+            st.bytes -= text.len();
+            changed.notify_all();
+            drop(st);
+            result = write(&text);
+            st = lock();
+            if result.is_err() {
+                break;
+            }
+        }
+        st.stop = true;
+        changed.notify_all();
+        drop(st);
+        // A thread that panicked has said so through `failed`.
+        for h in handles {
+            let _ = h.join();
+        }
+        result
+    })
 }
 
 /// Runs `explain` over an extract (text, or typed rows). A history over
@@ -462,18 +725,122 @@ pub fn explain_stream<'a>(
     let sorted = hist.resolve(&windows);
     let hist = hist;
     let explainer = Explainer::new(&hist.plan, cfg, format)?;
-    let mut out = explainer.header();
-    explainer.explain(engine, &windows, &hist, &sorted, |_, records| {
-        out.extend_from_slice(records);
-        if out.len() > 1 << 20 {
-            output.write_all(&out).map_err(write_err)?;
-            out.clear();
-        }
-        Ok(())
-    })?;
+    output.write_all(&explainer.header()).map_err(write_err)?;
+    // On every core, the records written in input order as they are made.
+    let pace = Pace::new(
+        super::parallel::threads(cfg),
+        hist.episodes.len(),
+        cfg.memory,
+    );
+    explainer.explain(
+        engine,
+        &windows,
+        &hist,
+        &sorted,
+        pace,
+        |_, records, out| out.extend_from_slice(records),
+        |text| output.write_all(text).map_err(write_err),
+    )?;
     summary.units += hist.episodes.len() as u64;
     summary.rows_written = summary.units;
-    output.write_all(&out).map_err(write_err)?;
     output.flush().map_err(write_err)?;
     Ok(summary)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Episode `e`'s invented text: its number, then 0 to 3,999 bytes
+    /// (some episodes alone larger than a piece).
+    fn text_of(e: usize, out: &mut Vec<u8>) {
+        let len = (e.wrapping_mul(2_654_435_761) >> 7) % 4_000;
+        out.extend_from_slice(format!("{e}:").as_bytes());
+        out.extend((0..len).map(|i| b'a' + ((e + i) % 26) as u8));
+        out.push(b'\n');
+    }
+
+    fn run(n: usize, pace: Pace) -> (Vec<u8>, usize) {
+        let mut all = Vec::new();
+        let mut writes = 0;
+        in_order(
+            n,
+            pace,
+            |e, scratch, out| {
+                scratch.clear();
+                text_of(e, scratch);
+                out.extend_from_slice(scratch);
+            },
+            |text| {
+                all.extend_from_slice(text);
+                writes += 1;
+                Ok(())
+            },
+        )
+        .unwrap();
+        (all, writes)
+    }
+
+    #[test]
+    fn episodes_come_out_in_order_whatever_the_threads_and_pieces() {
+        for n in [0, 1, 2, 7, 300, 2_000] {
+            let mut want = Vec::new();
+            for e in 0..n {
+                text_of(e, &mut want);
+            }
+            for threads in [1, 2, 3, 8, 64] {
+                // Pieces and room ahead smaller than one episode, a few
+                // episodes, and the defaults.
+                for (claim, piece, ahead) in [(1, 1, 1), (3, 5_000, 12_000), (7, 64 << 10, 1 << 20)]
+                {
+                    let pace = Pace {
+                        threads,
+                        claim,
+                        piece,
+                        ahead,
+                    };
+                    let (got, writes) = run(n, pace);
+                    assert!(got == want, "{n} episodes, {pace:?}: out of order");
+                    if n > 1 && piece == 1 {
+                        assert_eq!(writes, n, "{n} episodes, {pace:?}: a piece per episode");
+                    }
+                }
+            }
+            for threads in [1, 2, 64] {
+                let (got, _) = run(n, Pace::new(threads, n, 0));
+                assert!(got == want, "{n} episodes, {threads} threads: out of order");
+            }
+        }
+    }
+
+    #[test]
+    fn a_failed_write_stops_every_thread_and_is_returned() {
+        for threads in [1, 2, 8] {
+            let pace = Pace {
+                threads,
+                claim: 2,
+                piece: 1,
+                ahead: 1,
+            };
+            let mut writes = 0;
+            let r = in_order(
+                1_000,
+                pace,
+                |e, _, out| text_of(e, out),
+                |_| {
+                    writes += 1;
+                    if writes == 3 {
+                        Err(Error::data(None, "the disk is full"))
+                    } else {
+                        Ok(())
+                    }
+                },
+            );
+            assert!(
+                r.is_err_and(|e| e.to_string().contains("the disk is full")),
+                "{threads} threads"
+            );
+            assert_eq!(writes, 3, "{threads} threads: written after the failure");
+        }
+    }
 }

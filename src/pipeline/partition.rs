@@ -48,7 +48,7 @@ use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicU64, AtomicUsize, Ordering};
 use std::sync::mpsc::sync_channel;
 
-use super::explain::Explainer;
+use super::explain::{Explainer, Pace};
 use super::history::{
     check_unreadable_dates, Builder, CodeRecord, DateRead, Formatter, RowIn, Windows,
 };
@@ -706,26 +706,25 @@ fn resolve_partition(
     let sorted = owned.resolve(windows);
     if let Lines::Explain(explainer) = output {
         // Each episode's records, with its row number, in the partition's
-        // order (increasing rows), to a file of the partition's own.
+        // order (increasing rows), to a file of the partition's own;
+        // formatted on `threads` threads, written in order.
         let (out_path, file) = match TempPath::create(dir, "explained") {
             Ok(f) => f,
             Err(e) => return Resolved::Failed(e),
         };
         let mut out = BufWriter::with_capacity(1 << 18, &file);
-        let mut head = Vec::new();
-        let (mut last, mut len) = (0u64, 0u64);
+        let mut len = 0u64;
         let hist = &owned;
+        let frame = |e: usize, records: &[u8], text: &mut Vec<u8>| {
+            let last = if e == 0 { 0 } else { hist.row(e - 1) };
+            put_varint(text, hist.row(e) - last);
+            put_bytes(text, records);
+        };
+        let pace = Pace::new(threads, n, cfg.memory);
         let done = explainer
-            .explain(engine, windows, hist, &sorted, |e, records| {
-                let row = hist.row(e);
-                head.clear();
-                put_varint(&mut head, row - last);
-                put_varint(&mut head, records.len() as u64);
-                last = row;
-                len += (head.len() + records.len()) as u64;
-                out.write_all(&head)
-                    .and_then(|()| out.write_all(records))
-                    .map_err(|e| out_path.error("write", e))
+            .explain(engine, windows, hist, &sorted, pace, frame, |text| {
+                len += text.len() as u64;
+                out.write_all(text).map_err(|e| out_path.error("write", e))
             })
             .and_then(|()| out.flush().map_err(|e| out_path.error("write", e)));
         drop(out);
