@@ -44,9 +44,6 @@ struct ParquetInput {
     source: Source,
     schema: SchemaRef,
     columns: Option<Vec<usize>>,
-    /// Where the run keeps the input's record batches for its output to
-    /// copy (a wide history run writing Parquet): set by the output.
-    retained: Option<parquet::Retained>,
 }
 
 /// An extract opened for a run.
@@ -95,7 +92,6 @@ impl Extract {
                     source,
                     schema,
                     columns,
-                    retained: None,
                 }),
             });
         }
@@ -149,24 +145,11 @@ impl Extract {
     pub fn take_input(&mut self) -> Result<Input<'static>, Error> {
         #[cfg(feature = "parquet")]
         if let Some(p) = &self.parquet {
-            let rows = match &p.retained {
-                // Every column, kept for the output; only the columns the
-                // run reads are read.
-                Some(r) => {
-                    let rows =
-                        parquet::ParquetRows::from_source(p.source.clone(), None, &self.name)?
-                            .retaining(r.clone());
-                    match &p.columns {
-                        Some(c) => rows.reading_only(c),
-                        None => rows,
-                    }
-                }
-                None => parquet::ParquetRows::from_source(
-                    p.source.clone(),
-                    p.columns.as_deref(),
-                    &self.name,
-                )?,
-            };
+            let rows = parquet::ParquetRows::from_source(
+                p.source.clone(),
+                p.columns.as_deref(),
+                &self.name,
+            )?;
             self.reader = Box::new(std::io::empty());
             return Ok(Input::Rows(Box::new(rows)));
         }
@@ -202,7 +185,7 @@ impl Extract {
     /// The output of a run writing `table` to `path` (`-` or `None`:
     /// standard output): text, or with `as_parquet` Parquet.
     pub fn open_output(
-        &mut self,
+        &self,
         path: Option<&Path>,
         as_parquet: bool,
         table: Table,
@@ -217,31 +200,20 @@ impl Extract {
 
     #[cfg(feature = "parquet")]
     fn parquet_output(
-        &mut self,
+        &self,
         path: Option<&Path>,
         table: Table,
         engine: &Engine,
         cfg: &ScoreConfig,
     ) -> Result<Output, Error> {
-        let input = self.parquet.as_mut();
-        let schema = input.as_ref().map(|p| p.schema.clone());
-        let schema = schema.as_deref();
+        let input = self.parquet.as_ref();
+        let schema = input.map(|p| p.schema.as_ref());
         // A wide score's rows are the input's rows: its columns are copied,
         // by the run itself when it is typed from end to end (no history),
         // else by the sink from the input file.
         let typed = input.is_some() && !crate::pipeline::reads_history(cfg);
         let copies = table == Table::Scores && cfg.layout == Layout::Wide && !typed;
-        // The input's record batches, kept as the history reads them
-        // (within half of --memory; the history itself keeps within the
-        // other half), so that the input is decoded once.
-        let copied = input.filter(|_| copies).map(|p| {
-            let retained = parquet::Retained::new((cfg.memory / 2) as usize);
-            p.retained = Some(retained.clone());
-            parquet::Passthrough {
-                source: p.source.clone(),
-                retained: Some(retained),
-            }
-        });
+        let copied = input.filter(|_| copies).map(|p| p.source.clone());
         let columns = match table {
             Table::Scores => {
                 if let Some(s) = schema.filter(|_| copies) {
@@ -257,7 +229,7 @@ impl Extract {
 
     #[cfg(not(feature = "parquet"))]
     fn parquet_output(
-        &mut self,
+        &self,
         _path: Option<&Path>,
         _table: Table,
         _engine: &Engine,

@@ -473,25 +473,15 @@ struct Background {
 }
 
 impl Background {
-    fn start(out: Box<dyn Write + Send>, passthrough: Option<Passthrough>) -> Background {
+    fn start(out: Box<dyn Write + Send>, passthrough: Option<Source>) -> Background {
         let (tx, rx) = std::sync::mpsc::sync_channel::<RecordBatch>(2);
         let abandoned = Arc::new(std::sync::atomic::AtomicBool::new(false));
         let stop = abandoned.clone();
         let thread = std::thread::spawn(move || -> Result<(), Error> {
-            // Opened at the first batch: by then a history run has read its
-            // whole input (and kept its record batches, if it could).
-            let mut passthrough = passthrough;
-            let mut copies: Option<PassthroughRows> = None;
-            let mut open = |copies: &mut Option<PassthroughRows>| -> Result<(), Error> {
-                if let Some(p) = passthrough.take() {
-                    *copies = Some(PassthroughRows::open(p)?);
-                }
-                Ok(())
-            };
+            let mut copies = passthrough.map(PassthroughRows::open).transpose()?;
             let mut out = Some(out);
             let mut writer: Option<ArrowWriter<Box<dyn Write + Send>>> = None;
             for batch in rx {
-                open(&mut copies)?;
                 let batch = match copies.as_mut() {
                     None => batch,
                     Some(p) => {
@@ -532,7 +522,6 @@ impl Background {
             if stop.load(std::sync::atomic::Ordering::SeqCst) {
                 return Ok(());
             }
-            open(&mut copies)?;
             if let Some(p) = copies.as_mut() {
                 if !p.exhausted() {
                     return Err(Error::data(
@@ -603,117 +592,20 @@ enum Builder {
     Kept(String, StringBuilder, Option<DataType>),
 }
 
-/// Where a wide output of a Parquet input takes the input's columns from:
-/// the record batches the run kept as it read them ([`Retained`]), or
-/// else the file, read a second time.
-pub struct Passthrough {
-    pub source: Source,
-    pub retained: Option<Retained>,
-}
-
-/// The record batches of a Parquet input kept as a run reads them, for
-/// its output to put in front of the scores (a wide history run writing
-/// Parquet), so that the input is decoded once rather than twice. Within a
-/// budget of bytes: past it, the batches kept are let go and the output
-/// reads the file again (the same rows, in the same order).
-#[derive(Clone)]
-pub struct Retained(Arc<std::sync::Mutex<RetainedState>>);
-
-struct RetainedState {
-    batches: VecDeque<RecordBatch>,
-    bytes: usize,
-    limit: usize,
-    /// Over the budget: nothing is kept any more.
-    given_up: bool,
-    /// The input was read to its end.
-    complete: bool,
-    /// The output took the batches.
-    taken: bool,
-}
-
-impl Retained {
-    /// Keeps at most `limit` bytes of record batches.
-    pub fn new(limit: usize) -> Retained {
-        Retained(Arc::new(std::sync::Mutex::new(RetainedState {
-            batches: VecDeque::new(),
-            bytes: 0,
-            limit,
-            given_up: false,
-            complete: false,
-            taken: false,
-        })))
-    }
-
-    fn state(&self) -> std::sync::MutexGuard<'_, RetainedState> {
-        self.0.lock().unwrap_or_else(|p| p.into_inner())
-    }
-
-    /// Keeps `batch` (the next of the input), unless over the budget.
-    fn keep(&self, batch: &RecordBatch) {
-        let mut s = self.state();
-        if s.given_up {
-            return;
-        }
-        s.bytes += batch.get_array_memory_size();
-        if s.bytes > s.limit {
-            s.given_up = true;
-            s.batches = VecDeque::new();
-        } else {
-            s.batches.push_back(batch.clone());
-        }
-    }
-
-    /// The input ended.
-    fn complete(&self) {
-        self.state().complete = true;
-    }
-
-    /// Every batch of the input, if all were kept and the input was read
-    /// to its end.
-    fn take(&self) -> Option<VecDeque<RecordBatch>> {
-        let mut s = self.state();
-        if s.given_up || !s.complete {
-            return None;
-        }
-        s.given_up = true;
-        s.taken = true;
-        Some(std::mem::take(&mut s.batches))
-    }
-
-    /// Whether the output took its input columns from the batches kept
-    /// (rather than reading the file again).
-    pub fn taken(&self) -> bool {
-        self.state().taken
-    }
-}
-
 /// The rows of a Parquet input, read alongside the output.
 struct PassthroughRows {
     source: Source,
-    /// The file, when its batches were not kept.
-    reader: Option<ParquetRecordBatchReader>,
+    reader: ParquetRecordBatchReader,
     schema: SchemaRef,
     queue: VecDeque<RecordBatch>,
     queued: usize,
 }
 
 impl PassthroughRows {
-    fn open(p: Passthrough) -> Result<Self, Error> {
-        let Passthrough { source, retained } = p;
+    fn open(source: Source) -> Result<Self, Error> {
         let builder = source.builder()?.with_batch_size(BATCH_ROWS);
         let schema = builder.schema().clone();
-        if let Some(queue) = retained.as_ref().and_then(Retained::take) {
-            let schema = queue.front().map_or(schema, |b| b.schema());
-            let queued = queue.iter().map(RecordBatch::num_rows).sum();
-            return Ok(PassthroughRows {
-                source,
-                reader: None,
-                schema,
-                queue,
-                queued,
-            });
-        }
-        let reader = Some(source.build(builder)?);
+        let reader = source.build(builder)?;
         Ok(PassthroughRows {
             source,
             reader,
@@ -723,17 +615,10 @@ impl PassthroughRows {
         })
     }
 
-    fn next_batch(&mut self) -> Result<Option<RecordBatch>, Error> {
-        match self.reader.as_mut() {
-            Some(r) => self.source.next_batch(r),
-            None => Ok(None),
-        }
-    }
-
     /// The next `n` rows of the input.
     fn take(&mut self, n: usize) -> Result<RecordBatch, Error> {
         while self.queued < n {
-            match self.next_batch()? {
+            match self.source.next_batch(&mut self.reader)? {
                 Some(b) => {
                     self.queued += b.num_rows();
                     self.queue.push_back(b);
@@ -768,7 +653,7 @@ impl PassthroughRows {
     }
 
     fn exhausted(&mut self) -> bool {
-        self.queued == 0 && matches!(self.next_batch(), Ok(None))
+        self.queued == 0 && matches!(self.source.next_batch(&mut self.reader), Ok(None))
     }
 }
 
@@ -782,21 +667,6 @@ impl ParquetSink {
         delimiter: u8,
         columns: OutputColumns,
         passthrough: Option<Source>,
-    ) -> ParquetSink {
-        let passthrough = passthrough.map(|source| Passthrough {
-            source,
-            retained: None,
-        });
-        ParquetSink::copying(out, delimiter, columns, passthrough)
-    }
-
-    /// [`ParquetSink::new`], copying the input's columns from `passthrough`
-    /// (batches kept by the run, or the file).
-    pub fn copying(
-        out: Box<dyn Write + Send>,
-        delimiter: u8,
-        columns: OutputColumns,
-        passthrough: Option<Passthrough>,
     ) -> ParquetSink {
         ParquetSink {
             copies: passthrough.is_some(),
@@ -1394,8 +1264,6 @@ pub struct ParquetRows {
     pub total_rows: u64,
     /// The input as named in messages.
     name: String,
-    /// Where the record batches are kept for the output, as they are read.
-    retained: Option<Retained>,
 }
 
 impl ParquetRows {
@@ -1433,15 +1301,7 @@ impl ParquetRows {
             used: None,
             total_rows,
             name: name.to_string(),
-            retained: None,
         })
-    }
-
-    /// Keeps every record batch read in `retained` (within its budget), for
-    /// the output to copy the input's columns from.
-    pub fn retaining(mut self, retained: Retained) -> ParquetRows {
-        self.retained = Some(retained);
-        self
     }
 
     /// Reads values of the columns `used` only (positions among the columns
@@ -1473,14 +1333,8 @@ impl crate::rows::RowSource<'static> for ParquetRows {
 
     fn next_batch(&mut self) -> Result<Option<Box<dyn crate::rows::Batch>>, Error> {
         let Some(batch) = self.source.next_batch(&mut self.batches)? else {
-            if let Some(r) = &self.retained {
-                r.complete();
-            }
             return Ok(None);
         };
-        if let Some(r) = &self.retained {
-            r.keep(&batch);
-        }
         // The decoder's arrays of a damaged file may upset their reading
         // too: the whole step is guarded.
         let (names, used) = (&self.names, self.used.as_deref());
@@ -2278,17 +2132,7 @@ mod tests {
     /// once, in order, with the input's own columns.
     #[test]
     fn copied_columns_line_up_across_uneven_batches() {
-        // The input's columns from the batches kept as the rows are read,
-        // from the file read again (no budget for them), and from the file
-        // with no batches kept at all.
-        for limit in [Some(usize::MAX), Some(0), None] {
-            copied_columns_line_up(limit);
-        }
-    }
-
-    fn copied_columns_line_up(limit: Option<usize>) {
-        let dir =
-            std::env::temp_dir().join(format!("morbus-pq-unit-{}-{limit:?}", std::process::id()));
+        let dir = std::env::temp_dir().join(format!("morbus-pq-unit-{}", std::process::id()));
         std::fs::create_dir_all(&dir).unwrap();
         let input = dir.join("in.parquet");
         let n = 370;
@@ -2319,15 +2163,11 @@ mod tests {
         let source = Source::File(input.clone());
         let out = dir.join("out.parquet");
         let columns = OutputColumns::scores(&engine, Some(&source.schema().unwrap()));
-        let retained = limit.map(Retained::new);
-        let mut sink = ParquetSink::copying(
+        let mut sink = ParquetSink::new(
             Box::new(File::create(&out).unwrap()),
             b',',
             columns,
-            Some(Passthrough {
-                source: source.clone(),
-                retained: retained.clone(),
-            }),
+            Some(source.clone()),
         )
         .with_group_rows(50);
         // The score columns only, as value records, as a history run over
@@ -2335,13 +2175,7 @@ mod tests {
         // front.
         use crate::rows::RowSource;
         use std::io::Write as _;
-        let mut rows = match &retained {
-            Some(r) => ParquetRows::from_source(source.clone(), None, "in")
-                .unwrap()
-                .reading_only(&[1])
-                .retaining(r.clone()),
-            None => ParquetRows::from_source(source.clone(), Some(&[1]), "in").unwrap(),
-        };
+        let mut rows = ParquetRows::from_source(source.clone(), Some(&[1]), "in").unwrap();
         let plan = crate::pipeline::plain::plan(&engine, &cfg, rows.header()).unwrap();
         let names: Vec<&str> = engine.columns().iter().map(|c| c.name.as_str()).collect();
         let mut head = Vec::new();
@@ -2353,7 +2187,6 @@ mod tests {
         }
         let mut summary = crate::pipeline::Summary::default();
         let mut first = 1;
-        let mut records = Vec::new();
         while let Some(b) = rows.next_batch().unwrap() {
             let mut values = Vec::new();
             let (s, err) = crate::pipeline::plain::score_wide(
@@ -2370,20 +2203,11 @@ mod tests {
                 let mut record = Vec::new();
                 value_records::put_text(&mut record, b"");
                 value_records::put_values(&mut record, v);
-                records.push(record);
+                sink.write_all(&record).unwrap();
             }
             first += b.len() as u64;
         }
-        // Written once the input is read, as a history run writes.
-        for record in records {
-            sink.write_all(&record).unwrap();
-        }
         sink.finish().unwrap();
-        assert_eq!(
-            retained.as_ref().is_some_and(Retained::taken),
-            limit == Some(usize::MAX),
-            "{limit:?}"
-        );
         assert_eq!(summary.rows_read, n as u64);
         assert_eq!(
             summary.invalid_codes,
