@@ -810,6 +810,33 @@ impl ParquetSink {
         Ok(())
     }
 
+    /// One step of the delimited-text reader over `input`: the fields read
+    /// are added to the record being read (across calls), its buffers grown
+    /// when full. Returns what stopped it and the bytes it took.
+    fn csv_step(&mut self, input: &[u8]) -> (csv_core::ReadRecordResult, usize) {
+        use csv_core::ReadRecordResult as R;
+        let (res, nin, nout, nend) = self.csv.read_record(
+            input,
+            &mut self.fields[self.nfield..],
+            &mut self.ends[self.nend..],
+        );
+        // Field ends count from the start of the record, across calls.
+        self.nfield += nout;
+        self.nend += nend;
+        match res {
+            R::OutputFull => {
+                let n = self.fields.len();
+                self.fields.resize(n * 2, 0);
+            }
+            R::OutputEndsFull => {
+                let n = self.ends.len();
+                self.ends.resize(n * 2, 0);
+            }
+            _ => {}
+        }
+        (res, nin)
+    }
+
     /// Reads `text` (one delimited record with no line end) into the
     /// fields of the record read last.
     fn read_text(&mut self, mut text: &[u8]) -> Result<(), Error> {
@@ -818,28 +845,15 @@ impl ParquetSink {
         self.nend = 0;
         let mut ended = false;
         loop {
-            let (res, nin, nout, nend) = self.csv.read_record(
-                text,
-                &mut self.fields[self.nfield..],
-                &mut self.ends[self.nend..],
-            );
-            text = &text[nin..];
-            self.nfield += nout;
-            self.nend += nend;
+            let (res, n) = self.csv_step(text);
+            text = &text[n..];
             match res {
                 R::InputEmpty if !ended => {
                     // The record's end.
                     text = b"\n";
                     ended = true;
                 }
-                R::OutputFull => {
-                    let n = self.fields.len();
-                    self.fields.resize(n * 2, 0);
-                }
-                R::OutputEndsFull => {
-                    let n = self.ends.len();
-                    self.ends.resize(n * 2, 0);
-                }
+                R::OutputFull | R::OutputEndsFull => {}
                 R::Record if ended && text.is_empty() => return Ok(()),
                 _ => return Err(self.internal("a row that is not one record")),
             }
@@ -944,31 +958,16 @@ impl ParquetSink {
     fn feed(&mut self, mut input: &[u8]) -> Result<(), Error> {
         use csv_core::ReadRecordResult as R;
         loop {
-            let (res, nin, nout, nend) = self.csv.read_record(
-                input,
-                &mut self.fields[self.nfield..],
-                &mut self.ends[self.nend..],
-            );
-            input = &input[nin..];
-            // Field ends count from the start of the record, across calls.
-            self.nfield += nout;
-            self.nend += nend;
+            let (res, n) = self.csv_step(input);
+            input = &input[n..];
             match res {
-                R::InputEmpty => return Ok(()),
-                R::OutputFull => {
-                    let n = self.fields.len();
-                    self.fields.resize(n * 2, 0);
-                }
-                R::OutputEndsFull => {
-                    let n = self.ends.len();
-                    self.ends.resize(n * 2, 0);
-                }
+                R::InputEmpty | R::End => return Ok(()),
+                R::OutputFull | R::OutputEndsFull => {}
                 R::Record => {
                     self.record()?;
                     self.nfield = 0;
                     self.nend = 0;
                 }
-                R::End => return Ok(()),
             }
         }
     }
