@@ -1139,28 +1139,24 @@ impl OutputColumns {
     /// The columns of `score`: the score columns typed, the kept columns of
     /// a Parquet `input` with their input types.
     pub fn scores(engine: &Engine, input: Option<&Schema>) -> OutputColumns {
-        let typed = engine
-            .columns()
+        let values = ValueColumns::of(engine);
+        let typed = values
+            .columns
             .iter()
-            .map(|c| {
-                let t = match c.kind {
-                    ColumnKind::Score { spec } | ColumnKind::ScoreWithAge { spec } => {
-                        if engine.decimals(spec) == 0 {
-                            ColumnType::Int64
-                        } else {
-                            ColumnType::Float64
-                        }
-                    }
-                    ColumnKind::Band { .. } => ColumnType::Text,
-                    ColumnKind::Flag { .. } => ColumnType::Int8,
+            .map(|(name, kind)| {
+                let t = match kind {
+                    ValueKind::Whole => ColumnType::Int64,
+                    ValueKind::Decimal { .. } => ColumnType::Float64,
+                    ValueKind::Band(_) => ColumnType::Text,
+                    ValueKind::Flag => ColumnType::Int8,
                 };
-                (c.name.clone(), t)
+                (name.clone(), t)
             })
             .collect();
         OutputColumns {
             typed,
             input_types: input_types(input),
-            values: Some(ValueColumns::of(engine)),
+            values: Some(values),
         }
     }
 
