@@ -703,7 +703,7 @@ fn resolve_partition(
             });
         }
     }
-    let sorted = owned.resolve(windows);
+    let sorted = owned.resolve(windows, threads);
     if let Lines::Explain(explainer) = output {
         // Each episode's records, with its row number, in the partition's
         // order (increasing rows), to a file of the partition's own;
