@@ -882,6 +882,7 @@ fn read_partition(
             },
             age: (age != u8::MAX).then_some(age as u32),
             pid,
+            pid_hash: None,
             ekey,
             kept_bytes: &rec,
             kept: &kept,
