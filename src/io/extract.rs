@@ -222,7 +222,7 @@ impl Extract {
                 }
                 parquet::OutputColumns::scores(engine, schema)
             }
-            Table::Explain => parquet::OutputColumns::explain(engine, schema),
+            Table::Explain => parquet::OutputColumns::explain(engine, cfg, schema),
         };
         super::files::open_parquet_output(path, cfg.delimiter, columns, copied)
     }
