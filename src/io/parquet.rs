@@ -76,7 +76,7 @@ use parquet::arrow::ProjectionMask;
 use parquet::basic::{Compression, ZstdLevel};
 use parquet::file::properties::WriterProperties;
 
-use super::row_groups::GroupWriter;
+use super::row_groups::{CopyWriter, GroupWriter};
 use super::value_records::{self, Cell};
 use super::write_field;
 use crate::lists::{SCALE, SCALE_DECIMALS};
@@ -136,13 +136,18 @@ pub enum Source {
 }
 
 impl Source {
-    fn builder(&self) -> Result<ParquetRecordBatchReaderBuilder<Chunks>, Error> {
-        let inner = match self {
+    /// The file's bytes, read as needed.
+    fn chunks(&self) -> Result<Chunks, Error> {
+        Ok(match self {
             Source::File(p) => Chunks::File(
                 File::open(p).map_err(|e| Error::io(format!("cannot open {}", p.display()), e))?,
             ),
             Source::Memory(b) => Chunks::Memory(b.clone()),
-        };
+        })
+    }
+
+    fn builder(&self) -> Result<ParquetRecordBatchReaderBuilder<Chunks>, Error> {
+        let inner = self.chunks()?;
         guarded(|| ParquetRecordBatchReaderBuilder::try_new(inner))
             .map_err(|m| self.damaged(&m))?
             .map_err(|e| self.error(e))
@@ -632,67 +637,59 @@ impl Background {
         let abandoned = Arc::new(std::sync::atomic::AtomicBool::new(false));
         let stop = abandoned.clone();
         let thread = std::thread::spawn(move || -> Result<(), Error> {
-            let mut copies = passthrough.map(PassthroughRows::open).transpose()?;
             let mut out = Some(out);
-            let mut writer: Option<GroupWriter<Box<dyn Write + Send>>> = None;
+            let mut passthrough = passthrough;
+            let mut writing: Option<Writing> = None;
             for batch in rx {
-                let batch = match copies.as_mut() {
-                    None => batch,
-                    Some(p) => {
-                        let copied = p.take(batch.num_rows())?;
-                        let mut fields: Vec<Field> = copied
-                            .schema()
-                            .fields()
-                            .iter()
-                            .map(|f| f.as_ref().clone())
-                            .collect();
-                        let mut arrays = copied.columns().to_vec();
-                        fields.extend(batch.schema().fields().iter().map(|f| f.as_ref().clone()));
-                        arrays.extend(batch.columns().iter().cloned());
-                        RecordBatch::try_new_with_options(
-                            Arc::new(Schema::new(fields)),
-                            arrays,
-                            &RecordBatchOptions::new().with_row_count(Some(batch.num_rows())),
-                        )
-                        .map_err(|e| Error::data(None, format!("internal error: {e}")))?
-                    }
-                };
-                if writer.is_none() {
-                    writer = Some(
-                        GroupWriter::try_new(
-                            out.take().expect("an output"),
-                            batch.schema(),
-                            writer_properties(),
-                            encoding,
-                        )
-                        .map_err(|e| Error::data(None, format!("cannot write Parquet: {e}")))?,
-                    );
+                if writing.is_none() {
+                    let out = out.take().expect("an output");
+                    writing = Some(Writing::open(
+                        out,
+                        passthrough.take(),
+                        batch.schema(),
+                        encoding,
+                    )?);
                 }
-                writer
-                    .as_mut()
-                    .expect("a writer")
-                    .write(batch)
-                    .map_err(parquet_write_error)?;
+                match writing.as_mut().expect("a writer") {
+                    Writing::Copied(w, _) => w.write(batch).map_err(parquet_write_error)?,
+                    Writing::Encoded(w, copies) => {
+                        let batch = match copies.as_mut() {
+                            None => batch,
+                            Some(p) => p.in_front(batch)?,
+                        };
+                        w.write(batch).map_err(parquet_write_error)?
+                    }
+                }
             }
             if stop.load(std::sync::atomic::Ordering::SeqCst) {
                 return Ok(());
             }
-            if let Some(p) = copies.as_mut() {
-                if !p.exhausted() {
-                    return Err(Error::data(
-                        None,
-                        format!(
-                            "internal error: the output has fewer rows than {}",
-                            p.source.name()
-                        ),
-                    ));
+            let out = match writing {
+                None => return Ok(()),
+                Some(Writing::Copied(w, source)) => w.finish().map_err(|e| match e {
+                    parquet::errors::ParquetError::General(m) => {
+                        Error::data(None, format!("internal error: {m} ({})", source.name()))
+                    }
+                    e => parquet_write_error(e),
+                })?,
+                Some(Writing::Encoded(w, mut copies)) => {
+                    if let Some(p) = copies.as_mut() {
+                        if !p.exhausted() {
+                            return Err(Error::data(
+                                None,
+                                format!(
+                                    "internal error: the output has fewer rows than {}",
+                                    p.source.name()
+                                ),
+                            ));
+                        }
+                    }
+                    w.finish().map_err(parquet_write_error)?
                 }
-            }
-            if let Some(w) = writer {
-                let mut out = w.finish().map_err(parquet_write_error)?;
-                out.flush()
-                    .map_err(|e| Error::io("cannot write the Parquet output", e))?;
-            }
+            };
+            let mut out = out;
+            out.flush()
+                .map_err(|e| Error::io("cannot write the Parquet output", e))?;
             Ok(())
         });
         Background {
@@ -731,6 +728,64 @@ impl Background {
     }
 }
 
+/// How the background thread writes the file.
+enum Writing {
+    /// Every column encoded; the input's columns, when copied, decoded from
+    /// the input first ([`PassthroughRows`]).
+    Encoded(GroupWriter<Box<dyn Write + Send>>, Option<PassthroughRows>),
+    /// The input's columns copied into the file as they are encoded in the
+    /// input, row group for row group; only the score columns are encoded.
+    Copied(CopyWriter<Box<dyn Write + Send>, Chunks>, Source),
+}
+
+impl Writing {
+    /// The writer of a file whose columns are those of `batches` (the
+    /// pipeline's), after those of `passthrough` when there is one. A
+    /// Parquet input's columns are copied as encoded when its Parquet types
+    /// are the ones they would be written with; else decoded and encoded.
+    fn open(
+        out: Box<dyn Write + Send>,
+        passthrough: Option<Source>,
+        batches: SchemaRef,
+        encoding: (usize, usize),
+    ) -> Result<Writing, Error> {
+        let cannot = |e| Error::data(None, format!("cannot write Parquet: {e}"));
+        let Some(source) = passthrough else {
+            let w = GroupWriter::try_new(out, batches, writer_properties(), encoding)
+                .map_err(cannot)?;
+            return Ok(Writing::Encoded(w, None));
+        };
+        let builder = source.builder()?;
+        let input = (
+            source.chunks()?,
+            builder.metadata().clone(),
+            builder.schema().as_ref(),
+        );
+        let out = match CopyWriter::try_new(out, input, batches.clone(), writer_properties())
+            .map_err(cannot)?
+        {
+            Ok(w) => return Ok(Writing::Copied(w, source)),
+            Err(out) => out,
+        };
+        let copies = PassthroughRows::new(source, builder)?;
+        let mut fields: Vec<Field> = copies
+            .schema
+            .fields()
+            .iter()
+            .map(|f| f.as_ref().clone())
+            .collect();
+        fields.extend(batches.fields().iter().map(|f| f.as_ref().clone()));
+        let w = GroupWriter::try_new(
+            out,
+            Arc::new(Schema::new(fields)),
+            writer_properties(),
+            encoding,
+        )
+        .map_err(cannot)?;
+        Ok(Writing::Encoded(w, Some(copies)))
+    }
+}
+
 struct Header {
     /// Per pass-through column (a kept column: text, cast to the input's
     /// type when exact): its name, builder and input type, or `None` when
@@ -748,8 +803,11 @@ struct PassthroughRows {
 }
 
 impl PassthroughRows {
-    fn open(source: Source) -> Result<Self, Error> {
-        let builder = source.builder()?.with_batch_size(BATCH_ROWS);
+    fn new(
+        source: Source,
+        builder: ParquetRecordBatchReaderBuilder<Chunks>,
+    ) -> Result<Self, Error> {
+        let builder = builder.with_batch_size(BATCH_ROWS);
         let schema = builder.schema().clone();
         let reader = source.build(builder)?;
         Ok(PassthroughRows {
@@ -759,6 +817,26 @@ impl PassthroughRows {
             queue: VecDeque::new(),
             queued: 0,
         })
+    }
+
+    /// `batch` with the input's next rows' columns in front of its own.
+    fn in_front(&mut self, batch: RecordBatch) -> Result<RecordBatch, Error> {
+        let copied = self.take(batch.num_rows())?;
+        let mut fields: Vec<Field> = copied
+            .schema()
+            .fields()
+            .iter()
+            .map(|f| f.as_ref().clone())
+            .collect();
+        let mut arrays = copied.columns().to_vec();
+        fields.extend(batch.schema().fields().iter().map(|f| f.as_ref().clone()));
+        arrays.extend(batch.columns().iter().cloned());
+        RecordBatch::try_new_with_options(
+            Arc::new(Schema::new(fields)),
+            arrays,
+            &RecordBatchOptions::new().with_row_count(Some(batch.num_rows())),
+        )
+        .map_err(|e| Error::data(None, format!("internal error: {e}")))
     }
 
     /// The next `n` rows of the input.
@@ -2164,9 +2242,78 @@ mod tests {
     /// A wide score of a Parquet input whose row groups (37 rows) do not
     /// line up with the output's batches (50 rows): every row comes out
     /// once, in order, with the input's own columns.
+    /// Nanoseconds of row `i`'s INT96 stamp in [`write_with_int96`].
+    fn stamp_nanos(i: usize) -> i64 {
+        // Julian day 2,440,588 is 1970-01-01.
+        i as i64 * 86_400_000_000_000 + i as i64
+    }
+
+    /// `batch` (an Int64 id and a text dx1) and a third column of INT96
+    /// stamps, in row groups of `group` rows, written with the low-level
+    /// writer (the Arrow writer does not write INT96).
+    fn write_with_int96(path: &std::path::Path, batch: &RecordBatch, group: usize) {
+        use parquet::data_type::{ByteArray, ByteArrayType, Int64Type, Int96, Int96Type};
+        use parquet::file::writer::SerializedFileWriter;
+        let schema = parquet::schema::parser::parse_message_type(
+            "message schema { REQUIRED INT64 id; REQUIRED BYTE_ARRAY dx1 (UTF8); REQUIRED INT96 stamp; }",
+        )
+        .unwrap();
+        let mut w = SerializedFileWriter::new(
+            File::create(path).unwrap(),
+            Arc::new(schema),
+            Default::default(),
+        )
+        .unwrap();
+        let ids = batch
+            .column(0)
+            .as_primitive::<arrow_array::types::Int64Type>();
+        let dx = batch.column(1).as_string::<i32>();
+        let n = batch.num_rows();
+        for from in (0..n).step_by(group) {
+            let rows = from..(from + group).min(n);
+            let mut g = w.next_row_group().unwrap();
+            let mut c = g.next_column().unwrap().unwrap();
+            let v: Vec<i64> = rows.clone().map(|i| ids.value(i)).collect();
+            c.typed::<Int64Type>().write_batch(&v, None, None).unwrap();
+            c.close().unwrap();
+            let mut c = g.next_column().unwrap().unwrap();
+            let v: Vec<ByteArray> = rows.clone().map(|i| ByteArray::from(dx.value(i))).collect();
+            c.typed::<ByteArrayType>()
+                .write_batch(&v, None, None)
+                .unwrap();
+            c.close().unwrap();
+            let mut c = g.next_column().unwrap().unwrap();
+            let v: Vec<Int96> = rows
+                .map(|i| {
+                    // Nanoseconds of the day (low 8 bytes), Julian day (high 4).
+                    let mut x = Int96::new();
+                    let nanos = i as u64;
+                    x.set_data(nanos as u32, (nanos >> 32) as u32, 2_440_588 + i as u32);
+                    x
+                })
+                .collect();
+            c.typed::<Int96Type>().write_batch(&v, None, None).unwrap();
+            c.close().unwrap();
+            g.close().unwrap();
+        }
+        w.close().unwrap();
+    }
+
     #[test]
     fn copied_columns_line_up_across_uneven_batches() {
-        let dir = std::env::temp_dir().join(format!("morbus-pq-unit-{}", std::process::id()));
+        // An input whose columns are copied as encoded, and one holding a
+        // column type that is written otherwise than read (INT96 stamps
+        // read as timestamps), whose columns are decoded and encoded again.
+        for copied_as_encoded in [true, false] {
+            copied_columns_line_up(copied_as_encoded);
+        }
+    }
+
+    fn copied_columns_line_up(copied_as_encoded: bool) {
+        let dir = std::env::temp_dir().join(format!(
+            "morbus-pq-unit-{}-{copied_as_encoded}",
+            std::process::id()
+        ));
         std::fs::create_dir_all(&dir).unwrap();
         let input = dir.join("in.parquet");
         let n = 370;
@@ -2178,14 +2325,18 @@ mod tests {
             ("dx1", Arc::new(dx) as ArrayRef),
         ])
         .unwrap();
-        let props = WriterProperties::builder()
-            .set_max_row_group_row_count(Some(37))
-            .build();
-        let mut w =
-            ArrowWriter::try_new(File::create(&input).unwrap(), batch.schema(), Some(props))
-                .unwrap();
-        w.write(&batch).unwrap();
-        w.close().unwrap();
+        if copied_as_encoded {
+            let props = WriterProperties::builder()
+                .set_max_row_group_row_count(Some(37))
+                .build();
+            let mut w =
+                ArrowWriter::try_new(File::create(&input).unwrap(), batch.schema(), Some(props))
+                    .unwrap();
+            w.write(&batch).unwrap();
+            w.close().unwrap();
+        } else {
+            write_with_int96(&input, &batch, 37);
+        }
 
         let specs = IndexSpec::parse_many("charlson").unwrap();
         let engine = Engine::new(&Catalogue::builtin(), &specs, ScoreOptions::default()).unwrap();
@@ -2254,9 +2405,39 @@ mod tests {
         assert_eq!(got.num_rows(), n);
         assert_eq!(got.column(0).as_ref(), batch.column(0).as_ref());
         assert_eq!(got.column(1).as_ref(), batch.column(1).as_ref());
+        let groups = |p: &std::path::Path| -> Vec<(i64, Vec<i64>)> {
+            let b = ParquetRecordBatchReaderBuilder::try_new(File::open(p).unwrap()).unwrap();
+            let m = b.metadata();
+            m.row_groups()
+                .iter()
+                .map(|g| {
+                    (
+                        g.num_rows(),
+                        g.columns().iter().map(|c| c.compressed_size()).collect(),
+                    )
+                })
+                .collect()
+        };
+        let (theirs, ours) = (groups(&input), groups(&out));
+        let copied = if copied_as_encoded { 2 } else { 3 };
+        if copied_as_encoded {
+            // The input's row groups, its column chunks as they were.
+            assert_eq!(ours.len(), theirs.len());
+            for (o, t) in ours.iter().zip(&theirs) {
+                assert_eq!(o.0, t.0);
+                assert_eq!(o.1[..copied], t.1[..]);
+            }
+        } else {
+            // Encoded again: row groups of the output's own size.
+            assert_eq!(ours.iter().map(|g| g.0).collect::<Vec<_>>(), [n as i64]);
+            let stamps = got
+                .column(2)
+                .as_primitive::<arrow_array::types::TimestampNanosecondType>();
+            assert!((0..n).all(|i| stamps.value(i) == stamp_nanos(i)));
+        }
         // Each row's score follows its own code: the same code, the same score.
         let scores = got
-            .column(2)
+            .column(copied)
             .as_primitive::<arrow_array::types::Int64Type>();
         for i in codes.len()..n {
             assert_eq!(scores.value(i), scores.value(i % codes.len()), "row {i}");

@@ -838,7 +838,7 @@ pub fn explain_stream<'a>(
                 return Ok(summary);
             }
         };
-    let sorted = hist.resolve(&windows);
+    let sorted = hist.resolve(&windows, super::parallel::threads(cfg));
     let hist = hist;
     let explainer = Explainer::new(&hist.plan, cfg, format)?;
     output.write_all(&explainer.header()).map_err(write_err)?;

@@ -33,6 +33,7 @@ pub use dates::DateFormat;
 pub use explain::explain_stream;
 #[cfg(feature = "parquet")]
 pub(crate) use parallel::run_batches as run_typed_batches;
+pub(crate) use parallel::threads;
 
 /// How the extract is laid out.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
