@@ -495,4 +495,55 @@ mod tests {
         let bytes = out.lock().expect("lock").clone();
         assert!(ParquetRecordBatchReaderBuilder::try_new(Bytes::from(bytes)).is_err());
     }
+
+    #[test]
+    fn copied_row_groups_take_exactly_the_inputs_rows() {
+        let schema: SchemaRef = Arc::new(Schema::new(vec![
+            Field::new("episode", DataType::Int64, true),
+            Field::new("code", DataType::Utf8, true),
+        ]));
+        let props = || {
+            WriterProperties::builder()
+                .set_max_row_group_row_count(Some(7))
+                .build()
+        };
+        let input = Bytes::from(reference(&schema, &[batch(&schema, 0, 30)], props()));
+        let builder = ParquetRecordBatchReaderBuilder::try_new(input.clone()).expect("a file");
+        let meta = builder.metadata().clone();
+        let added: SchemaRef = Arc::new(Schema::new(vec![Field::new(
+            "points",
+            DataType::Int64,
+            true,
+        )]));
+        let points = |from: i64, n: usize| {
+            let a: ArrayRef = Arc::new(Int64Array::from_iter_values(from..from + n as i64));
+            RecordBatch::try_new(added.clone(), vec![a]).expect("a batch")
+        };
+        let writer = || {
+            let input = (input.clone(), meta.clone(), builder.schema().as_ref());
+            match CopyWriter::try_new(Vec::new(), input, added.clone(), props()) {
+                Ok(Ok(w)) => w,
+                _ => panic!("the input's columns can be copied"),
+            }
+        };
+        // The rows in uneven pieces: the input's row groups, its columns
+        // and the added one.
+        let mut w = writer();
+        for (from, n) in [(0, 3), (3, 11), (14, 0), (14, 16)] {
+            w.write(points(from, n)).expect("write");
+        }
+        let (groups, rows) = read(w.finish().expect("footer"));
+        assert_eq!(groups, [7, 7, 7, 7, 2]);
+        let rows = arrow_select::concat::concat_batches(&rows[0].schema(), &rows).expect("rows");
+        let theirs = batch(&schema, 0, 30);
+        assert_eq!(rows.column(0), theirs.column(0));
+        assert_eq!(rows.column(1), theirs.column(1));
+        assert_eq!(rows.column(2), points(0, 30).column(0));
+        // Fewer rows than the input's, or more: an error, not a file.
+        let mut w = writer();
+        w.write(points(0, 29)).expect("write");
+        assert!(w.finish().is_err());
+        let mut w = writer();
+        assert!(w.write(points(0, 31)).is_err());
+    }
 }
