@@ -39,7 +39,7 @@
 //! reader
 //!     .feed(&bytes, |r| {
 //!         seen.push(match r {
-//!             Record::Header(t) => (t.to_vec(), None),
+//!             Record::Header(t) | Record::KeysHeader(t) => (t.to_vec(), None),
 //!             Record::Row(t, v) => (t.to_vec(), Some(v.to_vec())),
 //!         });
 //!         Ok(())
@@ -67,9 +67,43 @@ pub fn put_varint(out: &mut Vec<u8>, mut x: u64) {
     out.push(x as u8);
 }
 
+/// The first bytes of a value-record stream whose pass-through parts are
+/// typed values (a typed source's ids, episode values and kept values, see
+/// [`put_key`]) instead of delimited text.
+pub const MAGIC_KEYS: &[u8] = b"\0morbus value records K\0";
+
 /// Opens a stream: [`MAGIC`].
 pub fn start(out: &mut Vec<u8>) {
     out.extend_from_slice(MAGIC);
+}
+
+/// Opens a stream whose rows' pass-through parts are keys ([`put_key`]):
+/// [`MAGIC_KEYS`]. The header record stays delimited text (the names).
+pub fn start_keys(out: &mut Vec<u8>) {
+    out.extend_from_slice(MAGIC_KEYS);
+}
+
+/// Appends one field of a typed pass-through part: the value's key
+/// ([`crate::rows::Field::value_into`]; empty for a missing value), as a
+/// length and its bytes. A row's part is its fields in order.
+#[inline]
+pub fn put_key(out: &mut Vec<u8>, key: &[u8]) {
+    put_varint(out, key.len() as u64);
+    out.extend_from_slice(key);
+}
+
+/// The keys of a typed pass-through part ([`put_key`]), in order; `None`
+/// when the part is not a sequence of keys.
+pub fn keys(mut part: &[u8]) -> Option<Vec<&[u8]>> {
+    let mut out = Vec::new();
+    while !part.is_empty() {
+        let mut at = 0;
+        let n = varint(part, &mut at).ok()?;
+        let key = take(part, &mut at, usize::try_from(n).ok()?).ok()?;
+        out.push(key);
+        part = &part[at..];
+    }
+    Some(out)
 }
 
 /// Appends a row's (or the header's) pass-through part: its length, then
@@ -106,6 +140,9 @@ pub fn put_values(out: &mut Vec<u8>, values: &[Value]) {
 /// (they are the column's): they read back as 0.
 pub enum Record<'a> {
     Header(&'a [u8]),
+    /// The header of a stream whose rows' pass-through parts are keys
+    /// ([`start_keys`]).
+    KeysHeader(&'a [u8]),
     Row(&'a [u8], &'a [Value]),
 }
 
@@ -120,6 +157,8 @@ pub struct Reader {
     at: usize,
     /// Whether the magic and the header have been read.
     magic: bool,
+    /// Whether the stream opened with [`MAGIC_KEYS`].
+    keys: bool,
     header: bool,
     values: Vec<Value>,
 }
@@ -168,6 +207,7 @@ impl Reader {
             pending: Vec::new(),
             at: 0,
             magic: false,
+            keys: false,
             header: false,
             values: Vec::with_capacity(width),
         }
@@ -182,16 +222,17 @@ impl Reader {
     ) -> Result<(), Error> {
         self.pending.extend_from_slice(input);
         if !self.magic {
-            if self.pending.len() < MAGIC.len() {
-                return if MAGIC.starts_with(&self.pending) {
-                    Ok(())
-                } else {
-                    Err(damaged("it does not open as value records"))
-                };
-            }
-            if !self.pending.starts_with(MAGIC) {
+            let opens = |m: &[u8]| {
+                let n = self.pending.len().min(m.len());
+                self.pending[..n] == m[..n]
+            };
+            if !opens(MAGIC) && !opens(MAGIC_KEYS) {
                 return Err(damaged("it does not open as value records"));
             }
+            if self.pending.len() < MAGIC.len() {
+                return Ok(());
+            }
+            self.keys = self.pending.starts_with(MAGIC_KEYS);
             self.magic = true;
             self.at = MAGIC.len();
         }
@@ -206,7 +247,11 @@ impl Reader {
             if !self.header {
                 self.header = true;
                 self.at = at;
-                each(Record::Header(text))?;
+                each(if self.keys {
+                    Record::KeysHeader(text)
+                } else {
+                    Record::Header(text)
+                })?;
                 continue;
             }
             self.values.clear();
@@ -257,6 +302,12 @@ impl Reader {
             self.at = 0;
         }
         Ok(())
+    }
+
+    /// Whether the rows' pass-through parts are keys ([`start_keys`]);
+    /// known once the stream's opening is read.
+    pub fn keys(&self) -> bool {
+        self.keys
     }
 
     /// Whether the stream ended between records (after its header).
@@ -334,7 +385,7 @@ mod tests {
         for p in pieces {
             r.feed(p, |rec| {
                 match rec {
-                    Record::Header(t) => head = t.to_vec(),
+                    Record::Header(t) | Record::KeysHeader(t) => head = t.to_vec(),
                     Record::Row(t, v) => got.push((t.to_vec(), v.to_vec())),
                 }
                 Ok(())

@@ -461,14 +461,16 @@ impl Explainer {
             self.cell(&mut prefix, first, &String::from_utf8_lossy(v));
             first += 1;
         };
+        // A typed source's values as a delimited extract would hold them.
+        let k = hist.plan.keys;
         if self.id {
-            own(hist.patient_id(ep.patient));
+            own(&k.text(hist.patient_id(ep.patient)));
         }
         if self.episode {
-            own(hist.key(e));
+            own(&k.text(hist.key(e)));
         }
         for j in 0..self.nkeep {
-            own(hist.kept(e, j));
+            own(&k.text(hist.kept(e, j)));
         }
         own(hist.row(e).to_string().as_bytes());
         let (mut text, mut number) = (String::new(), Vec::new());

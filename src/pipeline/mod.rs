@@ -1081,6 +1081,10 @@ pub(crate) struct Plan {
     pub values: Vec<usize>,
     pub ncols: usize,
     pub crlf: bool,
+    /// How ids, episode values and kept values are held: the bytes of a
+    /// delimited record's fields, or keys of typed values (a frame or an
+    /// Arrow source; set by the history reader).
+    pub keys: crate::rows::Keys,
 }
 
 /// A record-level failure, turned into an [`Error`] with the line number by
@@ -1224,6 +1228,7 @@ impl Plan {
             keep,
             values: Vec::new(),
             crlf,
+            keys: crate::rows::Keys::Text,
         })
     }
 
@@ -1644,13 +1649,23 @@ pub(crate) fn end_row(
 
 /// Ends the output's header line, `out[start..]` (its names, delimited): as
 /// text, the line end; as value records, the stream's opening and the
-/// names' length in front of them.
-pub(crate) fn end_header(form: OutputForm, eol: &[u8], out: &mut Vec<u8>, start: usize) {
+/// names' length in front of them (the opening saying whether the rows'
+/// pass-through parts are text or, `keys` typed, keys).
+pub(crate) fn end_header(
+    form: OutputForm,
+    eol: &[u8],
+    out: &mut Vec<u8>,
+    start: usize,
+    keys: crate::rows::Keys,
+) {
     match form {
         OutputForm::Text => out.extend_from_slice(eol),
         OutputForm::ValueRecords => {
             let mut head = Vec::with_capacity(crate::io::value_records::MAGIC.len() + 4);
-            crate::io::value_records::start(&mut head);
+            match keys {
+                crate::rows::Keys::Text => crate::io::value_records::start(&mut head),
+                crate::rows::Keys::Typed => crate::io::value_records::start_keys(&mut head),
+            }
             crate::io::value_records::put_varint(&mut head, (out.len() - start) as u64);
             out.splice(start..start, head);
         }
