@@ -1284,7 +1284,7 @@ impl Plan {
         cfg.exclude_primary
             && self
                 .primary
-                .is_some_and(|c| is_flag_set(&row.field(c).text_or_empty()))
+                .is_some_and(|c| is_field_flag_set(row.field(c)))
     }
 
     /// The present-on-admission exclusion of the codes of diagnosis column
@@ -1578,6 +1578,18 @@ pub fn is_flag_set(raw: &[u8]) -> bool {
         .any(|f| f.as_bytes().eq_ignore_ascii_case(v))
 }
 
+/// [`is_flag_set`] for a value of any row: text as it is; a typed value
+/// as `is_flag_set` reads its text (`1`, `true`), without making it.
+pub(crate) fn is_field_flag_set(f: Field<'_>) -> bool {
+    match f {
+        Field::Text(t) => is_flag_set(t),
+        Field::Integer(i) => i == 1,
+        Field::Number(x) => x == 1.0,
+        Field::Logical(b) => b,
+        Field::Null | Field::Date(_) => false,
+    }
+}
+
 /// Keeps the first readable value of a long-layout unit (its date or age)
 /// in `slot`; returns `(first, new)` when `new` is readable and differs
 /// from it (the row disagrees with the unit).
@@ -1731,6 +1743,33 @@ pub fn reads_history(cfg: &ScoreConfig) -> bool {
 mod tests {
     use super::*;
     use crate::io::RecordScanner;
+
+    #[test]
+    fn a_typed_flag_reads_as_its_text_would() {
+        let fields = [
+            Field::Null,
+            Field::Integer(1),
+            Field::Integer(0),
+            Field::Integer(-1),
+            Field::Integer(11),
+            Field::Number(1.0),
+            Field::Number(1.5),
+            Field::Number(0.0),
+            Field::Number(f64::NAN),
+            Field::Number(1.0 + f64::EPSILON),
+            Field::Logical(true),
+            Field::Logical(false),
+            Field::Date(1),
+            Field::Date(0),
+        ];
+        for f in fields {
+            assert_eq!(
+                is_field_flag_set(f),
+                is_flag_set(&f.text_or_empty()),
+                "{f:?}"
+            );
+        }
+    }
 
     #[test]
     fn the_line_cursor_agrees_with_counting_from_the_start() {
