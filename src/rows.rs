@@ -77,6 +77,7 @@ impl<'a> Field<'a> {
     /// assert_eq!(Field::Date(0).text().unwrap().as_ref(), b"1970-01-01");
     /// assert_eq!(Field::Number(f64::NAN).text(), None);
     /// ```
+    #[inline]
     pub fn text(self) -> Option<Cow<'a, [u8]>> {
         match self {
             Field::Null => None,
@@ -118,6 +119,7 @@ impl<'a> Field<'a> {
     }
 
     /// [`Field::text`], empty for a missing value.
+    #[inline]
     pub fn text_or_empty(self) -> Cow<'a, [u8]> {
         self.text().unwrap_or(Cow::Borrowed(b""))
     }

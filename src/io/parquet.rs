@@ -925,19 +925,30 @@ impl ParquetSink {
                 self.start(names[..self.text_columns].to_vec());
                 Ok(())
             }
-            value_records::Record::Row(text, values) if self.keys => {
-                let fields = value_records::keys(text)
-                    .filter(|f| f.len() == self.text_columns)
-                    .ok_or_else(|| self.internal("typed values of another width"))?;
+            value_records::Record::Row(mut text, values) if self.keys => {
+                let width = || {
+                    Error::data(
+                        None,
+                        "internal error: the output held typed values of another width",
+                    )
+                };
                 let Some(header) = self.header.as_mut() else {
                     return Err(self.internal("a row before its header"));
                 };
-                for (b, key) in header.builders.iter_mut().zip(fields) {
+                let mut other = false;
+                for b in header.builders.iter_mut() {
+                    let key = value_records::next_key(&mut text).ok_or_else(width)?;
                     match b {
                         Some(Builder::Keys(_, column, _)) => column.push(key),
                         None => {}
-                        Some(_) => return Err(self.internal("typed values for a score column")),
+                        Some(_) => other = true,
                     }
+                }
+                if other {
+                    return Err(self.internal("typed values for a score column"));
+                }
+                if !text.is_empty() {
+                    return Err(width());
                 }
                 self.values.extend_from_slice(values);
                 self.end_row()

@@ -92,18 +92,14 @@ pub fn put_key(out: &mut Vec<u8>, key: &[u8]) {
     out.extend_from_slice(key);
 }
 
-/// The keys of a typed pass-through part ([`put_key`]), in order; `None`
-/// when the part is not a sequence of keys.
-pub fn keys(mut part: &[u8]) -> Option<Vec<&[u8]>> {
-    let mut out = Vec::new();
-    while !part.is_empty() {
-        let mut at = 0;
-        let n = varint(part, &mut at).ok()?;
-        let key = take(part, &mut at, usize::try_from(n).ok()?).ok()?;
-        out.push(key);
-        part = &part[at..];
-    }
-    Some(out)
+/// The next key of a typed pass-through part ([`put_key`]), taken off its
+/// front; `None` when the part is not a sequence of keys.
+pub fn next_key<'a>(part: &mut &'a [u8]) -> Option<&'a [u8]> {
+    let mut at = 0;
+    let n = varint(part, &mut at).ok()?;
+    let key = take(part, &mut at, usize::try_from(n).ok()?).ok()?;
+    *part = &part[at..];
+    Some(key)
 }
 
 /// Appends a row's (or the header's) pass-through part: its length, then
@@ -410,6 +406,51 @@ mod tests {
         assert_eq!(read(&bytes).1, rows());
         // A stream cut short is not complete.
         assert!(!read(&[&b[..b.len() - 1]]).2);
+    }
+
+    #[test]
+    fn typed_parts_give_their_keys_back() {
+        let keys: [&[u8]; 4] = [
+            b"",
+            b"I\x00\x00\x00\x00\x00\x00\x00\x07",
+            &[b'T'; 200],
+            b"F",
+        ];
+        let mut part = Vec::new();
+        for k in keys {
+            put_key(&mut part, k);
+        }
+        let mut rest = &part[..];
+        for k in keys {
+            assert_eq!(next_key(&mut rest), Some(k));
+        }
+        assert!(rest.is_empty());
+        // A part cut inside a key is not a sequence of keys.
+        let mut cut = &part[..part.len() - 1];
+        let mut n = 0;
+        while next_key(&mut cut).is_some() {
+            n += 1;
+        }
+        assert_eq!(n, 3);
+        // A stream of keys reads back as such, its header marked.
+        let mut b = Vec::new();
+        start_keys(&mut b);
+        put_text(&mut b, b"id,s");
+        put_text(&mut b, &part);
+        put_values(&mut b, &[Value::Flag(true)]);
+        let mut r = Reader::new(1);
+        let mut seen = Vec::new();
+        r.feed(&b, |rec| {
+            seen.push(match rec {
+                Record::KeysHeader(t) => t.to_vec(),
+                Record::Header(_) => panic!("a text header"),
+                Record::Row(t, _) => t.to_vec(),
+            });
+            Ok(())
+        })
+        .unwrap();
+        assert!(r.keys() && r.complete());
+        assert_eq!(seen, vec![b"id,s".to_vec(), part]);
     }
 
     #[test]
