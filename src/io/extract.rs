@@ -224,7 +224,13 @@ impl Extract {
             }
             Table::Explain => parquet::OutputColumns::explain(engine, schema),
         };
-        super::files::open_parquet_output(path, cfg.delimiter, columns, copied)
+        // Row groups are encoded on every core, their rows within an eighth
+        // of --memory.
+        let encoding = (
+            crate::pipeline::parallel::threads(cfg),
+            (cfg.memory / 8) as usize,
+        );
+        super::files::open_parquet_output(path, cfg.delimiter, columns, copied, encoding)
     }
 
     #[cfg(not(feature = "parquet"))]

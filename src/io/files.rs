@@ -261,16 +261,20 @@ pub fn open_output(path: Option<&Path>) -> Result<Output, Error> {
 
 /// Opens a Parquet output (`-` or `None`: standard output) for delimited
 /// text with `delimiter` and the columns `columns`; `passthrough` copies
-/// the columns of a Parquet input (see [`crate::io::parquet::ParquetSink`]).
+/// the columns of a Parquet input (see [`crate::io::parquet::ParquetSink`]);
+/// up to `threads` row groups holding `bytes` of rows are encoded at once
+/// ([`crate::io::parquet::ParquetSink::with_encoding`]).
 #[cfg(feature = "parquet")]
 pub fn open_parquet_output(
     path: Option<&Path>,
     delimiter: u8,
     columns: crate::io::parquet::OutputColumns,
     passthrough: Option<crate::io::parquet::Source>,
+    (threads, bytes): (usize, usize),
 ) -> Result<Output, Error> {
     let (raw, name, guard) = raw_output(path)?;
-    let sink = crate::io::parquet::ParquetSink::new(Box::new(raw), delimiter, columns, passthrough);
+    let sink = crate::io::parquet::ParquetSink::new(Box::new(raw), delimiter, columns, passthrough)
+        .with_encoding(threads, bytes);
     Ok(Output {
         writer: Writer::Parquet(Box::new(sink)),
         name,

@@ -11,6 +11,8 @@ mod files;
 #[cfg(feature = "parquet")]
 pub mod parquet;
 mod records;
+#[cfg(feature = "parquet")]
+mod row_groups;
 pub mod value_records;
 
 pub use atomic::{check_distinct, write_atomically, AtomicFile, End};

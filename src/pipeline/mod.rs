@@ -14,7 +14,7 @@ pub mod dates;
 pub mod explain;
 pub mod history;
 mod ids;
-mod parallel;
+pub(crate) mod parallel;
 mod partition;
 pub mod plain;
 pub mod rows_store;
