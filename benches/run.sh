@@ -9,7 +9,8 @@
 #   SCENARIOS="wide long" bash benches/run.sh
 #   SCENARIOS=explain bash benches/run.sh    # explain without history, then with a
 #                                           # 365-day lookback in memory, on one
-#                                           # thread, and within --memory 64MiB
+#                                           # thread, within --memory 64MiB, and
+#                                           # to Parquet
 #   MORBUS=path/to/morbus SCENARIOS=explain bash benches/run.sh   # another build
 #   SCENARIOS=compare bash benches/run.sh    # compare on CSV, on Parquet and (with
 #                                           # python/.venv) from a pyarrow table
@@ -140,6 +141,10 @@ for n in $SIZES; do
           row "explain, 365-day lookback, one thread" "$n" "$t" "$m" "$floor"
           read -r t m < <(best_of $MORBUS explain "$wide" "${lb[@]}" --memory 64MiB --temp-dir "$DATA")
           row "explain, 365-day lookback, --memory 64MiB" "$n" "$t" "$m" "$floor"
+          # To Parquet: the records' cells handed to the writer as values.
+          read -r t m < <(best_of $MORBUS explain "$wide" --dx 'dx*' --id patient_id \
+            --date admission_date --lookback 365 -q -o "$DATA/out.parquet")
+          row "explain, 365-day lookback, to Parquet" "$n" "$t" "$m" "$floor"
         fi
         ;;
       compare)

@@ -915,7 +915,7 @@ fn score_history(
         let windows = Windows::new(engine, cfg)?;
         let (mut hist, mut summary) =
             read_history(engine, cfg, header, cols, first_row, Needs::default())?;
-        hist.resolve(&windows);
+        hist.resolve(&windows, thread_count(cfg.threads));
         let hist = hist;
         let n = hist.episodes.len();
         let mut out = Output::new(engine, n);
@@ -983,7 +983,7 @@ pub fn explain(
     };
     let (mut hist, mut summary) = read_history(engine, cfg, header, cols, first_row, needs)?;
     let label = !cfg.keep.is_empty();
-    let sorted = hist.resolve(&windows);
+    let sorted = hist.resolve(&windows, thread_count(cfg.threads));
     let hist = hist;
     let mut ex = Explained {
         whole_weights: whole,

@@ -992,3 +992,119 @@ fn compare_on_parquet_names_rows_and_reads_typed_outcomes() {
         from_pq.stderr
     );
 }
+
+/// `explain -o out.parquet` on every route (wide and long, --label, a
+/// lookback, held and spilled, one and two threads, CSV and Parquet
+/// inputs, whole and decimal weights): the file holds exactly the cells of
+/// the CSV output, typed (row numbers `Int64`, dates `Date32`, weights
+/// `Int64` when every index has whole weights, else `Float64`, text as
+/// text, empty cells null; an integer id of a Parquet input `Int64`), and
+/// is the same file however the run was done. Labels with quotes, commas,
+/// line breaks and bytes that are not UTF-8 (the CSV shows them replaced,
+/// and so does the Parquet text).
+#[test]
+fn explain_to_parquet_holds_the_csv_cells_typed_on_every_route() {
+    let dir = TempDir::new("parquet-explain-routes");
+    let mut rows = records(&root().join("demo-data/episodes.csv"));
+    let notes = ["ward \"A\", bed 3", "two\nlines", "caf\u{e9}", "", "plain"];
+    rows[0].push("note".into());
+    for (i, r) in rows[1..].iter_mut().enumerate() {
+        r.push(notes[i % notes.len()].into());
+    }
+    let kinds = [("patient_id", Kind::IntId), ("admission_date", Kind::Date)];
+    let (pq, csv) = write_both(&rows, &kinds, 300, dir.path(), "episodes");
+    // The CSV input with bytes that are not UTF-8 in some labels.
+    let text = std::fs::read(&csv).unwrap();
+    let cafe = "caf\u{e9}".as_bytes();
+    let mut bytes = Vec::new();
+    let mut at = 0;
+    while let Some(k) = text[at..].windows(cafe.len()).position(|w| w == cafe) {
+        bytes.extend_from_slice(&text[at..at + k]);
+        bytes.extend_from_slice(b"caf\xe9 \xff");
+        at += k + cafe.len();
+    }
+    bytes.extend_from_slice(&text[at..]);
+    let quirks = dir.path().join("quirks.csv");
+    std::fs::write(&quirks, &bytes).unwrap();
+    let long = root().join("demo-data/episodes-long.csv");
+
+    let wide_opts = "--dx dx* --id patient_id --date admission_date --age age --label note";
+    let long_opts = "--layout long --dx code --id patient_id --episode episode_id \
+                     --date admission_date --age age --poa present_on_admission";
+    let int = DataType::Int64;
+    let float = DataType::Float64;
+    // Input, options, the weights' type, the types of kept columns.
+    type Case<'a> = (&'a Path, String, &'a DataType, Vec<(&'a str, DataType)>);
+    let cases: Vec<Case> = vec![
+        (
+            &quirks,
+            format!("{wide_opts} --lookback 365"),
+            &float,
+            vec![],
+        ),
+        (
+            &quirks,
+            format!("{wide_opts} --lookback all --window earlier-only --index charlson"),
+            &int,
+            vec![],
+        ),
+        (
+            &quirks,
+            "--dx dx* --label episode_id --index hfrs".into(),
+            &float,
+            vec![],
+        ),
+        (
+            &pq,
+            format!("{wide_opts} --lookback 365 --index charlson,hfrs"),
+            &float,
+            vec![("patient_id", DataType::Int64)],
+        ),
+        (
+            &pq,
+            format!("{wide_opts} --lookback 730 --index charlson:charlson1987"),
+            &int,
+            vec![("patient_id", DataType::Int64)],
+        ),
+        (
+            &long,
+            format!("{long_opts} --lookback charlson=365,hfrs=730"),
+            &float,
+            vec![],
+        ),
+        (
+            &long,
+            format!("{long_opts} --lookback 365 --index elixhauser"),
+            &int,
+            vec![],
+        ),
+    ];
+    let out = dir.path().join("out.parquet");
+    for (input, opts, weights, kept) in cases {
+        let run = |extra: &str| {
+            let r = common::run(&format!("explain {{}} -q {opts} {extra}"), &[s(input)]);
+            assert_eq!(r.code, 0, "{opts} {extra}: {}", r.stderr);
+            r.stdout
+        };
+        let reference = run("--threads 1");
+        assert!(reference.lines().count() > 100, "{opts}: {reference}");
+        let mut first: Option<Vec<u8>> = None;
+        for (memory, threads) in [("1GiB", "1"), ("1GiB", "2"), ("16KiB", "1"), ("16KiB", "2")] {
+            let what = format!("{} {opts} --memory {memory} --threads {threads}", s(input));
+            run(&format!(
+                "--memory {memory} --threads {threads} -o {}",
+                s(&out)
+            ));
+            let file = std::fs::read(&out).unwrap();
+            let batch = common::parquet_batch(&file);
+            common::assert_explain_cells(&reference, &batch, weights, &kept, &what);
+            match &first {
+                None => first = Some(file),
+                Some(f) => assert!(
+                    *f == file,
+                    "{what}: another file than in memory on one thread"
+                ),
+            }
+        }
+    }
+}

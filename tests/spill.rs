@@ -268,6 +268,92 @@ fn same_explained(engine: &Engine, cfg: &ScoreConfig, input: &str, what: &str) {
             &run,
         );
     }
+    #[cfg(feature = "parquet")]
+    same_explained_to_parquet(engine, cfg, input, what);
+}
+
+/// Explains `cfg` over `input` to Parquet (the records handed over as
+/// value records, as `explain -o out.parquet` does) in memory and spilled,
+/// on one thread, two and more threads than episodes: the same file every
+/// time, holding the cells of the CSV output typed
+/// ([`common::assert_explain_cells`]); a run that stops, stops with the
+/// CSV run's message.
+#[cfg(feature = "parquet")]
+fn same_explained_to_parquet(engine: &Engine, cfg: &ScoreConfig, input: &str, what: &str) {
+    use morbus::io::parquet::{OutputColumns, ParquetSink};
+    use morbus::pipeline::OutputForm;
+    let temp = TempDir::new("spill-explain-parquet");
+    let path = temp.join("out.parquet");
+    let at = |threads: usize, memory: u64| ScoreConfig {
+        threads,
+        memory,
+        temp_dir: Some(temp.path().to_path_buf()),
+        ..cfg.clone()
+    };
+    let run = |cfg: &ScoreConfig| -> Result<Vec<u8>, String> {
+        let cfg = ScoreConfig {
+            output_form: OutputForm::ValueRecords,
+            ..cfg.clone()
+        };
+        let file = std::fs::File::create(&path).unwrap();
+        let columns = OutputColumns::explain(engine, &cfg, None);
+        let mut sink = ParquetSink::new(Box::new(file), cfg.delimiter, columns, None);
+        explain_stream(
+            engine,
+            &cfg,
+            ExplainFormat::Csv,
+            input.as_bytes(),
+            &mut sink,
+        )
+        .and_then(|_| sink.finish())
+        .map_err(|e| stopped(&e))?;
+        Ok(std::fs::read(&path).unwrap())
+    };
+    let mut text = Vec::new();
+    let reference = explain_stream(
+        engine,
+        &at(1, 1 << 30),
+        ExplainFormat::Csv,
+        input.as_bytes(),
+        &mut text,
+    )
+    .map_err(|e| stopped(&e));
+    let one = run(&at(1, 1 << 30));
+    match (&one, &reference) {
+        (Ok(file), Ok(_)) => {
+            let whole = (0..engine.specs().len()).all(|s| engine.decimals(s) == 0);
+            let weights = if whole {
+                arrow_schema::DataType::Int64
+            } else {
+                arrow_schema::DataType::Float64
+            };
+            let text = String::from_utf8(text).unwrap();
+            let batch = common::parquet_batch(file);
+            common::assert_explain_cells(&text, &batch, &weights, &[], what);
+        }
+        (Err(a), Err(b)) => assert_eq!(a, b, "{what}: Parquet and CSV stop alike"),
+        (a, b) => panic!(
+            "{what}: Parquet {:?} against CSV {:?}",
+            a.as_ref().err(),
+            b.as_ref().err()
+        ),
+    }
+    for (threads, memory) in [
+        (2, 1 << 30),
+        (64, 1 << 30),
+        (1, 0),
+        (2, 0),
+        (64, 0),
+        (2, 64 << 10),
+    ] {
+        let got = run(&at(threads, memory));
+        assert!(
+            got == one,
+            "explain to Parquet, {what}: {threads} threads, memory {memory}: another file (or stop) than one thread's in memory"
+        );
+    }
+    std::fs::remove_file(&path).ok();
+    assert_eq!(files_in(temp.path()), 0, "{what}: temporary file left");
 }
 
 /// Runs `cfg` with `run` with the history in memory and spilled (a few

@@ -1011,9 +1011,15 @@ fn explain(a: ExplainArgs) -> Result<(), Error> {
         ExplainFormat::Csv
     };
     // The input's size lets a history that will not fit go to partitions
-    // early (a hint; the output is the same without it).
+    // early (a hint; the output is the same without it). A Parquet output
+    // takes the records' cells as values, not as text.
     let cfg = ScoreConfig {
         input_size: input.size,
+        output_form: if parquet_out {
+            pipeline::OutputForm::ValueRecords
+        } else {
+            pipeline::OutputForm::Text
+        },
         ..cfg
     };
     let summary = pipeline::explain_stream(

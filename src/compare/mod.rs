@@ -715,7 +715,10 @@ pub fn compare<'a>(
         History::read_with_values(engine, cfg, input, Default::default(), &extra)?;
     summary.units = hist.episodes.len() as u64;
     let mut hist = hist;
-    hist.resolve(&crate::pipeline::history::Windows::new(engine, cfg)?);
+    hist.resolve(
+        &crate::pipeline::history::Windows::new(engine, cfg)?,
+        crate::pipeline::threads(cfg),
+    );
     let resolved = hist.final_sets(engine);
     let w = hist.words();
     let nnum = numeric_names.len();

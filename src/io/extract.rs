@@ -222,7 +222,7 @@ impl Extract {
                 }
                 parquet::OutputColumns::scores(engine, schema)
             }
-            Table::Explain => parquet::OutputColumns::explain(engine, schema),
+            Table::Explain => parquet::OutputColumns::explain(engine, cfg, schema),
         };
         // Row groups are encoded on every core, their rows within an eighth
         // of --memory.

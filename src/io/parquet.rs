@@ -14,31 +14,39 @@
 //!   `Int64`, scores with decimals `Float64`, condition flags `Int8`, bands
 //!   text; missing values null), or the same as delimited text, the input's
 //!   values formatted by Arrow's formatter ([`TypedOutput`]).
-//! - **Out, from value records** ([`ParquetSink`]): a history run (or a
-//!   text input) hands each row over as a value record
+//! - **Out, from value records** ([`ParquetSink`]): a `score` history run
+//!   (or a text input) hands each row over as a value record
 //!   ([`super::value_records`]): its pass-through fields as delimited text
 //!   and its scores as binary values, from which the score arrays are built
-//!   ([`ValueColumns`]); no score is parsed from text. `explain` hands its
-//!   records over as delimited text, read back into typed columns. For a
-//!   wide output of a Parquet input the input's own columns
+//!   ([`ValueColumns`]); no score is parsed from text. `explain` hands every
+//!   cell of its records over as a value (row numbers, dates, weights with
+//!   their decimals, text; [`ValueColumns::explain`]), none as delimited
+//!   text. For a wide output of a Parquet input the input's own columns
 //!   are copied from the input file itself, arrays and types untouched, in
-//!   order; other kept columns (the id and episode of the long layout) take
-//!   their input type back when their text casts to it exactly. A wide
-//!   history run with a text output joins the input's formatted rows to its
-//!   score lines ([`JoinedText`]).
+//!   order; other kept columns (the id and episode of the long layout,
+//!   `explain`'s id, episode and labels) take their input type back when
+//!   their text casts to it exactly. A wide history run with a text output
+//!   joins the input's formatted rows to its score lines ([`JoinedText`]).
 //!
 //! ```
 //! use std::io::Write;
 //! use morbus::io::parquet::{OutputColumns, ParquetRows, ParquetSink, Source};
+//! use morbus::io::value_records;
 //! use morbus::rows::{Field, RowSource};
 //!
-//! // Write a small Parquet file through the sink, from delimited text...
+//! // Write a small Parquet file through the sink, from value records whose
+//! // rows are pass-through text only...
 //! let dir = std::env::temp_dir().join(format!("morbus-doc-{}", std::process::id()));
 //! std::fs::create_dir_all(&dir).unwrap();
 //! let path = dir.join("tiny.parquet");
 //! let file = std::fs::File::create(&path).unwrap();
 //! let mut sink = ParquetSink::new(Box::new(file), b',', OutputColumns::default(), None);
-//! sink.write_all(b"id,dx1\nA,I21.9\nB,\"with, comma\"\n").unwrap();
+//! let mut records = Vec::new();
+//! value_records::start(&mut records);
+//! for row in [&b"id,dx1"[..], b"A,I21.9", b"B,\"with, comma\""] {
+//!     value_records::put_text(&mut records, row);
+//! }
+//! sink.write_all(&records).unwrap();
 //! sink.finish().unwrap();
 //!
 //! // ... and read it back as typed rows.
@@ -68,11 +76,12 @@ use parquet::arrow::ProjectionMask;
 use parquet::basic::{Compression, ZstdLevel};
 use parquet::file::properties::WriterProperties;
 
-use super::row_groups::GroupWriter;
-use super::{value_records, write_field};
+use super::row_groups::{CopyWriter, GroupWriter};
+use super::value_records::{self, Cell};
+use super::write_field;
 use crate::lists::{SCALE, SCALE_DECIMALS};
 use crate::pipeline::Layout;
-use crate::pipeline::{DateFormat, ScoreConfig};
+use crate::pipeline::ScoreConfig;
 use crate::score::{ColumnKind, Engine, Value};
 use crate::Error;
 
@@ -127,13 +136,18 @@ pub enum Source {
 }
 
 impl Source {
-    fn builder(&self) -> Result<ParquetRecordBatchReaderBuilder<Chunks>, Error> {
-        let inner = match self {
+    /// The file's bytes, read as needed.
+    fn chunks(&self) -> Result<Chunks, Error> {
+        Ok(match self {
             Source::File(p) => Chunks::File(
                 File::open(p).map_err(|e| Error::io(format!("cannot open {}", p.display()), e))?,
             ),
             Source::Memory(b) => Chunks::Memory(b.clone()),
-        };
+        })
+    }
+
+    fn builder(&self) -> Result<ParquetRecordBatchReaderBuilder<Chunks>, Error> {
+        let inner = self.chunks()?;
         guarded(|| ParquetRecordBatchReaderBuilder::try_new(inner))
             .map_err(|m| self.damaged(&m))?
             .map_err(|e| self.error(e))
@@ -273,49 +287,81 @@ impl<'a> TextColumn<'a> {
     }
 }
 
-/// The type a Parquet output gives a column of the pipeline's text.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum ColumnType {
-    Text,
-    Int64,
-    Float64,
-    Int8,
-    /// An ISO date (`YYYY-MM-DD`).
-    Date,
-}
-
 /// What a Parquet output knows of the columns it will be given.
 #[derive(Clone, Debug, Default)]
 pub struct OutputColumns {
-    /// Columns with a type of their own, by name (the score columns).
-    pub typed: HashMap<String, ColumnType>,
     /// Types of the input's columns (a Parquet input), by name: kept columns
     /// are cast back to them where the cast is exact.
     pub input_types: HashMap<String, DataType>,
-    /// The score columns of a run that hands its rows over as value records
-    /// ([`crate::io::value_records`]); `None`: the sink reads delimited text.
-    pub values: Option<ValueColumns>,
+    /// The columns whose cells come as values ([`crate::io::value_records`]):
+    /// the score columns of `score`, every column of `explain`. Columns
+    /// named before them in the header come as the rows' delimited
+    /// pass-through part.
+    pub values: ValueColumns,
 }
 
-/// How each score column of an engine is typed in Parquet: whole-number
-/// scores `Int64`, scores with decimals `Float64` (the value as written
-/// with its decimals), bands text, condition flags `Int8`; a missing value
-/// is null.
-#[derive(Clone, Debug)]
+/// How each value column of an output is typed in Parquet, from the cells
+/// handed over ([`Cell`]): whole-number scores `Int64`, scores with
+/// decimals `Float64` (the value as written with its decimals), bands text,
+/// condition flags `Int8`; `explain`'s row numbers `Int64`, dates `Date32`,
+/// text `Utf8`, weights `Int64` (all whole) or `Float64`, and its id,
+/// episode and label columns text cast back to a Parquet input's types. A
+/// missing value, and empty text, is null.
+#[derive(Clone, Debug, Default)]
 pub struct ValueColumns {
     columns: Vec<(String, ValueKind)>,
 }
 
 #[derive(Clone, Debug)]
 enum ValueKind {
+    /// A score or weight in whole points.
     Whole,
-    /// Truncated to a multiple of `step` (in `1/SCALE` points).
+    /// A score truncated to a multiple of `step` (in `1/SCALE` points):
+    /// the column's decimals.
     Decimal {
         step: i64,
     },
+    /// A weight truncated to its own decimals (each value carries them).
+    Number,
     /// The names of the specification's bands.
     Band(Vec<String>),
     Flag,
+    /// A whole number (`explain`'s row numbers).
+    Count,
+    /// A date.
+    Day,
+    /// Text.
+    Text,
+    /// A column of the input (text), cast to the input's type when exact.
+    Kept(Option<DataType>),
+}
+
+/// A value column being built.
+enum ColumnBuilder {
+    Int64(Int64Builder),
+    Float64(Float64Builder),
+    Int8(Int8Builder),
+    Date(Date32Builder),
+    Text(StringBuilder),
+}
+
+impl ColumnBuilder {
+    fn append_null(&mut self) {
+        match self {
+            ColumnBuilder::Int64(b) => b.append_null(),
+            ColumnBuilder::Float64(b) => b.append_null(),
+            ColumnBuilder::Int8(b) => b.append_null(),
+            ColumnBuilder::Date(b) => b.append_null(),
+            ColumnBuilder::Text(b) => b.append_null(),
+        }
+    }
+}
+
+/// A score's points truncated to `decimals`, as the text writes it
+/// ([`crate::lists::format_scaled`]).
+fn truncated(scaled: i64, decimals: u32) -> f64 {
+    let step = 10i64.pow(SCALE_DECIMALS - decimals.min(SCALE_DECIMALS));
+    (scaled / step * step) as f64 / SCALE as f64
 }
 
 impl ValueColumns {
@@ -353,12 +399,43 @@ impl ValueColumns {
         ValueColumns { columns }
     }
 
+    /// The columns of `explain` ([`crate::pipeline::explain::EXPLAIN_COLUMNS`])
+    /// after `kept` (the id, episode and label columns, with the input's
+    /// type of each when known): rows as whole numbers, the source date as
+    /// a date, the weight and age points as whole numbers when every index
+    /// has whole weights (else as numbers with their decimals), the rest
+    /// text.
+    pub fn explain(engine: &Engine, kept: Vec<(String, Option<DataType>)>) -> ValueColumns {
+        let whole = (0..engine.specs().len()).all(|s| engine.decimals(s) == 0);
+        let weight = || {
+            if whole {
+                ValueKind::Whole
+            } else {
+                ValueKind::Number
+            }
+        };
+        let mut columns: Vec<(String, ValueKind)> = kept
+            .into_iter()
+            .map(|(n, t)| (n, ValueKind::Kept(t)))
+            .collect();
+        for name in crate::pipeline::explain::EXPLAIN_COLUMNS {
+            let kind = match name {
+                "row" | "source_row" => ValueKind::Count,
+                "source_date" => ValueKind::Day,
+                "weight" | "age_points" => weight(),
+                _ => ValueKind::Text,
+            };
+            columns.push((name.to_string(), kind));
+        }
+        ValueColumns { columns }
+    }
+
     /// Values per row.
     pub fn len(&self) -> usize {
         self.columns.len()
     }
 
-    /// Whether there are no score columns.
+    /// Whether there are no value columns.
     pub fn is_empty(&self) -> bool {
         self.columns.is_empty()
     }
@@ -368,59 +445,91 @@ impl ValueColumns {
         self.columns.iter().map(|(n, _)| n.as_str())
     }
 
-    /// The Arrow fields and arrays of `rows` rows whose values are `values`
-    /// ([`Self::len`] per row). A band is read by its number only and a
-    /// score by its points only: their column gives the rest.
-    pub fn arrays(&self, values: &[Value], rows: usize) -> Vec<(Field, ArrayRef)> {
-        let w = self.columns.len();
+    /// Empty builders of the columns, for `rows` rows.
+    fn builders(&self, rows: usize) -> Vec<ColumnBuilder> {
         self.columns
             .iter()
-            .enumerate()
-            .map(|(j, (name, kind))| {
-                let column = (0..rows).map(|i| values[i * w + j]);
-                let array: ArrayRef = match kind {
-                    ValueKind::Whole => {
-                        let mut b = Int64Builder::with_capacity(rows);
-                        for v in column {
-                            match v {
-                                Value::Score { scaled, .. } => b.append_value(scaled / SCALE),
-                                _ => b.append_null(),
-                            }
+            .map(|(_, kind)| match kind {
+                ValueKind::Whole | ValueKind::Count => {
+                    ColumnBuilder::Int64(Int64Builder::with_capacity(rows))
+                }
+                ValueKind::Decimal { .. } | ValueKind::Number => {
+                    ColumnBuilder::Float64(Float64Builder::with_capacity(rows))
+                }
+                ValueKind::Flag => ColumnBuilder::Int8(Int8Builder::with_capacity(rows)),
+                ValueKind::Day => ColumnBuilder::Date(Date32Builder::with_capacity(rows)),
+                ValueKind::Band(_) | ValueKind::Text | ValueKind::Kept(_) => {
+                    ColumnBuilder::Text(StringBuilder::with_capacity(rows, rows * 8))
+                }
+            })
+            .collect()
+    }
+
+    /// Appends `cell` to column `j` (of `row`, for messages); a cell of
+    /// another kind than the column's is an internal error. A score is read
+    /// by its points (and, in a column of weights with their own decimals,
+    /// its decimals), a band by its number: the column gives the rest.
+    #[inline]
+    fn append(
+        &self,
+        j: usize,
+        b: &mut ColumnBuilder,
+        cell: Cell<'_>,
+        row: u64,
+    ) -> Result<(), Error> {
+        use ColumnBuilder as B;
+        let (name, kind) = &self.columns[j];
+        match (kind, b, cell) {
+            (_, b, Cell::Value(Value::Missing)) => b.append_null(),
+            (ValueKind::Whole, B::Int64(b), Cell::Value(Value::Score { scaled, .. })) => {
+                b.append_value(scaled / SCALE)
+            }
+            (
+                ValueKind::Decimal { step },
+                B::Float64(b),
+                Cell::Value(Value::Score { scaled, .. }),
+            ) => b.append_value((scaled / step * step) as f64 / SCALE as f64),
+            (ValueKind::Number, B::Float64(b), Cell::Value(Value::Score { scaled, decimals })) => {
+                b.append_value(truncated(scaled, decimals))
+            }
+            (ValueKind::Band(names), B::Text(b), Cell::Value(Value::Band { band, .. })) => {
+                match names.get(band as usize) {
+                    Some(n) => b.append_value(n),
+                    None => return Err(value_error(name, row, "a band of no known name")),
+                }
+            }
+            (ValueKind::Flag, B::Int8(b), Cell::Value(Value::Flag(f))) => b.append_value(f as i8),
+            (ValueKind::Count, B::Int64(b), Cell::Whole(x)) => b.append_value(x),
+            (ValueKind::Day, B::Date(b), Cell::Date(d)) => b.append_value(d),
+            (ValueKind::Text | ValueKind::Kept(_), B::Text(b), Cell::Text(t)) => {
+                if t.is_empty() {
+                    b.append_null()
+                } else {
+                    b.append_value(utf8(t, name, row)?)
+                }
+            }
+            _ => return Err(value_error(name, row, "a value of another kind")),
+        }
+        Ok(())
+    }
+
+    /// The Arrow fields and arrays of the columns built in `builders`.
+    fn finish(&self, builders: &mut [ColumnBuilder]) -> Vec<(Field, ArrayRef)> {
+        self.columns
+            .iter()
+            .zip(builders)
+            .map(|((name, kind), b)| {
+                let array: ArrayRef = match b {
+                    ColumnBuilder::Int64(b) => Arc::new(b.finish()),
+                    ColumnBuilder::Float64(b) => Arc::new(b.finish()),
+                    ColumnBuilder::Int8(b) => Arc::new(b.finish()),
+                    ColumnBuilder::Date(b) => Arc::new(b.finish()),
+                    ColumnBuilder::Text(b) => {
+                        let text: ArrayRef = Arc::new(b.finish());
+                        match kind {
+                            ValueKind::Kept(t) => kept_column(text, t),
+                            _ => text,
                         }
-                        Arc::new(b.finish())
-                    }
-                    ValueKind::Decimal { step } => {
-                        // As written: truncated to its decimals.
-                        let mut b = Float64Builder::with_capacity(rows);
-                        for v in column {
-                            match v {
-                                Value::Score { scaled, .. } => {
-                                    b.append_value((scaled / step * step) as f64 / SCALE as f64)
-                                }
-                                _ => b.append_null(),
-                            }
-                        }
-                        Arc::new(b.finish())
-                    }
-                    ValueKind::Band(names) => {
-                        let mut b = StringBuilder::with_capacity(rows, rows * 8);
-                        for v in column {
-                            match v {
-                                Value::Band { band, .. } => b.append_value(&names[band as usize]),
-                                _ => b.append_null(),
-                            }
-                        }
-                        Arc::new(b.finish())
-                    }
-                    ValueKind::Flag => {
-                        let mut b = Int8Builder::with_capacity(rows);
-                        for v in column {
-                            match v {
-                                Value::Flag(f) => b.append_value(f as i8),
-                                _ => b.append_null(),
-                            }
-                        }
-                        Arc::new(b.finish())
                     }
                 };
                 (
@@ -430,12 +539,50 @@ impl ValueColumns {
             })
             .collect()
     }
+
+    /// The Arrow fields and arrays of `rows` rows whose score values are
+    /// `values` ([`Self::len`] per row), built as the sink builds them from
+    /// value records.
+    pub fn arrays(&self, values: &[Value], rows: usize) -> Result<Vec<(Field, ArrayRef)>, Error> {
+        let w = self.columns.len();
+        let mut builders = self.builders(rows);
+        for (j, b) in builders.iter_mut().enumerate() {
+            for i in 0..rows {
+                self.append(j, b, Cell::Value(values[i * w + j]), i as u64 + 1)?;
+            }
+        }
+        Ok(self.finish(&mut builders))
+    }
 }
 
-/// A [`Write`] that takes the pipeline's output (value records for
-/// `score`, see [`OutputColumns::values`]; delimited text for `explain`)
-/// and writes it as Parquet (see the module documentation). [`ParquetSink::finish`] writes
-/// the file's footer; without it the file is incomplete.
+/// `v` as text, or the error of a value that is not UTF-8 (a Parquet text
+/// column must be).
+fn utf8<'v>(v: &'v [u8], name: &str, row: u64) -> Result<&'v str, Error> {
+    std::str::from_utf8(v).map_err(|_| {
+        Error::data(
+            None,
+            format!(
+                "row {row}, column '{name}': the value is not UTF-8 text, which a \
+                 Parquet text column must be (write CSV instead, or convert the \
+                 input to UTF-8)"
+            ),
+        )
+    })
+}
+
+fn value_error(name: &str, row: u64, what: &str) -> Error {
+    Error::data(
+        None,
+        format!("internal error: row {row}, column '{name}' of the output was given {what}"),
+    )
+}
+
+/// A [`Write`] that takes the pipeline's output as value records
+/// ([`value_records`]: the cells of [`OutputColumns::values`] typed, any
+/// columns before them as delimited pass-through text), or typed record
+/// batches ([`ParquetSink::write_batch`]), and writes it as Parquet (see
+/// the module documentation). [`ParquetSink::finish`] writes the file's
+/// footer; without it the file is incomplete.
 pub struct ParquetSink {
     /// The thread that copies the input's columns, encodes and writes;
     /// started with the first rows handed over (see [`ParquetSink::with_encoding`]).
@@ -461,11 +608,11 @@ pub struct ParquetSink {
     /// Rows per batch handed over.
     group_rows: usize,
     failed: Option<String>,
-    /// Value records being read (a run that hands its scores over typed),
-    /// the values of the rows taken so far, and how many of the header's
-    /// columns come as text before the score columns.
-    records: Option<value_records::Reader>,
-    values: Vec<Value>,
+    /// The value records being read, the value columns of the rows taken
+    /// so far, and how many of the header's columns come as text before
+    /// the value columns.
+    records: value_records::Reader,
+    values: Vec<ColumnBuilder>,
     text_columns: usize,
     /// Whether the value records' pass-through parts are typed values
     /// ([`value_records::MAGIC_KEYS`]).
@@ -493,67 +640,59 @@ impl Background {
         let abandoned = Arc::new(std::sync::atomic::AtomicBool::new(false));
         let stop = abandoned.clone();
         let thread = std::thread::spawn(move || -> Result<(), Error> {
-            let mut copies = passthrough.map(PassthroughRows::open).transpose()?;
             let mut out = Some(out);
-            let mut writer: Option<GroupWriter<Box<dyn Write + Send>>> = None;
+            let mut passthrough = passthrough;
+            let mut writing: Option<Writing> = None;
             for batch in rx {
-                let batch = match copies.as_mut() {
-                    None => batch,
-                    Some(p) => {
-                        let copied = p.take(batch.num_rows())?;
-                        let mut fields: Vec<Field> = copied
-                            .schema()
-                            .fields()
-                            .iter()
-                            .map(|f| f.as_ref().clone())
-                            .collect();
-                        let mut arrays = copied.columns().to_vec();
-                        fields.extend(batch.schema().fields().iter().map(|f| f.as_ref().clone()));
-                        arrays.extend(batch.columns().iter().cloned());
-                        RecordBatch::try_new_with_options(
-                            Arc::new(Schema::new(fields)),
-                            arrays,
-                            &RecordBatchOptions::new().with_row_count(Some(batch.num_rows())),
-                        )
-                        .map_err(|e| Error::data(None, format!("internal error: {e}")))?
-                    }
-                };
-                if writer.is_none() {
-                    writer = Some(
-                        GroupWriter::try_new(
-                            out.take().expect("an output"),
-                            batch.schema(),
-                            writer_properties(),
-                            encoding,
-                        )
-                        .map_err(|e| Error::data(None, format!("cannot write Parquet: {e}")))?,
-                    );
+                if writing.is_none() {
+                    let out = out.take().expect("an output");
+                    writing = Some(Writing::open(
+                        out,
+                        passthrough.take(),
+                        batch.schema(),
+                        encoding,
+                    )?);
                 }
-                writer
-                    .as_mut()
-                    .expect("a writer")
-                    .write(batch)
-                    .map_err(parquet_write_error)?;
+                match writing.as_mut().expect("a writer") {
+                    Writing::Copied(w, _) => w.write(batch).map_err(parquet_write_error)?,
+                    Writing::Encoded(w, copies) => {
+                        let batch = match copies.as_mut() {
+                            None => batch,
+                            Some(p) => p.in_front(batch)?,
+                        };
+                        w.write(batch).map_err(parquet_write_error)?
+                    }
+                }
             }
             if stop.load(std::sync::atomic::Ordering::SeqCst) {
                 return Ok(());
             }
-            if let Some(p) = copies.as_mut() {
-                if !p.exhausted() {
-                    return Err(Error::data(
-                        None,
-                        format!(
-                            "internal error: the output has fewer rows than {}",
-                            p.source.name()
-                        ),
-                    ));
+            let out = match writing {
+                None => return Ok(()),
+                Some(Writing::Copied(w, source)) => w.finish().map_err(|e| match e {
+                    parquet::errors::ParquetError::General(m) => {
+                        Error::data(None, format!("internal error: {m} ({})", source.name()))
+                    }
+                    e => parquet_write_error(e),
+                })?,
+                Some(Writing::Encoded(w, mut copies)) => {
+                    if let Some(p) = copies.as_mut() {
+                        if !p.exhausted() {
+                            return Err(Error::data(
+                                None,
+                                format!(
+                                    "internal error: the output has fewer rows than {}",
+                                    p.source.name()
+                                ),
+                            ));
+                        }
+                    }
+                    w.finish().map_err(parquet_write_error)?
                 }
-            }
-            if let Some(w) = writer {
-                let mut out = w.finish().map_err(parquet_write_error)?;
-                out.flush()
-                    .map_err(|e| Error::io("cannot write the Parquet output", e))?;
-            }
+            };
+            let mut out = out;
+            out.flush()
+                .map_err(|e| Error::io("cannot write the Parquet output", e))?;
             Ok(())
         });
         Background {
@@ -592,18 +731,18 @@ impl Background {
     }
 }
 
-struct Header {
-    /// Per text column: its builder, or `None` when the column is left out
-    /// (a copied input column).
-    builders: Vec<Option<Builder>>,
+/// How the background thread writes the file.
+enum Writing {
+    /// Every column encoded; the input's columns, when copied, decoded from
+    /// the input first ([`PassthroughRows`]).
+    Encoded(GroupWriter<Box<dyn Write + Send>>, Option<PassthroughRows>),
+    /// The input's columns copied into the file as they are encoded in the
+    /// input, row group for row group; only the score columns are encoded.
+    Copied(CopyWriter<Box<dyn Write + Send>, Chunks>, Source),
 }
 
+/// How a pass-through column of the header is built.
 enum Builder {
-    Text(String, StringBuilder),
-    Int64(String, Int64Builder),
-    Float64(String, Float64Builder),
-    Int8(String, Int8Builder),
-    Date(String, Date32Builder),
     /// A kept column: text, cast to the input's type when exact.
     Kept(String, StringBuilder, Option<DataType>),
     /// A kept column handed over as typed values (value records of a typed
@@ -642,6 +781,60 @@ impl KeyColumn {
     }
 }
 
+impl Writing {
+    /// The writer of a file whose columns are those of `batches` (the
+    /// pipeline's), after those of `passthrough` when there is one. A
+    /// Parquet input's columns are copied as encoded when its Parquet types
+    /// are the ones they would be written with; else decoded and encoded.
+    fn open(
+        out: Box<dyn Write + Send>,
+        passthrough: Option<Source>,
+        batches: SchemaRef,
+        encoding: (usize, usize),
+    ) -> Result<Writing, Error> {
+        let cannot = |e| Error::data(None, format!("cannot write Parquet: {e}"));
+        let Some(source) = passthrough else {
+            let w = GroupWriter::try_new(out, batches, writer_properties(), encoding)
+                .map_err(cannot)?;
+            return Ok(Writing::Encoded(w, None));
+        };
+        let builder = source.builder()?;
+        let input = (
+            source.chunks()?,
+            builder.metadata().clone(),
+            builder.schema().as_ref(),
+        );
+        let out = match CopyWriter::try_new(out, input, batches.clone(), writer_properties())
+            .map_err(cannot)?
+        {
+            Ok(w) => return Ok(Writing::Copied(w, source)),
+            Err(out) => out,
+        };
+        let copies = PassthroughRows::new(source, builder)?;
+        let mut fields: Vec<Field> = copies
+            .schema
+            .fields()
+            .iter()
+            .map(|f| f.as_ref().clone())
+            .collect();
+        fields.extend(batches.fields().iter().map(|f| f.as_ref().clone()));
+        let w = GroupWriter::try_new(
+            out,
+            Arc::new(Schema::new(fields)),
+            writer_properties(),
+            encoding,
+        )
+        .map_err(cannot)?;
+        Ok(Writing::Encoded(w, Some(copies)))
+    }
+}
+
+struct Header {
+    /// Per pass-through column: its builder, or `None` when the column is
+    /// left out (a copied input column).
+    builders: Vec<Option<Builder>>,
+}
+
 /// The rows of a Parquet input, read alongside the output.
 struct PassthroughRows {
     source: Source,
@@ -652,8 +845,11 @@ struct PassthroughRows {
 }
 
 impl PassthroughRows {
-    fn open(source: Source) -> Result<Self, Error> {
-        let builder = source.builder()?.with_batch_size(BATCH_ROWS);
+    fn new(
+        source: Source,
+        builder: ParquetRecordBatchReaderBuilder<Chunks>,
+    ) -> Result<Self, Error> {
+        let builder = builder.with_batch_size(BATCH_ROWS);
         let schema = builder.schema().clone();
         let reader = source.build(builder)?;
         Ok(PassthroughRows {
@@ -663,6 +859,26 @@ impl PassthroughRows {
             queue: VecDeque::new(),
             queued: 0,
         })
+    }
+
+    /// `batch` with the input's next rows' columns in front of its own.
+    fn in_front(&mut self, batch: RecordBatch) -> Result<RecordBatch, Error> {
+        let copied = self.take(batch.num_rows())?;
+        let mut fields: Vec<Field> = copied
+            .schema()
+            .fields()
+            .iter()
+            .map(|f| f.as_ref().clone())
+            .collect();
+        let mut arrays = copied.columns().to_vec();
+        fields.extend(batch.schema().fields().iter().map(|f| f.as_ref().clone()));
+        arrays.extend(batch.columns().iter().cloned());
+        RecordBatch::try_new_with_options(
+            Arc::new(Schema::new(fields)),
+            arrays,
+            &RecordBatchOptions::new().with_row_count(Some(batch.num_rows())),
+        )
+        .map_err(|e| Error::data(None, format!("internal error: {e}")))
     }
 
     /// The next `n` rows of the input.
@@ -708,10 +924,10 @@ impl PassthroughRows {
 }
 
 impl ParquetSink {
-    /// A sink writing Parquet to `out`, reading text with `delimiter`.
-    /// `passthrough` (for a wide output of a Parquet input: its rows are the
-    /// input's rows) copies the input's columns from the input itself, and
-    /// keeps of the text only the `typed` columns.
+    /// A sink writing Parquet to `out`, reading pass-through text with
+    /// `delimiter`. `passthrough` (for a wide output of a Parquet input:
+    /// its rows are the input's rows) copies the input's columns from the
+    /// input itself; the rows then bring no pass-through text.
     pub fn new(
         out: Box<dyn Write + Send>,
         delimiter: u8,
@@ -726,11 +942,8 @@ impl ParquetSink {
                 std::thread::available_parallelism().map_or(1, |n| n.get()),
                 ENCODING_BYTES,
             ),
-            records: columns
-                .values
-                .as_ref()
-                .map(|v| value_records::Reader::new(v.len())),
-            values: Vec::new(),
+            records: value_records::Reader::new(columns.values.len()),
+            values: columns.values.builders(0),
             text_columns: 0,
             keys: false,
             columns,
@@ -775,27 +988,19 @@ impl ParquetSink {
         self
     }
 
+    /// Starts the output's pass-through columns, named `names`.
     fn start(&mut self, names: Vec<String>) {
         let builders = names
             .into_iter()
             .map(|name| {
-                if self.copies && !self.columns.typed.contains_key(&name) {
+                if self.copies {
                     return None;
                 }
-                Some(match self.columns.typed.get(&name) {
-                    Some(ColumnType::Text) => Builder::Text(name, StringBuilder::new()),
-                    Some(ColumnType::Int64) => Builder::Int64(name, Int64Builder::new()),
-                    Some(ColumnType::Float64) => Builder::Float64(name, Float64Builder::new()),
-                    Some(ColumnType::Int8) => Builder::Int8(name, Int8Builder::new()),
-                    Some(ColumnType::Date) => Builder::Date(name, Date32Builder::new()),
-                    None => {
-                        let t = self.columns.input_types.get(&name).cloned();
-                        if self.keys {
-                            Builder::Keys(name, KeyColumn::default(), t)
-                        } else {
-                            Builder::Kept(name, StringBuilder::new(), t)
-                        }
-                    }
+                let t = self.columns.input_types.get(&name).cloned();
+                Some(if self.keys {
+                    Builder::Keys(name, KeyColumn::default(), t)
+                } else {
+                    Builder::Kept(name, StringBuilder::new(), t)
                 })
             })
             .collect();
@@ -812,17 +1017,6 @@ impl ParquetSink {
                 String::from_utf8_lossy(&fields[from..ends[k]]).into_owned()
             })
             .collect()
-    }
-
-    /// Takes one record of the text.
-    fn record(&mut self) -> Result<(), Error> {
-        if self.header.is_none() {
-            let names = self.names();
-            self.start(names);
-            return Ok(());
-        }
-        self.take_fields()?;
-        self.end_row()
     }
 
     /// Counts a row taken; a full group is written.
@@ -850,42 +1044,15 @@ impl ParquetSink {
             |what: &str| Error::data(None, format!("internal error: the output held {what}"));
         for (k, b) in header.builders.iter_mut().enumerate() {
             let v = field(k);
-            let Some(b) = b else { continue };
-            let text = |name: &str| {
-                std::str::from_utf8(v).map_err(|_| {
-                    Error::data(
-                        None,
-                        format!(
-                            "row {row}, column '{name}': the value is not UTF-8 text, which a \
-                             Parquet text column must be (write CSV instead, or convert the \
-                             input to UTF-8)"
-                        ),
-                    )
-                })
-            };
-            let number = |name: &str| {
-                Error::data(
-                    None,
-                    format!(
-                        "internal error: row {row}, column '{name}' holds '{}', not a number",
-                        String::from_utf8_lossy(v)
-                    ),
-                )
-            };
             match b {
-                Builder::Keys(..) => return Err(self_internal("text for typed values")),
-                Builder::Text(name, b) | Builder::Kept(name, b, _) => {
+                None => {}
+                Some(Builder::Keys(..)) => return Err(self_internal("text for typed values")),
+                Some(Builder::Kept(name, b, _)) => {
                     if v.is_empty() {
                         b.append_null()
                     } else {
-                        b.append_value(text(name)?)
+                        b.append_value(utf8(v, name, row)?)
                     }
-                }
-                Builder::Int64(name, b) => b.append_option(typed(v, parse, || number(name))?),
-                Builder::Float64(name, b) => b.append_option(typed(v, parse, || number(name))?),
-                Builder::Int8(name, b) => b.append_option(typed(v, parse, || number(name))?),
-                Builder::Date(name, b) => {
-                    b.append_option(typed(v, |v| DateFormat::Iso.parse(v), || number(name))?)
                 }
             }
         }
@@ -944,25 +1111,25 @@ impl ParquetSink {
 
     /// Takes the value records in `input` (see [`value_records`]).
     fn feed_records(&mut self, input: &[u8]) -> Result<(), Error> {
-        let mut reader = self.records.take().expect("a value-record sink");
+        let mut reader = std::mem::replace(&mut self.records, value_records::Reader::new(0));
         let r = reader.feed(input, |record| match record {
             value_records::Record::Header(text) | value_records::Record::KeysHeader(text) => {
                 // Whether the rows' pass-through parts are typed values.
                 self.keys = matches!(record, value_records::Record::KeysHeader(_));
                 self.read_text(text)?;
                 let names = self.names();
-                let scores = self.columns.values.as_ref().expect("score columns");
-                let text_columns = names.len().checked_sub(scores.len());
+                let values = &self.columns.values;
+                let text_columns = names.len().checked_sub(values.len());
                 let ok = text_columns
-                    .is_some_and(|t| names[t..].iter().map(String::as_str).eq(scores.names()));
+                    .is_some_and(|t| names[t..].iter().map(String::as_str).eq(values.names()));
                 if !ok {
-                    return Err(self.internal("a header that does not end with the score columns"));
+                    return Err(self.internal("a header that does not end with the value columns"));
                 }
                 self.text_columns = text_columns.unwrap_or(0);
                 self.start(names[..self.text_columns].to_vec());
                 Ok(())
             }
-            value_records::Record::Row(mut text, values) if self.keys => {
+            value_records::Record::Row(mut text, cells) if self.keys => {
                 let width = || {
                     Error::data(
                         None,
@@ -982,15 +1149,18 @@ impl ParquetSink {
                     }
                 }
                 if other {
-                    return Err(self.internal("typed values for a score column"));
+                    return Err(self.internal("typed values for a text column"));
                 }
                 if !text.is_empty() {
                     return Err(width());
                 }
-                self.values.extend_from_slice(values);
+                let row = self.written + self.rows as u64 + 1;
+                for (j, (b, &cell)) in self.values.iter_mut().zip(cells).enumerate() {
+                    self.columns.values.append(j, b, cell, row)?;
+                }
                 self.end_row()
             }
-            value_records::Record::Row(text, values) => {
+            value_records::Record::Row(text, cells) => {
                 match self.text_columns {
                     0 if text.is_empty() => {}
                     0 => return Err(self.internal("text where no column was named")),
@@ -1005,11 +1175,14 @@ impl ParquetSink {
                 if self.text_columns > 0 {
                     self.take_fields()?;
                 }
-                self.values.extend_from_slice(values);
+                let row = self.written + self.rows as u64 + 1;
+                for (j, (b, &cell)) in self.values.iter_mut().zip(cells).enumerate() {
+                    self.columns.values.append(j, b, cell, row)?;
+                }
                 self.end_row()
             }
         });
-        self.records = Some(reader);
+        self.records = reader;
         r
     }
 
@@ -1031,11 +1204,6 @@ impl ParquetSink {
         let mut arrays: Vec<ArrayRef> = Vec::new();
         for b in header.builders.iter_mut().flatten() {
             let (name, a): (&str, ArrayRef) = match b {
-                Builder::Text(n, b) => (n, Arc::new(b.finish())),
-                Builder::Int64(n, b) => (n, Arc::new(b.finish())),
-                Builder::Float64(n, b) => (n, Arc::new(b.finish())),
-                Builder::Int8(n, b) => (n, Arc::new(b.finish())),
-                Builder::Date(n, b) => (n, Arc::new(b.finish())),
                 Builder::Kept(n, b, t) => {
                     let text: ArrayRef = Arc::new(b.finish());
                     (n, kept_column(text, t))
@@ -1049,12 +1217,9 @@ impl ParquetSink {
             fields.push(Field::new(name, a.data_type().clone(), true));
             arrays.push(a);
         }
-        if let Some(scores) = &self.columns.values {
-            for (f, a) in scores.arrays(&self.values, rows) {
-                fields.push(f);
-                arrays.push(a);
-            }
-            self.values.clear();
+        for (f, a) in self.columns.values.finish(&mut self.values) {
+            fields.push(f);
+            arrays.push(a);
         }
         let batch = RecordBatch::try_new_with_options(
             Arc::new(Schema::new(fields)),
@@ -1069,28 +1234,12 @@ impl ParquetSink {
         Ok(())
     }
 
-    fn feed(&mut self, mut input: &[u8]) -> Result<(), Error> {
-        use csv_core::ReadRecordResult as R;
-        loop {
-            let (res, n) = self.csv_step(input);
-            input = &input[n..];
-            match res {
-                R::InputEmpty | R::End => return Ok(()),
-                R::OutputFull | R::OutputEndsFull => {}
-                R::Record => {
-                    self.record()?;
-                    self.nfield = 0;
-                    self.nend = 0;
-                }
-            }
-        }
-    }
-
     /// Writes a batch built by a typed run (input columns and score columns
-    /// as they go into the file); a sink takes either such batches or text.
+    /// as they go into the file); a sink takes either such batches or value
+    /// records.
     pub fn write_batch(&mut self, batch: RecordBatch) -> Result<(), Error> {
         if self.header.is_some() || self.copies {
-            return Err(self.internal("typed batches after text"));
+            return Err(self.internal("typed batches after value records"));
         }
         let rows = batch.num_rows() as u64;
         self.writer().send(batch)?;
@@ -1104,12 +1253,8 @@ impl ParquetSink {
         if let Some(m) = self.failed.take() {
             return Err(Error::data(None, m));
         }
-        match &self.records {
-            Some(r) if !r.complete() => {
-                return Err(self.internal("value records cut short"));
-            }
-            Some(_) => {}
-            None => self.feed(&[])?,
+        if !self.records.complete() {
+            return Err(self.internal("value records cut short"));
         }
         if self.header.is_none() && self.batches > 0 {
             // Typed batches only: all written.
@@ -1118,7 +1263,8 @@ impl ParquetSink {
             return b.join();
         }
         if self.header.is_none() {
-            // Nothing written at all (an empty input): a file with no columns.
+            // Nothing written at all (an empty input): a file with the
+            // value columns only.
             self.start(Vec::new());
         }
         self.flush_rows()?;
@@ -1126,23 +1272,6 @@ impl ParquetSink {
         let mut b = self.background.take().expect("a writer thread");
         b.join()
     }
-}
-
-/// A field of a typed column: `None` when empty, else its value as read by
-/// `read`, or the error `bad` when it does not read.
-fn typed<T>(
-    v: &[u8],
-    read: impl Fn(&[u8]) -> Option<T>,
-    bad: impl FnOnce() -> Error,
-) -> Result<Option<T>, Error> {
-    if v.is_empty() {
-        return Ok(None);
-    }
-    read(v).map(Some).ok_or_else(bad)
-}
-
-fn parse<T: std::str::FromStr>(v: &[u8]) -> Option<T> {
-    std::str::from_utf8(v).ok()?.parse().ok()
 }
 
 /// How morbus writes Parquet: zstd (level 1) compression, row groups of
@@ -1393,11 +1522,7 @@ impl Write for ParquetSink {
         if let Some(m) = &self.failed {
             return Err(io::Error::other(m.clone()));
         }
-        let fed = if self.records.is_some() {
-            self.feed_records(buf)
-        } else {
-            self.feed(buf)
-        };
+        let fed = self.feed_records(buf);
         latch(&mut self.failed, fed, buf.len())
     }
     fn flush(&mut self) -> io::Result<()> {
@@ -1409,56 +1534,26 @@ impl OutputColumns {
     /// The columns of `score`: the score columns typed, the kept columns of
     /// a Parquet `input` with their input types.
     pub fn scores(engine: &Engine, input: Option<&Schema>) -> OutputColumns {
-        let values = ValueColumns::of(engine);
-        let typed = values
-            .columns
-            .iter()
-            .map(|(name, kind)| {
-                let t = match kind {
-                    ValueKind::Whole => ColumnType::Int64,
-                    ValueKind::Decimal { .. } => ColumnType::Float64,
-                    ValueKind::Band(_) => ColumnType::Text,
-                    ValueKind::Flag => ColumnType::Int8,
-                };
-                (name.clone(), t)
-            })
-            .collect();
         OutputColumns {
-            typed,
             input_types: input_types(input),
-            values: Some(values),
+            values: ValueColumns::of(engine),
         }
     }
 
-    /// The columns of `explain`: rows as whole numbers, the source date as
-    /// a date, the weight as a number, the rest text; the id and episode of
-    /// a Parquet `input` with their input types.
-    pub fn explain(engine: &Engine, input: Option<&Schema>) -> OutputColumns {
-        let whole = (0..engine.specs().len()).all(|s| engine.decimals(s) == 0);
-        let weight = if whole {
-            ColumnType::Int64
-        } else {
-            ColumnType::Float64
-        };
-        let typed = [
-            ("row", ColumnType::Int64),
-            ("index", ColumnType::Text),
-            ("source_row", ColumnType::Int64),
-            ("source_date", ColumnType::Date),
-            ("code_as_written", ColumnType::Text),
-            ("code", ColumnType::Text),
-            ("condition", ColumnType::Text),
-            ("weight", weight),
-            ("status", ColumnType::Text),
-            ("age_points", weight),
-        ]
-        .into_iter()
-        .map(|(n, t)| (n.to_string(), t))
-        .collect();
+    /// The columns of `explain` for a run with `cfg` (see
+    /// [`ValueColumns::explain`]): its id, episode and label columns with
+    /// the types of a Parquet `input`'s, then the explanation's columns.
+    pub fn explain(engine: &Engine, cfg: &ScoreConfig, input: Option<&Schema>) -> OutputColumns {
+        let input_types = input_types(input);
+        let kept = [&cfg.id, &cfg.episode]
+            .into_iter()
+            .flatten()
+            .chain(&cfg.keep)
+            .map(|n| (n.clone(), input_types.get(n).cloned()))
+            .collect();
         OutputColumns {
-            typed,
-            input_types: input_types(input),
-            values: None,
+            values: ValueColumns::explain(engine, kept),
+            input_types,
         }
     }
 }
@@ -1875,7 +1970,11 @@ enum Rendered {
 /// scores `Int64`, scores with decimals `Float64` (the value as written
 /// with its decimals), bands text, condition flags `Int8`; a missing value
 /// is null.
-pub fn score_arrays(engine: &Engine, values: &[Value], rows: usize) -> Vec<(Field, ArrayRef)> {
+pub fn score_arrays(
+    engine: &Engine,
+    values: &[Value],
+    rows: usize,
+) -> Result<Vec<(Field, ArrayRef)>, Error> {
     ValueColumns::of(engine).arrays(values, rows)
 }
 
@@ -1888,7 +1987,7 @@ fn with_scores(
     values: &[Value],
     rows: usize,
 ) -> Result<RecordBatch, Error> {
-    for (f, a) in score_arrays(engine, values, rows) {
+    for (f, a) in score_arrays(engine, values, rows)? {
         fields.push(f);
         arrays.push(a);
     }
@@ -2396,9 +2495,78 @@ mod tests {
     /// A wide score of a Parquet input whose row groups (37 rows) do not
     /// line up with the output's batches (50 rows): every row comes out
     /// once, in order, with the input's own columns.
+    /// Nanoseconds of row `i`'s INT96 stamp in [`write_with_int96`].
+    fn stamp_nanos(i: usize) -> i64 {
+        // Julian day 2,440,588 is 1970-01-01.
+        i as i64 * 86_400_000_000_000 + i as i64
+    }
+
+    /// `batch` (an Int64 id and a text dx1) and a third column of INT96
+    /// stamps, in row groups of `group` rows, written with the low-level
+    /// writer (the Arrow writer does not write INT96).
+    fn write_with_int96(path: &std::path::Path, batch: &RecordBatch, group: usize) {
+        use parquet::data_type::{ByteArray, ByteArrayType, Int64Type, Int96, Int96Type};
+        use parquet::file::writer::SerializedFileWriter;
+        let schema = parquet::schema::parser::parse_message_type(
+            "message schema { REQUIRED INT64 id; REQUIRED BYTE_ARRAY dx1 (UTF8); REQUIRED INT96 stamp; }",
+        )
+        .unwrap();
+        let mut w = SerializedFileWriter::new(
+            File::create(path).unwrap(),
+            Arc::new(schema),
+            Default::default(),
+        )
+        .unwrap();
+        let ids = batch
+            .column(0)
+            .as_primitive::<arrow_array::types::Int64Type>();
+        let dx = batch.column(1).as_string::<i32>();
+        let n = batch.num_rows();
+        for from in (0..n).step_by(group) {
+            let rows = from..(from + group).min(n);
+            let mut g = w.next_row_group().unwrap();
+            let mut c = g.next_column().unwrap().unwrap();
+            let v: Vec<i64> = rows.clone().map(|i| ids.value(i)).collect();
+            c.typed::<Int64Type>().write_batch(&v, None, None).unwrap();
+            c.close().unwrap();
+            let mut c = g.next_column().unwrap().unwrap();
+            let v: Vec<ByteArray> = rows.clone().map(|i| ByteArray::from(dx.value(i))).collect();
+            c.typed::<ByteArrayType>()
+                .write_batch(&v, None, None)
+                .unwrap();
+            c.close().unwrap();
+            let mut c = g.next_column().unwrap().unwrap();
+            let v: Vec<Int96> = rows
+                .map(|i| {
+                    // Nanoseconds of the day (low 8 bytes), Julian day (high 4).
+                    let mut x = Int96::new();
+                    let nanos = i as u64;
+                    x.set_data(nanos as u32, (nanos >> 32) as u32, 2_440_588 + i as u32);
+                    x
+                })
+                .collect();
+            c.typed::<Int96Type>().write_batch(&v, None, None).unwrap();
+            c.close().unwrap();
+            g.close().unwrap();
+        }
+        w.close().unwrap();
+    }
+
     #[test]
     fn copied_columns_line_up_across_uneven_batches() {
-        let dir = std::env::temp_dir().join(format!("morbus-pq-unit-{}", std::process::id()));
+        // An input whose columns are copied as encoded, and one holding a
+        // column type that is written otherwise than read (INT96 stamps
+        // read as timestamps), whose columns are decoded and encoded again.
+        for copied_as_encoded in [true, false] {
+            copied_columns_line_up(copied_as_encoded);
+        }
+    }
+
+    fn copied_columns_line_up(copied_as_encoded: bool) {
+        let dir = std::env::temp_dir().join(format!(
+            "morbus-pq-unit-{}-{copied_as_encoded}",
+            std::process::id()
+        ));
         std::fs::create_dir_all(&dir).unwrap();
         let input = dir.join("in.parquet");
         let n = 370;
@@ -2410,14 +2578,18 @@ mod tests {
             ("dx1", Arc::new(dx) as ArrayRef),
         ])
         .unwrap();
-        let props = WriterProperties::builder()
-            .set_max_row_group_row_count(Some(37))
-            .build();
-        let mut w =
-            ArrowWriter::try_new(File::create(&input).unwrap(), batch.schema(), Some(props))
-                .unwrap();
-        w.write(&batch).unwrap();
-        w.close().unwrap();
+        if copied_as_encoded {
+            let props = WriterProperties::builder()
+                .set_max_row_group_row_count(Some(37))
+                .build();
+            let mut w =
+                ArrowWriter::try_new(File::create(&input).unwrap(), batch.schema(), Some(props))
+                    .unwrap();
+            w.write(&batch).unwrap();
+            w.close().unwrap();
+        } else {
+            write_with_int96(&input, &batch, 37);
+        }
 
         let specs = IndexSpec::parse_many("charlson").unwrap();
         let engine = Engine::new(&Catalogue::builtin(), &specs, ScoreOptions::default()).unwrap();
@@ -2486,9 +2658,39 @@ mod tests {
         assert_eq!(got.num_rows(), n);
         assert_eq!(got.column(0).as_ref(), batch.column(0).as_ref());
         assert_eq!(got.column(1).as_ref(), batch.column(1).as_ref());
+        let groups = |p: &std::path::Path| -> Vec<(i64, Vec<i64>)> {
+            let b = ParquetRecordBatchReaderBuilder::try_new(File::open(p).unwrap()).unwrap();
+            let m = b.metadata();
+            m.row_groups()
+                .iter()
+                .map(|g| {
+                    (
+                        g.num_rows(),
+                        g.columns().iter().map(|c| c.compressed_size()).collect(),
+                    )
+                })
+                .collect()
+        };
+        let (theirs, ours) = (groups(&input), groups(&out));
+        let copied = if copied_as_encoded { 2 } else { 3 };
+        if copied_as_encoded {
+            // The input's row groups, its column chunks as they were.
+            assert_eq!(ours.len(), theirs.len());
+            for (o, t) in ours.iter().zip(&theirs) {
+                assert_eq!(o.0, t.0);
+                assert_eq!(o.1[..copied], t.1[..]);
+            }
+        } else {
+            // Encoded again: row groups of the output's own size.
+            assert_eq!(ours.iter().map(|g| g.0).collect::<Vec<_>>(), [n as i64]);
+            let stamps = got
+                .column(2)
+                .as_primitive::<arrow_array::types::TimestampNanosecondType>();
+            assert!((0..n).all(|i| stamps.value(i) == stamp_nanos(i)));
+        }
         // Each row's score follows its own code: the same code, the same score.
         let scores = got
-            .column(2)
+            .column(copied)
             .as_primitive::<arrow_array::types::Int64Type>();
         for i in codes.len()..n {
             assert_eq!(scores.value(i), scores.value(i % codes.len()), "row {i}");

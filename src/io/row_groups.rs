@@ -12,20 +12,30 @@
 //! Memory: the rows of the row group being gathered, and of those being
 //! encoded: at most `threads` of them, and no more than `budget` bytes of
 //! rows (one row group is always let through, whatever its size).
+//!
+//! [`CopyWriter`] writes a Parquet input's rows with columns added after
+//! its own: the input's column chunks are copied into the output as they
+//! are encoded in the input (neither decoded nor encoded again), row group
+//! for row group, and only the added columns are encoded.
 
 use std::collections::VecDeque;
 use std::io::Write;
 use std::thread::JoinHandle;
 
 use arrow_array::RecordBatch;
+use arrow_schema::Schema;
 use arrow_schema::SchemaRef;
 use parquet::arrow::arrow_writer::{
     compute_leaves, ArrowColumnChunk, ArrowColumnWriter, ArrowRowGroupWriterFactory,
 };
-use parquet::arrow::ArrowWriter;
+use parquet::arrow::{ArrowSchemaConverter, ArrowWriter};
+use parquet::column::writer::ColumnCloseResult;
 use parquet::errors::ParquetError;
+use parquet::file::metadata::ParquetMetaData;
 use parquet::file::properties::WriterProperties;
+use parquet::file::reader::ChunkReader;
 use parquet::file::writer::SerializedFileWriter;
+use std::sync::Arc;
 
 /// A row group being encoded, and the bytes its rows hold.
 type Encoded = (
@@ -177,17 +187,179 @@ fn encode(
     batches: &[RecordBatch],
 ) -> Result<Vec<ArrowColumnChunk>, ParquetError> {
     for batch in batches {
-        let mut leaves_to = writers.iter_mut();
-        for (field, column) in schema.fields().iter().zip(batch.columns()) {
-            for leaf in compute_leaves(field, column)? {
-                let writer = leaves_to.next().ok_or_else(|| {
-                    ParquetError::General("more leaf columns than writers".to_string())
-                })?;
-                writer.write(&leaf)?;
-            }
-        }
+        write_leaves(schema, &mut writers, batch)?;
     }
     writers.into_iter().map(ArrowColumnWriter::close).collect()
+}
+
+/// The leaf columns of `batch` (of `schema`) through `writers`, in order.
+fn write_leaves(
+    schema: &SchemaRef,
+    writers: &mut [ArrowColumnWriter],
+    batch: &RecordBatch,
+) -> Result<(), ParquetError> {
+    let mut leaves_to = writers.iter_mut();
+    for (field, column) in schema.fields().iter().zip(batch.columns()) {
+        for leaf in compute_leaves(field, column)? {
+            let writer = leaves_to.next().ok_or_else(|| {
+                ParquetError::General("more leaf columns than writers".to_string())
+            })?;
+            writer.write(&leaf)?;
+        }
+    }
+    Ok(())
+}
+
+/// Writes the rows of a Parquet input with columns added after the input's
+/// own: each row group of the output is the input's row group, its columns
+/// copied as they are encoded in the input (encodings, compression, pages
+/// and statistics kept), followed by the added columns encoded from the
+/// batches given, which must hold exactly the input's rows in order.
+pub(crate) struct CopyWriter<W: Write + Send, R: ChunkReader> {
+    file: SerializedFileWriter<W>,
+    factory: ArrowRowGroupWriterFactory,
+    input: R,
+    meta: Arc<ParquetMetaData>,
+    /// The schema of the added columns (the batches given).
+    added: SchemaRef,
+    /// The input's row group being written, and its rows still to come.
+    group: usize,
+    left: usize,
+    /// The added columns' writers for that row group.
+    writers: Option<Vec<ArrowColumnWriter>>,
+}
+
+impl<W: Write + Send, R: ChunkReader> CopyWriter<W, R> {
+    /// A writer of `input` (its metadata `meta`, read as Arrow with the
+    /// schema `schema`) followed by the columns `added`. Gives `out` back
+    /// when the input's columns cannot be copied as they are: when the
+    /// output's Parquet schema would describe them otherwise than the input
+    /// does (the types the input was written with are not the ones its
+    /// Arrow schema is written with), or a column chunk lives in another
+    /// file.
+    pub(crate) fn try_new(
+        out: W,
+        (input, meta, schema): (R, Arc<ParquetMetaData>, &Schema),
+        added: SchemaRef,
+        props: WriterProperties,
+    ) -> Result<Result<Self, W>, ParquetError> {
+        let mut fields: Vec<_> = schema.fields().iter().cloned().collect();
+        fields.extend(added.fields().iter().cloned());
+        let full = Arc::new(Schema::new(fields));
+        let descr = ArrowSchemaConverter::new()
+            .with_coerce_types(props.coerce_types())
+            .convert(&full)?;
+        let theirs = meta.file_metadata().schema_descr();
+        let copied = theirs.num_columns();
+        let same = descr.num_columns() >= copied
+            && (0..copied).all(|i| descr.column(i) == theirs.column(i))
+            && meta
+                .row_groups()
+                .iter()
+                .all(|g| g.columns().iter().all(|c| c.file_path().is_none()));
+        if !same {
+            return Ok(Err(out));
+        }
+        let (file, factory) =
+            ArrowWriter::try_new(out, full, Some(props))?.into_serialized_writer()?;
+        let left = meta
+            .row_groups()
+            .first()
+            .map_or(0, |g| g.num_rows() as usize);
+        Ok(Ok(CopyWriter {
+            file,
+            factory,
+            input,
+            meta,
+            added,
+            group: 0,
+            left,
+            writers: None,
+        }))
+    }
+
+    /// Takes the added columns of the next rows.
+    pub(crate) fn write(&mut self, batch: RecordBatch) -> Result<(), ParquetError> {
+        let mut rest = batch;
+        while rest.num_rows() > 0 {
+            self.write_full_groups()?;
+            if self.group >= self.meta.num_row_groups() {
+                return Err(ParquetError::General(
+                    "the output has more rows than the input".to_string(),
+                ));
+            }
+            let take = rest.num_rows().min(self.left);
+            let part = rest.slice(0, take);
+            let added = self.added.clone();
+            write_leaves(&added, self.writers()?, &part)?;
+            self.left -= take;
+            rest = rest.slice(take, rest.num_rows() - take);
+        }
+        Ok(())
+    }
+
+    /// The added columns' writers of the current row group.
+    fn writers(&mut self) -> Result<&mut Vec<ArrowColumnWriter>, ParquetError> {
+        if self.writers.is_none() {
+            let mut all = self.factory.create_column_writers(self.group)?;
+            let copied = self.meta.file_metadata().schema_descr().num_columns();
+            self.writers = Some(all.split_off(copied));
+        }
+        Ok(self.writers.as_mut().expect("writers"))
+    }
+
+    /// Writes every row group whose rows have all been given.
+    fn write_full_groups(&mut self) -> Result<(), ParquetError> {
+        while self.left == 0 && self.group < self.meta.num_row_groups() {
+            let writers = match self.writers.take() {
+                Some(w) => w,
+                None => {
+                    self.writers()?;
+                    self.writers.take().expect("writers")
+                }
+            };
+            let added = writers
+                .into_iter()
+                .map(ArrowColumnWriter::close)
+                .collect::<Result<Vec<_>, _>>()?;
+            let theirs = self.meta.row_group(self.group);
+            let mut group = self.file.next_row_group()?;
+            for column in theirs.columns() {
+                let close = ColumnCloseResult {
+                    bytes_written: column.compressed_size() as u64,
+                    rows_written: theirs.num_rows() as u64,
+                    metadata: column.clone(),
+                    bloom_filter: None,
+                    column_index: None,
+                    offset_index: None,
+                };
+                group.append_column(&self.input, close)?;
+            }
+            for chunk in added {
+                chunk.append_to_row_group(&mut group)?;
+            }
+            group.close()?;
+            self.group += 1;
+            self.left = self
+                .meta
+                .row_groups()
+                .get(self.group)
+                .map_or(0, |g| g.num_rows() as usize);
+        }
+        Ok(())
+    }
+
+    /// Writes the last row groups and the footer and returns the output;
+    /// an error when the rows given were fewer than the input's.
+    pub(crate) fn finish(mut self) -> Result<W, ParquetError> {
+        self.write_full_groups()?;
+        if self.group < self.meta.num_row_groups() {
+            return Err(ParquetError::General(
+                "the output has fewer rows than the input".to_string(),
+            ));
+        }
+        self.file.into_inner()
+    }
 }
 
 #[cfg(test)]

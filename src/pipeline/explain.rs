@@ -10,10 +10,11 @@ use std::sync::{Condvar, Mutex};
 
 use super::history::{read_history, CodeRecord, History, Needs, ReadHistory, Windows};
 use super::partition::Lines;
-use super::{Exclusion, Plan, ScoreConfig, Summary, WindowScope};
+use super::{Exclusion, OutputForm, Plan, ScoreConfig, Summary, WindowScope};
+use crate::io::value_records::{put_cell, put_varint, Cell};
 use crate::io::write_field;
 use crate::lists::format_scaled;
-use crate::score::Engine;
+use crate::score::{Engine, Value};
 use crate::Error;
 
 /// The columns of `explain` after the id, episode and label columns.
@@ -287,10 +288,21 @@ fn explain_episode<'h>(
     Ok(())
 }
 
-/// Writes `explain`'s records as text (CSV or JSON lines): the header and
-/// each episode's records, for a history in memory or a partition of one.
+/// How an [`Explainer`] writes: CSV or JSON lines, or value records for a
+/// typed output (`cfg.output_form`).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum Form {
+    Csv,
+    JsonLines,
+    Values,
+}
+
+/// Writes `explain`'s records as text (CSV or JSON lines) or as value
+/// records ([`crate::io::value_records`]: every cell typed, for a Parquet
+/// output): the header and each episode's records, for a history in memory
+/// or a partition of one.
 pub(crate) struct Explainer {
-    format: ExplainFormat,
+    form: Form,
     delimiter: u8,
     head: Vec<String>,
     /// JSON: which columns are numbers (null when empty).
@@ -302,12 +314,24 @@ pub(crate) struct Explainer {
 
 impl Explainer {
     /// The output's columns for a history read with `plan`; a `--label`
-    /// column that is already one of them is a usage error.
+    /// column that is already one of them is a usage error. With
+    /// `cfg.output_form` value records, the records are handed over typed
+    /// (CSV only: JSON lines are text).
     pub(crate) fn new(
         plan: &Plan,
         cfg: &ScoreConfig,
         format: ExplainFormat,
     ) -> Result<Explainer, Error> {
+        let form = match (format, cfg.output_form) {
+            (ExplainFormat::Csv, OutputForm::Text) => Form::Csv,
+            (ExplainFormat::JsonLines, OutputForm::Text) => Form::JsonLines,
+            (ExplainFormat::Csv, OutputForm::ValueRecords) => Form::Values,
+            (ExplainFormat::JsonLines, OutputForm::ValueRecords) => {
+                return Err(Error::Usage(
+                    "--json writes JSON lines; leave it out for a Parquet output".into(),
+                ))
+            }
+        };
         let p = plan;
         let mut head: Vec<String> = Vec::new();
         if let Some(c) = p.id {
@@ -339,7 +363,7 @@ impl Explainer {
             })
             .collect();
         Ok(Explainer {
-            format,
+            form,
             delimiter: cfg.delimiter,
             head,
             numeric,
@@ -349,11 +373,29 @@ impl Explainer {
         })
     }
 
-    /// The header line (CSV; nothing for JSON lines).
+    /// The header line (CSV; nothing for JSON lines); for value records,
+    /// the stream's opening and the names as its header record.
     pub(crate) fn header(&self) -> Vec<u8> {
         let mut out = Vec::new();
-        if self.format == ExplainFormat::Csv {
-            self.emit(&mut out, &self.head);
+        match self.form {
+            Form::Csv => self.emit(&mut out, &self.head),
+            Form::JsonLines => {}
+            Form::Values => {
+                for (i, c) in self.head.iter().enumerate() {
+                    if i > 0 {
+                        out.push(self.delimiter);
+                    }
+                    write_field(c.as_bytes(), self.delimiter, &mut out);
+                }
+                // No pass-through part: every cell is a value.
+                super::end_header(
+                    OutputForm::ValueRecords,
+                    b"",
+                    &mut out,
+                    0,
+                    crate::rows::Keys::Text,
+                );
+            }
         }
         out
     }
@@ -368,7 +410,7 @@ impl Explainer {
 
     /// Starts a line.
     fn open(&self, out: &mut Vec<u8>) {
-        if self.format == ExplainFormat::JsonLines {
+        if self.form == Form::JsonLines {
             out.push(b'{');
         }
     }
@@ -376,14 +418,14 @@ impl Explainer {
     /// Cell `i` of a line (column `i` of the header), after what separates
     /// it from the cell before.
     fn cell(&self, out: &mut Vec<u8>, i: usize, v: &str) {
-        match self.format {
-            ExplainFormat::Csv => {
+        match self.form {
+            Form::Csv | Form::Values => {
                 if i > 0 {
                     out.push(self.delimiter);
                 }
                 write_field(v.as_bytes(), self.delimiter, out);
             }
-            ExplainFormat::JsonLines => {
+            Form::JsonLines => {
                 if i > 0 {
                     out.push(b',');
                 }
@@ -404,9 +446,9 @@ impl Explainer {
 
     /// Ends a line.
     fn close(&self, out: &mut Vec<u8>) {
-        match self.format {
-            ExplainFormat::Csv => out.push(b'\n'),
-            ExplainFormat::JsonLines => out.extend_from_slice(b"}\n"),
+        match self.form {
+            Form::Csv | Form::Values => out.push(b'\n'),
+            Form::JsonLines => out.extend_from_slice(b"}\n"),
         }
     }
 
@@ -451,6 +493,9 @@ impl Explainer {
         e: usize,
         out: &mut Vec<u8>,
     ) {
+        if self.form == Form::Values {
+            return self.episode_values(engine, windows, hist, sorted, prepared, e, out);
+        }
         // The episode's own cells, made once; then each record's, through
         // two reused buffers.
         let ep = &hist.episodes[e];
@@ -522,6 +567,87 @@ impl Explainer {
             }
             cell(out, &String::from_utf8_lossy(&number));
             self.close(out);
+            Ok(())
+        });
+    }
+
+    /// Episode `e`'s records as value records appended to `out`: no
+    /// pass-through part, every cell a value (the same cells as the text,
+    /// typed: row numbers whole, dates as days, weights with their
+    /// decimals, the rest text; the text's empty cells missing).
+    #[allow(clippy::too_many_arguments)]
+    fn episode_values(
+        &self,
+        engine: &Engine,
+        windows: &Windows,
+        hist: &History,
+        sorted: &[u32],
+        prepared: &Prepared,
+        e: usize,
+        out: &mut Vec<u8>,
+    ) {
+        let ep = &hist.episodes[e];
+        let mut prefix = Vec::new();
+        put_varint(&mut prefix, 0);
+        let mut own = |v: &[u8]| {
+            put_cell(
+                &mut prefix,
+                Cell::Text(String::from_utf8_lossy(v).as_bytes()),
+            );
+        };
+        // Typed ids, episode and kept values are held as keys: their text
+        // by `Field::text`'s rule, as the CSV writes them.
+        let k = hist.plan.keys;
+        if self.id {
+            own(&k.text(hist.patient_id(ep.patient)));
+        }
+        if self.episode {
+            own(&k.text(hist.key(e)));
+        }
+        for j in 0..self.nkeep {
+            own(&k.text(hist.kept(e, j)));
+        }
+        put_cell(&mut prefix, Cell::Whole(hist.row(e) as i64));
+        let missing = Cell::Value(Value::Missing);
+        let date = |d: Option<i32>| d.map_or(missing, Cell::Date);
+        let mut text = String::new();
+        // The sink never fails: nothing to pass on.
+        let _ = explain_episode(engine, windows, hist, sorted, prepared, e, &mut |r| {
+            let spec = &engine.specs()[r.spec];
+            let list = &engine.lists()[spec.list].list;
+            let weighting = &list.weightings[spec.weighting];
+            out.extend_from_slice(&prefix);
+            text.clear();
+            let _ = write!(text, "{}:{}", list.name, weighting.name);
+            put_cell(out, Cell::Text(text.as_bytes()));
+            match (r.source, r.condition) {
+                (Some((src, rec)), Some(c)) => {
+                    put_cell(out, Cell::Whole(hist.row(src) as i64));
+                    put_cell(out, date(r.date(hist)));
+                    let written = String::from_utf8_lossy(&rec.written);
+                    put_cell(out, Cell::Text(written.trim().as_bytes()));
+                    text.clear();
+                    let _ = write!(text, "{}", rec.code);
+                    put_cell(out, Cell::Text(text.as_bytes()));
+                    put_cell(out, Cell::Text(list.conditions[c].key.as_bytes()));
+                }
+                _ => {
+                    put_cell(out, missing);
+                    put_cell(out, date(r.date(hist)));
+                    put_cell(out, missing);
+                    put_cell(out, missing);
+                    put_cell(out, missing);
+                }
+            }
+            let points = |scaled| {
+                Cell::Value(Value::Score {
+                    scaled,
+                    decimals: r.decimals,
+                })
+            };
+            put_cell(out, points(r.weight));
+            put_cell(out, Cell::Text(r.status.as_bytes()));
+            put_cell(out, r.age_points.map_or(missing, points));
             Ok(())
         });
     }
@@ -724,7 +850,7 @@ pub fn explain_stream<'a>(
                 return Ok(summary);
             }
         };
-    let sorted = hist.resolve(&windows);
+    let sorted = hist.resolve(&windows, super::parallel::threads(cfg));
     let hist = hist;
     let explainer = Explainer::new(&hist.plan, cfg, format)?;
     output.write_all(&explainer.header()).map_err(write_err)?;

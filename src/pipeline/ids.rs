@@ -21,7 +21,9 @@ pub(crate) struct Ids {
     indexed: usize,
 }
 
-fn hash(b: &[u8]) -> u64 {
+/// The hash a lookup of `b` starts from ([`Ids::intern_hashed`]): worth
+/// computing ahead, on another thread, where many are looked up.
+pub(crate) fn hash(b: &[u8]) -> u64 {
     let mut h = KeyHasher::default();
     h.write(b);
     // Mix the length in and spread the high bits down.
@@ -58,11 +60,17 @@ impl Ids {
     /// The number of `b`, stored and indexed first if new; the flag says
     /// whether it was new.
     pub fn intern(&mut self, b: &[u8]) -> (u32, bool) {
+        self.intern_hashed(b, hash(b))
+    }
+
+    /// [`Ids::intern`] with `h`, which must be [`hash`]`(b)`.
+    pub fn intern_hashed(&mut self, b: &[u8], h: u64) -> (u32, bool) {
+        debug_assert_eq!(h, hash(b));
         if (self.indexed + 1) * 2 > self.slots.len() {
             self.grow();
         }
         let mask = self.slots.len() - 1;
-        let mut at = hash(b) as usize & mask;
+        let mut at = h as usize & mask;
         loop {
             match self.slots[at] {
                 EMPTY => {
@@ -77,26 +85,53 @@ impl Ids {
         }
     }
 
-    /// Asks the processor to fetch the table slot where a lookup of `b`
-    /// starts, so that a lookup a few rows later does not wait for memory
-    /// (the table of a large history is far larger than the caches).
+    /// Asks the processor to fetch what a lookup of the string of hash `h`
+    /// a few rows later reads, so that it does not wait for memory (the
+    /// table, ends and bytes of a large history are far larger than the
+    /// caches), in three steps some rows apart: `0` the table slot where
+    /// the lookup starts; `1` (the slot fetched by then) the end of the
+    /// string it holds; `2` (that fetched too) the string's bytes.
     #[inline]
-    pub fn prefetch(&self, b: &[u8]) {
+    pub fn prefetch(&self, h: u64, step: u8) {
         if self.slots.is_empty() {
             return;
         }
-        let at = hash(b) as usize & (self.slots.len() - 1);
+        let at = h as usize & (self.slots.len() - 1);
+        let p: *const u8 = match step {
+            0 => self.slots[at..].as_ptr().cast(),
+            _ => {
+                let i = self.slots[at];
+                if i == EMPTY {
+                    return;
+                }
+                let i = i as usize;
+                let before = i.saturating_sub(1);
+                if step == 1 {
+                    self.ends[before..].as_ptr().cast()
+                } else {
+                    let start = if i == 0 {
+                        0
+                    } else {
+                        self.ends[before] as usize
+                    };
+                    match self.bytes.get(start..) {
+                        Some(b) => b.as_ptr(),
+                        None => return,
+                    }
+                }
+            }
+        };
         #[cfg(target_arch = "x86_64")]
         {
-            let p = self.slots[at..].as_ptr() as *const i8;
-            // SAFETY: a prefetch is a hint; `p` points into `slots`.
+            // SAFETY: a prefetch is a hint; `p` points into `slots`,
+            // `ends` or `bytes`.
             #[allow(unused_unsafe)]
             unsafe {
-                std::arch::x86_64::_mm_prefetch::<{ std::arch::x86_64::_MM_HINT_T0 }>(p)
+                std::arch::x86_64::_mm_prefetch::<{ std::arch::x86_64::_MM_HINT_T0 }>(p.cast())
             };
         }
         #[cfg(not(target_arch = "x86_64"))]
-        let _ = at;
+        let _ = p;
     }
 
     fn grow(&mut self) {
@@ -122,6 +157,8 @@ mod tests {
     #[test]
     fn numbers_follow_first_appearance_and_lookups_find_them() {
         let mut ids = Ids::default();
+        // Nothing held yet.
+        ids.prefetch(hash(b"x"), 0);
         let mut reference: HashMap<Vec<u8>, u32> = HashMap::new();
         let mut order: Vec<Vec<u8>> = Vec::new();
         // Many strings, repeated, of several lengths (the empty one too),
@@ -135,7 +172,17 @@ mod tests {
                 order.push(v);
                 continue;
             }
-            let (i, fresh) = ids.intern(&v);
+            // Fetching ahead, in every step, for strings held or not, is
+            // only a hint; a lookup from a hash made ahead finds the same.
+            let h = hash(&v);
+            for step in 0..3 {
+                ids.prefetch(h, step);
+            }
+            let (i, fresh) = if k % 2 == 0 {
+                ids.intern(&v)
+            } else {
+                ids.intern_hashed(&v, h)
+            };
             match reference.get(&v) {
                 Some(&j) => {
                     assert!(!fresh);

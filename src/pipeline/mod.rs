@@ -33,6 +33,7 @@ pub use dates::DateFormat;
 pub use explain::explain_stream;
 #[cfg(feature = "parquet")]
 pub(crate) use parallel::run_batches as run_typed_batches;
+pub(crate) use parallel::threads;
 
 /// How the extract is laid out.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -215,20 +216,22 @@ pub struct ScoreConfig {
     /// Worker threads for the wide layout without lookback (0: one per core;
     /// at most 256).
     pub threads: usize,
-    /// How `score` hands its rows to the output: delimited text, or value
-    /// records for a typed sink (a Parquet output).
+    /// How `score` and `explain` hand their rows to the output: delimited
+    /// text, or value records for a typed sink (a Parquet output).
     pub output_form: OutputForm,
 }
 
-/// How a `score` run writes its rows (see [`crate::io::value_records`]).
+/// How a `score` or `explain` run writes its rows (see
+/// [`crate::io::value_records`]).
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
 pub enum OutputForm {
     /// Delimited text lines, the scores formatted.
     #[default]
     Text,
     /// Value records: each row's pass-through part as delimited text, its
-    /// scores as binary values, for an output that types them (Parquet);
-    /// no score is written as text to be parsed again.
+    /// scores (`explain`: every cell) as binary values, for an output that
+    /// types them (Parquet); no value is written as text to be parsed
+    /// again.
     ValueRecords,
 }
 

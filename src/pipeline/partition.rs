@@ -723,7 +723,7 @@ fn resolve_partition(
             });
         }
     }
-    let sorted = owned.resolve(windows);
+    let sorted = owned.resolve(windows, threads);
     if let Lines::Explain(explainer) = output {
         // Each episode's records, with its row number, in the partition's
         // order (increasing rows), to a file of the partition's own;
@@ -902,6 +902,7 @@ fn read_partition(
             },
             age: (age != u8::MAX).then_some(age as u32),
             pid,
+            pid_hash: None,
             ekey,
             kept_bytes: &rec,
             kept: &kept,

@@ -310,3 +310,90 @@ pub fn invented_extract(seed: u64, rows: usize) -> (String, ExtractFacts) {
     }
     (out, facts)
 }
+
+/// Every row of the Parquet file `bytes`, as one batch.
+#[cfg(feature = "parquet")]
+pub fn parquet_batch(bytes: &[u8]) -> arrow_array::RecordBatch {
+    let b = parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder::try_new(
+        bytes::Bytes::from(bytes.to_vec()),
+    )
+    .unwrap();
+    let schema = b.schema().clone();
+    let batches: Vec<arrow_array::RecordBatch> = b.build().unwrap().map(Result::unwrap).collect();
+    arrow_select::concat::concat_batches(&schema, &batches).unwrap()
+}
+
+/// Checks that `batch`, the Parquet output of an `explain` run, holds the
+/// cells of the CSV output of the same run (`csv`, header first), typed:
+/// the same columns in the same order, each nullable; `row` and
+/// `source_row` `Int64`, `source_date` `Date32` (the CSV's ISO day),
+/// `weight` and `age_points` of type `weights` (`Int64`: the CSV's whole
+/// number; `Float64`: the number the CSV's decimal text stands for), the
+/// columns named in `kept` of their type, every other column text; an
+/// empty CSV cell is null. Panics at the first difference.
+#[cfg(feature = "parquet")]
+pub fn assert_explain_cells(
+    csv: &str,
+    batch: &arrow_array::RecordBatch,
+    weights: &arrow_schema::DataType,
+    kept: &[(&str, arrow_schema::DataType)],
+    what: &str,
+) {
+    use arrow_array::cast::AsArray;
+    use arrow_array::types::{Float64Type, Int64Type};
+    use arrow_array::Array;
+    use arrow_schema::DataType;
+    let mut rdr = csv::ReaderBuilder::new()
+        .has_headers(false)
+        .from_reader(csv.as_bytes());
+    let records: Vec<csv::StringRecord> = rdr.records().map(Result::unwrap).collect();
+    let header: Vec<&str> = records[0].iter().collect();
+    let schema = batch.schema();
+    let names: Vec<&str> = schema.fields().iter().map(|f| f.name().as_str()).collect();
+    assert_eq!(names, header, "{what}: columns");
+    assert_eq!(batch.num_rows(), records.len() - 1, "{what}: rows");
+    for (k, field) in schema.fields().iter().enumerate() {
+        let name = field.name().as_str();
+        assert!(field.is_nullable(), "{what}: {name} not nullable");
+        let want = match name {
+            "row" | "source_row" => DataType::Int64,
+            "source_date" => DataType::Date32,
+            "weight" | "age_points" => weights.clone(),
+            _ => kept
+                .iter()
+                .find(|(n, _)| *n == name)
+                .map_or(DataType::Utf8, |(_, t)| t.clone()),
+        };
+        assert_eq!(field.data_type(), &want, "{what}: type of {name}");
+        let a = batch.column(k);
+        let shown =
+            arrow_cast::display::ArrayFormatter::try_new(a.as_ref(), &Default::default()).unwrap();
+        for (i, r) in records[1..].iter().enumerate() {
+            let cell = &r[k];
+            let ok = if a.is_null(i) {
+                cell.is_empty()
+            } else {
+                match a.data_type() {
+                    DataType::Float64 => {
+                        cell.parse::<f64>().ok() == Some(a.as_primitive::<Float64Type>().value(i))
+                    }
+                    DataType::Int64 => {
+                        cell.parse::<i64>().ok() == Some(a.as_primitive::<Int64Type>().value(i))
+                    }
+                    DataType::Utf8 => cell == a.as_string::<i32>().value(i),
+                    _ => cell == shown.value(i).to_string(),
+                }
+            };
+            assert!(
+                ok,
+                "{what}: row {}, column {name}: Parquet holds {}, the CSV '{cell}'",
+                i + 1,
+                if a.is_null(i) {
+                    "null".to_string()
+                } else {
+                    shown.value(i).to_string()
+                }
+            );
+        }
+    }
+}
