@@ -77,28 +77,199 @@ impl<'a> Field<'a> {
     /// assert_eq!(Field::Date(0).text().unwrap().as_ref(), b"1970-01-01");
     /// assert_eq!(Field::Number(f64::NAN).text(), None);
     /// ```
+    #[inline]
     pub fn text(self) -> Option<Cow<'a, [u8]>> {
         match self {
             Field::Null => None,
             Field::Text(t) => Some(Cow::Borrowed(t)),
-            Field::Integer(i) => Some(Cow::Owned(i.to_string().into_bytes())),
             Field::Number(x) if x.is_nan() => None,
-            Field::Number(x) if x.fract() == 0.0 && x.abs() < 1e15 => {
-                Some(Cow::Owned((x as i64).to_string().into_bytes()))
-            }
-            Field::Number(x) => Some(Cow::Owned(x.to_string().into_bytes())),
             Field::Logical(b) => Some(Cow::Borrowed(if b { b"true" } else { b"false" })),
-            Field::Date(d) => {
-                let mut out = Vec::with_capacity(10);
-                write_iso_date(d, &mut out);
+            _ => {
+                let mut out = Vec::with_capacity(24);
+                self.write_text(&mut out);
                 Some(Cow::Owned(out))
             }
         }
     }
 
+    /// Appends [`Field::text`] to `out` (nothing when missing): the same
+    /// rule, for a caller that reuses its buffer.
+    pub fn write_text(self, out: &mut Vec<u8>) {
+        use std::io::Write as _;
+        // Writing to a Vec cannot fail.
+        let _ = match self {
+            Field::Null => Ok(()),
+            Field::Text(t) => {
+                out.extend_from_slice(t);
+                Ok(())
+            }
+            Field::Integer(i) => write!(out, "{i}"),
+            Field::Number(x) if x.is_nan() => Ok(()),
+            Field::Number(x) if x.fract() == 0.0 && x.abs() < 1e15 => write!(out, "{}", x as i64),
+            Field::Number(x) => write!(out, "{x}"),
+            Field::Logical(b) => {
+                out.extend_from_slice(if b { b"true" } else { b"false" });
+                Ok(())
+            }
+            Field::Date(d) => {
+                write_iso_date(d, out);
+                Ok(())
+            }
+        };
+    }
+
     /// [`Field::text`], empty for a missing value.
+    #[inline]
     pub fn text_or_empty(self) -> Cow<'a, [u8]> {
         self.text().unwrap_or(Cow::Borrowed(b""))
+    }
+}
+
+/// Tags of a typed value's key (see [`Field::key_into`]).
+const KEY_TEXT: u8 = b'T';
+const KEY_INTEGER: u8 = b'I';
+const KEY_NUMBER: u8 = b'F';
+const KEY_LOGICAL: u8 = b'L';
+const KEY_DATE: u8 = b'D';
+
+impl<'a> Field<'a> {
+    /// Appends the value's key to `out`: the bytes by which a typed
+    /// source's ids, episode values and kept values are told apart, stored
+    /// and handed to a typed sink, without making text of them. Returns
+    /// whether the value is present (not null, not NaN, not blank text).
+    ///
+    /// A key is a tag and the value: text as its bytes, a whole number, a
+    /// date (its day) or a number as 8 bytes, true/false as one byte; a
+    /// missing value (null, empty text, NaN) has an empty key; blank text
+    /// keeps its bytes, as a delimited field would. Two values of one column have the same key
+    /// exactly when they are equal: `-0.0` is written as `0.0` (they are
+    /// equal numbers), and NaN is missing. [`key_field`] reads a key back.
+    /// (A column's values are all of one kind, so keys of different kinds
+    /// never meet.)
+    ///
+    /// ```
+    /// use morbus::rows::{key_field, Field};
+    /// let mut k = Vec::new();
+    /// assert!(Field::Integer(9_007_199_254_740_993).key_into(&mut k));
+    /// assert_eq!(key_field(&k), Field::Integer(9_007_199_254_740_993));
+    /// let (mut a, mut b) = (Vec::new(), Vec::new());
+    /// Field::Number(-0.0).key_into(&mut a);
+    /// Field::Number(0.0).key_into(&mut b);
+    /// assert_eq!(a, b);
+    /// let (mut a, mut b) = (Vec::new(), Vec::new());
+    /// Field::Text(b"007").key_into(&mut a);
+    /// Field::Text(b"7").key_into(&mut b);
+    /// assert_ne!(a, b);
+    /// assert!(!Field::Number(f64::NAN).key_into(&mut Vec::new()));
+    /// ```
+    #[inline]
+    pub fn key_into(self, out: &mut Vec<u8>) -> bool {
+        match self {
+            // -0.0 and 0.0 are equal numbers: one key.
+            Field::Number(x) => Field::Number(if x == 0.0 { 0.0 } else { x }).value_into(out),
+            _ => self.value_into(out),
+        }
+    }
+
+    /// Like [`Field::key_into`], but a number keeps its exact bits (`-0.0`
+    /// stays `-0.0`): the value as a typed sink writes it back.
+    #[inline]
+    pub fn value_into(self, out: &mut Vec<u8>) -> bool {
+        match self {
+            // Null and empty text are one (a delimited field holds both
+            // as nothing).
+            Field::Null | Field::Text(b"") => false,
+            Field::Text(t) => {
+                out.push(KEY_TEXT);
+                out.extend_from_slice(t);
+                !t.trim_ascii().is_empty()
+            }
+            Field::Integer(i) => {
+                out.push(KEY_INTEGER);
+                out.extend_from_slice(&i.to_be_bytes());
+                true
+            }
+            Field::Number(x) if x.is_nan() => false,
+            Field::Number(x) => {
+                out.push(KEY_NUMBER);
+                out.extend_from_slice(&x.to_bits().to_be_bytes());
+                true
+            }
+            Field::Logical(b) => {
+                out.extend_from_slice(&[KEY_LOGICAL, b as u8]);
+                true
+            }
+            Field::Date(d) => {
+                out.push(KEY_DATE);
+                out.extend_from_slice(&d.to_be_bytes());
+                true
+            }
+        }
+    }
+}
+
+/// The value whose key ([`Field::key_into`], [`Field::value_into`]) is
+/// `key` (an empty key, or one that is no key, reads as missing).
+pub fn key_field(key: &[u8]) -> Field<'_> {
+    let eight = |b: &[u8]| -> Option<[u8; 8]> { b.try_into().ok() };
+    match key.split_first() {
+        Some((&KEY_TEXT, t)) => Field::Text(t),
+        Some((&KEY_INTEGER, b)) => {
+            eight(b).map_or(Field::Null, |b| Field::Integer(i64::from_be_bytes(b)))
+        }
+        Some((&KEY_NUMBER, b)) => eight(b).map_or(Field::Null, |b| {
+            Field::Number(f64::from_bits(u64::from_be_bytes(b)))
+        }),
+        Some((&KEY_LOGICAL, &[b])) => Field::Logical(b != 0),
+        Some((&KEY_DATE, b)) => {
+            eight(b).map_or(Field::Null, |b| Field::Date(i64::from_be_bytes(b)))
+        }
+        _ => Field::Null,
+    }
+}
+
+/// How the ids, episode values and kept values of a run are held: as the
+/// bytes of their text (a delimited extract) or as keys of typed values
+/// ([`Field::key_into`]: a frame or an Arrow source).
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum Keys {
+    #[default]
+    Text,
+    Typed,
+}
+
+impl Keys {
+    /// The value held as `key`.
+    #[inline]
+    pub fn field(self, key: &[u8]) -> Field<'_> {
+        match self {
+            Keys::Text => Field::Text(key),
+            Keys::Typed => key_field(key),
+        }
+    }
+
+    /// The value held as `key`, as the text a delimited extract would hold
+    /// ([`Field::text`], empty when missing): for output lines and
+    /// messages. Text is borrowed; only other values allocate.
+    #[inline]
+    pub fn text(self, key: &[u8]) -> Cow<'_, [u8]> {
+        match self {
+            Keys::Text => Cow::Borrowed(key),
+            Keys::Typed => key_field(key).text_or_empty(),
+        }
+    }
+
+    /// Whether two values held as keys are equal (numbers by value: `-0.0`
+    /// equals `0.0`).
+    #[inline]
+    pub fn same(self, a: &[u8], b: &[u8]) -> bool {
+        match (self, a.first()) {
+            (Keys::Typed, Some(&KEY_NUMBER)) => match (key_field(a), key_field(b)) {
+                (Field::Number(x), Field::Number(y)) => x == y,
+                _ => a == b,
+            },
+            _ => a == b,
+        }
     }
 }
 
@@ -106,12 +277,33 @@ impl<'a> Field<'a> {
 pub trait Row {
     /// The value of column `col` (numbered as in the run's header).
     fn field(&self, col: usize) -> Field<'_>;
+
+    /// Appends the key of column `col`'s value to `out` (the field's bytes
+    /// for a delimited record; [`Field::key_into`] for a typed row, or
+    /// [`Field::value_into`] when `exact`); returns whether the value is
+    /// present (not missing, not blank).
+    #[inline]
+    fn key_into(&self, col: usize, exact: bool, out: &mut Vec<u8>) -> bool {
+        let f = self.field(col);
+        if exact {
+            f.value_into(out)
+        } else {
+            f.key_into(out)
+        }
+    }
 }
 
 impl Row for Fields<'_> {
     #[inline]
     fn field(&self, col: usize) -> Field<'_> {
         Field::Text(self.get(col))
+    }
+
+    #[inline]
+    fn key_into(&self, col: usize, _exact: bool, out: &mut Vec<u8>) -> bool {
+        let t = self.get(col);
+        out.extend_from_slice(t);
+        !t.trim_ascii().is_empty()
     }
 }
 

@@ -846,8 +846,13 @@ pub fn compare<'a>(
             }
         }
         if by_id {
-            // The unit's id as written, trimmed (rows without one: none).
-            let id = hist.patient_id(ep.patient).trim_ascii();
+            // The unit's id as written, trimmed (rows without one: none);
+            // a typed id by its key.
+            let key = hist.patient_id(ep.patient);
+            let id = match hist.plan.keys.field(key) {
+                Field::Text(t) => t.trim_ascii(),
+                _ => key,
+            };
             group_of.push((!id.is_empty()).then(|| number(&mut group_ids, id)));
         }
         if let Some(c) = cluster_col {

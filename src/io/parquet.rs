@@ -614,6 +614,9 @@ pub struct ParquetSink {
     records: value_records::Reader,
     values: Vec<ColumnBuilder>,
     text_columns: usize,
+    /// Whether the value records' pass-through parts are typed values
+    /// ([`value_records::MAGIC_KEYS`]).
+    keys: bool,
 }
 
 /// Encoding and writing on a thread of its own, so that it runs beside the
@@ -738,6 +741,46 @@ enum Writing {
     Copied(CopyWriter<Box<dyn Write + Send>, Chunks>, Source),
 }
 
+/// How a pass-through column of the header is built.
+enum Builder {
+    /// A kept column: text, cast to the input's type when exact.
+    Kept(String, StringBuilder, Option<DataType>),
+    /// A kept column handed over as typed values (value records of a typed
+    /// source, [`value_records::MAGIC_KEYS`]): the values' keys, built into
+    /// an array of the input's type ([`key_column`]).
+    Keys(String, KeyColumn, Option<DataType>),
+}
+
+/// The keys ([`crate::rows::Field::value_into`]) of a kept column's rows.
+#[derive(Default)]
+struct KeyColumn {
+    bytes: Vec<u8>,
+    ends: Vec<usize>,
+}
+
+impl KeyColumn {
+    fn push(&mut self, key: &[u8]) {
+        self.bytes.extend_from_slice(key);
+        self.ends.push(self.bytes.len());
+    }
+
+    /// The values taken so far (the column is left empty).
+    fn finish(&mut self) -> Vec<crate::rows::Field<'_>> {
+        let mut s = 0;
+        let fields = self
+            .ends
+            .iter()
+            .map(|&t| {
+                let f = crate::rows::key_field(&self.bytes[s..t]);
+                s = t;
+                f
+            })
+            .collect();
+        self.ends.clear();
+        fields
+    }
+}
+
 impl Writing {
     /// The writer of a file whose columns are those of `batches` (the
     /// pipeline's), after those of `passthrough` when there is one. A
@@ -787,10 +830,9 @@ impl Writing {
 }
 
 struct Header {
-    /// Per pass-through column (a kept column: text, cast to the input's
-    /// type when exact): its name, builder and input type, or `None` when
-    /// the column is left out (a copied input column).
-    builders: Vec<Option<(String, StringBuilder, Option<DataType>)>>,
+    /// Per pass-through column: its builder, or `None` when the column is
+    /// left out (a copied input column).
+    builders: Vec<Option<Builder>>,
 }
 
 /// The rows of a Parquet input, read alongside the output.
@@ -903,6 +945,7 @@ impl ParquetSink {
             records: value_records::Reader::new(columns.values.len()),
             values: columns.values.builders(0),
             text_columns: 0,
+            keys: false,
             columns,
             csv: csv_core::ReaderBuilder::new().delimiter(delimiter).build(),
             fields: vec![0; 1 << 12],
@@ -954,7 +997,11 @@ impl ParquetSink {
                     return None;
                 }
                 let t = self.columns.input_types.get(&name).cloned();
-                Some((name, StringBuilder::new(), t))
+                Some(if self.keys {
+                    Builder::Keys(name, KeyColumn::default(), t)
+                } else {
+                    Builder::Kept(name, StringBuilder::new(), t)
+                })
             })
             .collect();
         self.header = Some(Header { builders });
@@ -993,13 +1040,20 @@ impl ParquetSink {
             return Err(self.internal("a record of another width"));
         }
         let row = self.written + self.rows as u64 + 1;
+        let self_internal =
+            |what: &str| Error::data(None, format!("internal error: the output held {what}"));
         for (k, b) in header.builders.iter_mut().enumerate() {
             let v = field(k);
-            let Some((name, b, _)) = b else { continue };
-            if v.is_empty() {
-                b.append_null()
-            } else {
-                b.append_value(utf8(v, name, row)?)
+            match b {
+                None => {}
+                Some(Builder::Keys(..)) => return Err(self_internal("text for typed values")),
+                Some(Builder::Kept(name, b, _)) => {
+                    if v.is_empty() {
+                        b.append_null()
+                    } else {
+                        b.append_value(utf8(v, name, row)?)
+                    }
+                }
             }
         }
         Ok(())
@@ -1059,7 +1113,9 @@ impl ParquetSink {
     fn feed_records(&mut self, input: &[u8]) -> Result<(), Error> {
         let mut reader = std::mem::replace(&mut self.records, value_records::Reader::new(0));
         let r = reader.feed(input, |record| match record {
-            value_records::Record::Header(text) => {
+            value_records::Record::Header(text) | value_records::Record::KeysHeader(text) => {
+                // Whether the rows' pass-through parts are typed values.
+                self.keys = matches!(record, value_records::Record::KeysHeader(_));
                 self.read_text(text)?;
                 let names = self.names();
                 let values = &self.columns.values;
@@ -1072,6 +1128,37 @@ impl ParquetSink {
                 self.text_columns = text_columns.unwrap_or(0);
                 self.start(names[..self.text_columns].to_vec());
                 Ok(())
+            }
+            value_records::Record::Row(mut text, cells) if self.keys => {
+                let width = || {
+                    Error::data(
+                        None,
+                        "internal error: the output held typed values of another width",
+                    )
+                };
+                let Some(header) = self.header.as_mut() else {
+                    return Err(self.internal("a row before its header"));
+                };
+                let mut other = false;
+                for b in header.builders.iter_mut() {
+                    let key = value_records::next_key(&mut text).ok_or_else(width)?;
+                    match b {
+                        Some(Builder::Keys(_, column, _)) => column.push(key),
+                        None => {}
+                        Some(_) => other = true,
+                    }
+                }
+                if other {
+                    return Err(self.internal("typed values for a text column"));
+                }
+                if !text.is_empty() {
+                    return Err(width());
+                }
+                let row = self.written + self.rows as u64 + 1;
+                for (j, (b, &cell)) in self.values.iter_mut().zip(cells).enumerate() {
+                    self.columns.values.append(j, b, cell, row)?;
+                }
+                self.end_row()
             }
             value_records::Record::Row(text, cells) => {
                 match self.text_columns {
@@ -1115,10 +1202,19 @@ impl ParquetSink {
         let rows = self.rows;
         let mut fields: Vec<Field> = Vec::new();
         let mut arrays: Vec<ArrayRef> = Vec::new();
-        for (name, b, t) in header.builders.iter_mut().flatten() {
-            let text: ArrayRef = Arc::new(b.finish());
-            let a = kept_column(text, t);
-            fields.push(Field::new(name.as_str(), a.data_type().clone(), true));
+        for b in header.builders.iter_mut().flatten() {
+            let (name, a): (&str, ArrayRef) = match b {
+                Builder::Kept(n, b, t) => {
+                    let text: ArrayRef = Arc::new(b.finish());
+                    (n, kept_column(text, t))
+                }
+                Builder::Keys(n, column, t) => {
+                    let a = key_column(&column.finish(), t);
+                    column.bytes.clear();
+                    (n, a)
+                }
+            };
+            fields.push(Field::new(name, a.data_type().clone(), true));
             arrays.push(a);
         }
         for (f, a) in self.columns.values.finish(&mut self.values) {
@@ -1195,6 +1291,163 @@ fn parquet_write_error(e: parquet::errors::ParquetError) -> Error {
         },
         other => Error::data(None, format!("cannot write Parquet: {other}")),
     }
+}
+
+/// A kept column handed over as typed values (the long layout's id,
+/// episode and kept columns of a typed source), as an array of the input's
+/// type `input`: the values as the row model read them (text, whole
+/// numbers `Int64`, numbers `Float64`, true/false, dates `Date32`), cast to
+/// the input's type where that gives them back exactly (narrower integers
+/// and floating-point numbers, `Date64`, other text and binary types,
+/// dictionaries). A timestamp column was read as its day and stays a
+/// `Date32` of that day; a type the reader formats as text (decimals,
+/// unsigned 64-bit integers, ...) is cast back from that text only when
+/// every value comes back exactly ([`kept_column`]).
+fn key_column(fields: &[crate::rows::Field<'_>], input: &Option<DataType>) -> ArrayRef {
+    use crate::rows::Field as F;
+    use arrow_array::builder::{BinaryBuilder, BooleanBuilder};
+    let rows = fields.len();
+    let kind = |f: &F<'_>| -> u8 {
+        match f {
+            F::Null => 0,
+            F::Text(_) => 1,
+            F::Integer(_) => 2,
+            F::Number(_) => 3,
+            F::Logical(_) => 4,
+            F::Date(_) => 5,
+        }
+    };
+    let first = fields.iter().find(|f| !matches!(f, F::Null));
+    let mixed = first.is_some_and(|a| {
+        fields
+            .iter()
+            .any(|f| !matches!(f, F::Null) && kind(f) != kind(a))
+    });
+    let natural: ArrayRef = match first {
+        None => {
+            return match input {
+                Some(t) => arrow_array::new_null_array(t, rows),
+                None => arrow_array::new_null_array(&DataType::Utf8, rows),
+            }
+        }
+        // Values of more than one kind (a column's are all of one kind):
+        // their text.
+        Some(_) if mixed => {
+            let mut b = StringBuilder::with_capacity(rows, rows * 8);
+            for f in fields {
+                match f.text() {
+                    Some(t) => b.append_value(String::from_utf8_lossy(&t)),
+                    None => b.append_null(),
+                }
+            }
+            Arc::new(b.finish())
+        }
+        Some(F::Text(_)) => {
+            let utf8 = fields.iter().all(|f| match f {
+                F::Text(t) => std::str::from_utf8(t).is_ok(),
+                _ => true,
+            });
+            if utf8 {
+                let mut b = StringBuilder::with_capacity(rows, rows * 8);
+                for f in fields {
+                    match f {
+                        F::Text(t) => b.append_value(std::str::from_utf8(t).unwrap_or_default()),
+                        _ => b.append_null(),
+                    }
+                }
+                Arc::new(b.finish())
+            } else {
+                let mut b = BinaryBuilder::with_capacity(rows, rows * 8);
+                for f in fields {
+                    match f {
+                        F::Text(t) => b.append_value(t),
+                        _ => b.append_null(),
+                    }
+                }
+                Arc::new(b.finish())
+            }
+        }
+        Some(F::Integer(_)) => {
+            let mut b = Int64Builder::with_capacity(rows);
+            for f in fields {
+                b.append_option(match *f {
+                    F::Integer(i) => Some(i),
+                    _ => None,
+                });
+            }
+            Arc::new(b.finish())
+        }
+        Some(F::Number(_)) => {
+            let mut b = Float64Builder::with_capacity(rows);
+            for f in fields {
+                b.append_option(match *f {
+                    F::Number(x) => Some(x),
+                    _ => None,
+                });
+            }
+            Arc::new(b.finish())
+        }
+        Some(F::Logical(_)) => {
+            let mut b = BooleanBuilder::with_capacity(rows);
+            for f in fields {
+                b.append_option(match *f {
+                    F::Logical(x) => Some(x),
+                    _ => None,
+                });
+            }
+            Arc::new(b.finish())
+        }
+        Some(F::Date(_)) => {
+            let mut b = Date32Builder::with_capacity(rows);
+            for f in fields {
+                b.append_option(match *f {
+                    F::Date(d) => i32::try_from(d).ok(),
+                    _ => None,
+                });
+            }
+            Arc::new(b.finish())
+        }
+        Some(F::Null) => unreachable!("a value"),
+    };
+    let Some(t) = input else { return natural };
+    if natural.data_type() == t {
+        return natural;
+    }
+    let text_like = |t: &DataType| {
+        matches!(
+            t,
+            DataType::Utf8
+                | DataType::LargeUtf8
+                | DataType::Utf8View
+                | DataType::Binary
+                | DataType::LargeBinary
+                | DataType::BinaryView
+        )
+    };
+    use DataType as D;
+    let exact = match (natural.data_type(), t) {
+        (D::Int64, D::Int8 | D::Int16 | D::Int32 | D::UInt8 | D::UInt16 | D::UInt32) => true,
+        (D::Float64, D::Float16 | D::Float32) => true,
+        (D::Date32, D::Date64) => true,
+        (D::Utf8 | D::Binary, t) if text_like(t) => true,
+        (n, D::Dictionary(_, v)) => n == v.as_ref() || (text_like(n) && text_like(v)),
+        _ => false,
+    };
+    if exact {
+        let options = arrow_cast::CastOptions {
+            safe: false,
+            format_options: FORMAT,
+        };
+        if let Ok(a) = arrow_cast::cast_with_options(&natural, t, &options) {
+            return a;
+        }
+        return natural;
+    }
+    // Text the reader made of a type it does not read (decimals, ...).
+    if matches!(natural.data_type(), D::Utf8) && !text_like(t) {
+        return kept_column(natural, input);
+    }
+    natural
 }
 
 /// A kept column's text as the input's type, when casting gives every

@@ -27,6 +27,12 @@
 //! its sink in one process (or a run's own temporary files); it is never
 //! written as an output.
 //!
+//! A stream whose pass-through parts are typed values (a typed source's ids,
+//! episode values and kept values) opens with [`MAGIC_KEYS`] instead: its
+//! header is the same delimited names, its rows' pass-through parts are
+//! sequences of keys ([`put_key`], [`next_key`]), and their cells follow as
+//! above.
+//!
 //! ```
 //! use morbus::io::value_records::{put_cell, put_text, put_values, start, Cell, Reader, Record};
 //! use morbus::score::Value;
@@ -44,7 +50,7 @@
 //! reader
 //!     .feed(&bytes, |r| {
 //!         seen.push(match r {
-//!             Record::Header(t) => (t.to_vec(), Vec::new()),
+//!             Record::Header(t) | Record::KeysHeader(t) => (t.to_vec(), Vec::new()),
 //!             Record::Row(t, cells) => (t.to_vec(), cells.iter().map(|c| format!("{c:?}")).collect()),
 //!         });
 //!         Ok(())
@@ -96,9 +102,42 @@ pub fn put_varint(out: &mut Vec<u8>, mut x: u64) {
     out.push(x as u8);
 }
 
+/// The first bytes of a value-record stream whose pass-through parts are
+/// typed values (a typed source's ids, episode values and kept values, see
+/// [`put_key`]) instead of delimited text.
+pub const MAGIC_KEYS: &[u8] = b"\0morbus value records K\0";
+
+// The reader tells the two openings apart after `MAGIC.len()` bytes.
+const _: () = assert!(MAGIC.len() == MAGIC_KEYS.len());
+
 /// Opens a stream: [`MAGIC`].
 pub fn start(out: &mut Vec<u8>) {
     out.extend_from_slice(MAGIC);
+}
+
+/// Opens a stream whose rows' pass-through parts are keys ([`put_key`]):
+/// [`MAGIC_KEYS`]. The header record stays delimited text (the names).
+pub fn start_keys(out: &mut Vec<u8>) {
+    out.extend_from_slice(MAGIC_KEYS);
+}
+
+/// Appends one field of a typed pass-through part: the value's key
+/// ([`crate::rows::Field::value_into`]; empty for a missing value), as a
+/// length and its bytes. A row's part is its fields in order.
+#[inline]
+pub fn put_key(out: &mut Vec<u8>, key: &[u8]) {
+    put_varint(out, key.len() as u64);
+    out.extend_from_slice(key);
+}
+
+/// The next key of a typed pass-through part ([`put_key`]), taken off its
+/// front; `None` when the part is not a sequence of keys.
+pub fn next_key<'a>(part: &mut &'a [u8]) -> Option<&'a [u8]> {
+    let mut at = 0;
+    let n = varint(part, &mut at).ok()?;
+    let key = take(part, &mut at, usize::try_from(n).ok()?).ok()?;
+    *part = &part[at..];
+    Some(key)
 }
 
 /// Appends a row's (or the header's) pass-through part: its length, then
@@ -153,6 +192,9 @@ pub fn put_values(out: &mut Vec<u8>, values: &[Value]) {
 /// values.
 pub enum Record<'a> {
     Header(&'a [u8]),
+    /// The header of a stream whose rows' pass-through parts are keys
+    /// ([`start_keys`]).
+    KeysHeader(&'a [u8]),
     Row(&'a [u8], &'a [Cell<'a>]),
 }
 
@@ -167,6 +209,8 @@ pub struct Reader {
     at: usize,
     /// Whether the magic and the header have been read.
     magic: bool,
+    /// Whether the stream opened with [`MAGIC_KEYS`].
+    keys: bool,
     header: bool,
 }
 
@@ -254,6 +298,7 @@ impl Reader {
             pending: Vec::new(),
             at: 0,
             magic: false,
+            keys: false,
             header: false,
         }
     }
@@ -267,16 +312,17 @@ impl Reader {
     ) -> Result<(), Error> {
         self.pending.extend_from_slice(input);
         if !self.magic {
-            if self.pending.len() < MAGIC.len() {
-                return if MAGIC.starts_with(&self.pending) {
-                    Ok(())
-                } else {
-                    Err(damaged("it does not open as value records"))
-                };
-            }
-            if !self.pending.starts_with(MAGIC) {
+            let opens = |m: &[u8]| {
+                let n = self.pending.len().min(m.len());
+                self.pending[..n] == m[..n]
+            };
+            if !opens(MAGIC) && !opens(MAGIC_KEYS) {
                 return Err(damaged("it does not open as value records"));
             }
+            if self.pending.len() < MAGIC.len() {
+                return Ok(());
+            }
+            self.keys = self.pending.starts_with(MAGIC_KEYS);
             self.magic = true;
             self.at = MAGIC.len();
         }
@@ -292,7 +338,11 @@ impl Reader {
             if !self.header {
                 self.header = true;
                 self.at = at;
-                each(Record::Header(text))?;
+                each(if self.keys {
+                    Record::KeysHeader(text)
+                } else {
+                    Record::Header(text)
+                })?;
                 continue;
             }
             cells.clear();
@@ -313,6 +363,12 @@ impl Reader {
             self.at = 0;
         }
         Ok(())
+    }
+
+    /// Whether the rows' pass-through parts are keys ([`start_keys`]);
+    /// known once the stream's opening is read.
+    pub fn keys(&self) -> bool {
+        self.keys
     }
 
     /// Whether the stream ended between records (after its header).
@@ -401,7 +457,7 @@ mod tests {
         for p in pieces {
             r.feed(p, |rec| {
                 match rec {
-                    Record::Header(t) => head = t.to_vec(),
+                    Record::Header(t) | Record::KeysHeader(t) => head = t.to_vec(),
                     Record::Row(t, v) => got.push((t.to_vec(), format!("{v:?}"))),
                 }
                 Ok(())
@@ -433,6 +489,64 @@ mod tests {
         assert_eq!(read(&bytes).1, want());
         // A stream cut short is not complete.
         assert!(!read(&[&b[..b.len() - 1]]).2);
+    }
+
+    #[test]
+    fn typed_parts_give_their_keys_back() {
+        let keys: [&[u8]; 4] = [
+            b"",
+            b"I\x00\x00\x00\x00\x00\x00\x00\x07",
+            &[b'T'; 200],
+            b"F",
+        ];
+        let mut part = Vec::new();
+        for k in keys {
+            put_key(&mut part, k);
+        }
+        let mut rest = &part[..];
+        for k in keys {
+            assert_eq!(next_key(&mut rest), Some(k));
+        }
+        assert!(rest.is_empty());
+        // A part cut inside a key is not a sequence of keys.
+        let mut cut = &part[..part.len() - 1];
+        let mut n = 0;
+        while next_key(&mut cut).is_some() {
+            n += 1;
+        }
+        assert_eq!(n, 3);
+        // A stream of keys reads back as such, its header marked.
+        let mut b = Vec::new();
+        start_keys(&mut b);
+        put_text(&mut b, b"id,s");
+        put_text(&mut b, &part);
+        put_values(&mut b, &[Value::Flag(true)]);
+        put_text(&mut b, &part);
+        put_cell(&mut b, Cell::Date(3));
+        let mut r = Reader::new(1);
+        let mut seen = Vec::new();
+        let mut cells = Vec::new();
+        r.feed(&b, |rec| {
+            seen.push(match rec {
+                Record::KeysHeader(t) => t.to_vec(),
+                Record::Header(_) => panic!("a text header"),
+                Record::Row(t, c) => {
+                    cells.push(format!("{c:?}"));
+                    t.to_vec()
+                }
+            });
+            Ok(())
+        })
+        .unwrap();
+        assert!(r.keys() && r.complete());
+        assert_eq!(seen, vec![b"id,s".to_vec(), part.clone(), part]);
+        assert_eq!(
+            cells,
+            [
+                format!("{:?}", [Cell::Value(Value::Flag(true))]),
+                format!("{:?}", [Cell::Date(3)]),
+            ]
+        );
     }
 
     #[test]

@@ -259,7 +259,9 @@ pub fn write_iso_date(days: i64, out: &mut Vec<u8>) {
     let d = doy - (153 * mp + 2) / 5 + 1;
     let m = if mp < 10 { mp + 3 } else { mp - 9 };
     let y = if m <= 2 { y.saturating_add(1) } else { y };
-    out.extend_from_slice(format!("{y:04}-{m:02}-{d:02}").as_bytes());
+    use std::io::Write as _;
+    // Writing to a Vec cannot fail.
+    let _ = write!(out, "{y:04}-{m:02}-{d:02}");
 }
 
 /// Days since 1970-01-01 of a proleptic Gregorian date, validated.

@@ -387,7 +387,14 @@ impl Explainer {
                     }
                     write_field(c.as_bytes(), self.delimiter, &mut out);
                 }
-                super::end_header(OutputForm::ValueRecords, b"", &mut out, 0);
+                // No pass-through part: every cell is a value.
+                super::end_header(
+                    OutputForm::ValueRecords,
+                    b"",
+                    &mut out,
+                    0,
+                    crate::rows::Keys::Text,
+                );
             }
         }
         out
@@ -499,14 +506,16 @@ impl Explainer {
             self.cell(&mut prefix, first, &String::from_utf8_lossy(v));
             first += 1;
         };
+        // A typed source's values as a delimited extract would hold them.
+        let k = hist.plan.keys;
         if self.id {
-            own(hist.patient_id(ep.patient));
+            own(&k.text(hist.patient_id(ep.patient)));
         }
         if self.episode {
-            own(hist.key(e));
+            own(&k.text(hist.key(e)));
         }
         for j in 0..self.nkeep {
-            own(hist.kept(e, j));
+            own(&k.text(hist.kept(e, j)));
         }
         own(hist.row(e).to_string().as_bytes());
         let (mut text, mut number) = (String::new(), Vec::new());
@@ -586,14 +595,17 @@ impl Explainer {
                 Cell::Text(String::from_utf8_lossy(v).as_bytes()),
             );
         };
+        // Typed ids, episode and kept values are held as keys: their text
+        // by `Field::text`'s rule, as the CSV writes them.
+        let k = hist.plan.keys;
         if self.id {
-            own(hist.patient_id(ep.patient));
+            own(&k.text(hist.patient_id(ep.patient)));
         }
         if self.episode {
-            own(hist.key(e));
+            own(&k.text(hist.key(e)));
         }
         for j in 0..self.nkeep {
-            own(hist.kept(e, j));
+            own(&k.text(hist.kept(e, j)));
         }
         put_cell(&mut prefix, Cell::Whole(hist.row(e) as i64));
         let missing = Cell::Value(Value::Missing);

@@ -30,7 +30,7 @@ use super::{
 };
 use crate::code::Code;
 use crate::io::{write_field, RecordScanner};
-use crate::rows::{Batch, BatchRow, Field, Row, RowNaming, RowSource};
+use crate::rows::{Batch, BatchRow, Field, Keys, Row, RowNaming, RowSource};
 use crate::score::{Engine, Value};
 use crate::Error;
 
@@ -484,6 +484,7 @@ impl Builder {
         let other_age = keep_first(&mut age, r.age).map(|(first, a)| disagreement("age", a, first));
         ep.set_age(age);
         let mut other_kept = None;
+        let form = plan.keys;
         for j in 0..nkeep {
             let (s, t) = r.kept[j];
             let v = &r.kept_bytes[s..t];
@@ -495,12 +496,12 @@ impl Builder {
                     self.kept[e as usize * nkeep + j] = Some(v.into());
                     self.kept_rows[e as usize * nkeep + j] = r.row;
                 }
-                Some(first) if **first != *v && other_kept.is_none() => {
+                Some(first) if !form.same(first, v) && other_kept.is_none() => {
                     let name = &plan.header.names[plan.keep[j]];
                     other_kept = Some(disagreement(
                         &format!("value of column '{name}'"),
-                        String::from_utf8_lossy(v),
-                        String::from_utf8_lossy(first),
+                        String::from_utf8_lossy(&form.text(v)),
+                        String::from_utf8_lossy(&form.text(first)),
                     ));
                 }
                 Some(_) => {}
@@ -1021,26 +1022,30 @@ fn read_row(
     keeps: Keeps,
 ) -> Result<(), Error> {
     let words = engine.words();
-    let id_text = |c: usize| row.field(c).text_or_empty();
-    let no_id = p.id.is_some_and(|c| id_text(c).trim_ascii().is_empty());
+    // Ids and episode values as keys (a text field's bytes, a typed
+    // value's key: no text is made of a typed value); kept values as keys
+    // that give the value back exactly, empty when missing.
+    let s = b.ids.len();
+    let has_id = p.id.is_some_and(|c| row.key_into(c, false, &mut b.ids));
+    let pid = (s, b.ids.len());
+    let no_id = p.id.is_some() && !has_id;
     if no_id {
         if cfg.strict {
             return Err(p.missing_id(line()));
         }
         b.summary.missing_ids += 1;
     }
-    let id = |c: Option<usize>, ids: &mut Vec<u8>| {
-        let s = ids.len();
-        if let Some(c) = c {
-            ids.extend_from_slice(&id_text(c));
-        }
-        (s, ids.len())
-    };
-    let pid = id(p.id, &mut b.ids);
-    let ekey = id(p.episode, &mut b.ids);
+    let s = b.ids.len();
+    if let Some(c) = p.episode {
+        row.key_into(c, false, &mut b.ids);
+    }
+    let ekey = (s, b.ids.len());
     for &c in &p.keep {
-        let span = id(Some(c), &mut b.ids);
-        b.keep.push(span);
+        let s = b.ids.len();
+        if !row.key_into(c, true, &mut b.ids) {
+            b.ids.truncate(s);
+        }
+        b.keep.push((s, b.ids.len()));
     }
     for &c in &p.values {
         let cell = Cell::read(row.field(c), &mut b.ids);
@@ -1447,7 +1452,11 @@ pub(crate) fn read_history<'a>(
         Input::Rows(source) => run_batches(
             cfg,
             source,
-            |header| Ok((with_values(Plan::new(cfg, header, false)?)?, Vec::new())),
+            |header| {
+                let mut plan = Plan::new(cfg, header, false)?;
+                plan.keys = Keys::Typed;
+                Ok((with_values(plan)?, Vec::new()))
+            },
             |h, batch, first| read_batch(engine, cfg, &h.0, batch, first, keeps),
             |h, b, p| consume(h, b, p),
         ),
@@ -1942,7 +1951,7 @@ pub(crate) fn header_line(
         }
         write_field(c.name.as_bytes(), d, &mut out);
     }
-    super::end_header(cfg.output_form, eol, &mut out, 0);
+    super::end_header(cfg.output_form, eol, &mut out, 0, p.keys);
     Ok(out)
 }
 
@@ -1993,15 +2002,30 @@ impl Formatter {
             }
             Layout::Wide if scores_only => {}
             Layout::Wide => out.extend_from_slice(hist.raw_row(e, rows)),
+            // A typed source's values handed to a typed sink as they are.
+            Layout::Long
+                if p.keys == Keys::Typed && cfg.output_form == OutputForm::ValueRecords =>
+            {
+                use crate::io::value_records::put_key;
+                put_key(out, hist.patient_id(ep.patient));
+                if p.episode.is_some() {
+                    put_key(out, hist.key(e));
+                }
+                for j in 0..p.keep.len() {
+                    put_key(out, hist.kept(e, j));
+                }
+            }
+            // Text: a typed value as a delimited extract would hold it.
             Layout::Long => {
-                write_field(hist.patient_id(ep.patient), d, out);
+                let k = p.keys;
+                write_field(&k.text(hist.patient_id(ep.patient)), d, out);
                 if p.episode.is_some() {
                     out.push(d);
-                    write_field(hist.key(e), d, out);
+                    write_field(&k.text(hist.key(e)), d, out);
                 }
                 for j in 0..p.keep.len() {
                     out.push(d);
-                    write_field(hist.kept(e, j), d, out);
+                    write_field(&k.text(hist.kept(e, j)), d, out);
                 }
             }
         }

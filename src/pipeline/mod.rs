@@ -1084,6 +1084,10 @@ pub(crate) struct Plan {
     pub values: Vec<usize>,
     pub ncols: usize,
     pub crlf: bool,
+    /// How ids, episode values and kept values are held: the bytes of a
+    /// delimited record's fields, or keys of typed values (a frame or an
+    /// Arrow source; set by the history reader).
+    pub keys: crate::rows::Keys,
 }
 
 /// A record-level failure, turned into an [`Error`] with the line number by
@@ -1227,6 +1231,7 @@ impl Plan {
             keep,
             values: Vec::new(),
             crlf,
+            keys: crate::rows::Keys::Text,
         })
     }
 
@@ -1282,7 +1287,7 @@ impl Plan {
         cfg.exclude_primary
             && self
                 .primary
-                .is_some_and(|c| is_flag_set(&row.field(c).text_or_empty()))
+                .is_some_and(|c| is_field_flag_set(row.field(c)))
     }
 
     /// The present-on-admission exclusion of the codes of diagnosis column
@@ -1576,6 +1581,18 @@ pub fn is_flag_set(raw: &[u8]) -> bool {
         .any(|f| f.as_bytes().eq_ignore_ascii_case(v))
 }
 
+/// [`is_flag_set`] for a value of any row: text as it is; a typed value
+/// as `is_flag_set` reads its text (`1`, `true`), without making it.
+pub(crate) fn is_field_flag_set(f: Field<'_>) -> bool {
+    match f {
+        Field::Text(t) => is_flag_set(t),
+        Field::Integer(i) => i == 1,
+        Field::Number(x) => x == 1.0,
+        Field::Logical(b) => b,
+        Field::Null | Field::Date(_) => false,
+    }
+}
+
 /// Keeps the first readable value of a long-layout unit (its date or age)
 /// in `slot`; returns `(first, new)` when `new` is readable and differs
 /// from it (the row disagrees with the unit).
@@ -1647,13 +1664,23 @@ pub(crate) fn end_row(
 
 /// Ends the output's header line, `out[start..]` (its names, delimited): as
 /// text, the line end; as value records, the stream's opening and the
-/// names' length in front of them.
-pub(crate) fn end_header(form: OutputForm, eol: &[u8], out: &mut Vec<u8>, start: usize) {
+/// names' length in front of them (the opening saying whether the rows'
+/// pass-through parts are text or, `keys` typed, keys).
+pub(crate) fn end_header(
+    form: OutputForm,
+    eol: &[u8],
+    out: &mut Vec<u8>,
+    start: usize,
+    keys: crate::rows::Keys,
+) {
     match form {
         OutputForm::Text => out.extend_from_slice(eol),
         OutputForm::ValueRecords => {
             let mut head = Vec::with_capacity(crate::io::value_records::MAGIC.len() + 4);
-            crate::io::value_records::start(&mut head);
+            match keys {
+                crate::rows::Keys::Text => crate::io::value_records::start(&mut head),
+                crate::rows::Keys::Typed => crate::io::value_records::start_keys(&mut head),
+            }
             crate::io::value_records::put_varint(&mut head, (out.len() - start) as u64);
             out.splice(start..start, head);
         }
@@ -1719,6 +1746,33 @@ pub fn reads_history(cfg: &ScoreConfig) -> bool {
 mod tests {
     use super::*;
     use crate::io::RecordScanner;
+
+    #[test]
+    fn a_typed_flag_reads_as_its_text_would() {
+        let fields = [
+            Field::Null,
+            Field::Integer(1),
+            Field::Integer(0),
+            Field::Integer(-1),
+            Field::Integer(11),
+            Field::Number(1.0),
+            Field::Number(1.5),
+            Field::Number(0.0),
+            Field::Number(f64::NAN),
+            Field::Number(1.0 + f64::EPSILON),
+            Field::Logical(true),
+            Field::Logical(false),
+            Field::Date(1),
+            Field::Date(0),
+        ];
+        for f in fields {
+            assert_eq!(
+                is_field_flag_set(f),
+                is_flag_set(&f.text_or_empty()),
+                "{f:?}"
+            );
+        }
+    }
 
     #[test]
     fn the_line_cursor_agrees_with_counting_from_the_start() {

@@ -57,7 +57,7 @@ use super::{Exclusion, Layout, OutputForm, OverMemory, Plan, ScoreConfig, Summar
 use crate::code::Code;
 use crate::io::value_records::put_varint;
 use crate::matcher::KeyHasher;
-use crate::rows::RowNaming;
+use crate::rows::{Keys, RowNaming};
 use crate::score::Engine;
 use crate::Error;
 use std::hash::Hasher;
@@ -153,11 +153,26 @@ pub(crate) struct Spill {
     /// in messages.
     plan: Plan,
     naming: Option<RowNaming>,
+    /// A typed id's text, for [`partition_of`].
+    scratch: Vec<u8>,
 }
 
-fn partition_of(pid: &[u8]) -> usize {
+/// The partition of patient id `pid` (held as `keys` says): by a hash of
+/// the id's text, so that a typed source and a delimited extract of the
+/// same data partition alike (and their summaries, which name the largest
+/// partition's busiest id, agree). A typed value's text is written into
+/// `scratch` for the hash only.
+fn partition_of(keys: Keys, pid: &[u8], scratch: &mut Vec<u8>) -> usize {
+    let text = match keys.field(pid) {
+        crate::rows::Field::Text(t) => t,
+        f => {
+            scratch.clear();
+            f.write_text(scratch);
+            &scratch[..]
+        }
+    };
     let mut h = KeyHasher::default();
-    h.write(pid);
+    h.write(text);
     let x = h.finish().wrapping_mul(0xD6E8_FEB8_6659_FD93);
     ((x >> 32) as usize) % PARTITIONS
 }
@@ -245,6 +260,7 @@ impl Spill {
             rec: Vec::new(),
             plan: plan.clone(),
             naming: naming.cloned(),
+            scratch: Vec::new(),
         })
     }
 
@@ -328,7 +344,7 @@ impl Spill {
         let k = if self.by_row {
             (r.row % PARTITIONS as u64) as usize
         } else {
-            partition_of(r.pid)
+            partition_of(self.plan.keys, r.pid, &mut self.scratch)
         };
         let part = &mut self.parts[k];
         let rec = &mut self.rec;
@@ -698,7 +714,11 @@ fn resolve_partition(
             summary.over_memory = Some(OverMemory {
                 bytes: held,
                 episodes: n as u64,
-                id: owned.patient_id(p as u32).to_vec(),
+                id: owned
+                    .plan
+                    .keys
+                    .text(owned.patient_id(p as u32))
+                    .into_owned(),
                 id_episodes: k,
             });
         }

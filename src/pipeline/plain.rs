@@ -149,8 +149,8 @@ pub fn score_wide(
 }
 
 /// Long layout: code rows grouped by their id into units, in order of
-/// first appearance, over batches taken in row order. Ids are compared as
-/// the text a delimited extract would hold ([`Field::text`]); a missing id
+/// first appearance, over batches taken in row order. Ids are compared by
+/// their keys ([`Field::key_into`]: equal values, no text made); a missing id
 /// (null) is a unit of its own, apart from an empty one, and both count as
 /// rows without an id (a `--strict` stop), as an empty id of a text
 /// extract does.
@@ -158,6 +158,8 @@ pub struct LongScorer<'e> {
     engine: &'e Engine,
     index: HashMap<Box<[u8]>, usize, BuildHasherDefault<KeyHasher>>,
     null: Option<usize>,
+    /// The key of the row being added.
+    key: Vec<u8>,
     /// The row (counted from 1) where each unit first appears.
     first_rows: Vec<u64>,
     bits: Vec<u64>,
@@ -172,6 +174,7 @@ impl<'e> LongScorer<'e> {
             engine,
             index: HashMap::default(),
             null: None,
+            key: Vec::new(),
             first_rows: Vec::new(),
             bits: Vec::new(),
             ages: Vec::new(),
@@ -220,8 +223,9 @@ impl<'e> LongScorer<'e> {
             let line = first + i as u64;
             self.summary.rows_read += 1;
             let field = row.field(idc);
-            let id = field.text();
-            if id.as_deref().is_none_or(|t| t.trim_ascii().is_empty()) {
+            let mut key = std::mem::take(&mut self.key);
+            key.clear();
+            if !field.key_into(&mut key) {
                 if cfg.strict {
                     return Err(p.missing_id(line));
                 }
@@ -230,10 +234,11 @@ impl<'e> LongScorer<'e> {
             let u = self.unit(
                 match field {
                     Field::Null => None,
-                    _ => Some(id.as_deref().unwrap_or(b"")),
+                    _ => Some(&key),
                 },
                 line,
             );
+            self.key = key;
             let age = p
                 .read_age(cfg, &row, &mut self.summary)
                 .map_err(|i| p.issue_at(i, line))?;
@@ -345,7 +350,7 @@ mod tests {
         ]);
         let b = Rows(vec![
             [Field::Null, T("G30"), Field::Null],
-            [T("7"), T("N18"), Field::Null],
+            [Field::Integer(7), T("N18"), Field::Null],
             [T(""), T("J44"), Field::Null],
         ]);
         s.add(&c, &p, &a, 1).unwrap();
@@ -361,8 +366,8 @@ mod tests {
             scaled: n * SCALE,
             decimals: 0,
         };
-        // b; 7 (the integer and the text read alike); null; "" (apart
-        // from null).
+        // b; 7 (one integer in two batches); null; "" (apart from
+        // null).
         assert_eq!(
             got,
             vec![(1, count(1)), (2, count(2)), (4, count(1)), (6, count(1))]

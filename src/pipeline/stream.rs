@@ -67,6 +67,7 @@ fn score_long(
                     if rec.crlf { b"\r\n" } else { b"\n" },
                     &mut out,
                     0,
+                    crate::rows::Keys::Text,
                 );
                 plan = Some(p);
                 return Ok(());
@@ -242,7 +243,13 @@ fn score_wide_parallel(
                 write_field(c.name.as_bytes(), cfg.delimiter, &mut header_out);
             }
             let eol: &[u8] = if rec.crlf { b"\r\n" } else { b"\n" };
-            end_header(cfg.output_form, eol, &mut header_out, 0);
+            end_header(
+                cfg.output_form,
+                eol,
+                &mut header_out,
+                0,
+                crate::rows::Keys::Text,
+            );
             Ok((p, header_out))
         },
         |h, block, start, scanner| {
