@@ -498,7 +498,6 @@ impl Explainer {
         }
         // The episode's own cells, made once; then each record's, through
         // two reused buffers.
-        let ep = &hist.episodes[e];
         let mut prefix = Vec::new();
         self.open(&mut prefix);
         let mut first = 0;
@@ -506,17 +505,7 @@ impl Explainer {
             self.cell(&mut prefix, first, &String::from_utf8_lossy(v));
             first += 1;
         };
-        // A typed source's values as a delimited extract would hold them.
-        let k = hist.plan.keys;
-        if self.id {
-            own(&k.text(hist.patient_id(ep.patient)));
-        }
-        if self.episode {
-            own(&k.text(hist.key(e)));
-        }
-        for j in 0..self.nkeep {
-            own(&k.text(hist.kept(e, j)));
-        }
+        self.own_values(hist, e, &mut own);
         own(hist.row(e).to_string().as_bytes());
         let (mut text, mut number) = (String::new(), Vec::new());
         // The sink never fails: nothing to pass on.
@@ -571,6 +560,22 @@ impl Explainer {
         });
     }
 
+    /// Episode `e`'s own values (id, episode, kept columns, as asked for)
+    /// to `each`, as a delimited extract would hold them: a typed source's
+    /// keys as their text by `Field::text`'s rule, as the CSV writes them.
+    fn own_values(&self, hist: &History, e: usize, each: &mut impl FnMut(&[u8])) {
+        let k = hist.plan.keys;
+        if self.id {
+            each(&k.text(hist.patient_id(hist.episodes[e].patient)));
+        }
+        if self.episode {
+            each(&k.text(hist.key(e)));
+        }
+        for j in 0..self.nkeep {
+            each(&k.text(hist.kept(e, j)));
+        }
+    }
+
     /// Episode `e`'s records as value records appended to `out`: no
     /// pass-through part, every cell a value (the same cells as the text,
     /// typed: row numbers whole, dates as days, weights with their
@@ -586,7 +591,6 @@ impl Explainer {
         e: usize,
         out: &mut Vec<u8>,
     ) {
-        let ep = &hist.episodes[e];
         let mut prefix = Vec::new();
         put_varint(&mut prefix, 0);
         let mut own = |v: &[u8]| {
@@ -595,18 +599,7 @@ impl Explainer {
                 Cell::Text(String::from_utf8_lossy(v).as_bytes()),
             );
         };
-        // Typed ids, episode and kept values are held as keys: their text
-        // by `Field::text`'s rule, as the CSV writes them.
-        let k = hist.plan.keys;
-        if self.id {
-            own(&k.text(hist.patient_id(ep.patient)));
-        }
-        if self.episode {
-            own(&k.text(hist.key(e)));
-        }
-        for j in 0..self.nkeep {
-            own(&k.text(hist.kept(e, j)));
-        }
+        self.own_values(hist, e, &mut own);
         put_cell(&mut prefix, Cell::Whole(hist.row(e) as i64));
         let missing = Cell::Value(Value::Missing);
         let date = |d: Option<i32>| d.map_or(missing, Cell::Date);
