@@ -106,16 +106,69 @@ impl DateFormat {
             DateFormat::Pattern(p) => {
                 let (y, m, d) = pattern_parts(p.as_bytes(), text)?;
                 let day = days_from_civil(y as i32, m, d)?;
-                let order = if !self.day_month_numeric() || d == m {
-                    DayMonth::Same
-                } else if d > 12 {
-                    DayMonth::Proven
-                } else {
-                    DayMonth::Either
-                };
-                Some((day, order))
+                Some((day, self.order(m, d)))
             }
         }
+    }
+
+    /// What a date's month `m` and day `d` tell about the pattern's
+    /// day/month order.
+    fn order(&self, m: u32, d: u32) -> DayMonth {
+        if !self.day_month_numeric() || d == m {
+            DayMonth::Same
+        } else if d > 12 {
+            DayMonth::Proven
+        } else {
+            DayMonth::Either
+        }
+    }
+
+    /// Reads a whole number (a typed column of numbers, such as a Parquet
+    /// `INT32` holding 20240301) as a date: only a pattern made of `%Y`,
+    /// `%m` and `%d` alone, with nothing between them (`%Y%m%d`,
+    /// `%d%m%Y`, ...), reads numbers, by their digits: a four-digit year
+    /// (1000 to 9999) and two-digit month and day, the leading zero that a
+    /// number cannot hold restored (`%d%m%Y`: 1032024 is 01032024, 1 March
+    /// 2024). The value's digits are taken apart by arithmetic, not written
+    /// out as text. Any other pattern, ISO included, reads no number.
+    ///
+    /// ```
+    /// use morbus::pipeline::dates::{DateFormat, DayMonth};
+    /// let ymd = DateFormat::from_pattern("%Y%m%d").unwrap();
+    /// assert_eq!(ymd.read_number(20240301), ymd.read(b"20240301"));
+    /// let dmy = DateFormat::from_pattern("%d%m%Y").unwrap();
+    /// assert_eq!(dmy.read_number(1032024), dmy.read(b"01032024"));
+    /// assert_eq!(dmy.read_number(25032024).unwrap().1, DayMonth::Proven);
+    /// assert_eq!(ymd.read_number(20241301), None);
+    /// assert_eq!(ymd.read_number(9990301), None);
+    /// assert_eq!(DateFormat::Iso.read_number(20240301), None);
+    /// ```
+    pub fn read_number(&self, n: i64) -> Option<(i32, DayMonth)> {
+        let DateFormat::Pattern(p) = self else {
+            return None;
+        };
+        let p = p.as_bytes();
+        if p.len() != 6 || p[0] != b'%' || p[2] != b'%' || p[4] != b'%' {
+            return None;
+        }
+        // Three directives of 4 + 2 + 2 digits: at most eight digits.
+        let mut rest = u32::try_from(n).ok().filter(|&n| n < 100_000_000)?;
+        let (mut y, mut m, mut d) = (None, None, None);
+        for k in (0..3).rev() {
+            let (size, slot) = match p[2 * k + 1] {
+                b'Y' => (10_000, &mut y),
+                b'm' => (100, &mut m),
+                b'd' => (100, &mut d),
+                _ => return None,
+            };
+            *slot = Some(rest % size);
+            rest /= size;
+        }
+        let (y, m, d) = (y?, m?, d?);
+        if y < 1000 {
+            return None;
+        }
+        Some((days_from_civil(y as i32, m, d)?, self.order(m, d)))
     }
 
     /// Days since 1970-01-01, or `None` if the text is not a valid date.

@@ -110,6 +110,56 @@ pub fn read_poa(counting: &[String], raw: &[u8]) -> PoaReading {
     }
 }
 
+/// Reads a typed present-on-admission value (a frame's or Parquet file's
+/// column) with the rules of [`read_poa`], without writing it out as text:
+/// text as it is; a missing value (null, NaN) as an empty field;
+/// true/false as the words `true` and `false` would read; a number
+/// matches the values (of `counting` and the guidelines) that read as
+/// that number (`1`); a date matches none.
+///
+/// ```
+/// use morbus::pipeline::{read_poa, read_poa_field, PoaReading, DEFAULT_POA_VALUES};
+/// use morbus::rows::Field;
+/// let counting: Vec<String> = DEFAULT_POA_VALUES.iter().map(|v| v.to_string()).collect();
+/// assert_eq!(read_poa_field(&counting, Field::Integer(1)), PoaReading::Present);
+/// assert_eq!(read_poa_field(&counting, Field::Number(1.0)), PoaReading::Present);
+/// assert_eq!(read_poa_field(&counting, Field::Integer(0)), PoaReading::Unrecognised);
+/// assert_eq!(read_poa_field(&counting, Field::Null), PoaReading::Present);
+/// assert_eq!(read_poa_field(&counting, Field::Text(b"N")), read_poa(&counting, b"N"));
+/// assert_eq!(read_poa_field(&counting, Field::Logical(true)), PoaReading::Unrecognised);
+/// ```
+pub fn read_poa_field(counting: &[String], field: Field<'_>) -> PoaReading {
+    let is: &dyn Fn(&str) -> bool = match field {
+        Field::Text(t) => return read_poa(counting, t),
+        Field::Null => return read_poa(counting, b""),
+        Field::Number(x) if x.is_nan() => return read_poa(counting, b""),
+        Field::Logical(b) => return read_poa(counting, if b { b"true" } else { b"false" }),
+        Field::Date(_) => return PoaReading::Unrecognised,
+        Field::Integer(i) => &move |p: &str| p.parse::<i64>() == Ok(i),
+        Field::Number(x) => &move |p: &str| p.parse::<f64>() == Ok(x),
+    };
+    if counting.iter().any(|p| is(p)) {
+        PoaReading::Present
+    } else if KNOWN_POA_VALUES.iter().any(|p| is(p)) {
+        PoaReading::NotPresent
+    } else {
+        PoaReading::Unrecognised
+    }
+}
+
+/// A present-on-admission value as the summary counts and shows it: text
+/// as it is, a typed value as a delimited extract would hold it (only a
+/// number other than 0 to 9, or a date, is written out).
+fn poa_shown(field: Field<'_>) -> std::borrow::Cow<'_, [u8]> {
+    const DIGITS: &[u8; 10] = b"0123456789";
+    match field {
+        Field::Integer(i @ 0..=9) => {
+            std::borrow::Cow::Borrowed(&DIGITS[i as usize..i as usize + 1])
+        }
+        f => f.text_or_empty(),
+    }
+}
+
 /// Reads a percentage option (`1`, `0.5`, `2%`): from 0 to 100.
 ///
 /// ```
@@ -1307,24 +1357,25 @@ impl Plan {
         let Some(&c) = c else {
             return Ok(None);
         };
-        let raw = &row.field(c).text_or_empty()[..];
-        match read_poa(&cfg.poa_values, raw) {
+        let field = row.field(c);
+        match read_poa_field(&cfg.poa_values, field) {
             PoaReading::Present => {
-                summary.add_poa(raw, 1);
+                summary.add_poa(&poa_shown(field), 1);
                 Ok(None)
             }
             PoaReading::NotPresent => {
-                summary.add_poa(raw, 1);
+                summary.add_poa(&poa_shown(field), 1);
                 Ok(Some(Exclusion::NotPresentOnAdmission))
             }
             PoaReading::Unrecognised => {
+                let raw = poa_shown(field);
                 if cfg.strict {
                     return Err(RowIssue::UnrecognisedPoa {
                         column: c,
                         value: raw.to_vec(),
                     });
                 }
-                summary.add_poa(raw, 1);
+                summary.add_poa(&raw, 1);
                 summary.unrecognised_poa += 1;
                 Ok(Some(Exclusion::NotPresentOnAdmission))
             }
@@ -1347,10 +1398,16 @@ impl Plan {
         let primary_row = cfg.layout == Layout::Long && self.primary_row(cfg, row);
         let mut first = true;
         for (k, &c) in self.dx.iter().enumerate() {
-            // Text as it is; a typed value (a column of numbers in a
-            // Parquet file) by its text, which is then checked as a code.
-            let v = row.field(c).text_or_empty();
-            let v = &v[..];
+            // A code is text. A missing value is an empty field; any other
+            // typed value (a column of numbers or dates) holds no code: it
+            // is an invalid value, written out only to be shown.
+            let field = row.field(c);
+            let (v, typed) = match field {
+                Field::Text(t) => (t, false),
+                Field::Null => (&b""[..], false),
+                Field::Number(x) if x.is_nan() => (&b""[..], false),
+                _ => (&b"?"[..], true),
+            };
             if v.is_empty() {
                 if k == 0 {
                     first = false;
@@ -1365,6 +1422,18 @@ impl Plan {
             } else {
                 self.poa_exclusion(cfg, row, k, summary)?
             };
+            if typed {
+                let shown = field.text_or_empty();
+                if cfg.strict {
+                    return Err(RowIssue::InvalidCode {
+                        column: k,
+                        value: shown.into_owned(),
+                    });
+                }
+                summary.invalid(&shown);
+                first = false;
+                continue;
+            }
             let mut one = |part: &[u8], first: &mut bool| -> Result<(), RowIssue> {
                 let is_first = std::mem::replace(first, false) && k == 0;
                 match crate::code::read_code(part) {
@@ -1462,8 +1531,10 @@ impl Plan {
     ///
     /// A typed date (a frame's or Parquet file's date column) is its day,
     /// counted as a date read, when its year is one a text date can have
-    /// (1000 to 9999); other typed values are read by their text with the
-    /// date format.
+    /// (1000 to 9999); a whole number is read by its digits with a packed
+    /// date format ([`DateFormat::read_number`]: 20240301 with `%Y%m%d`);
+    /// other typed values are unreadable. Only an unreadable value is
+    /// written out, as the summary and messages show it.
     pub fn read_date(
         &self,
         cfg: &ScoreConfig,
@@ -1474,22 +1545,30 @@ impl Plan {
             return Ok(None);
         };
         let field = row.field(c);
-        if let Field::Date(d) = field {
-            if let Some(day) = crate::rows::typed_day(d) {
-                summary.dates_read += 1;
-                return Ok(Some(day));
+        let reading = match field {
+            Field::Null => return Err(None),
+            Field::Number(x) if x.is_nan() => return Err(None),
+            Field::Text(t) => {
+                let raw = t.trim_ascii();
+                if raw.is_empty() {
+                    return Err(None);
+                }
+                cfg.date_format.read(raw)
             }
-        }
-        let text = field.text_or_empty();
-        let raw = text.trim_ascii();
-        if raw.is_empty() {
-            return Err(None);
-        }
-        if let Field::Date(_) = field {
-            summary.unreadable_date_example(raw);
-            return Err(Some(raw.to_vec()));
-        }
-        match cfg.date_format.read(raw) {
+            Field::Date(d) => match crate::rows::typed_day(d) {
+                Some(day) => {
+                    summary.dates_read += 1;
+                    return Ok(Some(day));
+                }
+                None => None,
+            },
+            Field::Integer(i) => cfg.date_format.read_number(i),
+            Field::Number(x) if x.fract() == 0.0 && x.abs() < 1e15 => {
+                cfg.date_format.read_number(x as i64)
+            }
+            Field::Number(_) | Field::Logical(_) => None,
+        };
+        match reading {
             Some((day, order)) => {
                 summary.dates_read += 1;
                 match order {
@@ -1500,6 +1579,9 @@ impl Plan {
                 Ok(Some(day))
             }
             None => {
+                // The value as shown in the summary and messages.
+                let shown = field.text_or_empty();
+                let raw = shown.trim_ascii();
                 summary.unreadable_date_example(raw);
                 Err(Some(raw.to_vec()))
             }
