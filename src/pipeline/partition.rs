@@ -153,26 +153,20 @@ pub(crate) struct Spill {
     /// in messages.
     plan: Plan,
     naming: Option<RowNaming>,
-    /// A typed id's text, for [`partition_of`].
-    scratch: Vec<u8>,
 }
 
 /// The partition of patient id `pid` (held as `keys` says): by a hash of
-/// the id's text, so that a typed source and a delimited extract of the
-/// same data partition alike (and their summaries, which name the largest
-/// partition's busiest id, agree). A typed value's text is written into
-/// `scratch` for the hash only.
-fn partition_of(keys: Keys, pid: &[u8], scratch: &mut Vec<u8>) -> usize {
-    let text = match keys.field(pid) {
+/// the id's text, or of a typed id's key (a whole number, a date...: its
+/// kind and value, not written out as text). A text id of a typed source
+/// (a string column) hashes as the same id of a delimited extract, so
+/// that both partition alike.
+fn partition_of(keys: Keys, pid: &[u8]) -> usize {
+    let bytes = match keys.field(pid) {
         crate::rows::Field::Text(t) => t,
-        f => {
-            scratch.clear();
-            f.write_text(scratch);
-            &scratch[..]
-        }
+        _ => pid,
     };
     let mut h = KeyHasher::default();
-    h.write(text);
+    h.write(bytes);
     let x = h.finish().wrapping_mul(0xD6E8_FEB8_6659_FD93);
     ((x >> 32) as usize) % PARTITIONS
 }
@@ -260,7 +254,6 @@ impl Spill {
             rec: Vec::new(),
             plan: plan.clone(),
             naming: naming.cloned(),
-            scratch: Vec::new(),
         })
     }
 
@@ -344,7 +337,7 @@ impl Spill {
         let k = if self.by_row {
             (r.row % PARTITIONS as u64) as usize
         } else {
-            partition_of(self.plan.keys, r.pid, &mut self.scratch)
+            partition_of(self.plan.keys, r.pid)
         };
         let part = &mut self.parts[k];
         let rec = &mut self.rec;
