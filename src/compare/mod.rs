@@ -46,7 +46,6 @@ mod providers;
 mod report;
 mod table;
 
-use std::borrow::Cow;
 use std::collections::BTreeMap;
 
 use serde::Serialize;
@@ -603,13 +602,38 @@ fn read_number(f: Field<'_>) -> Result<Option<f64>, ()> {
     }
 }
 
-/// A label (categorical level, provider, cluster): text as written, a
-/// typed value's text form; `None` when missing.
-fn read_label(f: Field<'_>) -> Option<Cow<'_, [u8]>> {
+/// A label (categorical level, provider, cluster) by its key, written to
+/// `out` ([`Field::key_into`]: text as written, a typed value by its kind
+/// and value, not written out as text); `false` when missing.
+fn label_key(f: Field<'_>, out: &mut Vec<u8>) -> bool {
+    out.clear();
     match f {
-        Field::Text(t) if is_missing(t) => None,
-        f => f.text(),
+        Field::Text(t) if is_missing(t) => false,
+        Field::Text(_) => {
+            f.key_into(out);
+            true
+        }
+        f => f.key_into(out),
     }
+}
+
+/// A label's text, as shown: text as written, a typed value as a delimited
+/// extract would hold it.
+fn label_text(key: &[u8]) -> Vec<u8> {
+    crate::rows::key_field(key).text_or_empty().into_owned()
+}
+
+/// Labels numbered by key, as `(text, number)` in the byte order of their
+/// text (each written out once).
+fn labels_in_order<'a>(
+    numbered: impl IntoIterator<Item = (&'a Vec<u8>, &'a u32)>,
+) -> Vec<(Vec<u8>, u32)> {
+    let mut named: Vec<(Vec<u8>, u32)> = numbered
+        .into_iter()
+        .map(|(k, &id)| (label_text(k), id))
+        .collect();
+    named.sort();
+    named
 }
 
 /// One index being compared: a score column of the engine.
@@ -756,7 +780,9 @@ pub fn compare<'a>(
     let mut categorical: Vec<Vec<u32>> = vec![Vec::new(); ncat];
     let mut levels: Vec<BTreeMap<Vec<u8>, u32>> = vec![BTreeMap::new(); ncat];
     let mut row_num = vec![0.0; nnum];
-    let mut row_cat: Vec<Cow<'_, [u8]>> = vec![Cow::Borrowed(&[]); ncat];
+    // Each categorical value of the unit being read, by its key.
+    let mut row_cat: Vec<Vec<u8>> = vec![Vec::new(); ncat];
+    let mut label = Vec::new();
     // Provider and fold group of each analysed unit, numbered by appearance.
     let mut provider_ids: std::collections::HashMap<Vec<u8>, u32> = Default::default();
     let mut provider_of: Vec<Option<u32>> = Vec::new();
@@ -816,9 +842,11 @@ pub fn compare<'a>(
             }
         }
         for k in 0..ncat {
-            match hist.value(e, 1 + nnum + k).and_then(|(v, _)| read_label(v)) {
-                Some(v) => row_cat[k] = v,
-                None => missing = true,
+            let present = hist
+                .value(e, 1 + nnum + k)
+                .is_some_and(|(v, _)| label_key(v, &mut row_cat[k]));
+            if !present {
+                missing = true;
             }
         }
         if missing {
@@ -834,8 +862,8 @@ pub fn compare<'a>(
         if let Some(c) = by_col {
             provider_of.push(
                 hist.value(e, c)
-                    .and_then(|(v, _)| read_label(v))
-                    .map(|v| number(&mut provider_ids, &v)),
+                    .is_some_and(|(v, _)| label_key(v, &mut label))
+                    .then(|| number(&mut provider_ids, &label)),
             );
             if provider_ids.len() > MAX_PROVIDERS {
                 return Err(Error::Usage(format!(
@@ -858,8 +886,8 @@ pub fn compare<'a>(
         if let Some(c) = cluster_col {
             cluster_raw.push(
                 hist.value(e, c)
-                    .and_then(|(v, _)| read_label(v))
-                    .map(|v| number(&mut cluster_ids, &v)),
+                    .is_some_and(|(v, _)| label_key(v, &mut label))
+                    .then(|| number(&mut cluster_ids, &label)),
             );
         }
         for k in 0..nnum {
@@ -867,8 +895,13 @@ pub fn compare<'a>(
         }
         for k in 0..ncat {
             let next = levels[k].len() as u32;
-            let id = *levels[k].entry(row_cat[k].to_vec()).or_insert(next);
-            row_cat[k] = Cow::Borrowed(&[]);
+            let id = match levels[k].get(&row_cat[k]) {
+                Some(&id) => id,
+                None => {
+                    levels[k].insert(row_cat[k].clone(), next);
+                    next
+                }
+            };
             categorical[k].push(id);
         }
     }
@@ -965,8 +998,9 @@ pub fn compare<'a>(
     }
     for k in 0..ncat {
         let col_name = &opts.adjust_categorical[k];
-        // Levels in byte order; the first is the reference.
-        let sorted: Vec<(&Vec<u8>, &u32)> = levels[k].iter().collect();
+        // Levels in the byte order of their text; the first is the
+        // reference.
+        let sorted = labels_in_order(&levels[k]);
         if sorted.len() > MAX_LEVELS {
             return Err(Error::Usage(format!(
                 "categorical adjustment column '{col_name}' has {} levels among the analysed \
@@ -978,12 +1012,13 @@ pub fn compare<'a>(
         if sorted.len() < 2 {
             notes.push(format!(
                 "categorical adjustment column '{col_name}' has a single level ('{}') among the analysed units; left out of the models",
-                sorted.first().map(|l| lossy(l.0)).unwrap_or_default()
+                sorted.first().map(|l| lossy(&l.0)).unwrap_or_default()
             ));
             continue;
         }
-        let reference = lossy(sorted[0].0);
-        for (level, &id) in &sorted[1..] {
+        let reference = lossy(&sorted[0].0);
+        for (level, id) in &sorted[1..] {
+            let id = *id;
             let level = lossy(level);
             adjustment.push(AdjustmentTerm {
                 name: format!("{col_name}={level}"),
@@ -1493,8 +1528,7 @@ pub fn compare<'a>(
     // Providers.
     let providers = opts.by.as_ref().map(|col| {
         // Names in byte order.
-        let mut named: Vec<(Vec<u8>, u32)> = provider_ids.into_iter().collect();
-        named.sort();
+        let named = labels_in_order(&provider_ids);
         let mut remap = vec![0u32; named.len()];
         for (pos, (_, id)) in named.iter().enumerate() {
             remap[*id as usize] = pos as u32;
@@ -1929,19 +1963,30 @@ mod tests {
             assert_eq!(read_number(typed), expected, "{typed:?}");
             assert_eq!(read_number(Text(text)), expected, "{text:?}");
         }
-        // A typed level is its text form.
+        // A typed level is told apart by its value and shown as its text
+        // form; a text level as written.
+        let key = |f| {
+            let mut k = Vec::new();
+            label_key(f, &mut k).then_some(k)
+        };
         for (typed, text) in [
             (Integer(3), &b"3"[..]),
             (Number(2.5), b"2.5"),
             (Number(3.0), b"3"),
+            (Number(-0.0), b"0"),
             (Logical(true), b"true"),
             (Date(0), b"1970-01-01"),
         ] {
-            assert_eq!(read_label(typed).as_deref(), Some(text));
-            assert_eq!(read_label(Text(text)).as_deref(), Some(text));
+            let k = key(typed).unwrap();
+            assert_eq!(label_text(&k), text, "{typed:?}");
+            assert_eq!(label_text(&key(Text(text)).unwrap()), text);
         }
-        assert_eq!(read_label(Text(b"NULL")), None);
-        assert_eq!(read_label(Null), None);
+        assert_eq!(key(Number(-0.0)), key(Number(0.0)));
+        assert_ne!(key(Integer(3)), key(Integer(4)));
+        assert_eq!(key(Text(b" ")).map(|k| label_text(&k)), Some(b" ".to_vec()));
+        assert_eq!(key(Text(b"NULL")), None);
+        assert_eq!(key(Number(f64::NAN)), None);
+        assert_eq!(key(Null), None);
     }
 
     #[test]
