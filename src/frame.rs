@@ -362,13 +362,17 @@ fn all_null(cols: &impl Columns, col: usize) -> bool {
 }
 
 /// Refuses a column whose kind does not fit its role.
-fn check_kind(cols: &impl Columns, u: &Used, typed_date_format: bool) -> Result<(), Error> {
+fn check_kind(cols: &impl Columns, u: &Used, format: &DateFormat) -> Result<(), Error> {
     let kind = cols.kind(u.col);
     let ok = match u.role {
         Role::Dx => kind == Kind::Text,
         Role::Age => matches!(kind, Kind::Text | Kind::Integer | Kind::Number),
         Role::Id => matches!(kind, Kind::Text | Kind::Integer | Kind::Number),
-        Role::Date => matches!(kind, Kind::Text | Kind::Date),
+        // Whole numbers with a packed pattern (20240301 with %Y%m%d).
+        Role::Date => {
+            matches!(kind, Kind::Text | Kind::Date)
+                || (matches!(kind, Kind::Integer | Kind::Number) && format.reads_numbers())
+        }
         Role::Flag => matches!(
             kind,
             Kind::Text | Kind::Integer | Kind::Number | Kind::Logical
@@ -376,7 +380,7 @@ fn check_kind(cols: &impl Columns, u: &Used, typed_date_format: bool) -> Result<
         Role::Keep => kind != Kind::Other,
     };
     if ok {
-        if u.role == Role::Date && kind == Kind::Date && typed_date_format {
+        if u.role == Role::Date && kind == Kind::Date && *format != DateFormat::Iso {
             return Err(Error::Usage(format!(
                 "--date-format is for dates written as text; column '{}' holds dates \
                  (leave the date format out)",
@@ -405,7 +409,9 @@ fn check_kind(cols: &impl Columns, u: &Used, typed_date_format: bool) -> Result<
             u.what, u.name
         ),
         Role::Date => format!(
-            "date column '{}' holds {t} values; dates must be text, dates or date-times",
+            "date column '{}' holds {t} values; dates must be text, dates or date-times \
+             (or whole numbers such as 20240301 with a --date-format of %Y, %m and %d \
+             alone, such as %Y%m%d)",
             u.name
         ),
         Role::Flag => format!(
@@ -571,9 +577,8 @@ pub fn compare(
 ) -> Result<(Comparison, Summary), Error> {
     let mut used = resolve(cfg, header)?;
     used.extend(compare_used(opts, header)?);
-    let typed_format = cfg.date_format != DateFormat::Iso;
     for u in &used {
-        check_kind(cols, u, typed_format)?;
+        check_kind(cols, u, &cfg.date_format)?;
     }
     let rows = FrameRows {
         cols,
@@ -593,9 +598,8 @@ pub fn score(
     first_row: u64,
 ) -> Result<Scored, Error> {
     let used = resolve(cfg, header)?;
-    let typed_format = cfg.date_format != DateFormat::Iso;
     for u in &used {
-        check_kind(cols, u, typed_format)?;
+        check_kind(cols, u, &cfg.date_format)?;
     }
     if crate::pipeline::reads_history(cfg) {
         return score_history(engine, cfg, header, cols, &used, first_row);
@@ -962,9 +966,8 @@ pub fn explain(
     first_row: u64,
 ) -> Result<(Explained, Summary), Error> {
     let used = resolve(cfg, header)?;
-    let typed_format = cfg.date_format != DateFormat::Iso;
     for u in &used {
-        check_kind(cols, u, typed_format)?;
+        check_kind(cols, u, &cfg.date_format)?;
     }
     crate::pipeline::Plan::new(
         cfg,
@@ -1123,6 +1126,46 @@ mod tests {
             .map(|l| l.rsplit(',').next().unwrap())
             .collect();
         assert_eq!(scores, vec!["1", "0", "2"]);
+    }
+
+    #[test]
+    fn whole_number_dates_read_with_a_packed_pattern_only() {
+        // The same history as above, dates as %Y%m%d numbers (2022-01-08,
+        // 2022-04-18, 2022-11-04), whole and floating-point.
+        let e = engine("charlson:count", false);
+        let h = header(&["pid", "when", "dx1"]);
+        let mut cfg = ScoreConfig {
+            dx: vec!["dx1".into()],
+            id: Some("pid".into()),
+            date: Some("when".into()),
+            lookback: Some(365),
+            date_format: DateFormat::from_pattern("%Y%m%d").unwrap(),
+            ..ScoreConfig::default()
+        };
+        let days = [20_220_108, 20_220_418, 20_221_104];
+        let frame = |kind: Kind, f: fn(i64) -> Field<'static>| Frame {
+            kinds: vec![Kind::Integer, kind, Kind::Text],
+            rows: vec![
+                vec![Field::Integer(7), f(days[0]), t("I21.9")],
+                vec![Field::Integer(8), f(days[1]), t("")],
+                vec![Field::Integer(7), f(days[2]), t("I50")],
+            ],
+        };
+        for f in [
+            frame(Kind::Integer, Field::Integer),
+            frame(Kind::Number, |d| Field::Number(d as f64)),
+        ] {
+            let s = score(&e, &cfg, &h, &f, 1).unwrap();
+            assert_eq!(
+                s.columns[0],
+                ScoreColumn::Int(vec![Some(1), Some(0), Some(2)])
+            );
+            assert_eq!(s.summary.dates_read, 3);
+        }
+        // ISO (or any pattern with separators) reads no number: refused.
+        cfg.date_format = DateFormat::Iso;
+        let err = score(&e, &cfg, &h, &frame(Kind::Integer, Field::Integer), 1).unwrap_err();
+        assert!(err.to_string().contains("such as %Y%m%d"), "{err}");
     }
 
     #[test]

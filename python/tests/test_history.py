@@ -353,6 +353,14 @@ def test_date_format_and_missing_dates():
     assert "unreadable: 3" in prov["report"]
     with pytest.raises(ValueError, match=r"row 0: unreadable date '01/01/2024' \(expected the date_format"):
         morbus.score(df, **kw, strict=True)
+    # The same dates as whole numbers (pandas: a float column, NaN for the
+    # missing one) read by their digits with a packed date_format; the
+    # leading zero %d%m%Y needs is restored.
+    numbers = df.assign(day=[1012024, 1062024, 2062025, float("nan")])
+    out = morbus.score(numbers, **kw, date_format="%d%m%Y")
+    assert charlson(out) == [1, 2, 0, 1]
+    with pytest.raises(ValueError, match=r"holds \w+ values; dates must be text, dates or date-times \(or whole numbers"):
+        morbus.score(numbers, **kw, date_format="%d/%m/%Y")
 
 
 def test_errors_carry_the_command_line_messages():

@@ -123,6 +123,20 @@ impl DateFormat {
         }
     }
 
+    /// Whether the pattern reads whole numbers ([`DateFormat::read_number`]):
+    /// `%Y`, `%m` and `%d` alone, with nothing between them.
+    pub fn reads_numbers(&self) -> bool {
+        match self {
+            DateFormat::Iso => false,
+            DateFormat::Pattern(p) => {
+                let p = p.as_bytes();
+                p.len() == 6
+                    && (0..3)
+                        .all(|k| p[2 * k] == b'%' && matches!(p[2 * k + 1], b'Y' | b'm' | b'd'))
+            }
+        }
+    }
+
     /// Reads a whole number (a typed column of numbers, such as a Parquet
     /// `INT32` holding 20240301) as a date: only a pattern made of `%Y`,
     /// `%m` and `%d` alone, with nothing between them (`%Y%m%d`,
@@ -147,10 +161,10 @@ impl DateFormat {
         let DateFormat::Pattern(p) = self else {
             return None;
         };
-        let p = p.as_bytes();
-        if p.len() != 6 || p[0] != b'%' || p[2] != b'%' || p[4] != b'%' {
+        if !self.reads_numbers() {
             return None;
         }
+        let p = p.as_bytes();
         // Three directives of 4 + 2 + 2 digits: at most eight digits.
         let mut rest = u32::try_from(n).ok().filter(|&n| n < 100_000_000)?;
         let (mut y, mut m, mut d) = (None, None, None);
