@@ -754,8 +754,8 @@ enum Writing {
 
 /// How a pass-through column of the header is built.
 enum Builder {
-    /// A kept column: text, cast to the input's type when exact.
-    Kept(String, StringBuilder, Option<DataType>),
+    /// A kept column handed over as delimited text: text.
+    Kept(String, StringBuilder),
     /// A kept column handed over as typed values (value records of a typed
     /// source, [`value_records::MAGIC_KEYS`]): the values' keys, built into
     /// an array of the input's type ([`key_column`]).
@@ -1021,11 +1021,11 @@ impl ParquetSink {
                 if self.copies {
                     return None;
                 }
-                let t = self.columns.input_types.get(&name).cloned();
                 Some(if self.keys {
+                    let t = self.columns.input_types.get(&name).cloned();
                     Builder::Keys(name, KeyColumn::default(), t)
                 } else {
-                    Builder::Kept(name, StringBuilder::new(), t)
+                    Builder::Kept(name, StringBuilder::new())
                 })
             })
             .collect();
@@ -1072,7 +1072,7 @@ impl ParquetSink {
             match b {
                 None => {}
                 Some(Builder::Keys(..)) => return Err(self_internal("text for typed values")),
-                Some(Builder::Kept(name, b, _)) => {
+                Some(Builder::Kept(name, b)) => {
                     if v.is_empty() {
                         b.append_null()
                     } else {
@@ -1229,10 +1229,7 @@ impl ParquetSink {
         let mut arrays: Vec<ArrayRef> = Vec::new();
         for b in header.builders.iter_mut().flatten() {
             let (name, a): (&str, ArrayRef) = match b {
-                Builder::Kept(n, b, t) => {
-                    let text: ArrayRef = Arc::new(b.finish());
-                    (n.as_str(), kept_column(text, t))
-                }
+                Builder::Kept(n, b) => (n.as_str(), Arc::new(b.finish()) as ArrayRef),
                 Builder::Keys(n, column, t) => (n.as_str(), column.array(t)),
             };
             fields.push(Field::new(name, a.data_type().clone(), true));
@@ -1324,7 +1321,7 @@ fn parquet_write_error(e: parquet::errors::ParquetError) -> Error {
 /// dictionaries). A timestamp column was read as its day and stays a
 /// `Date32` of that day; a type the reader formats as text (decimals,
 /// unsigned 64-bit integers, ...) is cast back from that text only when
-/// every value comes back exactly ([`kept_column`]).
+/// every value comes back exactly ([`formatted_column`]).
 fn key_column(fields: &[crate::rows::Field<'_>], input: &Option<DataType>) -> ArrayRef {
     use crate::rows::Field as F;
     use arrow_array::builder::{BinaryBuilder, BooleanBuilder};
@@ -1467,18 +1464,17 @@ fn key_column(fields: &[crate::rows::Field<'_>], input: &Option<DataType>) -> Ar
     }
     // Text the reader made of a type it does not read (decimals, ...).
     if matches!(natural.data_type(), D::Utf8) && !text_like(t) {
-        return kept_column(natural, input);
+        return formatted_column(natural, t);
     }
     natural
 }
 
-/// A kept column's text as the input's type, when casting gives every
-/// value back exactly (checked by casting back to text); else the text.
-fn kept_column(text: ArrayRef, input: &Option<DataType>) -> ArrayRef {
-    let Some(t) = input else { return text };
-    if matches!(t, DataType::Utf8) {
-        return text;
-    }
+/// The values of a column whose type the row reader does not read
+/// (decimals, unsigned 64-bit integers, ...: it reads them as Arrow's
+/// formatter writes them, [`ArrowColumn::Formatted`]) as that type `t`, when
+/// casting gives every value back exactly (checked by formatting the cast
+/// values again); else the text.
+fn formatted_column(text: ArrayRef, t: &DataType) -> ArrayRef {
     let options = arrow_cast::CastOptions {
         safe: false,
         format_options: FORMAT,
@@ -1489,26 +1485,9 @@ fn kept_column(text: ArrayRef, input: &Option<DataType>) -> ArrayRef {
     let exact = match ArrayFormatter::try_new(typed.as_ref(), &FORMAT) {
         Ok(back) => {
             let strings = text.as_string::<i32>();
-            // A floating-point value read as a typed row is written without
-            // a fraction when it has none (3.0 as `3`): the same number.
-            let same_number = |i: usize, text: &str| match typed.data_type() {
-                DataType::Float64 => text.parse::<f64>().ok().is_some_and(|x| {
-                    x == typed
-                        .as_primitive::<arrow_array::types::Float64Type>()
-                        .value(i)
-                }),
-                DataType::Float32 => text.parse::<f32>().ok().is_some_and(|x| {
-                    x == typed
-                        .as_primitive::<arrow_array::types::Float32Type>()
-                        .value(i)
-                }),
-                _ => false,
-            };
             (0..typed.len()).all(|i| {
                 strings.is_null(i) == typed.is_null(i)
-                    && (strings.is_null(i)
-                        || back.value(i).to_string() == strings.value(i)
-                        || same_number(i, strings.value(i)))
+                    && (strings.is_null(i) || back.value(i).to_string() == strings.value(i))
             })
         }
         Err(_) => false,
@@ -2499,20 +2478,6 @@ mod tests {
     use crate::score::{IndexSpec, ScoreOptions};
     use arrow_array::{Int64Array, StringArray};
     use parquet::arrow::ArrowWriter;
-
-    #[test]
-    fn a_floating_point_id_written_without_its_fraction_keeps_its_type() {
-        // Typed rows give an id 3.0 as `3`; the output casts it back.
-        let text: ArrayRef = Arc::new(StringArray::from(vec![Some("3"), Some("4.5"), None]));
-        let back = kept_column(text.clone(), &Some(DataType::Float64));
-        assert_eq!(back.data_type(), &DataType::Float64);
-        let v = back.as_primitive::<arrow_array::types::Float64Type>();
-        assert_eq!((v.value(0), v.value(1), v.is_null(2)), (3.0, 4.5, true));
-        // Text that is not the same number stays text.
-        let odd: ArrayRef = Arc::new(StringArray::from(vec![Some("3"), Some("x")]));
-        let kept = kept_column(odd, &Some(DataType::Float64));
-        assert_eq!(kept.data_type(), &DataType::Utf8);
-    }
 
     #[test]
     fn kept_values_handed_over_typed_are_built_with_the_input_type() {
