@@ -748,15 +748,26 @@ fn explain_gives_typed_ids_episodes_and_labels_back_exactly() {
     );
     let want = [a, a, b, b, b, b, c, c, d, d];
     let mut csv_outputs = Vec::new();
-    for memory in ["1GiB", "0"] {
-        let what = format!("--memory {memory}");
-        let out = dir.join(&format!("explained-{memory}.parquet"));
-        let mut args = vec!["explain", &pq, "-o", &out, "--memory", memory];
+    let mut files = Vec::new();
+    for (memory, threads) in [("1GiB", "1"), ("0", "1"), ("0", "2")] {
+        let what = format!("--memory {memory} --threads {threads}");
+        let out = dir.join(&format!("explained-{memory}-{threads}.parquet"));
+        let mut args = vec![
+            "explain",
+            &pq,
+            "-o",
+            &out,
+            "--memory",
+            memory,
+            "--threads",
+            threads,
+        ];
         args.extend_from_slice(&opts);
         let r = ok(&args);
         if memory == "0" {
             assert!(r.stderr.contains("temporary files"), "{}", r.stderr);
         }
+        files.push(std::fs::read(&out).unwrap());
         let got = read_parquet(Path::new(&out));
         assert_eq!(got.num_rows(), want.len(), "{what}");
         let types: Vec<(&str, &DataType)> = got
@@ -805,15 +816,17 @@ fn explain_gives_typed_ids_episodes_and_labels_back_exactly() {
             .collect();
         assert_eq!(totals, [(1, 1), (2, 3), (3, 1), (4, 1)], "{what}");
 
-        let mut args = vec!["explain", &pq, "--memory", memory];
+        let mut args = vec!["explain", &pq, "--memory", memory, "--threads", threads];
         args.extend_from_slice(&opts);
         let o = common::pipe(&args, b"");
         assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
         csv_outputs.push(o.stdout);
     }
+    // The same files and the same text, spilled or not.
+    assert!(files.iter().all(|f| *f == files[0]), "Parquet output");
     assert!(
-        csv_outputs[0] == csv_outputs[1],
-        "CSV output, spilled or not"
+        csv_outputs.iter().all(|o| *o == csv_outputs[0]),
+        "CSV output"
     );
     // The CSV: each value as a delimited extract holds it (-0.0 as 0, 0.1 +
     // 0.2 in its shortest round-trip form, ISO dates, nulls empty).
