@@ -1,6 +1,7 @@
 //! Ids, episode values and kept columns of a typed source (a Parquet
 //! input) are told apart by their typed values, and the long layout's
-//! output carries them back with the input's values and types: two rows
+//! output (and `explain`'s, with its labels) carries them back with the
+//! input's values and types: two rows
 //! are one patient exactly when their ids are equal values (`007` and `7`
 //! are two, 2^53 and 2^53 + 1 are two, `-0.0` and `0.0` are one, NaN is
 //! missing); a Parquet output gives back every kept value bit for bit
@@ -637,6 +638,215 @@ fn the_long_layout_gives_typed_ids_and_kept_values_back_exactly() {
         "{}",
         lines[5]
     );
+}
+
+/// `explain -o out.parquet` of a Parquet input gives each record its
+/// episode's id, episode and label values with the input's types and
+/// values (handed to the output typed, never as text), in memory and
+/// spilled: an `Int64` id 2^53 + 1 (a double would make it 2^53), a
+/// `Date32` episode column, a `Float64` label with `-0.0` (whose text is
+/// `0`) and `0.1 + 0.2`, and nulls. Its CSV output writes
+/// the same values as a delimited extract holds them, spilled or not.
+///
+/// Hand-worked, `--lookback 365`, one point per condition
+/// (`charlson:count`); episodes in input order (the one of each output
+/// record is its `row`, its first row):
+///
+/// | row | pid        | stay       | dx   | note       | episode                |
+/// |-----|------------|------------|------|------------|------------------------|
+/// | 1   | 2^53 + 1   | 2020-01-01 | I21  | -0.0       | A                      |
+/// | 2   | 2^53 + 1   | 2020-02-10 | I50  | null       | B                      |
+/// | 3   | 2^53       | 2020-01-01 | J44  | 0.1 + 0.2  | C                      |
+/// | 4   | null       | 2020-01-06 | E119 | null       | D (no id: on its own)  |
+/// | 5   | 2^53 + 1   | 2020-02-10 | J44  | 2.5        | B                      |
+///
+/// A: I21 counted, total (2 records). B (its label from its first row
+/// with one: row 5): I50 and J44 counted, then A's I21 (40 days earlier)
+/// counted, total (4). C: J44, total (2). D: E119, total (2).
+#[test]
+fn explain_gives_typed_ids_episodes_and_labels_back_exactly() {
+    let dir = TempDir::new("typed-explain");
+    let p1 = (1i64 << 53) + 1;
+    let p0 = 1i64 << 53;
+    let third = 0.1 + 0.2;
+    let batch = RecordBatch::try_from_iter(vec![
+        (
+            "pid",
+            Arc::new(arrow_array::Int64Array::from(vec![
+                Some(p1),
+                Some(p1),
+                Some(p0),
+                None,
+                Some(p1),
+            ])) as ArrayRef,
+        ),
+        (
+            "stay",
+            Arc::new(arrow_array::Date32Array::from(vec![
+                day(0),
+                day(40),
+                day(0),
+                day(5),
+                day(40),
+            ])) as ArrayRef,
+        ),
+        (
+            "date",
+            Arc::new(arrow_array::Date32Array::from(vec![
+                day(0),
+                day(40),
+                day(0),
+                day(5),
+                day(40),
+            ])) as ArrayRef,
+        ),
+        (
+            "dx",
+            Arc::new(arrow_array::StringArray::from(vec![
+                "I21", "I50", "J44", "E119", "J44",
+            ])) as ArrayRef,
+        ),
+        (
+            "note",
+            Arc::new(arrow_array::Float64Array::from(vec![
+                Some(-0.0),
+                None,
+                Some(third),
+                None,
+                Some(2.5),
+            ])) as ArrayRef,
+        ),
+    ])
+    .unwrap();
+    let pq = dir.join("explain.parquet");
+    // Row groups of 2 rows: episode B's rows in two batches.
+    write_parquet(Path::new(&pq), &batch, Some(2));
+    let opts = [
+        "--layout",
+        "long",
+        "--dx",
+        "dx",
+        "--id",
+        "pid",
+        "--episode",
+        "stay",
+        "--date",
+        "date",
+        "--lookback",
+        "365",
+        "--index",
+        "charlson:count",
+        "--label",
+        "note",
+    ];
+    // Per output record: its episode's row, id, episode and note.
+    let (a, b, c, d) = (
+        (1, Some(p1), day(0), Some(-0.0)),
+        (2, Some(p1), day(40), Some(2.5)),
+        (3, Some(p0), day(0), Some(third)),
+        (4, None, day(5), None),
+    );
+    let want = [a, a, b, b, b, b, c, c, d, d];
+    let mut csv_outputs = Vec::new();
+    let mut files = Vec::new();
+    for (memory, threads) in [("1GiB", "1"), ("0", "1"), ("0", "2")] {
+        let what = format!("--memory {memory} --threads {threads}");
+        let out = dir.join(&format!("explained-{memory}-{threads}.parquet"));
+        let mut args = vec![
+            "explain",
+            &pq,
+            "-o",
+            &out,
+            "--memory",
+            memory,
+            "--threads",
+            threads,
+        ];
+        args.extend_from_slice(&opts);
+        let r = ok(&args);
+        if memory == "0" {
+            assert!(r.stderr.contains("temporary files"), "{}", r.stderr);
+        }
+        files.push(std::fs::read(&out).unwrap());
+        let got = read_parquet(Path::new(&out));
+        assert_eq!(got.num_rows(), want.len(), "{what}");
+        let types: Vec<(&str, &DataType)> = got
+            .schema_ref()
+            .fields()
+            .iter()
+            .take(4)
+            .map(|f| (f.name().as_str(), f.data_type()))
+            .collect();
+        assert_eq!(
+            types,
+            [
+                ("pid", &DataType::Int64),
+                ("stay", &DataType::Date32),
+                ("note", &DataType::Float64),
+                ("row", &DataType::Int64),
+            ],
+            "{what}"
+        );
+        let pid = got.column(0).as_primitive::<Int64Type>();
+        let stay = got.column(1).as_primitive::<Date32Type>();
+        let note = got.column(2).as_primitive::<Float64Type>();
+        let row = got.column(3).as_primitive::<Int64Type>();
+        for (i, &(r, id, ep, n)) in want.iter().enumerate() {
+            let at = format!("{what}, record {}", i + 1);
+            assert_eq!(row.value(i), r, "{at}: row");
+            assert_eq!(pid.is_valid(i).then(|| pid.value(i)), id, "{at}: pid");
+            assert!(stay.is_valid(i), "{at}: stay");
+            assert_eq!(stay.value(i), ep, "{at}: stay");
+            // Numbers by their bits: -0.0 is not 0.0.
+            assert_eq!(
+                note.is_valid(i).then(|| note.value(i).to_bits()),
+                n.map(f64::to_bits),
+                "{at}: note"
+            );
+        }
+        // The totals (one per episode) hand-worked above.
+        let status = got.column_by_name("status").unwrap().as_string::<i32>();
+        let weight = got
+            .column_by_name("weight")
+            .unwrap()
+            .as_primitive::<Int64Type>();
+        let totals: Vec<(i64, i64)> = (0..got.num_rows())
+            .filter(|&i| status.value(i) == "total")
+            .map(|i| (row.value(i), weight.value(i)))
+            .collect();
+        assert_eq!(totals, [(1, 1), (2, 3), (3, 1), (4, 1)], "{what}");
+
+        let mut args = vec!["explain", &pq, "--memory", memory, "--threads", threads];
+        args.extend_from_slice(&opts);
+        let o = common::pipe(&args, b"");
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        csv_outputs.push(o.stdout);
+    }
+    // The same files and the same text, spilled or not.
+    assert!(files.iter().all(|f| *f == files[0]), "Parquet output");
+    assert!(
+        csv_outputs.iter().all(|o| *o == csv_outputs[0]),
+        "CSV output"
+    );
+    // The CSV: each value as a delimited extract holds it (-0.0 as 0, 0.1 +
+    // 0.2 in its shortest round-trip form, ISO dates, nulls empty).
+    let text = String::from_utf8_lossy(&csv_outputs[0]).into_owned();
+    let lines: Vec<&str> = text.lines().collect();
+    assert_eq!(lines.len(), 1 + want.len(), "{text}");
+    assert!(
+        lines[0].starts_with("pid,stay,note,row,index,source_row,"),
+        "{}",
+        lines[0]
+    );
+    let starts = [
+        "9007199254740993,2020-01-01,0,1,charlson:count,1,",
+        "9007199254740993,2020-02-10,2.5,2,charlson:count,2,",
+        "9007199254740992,2020-01-01,0.30000000000000004,3,charlson:count,3,",
+        ",2020-01-06,,4,charlson:count,4,",
+    ];
+    for (line, start) in [1, 3, 7, 9].into_iter().zip(starts) {
+        assert!(lines[line].starts_with(start), "{}", lines[line]);
+    }
 }
 
 /// An id column of [`id_columns`] as a frame (the R and Python packages'

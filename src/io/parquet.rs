@@ -20,13 +20,15 @@
 //!   and its scores as binary values, from which the score arrays are built
 //!   ([`ValueColumns`]); no score is parsed from text. `explain` hands every
 //!   cell of its records over as a value (row numbers, dates, weights with
-//!   their decimals, text; [`ValueColumns::explain`]), none as delimited
-//!   text. For a wide output of a Parquet input the input's own columns
-//!   are copied from the input file itself, arrays and types untouched, in
-//!   order; other kept columns (the id and episode of the long layout,
-//!   `explain`'s id, episode and labels) take their input type back when
-//!   their text casts to it exactly. A wide history run with a text output
-//!   joins the input's formatted rows to its score lines ([`JoinedText`]).
+//!   their decimals, text, and a typed input's id, episode and label values
+//!   as their keys; [`ValueColumns::explain`]), none as delimited text. For
+//!   a wide output of a Parquet input the input's own columns are copied
+//!   from the input file itself, arrays and types untouched, in order;
+//!   other kept columns of a typed input (the id and episode of the long
+//!   layout, `explain`'s id, episode and labels) come as typed values and
+//!   are built with the input's types ([`key_column`]). A wide history run
+//!   with a text output joins the input's formatted rows to its score lines
+//!   ([`JoinedText`]).
 //!
 //! ```
 //! use std::io::Write;
@@ -291,7 +293,7 @@ impl<'a> TextColumn<'a> {
 #[derive(Clone, Debug, Default)]
 pub struct OutputColumns {
     /// Types of the input's columns (a Parquet input), by name: kept columns
-    /// are cast back to them where the cast is exact.
+    /// handed over as typed values are built with them ([`key_column`]).
     pub input_types: HashMap<String, DataType>,
     /// The columns whose cells come as values ([`crate::io::value_records`]):
     /// the score columns of `score`, every column of `explain`. Columns
@@ -305,8 +307,9 @@ pub struct OutputColumns {
 /// decimals `Float64` (the value as written with its decimals), bands text,
 /// condition flags `Int8`; `explain`'s row numbers `Int64`, dates `Date32`,
 /// text `Utf8`, weights `Int64` (all whole) or `Float64`, and its id,
-/// episode and label columns text cast back to a Parquet input's types. A
-/// missing value, and empty text, is null.
+/// episode and label columns from their values: a typed input's typed
+/// values ([`Cell::Key`]) with the input's types ([`key_column`]), a text
+/// input's text as text. A missing value, and empty text, is null.
 #[derive(Clone, Debug, Default)]
 pub struct ValueColumns {
     columns: Vec<(String, ValueKind)>,
@@ -332,7 +335,8 @@ enum ValueKind {
     Day,
     /// Text.
     Text,
-    /// A column of the input (text), cast to the input's type when exact.
+    /// A column of the input: typed values ([`Cell::Key`]) built with the
+    /// input's type (when known), or a text input's text.
     Kept(Option<DataType>),
 }
 
@@ -343,6 +347,8 @@ enum ColumnBuilder {
     Int8(Int8Builder),
     Date(Date32Builder),
     Text(StringBuilder),
+    /// A kept column's values, as keys.
+    Keys(KeyColumn),
 }
 
 impl ColumnBuilder {
@@ -353,6 +359,7 @@ impl ColumnBuilder {
             ColumnBuilder::Int8(b) => b.append_null(),
             ColumnBuilder::Date(b) => b.append_null(),
             ColumnBuilder::Text(b) => b.append_null(),
+            ColumnBuilder::Keys(k) => k.push(&[]),
         }
     }
 }
@@ -458,9 +465,10 @@ impl ValueColumns {
                 }
                 ValueKind::Flag => ColumnBuilder::Int8(Int8Builder::with_capacity(rows)),
                 ValueKind::Day => ColumnBuilder::Date(Date32Builder::with_capacity(rows)),
-                ValueKind::Band(_) | ValueKind::Text | ValueKind::Kept(_) => {
+                ValueKind::Band(_) | ValueKind::Text => {
                     ColumnBuilder::Text(StringBuilder::with_capacity(rows, rows * 8))
                 }
+                ValueKind::Kept(_) => ColumnBuilder::Keys(KeyColumn::default()),
             })
             .collect()
     }
@@ -501,12 +509,17 @@ impl ValueColumns {
             (ValueKind::Flag, B::Int8(b), Cell::Value(Value::Flag(f))) => b.append_value(f as i8),
             (ValueKind::Count, B::Int64(b), Cell::Whole(x)) => b.append_value(x),
             (ValueKind::Day, B::Date(b), Cell::Date(d)) => b.append_value(d),
-            (ValueKind::Text | ValueKind::Kept(_), B::Text(b), Cell::Text(t)) => {
+            (ValueKind::Text, B::Text(b), Cell::Text(t)) => {
                 if t.is_empty() {
                     b.append_null()
                 } else {
                     b.append_value(utf8(t, name, row)?)
                 }
+            }
+            (ValueKind::Kept(_), B::Keys(k), Cell::Key(key)) => k.push(key),
+            // A text input's value: text (empty text is missing).
+            (ValueKind::Kept(_), B::Keys(k), Cell::Text(t)) => {
+                k.push_field(crate::rows::Field::Text(utf8(t, name, row)?.as_bytes()))
             }
             _ => return Err(value_error(name, row, "a value of another kind")),
         }
@@ -524,13 +537,11 @@ impl ValueColumns {
                     ColumnBuilder::Float64(b) => Arc::new(b.finish()),
                     ColumnBuilder::Int8(b) => Arc::new(b.finish()),
                     ColumnBuilder::Date(b) => Arc::new(b.finish()),
-                    ColumnBuilder::Text(b) => {
-                        let text: ArrayRef = Arc::new(b.finish());
-                        match kind {
-                            ValueKind::Kept(t) => kept_column(text, t),
-                            _ => text,
-                        }
-                    }
+                    ColumnBuilder::Text(b) => Arc::new(b.finish()),
+                    ColumnBuilder::Keys(k) => match kind {
+                        ValueKind::Kept(t) => k.array(t),
+                        _ => k.array(&None),
+                    },
                 };
                 (
                     Field::new(name.as_str(), array.data_type().clone(), true),
@@ -743,8 +754,8 @@ enum Writing {
 
 /// How a pass-through column of the header is built.
 enum Builder {
-    /// A kept column: text, cast to the input's type when exact.
-    Kept(String, StringBuilder, Option<DataType>),
+    /// A kept column handed over as delimited text: text.
+    Kept(String, StringBuilder),
     /// A kept column handed over as typed values (value records of a typed
     /// source, [`value_records::MAGIC_KEYS`]): the values' keys, built into
     /// an array of the input's type ([`key_column`]).
@@ -762,6 +773,20 @@ impl KeyColumn {
     fn push(&mut self, key: &[u8]) {
         self.bytes.extend_from_slice(key);
         self.ends.push(self.bytes.len());
+    }
+
+    /// Takes a value as its key ([`crate::rows::Field::value_into`]).
+    fn push_field(&mut self, f: crate::rows::Field<'_>) {
+        f.value_into(&mut self.bytes);
+        self.ends.push(self.bytes.len());
+    }
+
+    /// The values taken so far as an array of the input's type `input`
+    /// ([`key_column`]); the column is left empty.
+    fn array(&mut self, input: &Option<DataType>) -> ArrayRef {
+        let a = key_column(&self.finish(), input);
+        self.bytes.clear();
+        a
     }
 
     /// The values taken so far (the column is left empty).
@@ -996,11 +1021,11 @@ impl ParquetSink {
                 if self.copies {
                     return None;
                 }
-                let t = self.columns.input_types.get(&name).cloned();
                 Some(if self.keys {
+                    let t = self.columns.input_types.get(&name).cloned();
                     Builder::Keys(name, KeyColumn::default(), t)
                 } else {
-                    Builder::Kept(name, StringBuilder::new(), t)
+                    Builder::Kept(name, StringBuilder::new())
                 })
             })
             .collect();
@@ -1047,7 +1072,7 @@ impl ParquetSink {
             match b {
                 None => {}
                 Some(Builder::Keys(..)) => return Err(self_internal("text for typed values")),
-                Some(Builder::Kept(name, b, _)) => {
+                Some(Builder::Kept(name, b)) => {
                     if v.is_empty() {
                         b.append_null()
                     } else {
@@ -1204,15 +1229,8 @@ impl ParquetSink {
         let mut arrays: Vec<ArrayRef> = Vec::new();
         for b in header.builders.iter_mut().flatten() {
             let (name, a): (&str, ArrayRef) = match b {
-                Builder::Kept(n, b, t) => {
-                    let text: ArrayRef = Arc::new(b.finish());
-                    (n, kept_column(text, t))
-                }
-                Builder::Keys(n, column, t) => {
-                    let a = key_column(&column.finish(), t);
-                    column.bytes.clear();
-                    (n, a)
-                }
+                Builder::Kept(n, b) => (n.as_str(), Arc::new(b.finish()) as ArrayRef),
+                Builder::Keys(n, column, t) => (n.as_str(), column.array(t)),
             };
             fields.push(Field::new(name, a.data_type().clone(), true));
             arrays.push(a);
@@ -1294,7 +1312,8 @@ fn parquet_write_error(e: parquet::errors::ParquetError) -> Error {
 }
 
 /// A kept column handed over as typed values (the long layout's id,
-/// episode and kept columns of a typed source), as an array of the input's
+/// episode and kept columns of a typed source, `explain`'s id, episode and
+/// label columns), as an array of the input's
 /// type `input`: the values as the row model read them (text, whole
 /// numbers `Int64`, numbers `Float64`, true/false, dates `Date32`), cast to
 /// the input's type where that gives them back exactly (narrower integers
@@ -1302,7 +1321,7 @@ fn parquet_write_error(e: parquet::errors::ParquetError) -> Error {
 /// dictionaries). A timestamp column was read as its day and stays a
 /// `Date32` of that day; a type the reader formats as text (decimals,
 /// unsigned 64-bit integers, ...) is cast back from that text only when
-/// every value comes back exactly ([`kept_column`]).
+/// every value comes back exactly ([`formatted_column`]).
 fn key_column(fields: &[crate::rows::Field<'_>], input: &Option<DataType>) -> ArrayRef {
     use crate::rows::Field as F;
     use arrow_array::builder::{BinaryBuilder, BooleanBuilder};
@@ -1445,18 +1464,17 @@ fn key_column(fields: &[crate::rows::Field<'_>], input: &Option<DataType>) -> Ar
     }
     // Text the reader made of a type it does not read (decimals, ...).
     if matches!(natural.data_type(), D::Utf8) && !text_like(t) {
-        return kept_column(natural, input);
+        return formatted_column(natural, t);
     }
     natural
 }
 
-/// A kept column's text as the input's type, when casting gives every
-/// value back exactly (checked by casting back to text); else the text.
-fn kept_column(text: ArrayRef, input: &Option<DataType>) -> ArrayRef {
-    let Some(t) = input else { return text };
-    if matches!(t, DataType::Utf8) {
-        return text;
-    }
+/// The values of a column whose type the row reader does not read
+/// (decimals, unsigned 64-bit integers, ...: it reads them as Arrow's
+/// formatter writes them, [`ArrowColumn::Formatted`]) as that type `t`, when
+/// casting gives every value back exactly (checked by formatting the cast
+/// values again); else the text.
+fn formatted_column(text: ArrayRef, t: &DataType) -> ArrayRef {
     let options = arrow_cast::CastOptions {
         safe: false,
         format_options: FORMAT,
@@ -1467,26 +1485,9 @@ fn kept_column(text: ArrayRef, input: &Option<DataType>) -> ArrayRef {
     let exact = match ArrayFormatter::try_new(typed.as_ref(), &FORMAT) {
         Ok(back) => {
             let strings = text.as_string::<i32>();
-            // A floating-point value read as a typed row is written without
-            // a fraction when it has none (3.0 as `3`): the same number.
-            let same_number = |i: usize, text: &str| match typed.data_type() {
-                DataType::Float64 => text.parse::<f64>().ok().is_some_and(|x| {
-                    x == typed
-                        .as_primitive::<arrow_array::types::Float64Type>()
-                        .value(i)
-                }),
-                DataType::Float32 => text.parse::<f32>().ok().is_some_and(|x| {
-                    x == typed
-                        .as_primitive::<arrow_array::types::Float32Type>()
-                        .value(i)
-                }),
-                _ => false,
-            };
             (0..typed.len()).all(|i| {
                 strings.is_null(i) == typed.is_null(i)
-                    && (strings.is_null(i)
-                        || back.value(i).to_string() == strings.value(i)
-                        || same_number(i, strings.value(i)))
+                    && (strings.is_null(i) || back.value(i).to_string() == strings.value(i))
             })
         }
         Err(_) => false,
@@ -2479,17 +2480,45 @@ mod tests {
     use parquet::arrow::ArrowWriter;
 
     #[test]
-    fn a_floating_point_id_written_without_its_fraction_keeps_its_type() {
-        // Typed rows give an id 3.0 as `3`; the output casts it back.
-        let text: ArrayRef = Arc::new(StringArray::from(vec![Some("3"), Some("4.5"), None]));
-        let back = kept_column(text.clone(), &Some(DataType::Float64));
-        assert_eq!(back.data_type(), &DataType::Float64);
-        let v = back.as_primitive::<arrow_array::types::Float64Type>();
-        assert_eq!((v.value(0), v.value(1), v.is_null(2)), (3.0, 4.5, true));
-        // Text that is not the same number stays text.
-        let odd: ArrayRef = Arc::new(StringArray::from(vec![Some("3"), Some("x")]));
-        let kept = kept_column(odd, &Some(DataType::Float64));
-        assert_eq!(kept.data_type(), &DataType::Utf8);
+    fn kept_values_handed_over_typed_are_built_with_the_input_type() {
+        use crate::rows::Field as F;
+        use arrow_array::types::{Date32Type, Decimal128Type, Float64Type, Int32Type, Int64Type};
+        // Whole numbers: 2^53 + 1, which a double would make 2^53.
+        let ints = [F::Integer(9_007_199_254_740_993), F::Null, F::Integer(-7)];
+        let a = key_column(&ints, &Some(DataType::Int64));
+        let a = a.as_primitive::<Int64Type>();
+        assert_eq!(a.value(0), 9_007_199_254_740_993);
+        assert!(a.is_null(1));
+        assert_eq!(a.value(2), -7);
+        // A narrower integer column keeps its type.
+        let a = key_column(&ints[1..], &Some(DataType::Int32));
+        assert_eq!(a.as_primitive::<Int32Type>().value(1), -7);
+        // Numbers bit for bit: -0.0 stays -0.0.
+        let a = key_column(&[F::Number(-0.0), F::Number(0.5)], &Some(DataType::Float64));
+        let a = a.as_primitive::<Float64Type>();
+        assert_eq!(a.value(0).to_bits(), (-0.0f64).to_bits());
+        assert_eq!(a.value(1), 0.5);
+        // Days: 2020-01-01 is day 18,262.
+        let a = key_column(&[F::Date(18_262)], &Some(DataType::Date32));
+        assert_eq!(a.as_primitive::<Date32Type>().value(0), 18_262);
+        // No value at all: nulls of the input's type, or text without one.
+        let a = key_column(&[F::Null, F::Null], &Some(DataType::Float64));
+        assert_eq!((a.data_type(), a.null_count()), (&DataType::Float64, 2));
+        let a = key_column(&[F::Null], &None);
+        assert_eq!(a.data_type(), &DataType::Utf8);
+        // Decimals, read as Arrow's formatter writes them (1.50 is 150
+        // hundredths), are decimals again when every value comes back.
+        let dec = DataType::Decimal128(10, 2);
+        let a = key_column(
+            &[F::Text(b"1.50"), F::Null, F::Text(b"-0.25")],
+            &Some(dec.clone()),
+        );
+        assert_eq!(a.data_type(), &dec);
+        let d = a.as_primitive::<Decimal128Type>();
+        assert_eq!((d.value(0), d.is_null(1), d.value(2)), (150, true, -25));
+        // Text that is not such a decimal stays text.
+        let a = key_column(&[F::Text(b"1.505"), F::Text(b"x")], &Some(dec));
+        assert_eq!(a.data_type(), &DataType::Utf8);
     }
 
     /// A wide score of a Parquet input whose row groups (37 rows) do not

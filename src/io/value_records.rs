@@ -20,6 +20,7 @@
 //! | 5   | whole number (a row number)         | zigzag LEB128 varint                               |
 //! | 6   | date                                | 4 bytes, little-endian `i32` days since 1970-01-01 |
 //! | 7   | text                                | its length, then its bytes                         |
+//! | 8   | typed value (a key, [`put_key`])    | its length, then its bytes                         |
 //!
 //! The stream opens with [`MAGIC`] and a header record: the output's column
 //! names as a delimited pass-through part with no values. Lengths are
@@ -32,6 +33,11 @@
 //! header is the same delimited names, its rows' pass-through parts are
 //! sequences of keys ([`put_key`], [`next_key`]), and their cells follow as
 //! above.
+//!
+//! A typed value can also come as a cell ([`Cell::Key`], `explain`'s id,
+//! episode and label values of a typed source): the bytes of
+//! [`crate::rows::Field::value_into`] (or `key_into`), from which the sink
+//! builds the column with the input's type; no text is made of it.
 //!
 //! ```
 //! use morbus::io::value_records::{put_cell, put_text, put_values, start, Cell, Reader, Record};
@@ -90,6 +96,9 @@ pub enum Cell<'a> {
     Date(i32),
     /// Text (a sink keeps it as text; empty text is missing).
     Text(&'a [u8]),
+    /// A typed value as its key ([`crate::rows::Field::value_into`],
+    /// [`crate::rows::key_field`] reads it back; an empty key is missing).
+    Key(&'a [u8]),
 }
 
 /// Appends `x` as an unsigned LEB128 varint.
@@ -176,6 +185,10 @@ pub fn put_cell(out: &mut Vec<u8>, cell: Cell<'_>) {
         Cell::Text(t) => {
             out.push(7);
             put_text(out, t);
+        }
+        Cell::Key(k) => {
+            out.push(8);
+            put_text(out, k);
         }
     }
 }
@@ -285,6 +298,11 @@ fn cell<'a>(b: &'a [u8], at: &mut usize) -> Result<Cell<'a>, Short> {
             let n = varint(b, at)?;
             let n = usize::try_from(n).map_err(|_| Short::Damaged("a length too long"))?;
             Cell::Text(take(b, at, n)?)
+        }
+        8 => {
+            let n = varint(b, at)?;
+            let n = usize::try_from(n).map_err(|_| Short::Damaged("a length too long"))?;
+            Cell::Key(take(b, at, n)?)
         }
         _ => return Err(Short::Damaged("a value of no known kind")),
     })
@@ -408,6 +426,7 @@ mod tests {
                     Cell::Whole(0),
                     Cell::Date(-719_162),
                     Cell::Text(b""),
+                    Cell::Key(b"I\x00\x20\x00\x00\x00\x00\x00\x01"),
                 ],
             ),
             (
@@ -420,6 +439,7 @@ mod tests {
                     Cell::Date(2_932_896),
                     Cell::Text("caf\u{e9}, \"quoted\"\nnext line".as_bytes()),
                     Cell::Text(b"\xff\xfe not UTF-8"),
+                    Cell::Key(b""),
                 ],
             ),
             (
@@ -432,6 +452,7 @@ mod tests {
                     Cell::Value(Value::Missing),
                     Cell::Date(0),
                     Cell::Value(Value::Flag(false)),
+                    Cell::Key(&LONG),
                 ],
             ),
         ]
@@ -440,7 +461,7 @@ mod tests {
     fn stream() -> Vec<u8> {
         let mut b = Vec::new();
         start(&mut b);
-        put_text(&mut b, b"id,label,a,b,c,d,e,f,g");
+        put_text(&mut b, b"id,label,a,b,c,d,e,f,g,h");
         for (t, v) in rows() {
             put_text(&mut b, &t);
             for c in v {
@@ -451,7 +472,7 @@ mod tests {
     }
 
     fn read(pieces: &[&[u8]]) -> (Vec<u8>, Shown, bool) {
-        let mut r = Reader::new(7);
+        let mut r = Reader::new(8);
         let mut head = Vec::new();
         let mut got = Vec::new();
         for p in pieces {
@@ -478,7 +499,7 @@ mod tests {
     fn rows_come_back_whatever_the_pieces() {
         let b = stream();
         let whole = read(&[&b]);
-        assert_eq!(whole.0, b"id,label,a,b,c,d,e,f,g");
+        assert_eq!(whole.0, b"id,label,a,b,c,d,e,f,g,h");
         assert_eq!(whole.1, want());
         assert!(whole.2);
         // Every cut into two pieces, and byte by byte.
@@ -571,6 +592,16 @@ mod tests {
         assert_eq!(bytes(Cell::Date(-1)), [6, 0xff, 0xff, 0xff, 0xff]);
         assert_eq!(bytes(Cell::Text(b"ab")), [7, 2, b'a', b'b']);
         assert_eq!(bytes(Cell::Text(b"")), [7, 0]);
+        // A key: the tag, its length and its bytes (here the key of the
+        // whole number 2^53 + 1: `I` and eight bytes, high first).
+        assert_eq!(
+            bytes(Cell::Key(b"I\x00\x20\x00\x00\x00\x00\x00\x01")),
+            [8, 9, b'I', 0, 0x20, 0, 0, 0, 0, 0, 1]
+        );
+        assert_eq!(bytes(Cell::Key(b"")), [8, 0]);
+        let mut key = Vec::new();
+        crate::rows::Field::Integer(9_007_199_254_740_993).value_into(&mut key);
+        assert_eq!(key, b"I\x00\x20\x00\x00\x00\x00\x00\x01");
         // 1.5 points with one decimal: 15,000 in 1/10,000 points.
         assert_eq!(
             bytes(Cell::Value(Value::Score {

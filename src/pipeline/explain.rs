@@ -14,6 +14,7 @@ use super::{Exclusion, OutputForm, Plan, ScoreConfig, Summary, WindowScope};
 use crate::io::value_records::{put_cell, put_varint, Cell};
 use crate::io::write_field;
 use crate::lists::format_scaled;
+use crate::rows::Keys;
 use crate::score::{Engine, Value};
 use crate::Error;
 
@@ -388,13 +389,7 @@ impl Explainer {
                     write_field(c.as_bytes(), self.delimiter, &mut out);
                 }
                 // No pass-through part: every cell is a value.
-                super::end_header(
-                    OutputForm::ValueRecords,
-                    b"",
-                    &mut out,
-                    0,
-                    crate::rows::Keys::Text,
-                );
+                super::end_header(OutputForm::ValueRecords, b"", &mut out, 0, Keys::Text);
             }
         }
         out
@@ -501,11 +496,14 @@ impl Explainer {
         let mut prefix = Vec::new();
         self.open(&mut prefix);
         let mut first = 0;
+        // A typed source's values as the text a delimited extract would
+        // hold (`Field::text`'s rule): a sink writing text.
+        let keys = hist.plan.keys;
         let mut own = |v: &[u8]| {
             self.cell(&mut prefix, first, &String::from_utf8_lossy(v));
             first += 1;
         };
-        self.own_values(hist, e, &mut own);
+        self.own_values(hist, e, &mut |key| own(&keys.text(key)));
         own(hist.row(e).to_string().as_bytes());
         let (mut text, mut number) = (String::new(), Vec::new());
         // The sink never fails: nothing to pass on.
@@ -561,25 +559,27 @@ impl Explainer {
     }
 
     /// Episode `e`'s own values (id, episode, kept columns, as asked for)
-    /// to `each`, as a delimited extract would hold them: a typed source's
-    /// keys as their text by `Field::text`'s rule, as the CSV writes them.
+    /// to `each`, as the history holds them (`hist.plan.keys`): a text
+    /// source's bytes, a typed source's keys (`Field::key_into` for the id
+    /// and episode, `Field::value_into` for kept values; empty when
+    /// missing).
     fn own_values(&self, hist: &History, e: usize, each: &mut impl FnMut(&[u8])) {
-        let k = hist.plan.keys;
         if self.id {
-            each(&k.text(hist.patient_id(hist.episodes[e].patient)));
+            each(hist.patient_id(hist.episodes[e].patient));
         }
         if self.episode {
-            each(&k.text(hist.key(e)));
+            each(hist.key(e));
         }
         for j in 0..self.nkeep {
-            each(&k.text(hist.kept(e, j)));
+            each(hist.kept(e, j));
         }
     }
 
     /// Episode `e`'s records as value records appended to `out`: no
     /// pass-through part, every cell a value (the same cells as the text,
-    /// typed: row numbers whole, dates as days, weights with their
-    /// decimals, the rest text; the text's empty cells missing).
+    /// typed: a typed source's id, episode and kept values as their keys,
+    /// row numbers whole, dates as days, weights with their decimals, the
+    /// rest text; the text's empty cells missing).
     #[allow(clippy::too_many_arguments)]
     fn episode_values(
         &self,
@@ -593,11 +593,15 @@ impl Explainer {
     ) {
         let mut prefix = Vec::new();
         put_varint(&mut prefix, 0);
-        let mut own = |v: &[u8]| {
-            put_cell(
+        let keys = hist.plan.keys;
+        let mut own = |v: &[u8]| match keys {
+            // The values themselves: the sink builds them with the input's
+            // types.
+            Keys::Typed => put_cell(&mut prefix, Cell::Key(v)),
+            Keys::Text => put_cell(
                 &mut prefix,
                 Cell::Text(String::from_utf8_lossy(v).as_bytes()),
-            );
+            ),
         };
         self.own_values(hist, e, &mut own);
         put_cell(&mut prefix, Cell::Whole(hist.row(e) as i64));
