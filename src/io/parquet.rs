@@ -2211,21 +2211,22 @@ impl ArrowColumn {
             DataType::Dictionary(..) => {
                 let d = array.as_any_dictionary();
                 let keys = d.normalized_keys();
-                // A dictionary's values are not rows: a value that cannot
-                // be read is named by the first row that uses it.
-                let values = ArrowColumn::new(d.values(), name, 1).map_err(|e| match e {
-                    Error::Data {
-                        line: Some(v),
-                        message,
-                    } => {
-                        let v = (v - 1) as usize;
-                        let row = (0..array.len())
-                            .find(|&i| array.is_valid(i) && keys[i] == v)
-                            .map(|i| first + i as u64);
-                        Error::Data { line: row, message }
+                // A dictionary's values are not rows: when one cannot be
+                // read, the column is read unpacked, so that a value no row
+                // holds stops nothing and one a row holds is named by it.
+                let values = match ArrowColumn::new(d.values(), name, 1) {
+                    Err(Error::Data { line: Some(_), .. }) => {
+                        let at: arrow_array::UInt64Array = (0..array.len())
+                            .map(|i| array.is_valid(i).then(|| keys[i] as u64))
+                            .collect();
+                        let plain = arrow_select::take::take(d.values().as_ref(), &at, None)
+                            .map_err(|e| {
+                                Error::data(None, format!("column '{name}' cannot be read: {e}"))
+                            })?;
+                        return ArrowColumn::new(&plain, name, first);
                     }
-                    other => other,
-                })?;
+                    other => other?,
+                };
                 ArrowColumn::Dictionary(
                     (0..array.len())
                         .map(|i| array.is_valid(i).then(|| keys[i]))
@@ -2969,14 +2970,22 @@ mod tests {
         let e = readings(a).unwrap_err().to_string();
         assert!(e.contains("column 'd' holds times of day"), "{e}");
         // A dictionary's value that cannot be read is named by the first
-        // row using it.
-        let keys = arrow_array::Int32Array::from(vec![Some(0), None, Some(1), Some(1)]);
-        let values: ArrayRef = Arc::new(arrow_array::UInt64Array::from(vec![1, u64::MAX]));
-        let a: ArrayRef = Arc::new(arrow_array::DictionaryArray::try_new(keys, values).unwrap());
-        let e = readings(a).unwrap_err().to_string();
+        // row holding it; one no row holds stops nothing.
+        let values: ArrayRef = Arc::new(arrow_array::UInt64Array::from(vec![1, u64::MAX, 5]));
+        let dictionary = |keys: Vec<Option<i32>>| -> ArrayRef {
+            let keys = arrow_array::Int32Array::from(keys);
+            Arc::new(arrow_array::DictionaryArray::try_new(keys, values.clone()).unwrap())
+        };
+        let e = readings(dictionary(vec![Some(0), None, Some(1), Some(1)]))
+            .unwrap_err()
+            .to_string();
         assert!(
             e.contains("line 3") && e.contains("18446744073709551615"),
             "{e}"
+        );
+        assert_eq!(
+            readings(dictionary(vec![Some(2), None, Some(0)])).unwrap(),
+            [F::Integer(5), F::Null, F::Integer(1)]
         );
     }
 
