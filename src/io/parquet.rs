@@ -1463,10 +1463,8 @@ fn key_column(fields: &[crate::rows::Field<'_>], input: &Option<DataType>) -> Ar
         }
         return natural;
     }
-    // Text the reader made of a type it does not read (decimals, ...).
-    if matches!(natural.data_type(), D::Utf8) && !text_like(t) {
-        return kept_column(natural, input);
-    }
+    // Every type the reader reads is cast back above or comes back as read
+    // (a timestamp as its day): no text of a value is parsed again here.
     natural
 }
 
