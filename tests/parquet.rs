@@ -1331,6 +1331,39 @@ fn decimal_ids_episodes_and_kept_values_come_back_as_the_same_decimals() {
             .to_vec(),
         [1, 2, 1, 1]
     );
+    // explain, as Parquet: the id, episode and label columns are the same
+    // decimals (each episode's first row holds its values).
+    let r = common::run(
+        "explain {} --layout long --id patient --episode episode --date day --lookback 365 \
+         --dx dx --label weight_class --index charlson:charlson1987 -o {}",
+        &[s(&input), s(&out)],
+    );
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let (explained, _) = read_parquet(&out);
+    for (name, a) in [
+        ("patient", &id),
+        ("episode", &episode),
+        ("weight_class", &kept),
+    ] {
+        let got = explained.column_by_name(name).unwrap();
+        assert_eq!(got.data_type(), a.data_type(), "{name}");
+        // Each episode's values, in the order its rows come.
+        let firsts: Vec<usize> = (0..explained.num_rows())
+            .filter(|&i| {
+                i == 0
+                    || explained.column_by_name("episode").unwrap().slice(i, 1)
+                        != explained.column_by_name("episode").unwrap().slice(i - 1, 1)
+            })
+            .collect();
+        let per_episode = arrow_select::take::take(
+            got.as_ref(),
+            &arrow_array::UInt32Array::from(firsts.iter().map(|&i| i as u32).collect::<Vec<_>>()),
+            None,
+        )
+        .unwrap();
+        assert_eq!(per_episode.as_ref(), a.as_ref(), "{name}");
+    }
+
     // As text, the ids are the numbers they hold.
     let r = common::run(
         "score {} --layout long --id patient --episode episode --date day --lookback 365 \

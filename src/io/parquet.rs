@@ -1567,6 +1567,32 @@ fn kept_column(text: ArrayRef, input: &Option<DataType>) -> ArrayRef {
                         .as_primitive::<arrow_array::types::Float32Type>()
                         .value(i)
                 }),
+                // A decimal is written as the whole number or number it
+                // reads as (1001.50 as `1001.5`): the decimal whose reading
+                // is written so.
+                DataType::Decimal32(_, scale)
+                | DataType::Decimal64(_, scale)
+                | DataType::Decimal128(_, scale)
+                | DataType::Decimal256(_, scale) => {
+                    use arrow_array::types::{
+                        Decimal128Type, Decimal256Type, Decimal32Type, Decimal64Type,
+                    };
+                    let (m, t) = match typed.data_type() {
+                        DataType::Decimal32(..) => {
+                            strip_zeros(i128::from(typed.as_primitive::<Decimal32Type>().value(i)))
+                        }
+                        DataType::Decimal64(..) => {
+                            strip_zeros(i128::from(typed.as_primitive::<Decimal64Type>().value(i)))
+                        }
+                        DataType::Decimal128(..) => {
+                            strip_zeros(typed.as_primitive::<Decimal128Type>().value(i))
+                        }
+                        _ => strip_zeros_256(typed.as_primitive::<Decimal256Type>().value(i)),
+                    };
+                    decimal_reading(m, t, *scale)
+                        .and_then(|f| f.text())
+                        .is_some_and(|written| written.as_ref() == text.as_bytes())
+                }
                 _ => false,
             };
             (0..typed.len()).all(|i| {
