@@ -1303,34 +1303,43 @@ fn decimal_ids_episodes_and_kept_values_come_back_as_the_same_decimals() {
         3,
     );
     let out = dir.path().join("out.parquet");
-    let r = common::run(
-        "score {} --layout long --id patient --episode episode --date day --lookback 365 \
-         --dx dx --keep weight_class --index charlson:charlson1987 -o {}",
-        &[s(&input), s(&out)],
-    );
-    assert_eq!(r.code, 0, "{}", r.stderr);
-    let (back, _) = read_parquet(&out);
-    for (name, a) in [
-        ("patient", &id),
-        ("episode", &episode),
-        ("weight_class", &kept),
-    ] {
+    // In memory, and spilled to temporary files (--memory 0).
+    for memory in ["1GiB", "0"] {
+        let r = common::run(
+            "score {} --layout long --id patient --episode episode --date day --lookback 365 \
+             --dx dx --keep weight_class --index charlson:charlson1987 --memory {} -o {}",
+            &[s(&input), memory, s(&out)],
+        );
+        assert_eq!(r.code, 0, "{}", r.stderr);
         assert_eq!(
-            back.column_by_name(name).unwrap().as_ref(),
-            a.as_ref(),
-            "{name}"
+            r.stderr.contains("went to temporary files"),
+            memory == "0",
+            "{}",
+            r.stderr
+        );
+        let (back, _) = read_parquet(&out);
+        for (name, a) in [
+            ("patient", &id),
+            ("episode", &episode),
+            ("weight_class", &kept),
+        ] {
+            assert_eq!(
+                back.column_by_name(name).unwrap().as_ref(),
+                a.as_ref(),
+                "{name} {memory}"
+            );
+        }
+        // Episodes 100 and 200 are one patient's (1001.50): the second
+        // counts the first's infarction (Charlson 1987: 1 + 1).
+        let scores = back.column_by_name("charlson_charlson1987").unwrap();
+        assert_eq!(
+            scores
+                .as_primitive::<arrow_array::types::Int64Type>()
+                .values()
+                .to_vec(),
+            [1, 2, 1, 1]
         );
     }
-    // Episodes 100 and 200 are one patient's (1001.50): the second counts
-    // the first's infarction (Charlson 1987: 1 + 1).
-    let scores = back.column_by_name("charlson_charlson1987").unwrap();
-    assert_eq!(
-        scores
-            .as_primitive::<arrow_array::types::Int64Type>()
-            .values()
-            .to_vec(),
-        [1, 2, 1, 1]
-    );
     // explain, as Parquet: the id, episode and label columns are the same
     // decimals (each episode's first row holds its values).
     let r = common::run(
