@@ -1108,3 +1108,494 @@ fn explain_to_parquet_holds_the_csv_cells_typed_on_every_route() {
         }
     }
 }
+
+// Arrow types without a text form of their own: each has a typed reading
+// or a clear refusal; no text is made of them for the engine to read.
+
+/// Writes `columns` as a Parquet file `name` in `dir`, in row groups of
+/// `group` rows.
+fn write_columns(dir: &Path, name: &str, columns: Vec<(&str, ArrayRef)>, group: usize) -> PathBuf {
+    let batch =
+        RecordBatch::try_from_iter_with_nullable(columns.into_iter().map(|(n, a)| (n, a, true)))
+            .unwrap();
+    let path = dir.join(name);
+    write_parquet(&path, &batch, Some(group));
+    path
+}
+
+fn texts(values: &[&str]) -> ArrayRef {
+    Arc::new(StringArray::from_iter(
+        values.iter().map(|v| Some(*v).filter(|v| !v.is_empty())),
+    ))
+}
+
+fn dates(values: &[&str]) -> ArrayRef {
+    let mut b = Date32Builder::new();
+    for v in values {
+        b.append_option(morbus::pipeline::DateFormat::Iso.parse(v.as_bytes()));
+    }
+    Arc::new(b.finish())
+}
+
+/// A decimal column of precision `p` and scale `s` holding the unscaled
+/// values `raw`.
+fn decimals(raw: &[Option<i128>], p: u8, s: i8) -> ArrayRef {
+    Arc::new(
+        arrow_array::Decimal128Array::from(raw.to_vec())
+            .with_precision_and_scale(p, s)
+            .unwrap(),
+    )
+}
+
+#[test]
+fn a_decimal_age_scores_like_the_same_ages_as_text_and_as_floats() {
+    let dir = TempDir::new("parquet-decimal-age");
+    let ages = [Some(499), Some(500), Some(799), Some(805), None, Some(1310)];
+    let dx = texts(&["I21.9"; 6]);
+    let decimal = write_columns(
+        dir.path(),
+        "decimal.parquet",
+        vec![("dx1", dx.clone()), ("age", decimals(&ages, 5, 1))],
+        4,
+    );
+    let floats: arrow_array::Float64Array =
+        ages.iter().map(|a| a.map(|a| a as f64 / 10.0)).collect();
+    let float = write_columns(
+        dir.path(),
+        "float.parquet",
+        vec![("dx1", dx.clone()), ("age", Arc::new(floats))],
+        4,
+    );
+    let text = write_columns(
+        dir.path(),
+        "text.parquet",
+        vec![
+            ("dx1", dx),
+            ("age", texts(&["49.9", "50.0", "79.9", "80.5", "", "131.0"])),
+        ],
+        4,
+    );
+    let line = "score {} --dx dx1 --age age --index charlson:charlson1987";
+    let got = common::run(line, &[s(&decimal)]);
+    assert_eq!(got.code, 0, "{}", got.stderr);
+    // Charlson et al., J Chron Dis 1987;40:373-83: myocardial infarction 1
+    // point, and one point per decade of age from 50 (49.9 is 49: none;
+    // 50.0: 1; 79.9 is 79: 3; 80.5 is 80: 4); no age, or 131, no
+    // age-combined score.
+    assert_eq!(
+        column(&got.stdout, "charlson_charlson1987_age"),
+        ["1", "2", "4", "5", "", ""]
+    );
+    assert!(
+        got.stderr.contains("ages missing: 1, unreadable: 1"),
+        "{}",
+        got.stderr
+    );
+    for other in [&float, &text] {
+        let r = common::run(line, &[s(other)]);
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        for name in ["charlson_charlson1987", "charlson_charlson1987_age"] {
+            assert_eq!(column(&r.stdout, name), column(&got.stdout, name));
+        }
+        assert_eq!(r.stderr, got.stderr);
+    }
+}
+
+/// The ids of the UInt64 test: 2^53 + 1 and 2^53 are one apart (equal as
+/// doubles), and the largest `i64`.
+const BIG_IDS: [u64; 4] = [
+    9_007_199_254_740_993,
+    9_007_199_254_740_993,
+    9_007_199_254_740_992,
+    9_223_372_036_854_775_807,
+];
+
+#[test]
+fn unsigned_ids_group_episodes_like_signed_ones_and_come_back_unsigned() {
+    let dir = TempDir::new("parquet-uint64-ids");
+    let rest = || {
+        vec![
+            ("episode", texts(&["a", "b", "c", "d"])),
+            (
+                "day",
+                dates(&["2020-01-01", "2020-03-01", "2020-02-01", "2020-01-01"]),
+            ),
+            ("dx", texts(&["I21.9", "I50.9", "I50.9", "I21.9"])),
+        ]
+    };
+    let unsigned: ArrayRef = Arc::new(arrow_array::UInt64Array::from(BIG_IDS.to_vec()));
+    let signed: ArrayRef = Arc::new(arrow_array::Int64Array::from(
+        BIG_IDS.iter().map(|&i| i as i64).collect::<Vec<_>>(),
+    ));
+    let mut u = vec![("patient", unsigned.clone())];
+    u.extend(rest());
+    let mut i = vec![("patient", signed)];
+    i.extend(rest());
+    let u = write_columns(dir.path(), "unsigned.parquet", u, 2);
+    let i = write_columns(dir.path(), "signed.parquet", i, 2);
+    let line = "score {} --layout long --id patient --episode episode --date day \
+                --lookback 365 --dx dx --index charlson:charlson1987";
+    let got = common::run(line, &[s(&u)]);
+    assert_eq!(got.code, 0, "{}", got.stderr);
+    // Charlson 1987: myocardial infarction 1, heart failure 1. Episode b
+    // counts its patient's infarction of episode a (59 days before); c is
+    // another patient (one apart from a's and b's), whose heart failure
+    // alone scores 1.
+    assert_eq!(
+        column(&got.stdout, "patient"),
+        BIG_IDS.map(|i| i.to_string())
+    );
+    assert_eq!(
+        column(&got.stdout, "charlson_charlson1987"),
+        ["1", "2", "1", "1"]
+    );
+    let signed_run = common::run(line, &[s(&i)]);
+    assert_eq!(signed_run.stdout, got.stdout);
+    assert_eq!(signed_run.stderr, got.stderr);
+
+    // As Parquet: the ids are the input's UInt64 values, with lookback (the
+    // ids kept as typed keys) and without (taken from the input's arrays).
+    for history in [true, false] {
+        let out = dir.path().join("out.parquet");
+        let mut line = format!("{line} -o {{}}");
+        if !history {
+            line = line.replace("--date day --lookback 365 ", "");
+        }
+        let r = common::run(&line, &[s(&u), s(&out)]);
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        let (back, _) = read_parquet(&out);
+        assert_eq!(
+            back.column_by_name("patient").unwrap().as_ref(),
+            unsigned.as_ref(),
+            "history {history}"
+        );
+    }
+}
+
+#[test]
+fn decimal_ids_episodes_and_kept_values_come_back_as_the_same_decimals() {
+    let dir = TempDir::new("parquet-decimal-ids");
+    // Ids of scale 2 (numbers), episodes of scale 0 (whole numbers), and a
+    // kept column of scale 0 holding values beyond i64 (read as numbers)
+    // beside a small one (a whole number). (Parquet holds no negative
+    // scale: see the unit tests of the decimal readings.)
+    let id = decimals(
+        &[Some(100150), Some(100150), Some(200225), Some(-310)],
+        12,
+        2,
+    );
+    let episode = decimals(&[Some(100), Some(200), Some(300), Some(400)], 10, 0);
+    let big = 1_200_000_000_000_000_000_000i128;
+    let kept = decimals(&[Some(7), Some(big), None, Some(-big)], 38, 0);
+    let input = write_columns(
+        dir.path(),
+        "in.parquet",
+        vec![
+            ("patient", id.clone()),
+            ("episode", episode.clone()),
+            ("weight_class", kept.clone()),
+            (
+                "day",
+                dates(&["2020-01-01", "2020-03-01", "2020-02-01", "2020-01-01"]),
+            ),
+            ("dx", texts(&["I21.9", "I50.9", "I50.9", "I21.9"])),
+        ],
+        3,
+    );
+    let out = dir.path().join("out.parquet");
+    // In memory, and spilled to temporary files (--memory 0).
+    for memory in ["1GiB", "0"] {
+        let r = common::run(
+            "score {} --layout long --id patient --episode episode --date day --lookback 365 \
+             --dx dx --keep weight_class --index charlson:charlson1987 --memory {} -o {}",
+            &[s(&input), memory, s(&out)],
+        );
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        assert_eq!(
+            r.stderr.contains("went to temporary files"),
+            memory == "0",
+            "{}",
+            r.stderr
+        );
+        let (back, _) = read_parquet(&out);
+        for (name, a) in [
+            ("patient", &id),
+            ("episode", &episode),
+            ("weight_class", &kept),
+        ] {
+            assert_eq!(
+                back.column_by_name(name).unwrap().as_ref(),
+                a.as_ref(),
+                "{name} {memory}"
+            );
+        }
+        // Episodes 100 and 200 are one patient's (1001.50): the second
+        // counts the first's infarction (Charlson 1987: 1 + 1).
+        let scores = back.column_by_name("charlson_charlson1987").unwrap();
+        assert_eq!(
+            scores
+                .as_primitive::<arrow_array::types::Int64Type>()
+                .values()
+                .to_vec(),
+            [1, 2, 1, 1]
+        );
+    }
+    // explain, as Parquet: the id, episode and label columns are the same
+    // decimals (each episode's first row holds its values).
+    let r = common::run(
+        "explain {} --layout long --id patient --episode episode --date day --lookback 365 \
+         --dx dx --label weight_class --index charlson:charlson1987 -o {}",
+        &[s(&input), s(&out)],
+    );
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let (explained, _) = read_parquet(&out);
+    for (name, a) in [
+        ("patient", &id),
+        ("episode", &episode),
+        ("weight_class", &kept),
+    ] {
+        let got = explained.column_by_name(name).unwrap();
+        assert_eq!(got.data_type(), a.data_type(), "{name}");
+        // Each episode's values, in the order its rows come.
+        let firsts: Vec<usize> = (0..explained.num_rows())
+            .filter(|&i| {
+                i == 0
+                    || explained.column_by_name("episode").unwrap().slice(i, 1)
+                        != explained.column_by_name("episode").unwrap().slice(i - 1, 1)
+            })
+            .collect();
+        let per_episode = arrow_select::take::take(
+            got.as_ref(),
+            &arrow_array::UInt32Array::from(firsts.iter().map(|&i| i as u32).collect::<Vec<_>>()),
+            None,
+        )
+        .unwrap();
+        assert_eq!(per_episode.as_ref(), a.as_ref(), "{name}");
+    }
+
+    // As text, the ids are the numbers they hold.
+    let r = common::run(
+        "score {} --layout long --id patient --episode episode --date day --lookback 365 \
+         --dx dx --index charlson:charlson1987",
+        &[s(&input)],
+    );
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    assert_eq!(
+        column(&r.stdout, "patient"),
+        ["1001.5", "1001.5", "2002.25", "-3.1"]
+    );
+    assert_eq!(column(&r.stdout, "episode"), ["100", "200", "300", "400"]);
+}
+
+#[test]
+fn all_null_columns_read_as_missing() {
+    let dir = TempDir::new("parquet-null-type");
+    let null: ArrayRef = Arc::new(arrow_array::NullArray::new(2));
+    let input = write_columns(
+        dir.path(),
+        "in.parquet",
+        vec![
+            ("dx1", texts(&["I21.9", "I50.9"])),
+            ("poa1", null.clone()),
+            ("age", null),
+        ],
+        2,
+    );
+    let csv = dir.write("in.csv", "dx1,poa1,age\nI21.9,,\nI50.9,,\n");
+    // Charlson 1987: infarction 1, heart failure 1, counted only when
+    // their indicator is one of --poa-values (missing is 'blank').
+    for (values, expected) in [("Y", ["0", "0"]), ("Y,blank", ["1", "1"])] {
+        let line = format!(
+            "score {{}} --dx dx1 --poa poa* --poa-values {values} --age age \
+             --index charlson:charlson1987"
+        );
+        let r = common::run(&line, &[s(&input)]);
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        assert_eq!(column(&r.stdout, "charlson_charlson1987"), expected);
+        assert_eq!(column(&r.stdout, "charlson_charlson1987_age"), ["", ""]);
+        assert!(r.stderr.contains("ages missing: 2"), "{}", r.stderr);
+        assert!(r.stderr.contains("blank 2"), "{}", r.stderr);
+        let reference = common::run(&line, &[&csv]);
+        assert_eq!(r.stdout, reference.stdout);
+        assert_eq!(r.stderr, reference.stderr);
+    }
+}
+
+#[test]
+fn fixed_size_binary_codes_read_as_their_bytes() {
+    let dir = TempDir::new("parquet-fixed-binary");
+    let codes = arrow_array::FixedSizeBinaryArray::try_from_sparse_iter_with_size(
+        [Some(b"I219"), None, Some(b"I509")].into_iter(),
+        4,
+    )
+    .unwrap();
+    let input = write_columns(
+        dir.path(),
+        "in.parquet",
+        vec![("dx1", Arc::new(codes) as ArrayRef)],
+        2,
+    );
+    let r = common::run(
+        "score {} --dx dx1 --index charlson:charlson1987",
+        &[s(&input)],
+    );
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    // Charlson 1987: infarction 1, nothing 0, heart failure 1.
+    assert_eq!(column(&r.stdout, "charlson_charlson1987"), ["1", "0", "1"]);
+}
+
+#[test]
+fn values_and_types_without_a_reading_stop_the_run_naming_column_and_row() {
+    let dir = TempDir::new("parquet-unreadable-types");
+    // An unsigned id beyond i64::MAX at row 8195: in the reader's second
+    // batch of 8192 rows, named by its row in the file.
+    let n = 8200;
+    let mut ids: Vec<u64> = (0..n as u64).collect();
+    ids[8194] = u64::MAX;
+    let input = write_columns(
+        dir.path(),
+        "ids.parquet",
+        vec![
+            (
+                "patient",
+                Arc::new(arrow_array::UInt64Array::from(ids)) as ArrayRef,
+            ),
+            ("dx", texts(&vec!["I21.9"; n])),
+        ],
+        5000,
+    );
+    let out = dir.path().join("out.parquet");
+    for to_parquet in [false, true] {
+        let mut a = vec![
+            "score",
+            s(&input),
+            "--layout",
+            "long",
+            "--id",
+            "patient",
+            "--dx",
+            "dx",
+        ];
+        if to_parquet {
+            a.extend(["-o", s(&out)]);
+        }
+        let r = morbus(&a);
+        assert_eq!(r.code, 1, "{}", r.stderr);
+        for part in [
+            &format!("row 8195 of {}", input.display())[..],
+            "column 'patient'",
+            "18446744073709551615",
+            "cast the column to text",
+        ] {
+            assert!(r.stderr.contains(part), "{part}: {}", r.stderr);
+        }
+        assert!(!out.exists());
+    }
+
+    // A decimal of 17 significant digits at row 2, read by a run with
+    // history (ages) and by one without.
+    let ages = decimals(&[Some(7000), Some(12_345_678_901_234_567), None], 20, 2);
+    let input = write_columns(
+        dir.path(),
+        "ages.parquet",
+        vec![
+            ("patient", texts(&["a", "a", "b"])),
+            ("day", dates(&["2020-01-01", "2020-02-01", "2020-01-01"])),
+            ("dx", texts(&["I21.9", "I50.9", "I21.9"])),
+            ("age", ages),
+        ],
+        2,
+    );
+    for extra in ["", " --id patient --date day --lookback 365"] {
+        let line = format!("score {{}} --dx dx --age age{extra}");
+        let r = common::run(&line, &[s(&input)]);
+        assert_eq!(r.code, 1, "{}", r.stderr);
+        for part in [
+            &format!("row 2 of {}", input.display())[..],
+            "column 'age'",
+            "123456789012345.67",
+            "significant digits",
+            "cast the column to text",
+        ] {
+            assert!(r.stderr.contains(part), "{part}: {}", r.stderr);
+        }
+    }
+
+    // A list column as a diagnosis column: refused before any row is read,
+    // naming the column and its type.
+    let mut lists = ListBuilder::new(StringBuilder::new());
+    lists.values().append_value("I21.9");
+    lists.append(true);
+    let input = write_columns(
+        dir.path(),
+        "list.parquet",
+        vec![("dx1", Arc::new(lists.finish()) as ArrayRef)],
+        2,
+    );
+    for to_parquet in [false, true] {
+        let mut a = vec!["score", s(&input), "--dx", "dx1"];
+        if to_parquet {
+            a.extend(["-o", s(&out)]);
+        }
+        let r = morbus(&a);
+        assert_eq!(r.code, 1, "{}", r.stderr);
+        for part in ["column 'dx1'", "holds lists", "List(", "cast the column"] {
+            assert!(r.stderr.contains(part), "{part}: {}", r.stderr);
+        }
+        assert!(!out.exists());
+    }
+}
+
+#[test]
+fn columns_not_read_pass_through_whatever_their_type() {
+    let dir = TempDir::new("parquet-unread-types");
+    let mut tags = ListBuilder::new(StringBuilder::new());
+    tags.values().append_value("x");
+    tags.append(true);
+    tags.append(false);
+    tags.append(true);
+    let times: ArrayRef = Arc::new(arrow_array::Time64MicrosecondArray::from(vec![
+        Some(3_600_000_000),
+        None,
+        Some(0),
+    ]));
+    let durations: ArrayRef = Arc::new(arrow_array::DurationSecondArray::from(vec![
+        Some(60),
+        Some(-1),
+        None,
+    ]));
+    let batch = RecordBatch::try_from_iter([
+        ("tags", Arc::new(tags.finish()) as ArrayRef),
+        ("patient", texts(&["a", "a", "b"])),
+        ("time_of_day", times),
+        ("day", dates(&["2020-01-01", "2020-02-01", "2020-01-01"])),
+        ("stay", durations),
+        ("dx1", texts(&["I21.9", "I50.9", "I50.9"])),
+    ])
+    .unwrap();
+    let input = dir.path().join("in.parquet");
+    write_parquet(&input, &batch, Some(2));
+    let out = dir.path().join("out.parquet");
+    for history in ["", " --id patient --date day --lookback 365"] {
+        // Wide, as Parquet: the input's columns copied as they are.
+        let line = format!("score {{}} --dx dx1 --index charlson:charlson1987{history} -o {{}}");
+        let r = common::run(&line, &[s(&input), s(&out)]);
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        let (back, _) = read_parquet(&out);
+        for k in 0..batch.num_columns() {
+            assert_eq!(back.column(k).as_ref(), batch.column(k).as_ref(), "{k}");
+        }
+        // As text too (written, not read).
+        let line = format!("score {{}} --dx dx1 --index charlson:charlson1987{history}");
+        let r = common::run(&line, &[s(&input)]);
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        // Charlson 1987: infarction 1, heart failure 1; with lookback, a's
+        // second episode counts the first's infarction.
+        let expected = if history.is_empty() {
+            ["1", "1", "1"]
+        } else {
+            ["1", "2", "1"]
+        };
+        assert_eq!(column(&r.stdout, "charlson_charlson1987"), expected);
+    }
+}

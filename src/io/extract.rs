@@ -43,7 +43,11 @@ pub enum Table {
 struct ParquetInput {
     source: Source,
     schema: SchemaRef,
+    /// The columns decoded (`None`: all).
     columns: Option<Vec<usize>>,
+    /// The columns the run reads values of, by position in the file (`None`:
+    /// one of them is not in the file, and the run reports it).
+    used: Option<Vec<usize>>,
 }
 
 /// An extract opened for a run.
@@ -75,12 +79,9 @@ impl Extract {
         #[cfg(feature = "parquet")]
         if let Some(source) = input.parquet {
             let schema = source.schema()?;
-            let columns = if only_read {
-                let names: Vec<String> = schema.fields().iter().map(|f| f.name().clone()).collect();
-                parquet::read_columns(&names, cfg, extra)
-            } else {
-                None
-            };
+            let names: Vec<String> = schema.fields().iter().map(|f| f.name().clone()).collect();
+            let used = parquet::read_columns(&names, cfg, extra);
+            let columns = if only_read { used.clone() } else { None };
             // The footer's row count, for a progress display.
             let rows = Some(source.total_rows()?);
             return Ok(Extract {
@@ -92,6 +93,7 @@ impl Extract {
                     source,
                     schema,
                     columns,
+                    used,
                 }),
             });
         }
@@ -145,11 +147,16 @@ impl Extract {
     pub fn take_input(&mut self) -> Result<Input<'static>, Error> {
         #[cfg(feature = "parquet")]
         if let Some(p) = &self.parquet {
-            let rows = parquet::ParquetRows::from_source(
+            let mut rows = parquet::ParquetRows::from_source(
                 p.source.clone(),
                 p.columns.as_deref(),
                 &self.name,
             )?;
+            // Every column decoded: only those the run reads are read (the
+            // others, of any type, are the sink's to copy).
+            if let (None, Some(u)) = (&p.columns, &p.used) {
+                rows = rows.reading_only(u);
+            }
             self.reader = Box::new(std::io::empty());
             return Ok(Input::Rows(Box::new(rows)));
         }

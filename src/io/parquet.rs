@@ -1319,13 +1319,17 @@ fn parquet_write_error(e: parquet::errors::ParquetError) -> Error {
 /// the input's type where that gives them back exactly (narrower integers
 /// and floating-point numbers, `Date64`, other text and binary types,
 /// dictionaries). A timestamp column was read as its day and stays a
-/// `Date32` of that day; a type the reader formats as text (decimals,
-/// unsigned 64-bit integers, ...) is cast back from that text only when
-/// every value comes back exactly ([`formatted_column`]).
+/// `Date32` of that day; unsigned 64-bit integers, read as whole numbers
+/// up to `i64::MAX`, are cast back to `UInt64`; a decimal column's whole
+/// numbers and numbers are the decimals they were read from
+/// ([`decimal_column`]).
 fn key_column(fields: &[crate::rows::Field<'_>], input: &Option<DataType>) -> ArrayRef {
     use crate::rows::Field as F;
     use arrow_array::builder::{BinaryBuilder, BooleanBuilder};
     let rows = fields.len();
+    if let Some(a) = input.as_ref().and_then(|t| decimal_column(fields, t)) {
+        return a;
+    }
     let kind = |f: &F<'_>| -> u8 {
         match f {
             F::Null => 0,
@@ -1445,7 +1449,10 @@ fn key_column(fields: &[crate::rows::Field<'_>], input: &Option<DataType>) -> Ar
     };
     use DataType as D;
     let exact = match (natural.data_type(), t) {
-        (D::Int64, D::Int8 | D::Int16 | D::Int32 | D::UInt8 | D::UInt16 | D::UInt32) => true,
+        (
+            D::Int64,
+            D::Int8 | D::Int16 | D::Int32 | D::UInt8 | D::UInt16 | D::UInt32 | D::UInt64,
+        ) => true,
         (D::Float64, D::Float16 | D::Float32) => true,
         (D::Date32, D::Date64) => true,
         (D::Utf8 | D::Binary, t) if text_like(t) => true,
@@ -1462,41 +1469,91 @@ fn key_column(fields: &[crate::rows::Field<'_>], input: &Option<DataType>) -> Ar
         }
         return natural;
     }
-    // Text the reader made of a type it does not read (decimals, ...).
-    if matches!(natural.data_type(), D::Utf8) && !text_like(t) {
-        return formatted_column(natural, t);
+    // Fixed-size binary was read as its bytes: back to it when every value
+    // has the size.
+    if let D::FixedSizeBinary(_) = t {
+        let options = arrow_cast::CastOptions {
+            safe: false,
+            format_options: FORMAT,
+        };
+        let bytes = arrow_cast::cast_with_options(&natural, &D::Binary, &options);
+        if let Ok(a) = bytes.and_then(|b| arrow_cast::cast_with_options(&b, t, &options)) {
+            return a;
+        }
+        return natural;
     }
+    // Every type the reader reads is cast back above or comes back as read
+    // (a timestamp as its day): no text of a value is parsed again here.
     natural
 }
 
-/// The values of a column whose type the row reader does not read
-/// (decimals, unsigned 64-bit integers, ...: it reads them as Arrow's
-/// formatter writes them, [`ArrowColumn::Formatted`]) as that type `t`, when
-/// casting gives every value back exactly (checked by formatting the cast
-/// values again); else the text.
-fn formatted_column(text: ArrayRef, t: &DataType) -> ArrayRef {
-    let options = arrow_cast::CastOptions {
-        safe: false,
-        format_options: FORMAT,
+/// The values `fields` of a decimal column (type `t`) as the decimals they
+/// were read from ([`decimal_of`]); `None` when `t` is no decimal type or a
+/// value is no reading of one.
+fn decimal_column(fields: &[crate::rows::Field<'_>], t: &DataType) -> Option<ArrayRef> {
+    use arrow_array::types::{Decimal128Type, Decimal256Type, Decimal32Type, Decimal64Type};
+    use arrow_array::PrimitiveArray;
+    let scale = match t {
+        DataType::Decimal32(_, s)
+        | DataType::Decimal64(_, s)
+        | DataType::Decimal128(_, s)
+        | DataType::Decimal256(_, s) => *s,
+        _ => return None,
     };
-    let Ok(typed) = arrow_cast::cast_with_options(&text, t, &options) else {
-        return text;
-    };
-    let exact = match ArrayFormatter::try_new(typed.as_ref(), &FORMAT) {
-        Ok(back) => {
-            let strings = text.as_string::<i32>();
-            (0..typed.len()).all(|i| {
-                strings.is_null(i) == typed.is_null(i)
-                    && (strings.is_null(i) || back.value(i).to_string() == strings.value(i))
+    // Each value as (m, k): unscaled m * 10^k.
+    let parts = fields
+        .iter()
+        .map(|f| match f {
+            crate::rows::Field::Null => Some(None),
+            f => decimal_of(*f, scale).map(Some),
+        })
+        .collect::<Option<Vec<_>>>()?;
+    let small = |conv: &dyn Fn(i128) -> Option<i128>| -> Option<Vec<Option<i128>>> {
+        parts
+            .iter()
+            .map(|p| match p {
+                None => Some(None),
+                Some((m, k)) => 10i128
+                    .checked_pow(*k)
+                    .and_then(|p| m.checked_mul(p))
+                    .and_then(conv)
+                    .map(Some),
             })
-        }
-        Err(_) => false,
+            .collect()
     };
-    if exact {
-        typed
-    } else {
-        text
-    }
+    let array: ArrayRef = match t {
+        DataType::Decimal32(p, s) => {
+            let v = small(&|x| i32::try_from(x).ok().map(i128::from))?;
+            let v: PrimitiveArray<Decimal32Type> = v.iter().map(|x| x.map(|x| x as i32)).collect();
+            Arc::new(v.with_precision_and_scale(*p, *s).ok()?)
+        }
+        DataType::Decimal64(p, s) => {
+            let v = small(&|x| i64::try_from(x).ok().map(i128::from))?;
+            let v: PrimitiveArray<Decimal64Type> = v.iter().map(|x| x.map(|x| x as i64)).collect();
+            Arc::new(v.with_precision_and_scale(*p, *s).ok()?)
+        }
+        DataType::Decimal128(p, s) => {
+            let v: PrimitiveArray<Decimal128Type> = small(&Some)?.into_iter().collect();
+            Arc::new(v.with_precision_and_scale(*p, *s).ok()?)
+        }
+        DataType::Decimal256(p, s) => {
+            let ten = I256::from_i128(10);
+            let v = parts
+                .iter()
+                .map(|p| match p {
+                    None => Some(None),
+                    Some((m, k)) => ten
+                        .checked_pow(*k)
+                        .and_then(|p| I256::from_i128(*m).checked_mul(p))
+                        .map(Some),
+                })
+                .collect::<Option<Vec<_>>>()?;
+            let v: PrimitiveArray<Decimal256Type> = v.into_iter().collect();
+            Arc::new(v.with_precision_and_scale(*p, *s).ok()?)
+        }
+        _ => return None,
+    };
+    Some(array)
 }
 
 impl Drop for ParquetSink {
@@ -1607,11 +1664,15 @@ pub fn check_copied_names(input: &Schema, engine: &Engine) -> Result<(), Error> 
 /// A Parquet input's rows, typed, for the history reader
 /// ([`crate::rows::RowSource`]): record batches decoded from the file and
 /// read in place, without any text in between. Text, binary and dictionary
-/// columns give their bytes; integers, floating-point numbers and booleans
-/// their values; dates and timestamps their day (a timestamp with a time
-/// zone on its date in that zone). Other types (decimals, lists, ...) give
-/// the text of Arrow's formatter, as the text path did, so that they read
-/// (or fail to read) as before.
+/// columns give their bytes; integers (unsigned 64-bit ones up to
+/// `i64::MAX`), floating-point numbers and booleans their values; decimals
+/// a whole number or a number (see [`decimal_reading`]; one with more than
+/// 15 significant digits is an error naming its row); dates and timestamps
+/// their day (a timestamp with a time zone on its date in that zone); a
+/// column of type `Null` is missing throughout. A column of any other type
+/// (times of day, durations, lists, structs, ...) that the run reads is
+/// refused, naming it and its type; the columns it does not read
+/// ([`ParquetRows::reading_only`]) may be of any type.
 pub struct ParquetRows {
     source: Source,
     batches: ParquetRecordBatchReader,
@@ -1625,6 +1686,8 @@ pub struct ParquetRows {
     pub total_rows: u64,
     /// The input as named in messages.
     name: String,
+    /// The row (from 1) the next batch starts at.
+    next_row: u64,
 }
 
 impl ParquetRows {
@@ -1662,6 +1725,7 @@ impl ParquetRows {
             used: None,
             total_rows,
             name: name.to_string(),
+            next_row: 1,
         })
     }
 
@@ -1698,9 +1762,10 @@ impl crate::rows::RowSource<'static> for ParquetRows {
         };
         // The decoder's arrays of a damaged file may upset their reading
         // too: the whole step is guarded.
-        let (names, used) = (&self.names, self.used.as_deref());
-        let typed = guarded(|| ArrowBatch::new(&batch, names, used))
+        let (names, used, first) = (&self.names, self.used.as_deref(), self.next_row);
+        let typed = guarded(|| ArrowBatch::new(&batch, names, used, first))
             .unwrap_or_else(|m| Err(self.source.damaged(&m)))?;
+        self.next_row += batch.num_rows() as u64;
         Ok(Some(Box::new(typed)))
     }
 
@@ -1734,17 +1799,26 @@ enum ArrowColumn {
     Days(Vec<Option<i64>>),
     /// A dictionary: each row's key into its values.
     Dictionary(Vec<Option<usize>>, Box<ArrowColumn>),
-    /// Any other type, as Arrow's formatter writes it.
-    Formatted(Vec<Option<String>>),
+    BinaryView(arrow_array::BinaryViewArray),
+    /// Fixed-size binary: each value's bytes, as text.
+    FixedBinary(arrow_array::FixedSizeBinaryArray),
+    /// Values read ahead, each to its own reading (decimals: whole numbers
+    /// or numbers, see [`decimals`]).
+    Values(Vec<crate::rows::Field<'static>>),
+    /// A column of type `Null`: every value missing.
+    Null,
     /// A column the run does not read (copied by the sink only).
     Unused,
 }
 
 impl ArrowBatch {
+    /// The columns of `batch` (named `names`; `used`: those read, `None`:
+    /// all), whose first row is row `first` (from 1) of the input.
     fn new(
         batch: &RecordBatch,
         names: &[String],
         used: Option<&[bool]>,
+        first: u64,
     ) -> Result<ArrowBatch, Error> {
         let columns = batch
             .columns()
@@ -1755,7 +1829,7 @@ impl ArrowBatch {
                 if used.is_some_and(|u| !u.get(k).copied().unwrap_or(false)) {
                     Ok(ArrowColumn::Unused)
                 } else {
-                    ArrowColumn::new(a, name)
+                    ArrowColumn::new(a, name, first)
                 }
             })
             .collect::<Result<Vec<_>, Error>>()?;
@@ -1817,19 +1891,224 @@ fn timestamp_days(array: &dyn Array, name: &str) -> Result<Vec<Option<i64>>, Err
     })
 }
 
+/// The most significant digits a decimal may have to be read as a number
+/// (`f64`): every decimal of at most 15 digits is the only one of them
+/// that reads as its nearest double, so that the double gives it back and
+/// distinct decimals stay distinct.
+const DECIMAL_DIGITS: u32 = 15;
+
+/// Powers of ten that are exact doubles (10^0 to 10^22).
+const EXACT_TENS: [f64; 23] = [
+    1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15, 1e16,
+    1e17, 1e18, 1e19, 1e20, 1e21, 1e22,
+];
+
+/// The double nearest to `m` * 10^`e` (`|m|` below 10^15, `e` from -22 to
+/// 22: one correctly rounded operation of two exact doubles); `None`
+/// beyond.
+fn decimal_double(m: i128, e: i32) -> Option<f64> {
+    if m.unsigned_abs() >= 10u128.pow(DECIMAL_DIGITS) {
+        return None;
+    }
+    let ten = *EXACT_TENS.get(e.unsigned_abs() as usize)?;
+    Some(if e >= 0 {
+        m as f64 * ten
+    } else {
+        m as f64 / ten
+    })
+}
+
+/// A decimal `raw` as `(m, t)` with `raw` = `m` * 10^`t` and `m` without
+/// trailing zeros (0 stays 0).
+fn strip_zeros(raw: i128) -> (i128, i32) {
+    let (mut m, mut t) = (raw, 0);
+    while m != 0 && m % 10 == 0 {
+        m /= 10;
+        t += 1;
+    }
+    (m, t)
+}
+
+/// The unscaled value of a 256-bit decimal.
+type I256 = <arrow_array::types::Decimal256Type as arrow_array::ArrowPrimitiveType>::Native;
+
+/// [`strip_zeros`] of a 256-bit decimal (`m` saturated to `i128::MAX` when
+/// it has more digits than an `i128` holds: too many for a reading anyway).
+fn strip_zeros_256(raw: I256) -> (i128, i32) {
+    let ten = I256::from_i128(10);
+    let (mut m, mut t) = (raw, 0);
+    while m != I256::ZERO {
+        match m.checked_div_rem(ten) {
+            Some((q, r)) if r == I256::ZERO => {
+                m = q;
+                t += 1;
+            }
+            _ => break,
+        }
+    }
+    (m.to_i128().unwrap_or(i128::MAX), t)
+}
+
+/// How a decimal `m` * 10^`t` of scale `scale` reads: a whole number
+/// (`Integer`) when the scale is 0 or negative and it fits an `i64`, else a
+/// number (`Number`, the nearest double) when it has at most 15 significant
+/// digits (and its exponent is within 10^-22..10^22, where the nearest
+/// double is one exact operation); `None` otherwise.
+fn decimal_reading(m: i128, t: i32, scale: i8) -> Option<crate::rows::Field<'static>> {
+    use crate::rows::Field as F;
+    let e = t - i32::from(scale);
+    if scale <= 0 {
+        let whole = u32::try_from(e)
+            .ok()
+            .and_then(|e| 10i128.checked_pow(e))
+            .and_then(|p| m.checked_mul(p))
+            .and_then(|v| i64::try_from(v).ok());
+        if let Some(v) = whole {
+            return Some(F::Integer(v));
+        }
+    }
+    decimal_double(m, e).map(F::Number)
+}
+
+/// The decimal of scale `scale` that reads as `f` ([`decimal_reading`]),
+/// as `(m, k)`: its unscaled value is `m` * 10^`k` (`k` >= 0); `None` when
+/// no decimal of that scale reads as it.
+fn decimal_of(f: crate::rows::Field<'_>, scale: i8) -> Option<(i128, u32)> {
+    use crate::rows::Field as F;
+    let s = i32::from(scale);
+    match f {
+        F::Integer(i) => {
+            let i = i128::from(i);
+            if s >= 0 {
+                Some((i, s as u32))
+            } else {
+                let p = 10i128.checked_pow((-s) as u32)?;
+                (i % p == 0).then_some((i / p, 0))
+            }
+        }
+        F::Number(x) if x.is_finite() => {
+            // The decimal read was m * 10^e, |m| below 10^15, e from -22 to
+            // 22 and at least -scale (its unscaled value whole): the m of
+            // each e is x / 10^e rounded (exact, m being below 2^50), kept
+            // when it reads back as x.
+            (-22i32..=22).filter(|e| e + s >= 0).find_map(|e| {
+                let ten = EXACT_TENS[e.unsigned_abs() as usize];
+                let m = if e >= 0 { x / ten } else { x * ten }.round();
+                if m.abs() >= 1e15 {
+                    return None;
+                }
+                let m = m as i128;
+                (decimal_double(m, e) == Some(x)).then_some((m, (e + s) as u32))
+            })
+        }
+        _ => None,
+    }
+}
+
+/// The readings of a decimal column (see [`decimal_reading`]), whose first
+/// row is row `first` of the input; a value with no reading is an error
+/// naming its row. `parts` splits a value into [`strip_zeros`]'s `(m, t)`.
+fn decimals<T: arrow_array::types::DecimalType>(
+    a: &arrow_array::PrimitiveArray<T>,
+    scale: i8,
+    name: &str,
+    first: u64,
+    parts: impl Fn(T::Native) -> (i128, i32),
+) -> Result<ArrowColumn, Error> {
+    let mut values = Vec::with_capacity(a.len());
+    for i in 0..a.len() {
+        if a.is_null(i) {
+            values.push(crate::rows::Field::Null);
+            continue;
+        }
+        let raw = a.value(i);
+        let (m, t) = parts(raw);
+        let (m, t) = if t == 0 { strip_zeros(m) } else { (m, t) };
+        match decimal_reading(m, t, scale) {
+            Some(f) => values.push(f),
+            None => {
+                let shown = T::format_decimal(raw, T::MAX_PRECISION, scale);
+                let digits = if m == 0 {
+                    1
+                } else {
+                    m.unsigned_abs().ilog10() + 1
+                };
+                let why = if m == i128::MAX || digits > DECIMAL_DIGITS {
+                    format!(
+                        "which has more significant digits than the {DECIMAL_DIGITS} a number \
+                         keeps exactly"
+                    )
+                } else {
+                    "which is too large or too small to be read exactly as a number".to_string()
+                };
+                return Err(Error::data(
+                    Some(first + i as u64),
+                    format!(
+                        "column '{name}' holds the decimal {shown}, {why}; cast the column to \
+                         text (or round it to fewer digits)"
+                    ),
+                ));
+            }
+        }
+    }
+    Ok(ArrowColumn::Values(values))
+}
+
+/// The refusal of column `name`, of type `t`, that no reading of the
+/// engine's holds.
+fn unreadable_type(name: &str, t: &DataType) -> Error {
+    let what = match t {
+        DataType::Time32(_) | DataType::Time64(_) => "times of day".to_string(),
+        DataType::Duration(_) => "durations".to_string(),
+        DataType::Interval(_) => "intervals".to_string(),
+        DataType::List(_)
+        | DataType::LargeList(_)
+        | DataType::ListView(_)
+        | DataType::LargeListView(_)
+        | DataType::FixedSizeList(..) => "lists".to_string(),
+        DataType::Struct(_) => "structs".to_string(),
+        DataType::Map(..) => "maps".to_string(),
+        DataType::Union(..) => "unions".to_string(),
+        DataType::RunEndEncoded(..) => "run-end encoded values".to_string(),
+        other => format!("{other} values"),
+    };
+    Error::data(
+        None,
+        format!(
+            "column '{name}' holds {what} ({t}), which morbus cannot read: it reads text, \
+             whole or decimal numbers, true/false, dates and timestamps; cast the column to \
+             one of these first"
+        ),
+    )
+}
+
 impl ArrowColumn {
-    fn new(array: &ArrayRef, name: &str) -> Result<ArrowColumn, Error> {
-        use arrow_array::types::{Date32Type, Date64Type};
+    /// Column `name`'s `array`, whose first row is row `first` (1-based)
+    /// of the input: a value no reading holds exactly (an unsigned whole
+    /// number beyond `i64::MAX`, a decimal of more than 15 significant
+    /// digits) is an error naming its row (`Error::data` with the row as its
+    /// line, named by the source's [`crate::rows::RowNaming`]); a type with no
+    /// reading is refused before any row is read.
+    fn new(array: &ArrayRef, name: &str, first: u64) -> Result<ArrowColumn, Error> {
+        use arrow_array::types::{
+            Date32Type, Date64Type, Decimal128Type, Decimal256Type, Decimal32Type, Decimal64Type,
+            UInt64Type,
+        };
         let cast = |to: &DataType| {
             arrow_cast::cast(array, to)
                 .map_err(|e| Error::data(None, format!("column '{name}' cannot be read: {e}")))
         };
         Ok(match array.data_type() {
+            DataType::Null => ArrowColumn::Null,
             DataType::Utf8 => ArrowColumn::Utf8(array.as_string::<i32>().clone()),
             DataType::LargeUtf8 => ArrowColumn::LargeUtf8(array.as_string::<i64>().clone()),
             DataType::Utf8View => ArrowColumn::Utf8View(array.as_string_view().clone()),
             DataType::Binary => ArrowColumn::Binary(array.as_binary::<i32>().clone()),
             DataType::LargeBinary => ArrowColumn::LargeBinary(array.as_binary::<i64>().clone()),
+            DataType::BinaryView => ArrowColumn::BinaryView(array.as_binary_view().clone()),
+            DataType::FixedSizeBinary(_) => {
+                ArrowColumn::FixedBinary(array.as_fixed_size_binary().clone())
+            }
             DataType::Int8
             | DataType::Int16
             | DataType::Int32
@@ -1841,11 +2120,49 @@ impl ArrowColumn {
                     .as_primitive::<arrow_array::types::Int64Type>()
                     .clone(),
             ),
+            DataType::UInt64 => {
+                let a = array.as_primitive::<UInt64Type>();
+                let too_large =
+                    (0..a.len()).find(|&i| a.is_valid(i) && a.value(i) > i64::MAX as u64);
+                if let Some(i) = too_large {
+                    return Err(Error::data(
+                        Some(first + i as u64),
+                        format!(
+                            "column '{name}' holds the whole number {}, beyond the largest \
+                             whole number morbus reads ({}); cast the column to text",
+                            a.value(i),
+                            i64::MAX
+                        ),
+                    ));
+                }
+                // Every value fits: the cast keeps them all.
+                ArrowColumn::Int(
+                    cast(&DataType::Int64)?
+                        .as_primitive::<arrow_array::types::Int64Type>()
+                        .clone(),
+                )
+            }
             DataType::Float16 | DataType::Float32 | DataType::Float64 => ArrowColumn::Float(
                 cast(&DataType::Float64)?
                     .as_primitive::<arrow_array::types::Float64Type>()
                     .clone(),
             ),
+            DataType::Decimal32(_, scale) => {
+                let a = array.as_primitive::<Decimal32Type>();
+                decimals(a, *scale, name, first, |v| (i128::from(v), 0))?
+            }
+            DataType::Decimal64(_, scale) => {
+                let a = array.as_primitive::<Decimal64Type>();
+                decimals(a, *scale, name, first, |v| (i128::from(v), 0))?
+            }
+            DataType::Decimal128(_, scale) => {
+                let a = array.as_primitive::<Decimal128Type>();
+                decimals(a, *scale, name, first, strip_zeros)?
+            }
+            DataType::Decimal256(_, scale) => {
+                let a = array.as_primitive::<Decimal256Type>();
+                decimals(a, *scale, name, first, strip_zeros_256)?
+            }
             DataType::Boolean => ArrowColumn::Bool(array.as_boolean().clone()),
             DataType::Date32 => {
                 let a = array.as_primitive::<Date32Type>();
@@ -1863,7 +2180,22 @@ impl ArrowColumn {
             DataType::Dictionary(..) => {
                 let d = array.as_any_dictionary();
                 let keys = d.normalized_keys();
-                let values = ArrowColumn::new(d.values(), name)?;
+                // A dictionary's values are not rows: when one cannot be
+                // read, the column is read unpacked, so that a value no row
+                // holds stops nothing and one a row holds is named by it.
+                let values = match ArrowColumn::new(d.values(), name, 1) {
+                    Err(Error::Data { line: Some(_), .. }) => {
+                        let at: arrow_array::UInt64Array = (0..array.len())
+                            .map(|i| array.is_valid(i).then(|| keys[i] as u64))
+                            .collect();
+                        let plain = arrow_select::take::take(d.values().as_ref(), &at, None)
+                            .map_err(|e| {
+                                Error::data(None, format!("column '{name}' cannot be read: {e}"))
+                            })?;
+                        return ArrowColumn::new(&plain, name, first);
+                    }
+                    other => other?,
+                };
                 ArrowColumn::Dictionary(
                     (0..array.len())
                         .map(|i| array.is_valid(i).then(|| keys[i]))
@@ -1871,29 +2203,7 @@ impl ArrowColumn {
                     Box::new(values),
                 )
             }
-            _ => {
-                use std::fmt::Write as _;
-                let f = ArrayFormatter::try_new(array.as_ref(), &FORMAT).map_err(|e| {
-                    Error::data(
-                        None,
-                        format!(
-                            "column '{name}' holds {} values, which cannot be read: {e}",
-                            array.data_type()
-                        ),
-                    )
-                })?;
-                ArrowColumn::Formatted(
-                    (0..array.len())
-                        .map(|i| {
-                            array.is_valid(i).then(|| {
-                                let mut t = String::new();
-                                let _ = write!(t, "{}", f.value(i));
-                                t
-                            })
-                        })
-                        .collect(),
-                )
-            }
+            other => return Err(unreadable_type(name, other)),
         })
     }
 
@@ -1913,9 +2223,9 @@ impl ArrowColumn {
             ArrowColumn::Dictionary(keys, values) => {
                 keys[row].map_or(Field::Null, |k| values.field(k))
             }
-            ArrowColumn::Formatted(t) => t[row]
-                .as_deref()
-                .map_or(Field::Null, |t| Field::Text(t.as_bytes())),
+            ArrowColumn::BinaryView(a) if a.is_valid(row) => Field::Text(a.value(row)),
+            ArrowColumn::FixedBinary(a) if a.is_valid(row) => Field::Text(a.value(row)),
+            ArrowColumn::Values(v) => v[row],
             _ => Field::Null,
         }
     }
@@ -2221,7 +2531,7 @@ fn score_long_typed(
     let mut ids: Vec<ArrayRef> = Vec::new();
     let mut starts: Vec<u64> = Vec::new();
     let mut first = 1u64;
-    while let Some(batch) = rows.next_batch()? {
+    while let Some(batch) = rows.next_batch().map_err(|e| naming.name(e))? {
         let Some(b) = batch.record_batch() else {
             return Err(Error::data(
                 None,
@@ -2479,6 +2789,175 @@ mod tests {
     use arrow_array::{Int64Array, StringArray};
     use parquet::arrow::ArrowWriter;
 
+    /// The reading of column `a` (type `t`) at each row, or the error.
+    fn readings(a: ArrayRef) -> Result<Vec<crate::rows::Field<'static>>, Error> {
+        let c = ArrowColumn::new(&a, "d", 1)?;
+        Ok((0..a.len())
+            .map(|i| match c.field(i) {
+                crate::rows::Field::Text(_) => panic!("text"),
+                crate::rows::Field::Null => crate::rows::Field::Null,
+                crate::rows::Field::Integer(v) => crate::rows::Field::Integer(v),
+                crate::rows::Field::Number(v) => crate::rows::Field::Number(v),
+                crate::rows::Field::Logical(v) => crate::rows::Field::Logical(v),
+                crate::rows::Field::Date(v) => crate::rows::Field::Date(v),
+            })
+            .collect())
+    }
+
+    #[test]
+    fn decimals_read_as_whole_numbers_or_numbers_and_come_back_exactly() {
+        use crate::rows::Field as F;
+        use arrow_array::{Decimal128Array, Decimal256Array, Decimal32Array, Decimal64Array};
+        let d128 = |raw: Vec<Option<i128>>, p: u8, s: i8| -> ArrayRef {
+            Arc::new(
+                Decimal128Array::from(raw)
+                    .with_precision_and_scale(p, s)
+                    .unwrap(),
+            )
+        };
+        let cases: Vec<(ArrayRef, Vec<F<'static>>)> = vec![
+            // Scale 1: numbers (80.0 too).
+            (
+                d128(vec![Some(805), Some(800), None, Some(-1)], 5, 1),
+                vec![F::Number(80.5), F::Number(80.0), F::Null, F::Number(-0.1)],
+            ),
+            // Scale 0: whole numbers; beyond i64, numbers.
+            (
+                d128(vec![Some(7), Some(12 * 10i128.pow(20))], 38, 0),
+                vec![F::Integer(7), F::Number(1.2e21)],
+            ),
+            // Scale -2: whole hundreds.
+            (
+                d128(vec![Some(123), Some(-5)], 10, -2),
+                vec![F::Integer(12_300), F::Integer(-500)],
+            ),
+            // Fifteen digits, some of them after the point.
+            (
+                d128(vec![Some(999_999_999_999_999)], 15, 5),
+                vec![F::Number(9_999_999_999.999_99)],
+            ),
+            (
+                Arc::new(
+                    Decimal32Array::from(vec![Some(12_345)])
+                        .with_precision_and_scale(9, 2)
+                        .unwrap(),
+                ),
+                vec![F::Number(123.45)],
+            ),
+            (
+                Arc::new(
+                    Decimal64Array::from(vec![Some(-42)])
+                        .with_precision_and_scale(18, 0)
+                        .unwrap(),
+                ),
+                vec![F::Integer(-42)],
+            ),
+            (
+                Arc::new(
+                    // 25 * 10^38, beyond an i128: 0.25 at scale 40.
+                    Decimal256Array::from(vec![Some(
+                        I256::from_i128(25 * 10i128.pow(36))
+                            .checked_mul(I256::from_i128(100))
+                            .unwrap(),
+                    )])
+                    .with_precision_and_scale(76, 40)
+                    .unwrap(),
+                ),
+                vec![F::Number(0.25)],
+            ),
+        ];
+        for (a, expected) in cases {
+            let got = readings(a.clone()).unwrap();
+            assert_eq!(got, expected, "{}", a.data_type());
+            // The Parquet output's kept column gives the same decimals back.
+            let back = decimal_column(&got, a.data_type()).unwrap();
+            assert_eq!(back.as_ref(), a.as_ref());
+        }
+    }
+
+    #[test]
+    fn decimals_of_fifteen_digits_read_back_to_themselves_and_stay_apart() {
+        use crate::rows::Field as F;
+        // Neighbouring decimals of 15 digits, at several scales: each reads
+        // to its own number, and back to itself.
+        for (m, scale) in [
+            (999_999_999_999_999i128, 3i8),
+            (100_000_000_000_001, 14),
+            (123_456_789_012_345, 20),
+            (900_719_925_474_099, 0),
+            (1, 22),
+        ] {
+            let mut seen = Vec::new();
+            for raw in [m - 1, m, m + 1] {
+                let (sm, t) = strip_zeros(raw);
+                let f = decimal_reading(sm, t, scale).unwrap();
+                let F::Number(x) = f else {
+                    assert!(scale <= 0, "{raw} scale {scale}: {f:?}");
+                    continue;
+                };
+                assert!(!seen.contains(&x.to_bits()), "{raw} scale {scale}");
+                seen.push(x.to_bits());
+                let (bm, k) = decimal_of(f, scale).unwrap();
+                assert_eq!(bm * 10i128.pow(k), raw, "scale {scale}");
+            }
+        }
+        // Sixteen digits, or an exponent beyond 10^22: no reading.
+        assert_eq!(decimal_reading(1_234_567_890_123_456, 0, 2), None);
+        assert_eq!(decimal_reading(1, 0, 23), None);
+        let a: ArrayRef = Arc::new(
+            arrow_array::Decimal128Array::from(vec![Some(5), Some(1_234_567_890_123_456)])
+                .with_precision_and_scale(20, 2)
+                .unwrap(),
+        );
+        let e = readings(a).unwrap_err().to_string();
+        assert!(
+            e.contains("line 2") && e.contains("12345678901234.56"),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn unsigned_whole_numbers_beyond_i64_and_unreadable_types_are_refused() {
+        use crate::rows::Field as F;
+        let a: ArrayRef = Arc::new(arrow_array::UInt64Array::from(vec![
+            Some(i64::MAX as u64),
+            None,
+        ]));
+        assert_eq!(readings(a).unwrap(), [F::Integer(i64::MAX), F::Null]);
+        let a: ArrayRef = Arc::new(arrow_array::UInt64Array::from(vec![
+            Some(1),
+            Some(i64::MAX as u64 + 1),
+        ]));
+        let e = readings(a).unwrap_err().to_string();
+        assert!(
+            e.contains("line 2") && e.contains("9223372036854775808"),
+            "{e}"
+        );
+        let a: ArrayRef = Arc::new(arrow_array::NullArray::new(2));
+        assert_eq!(readings(a).unwrap(), [F::Null, F::Null]);
+        let a: ArrayRef = Arc::new(arrow_array::Time32SecondArray::from(vec![Some(60)]));
+        let e = readings(a).unwrap_err().to_string();
+        assert!(e.contains("column 'd' holds times of day"), "{e}");
+        // A dictionary's value that cannot be read is named by the first
+        // row holding it; one no row holds stops nothing.
+        let values: ArrayRef = Arc::new(arrow_array::UInt64Array::from(vec![1, u64::MAX, 5]));
+        let dictionary = |keys: Vec<Option<i32>>| -> ArrayRef {
+            let keys = arrow_array::Int32Array::from(keys);
+            Arc::new(arrow_array::DictionaryArray::try_new(keys, values.clone()).unwrap())
+        };
+        let e = readings(dictionary(vec![Some(0), None, Some(1), Some(1)]))
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("line 3") && e.contains("18446744073709551615"),
+            "{e}"
+        );
+        assert_eq!(
+            readings(dictionary(vec![Some(2), None, Some(0)])).unwrap(),
+            [F::Integer(5), F::Null, F::Integer(1)]
+        );
+    }
+
     #[test]
     fn kept_values_handed_over_typed_are_built_with_the_input_type() {
         use crate::rows::Field as F;
@@ -2506,18 +2985,18 @@ mod tests {
         assert_eq!((a.data_type(), a.null_count()), (&DataType::Float64, 2));
         let a = key_column(&[F::Null], &None);
         assert_eq!(a.data_type(), &DataType::Utf8);
-        // Decimals, read as Arrow's formatter writes them (1.50 is 150
-        // hundredths), are decimals again when every value comes back.
+        // Decimals, read as the numbers they are (1.50 as 1.5), are the
+        // decimals again (150 hundredths).
         let dec = DataType::Decimal128(10, 2);
         let a = key_column(
-            &[F::Text(b"1.50"), F::Null, F::Text(b"-0.25")],
+            &[F::Number(1.5), F::Null, F::Number(-0.25)],
             &Some(dec.clone()),
         );
         assert_eq!(a.data_type(), &dec);
         let d = a.as_primitive::<Decimal128Type>();
         assert_eq!((d.value(0), d.is_null(1), d.value(2)), (150, true, -25));
-        // Text that is not such a decimal stays text.
-        let a = key_column(&[F::Text(b"1.505"), F::Text(b"x")], &Some(dec));
+        // Text is never parsed into a decimal: it stays text.
+        let a = key_column(&[F::Text(b"1.50"), F::Text(b"x")], &Some(dec));
         assert_eq!(a.data_type(), &DataType::Utf8);
     }
 
