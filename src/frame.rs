@@ -357,8 +357,14 @@ struct Used {
     name: String,
 }
 
+/// Whether column `col` holds no value at all (nulls, and NaN: a missing
+/// number, as pandas writes an empty column of numbers).
 fn all_null(cols: &impl Columns, col: usize) -> bool {
-    (0..cols.rows()).all(|r| matches!(cols.field(col, r), Field::Null))
+    (0..cols.rows()).all(|r| match cols.field(col, r) {
+        Field::Null => true,
+        Field::Number(x) => x.is_nan(),
+        _ => false,
+    })
 }
 
 /// Refuses a column whose kind does not fit its role.

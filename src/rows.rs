@@ -322,7 +322,7 @@ pub trait Batch: Send + Sync {
     /// The Arrow record batch the rows are read from, when they are one (a
     /// Parquet input's): a typed sink copies its arrays or formats its
     /// values.
-    #[cfg(feature = "parquet")]
+    #[cfg(feature = "arrow")]
     fn record_batch(&self) -> Option<&arrow_array::RecordBatch> {
         None
     }

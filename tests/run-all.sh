@@ -10,6 +10,8 @@ cargo fmt --all --check
 cargo clippy --workspace --all-targets -- -D warnings
 # The library and command line without Parquet (feature `parquet` off).
 cargo clippy -p morbus --no-default-features --all-targets -- -D warnings
+# The library as the Python package builds it (Arrow rows, no Parquet).
+cargo clippy -p morbus --no-default-features --features arrow --lib -- -D warnings
 cargo test --workspace
 bash python/run-tests.sh
 bash python/wheel-test.sh

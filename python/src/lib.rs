@@ -3,8 +3,10 @@
 //! A thin layer over [`morbus::frame`]: it hands the library the options of
 //! a call ([`morbus::frame::Request`], with the command line's checks and
 //! messages), reads the columns the run uses through the Arrow C stream
-//! interface and shows them to the library through [`Columns`] (text read
-//! in place, integers, numbers, booleans, dates), runs
+//! interface and shows them to the library as an
+//! [`morbus::io::arrow_rows::ArrowFrame`] (the library's one reader of
+//! Arrow arrays, that of Parquet inputs: text read in place, integers,
+//! decimals, numbers, booleans, dates), runs
 //! [`morbus::frame::score`] or [`morbus::frame::explain`] without the GIL,
 //! and hands the typed results back as Arrow C streams. There is no scoring
 //! or history logic here; the frame handling (pandas, polars, pyarrow) is in
@@ -14,20 +16,18 @@ use std::ffi::CStr;
 use std::path::PathBuf;
 use std::sync::Arc;
 
-use arrow_array::cast::AsArray;
 use arrow_array::ffi_stream::{FFI_ArrowArrayStream, RecordBatchStreamReader};
-use arrow_array::types::*;
 use arrow_array::{
-    Array, ArrayRef, BooleanArray, Date32Array, Float64Array, Int64Array, Int8Array, RecordBatch,
+    Array, ArrayRef, Date32Array, Float64Array, Int64Array, Int8Array, RecordBatch,
     RecordBatchIterator, RecordBatchReader, StringArray,
 };
-use arrow_buffer::NullBuffer;
-use arrow_schema::{ArrowError, DataType, Field, Schema, SchemaRef, TimeUnit};
+use arrow_schema::{ArrowError, DataType, Field, Schema, SchemaRef};
 use pyo3::exceptions::{PyKeyError, PyTypeError, PyValueError};
 use pyo3::prelude::*;
 use pyo3::types::{PyCapsule, PyDict, PyList};
 
-use morbus::frame::{self, Columns, Explained, Field as Value, Kind, Request, ScoreColumn};
+use morbus::frame::{self, Explained, Request, ScoreColumn};
+use morbus::io::arrow_rows::ArrowFrame;
 use morbus::lists::{Catalogue, CodeList};
 use morbus::pipeline::{Edition, Header};
 use morbus::provenance::Provenance;
@@ -209,320 +209,6 @@ fn import_stream(obj: &Bound<'_, PyAny>) -> PyResult<Vec<RecordBatch>> {
     reader
         .collect::<Result<Vec<_>, ArrowError>>()
         .map_err(|e| PyValueError::new_err(format!("cannot read the Arrow stream: {e}")))
-}
-
-/// A text column of a batch.
-enum Text<'a> {
-    /// String or binary with 32-bit offsets (read straight from the buffers).
-    Offsets32 {
-        offsets: &'a [i32],
-        values: &'a [u8],
-        nulls: Option<&'a NullBuffer>,
-    },
-    /// Large string or large binary: 64-bit offsets.
-    Offsets64 {
-        offsets: &'a [i64],
-        values: &'a [u8],
-        nulls: Option<&'a NullBuffer>,
-    },
-    View(&'a arrow_array::StringViewArray),
-    BinaryView(&'a arrow_array::BinaryViewArray),
-    Dict {
-        array: &'a dyn Array,
-        keys: Vec<usize>,
-        values: Box<Text<'a>>,
-    },
-    /// Every value null.
-    Null,
-}
-
-impl<'a> Text<'a> {
-    /// A text view of an array, or `None` when its type holds no text.
-    fn new(array: &'a dyn Array) -> Option<Text<'a>> {
-        if array.null_count() == array.len() {
-            return Some(Text::Null);
-        }
-        fn o32<'a, T: arrow_array::types::ByteArrayType<Offset = i32>>(
-            a: &'a arrow_array::GenericByteArray<T>,
-        ) -> Text<'a> {
-            Text::Offsets32 {
-                offsets: a.value_offsets(),
-                values: a.value_data(),
-                nulls: a.nulls(),
-            }
-        }
-        fn o64<'a, T: arrow_array::types::ByteArrayType<Offset = i64>>(
-            a: &'a arrow_array::GenericByteArray<T>,
-        ) -> Text<'a> {
-            Text::Offsets64 {
-                offsets: a.value_offsets(),
-                values: a.value_data(),
-                nulls: a.nulls(),
-            }
-        }
-        Some(match array.data_type() {
-            DataType::Utf8 => o32(array.as_string::<i32>()),
-            DataType::LargeUtf8 => o64(array.as_string::<i64>()),
-            DataType::Binary => o32(array.as_binary::<i32>()),
-            DataType::LargeBinary => o64(array.as_binary::<i64>()),
-            DataType::Utf8View => Text::View(array.as_string_view()),
-            DataType::BinaryView => Text::BinaryView(array.as_binary_view()),
-            DataType::Dictionary(_, _) => {
-                let d = array.as_any_dictionary();
-                if d.values().is_empty() {
-                    return Some(Text::Null);
-                }
-                let values = Text::new(d.values().as_ref())?;
-                Text::Dict {
-                    array,
-                    keys: d.normalized_keys(),
-                    values: Box::new(values),
-                }
-            }
-            DataType::Null => Text::Null,
-            _ => return None,
-        })
-    }
-
-    #[inline]
-    fn get(&self, i: usize) -> &[u8] {
-        match self {
-            Text::Offsets32 {
-                offsets,
-                values,
-                nulls,
-            } => {
-                if nulls.is_some_and(|n| n.is_null(i)) {
-                    return b"";
-                }
-                &values[offsets[i] as usize..offsets[i + 1] as usize]
-            }
-            Text::Offsets64 {
-                offsets,
-                values,
-                nulls,
-            } => {
-                if nulls.is_some_and(|n| n.is_null(i)) {
-                    return b"";
-                }
-                &values[offsets[i] as usize..offsets[i + 1] as usize]
-            }
-            Text::View(a) => {
-                if a.is_null(i) {
-                    b""
-                } else {
-                    a.value(i).as_bytes()
-                }
-            }
-            Text::BinaryView(a) => {
-                if a.is_null(i) {
-                    b""
-                } else {
-                    a.value(i)
-                }
-            }
-            Text::Dict {
-                array,
-                keys,
-                values,
-            } => {
-                if array.is_null(i) {
-                    b""
-                } else {
-                    values.get(keys[i])
-                }
-            }
-            Text::Null => b"",
-        }
-    }
-
-    #[inline]
-    fn is_null(&self, i: usize) -> bool {
-        match self {
-            Text::Offsets32 { nulls, .. } | Text::Offsets64 { nulls, .. } => {
-                nulls.is_some_and(|n| n.is_null(i))
-            }
-            Text::View(a) => a.is_null(i),
-            Text::BinaryView(a) => a.is_null(i),
-            Text::Dict {
-                array,
-                keys,
-                values,
-            } => array.is_null(i) || values.is_null(keys[i]),
-            Text::Null => true,
-        }
-    }
-}
-
-/// One column of the frame as [`Columns`] reads it: text in place, other
-/// types as values (integers, numbers, dates as days, booleans).
-enum Col<'a> {
-    Text(Text<'a>),
-    Integer(Vec<Option<i64>>),
-    Number(Vec<Option<f64>>),
-    Logical(&'a BooleanArray),
-    /// Days since 1970-01-01.
-    Date(Vec<Option<i64>>),
-    /// A type the engine reads in no role (named in messages).
-    Other,
-}
-
-/// Whole numbers of an integer column (`None`: null; no value for other
-/// types). An unsigned value beyond `i64` is refused: it could not be read
-/// as the number it is.
-fn ints(array: &dyn Array, name: &str) -> PyResult<Option<Vec<Option<i64>>>> {
-    macro_rules! prim {
-        ($t:ty) => {
-            array
-                .as_primitive::<$t>()
-                .iter()
-                .map(|v| v.map(|x| x as i64))
-                .collect()
-        };
-    }
-    Ok(Some(match array.data_type() {
-        DataType::Int8 => prim!(Int8Type),
-        DataType::Int16 => prim!(Int16Type),
-        DataType::Int32 => prim!(Int32Type),
-        DataType::Int64 => prim!(Int64Type),
-        DataType::UInt8 => prim!(UInt8Type),
-        DataType::UInt16 => prim!(UInt16Type),
-        DataType::UInt32 => prim!(UInt32Type),
-        DataType::UInt64 => {
-            let a = array.as_primitive::<UInt64Type>();
-            let mut out = Vec::with_capacity(a.len());
-            for v in a.iter() {
-                out.push(match v {
-                    None => None,
-                    Some(x) => Some(i64::try_from(x).map_err(|_| {
-                        PyValueError::new_err(format!(
-                            "column '{name}' holds the whole number {x}, beyond the largest \
-                             morbus reads ({}); convert the column to text",
-                            i64::MAX
-                        ))
-                    })?),
-                });
-            }
-            out
-        }
-        _ => return Ok(None),
-    }))
-}
-
-/// Days since 1970-01-01 of a date or timestamp column (a timestamp with a
-/// time zone arrives here as local wall-clock time: see
-/// `morbus/_history.py`, `local_times`).
-fn days(array: &dyn Array) -> Option<Vec<Option<i64>>> {
-    macro_rules! per {
-        ($t:ty, $unit:expr) => {
-            array
-                .as_primitive::<$t>()
-                .iter()
-                .map(|v| v.map(|x| (x as i64).div_euclid($unit)))
-                .collect()
-        };
-    }
-    Some(match array.data_type() {
-        DataType::Date32 => per!(Date32Type, 1),
-        DataType::Date64 => per!(Date64Type, 86_400_000),
-        DataType::Timestamp(unit, _) => match unit {
-            TimeUnit::Second => per!(TimestampSecondType, 86_400),
-            TimeUnit::Millisecond => per!(TimestampMillisecondType, 86_400_000),
-            TimeUnit::Microsecond => per!(TimestampMicrosecondType, 86_400_000_000),
-            TimeUnit::Nanosecond => per!(TimestampNanosecondType, 86_400_000_000_000),
-        },
-        _ => return None,
-    })
-}
-
-impl<'a> Col<'a> {
-    fn new(array: &'a dyn Array, name: &str) -> PyResult<Col<'a>> {
-        if let Some(t) = Text::new(array) {
-            return Ok(Col::Text(t));
-        }
-        if let Some(v) = ints(array, name)? {
-            return Ok(Col::Integer(v));
-        }
-        Ok(match array.data_type() {
-            DataType::Float32 => Col::Number(
-                array
-                    .as_primitive::<Float32Type>()
-                    .iter()
-                    .map(|v| v.map(f64::from))
-                    .collect(),
-            ),
-            DataType::Float64 => Col::Number(array.as_primitive::<Float64Type>().iter().collect()),
-            DataType::Boolean => Col::Logical(array.as_boolean()),
-            _ => match days(array) {
-                Some(d) => Col::Date(d),
-                None => Col::Other,
-            },
-        })
-    }
-}
-
-/// The columns a run uses, fetched from the frame, as [`Columns`]: frame
-/// column `c` is `cols[c]` (`None`: not fetched, never read).
-struct Frame<'a> {
-    rows: usize,
-    cols: Vec<Option<(Col<'a>, String)>>,
-}
-
-impl Columns for Frame<'_> {
-    fn rows(&self) -> usize {
-        self.rows
-    }
-
-    fn kind(&self, col: usize) -> Kind {
-        match self.cols[col].as_ref().map(|c| &c.0) {
-            Some(Col::Text(_)) => Kind::Text,
-            Some(Col::Integer(_)) => Kind::Integer,
-            Some(Col::Number(_)) => Kind::Number,
-            Some(Col::Logical(_)) => Kind::Logical,
-            Some(Col::Date(_)) => Kind::Date,
-            Some(Col::Other) | None => Kind::Other,
-        }
-    }
-
-    fn type_name(&self, col: usize) -> String {
-        self.cols[col]
-            .as_ref()
-            .map_or_else(|| "unread".into(), |c| c.1.clone())
-    }
-
-    #[inline]
-    fn field(&self, col: usize, row: usize) -> Value<'_> {
-        match self.cols[col].as_ref().map(|c| &c.0) {
-            Some(Col::Text(t)) => {
-                if t.is_null(row) {
-                    Value::Null
-                } else {
-                    Value::Text(t.get(row))
-                }
-            }
-            Some(Col::Integer(v)) => v[row].map_or(Value::Null, Value::Integer),
-            Some(Col::Number(v)) => match v[row] {
-                Some(x) if !x.is_nan() => Value::Number(x),
-                _ => Value::Null,
-            },
-            Some(Col::Logical(b)) => {
-                if b.is_null(row) {
-                    Value::Null
-                } else {
-                    Value::Logical(b.value(row))
-                }
-            }
-            Some(Col::Date(v)) => v[row].map_or(Value::Null, Value::Date),
-            Some(Col::Other) | None => Value::Null,
-        }
-    }
-}
-
-fn type_name(t: &DataType) -> String {
-    match t {
-        DataType::Dictionary(_, v) => format!("dictionary of {v}"),
-        other => other.to_string(),
-    }
 }
 
 /// The options of a `score`, `explain` or `compare` call, as
@@ -708,17 +394,12 @@ fn fetch_batch(fetch: &Bound<'_, PyAny>, used: &[usize]) -> PyResult<RecordBatch
     }
 }
 
-/// The frame's columns `used` (fetched as `batch`) as [`Columns`].
-fn frame_view<'a>(batch: &'a RecordBatch, names: &[String], used: &[usize]) -> PyResult<Frame<'a>> {
-    let mut cols: Vec<Option<(Col<'a>, String)>> = (0..names.len()).map(|_| None).collect();
-    for (k, &c) in used.iter().enumerate() {
-        let a = batch.column(k).as_ref();
-        cols[c] = Some((Col::new(a, &names[c])?, type_name(a.data_type())));
-    }
-    Ok(Frame {
-        rows: batch.num_rows(),
-        cols,
-    })
+/// The frame's columns `used` (fetched as `batch`) as [`Columns`], read
+/// by the library's one reader of Arrow arrays (that of Parquet inputs);
+/// a value it cannot read is named by its frame row (from 0).
+fn frame_view(batch: &RecordBatch, names: &[String], used: &[usize]) -> PyResult<ArrowFrame> {
+    ArrowFrame::new(batch, names, used)
+        .map_err(|e| python_error(morbus::rows::RowNaming { first: 0, of: None }.name(e)))
 }
 
 /// The score columns as an Arrow batch: whole-number scores `Int64`,
@@ -803,7 +484,10 @@ fn score<'py>(
     let scored = py
         .detach(|| frame::score(&engine, &cfg, &header, &view, 0))
         .map_err(python_error)?;
-    let rows = scored.first_rows.as_ref().map_or(view.rows, Vec::len);
+    let rows = scored
+        .first_rows
+        .as_ref()
+        .map_or(frame::Columns::rows(&view), Vec::len);
     let result = score_batch(&engine, scored.columns, rows);
     let schema = result.schema();
     let first_rows = scored

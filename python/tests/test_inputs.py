@@ -161,6 +161,34 @@ def test_age_columns_of_every_kind(ages):
     assert prov["ages"] == {"missing": 1, "unreadable": 0}
 
 
+def test_arrow_decimals_and_unsigned_integers_read_as_the_numbers_they_hold():
+    """Frames are read by the library's one Arrow reader, that of Parquet
+    inputs: decimals and unsigned integers are numbers, other types are
+    refused by name, and a value no number holds exactly names its row."""
+    from decimal import Decimal
+
+    ages = [81, 40, 72, None, 55, 64, 90]
+    opts = dict(dx="dx*", age="age", index="charlson:charlson1987")
+    ref = morbus.score(pd.DataFrame({"dx1": DX1, "dx2": DX2, "age": ages}), **opts)
+    plain = lambda col: [None if pd.isna(v) else int(v) for v in col]  # noqa: E731
+    want = plain(ref["charlson_charlson1987_age"])
+    # the age points of test_age_columns_of_every_kind (Charlson et al. 1987)
+    assert want == [b + p if p is not None else None for b, p in zip(plain(ref["charlson_charlson1987"]), [4, 0, 3, None, 1, 2, 4])]
+    base = pa.table({"dx1": DX1, "dx2": DX2})
+    halves = [None if a is None else Decimal(a) + Decimal("0.5") for a in ages]
+    for age in (pa.array(halves, type=pa.decimal128(5, 1)), pa.array(ages, type=pa.uint64())):
+        out = morbus.score(base.append_column("age", age), **opts)
+        if not isinstance(out, pd.DataFrame):
+            out = out.to_pandas()
+        assert plain(out["charlson_charlson1987_age"]) == want, age.type
+    listed = base.append_column("dx3", pa.array([["I10"]] * 7))
+    with pytest.raises(ValueError, match=r"column 'dx3' holds lists .*which morbus cannot read"):
+        morbus.score(listed, dx="dx*")
+    huge = base.append_column("id", pa.array([1, 2, 2**64 - 1, 4, 5, 6, 7], type=pa.uint64()))
+    with pytest.raises(ValueError, match=r"^row 2: column 'id' holds the whole number 18446744073709551615"):
+        morbus.score(huge, dx="dx*", layout="long", id="id")
+
+
 def test_unreadable_ages_are_counted_and_strict_refuses_them():
     df = pd.DataFrame({"dx1": DX1, "dx2": DX2, "age": [-1, 151, 80, 200.5, np.inf, 3, 0]})
     out, prov = morbus.score(df, dx="dx*", age="age", provenance=True)

@@ -4,6 +4,8 @@
 //! Parquet in and out ([`parquet`]); the value records a run hands a typed
 //! output ([`value_records`]).
 
+#[cfg(feature = "arrow")]
+pub mod arrow_rows;
 pub mod atomic;
 mod blocks;
 mod extract;
