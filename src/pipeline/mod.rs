@@ -94,13 +94,19 @@ pub enum PoaReading {
 /// ```
 pub fn read_poa(counting: &[String], raw: &[u8]) -> PoaReading {
     let v = raw.trim_ascii();
-    let is = |p: &str| {
+    poa_reading(counting, |p| {
         if p == POA_BLANK {
             v.is_empty()
         } else {
             p.as_bytes().eq_ignore_ascii_case(v)
         }
-    };
+    })
+}
+
+/// What an indicator says, given which of the values (of `counting`, then
+/// of the guidelines) it is: the one rule of [`read_poa`] and
+/// [`read_poa_field`].
+fn poa_reading(counting: &[String], is: impl Fn(&str) -> bool) -> PoaReading {
     if counting.iter().any(|p| is(p)) {
         PoaReading::Present
     } else if KNOWN_POA_VALUES.iter().any(|p| is(p)) {
@@ -129,21 +135,14 @@ pub fn read_poa(counting: &[String], raw: &[u8]) -> PoaReading {
 /// assert_eq!(read_poa_field(&counting, Field::Logical(true)), PoaReading::Unrecognised);
 /// ```
 pub fn read_poa_field(counting: &[String], field: Field<'_>) -> PoaReading {
-    let is: &dyn Fn(&str) -> bool = match field {
-        Field::Text(t) => return read_poa(counting, t),
-        Field::Null => return read_poa(counting, b""),
-        Field::Number(x) if x.is_nan() => return read_poa(counting, b""),
-        Field::Logical(b) => return read_poa(counting, if b { b"true" } else { b"false" }),
-        Field::Date(_) => return PoaReading::Unrecognised,
-        Field::Integer(i) => &move |p: &str| p.parse::<i64>() == Ok(i),
-        Field::Number(x) => &move |p: &str| p.parse::<f64>() == Ok(x),
-    };
-    if counting.iter().any(|p| is(p)) {
-        PoaReading::Present
-    } else if KNOWN_POA_VALUES.iter().any(|p| is(p)) {
-        PoaReading::NotPresent
-    } else {
-        PoaReading::Unrecognised
+    match field {
+        Field::Text(t) => read_poa(counting, t),
+        Field::Null => read_poa(counting, b""),
+        Field::Number(x) if x.is_nan() => read_poa(counting, b""),
+        Field::Logical(b) => read_poa(counting, if b { b"true" } else { b"false" }),
+        Field::Date(_) => PoaReading::Unrecognised,
+        Field::Integer(i) => poa_reading(counting, |p| p.parse::<i64>() == Ok(i)),
+        Field::Number(x) => poa_reading(counting, |p| p.parse::<f64>() == Ok(x)),
     }
 }
 
